@@ -1,0 +1,73 @@
+/** Domain types of the corpus stage: inputs, chunks, normalisation and read statistics. */
+
+export type InputFormat = 'text' | 'jsonl';
+
+/** One input shard as recorded in the job manifest. */
+export interface InputFile {
+  /** Absolute path. */
+  path: string;
+  /** Size on disk in bytes (compressed size for gzip). */
+  bytes: number;
+  mtimeMs: number;
+  /** True when the file starts with the gzip magic bytes 1f 8b (whatever its name). */
+  gzip: boolean;
+  format: InputFormat;
+  /** sha256 (hex) of the size, the first and the last FINGERPRINT_EDGE_BYTES of the file. */
+  fingerprint: string;
+}
+
+/**
+ * A unit of reading work: a line-aligned byte range of one input. A plain file may be split into
+ * several chunks; a gzip file is always one chunk covering the whole file.
+ * `byteStart` is 0 or the offset just after a '\n'; `byteEnd` is exclusive and is the file size or
+ * the offset just after a '\n'.
+ */
+export interface Chunk {
+  index: number;
+  fileIndex: number;
+  byteStart: number;
+  byteEnd: number;
+}
+
+export type UnicodeForm = 'none' | 'nfc' | 'nfkc';
+export type SplitMode = 'space' | 'chars';
+
+/** How a sentence becomes tokens (README: "Normalisation"). */
+export interface NormalizeOptions {
+  /** Lower-case with String.prototype.toLowerCase (locale-independent). */
+  lowercase: boolean;
+  /** Unicode normalisation applied before splitting. */
+  unicode: UnicodeForm;
+  /** 'space': tokens are separated by white space; 'chars': every non-space character is a token. */
+  split: SplitMode;
+}
+
+export interface ReadOptions {
+  format: InputFormat;
+  /** For JSONL: the path of the text field, e.g. ['body', 'text'] for `--text-field body.text`. */
+  textField: string[] | undefined;
+  /** Skip bad lines/records (counted and reported) instead of stopping. */
+  skipBad: boolean;
+}
+
+/** One skipped line or record, kept as an example for the report (a bounded number per file). */
+export interface SkippedSample {
+  line: number | undefined;
+  byteOffset: number;
+  reason: string;
+}
+
+/** What reading one chunk saw. Sums over chunks account for every input line. */
+export interface ReadStats {
+  /** Input bytes consumed (compressed bytes for gzip). */
+  bytesRead: number;
+  /** Physical lines of the file range (JSONL: records). */
+  lines: number;
+  /** Sentences handed on (non-empty after normalisation). */
+  sentences: number;
+  /** Lines (or lines inside JSONL text fields) that were empty or held only white space. */
+  emptyLines: number;
+  /** Lines or records skipped as bad (only with skipBad). */
+  skipped: number;
+  skippedSamples: SkippedSample[];
+}

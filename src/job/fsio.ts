@@ -1,0 +1,134 @@
+/**
+ * The one small file-system interface that every stage writes through, so tests can inject
+ * faults (fail after N operations, once or from then on; a full disk) without touching the stages.
+ */
+import { promises as fsp } from 'node:fs';
+import * as path from 'node:path';
+import { ioError } from '../errors.ts';
+
+/** A file opened for writing, appended to in order. */
+export interface WritableFile {
+  write(data: Uint8Array): Promise<void>;
+  /** Flushes to stable storage. */
+  sync(): Promise<void>;
+  close(): Promise<void>;
+}
+
+export interface StageFs {
+  /** Creates (truncating) a file for writing. */
+  create(filePath: string): Promise<WritableFile>;
+  rename(from: string, to: string): Promise<void>;
+  unlink(filePath: string): Promise<void>;
+  mkdir(dirPath: string): Promise<void>;
+  /** Flushes a directory's entries (after a rename) to stable storage. */
+  syncDir(dirPath: string): Promise<void>;
+}
+
+class NodeWritableFile implements WritableFile {
+  constructor(private readonly handle: fsp.FileHandle, private readonly filePath: string) {}
+  async write(data: Uint8Array): Promise<void> {
+    try {
+      let offset = 0;
+      while (offset < data.byteLength) {
+        const { bytesWritten } = await this.handle.write(data, offset, data.byteLength - offset);
+        offset += bytesWritten;
+      }
+    } catch (cause) {
+      throw ioError('write', this.filePath, cause);
+    }
+  }
+  async sync(): Promise<void> {
+    try { await this.handle.sync(); } catch (cause) { throw ioError('sync', this.filePath, cause); }
+  }
+  async close(): Promise<void> {
+    try { await this.handle.close(); } catch (cause) { throw ioError('close', this.filePath, cause); }
+  }
+}
+
+/** The real file system. */
+export const nodeFs: StageFs = {
+  async create(filePath) {
+    try {
+      return new NodeWritableFile(await fsp.open(filePath, 'w'), filePath);
+    } catch (cause) {
+      throw ioError('create', filePath, cause);
+    }
+  },
+  async rename(from, to) {
+    try { await fsp.rename(from, to); } catch (cause) { throw ioError('rename', `${from} to ${to}`, cause); }
+  },
+  async unlink(filePath) {
+    try { await fsp.rm(filePath, { force: true }); } catch (cause) { throw ioError('remove', filePath, cause); }
+  },
+  async mkdir(dirPath) {
+    try { await fsp.mkdir(dirPath, { recursive: true }); } catch (cause) { throw ioError('create directory', dirPath, cause); }
+  },
+  async syncDir(dirPath) {
+    let handle: fsp.FileHandle | undefined;
+    try {
+      handle = await fsp.open(dirPath, 'r');
+      await handle.sync();
+    } catch (cause) {
+      throw ioError('sync directory', dirPath, cause);
+    } finally {
+      await handle?.close();
+    }
+  },
+};
+
+/**
+ * Writes `data` to `filePath` atomically: a temporary file beside it, fsync, rename, fsync of the
+ * directory. A crash leaves either the old file or the new one, never a half-written one.
+ */
+export async function writeFileAtomic(fs: StageFs, filePath: string, data: Uint8Array | string): Promise<void> {
+  const bytes = typeof data === 'string' ? Buffer.from(data, 'utf8') : data;
+  const tmpPath = `${filePath}.${process.pid}.tmp`;
+  const file = await fs.create(tmpPath);
+  try {
+    await file.write(bytes);
+    await file.sync();
+  } finally {
+    await file.close();
+  }
+  await fs.rename(tmpPath, filePath);
+  await fs.syncDir(path.dirname(filePath));
+}
+
+export interface FaultPlan {
+  /** Operations that succeed before the first failure. */
+  failAfterOperations: number;
+  /** 'once': only the next operation fails; 'always': every operation from then on fails. */
+  mode: 'once' | 'always';
+  /** errno code of the injected failure, e.g. 'EIO' or 'ENOSPC'. */
+  errno: string;
+}
+
+/** Wraps a StageFs so that operations fail according to `plan` (tests only). */
+export function faultyFs(base: StageFs, plan: FaultPlan): StageFs & { operations: () => number } {
+  let operations = 0;
+  let failed = false;
+  const check = (what: string, target: string): void => {
+    operations += 1;
+    if (operations <= plan.failAfterOperations) return;
+    if (plan.mode === 'once' && failed) return;
+    failed = true;
+    const cause = Object.assign(new Error(`${plan.errno}: injected fault`), { code: plan.errno });
+    throw ioError(what, target, cause);
+  };
+  return {
+    operations: () => operations,
+    async create(filePath) {
+      check('create', filePath);
+      const file = await base.create(filePath);
+      return {
+        write: async (data) => { check('write', filePath); await file.write(data); },
+        sync: async () => { check('sync', filePath); await file.sync(); },
+        close: () => file.close(),
+      };
+    },
+    async rename(from, to) { check('rename', from); await base.rename(from, to); },
+    async unlink(filePath) { check('remove', filePath); await base.unlink(filePath); },
+    async mkdir(dirPath) { check('create directory', dirPath); await base.mkdir(dirPath); },
+    async syncDir(dirPath) { check('sync directory', dirPath); await base.syncDir(dirPath); },
+  };
+}

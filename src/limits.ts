@@ -1,0 +1,114 @@
+/**
+ * Every limit of Quern in one place, each with the reason for its value. Relations between
+ * limits are asserted at load time (bottom of the file).
+ */
+import { assert } from './errors.ts';
+
+// ---- Shared -------------------------------------------------------------------------------
+
+/** Highest n-gram order accepted. 7 covers every use we know of; keys stay ≤ 28 bytes. */
+export const ORDER_MAX = 7;
+
+/** Word ids are uint32; the top ids are reserved so a vocabulary can never reach them. */
+export const VOCAB_TYPES_MAX = 0xffff_fff0;
+
+// ---- Corpus (reading, chunking, tokenising) -------------------------------------------------
+
+/** Bytes hashed from each end of an input for its fingerprint: cheap even for a 100 GB shard. */
+export const FINGERPRINT_EDGE_BYTES = 1 << 20;
+
+/** Target size of a chunk of a plain input: large enough to amortise a spill per chunk,
+ *  small enough that both cores stay busy on a single 200 MB shard and a lost chunk is cheap. */
+export const CHUNK_BYTES_TARGET = 32 << 20;
+
+/** Read block size for streaming readers. */
+export const READ_BLOCK_BYTES = 1 << 20;
+
+/** Longest line accepted (bytes). Beyond this a "line" is almost surely binary or a missing
+ *  newline; it is reported as bad input rather than growing a buffer without bound. */
+export const LINE_BYTES_MAX = 64 << 20;
+
+/** Skipped-line examples kept per input file for the report; the count is always exact. */
+export const SKIPPED_SAMPLES_PER_FILE_MAX = 20;
+
+/** Inputs opened at once while discovering (magic bytes, fingerprint). Enough to hide disk
+ *  latency; far below the usual 1024 open-file limit even with a directory of 100,000 shards. */
+export const DISCOVER_FILES_OPEN_MAX = 16;
+
+/** Bytes read per step when the planner scans forward from a target offset to the next '\n'.
+ *  Lines are short, so one small read almost always finds it; no need to read a whole block. */
+export const PLAN_SCAN_BLOCK_BYTES = 64 << 10;
+
+// ---- Count (counters, spills, run files) -----------------------------------------------------
+
+/** Partitions of the n-gram space (by a hash of the context). Each partition is an independent
+ *  merge/estimate task; 16 keeps two cores busy with room for uneven partitions. */
+export const PARTITIONS_DEFAULT = 16;
+export const PARTITIONS_MAX = 4096;
+
+/** Records per run-file block. With ids ranked by frequency an order-3 record codes to 5–8 bytes,
+ *  so a block is about 40–64 KiB: its 12-byte header, first n-gram and checksum cost < 0.1 %, and a
+ *  reader needs only one block in memory at a time. */
+export const RUN_BLOCK_RECORDS_MAX = 8192;
+
+/** Bytes of one coded run-file record at most: the shared-prefix byte, ORDER_MAX ids of ≤ 5 varint
+ *  bytes each (32 bits / 7), and a count of ≤ 8 varint bytes (53 bits / 7). */
+export const RUN_RECORD_BYTES_MAX = 1 + 5 * ORDER_MAX + 8;
+
+/** Bytes of one run-file block at most (header, first n-gram, records): bounds every block-length
+ *  field a reader trusts, so a damaged length can never make it allocate more than this. */
+export const RUN_BLOCK_BYTES_MAX = 12 + 4 * ORDER_MAX + RUN_BLOCK_RECORDS_MAX * RUN_RECORD_BYTES_MAX;
+
+/** Read buffer of one run reader: holds the largest possible block; a merge of 256 runs then
+ *  needs 128 MiB of read buffers, and typical ~64 KiB blocks take 8 blocks per read call. */
+export const RUN_READ_BUFFER_BYTES = 512 << 10;
+
+/** Write buffer of the run writer: encoded blocks collect here, so a spill writes in 1 MiB calls. */
+export const RUN_WRITE_BUFFER_BYTES = 1 << 20;
+
+/** Largest count (and sum of counts) in a run file: counts are JS numbers, exact up to 2^53 − 1. */
+export const RUN_COUNT_MAX = Number.MAX_SAFE_INTEGER;
+
+/** Distinct n-grams per batch yielded by the k-way merge of runs: one block's worth, so a merge
+ *  batch is ~160 KiB at order 3 and downstream writers get large, regular units. */
+export const MERGE_BATCH_RECORDS = 8192;
+
+assert(RUN_READ_BUFFER_BYTES >= RUN_BLOCK_BYTES_MAX, 'a run reader buffer holds the largest block');
+assert(RUN_WRITE_BUFFER_BYTES >= 64 + RUN_BLOCK_BYTES_MAX + 32, 'a run writer buffer holds header, one block and trailer');
+
+// ---- Counters and memory (count workers) -----------------------------------------------------
+
+/** Highest load factor of a counter table before it grows or spills: linear probing stays at
+ *  about 2 probes per lookup up to 0.7. */
+export const COUNTER_LOAD_MAX = 0.7;
+
+/** Initial slots of a counter table (power of two): small, so 7 orders × many workers start cheap. */
+export const COUNTER_SLOTS_MIN = 1 << 12;
+
+/** Scratch bytes per counter entry during a spill (the radix sort's two uint32 permutations plus a
+ *  uint16 digit), charged against the budget with the table itself. */
+export const SPILL_SORT_BYTES_PER_ENTRY = 10;
+
+/** Estimated bytes per vocabulary type held by each worker (a Map entry with a short string),
+ *  charged against `--memory` before the counters get theirs. */
+export const VOCAB_BYTES_PER_TYPE = 120;
+
+/** Memory kept outside the counting budget: Node's heap and code per thread, read buffers.
+ *  Measured by `npm run bench:count` (DEVELOPERS.md states the figure). */
+export const PROCESS_OVERHEAD_BYTES = 96 << 20;
+export const WORKER_OVERHEAD_BYTES = 48 << 20;
+
+/** Smallest counting budget per worker that still makes progress. */
+export const WORKER_COUNTER_BYTES_MIN = 4 << 20;
+
+/** Default `--memory`: a quarter of the machine, at least 1 GiB. */
+export const MEMORY_DEFAULT_FRACTION = 0.25;
+
+// ---- Listing -------------------------------------------------------------------------------
+
+/** N-grams `quern ngrams --by-count` sorts in memory when no --limit is given (≈ 40 B each). */
+export const LISTING_SORT_ENTRIES_MAX = 20_000_000;
+
+// ---- Assertions on relations between limits -------------------------------------------------
+assert(CHUNK_BYTES_TARGET >= READ_BLOCK_BYTES, 'a chunk holds at least one read block');
+assert(LINE_BYTES_MAX >= READ_BLOCK_BYTES, 'a line may span read blocks');

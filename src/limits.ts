@@ -46,9 +46,9 @@ export const PLAN_SCAN_BLOCK_BYTES = 64 << 10;
 export const PARTITIONS_DEFAULT = 16;
 export const PARTITIONS_MAX = 4096;
 
-/** Records per run-file block. With ids ranked by frequency an order-3 record codes to 5–8 bytes,
- *  so a block is about 40–64 KiB: its 12-byte header, first n-gram and checksum cost < 0.1 %, and a
- *  reader needs only one block in memory at a time. */
+/** Records per run-file block. With ids ranked by frequency an order-3 record codes to 4–8 bytes,
+ *  so a block is about 32–64 KiB: its header, first n-gram and checksum cost < 0.1 %, and a reader
+ *  needs only one block in memory at a time. */
 export const RUN_BLOCK_RECORDS_MAX = 8192;
 
 /** Bytes of one coded run-file record at most: the shared-prefix byte, ORDER_MAX ids of ≤ 5 varint

@@ -1,0 +1,218 @@
+/**
+ * K-way merge of sorted runs of one order: distinct n-grams in lexicographic order of their id
+ * tuples, with the counts of equal n-grams summed across runs.
+ *
+ * A loser tree over the runs' current rows picks the smallest in ⌈log2 k⌉ comparisons per record.
+ * The current row of every run is copied into one shared `heads` array, so every comparison reads
+ * one typed array. The hot loop (`LoserTreeMerger.fill`) is synchronous; it returns to the async
+ * generator only when the output batch is full or a run needs its next block.
+ */
+import { assert } from '../errors.ts';
+import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX } from '../limits.ts';
+import type { RunBatch, RunReader } from './run-file.ts';
+
+/** `fill` stopped because every run is used up. */
+const FILL_DONE = -1;
+/** `fill` stopped because the output batch is full and the next row is a new n-gram. */
+const FILL_OUTPUT_FULL = -2;
+
+/** Merge state over k sources; knows nothing of files, only of their current blocks. */
+class LoserTreeMerger {
+  readonly order: number;
+  readonly sourceCount: number;
+  /** Current row of each source, row-major: source s at heads[s*order ..]. */
+  readonly heads: Uint32Array;
+  readonly headCounts: Float64Array;
+  /** 1 when a source has no rows left: it sorts above every row. */
+  readonly exhausted: Uint8Array;
+  /** tree[0] is the winner (smallest head); tree[1..k) hold the losers at the internal nodes. */
+  readonly tree: Int32Array;
+  readonly batches: (RunBatch | null)[];
+  readonly rowIndexes: Int32Array;
+  outKeys: Uint32Array;
+  outCounts: Float64Array;
+  outSize = 0;
+
+  /** Names of the sources, for messages. */
+  readonly sourceNames: string[];
+
+  constructor(sourceNames: string[], order: number) {
+    const sourceCount = sourceNames.length;
+    this.order = order;
+    this.sourceCount = sourceCount;
+    this.sourceNames = sourceNames;
+    this.heads = new Uint32Array(Math.max(1, sourceCount) * order);
+    this.headCounts = new Float64Array(sourceCount);
+    this.exhausted = new Uint8Array(sourceCount);
+    this.tree = new Int32Array(Math.max(1, sourceCount));
+    this.batches = new Array<RunBatch | null>(sourceCount).fill(null);
+    this.rowIndexes = new Int32Array(sourceCount);
+    this.outKeys = new Uint32Array(MERGE_BATCH_RECORDS * order);
+    this.outCounts = new Float64Array(MERGE_BATCH_RECORDS);
+  }
+
+  /** Installs source s's next block (null: the source is used up) and loads its first row. */
+  setBatch(s: number, batch: RunBatch | null): void {
+    this.batches[s] = batch;
+    this.rowIndexes[s] = 0;
+    if (batch === null) {
+      this.exhausted[s] = 1;
+      return;
+    }
+    this.heads.set(batch.keys.subarray(0, this.order), s * this.order);
+    this.headCounts[s] = batch.counts[0];
+  }
+
+  /** True when source a's head sorts before source b's (ties by source index, for determinism). */
+  less(a: number, b: number): boolean {
+    const exhausted = this.exhausted;
+    if (exhausted[a] !== 0) return false;
+    if (exhausted[b] !== 0) return true;
+    const heads = this.heads;
+    let i = a * this.order;
+    let j = b * this.order;
+    const end = i + this.order;
+    while (i < end && heads[i] === heads[j]) {
+      i++;
+      j++;
+    }
+    return i === end ? a < b : heads[i] < heads[j];
+  }
+
+  /** Builds the tree once every source has its first block: leaves k..2k−1, children of p are 2p, 2p+1. */
+  build(): void {
+    const k = this.sourceCount;
+    if (k === 0) return;
+    const winners = new Int32Array(2 * k);
+    for (let s = 0; s < k; s++) winners[k + s] = s;
+    for (let p = k - 1; p >= 1; p--) {
+      const a = winners[2 * p];
+      const b = winners[2 * p + 1];
+      const aWins = this.less(a, b);
+      winners[p] = aWins ? a : b;
+      this.tree[p] = aWins ? b : a;
+    }
+    this.tree[0] = k === 1 ? 0 : winners[1];
+  }
+
+  /** Replays the path from source s's leaf to the root after its head changed. */
+  replay(s: number): void {
+    const tree = this.tree;
+    let winner = s;
+    for (let p = (s + this.sourceCount) >> 1; p >= 1; p >>= 1) {
+      const contender = tree[p];
+      if (this.less(contender, winner)) {
+        tree[p] = winner;
+        winner = contender;
+      }
+    }
+    tree[0] = winner;
+  }
+
+  /**
+   * Moves rows to the output until it is full (FILL_OUTPUT_FULL), every source is used up
+   * (FILL_DONE), or a source's block is used up: then returns that source's index, and the caller
+   * installs its next block with setBatch and calls replay before calling fill again.
+   */
+  fill(): number {
+    const order = this.order;
+    const heads = this.heads;
+    const headCounts = this.headCounts;
+    const outKeys = this.outKeys;
+    const outCounts = this.outCounts;
+    let outSize = this.outSize;
+    for (;;) {
+      const w = this.tree[0];
+      if (this.sourceCount === 0 || this.exhausted[w] !== 0) {
+        this.outSize = outSize;
+        return FILL_DONE;
+      }
+      const h = w * order;
+      let c = 1;
+      if (outSize > 0) {
+        const last = (outSize - 1) * order;
+        let j = 0;
+        while (j < order && heads[h + j] === outKeys[last + j]) j++;
+        c = j === order ? 0 : heads[h + j] < outKeys[last + j] ? -1 : 1;
+      }
+      if (c === 0) {
+        const sum = outCounts[outSize - 1] + headCounts[w];
+        // Checked with `if` so the message is built only on failure: this runs once per record.
+        if (sum > RUN_COUNT_MAX) assert(false, `merged count ${sum} exceeds ${RUN_COUNT_MAX}`);
+        outCounts[outSize - 1] = sum;
+      } else {
+        if (c < 0) assert(false, `merge input out of order: a row of ${this.sourceNames[w]} is below the last merged row`);
+        if (outSize === MERGE_BATCH_RECORDS) {
+          this.outSize = outSize;
+          return FILL_OUTPUT_FULL;
+        }
+        const o = outSize * order;
+        for (let j = 0; j < order; j++) outKeys[o + j] = heads[h + j];
+        outCounts[outSize] = headCounts[w];
+        outSize += 1;
+      }
+      const batch = this.batches[w] as RunBatch;
+      const row = this.rowIndexes[w] + 1;
+      if (row === batch.recordCount) {
+        this.outSize = outSize;
+        return w;
+      }
+      this.rowIndexes[w] = row;
+      const keys = batch.keys;
+      for (let j = 0, r = row * order; j < order; j++, r++) heads[h + j] = keys[r];
+      headCounts[w] = batch.counts[row];
+      this.replay(w);
+    }
+  }
+
+  /** Hands out the output batch (trimmed to its size) and starts a new one. */
+  takeOutput(): RunBatch {
+    const size = this.outSize;
+    const batch: RunBatch =
+      size === MERGE_BATCH_RECORDS
+        ? { keys: this.outKeys, counts: this.outCounts, recordCount: size }
+        : { keys: this.outKeys.slice(0, size * this.order), counts: this.outCounts.slice(0, size), recordCount: size };
+    this.outKeys = new Uint32Array(MERGE_BATCH_RECORDS * this.order);
+    this.outCounts = new Float64Array(MERGE_BATCH_RECORDS);
+    this.outSize = 0;
+    return batch;
+  }
+}
+
+/**
+ * Merges `readers` (all of n-gram order `order`) and yields batches of 1..MERGE_BATCH_RECORDS
+ * distinct n-grams, strictly increasing within and across batches, with counts summed over all
+ * runs (`keys.length === recordCount * order`). The merge owns the readers: it reads each to its
+ * end (which closes it) and closes all of them if the consumer stops early or a reader fails
+ * ('corrupt' or 'io' QuernError, passed on). Rows out of order across the inputs, or a merged
+ * count above RUN_COUNT_MAX, are assertion failures.
+ */
+export async function* mergeRuns(readers: RunReader[], order: number): AsyncGenerator<RunBatch> {
+  try {
+    for (const reader of readers) {
+      assert(reader.info.order === order, `run ${reader.filePath} has order ${reader.info.order}, merge expects ${order}`);
+    }
+    const merger = new LoserTreeMerger(readers.map((reader) => reader.filePath), order);
+    const nextBatch = async (s: number): Promise<RunBatch | null> => {
+      let batch: RunBatch | null;
+      do batch = await readers[s].nextBatch();
+      while (batch !== null && batch.recordCount === 0);
+      return batch;
+    };
+    for (let s = 0; s < readers.length; s++) merger.setBatch(s, await nextBatch(s));
+    merger.build();
+    for (;;) {
+      const stop = merger.fill();
+      if (stop === FILL_DONE) break;
+      if (stop === FILL_OUTPUT_FULL) {
+        yield merger.takeOutput();
+      } else {
+        merger.setBatch(stop, await nextBatch(stop));
+        merger.replay(stop);
+      }
+    }
+    if (merger.outSize > 0) yield merger.takeOutput();
+  } finally {
+    await Promise.all(readers.map((reader) => reader.close().catch(() => {})));
+  }
+}

@@ -17,6 +17,12 @@ import { crc32 } from 'node:zlib';
 import { assert, ioError, QuernError } from '../errors.ts';
 import type { StageFs, WritableFile } from '../job/fsio.ts';
 import {
+  BLOCK_HEADER_FIXED_BYTES, blockBytesMax, blockHeaderBytes, compareRows, DecodeFailure, decodeRecords,
+  encodeBlock, RECORD_BYTES_MIN, recordBytesMax,
+} from './block-codec.ts';
+
+export { compareRows } from './block-codec.ts';
+import {
   ORDER_MAX,
   PARTITIONS_MAX,
   RUN_BLOCK_RECORDS_MAX,
@@ -33,8 +39,8 @@ export const RUN_FORMAT_VERSION = 1;
 export const RUN_HEADER_BYTES = 64;
 /** Bytes of the file trailer. */
 export const RUN_TRAILER_BYTES = 32;
-/** Fixed bytes of a block header before its first n-gram: crc32, record count, record bytes. */
-export const RUN_BLOCK_HEADER_FIXED_BYTES = 12;
+/** Fixed bytes of a block header (see block-codec.ts). */
+export const RUN_BLOCK_HEADER_FIXED_BYTES = BLOCK_HEADER_FIXED_BYTES;
 
 /** "QRNRUN": the first six bytes of every run file. */
 const HEADER_MAGIC = Buffer.from('QRNRUN', 'latin1');
@@ -43,8 +49,6 @@ const TRAILER_MAGIC = Buffer.from('QRNEND\0\0', 'latin1');
 
 const U32_MAX = 0xffff_ffff;
 const TWO_POW_32 = 0x1_0000_0000;
-/** Bytes of a record after the first of its block at least: prefix byte, delta, count. */
-const RECORD_BYTES_MIN = 3;
 
 // Header field offsets.
 const H_VERSION = 6;
@@ -107,21 +111,6 @@ export interface RunBatch {
 
 // ---- Sizes ------------------------------------------------------------------------------------
 
-/** Bytes of one coded record of `order` at most (see RUN_RECORD_BYTES_MAX in limits.ts). */
-function recordBytesMax(order: number): number {
-  return 1 + 5 * order + 8;
-}
-
-/** Bytes of a block header of `order`: fixed fields plus the first n-gram. */
-function blockHeaderBytes(order: number): number {
-  return RUN_BLOCK_HEADER_FIXED_BYTES + 4 * order;
-}
-
-/** Bytes of a block of `records` records of `order` at most. */
-function blockBytesMax(order: number, records: number): number {
-  return blockHeaderBytes(order) + records * recordBytesMax(order);
-}
-
 // ---- Writer -----------------------------------------------------------------------------------
 
 function checkMeta(meta: RunMeta): void {
@@ -163,38 +152,6 @@ function checkRecords(keys: Uint32Array, counts: ArrayLike<number>, recordCount:
   return countSum;
 }
 
-/** Writes `value` (≤ 2^32−1) as an LEB128 varint at `p`; returns the offset after it. */
-function putVarU32(buf: Uint8Array, p: number, value: number): number {
-  if (value < 0x80) {
-    buf[p] = value;
-    return p + 1;
-  }
-  if (value < 0x4000) {
-    buf[p] = value | 0x80;
-    buf[p + 1] = value >>> 7;
-    return p + 2;
-  }
-  let v = value;
-  while (v > 0x7f) {
-    buf[p++] = (v & 0x7f) | 0x80;
-    v >>>= 7;
-  }
-  buf[p++] = v;
-  return p;
-}
-
-/** Writes a count (≤ 2^53−1) as an LEB128 varint at `p`; returns the offset after it. */
-function putVarCount(buf: Uint8Array, p: number, value: number): number {
-  if (value <= U32_MAX) return putVarU32(buf, p, value);
-  let v = value;
-  while (v > 0x7f) {
-    buf[p++] = (v % 128) | 0x80;
-    v = Math.floor(v / 128);
-  }
-  buf[p++] = v;
-  return p;
-}
-
 function writeU64(buf: Buffer, offset: number, value: number): void {
   buf.writeUInt32LE(value % TWO_POW_32, offset);
   buf.writeUInt32LE(Math.floor(value / TWO_POW_32), offset + 4);
@@ -204,36 +161,6 @@ function readU64(buf: Buffer, offset: number): number {
   const high = buf.readUInt32LE(offset + 4);
   if (high > 0x1f_ffff) return Number.POSITIVE_INFINITY; // above 2^53 − 1: caller rejects it
   return high * TWO_POW_32 + buf.readUInt32LE(offset);
-}
-
-/** Encodes one block of records [first, first+recordCount) at `p0`; returns the offset after it. */
-function encodeBlock(
-  buf: Buffer,
-  p0: number,
-  keys: Uint32Array,
-  counts: ArrayLike<number>,
-  first: number,
-  recordCount: number,
-  order: number,
-): number {
-  buf.writeUInt32LE(recordCount, p0 + 4);
-  for (let j = 0; j < order; j++) buf.writeUInt32LE(keys[first * order + j], p0 + RUN_BLOCK_HEADER_FIXED_BYTES + 4 * j);
-  const recordsStart = p0 + blockHeaderBytes(order);
-  let p = putVarCount(buf, recordsStart, counts[first]);
-  const end = first + recordCount;
-  for (let r = first + 1; r < end; r++) {
-    const base = r * order;
-    const prev = base - order;
-    let shared = 0;
-    while (keys[base + shared] === keys[prev + shared]) shared++; // < order: checkRecords
-    buf[p++] = shared;
-    p = putVarU32(buf, p, keys[base + shared] - keys[prev + shared]);
-    for (let j = shared + 1; j < order; j++) p = putVarU32(buf, p, keys[base + j]);
-    p = putVarCount(buf, p, counts[r]);
-  }
-  buf.writeUInt32LE(p - recordsStart, p0 + 8);
-  buf.writeUInt32LE(crc32(buf.subarray(p0 + 4, p)), p0);
-  return p;
 }
 
 function encodeHeader(buf: Buffer, meta: RunMeta, recordCount: number, countSum: number, blockCount: number): number {
@@ -349,104 +276,6 @@ export async function writeRunFile(
 
 function corrupt(filePath: string, what: string): QuernError {
   return new QuernError('corrupt', `corrupt run file ${filePath}: ${what}`, { location: { file: filePath } });
-}
-
-/** A reason a block's records failed to decode, with the record index (internal). */
-class DecodeFailure {
-  constructor(readonly recordIndex: number, readonly reason: string) {}
-}
-
-/** Reading position within a block's records; a tiny object so varint reads can advance it. */
-interface Cursor {
-  p: number;
-}
-
-/**
- * Reads an LEB128 varint of at most 5 bytes and ≤ 2^32−1. A read past the record area is caught
- * by the caller's position check after the record; past the end of `src` a byte reads as
- * undefined, which ends the varint (and may give NaN, which the callers' checks reject).
- */
-function readVarU32(src: Uint8Array, cursor: Cursor, recordIndex: number): number {
-  let p = cursor.p;
-  let b = src[p++];
-  let v = b & 0x7f;
-  if (b >= 0x80) {
-    b = src[p++];
-    v |= (b & 0x7f) << 7;
-    if (b >= 0x80) {
-      b = src[p++];
-      v |= (b & 0x7f) << 14;
-      if (b >= 0x80) {
-        b = src[p++];
-        v |= (b & 0x7f) << 21;
-        if (b >= 0x80) {
-          b = src[p++];
-          if (b > 0x0f) throw new DecodeFailure(recordIndex, 'word id varint exceeds 32 bits');
-          v += b * 0x1000_0000;
-        }
-      }
-    }
-  }
-  cursor.p = p;
-  return v;
-}
-
-/** Reads a count varint of at most 8 bytes; checks 1 ≤ count ≤ RUN_COUNT_MAX. */
-function readVarCount(src: Uint8Array, cursor: Cursor, recordIndex: number): number {
-  let p = cursor.p;
-  let b = src[p++];
-  let v = b & 0x7f;
-  if (b >= 0x80) {
-    let scale = 0x80;
-    for (let k = 1; ; k++) {
-      if (k === 8) throw new DecodeFailure(recordIndex, 'count varint longer than 8 bytes');
-      b = src[p++];
-      v += (b & 0x7f) * scale;
-      if (!(b >= 0x80)) break;
-      scale *= 0x80;
-    }
-  }
-  if (!(v >= 1 && v <= RUN_COUNT_MAX)) throw new DecodeFailure(recordIndex, `count ${v} outside 1..${RUN_COUNT_MAX}`);
-  cursor.p = p;
-  return v;
-}
-
-/**
- * Decodes the records of one block whose bytes are src[start, end) into `keys`/`counts`
- * (keys[0..order) already hold the first n-gram from the block header). Returns the sum of counts.
- * Rows come out strictly increasing by construction (delta ≥ 1 at the first differing position).
- */
-function decodeRecords(
-  src: Uint8Array,
-  start: number,
-  end: number,
-  order: number,
-  recordCount: number,
-  keys: Uint32Array,
-  counts: Float64Array,
-): number {
-  const cursor: Cursor = { p: start };
-  let countSum = readVarCount(src, cursor, 0);
-  counts[0] = countSum;
-  for (let r = 1; r < recordCount; r++) {
-    if (cursor.p >= end) throw new DecodeFailure(r, 'records end before the block record count is reached');
-    const base = r * order;
-    const prev = base - order;
-    const shared = src[cursor.p++];
-    if (shared >= order) throw new DecodeFailure(r, `shared prefix ${shared} is not below the order ${order}`);
-    for (let j = 0; j < shared; j++) keys[base + j] = keys[prev + j];
-    const delta = readVarU32(src, cursor, r);
-    const id = keys[prev + shared] + delta;
-    if (!(delta >= 1 && id <= U32_MAX)) throw new DecodeFailure(r, `id delta ${delta} at position ${shared} is not in 1..${U32_MAX - keys[prev + shared]}`);
-    keys[base + shared] = id;
-    for (let j = shared + 1; j < order; j++) keys[base + j] = readVarU32(src, cursor, r);
-    const count = readVarCount(src, cursor, r);
-    counts[r] = count;
-    countSum += count;
-    if (cursor.p > end) throw new DecodeFailure(r, 'record runs past the end of the block');
-  }
-  if (cursor.p !== end) throw new DecodeFailure(recordCount - 1, `records end at byte ${cursor.p - start} of ${end - start}`);
-  return countSum;
 }
 
 /** Reads exactly `length` bytes at `position` into `buf[offset..]`, or fails as 'corrupt'. */
@@ -745,15 +574,3 @@ export class RunReader {
   }
 }
 
-/**
- * Compares row `a` at `aOffset` with row `b` at `bOffset`, both of `order` ids, lexicographically:
- * negative, 0 or positive.
- */
-export function compareRows(a: Uint32Array, aOffset: number, b: Uint32Array, bOffset: number, order: number): number {
-  for (let j = 0; j < order; j++) {
-    const x = a[aOffset + j];
-    const y = b[bOffset + j];
-    if (x !== y) return x < y ? -1 : 1;
-  }
-  return 0;
-}

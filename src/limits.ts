@@ -104,6 +104,20 @@ export const WORKER_COUNTER_BYTES_MIN = 4 << 20;
 /** Default `--memory`: a quarter of the machine, at least 1 GiB. */
 export const MEMORY_DEFAULT_FRACTION = 0.25;
 
+// ---- Count store (LMDB) ----------------------------------------------------------------------
+
+/** N-grams per LMDB value: one entry per n-gram writes at ~0.6 M/s here, blocks of ~1,000 at over
+ *  6 M/s (DESIGN.md), and a lookup still decodes only one small block. */
+export const STORE_BLOCK_RECORDS = 1024;
+
+/** Blocks per write transaction: ~1 M n-grams, so the per-commit fsync is amortised while a crash
+ *  loses at most a few seconds of merging. */
+export const STORE_TXN_BLOCKS = 1024;
+
+/** LMDB map size of one partition's environment (address space, not disk: the file grows as
+ *  needed). 1 TiB per partition leaves room for any corpus this machine can count. */
+export const STORE_MAP_BYTES = 2 ** 40;
+
 // ---- Listing -------------------------------------------------------------------------------
 
 /** N-grams `quern ngrams --by-count` sorts in memory when no --limit is given (≈ 40 B each). */

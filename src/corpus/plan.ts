@@ -1,0 +1,78 @@
+/**
+ * Chunk planning: splits inputs into line-aligned byte ranges, the units of reading work.
+ */
+import { promises as fsp } from 'node:fs';
+import { ioError, QuernError } from '../errors.ts';
+import { PLAN_SCAN_BLOCK_BYTES } from '../limits.ts';
+import type { Chunk, InputFile } from './types.ts';
+
+/**
+ * Splits `files` into chunks, in file order then byte order, with `index` counting from 0.
+ *
+ * A gzip input is one chunk covering the whole (compressed) file: a deflate stream cannot be
+ * entered in the middle. A plain input (text or JSONL) is cut about every `chunkBytesTarget`
+ * bytes: from each target offset the planner reads forward to just after the next '\n', so every
+ * chunk holds whole lines, none is empty, and together they cover the file exactly. An empty file
+ * is one chunk 0..0, so every input appears in the plan. The result depends only on the file
+ * contents and `chunkBytesTarget`.
+ *
+ * @param chunkBytesTarget a positive integer (typically CHUNK_BYTES_TARGET).
+ * @throws QuernError('config') for a bad `chunkBytesTarget`; QuernError('input') when a file's size
+ *   no longer matches the discovered one; an 'io' QuernError when a file cannot be read.
+ */
+export async function planChunks(files: InputFile[], chunkBytesTarget: number): Promise<Chunk[]> {
+  if (!Number.isSafeInteger(chunkBytesTarget) || chunkBytesTarget < 1) {
+    throw new QuernError('config', `chunkBytesTarget: must be a positive integer, got ${chunkBytesTarget}`);
+  }
+  const chunks: Chunk[] = [];
+  for (let fileIndex = 0; fileIndex < files.length; fileIndex++) {
+    const file = files[fileIndex];
+    if (file.gzip || file.bytes === 0) {
+      chunks.push({ index: chunks.length, fileIndex, byteStart: 0, byteEnd: file.bytes });
+      continue;
+    }
+    for (const [byteStart, byteEnd] of await lineAlignedRanges(file, chunkBytesTarget)) {
+      chunks.push({ index: chunks.length, fileIndex, byteStart, byteEnd });
+    }
+  }
+  return chunks;
+}
+
+/** [start, end) ranges of a non-empty plain file, each ending just after a '\n' or at the end. */
+async function lineAlignedRanges(file: InputFile, chunkBytesTarget: number): Promise<Array<[number, number]>> {
+  let handle: fsp.FileHandle | undefined;
+  try {
+    handle = await fsp.open(file.path, 'r');
+    const { size } = await handle.stat();
+    if (size !== file.bytes) {
+      throw new QuernError('input', `${file.path} changed since it was discovered (${file.bytes} bytes then, ${size} now)`);
+    }
+    const ranges: Array<[number, number]> = [];
+    const scan = Buffer.alloc(PLAN_SCAN_BLOCK_BYTES);
+    let start = 0;
+    while (start < size) {
+      const target = start + chunkBytesTarget;
+      const end = target >= size ? size : await endOfLineAt(handle, scan, target - 1, size);
+      ranges.push([start, end]);
+      start = end;
+    }
+    return ranges;
+  } catch (cause) {
+    throw cause instanceof QuernError ? cause : ioError('read', file.path, cause);
+  } finally {
+    await handle?.close();
+  }
+}
+
+/** The offset just after the first '\n' at or after `position`, or `size` when there is none. */
+async function endOfLineAt(handle: fsp.FileHandle, scan: Buffer, position: number, size: number): Promise<number> {
+  let offset = position;
+  while (offset < size) {
+    const { bytesRead } = await handle.read(scan, 0, Math.min(scan.length, size - offset), offset);
+    if (bytesRead === 0) return size;
+    const newline = scan.subarray(0, bytesRead).indexOf(0x0a);
+    if (newline >= 0) return offset + newline + 1;
+    offset += bytesRead;
+  }
+  return size;
+}

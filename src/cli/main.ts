@@ -1,0 +1,40 @@
+/** The `quern` command: yargs, one module per command, errors mapped to exit codes in one place. */
+import yargs from 'yargs';
+import { hideBin } from 'yargs/helpers';
+import { countCommand } from './count.ts';
+import { ngramsCommand } from './ngrams.ts';
+import { reportError, EXIT_STATUS } from './exit.ts';
+
+export async function main(args: string[]): Promise<number> {
+  try {
+    await yargs(args)
+      .scriptName('quern')
+      .usage('$0 <command> [options]\n\nCount n-grams of huge corpora and build n-gram language models.')
+      .command(countCommand)
+      .command(ngramsCommand)
+      .demandCommand(1, 'Say which command to run; see quern --help')
+      .strict()
+      .recommendCommands()
+      .help()
+      .alias('help', 'h')
+      .version()
+      .wrap(Math.min(100, process.stdout.columns ?? 100))
+      .fail((message, error) => {
+        if (error) throw error;
+        const usage = new Error(message) as Error & { usage: true };
+        usage.usage = true;
+        throw usage;
+      })
+      .parseAsync();
+    return 0;
+  } catch (error) {
+    if ((error as { usage?: boolean }).usage) {
+      process.stderr.write(`quern: ${(error as Error).message}\nSee quern --help.\n`);
+      return EXIT_STATUS.config;
+    }
+    return reportError(error);
+  }
+}
+
+const status = await main(hideBin(process.argv));
+process.exitCode = status;

@@ -1,0 +1,108 @@
+/**
+ * Lists the n-grams of one order of a counted job, merged from its run files on the fly.
+ * Order: lexicographic by word ids — ids rank words by count (most frequent first, ties by
+ * bytes) — or, with `byCount`, by count descending (ties in id order).
+ */
+import * as path from 'node:path';
+import { QuernError } from '../errors.ts';
+import { LISTING_SORT_ENTRIES_MAX } from '../limits.ts';
+import { readManifest } from '../job/manifest.ts';
+import { RunReader } from './run-file.ts';
+import { mergeRuns } from './run-merge.ts';
+import { readJobVocabulary } from './stage.ts';
+
+export interface ListedNgram {
+  /** Words joined by one space. */
+  ngram: string;
+  count: number;
+}
+
+export interface ListOptions {
+  order: number;
+  /** At most this many lines. */
+  limit?: number;
+  byCount: boolean;
+}
+
+/** Min-heap of [count, sequence] by (count asc, sequence desc): the root is the weakest kept entry. */
+class TopHeap {
+  readonly items: Array<{ count: number; seq: number; ids: Uint32Array }> = [];
+  constructor(readonly capacity: number) {}
+  private weaker(a: { count: number; seq: number }, b: { count: number; seq: number }): boolean {
+    return a.count < b.count || (a.count === b.count && a.seq > b.seq);
+  }
+  offer(count: number, seq: number, ids: () => Uint32Array): void {
+    const items = this.items;
+    if (items.length < this.capacity) {
+      items.push({ count, seq, ids: ids() });
+      let i = items.length - 1;
+      while (i > 0) {
+        const parent = (i - 1) >> 1;
+        if (!this.weaker(items[i], items[parent])) break;
+        [items[i], items[parent]] = [items[parent], items[i]];
+        i = parent;
+      }
+      return;
+    }
+    if (!this.weaker(items[0], { count, seq })) return;
+    items[0] = { count, seq, ids: ids() };
+    let i = 0;
+    for (;;) {
+      const l = 2 * i + 1;
+      const r = l + 1;
+      let m = i;
+      if (l < items.length && this.weaker(items[l], items[m])) m = l;
+      if (r < items.length && this.weaker(items[r], items[m])) m = r;
+      if (m === i) break;
+      [items[i], items[m]] = [items[m], items[i]];
+      i = m;
+    }
+  }
+}
+
+export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGenerator<ListedNgram> {
+  const manifest = await readManifest(jobDir);
+  if (!manifest) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
+  if (manifest.stages.count.status !== 'done') {
+    throw new QuernError('config', `the count in ${jobDir} has not finished; re-run the same quern count command to complete it`);
+  }
+  const order = options.order;
+  if (!Number.isInteger(order) || order < 1 || order > manifest.config.order) {
+    throw new QuernError('config', `--order must be from 1 to ${manifest.config.order} for this job, got ${order}`);
+  }
+  const vocab = await readJobVocabulary(jobDir, manifest);
+  const files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => r.file);
+  const readers = await Promise.all(files.map((file) => RunReader.open(path.join(jobDir, file))));
+  const words = vocab.words;
+  const text = (ids: ArrayLike<number>, offset: number): string => {
+    let s = words[ids[offset]];
+    for (let k = 1; k < order; k++) s += ' ' + words[ids[offset + k]];
+    return s;
+  };
+  const limit = options.limit ?? Infinity;
+  if (!options.byCount) {
+    let emitted = 0;
+    for await (const batch of mergeRuns(readers, order)) {
+      for (let j = 0; j < batch.recordCount; j++) {
+        if (emitted >= limit) return;
+        yield { ngram: text(batch.keys, j * order), count: batch.counts[j] };
+        emitted++;
+      }
+    }
+    return;
+  }
+  const capacity = Number.isFinite(limit) ? limit : LISTING_SORT_ENTRIES_MAX;
+  const heap = new TopHeap(capacity);
+  let seq = 0;
+  for await (const batch of mergeRuns(readers, order)) {
+    for (let j = 0; j < batch.recordCount; j++) {
+      if (!Number.isFinite(limit) && seq >= LISTING_SORT_ENTRIES_MAX) {
+        throw new QuernError('limit', `more than ${LISTING_SORT_ENTRIES_MAX} n-grams of order ${order}: give --limit to list the most frequent ones`);
+      }
+      const at = j * order;
+      heap.offer(batch.counts[j], seq++, () => batch.keys.slice(at, at + order));
+    }
+  }
+  const sorted = heap.items.sort((a, b) => b.count - a.count || a.seq - b.seq);
+  for (const item of sorted) yield { ngram: text(item.ids, 0), count: item.count };
+}

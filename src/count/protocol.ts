@@ -1,0 +1,87 @@
+/** Messages between the main thread and the count workers (structured-clone safe). */
+import type { Chunk, InputFile, NormalizeOptions, ReadStats } from '../corpus/types.ts';
+import type { RunRecord } from '../job/manifest.ts';
+
+export type Phase = 'vocab' | 'count' | 'tally';
+
+export interface WorkerInit {
+  phase: Phase;
+  jobDir: string;
+  inputs: InputFile[];
+  /** JSONL text field path (e.g. ['body','text']); the format comes from each input. */
+  textField: string[] | undefined;
+  skipBad: boolean;
+  normalize: NormalizeOptions;
+  order: number;
+  partitions: number;
+  /** count phase: words by id (index 0 = `<s>`). */
+  words?: string[];
+  eosId?: number;
+  unkId?: number;
+  /** count phase: the budget of this worker's counters. */
+  counterBytesMax?: number;
+}
+
+/** A tally task: merge the runs of one order and partition, counting distinct n-grams. */
+export interface PartitionTask {
+  order: number;
+  partition: number;
+  /** Run files relative to the job directory. */
+  files: string[];
+}
+
+export type ToWorker = { type: 'chunk'; chunk: Chunk } | { type: 'partition'; task: PartitionTask } | { type: 'finish' };
+
+export interface TallyDone {
+  type: 'done';
+  order: number;
+  partition: number;
+  distinct: number;
+  total: number;
+}
+
+export interface VocabChunkDone {
+  type: 'done';
+  chunk: number;
+  reads: ReadStats;
+  tokens: number;
+}
+
+export interface CountChunkDone {
+  type: 'done';
+  chunk: number;
+  tokens: number;
+  /** Spills forced by the memory budget (the spill at the end of every chunk is not counted). */
+  spills: number;
+  /** N-gram occurrences counted per order (index 0 = order 1). */
+  occurrences: number[];
+  runs: RunRecord[];
+}
+
+/** Sent once at 'finish' by a vocabulary worker: its word counts over all its chunks. */
+export interface VocabFinished {
+  type: 'finished';
+  words: string[];
+  counts: number[];
+  unkSeen: number;
+}
+
+export interface CountFinished {
+  type: 'finished';
+}
+
+export interface Progress {
+  type: 'progress';
+  bytes: number;
+  tokens: number;
+}
+
+export interface WorkerFailure {
+  type: 'error';
+  code: string | undefined;
+  message: string;
+  location?: { file: string; line?: number; byteOffset?: number };
+  stack?: string;
+}
+
+export type FromWorker = VocabChunkDone | CountChunkDone | TallyDone | VocabFinished | CountFinished | Progress | WorkerFailure;

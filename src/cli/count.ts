@@ -3,7 +3,7 @@ import * as os from 'node:os';
 import type { Argv, CommandModule } from 'yargs';
 import { CHUNK_BYTES_TARGET, MEMORY_DEFAULT_FRACTION, ORDER_MAX, PARTITIONS_DEFAULT, PARTITIONS_MAX } from '../limits.ts';
 import { QuernError } from '../errors.ts';
-import { runCount, type CountSummary } from '../count/stage.ts';
+import { runCount, type CountSummary } from '../job/pipeline.ts';
 import type { JobConfig } from '../job/manifest.ts';
 import { makeProgress } from './progress.ts';
 import { formatBytes, intInRange, parseSize } from './options.ts';

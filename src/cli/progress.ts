@@ -1,14 +1,11 @@
 /**
- * Progress of long work. On a terminal: a bar with bytes read of total, tokens/s, elapsed time, ETA
- * and memory in use (cli-progress). Not on a terminal: one summary line per phase. `--quiet`: nothing.
+ * Progress of long work. On a terminal: a bar with bytes read of total (or tasks done), tokens/s,
+ * elapsed time, ETA and memory in use (cli-progress). Not on a terminal: one summary line per
+ * phase. `--quiet`: nothing.
  */
 import cliProgress from 'cli-progress';
-import bytes from 'bytes-iec';
-import type { ProgressSink } from '../count/stage.ts';
-
-function formatBytes(n: number): string {
-  return bytes.format(n, { mode: 'binary', decimalPlaces: 1 }) ?? `${n} B`;
-}
+import type { ProgressSink } from '../job/context.ts';
+import { formatBytes } from './options.ts';
 
 function formatRate(n: number): string {
   if (n >= 1e6) return `${(n / 1e6).toFixed(2)}M`;
@@ -18,41 +15,44 @@ function formatRate(n: number): string {
 
 export function makeProgress(mode: 'auto' | 'quiet', stream: NodeJS.WriteStream = process.stderr): ProgressSink {
   if (mode === 'quiet') return { start() {}, update() {}, stop() {} };
+  let label = '';
+  let total = 0;
+  let done = 0;
+  let tokens = 0;
+  let started = 0;
+  let unit: 'bytes' | 'tasks' = 'bytes';
+  const amount = (n: number): string => (unit === 'bytes' ? formatBytes(n) : String(n));
   if (!stream.isTTY) {
-    let label = '';
-    let total = 0;
-    let bytesDone = 0;
-    let tokens = 0;
-    let started = 0;
     return {
-      start(l, t) { label = l; total = t; bytesDone = 0; tokens = 0; started = Date.now(); },
-      update(b, k) { bytesDone += b; tokens += k; },
+      start(l, t, u = 'bytes') { label = l; total = t; unit = u; done = 0; tokens = 0; started = Date.now(); },
+      update(d, k) { done += d; tokens += k; },
       stop() {
-        const seconds = (Date.now() - started) / 1000;
-        stream.write(`quern: ${label}: ${formatBytes(bytesDone)} of ${formatBytes(total)}, ${formatRate(tokens)} tokens in ${seconds.toFixed(1)} s (${formatRate(tokens / Math.max(seconds, 1e-3))} tokens/s)\n`);
+        const seconds = Math.max((Date.now() - started) / 1000, 1e-3);
+        const rate = tokens > 0 ? `, ${formatRate(tokens)} tokens (${formatRate(tokens / seconds)} tokens/s)` : '';
+        stream.write(`quern: ${label}: ${amount(done)} of ${amount(total)}${rate} in ${seconds.toFixed(1)} s\n`);
       },
     };
   }
   let bar: cliProgress.SingleBar | undefined;
-  let bytesDone = 0;
-  let tokens = 0;
-  let started = 0;
+  const payload = () => {
+    const seconds = Math.max((Date.now() - started) / 1000, 1e-3);
+    return { done: amount(done), all: amount(total), rate: formatRate(tokens / seconds), rss: formatBytes(process.memoryUsage.rss()) };
+  };
   return {
-    start(label, total) {
-      bytesDone = 0; tokens = 0; started = Date.now();
+    start(l, t, u = 'bytes') {
+      label = l; total = t; unit = u; done = 0; tokens = 0; started = Date.now();
       bar = new cliProgress.SingleBar({
         stream,
-        format: `${label} [{bar}] {percentage}% | {done} of {all} | {rate} tokens/s | {duration_formatted} elapsed, ETA {eta_formatted} | {rss}`,
+        format: `${label} [{bar}] {percentage}% | {done} of {all} | {rate} tokens/s | {duration_formatted}, ETA {eta_formatted} | {rss} in use`,
         hideCursor: true,
         etaBuffer: 50,
         fps: 5,
       }, cliProgress.Presets.shades_classic);
-      bar.start(Math.max(total, 1), 0, { done: formatBytes(0), all: formatBytes(total), rate: '0', rss: formatBytes(process.memoryUsage.rss()) });
+      bar.start(Math.max(total, 1), 0, payload());
     },
-    update(b, k) {
-      bytesDone += b; tokens += k;
-      const seconds = Math.max((Date.now() - started) / 1000, 1e-3);
-      bar?.update(bytesDone, { done: formatBytes(bytesDone), rate: formatRate(tokens / seconds), rss: `${formatBytes(process.memoryUsage.rss())} in use` });
+    update(d, k) {
+      done += d; tokens += k;
+      bar?.update(done, payload());
     },
     stop() { bar?.stop(); bar = undefined; },
   };

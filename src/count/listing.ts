@@ -1,5 +1,6 @@
 /**
- * Lists the n-grams of one order of a counted job, merged from its run files on the fly.
+ * Lists the n-grams of one order of a counted job: from the count store once the merge is done,
+ * otherwise merged from the run files on the fly (a job whose merge was interrupted).
  * Order: lexicographic by word ids — ids rank words by count (most frequent first, ties by
  * bytes) — or, with `byCount`, by count descending (ties in id order).
  */
@@ -8,7 +9,8 @@ import { QuernError } from '../errors.ts';
 import { LISTING_SORT_ENTRIES_MAX } from '../limits.ts';
 import { readManifest } from '../job/manifest.ts';
 import { RunReader } from './run-file.ts';
-import { mergeRuns } from './run-merge.ts';
+import { mergeRuns, type BatchSource } from './run-merge.ts';
+import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
 import { readJobVocabulary } from './stage.ts';
 
 export interface ListedNgram {
@@ -21,6 +23,8 @@ export interface ListOptions {
   order: number;
   /** At most this many lines. */
   limit?: number;
+  /** Only n-grams starting with these words. */
+  prefix?: string[];
   byCount: boolean;
 }
 
@@ -63,7 +67,7 @@ class TopHeap {
 export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGenerator<ListedNgram> {
   const manifest = await readManifest(jobDir);
   if (!manifest) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
-  if (manifest.stages.count.status !== 'done') {
+  if (manifest.stages.count.status !== 'done' || (manifest.stages.merge.status !== 'done' && options.prefix?.length)) {
     throw new QuernError('config', `the count in ${jobDir} has not finished; re-run the same quern count command to complete it`);
   }
   const order = options.order;
@@ -71,9 +75,38 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
     throw new QuernError('config', `--order must be from 1 to ${manifest.config.order} for this job, got ${order}`);
   }
   const vocab = await readJobVocabulary(jobDir, manifest);
-  const files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => r.file);
-  const readers = await Promise.all(files.map((file) => RunReader.open(path.join(jobDir, file))));
   const words = vocab.words;
+  let readers: BatchSource[];
+  let stores: PartitionStore[] = [];
+  if (manifest.stages.merge.status === 'done') {
+    let prefix: Uint32Array | undefined;
+    if (options.prefix && options.prefix.length > 0) {
+      if (options.prefix.length > order) throw new QuernError('config', `--prefix has ${options.prefix.length} words, more than the order ${order}`);
+      const ids = new Map(words.map((w, id) => [w, id]));
+      const missing = options.prefix.filter((w) => !ids.has(w));
+      if (missing.length > 0) return; // a word outside the vocabulary: no n-gram starts with it
+      prefix = Uint32Array.from(options.prefix, (w) => ids.get(w)!);
+    }
+    stores = Array.from({ length: manifest.config.partitions }, (_, p) => PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read'));
+    readers = stores.map((store) => new StoreSource(store, order, prefix));
+  } else {
+    const files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => r.file);
+    readers = [];
+    try {
+      for (const file of files) readers.push(await RunReader.open(path.join(jobDir, file)));
+    } catch (error) {
+      await Promise.all(readers.map((r) => r.close()));
+      throw error;
+    }
+  }
+  try {
+    yield* listMerged(readers, order, words, options);
+  } finally {
+    await Promise.all(stores.map((s) => s.close()));
+  }
+}
+
+async function* listMerged(readers: BatchSource[], order: number, words: string[], options: ListOptions): AsyncGenerator<ListedNgram> {
   const text = (ids: ArrayLike<number>, offset: number): string => {
     let s = words[ids[offset]];
     for (let k = 1; k < order; k++) s += ' ' + words[ids[offset + k]];

@@ -1,8 +1,10 @@
 /** Messages between the main thread and the count workers (structured-clone safe). */
 import type { Chunk, InputFile, NormalizeOptions, ReadStats } from '../corpus/types.ts';
 import type { RunRecord } from '../job/manifest.ts';
+import type { PartitionMergeTask } from '../merge/merge-partition.ts';
+import type { OrderTally } from '../merge/tally.ts';
 
-export type Phase = 'vocab' | 'count' | 'tally';
+export type Phase = 'vocab' | 'count' | 'merge';
 
 export interface WorkerInit {
   phase: Phase;
@@ -22,22 +24,12 @@ export interface WorkerInit {
   counterBytesMax?: number;
 }
 
-/** A tally task: merge the runs of one order and partition, counting distinct n-grams. */
-export interface PartitionTask {
-  order: number;
-  partition: number;
-  /** Run files relative to the job directory. */
-  files: string[];
-}
+export type ToWorker = { type: 'chunk'; chunk: Chunk } | { type: 'partition'; task: PartitionMergeTask } | { type: 'finish' };
 
-export type ToWorker = { type: 'chunk'; chunk: Chunk } | { type: 'partition'; task: PartitionTask } | { type: 'finish' };
-
-export interface TallyDone {
+export interface MergeDone {
   type: 'done';
-  order: number;
   partition: number;
-  distinct: number;
-  total: number;
+  tallies: OrderTally[];
 }
 
 export interface VocabChunkDone {
@@ -84,4 +76,4 @@ export interface WorkerFailure {
   stack?: string;
 }
 
-export type FromWorker = VocabChunkDone | CountChunkDone | TallyDone | VocabFinished | CountFinished | Progress | WorkerFailure;
+export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | VocabFinished | CountFinished | Progress | WorkerFailure;

@@ -439,6 +439,15 @@ export class RunReader {
     }
   }
 
+  /** The file path, as a BatchSource name. */
+  get name(): string {
+    return this.info.filePath;
+  }
+
+  get order(): number {
+    return this.info.order;
+  }
+
   /**
    * Returns the next block's records, or null after the last block once the totals have been
    * checked against the header (the file is then closed). Must not be called concurrently.

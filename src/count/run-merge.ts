@@ -9,7 +9,17 @@
  */
 import { assert } from '../errors.ts';
 import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX } from '../limits.ts';
-import type { RunBatch, RunReader } from './run-file.ts';
+import type { RunBatch } from './run-file.ts';
+
+/** Anything that yields sorted batches of one order: a run file, or a partition of the store. */
+export interface BatchSource {
+  /** For messages: a file or store path. */
+  readonly name: string;
+  readonly order: number;
+  /** The next batch in increasing order, or null at the end. */
+  nextBatch(): Promise<RunBatch | null>;
+  close(): Promise<void>;
+}
 
 /** `fill` stopped because every run is used up. */
 const FILL_DONE = -1;
@@ -187,12 +197,12 @@ class LoserTreeMerger {
  * ('corrupt' or 'io' QuernError, passed on). Rows out of order across the inputs, or a merged
  * count above RUN_COUNT_MAX, are assertion failures.
  */
-export async function* mergeRuns(readers: RunReader[], order: number): AsyncGenerator<RunBatch> {
+export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGenerator<RunBatch> {
   try {
     for (const reader of readers) {
-      assert(reader.info.order === order, `run ${reader.filePath} has order ${reader.info.order}, merge expects ${order}`);
+      assert(reader.order === order, `source ${reader.name} has order ${reader.order}, merge expects ${order}`);
     }
-    const merger = new LoserTreeMerger(readers.map((reader) => reader.filePath), order);
+    const merger = new LoserTreeMerger(readers.map((reader) => reader.name), order);
     const nextBatch = async (s: number): Promise<RunBatch | null> => {
       let batch: RunBatch | null;
       do batch = await readers[s].nextBatch();

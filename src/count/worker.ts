@@ -15,10 +15,11 @@ import type { RunRecord } from '../job/manifest.ts';
 import type { Chunk, ReadOptions } from '../corpus/types.ts';
 import { CounterSet } from './counter-set.ts';
 import { spillOrder } from './spill-sort.ts';
-import { RunReader, writeRunFile } from './run-file.ts';
-import { mergeRuns } from './run-merge.ts';
+import { writeRunFile } from './run-file.ts';
+import { mergePartition, type PartitionMergeTask } from '../merge/merge-partition.ts';
+import { partitionStoreDir } from '../merge/store.ts';
 import { runFilePath } from './run-layout.ts';
-import type { FromWorker, PartitionTask, ToWorker, WorkerInit } from './protocol.ts';
+import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 
 const PROGRESS_INTERVAL_MS = 200;
 
@@ -176,17 +177,11 @@ async function countChunk(chunk: Chunk): Promise<void> {
   post({ type: 'done', chunk: chunk.index, tokens: chunkTokens, spills: budgetSpills, occurrences, runs });
 }
 
-// ---- tally phase ---------------------------------------------------------------------------
+// ---- merge phase ---------------------------------------------------------------------------
 
-async function tallyPartition(task: PartitionTask): Promise<void> {
-  const readers = await Promise.all(task.files.map((file) => RunReader.open(path.join(init.jobDir, file))));
-  let distinct = 0;
-  let total = 0;
-  for await (const batch of mergeRuns(readers, task.order)) {
-    distinct += batch.recordCount;
-    for (let j = 0; j < batch.recordCount; j++) total += batch.counts[j];
-  }
-  post({ type: 'done', order: task.order, partition: task.partition, distinct, total });
+async function mergeTask(task: PartitionMergeTask): Promise<void> {
+  const tallies = await mergePartition(init.jobDir, partitionStoreDir(task.partition), task);
+  post({ type: 'done', partition: task.partition, tallies });
 }
 
 async function handle(message: ToWorker): Promise<void> {
@@ -198,7 +193,7 @@ async function handle(message: ToWorker): Promise<void> {
     }
     return;
   }
-  if (message.type === 'partition') await tallyPartition(message.task);
+  if (message.type === 'partition') await mergeTask(message.task);
   else if (init.phase === 'vocab') await vocabChunk(message.chunk);
   else await countChunk(message.chunk);
 }

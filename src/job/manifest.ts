@@ -60,10 +60,17 @@ export interface VocabStage {
 export interface CountStage {
   status: StageStatus;
   chunks: ChunkResult[];
-  /** Distinct n-grams per order (index 0 = order 1), filled when the stage is done. */
+  elapsedMs?: number;
+}
+
+export interface MergeStage {
+  status: StageStatus;
+  /** Partitions whose merge finished (their tallies are in their store's progress record). */
+  partitionsDone: number[];
+  /** Distinct n-grams per order (index 0 = order 1), once done; the full tallies are in stats.json. */
   distinct?: number[];
-  /** Σ counts per order over the runs, checked against the occurrences counted. */
-  totals?: number[];
+  /** Bytes of the store on disk once done. */
+  storeBytes?: number;
   elapsedMs?: number;
 }
 
@@ -74,7 +81,7 @@ export interface JobManifest {
   config: JobConfig;
   inputs: InputFile[];
   chunks: Chunk[];
-  stages: { vocab: VocabStage; count: CountStage };
+  stages: { vocab: VocabStage; count: CountStage; merge: MergeStage };
 }
 
 export function manifestPath(jobDir: string): string {

@@ -6,7 +6,7 @@ import { QuernError } from '../../src/errors.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
 import { MERGE_BATCH_RECORDS, RUN_BLOCK_RECORDS_MAX } from '../../src/limits.ts';
 import { RunReader, writeRunFile, type RunBatch } from '../../src/count/run-file.ts';
-import { mergeRuns } from '../../src/count/run-merge.ts';
+import { mergeRuns, type BatchSource } from '../../src/count/run-merge.ts';
 
 /** mulberry32: a small seeded PRNG, uniform in [0, 1). */
 function prng(seed: number): () => number {
@@ -156,18 +156,18 @@ describe('mergeRuns', () => {
 
   it('asserts when an input is out of order', async () => {
     // A stand-in reader that yields an unsorted batch (RunReader itself cannot produce one).
-    const fake = (rows: number[][]): RunReader => {
+    const fake = (rows: number[][]): BatchSource => {
       let done = false;
       return {
-        info: { order: 2 },
-        filePath: 'fake.run',
+        order: 2,
+        name: 'fake.run',
         nextBatch: async () => {
           if (done) return null;
           done = true;
           return { keys: Uint32Array.from(rows.flat()), counts: Float64Array.from(rows, () => 1), recordCount: rows.length };
         },
         close: async () => {},
-      } as unknown as RunReader;
+      };
     };
     const call = collect(mergeRuns([fake([[1, 1], [3, 0], [2, 5]]), fake([[1, 2]])], 2), 2);
     await expect(call).rejects.toThrow(/merge input out of order: a row of fake.run/);

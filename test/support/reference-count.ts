@@ -39,7 +39,7 @@ const REFERENCE_OUTPUT_BYTES_MAX = 1 << 30;
  * mawk program: for each non-blank line, wrap it and print every n-gram of order 1..order that
  * ends at a predicted position, one per line, words joined by one space.
  */
-const AWK_PROGRAM = `
+export const AWK_PROGRAM = `
 NF > 0 {
   w[0] = "<s>"
   for (i = 1; i <= NF; i++) w[i] = (lowercase == 1 ? tolower($i) : $i)

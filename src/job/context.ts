@@ -1,0 +1,30 @@
+/** What every stage of a running job gets: the job, its directory, and how to record progress. */
+import pLimit from 'p-limit';
+import type { StageFs } from './fsio.ts';
+import { writeManifest, type JobManifest } from './manifest.ts';
+
+/** Receives progress of long work; the CLI draws it, tests ignore it. */
+export interface ProgressSink {
+  start(label: string, total: number, unit?: 'bytes' | 'tasks'): void;
+  update(doneDelta: number, tokensDelta: number): void;
+  stop(): void;
+}
+
+export const silentProgress: ProgressSink = { start() {}, update() {}, stop() {} };
+
+export interface StageContext {
+  jobDir: string;
+  job: JobManifest;
+  fs: StageFs;
+  progress: ProgressSink;
+  workers: number;
+  /** Budget for all counting memory together, bytes. */
+  memoryBytes: number;
+  /** Writes job.json atomically; concurrent calls are written one at a time, in call order. */
+  saveManifest(): Promise<void>;
+}
+
+export function makeStageContext(fields: Omit<StageContext, 'saveManifest'>): StageContext {
+  const serial = pLimit(1);
+  return { ...fields, saveManifest: () => serial(() => writeManifest(fields.fs, fields.jobDir, fields.job)) };
+}

@@ -1,0 +1,193 @@
+/**
+ * `quern count` as a job: take the lock, find the inputs, create or continue the job, and run
+ * vocabulary → count → merge. Any stage may be interrupted at any moment; re-running the same
+ * request continues from what job.json and the store record.
+ */
+import { promises as fsp } from 'node:fs';
+import * as path from 'node:path';
+import { QuernError } from '../errors.ts';
+import { discoverInputs } from '../corpus/discover.ts';
+import { planChunks } from '../corpus/plan.ts';
+import type { ReadStats } from '../corpus/types.ts';
+import { countStage, readJobVocabulary, sumOccurrences, vocabStage, VOCAB_FILE } from '../count/stage.ts';
+import { RUNS_DIR } from '../count/run-layout.ts';
+import { mergeStage, STATS_FILE } from '../merge/stage.ts';
+import { STORE_DIR } from '../merge/store.ts';
+import { makeStageContext, silentProgress, type ProgressSink } from './context.ts';
+import { nodeFs, type StageFs } from './fsio.ts';
+import { lockJob } from './lock.ts';
+import { describeDifferences, readManifest, writeManifest, MANIFEST_VERSION, type JobConfig, type JobManifest } from './manifest.ts';
+
+export interface CountRequest {
+  jobDir: string;
+  inputSpecs: string[];
+  config: JobConfig;
+  workers: number;
+  /** Budget for all counting memory together (counters and vocabulary copies), bytes. */
+  memoryBytes: number;
+  /** Discard an existing job in jobDir and start over. */
+  restart: boolean;
+  progress?: ProgressSink;
+  fs?: StageFs;
+}
+
+export interface SkippedReport {
+  file: string;
+  skipped: number;
+  samples: ReadStats['skippedSamples'];
+}
+
+/** What `quern count` prints at the end (also as --json). */
+export interface CountSummary {
+  jobDir: string;
+  inputs: number;
+  inputBytes: number;
+  chunks: number;
+  lines: number;
+  emptyLines: number;
+  sentences: number;
+  tokens: number;
+  /** Vocabulary size including `</s>` and `<unk>` (not `<s>`). */
+  vocabularySize: number;
+  typesSeen: number;
+  typesCapped: number;
+  order: number;
+  /** Distinct n-grams per order (index 0 = order 1). */
+  distinct: number[];
+  /** N-gram occurrences per order. */
+  occurrences: number[];
+  spills: number;
+  runFiles: number;
+  runBytes: number;
+  storeBytes: number;
+  skipped: SkippedReport[];
+  workers: number;
+  memoryBytes: number;
+  /** Wall time of this command. */
+  elapsedMs: number;
+  /** Time spent in each stage over all runs of the job (a resumed job adds up its runs). */
+  stageMs: { vocabulary: number; count: number; merge: number };
+  tokensPerSecond: number;
+  /** True when this run continued an interrupted job or found it already finished. */
+  resumed: boolean;
+}
+
+async function removeJobData(jobDir: string): Promise<void> {
+  for (const name of [RUNS_DIR, STORE_DIR, VOCAB_FILE, STATS_FILE]) {
+    await fsp.rm(path.join(jobDir, name), { recursive: true, force: true });
+  }
+}
+
+/** Creates the job, or checks that the existing one was started with the same inputs and config. */
+async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobManifest; resumed: boolean }> {
+  const { jobDir, config } = request;
+  const inputs = await discoverInputs(request.inputSpecs, config.format === 'auto' ? {} : { format: config.format });
+  const jsonl = inputs.find((f) => f.format === 'jsonl');
+  if (jsonl && config.textField === null) {
+    throw new QuernError('config', `${jsonl.path} is JSON Lines: say where the text is with --text-field (e.g. --text-field body.text)`);
+  }
+  const existing = await readManifest(jobDir);
+  if (existing && !request.restart) {
+    const differences = describeDifferences(existing, config, inputs);
+    if (differences.length === 0) return { job: existing, resumed: true };
+    throw new QuernError('config', `job ${jobDir} was started with other inputs or settings:\n  ${differences.join('\n  ')}\nre-run with --restart to discard it and start over`);
+  }
+  await removeJobData(jobDir);
+  const job: JobManifest = {
+    format: 'quern-job',
+    version: MANIFEST_VERSION,
+    createdAt: new Date().toISOString(),
+    config,
+    inputs,
+    chunks: await planChunks(inputs, config.chunkBytes),
+    stages: {
+      vocab: { status: 'pending' },
+      count: { status: 'pending', chunks: [] },
+      merge: { status: 'pending', partitionsDone: [] },
+    },
+  };
+  await writeManifest(fs, jobDir, job);
+  return { job, resumed: false };
+}
+
+/** Runs (or continues) counting and merging a job; returns its summary. */
+export async function runCount(request: CountRequest): Promise<CountSummary> {
+  const started = Date.now();
+  const fs = request.fs ?? nodeFs;
+  const jobDir = path.resolve(request.jobDir);
+  await fs.mkdir(jobDir);
+  const lock = await lockJob(jobDir);
+  try {
+    const { job, resumed } = await openJob({ ...request, jobDir }, fs);
+    const ctx = makeStageContext({
+      jobDir, job, fs, progress: request.progress ?? silentProgress, workers: request.workers, memoryBytes: request.memoryBytes,
+    });
+    await vocabStage(ctx);
+    const vocab = await readJobVocabulary(jobDir, job);
+    await countStage(ctx, vocab);
+    await mergeStage(ctx);
+    return summarize(job, jobDir, vocab.words.length - 1, vocab.typesSeen, vocab.typesCapped, request, Date.now() - started, resumed);
+  } finally {
+    await lock.release();
+  }
+}
+
+function summarize(
+  job: JobManifest, jobDir: string, vocabularySize: number, typesSeen: number, typesCapped: number,
+  request: CountRequest, elapsedMs: number, resumed: boolean,
+): CountSummary {
+  const reads = job.stages.vocab.reads ?? [];
+  const sum = (f: (r: ReadStats) => number): number => reads.reduce((s, r) => s + f(r), 0);
+  const count = job.stages.count;
+  const runs = count.chunks.flatMap((c) => c.runs);
+  const skippedByFile = new Map<number, SkippedReport>();
+  // Chunks of a file are consecutive and in byte order: a sample's absolute line is the lines of
+  // the file's earlier chunks plus its line within the chunk.
+  const linesBefore = new Map<number, number>();
+  job.chunks.forEach((chunk, i) => {
+    const r = reads[i];
+    const base = linesBefore.get(chunk.fileIndex) ?? 0;
+    linesBefore.set(chunk.fileIndex, base + r.lines);
+    if (r.skipped === 0) return;
+    const report = skippedByFile.get(chunk.fileIndex) ?? { file: job.inputs[chunk.fileIndex].path, skipped: 0, samples: [] };
+    report.skipped += r.skipped;
+    for (const sample of r.skippedSamples as Array<ReadStats['skippedSamples'][number] & { lineInChunk?: number }>) {
+      report.samples.push({ ...sample, line: sample.line ?? (sample.lineInChunk === undefined ? undefined : base + sample.lineInChunk) });
+    }
+    skippedByFile.set(chunk.fileIndex, report);
+  });
+  const tokens = count.chunks.reduce((s, c) => s + c.tokens, 0);
+  const stageMs = {
+    vocabulary: job.stages.vocab.elapsedMs ?? 0,
+    count: count.elapsedMs ?? 0,
+    merge: job.stages.merge.elapsedMs ?? 0,
+  };
+  const workMs = stageMs.vocabulary + stageMs.count + stageMs.merge;
+  return {
+    jobDir,
+    inputs: job.inputs.length,
+    inputBytes: job.inputs.reduce((s, f) => s + f.bytes, 0),
+    chunks: job.chunks.length,
+    lines: sum((r) => r.lines),
+    emptyLines: sum((r) => r.emptyLines),
+    sentences: sum((r) => r.sentences),
+    tokens,
+    vocabularySize,
+    typesSeen,
+    typesCapped,
+    order: job.config.order,
+    distinct: job.stages.merge.distinct ?? [],
+    occurrences: sumOccurrences(job),
+    spills: count.chunks.reduce((s, c) => s + c.spills, 0),
+    runFiles: runs.length,
+    runBytes: runs.reduce((s, r) => s + r.bytes, 0),
+    storeBytes: job.stages.merge.storeBytes ?? 0,
+    skipped: [...skippedByFile.values()],
+    workers: request.workers,
+    memoryBytes: request.memoryBytes,
+    elapsedMs,
+    stageMs,
+    tokensPerSecond: workMs > 0 ? Math.round((tokens / workMs) * 1000) : 0,
+    resumed,
+  };
+}

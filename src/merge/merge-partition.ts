@@ -1,0 +1,121 @@
+/**
+ * Merges one partition's runs, order by order, into its LMDB environment. Every transaction that
+ * writes blocks also writes the progress record (order, records done, tally state), so after a
+ * crash counts and progress agree, and a re-run skips exactly what was committed.
+ */
+import * as path from 'node:path';
+import { assert } from '../errors.ts';
+import { STORE_BLOCK_RECORDS, STORE_TXN_BLOCKS } from '../limits.ts';
+import { encodeBlockValue } from '../count/block-codec.ts';
+import { RunReader } from '../count/run-file.ts';
+import { mergeRuns } from '../count/run-merge.ts';
+import { ngramKey, PartitionStore } from './store.ts';
+import { TallyBuilder, type OrderTally } from './tally.ts';
+
+export const MERGE_PROGRESS_VERSION = 1;
+
+/** The progress record of a partition's merge (JSON in the store). */
+export interface MergeProgress {
+  version: number;
+  /** The order being merged; orderMax + 1 once the partition is done. */
+  order: number;
+  /** Records of that order already committed. */
+  records: number;
+  /** Finished orders' tallies. */
+  tallies: OrderTally[];
+  /** The tally state of the order being merged. */
+  current: ReturnType<TallyBuilder['checkpoint']> | null;
+  done: boolean;
+}
+
+export interface PartitionMergeTask {
+  partition: number;
+  /** Run files per order (index 0 = order 1), relative to the job directory. */
+  files: string[][];
+}
+
+/** Merges (or finishes merging) one partition; returns its tallies per order. */
+export async function mergePartition(
+  jobDir: string,
+  storeDir: string,
+  task: PartitionMergeTask,
+  onRecords?: (records: number) => void,
+): Promise<OrderTally[]> {
+  const orderMax = task.files.length;
+  const store = PartitionStore.open(path.join(jobDir, storeDir), 'write');
+  try {
+    let progress = store.readProgress<MergeProgress>() ?? {
+      version: MERGE_PROGRESS_VERSION, order: 1, records: 0, tallies: [], current: null, done: false,
+    };
+    assert(progress.version === MERGE_PROGRESS_VERSION, `merge progress version ${progress.version}`);
+    while (!progress.done) {
+      progress = await mergeOrder(jobDir, store, task, progress, orderMax, onRecords);
+    }
+    return progress.tallies;
+  } finally {
+    await store.close();
+  }
+}
+
+async function mergeOrder(
+  jobDir: string,
+  store: PartitionStore,
+  task: PartitionMergeTask,
+  progress: MergeProgress,
+  orderMax: number,
+  onRecords: ((records: number) => void) | undefined,
+): Promise<MergeProgress> {
+  const order = progress.order;
+  const tally = new TallyBuilder(order, progress.current ?? undefined);
+  let skip = progress.records;
+  let records = progress.records;
+  const blockKeys = new Uint32Array(STORE_BLOCK_RECORDS * order);
+  const blockCounts = new Float64Array(STORE_BLOCK_RECORDS);
+  let blockSize = 0;
+  let pending: Array<[Buffer, Buffer]> = [];
+
+  const closeBlock = (): void => {
+    pending.push([ngramKey(order, blockKeys, 0), encodeBlockValue(blockKeys, blockCounts, 0, blockSize, order)]);
+    records += blockSize;
+    blockSize = 0;
+  };
+  const commit = (next: MergeProgress): void => {
+    store.commit(pending, next);
+    onRecords?.(pending.length);
+    pending = [];
+  };
+
+  const readers = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file))));
+  for await (const batch of mergeRuns(readers, order)) {
+    let j = 0;
+    if (skip > 0) {
+      j = Math.min(skip, batch.recordCount);
+      skip -= j;
+    }
+    for (; j < batch.recordCount; j++) {
+      blockKeys.set(batch.keys.subarray(j * order, j * order + order), blockSize * order);
+      blockCounts[blockSize] = batch.counts[j];
+      blockSize++;
+      tally.add(batch.keys, j * order, batch.counts[j]);
+      if (blockSize === STORE_BLOCK_RECORDS) {
+        closeBlock();
+        if (pending.length === STORE_TXN_BLOCKS) {
+          commit({ ...progress, records, current: tally.checkpoint() });
+        }
+      }
+    }
+  }
+  assert(skip === 0, `partition ${task.partition} order ${order}: progress says ${progress.records} records were committed, the runs hold fewer`);
+  if (blockSize > 0) closeBlock();
+  const finished = tally.finish();
+  const next: MergeProgress = {
+    version: MERGE_PROGRESS_VERSION,
+    order: order + 1,
+    records: 0,
+    tallies: [...progress.tallies, finished],
+    current: null,
+    done: order === orderMax,
+  };
+  commit(next);
+  return next;
+}

@@ -1,0 +1,91 @@
+/**
+ * The merge stage: each partition's runs → its LMDB environment, partitions run concurrently on the
+ * worker pool (each is an independent task). Ends by checking the totals against the counts made
+ * while reading, and writing stats.json for the report and estimation.
+ */
+import { promises as fsp } from 'node:fs';
+import * as path from 'node:path';
+import { assert, QuernError } from '../errors.ts';
+import { writeFileAtomic } from '../job/fsio.ts';
+import type { StageContext } from '../job/context.ts';
+import { runPool } from '../count/pool.ts';
+import type { MergeDone } from '../count/protocol.ts';
+import { baseInit, sumOccurrences } from '../count/stage.ts';
+import type { PartitionMergeTask } from './merge-partition.ts';
+import { PartitionStore, partitionStoreDir, STORE_DIR } from './store.ts';
+import { sumTallies, type OrderTally } from './tally.ts';
+import type { MergeProgress } from './merge-partition.ts';
+
+/** The tallies a finished partition recorded in its store. */
+async function finishedTallies(jobDir: string, partition: number): Promise<OrderTally[]> {
+  const dir = path.join(jobDir, partitionStoreDir(partition));
+  const store = PartitionStore.open(dir, 'read');
+  try {
+    const progress = store.readProgress<MergeProgress>();
+    if (!progress?.done) throw new QuernError('corrupt', `job.json records the merge of ${dir} as finished, but the store does not; re-run with --restart`);
+    return progress.tallies;
+  } finally {
+    await store.close();
+  }
+}
+
+export const STATS_FILE = 'stats.json';
+
+/** Groups the recorded run files by partition and order into merge tasks. */
+function mergeTasks(ctx: StageContext): PartitionMergeTask[] {
+  const { job } = ctx;
+  const tasks: PartitionMergeTask[] = [];
+  for (let p = 0; p < job.config.partitions; p++) {
+    tasks.push({ partition: p, files: Array.from({ length: job.config.order }, () => []) });
+  }
+  for (const chunk of job.stages.count.chunks) {
+    for (const run of chunk.runs) tasks[run.partition].files[run.order - 1].push(run.file);
+  }
+  return tasks;
+}
+
+async function directoryBytes(dir: string): Promise<number> {
+  const entries = await fsp.readdir(dir, { recursive: true, withFileTypes: true }).catch(() => []);
+  let bytes = 0;
+  for (const e of entries) if (e.isFile()) bytes += (await fsp.stat(path.join(e.parentPath, e.name))).size;
+  return bytes;
+}
+
+export async function mergeStage(ctx: StageContext): Promise<void> {
+  const { job, jobDir } = ctx;
+  const merge = job.stages.merge;
+  if (merge.status === 'done') return;
+  const started = Date.now();
+  const done = new Set(merge.partitionsDone);
+  const todo = mergeTasks(ctx).filter((t) => !done.has(t.partition));
+  const byPartition = new Map<number, OrderTally[]>();
+  for (const partition of done) byPartition.set(partition, await finishedTallies(jobDir, partition));
+  merge.status = 'running';
+  ctx.progress.start(`merging ${todo.length} partitions`, todo.length, 'tasks');
+  await runPool<PartitionMergeTask, MergeDone, unknown>(ctx.workers, baseInit(job, jobDir, 'merge'), todo, {
+    message: (task) => ({ type: 'partition', task }),
+    onDone: (result) => {
+      ctx.progress.update(1, 0);
+      byPartition.set(result.partition, result.tallies);
+      merge.partitionsDone.push(result.partition);
+      return ctx.saveManifest();
+    },
+  }).finally(() => ctx.progress.stop());
+  merge.partitionsDone.sort((a, b) => a - b);
+  const tallies: OrderTally[] = [];
+  for (let n = 1; n <= job.config.order; n++) {
+    tallies.push(sumTallies(n, [...byPartition.values()].map((t) => t[n - 1])));
+  }
+  const occurrences = sumOccurrences(job);
+  for (let n = 1; n <= job.config.order; n++) {
+    const tally = tallies[n - 1];
+    assert(tally.total === occurrences[n - 1], `order ${n}: Σ counts in the store ${tally.total} ≠ occurrences counted ${occurrences[n - 1]}`);
+    assert(tally.raw.reduce((s, [r, nr]) => s + r * nr, 0) === tally.total, `order ${n}: Σ r·n_r ≠ total count`);
+  }
+  await writeFileAtomic(ctx.fs, path.join(jobDir, STATS_FILE), JSON.stringify({ order: job.config.order, tallies }, null, 1) + '\n');
+  merge.distinct = tallies.map((t) => t.distinct);
+  merge.storeBytes = await directoryBytes(path.join(jobDir, STORE_DIR));
+  merge.status = 'done';
+  merge.elapsedMs = (merge.elapsedMs ?? 0) + Date.now() - started;
+  await ctx.saveManifest();
+}

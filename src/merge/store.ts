@@ -1,0 +1,188 @@
+/**
+ * The count store: one LMDB environment per partition under job/counts.lmdb/, so partitions merge
+ * in parallel (one writer per environment) and each partition stays an independent task.
+ *
+ * Keys: [order u8][word ids as big-endian u32 …] — LMDB's byte order is then (order, ids in
+ * lexicographic order), the order of `quern ngrams`. An n-gram key names a block: the value holds
+ * up to STORE_BLOCK_RECORDS n-grams starting with that one, coded and checksummed like a run-file
+ * block (block-codec.ts). Keys starting with 0x00 hold metadata: the merge progress, written in the
+ * same transaction as the counts it describes.
+ */
+import * as path from 'node:path';
+import { open, type RootDatabase } from 'lmdb';
+import { assert, QuernError } from '../errors.ts';
+import { STORE_BLOCK_RECORDS, STORE_MAP_BYTES } from '../limits.ts';
+import { compareRows, DecodeFailure, decodeBlockValue, type DecodedBlock } from '../count/block-codec.ts';
+
+export const STORE_DIR = 'counts.lmdb';
+const META = 0x00;
+const PROGRESS_KEY = Buffer.from([META, ...Buffer.from('progress', 'latin1')]);
+
+/** Path of partition `p`'s environment, relative to the job directory. */
+export function partitionStoreDir(partition: number): string {
+  return path.join(STORE_DIR, `p${String(partition).padStart(4, '0')}`);
+}
+
+/** The store key of the n-gram `ids[offset .. offset+order)`. */
+export function ngramKey(order: number, ids: ArrayLike<number>, offset = 0): Buffer {
+  const key = Buffer.allocUnsafe(1 + 4 * order);
+  key[0] = order;
+  for (let k = 0; k < order; k++) key.writeUInt32BE(ids[offset + k], 1 + 4 * k);
+  return key;
+}
+
+/** Decodes a store key into its order and ids. */
+export function parseNgramKey(key: Uint8Array): { order: number; ids: Uint32Array } {
+  const order = key[0];
+  const view = new DataView(key.buffer, key.byteOffset, key.byteLength);
+  const ids = new Uint32Array(order);
+  for (let k = 0; k < order; k++) ids[k] = view.getUint32(1 + 4 * k, false);
+  return { order, ids };
+}
+
+/** Opens a partition's environment with every storage option stated. */
+function openEnvironment(dir: string, readOnly: boolean): RootDatabase<Buffer, Buffer> {
+  try {
+    return open<Buffer, Buffer>({
+      path: dir,
+      keyEncoding: 'binary',
+      encoding: 'binary',
+      compression: false, // values are varint-coded blocks already
+      mapSize: STORE_MAP_BYTES,
+      noSync: false, // every commit is durable: progress recorded in it can be trusted
+      overlappingSync: false,
+      readOnly,
+    });
+  } catch (cause) {
+    throw new QuernError('io', `cannot open the count store ${dir}: ${(cause as Error).message}`, { cause });
+  }
+}
+
+export class PartitionStore {
+  private constructor(readonly dir: string, private readonly db: RootDatabase<Buffer, Buffer>) {}
+
+  static open(dir: string, mode: 'read' | 'write'): PartitionStore {
+    return new PartitionStore(dir, openEnvironment(dir, mode === 'read'));
+  }
+
+  /** The merge progress recorded with the last committed transaction, if any. */
+  readProgress<T>(): T | undefined {
+    const value = this.db.getBinary(PROGRESS_KEY);
+    if (value === undefined) return undefined;
+    try {
+      return JSON.parse(Buffer.from(value).toString('utf8')) as T;
+    } catch (cause) {
+      throw new QuernError('corrupt', `count store ${this.dir}: merge progress record is damaged`, { cause });
+    }
+  }
+
+  /** Writes blocks (key, value) and the progress record in one synchronous, durable transaction. */
+  commit(blocks: Array<[Buffer, Buffer]>, progress: unknown): void {
+    const progressValue = Buffer.from(JSON.stringify(progress), 'utf8');
+    this.db.transactionSync(() => {
+      for (const [key, value] of blocks) this.db.putSync(key, value, { append: true });
+      this.db.putSync(PROGRESS_KEY, progressValue);
+    });
+  }
+
+  /** Decodes the block stored under `key`, naming the store in errors. */
+  private decode(key: Uint8Array, value: Uint8Array): DecodedBlock {
+    const { order, ids } = parseNgramKey(key);
+    try {
+      const block = decodeBlockValue(value, order, STORE_BLOCK_RECORDS);
+      if (compareRows(block.keys, 0, ids, 0, order) !== 0) throw new DecodeFailure(0, 'first n-gram differs from its key');
+      return block;
+    } catch (failure) {
+      if (!(failure instanceof DecodeFailure)) throw failure;
+      throw new QuernError('corrupt', `count store ${this.dir}: block of order ${order} at [${ids.join(' ')}]: ${failure.reason}`);
+    }
+  }
+
+  /** Count of the n-gram `ids` (of length `order`), 0 when it was never seen. */
+  lookup(order: number, ids: ArrayLike<number>): number {
+    const target = ngramKey(order, ids);
+    for (const { key, value } of this.db.getRange({ start: target, reverse: true, limit: 1 })) {
+      if (key[0] !== order) return 0;
+      const block = this.decode(key, value);
+      const probe = Uint32Array.from(ids as ArrayLike<number>);
+      let low = 0;
+      let high = block.recordCount - 1;
+      while (low <= high) {
+        const mid = (low + high) >> 1;
+        const c = compareRows(block.keys, mid * order, probe, 0, order);
+        if (c === 0) return block.counts[mid];
+        if (c < 0) low = mid + 1;
+        else high = mid - 1;
+      }
+    }
+    return 0;
+  }
+
+  /**
+   * The blocks of one order, in key order, starting with the block that may hold `from` (an n-gram
+   * prefix, possibly shorter than the order) — all blocks of the order when `from` is absent.
+   */
+  *blocks(order: number, from?: ArrayLike<number>): Generator<DecodedBlock> {
+    let start = Buffer.from([order]);
+    if (from !== undefined && from.length > 0) {
+      const probe = ngramKey(from.length, from);
+      probe[0] = order;
+      for (const { key } of this.db.getRange({ start: probe, reverse: true, limit: 1 })) if (key[0] === order) start = Buffer.from(key);
+    }
+    const end = Buffer.from([order + 1]);
+    for (const { key, value } of this.db.getRange({ start, end })) {
+      assert(key[0] === order, 'range stays within the order');
+      yield this.decode(key, value);
+    }
+  }
+
+  close(): Promise<void> {
+    return this.db.close();
+  }
+}
+
+/**
+ * One partition's n-grams of one order as a BatchSource for mergeRuns, optionally limited to those
+ * starting with `prefix`.
+ */
+export class StoreSource {
+  private readonly iterator: Generator<DecodedBlock>;
+  private ended = false;
+
+  constructor(private readonly store: PartitionStore, readonly order: number, private readonly prefix?: Uint32Array) {
+    this.iterator = store.blocks(order, prefix);
+  }
+
+  get name(): string {
+    return this.store.dir;
+  }
+
+  async nextBatch(): Promise<{ keys: Uint32Array; counts: Float64Array; recordCount: number } | null> {
+    const prefix = this.prefix;
+    while (!this.ended) {
+      const step = this.iterator.next();
+      if (step.done) break;
+      const block = step.value;
+      if (prefix === undefined || prefix.length === 0) return block;
+      // Keep the rows that start with the prefix; rows past it end the source.
+      const order = this.order;
+      let first = -1;
+      let end = block.recordCount;
+      for (let j = 0; j < block.recordCount; j++) {
+        const c = compareRows(block.keys, j * order, prefix, 0, prefix.length);
+        if (c < 0) continue;
+        if (c > 0) { end = j; this.ended = true; break; }
+        if (first < 0) first = j;
+      }
+      if (first >= 0 && end > first) {
+        return { keys: block.keys.slice(first * order, end * order), counts: block.counts.slice(first, end), recordCount: end - first };
+      }
+    }
+    this.ended = true;
+    return null;
+  }
+
+  async close(): Promise<void> {
+    this.iterator.return(undefined);
+  }
+}

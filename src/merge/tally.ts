@@ -1,0 +1,112 @@
+/**
+ * What the merge keeps per order and partition while it writes the store, so later stages need
+ * no other pass: distinct n-grams, total count, count-of-counts of the raw counts and of the
+ * contexts (the first order−1 words, by the sum of the counts of their n-grams).
+ */
+import { assert } from '../errors.ts';
+import type { CountOfCounts } from '../stats/types.ts';
+
+/** A serialisable tally (stored in the merge progress record and in stats.json). */
+export interface OrderTally {
+  order: number;
+  distinct: number;
+  total: number;
+  raw: CountOfCounts;
+  /** Contexts by their total count; empty for order 1. */
+  contexts: CountOfCounts;
+  /** Distinct contexts (order ≥ 2). */
+  contextCount: number;
+}
+
+function toPairs(map: Map<number, number>): CountOfCounts {
+  return [...map.entries()].sort((a, b) => a[0] - b[0]);
+}
+
+function addPairs(map: Map<number, number>, pairs: CountOfCounts): void {
+  for (const [r, n] of pairs) map.set(r, (map.get(r) ?? 0) + n);
+}
+
+/** Accumulates one order's tally from a sorted stream of (n-gram, count). */
+export class TallyBuilder {
+  private distinct = 0;
+  private total = 0;
+  private readonly raw = new Map<number, number>();
+  private readonly contexts = new Map<number, number>();
+  private contextCount = 0;
+  /** The context being summed (first order−1 ids) and its sum so far. */
+  private context: Uint32Array;
+  private contextSum = 0;
+
+  constructor(readonly order: number, resume?: { tally: OrderTally; context: number[]; contextSum: number }) {
+    this.context = new Uint32Array(Math.max(0, order - 1));
+    if (resume) {
+      this.distinct = resume.tally.distinct;
+      this.total = resume.tally.total;
+      addPairs(this.raw, resume.tally.raw);
+      addPairs(this.contexts, resume.tally.contexts);
+      this.contextCount = resume.tally.contextCount;
+      this.context.set(resume.context);
+      this.contextSum = resume.contextSum;
+    }
+  }
+
+  /** Adds the row `keys[offset .. offset+order)` with `count`; rows come in increasing order. */
+  add(keys: Uint32Array, offset: number, count: number): void {
+    assert(count >= 1, `count ${count} of a stored n-gram is at least 1`);
+    this.distinct++;
+    this.total += count;
+    this.raw.set(count, (this.raw.get(count) ?? 0) + 1);
+    const contextLength = this.order - 1;
+    if (contextLength === 0) return;
+    let same = this.contextSum > 0;
+    for (let k = 0; same && k < contextLength; k++) same = this.context[k] === keys[offset + k];
+    if (!same) {
+      this.closeContext();
+      for (let k = 0; k < contextLength; k++) this.context[k] = keys[offset + k];
+    }
+    this.contextSum += count;
+  }
+
+  private closeContext(): void {
+    if (this.contextSum === 0) return;
+    this.contexts.set(this.contextSum, (this.contexts.get(this.contextSum) ?? 0) + 1);
+    this.contextCount++;
+    this.contextSum = 0;
+  }
+
+  /** The state to store with the progress, so a resumed merge continues this tally exactly. */
+  checkpoint(): { tally: OrderTally; context: number[]; contextSum: number } {
+    return { tally: this.snapshot(), context: Array.from(this.context), contextSum: this.contextSum };
+  }
+
+  private snapshot(): OrderTally {
+    return {
+      order: this.order, distinct: this.distinct, total: this.total,
+      raw: toPairs(this.raw), contexts: toPairs(this.contexts), contextCount: this.contextCount,
+    };
+  }
+
+  /** Ends the stream and returns the tally. */
+  finish(): OrderTally {
+    this.closeContext();
+    return this.snapshot();
+  }
+}
+
+/** Sums tallies of the same order from several partitions. */
+export function sumTallies(order: number, tallies: OrderTally[]): OrderTally {
+  const raw = new Map<number, number>();
+  const contexts = new Map<number, number>();
+  let distinct = 0;
+  let total = 0;
+  let contextCount = 0;
+  for (const t of tallies) {
+    assert(t.order === order, 'tallies of one order');
+    distinct += t.distinct;
+    total += t.total;
+    contextCount += t.contextCount;
+    addPairs(raw, t.raw);
+    addPairs(contexts, t.contexts);
+  }
+  return { order, distinct, total, raw: toPairs(raw), contexts: toPairs(contexts), contextCount };
+}

@@ -3,6 +3,8 @@ import yargs from 'yargs';
 import { hideBin } from 'yargs/helpers';
 import { countCommand } from './count.ts';
 import { ngramsCommand } from './ngrams.ts';
+import { reportCommand } from './report.ts';
+import { verifyCommand } from './verify.ts';
 import { reportError, EXIT_STATUS } from './exit.ts';
 
 export async function main(args: string[]): Promise<number> {
@@ -12,6 +14,8 @@ export async function main(args: string[]): Promise<number> {
       .usage('$0 <command> [options]\n\nCount n-grams of huge corpora and build n-gram language models.')
       .command(countCommand)
       .command(ngramsCommand)
+      .command(reportCommand)
+      .command(verifyCommand)
       .demandCommand(1, 'Say which command to run; see quern --help')
       .strict()
       .recommendCommands()

@@ -77,6 +77,20 @@ export class CounterSet {
     }
   }
 
+  /**
+   * Adds one occurrence of the n-gram `ids[start .. start+order)`, growing its counter within the
+   * budget. Returns false, changing nothing, when the budget is reached: the owner must spill.
+   */
+  addNgram(ids: Uint32Array, start: number, order: number): boolean {
+    const counter = this.counters[order - 1];
+    const hash = ngramHash(ids, start, order);
+    if (counter.add(ids, start, hash)) return true;
+    if (!this.reserve(2)) return false;
+    const added = counter.add(ids, start, hash);
+    assert(added, 'a counter with room accepts an n-gram');
+    return true;
+  }
+
   /** Empties every counter, keeping its memory. */
   clear(): void {
     for (const c of this.counters) c.clear();

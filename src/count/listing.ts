@@ -25,6 +25,8 @@ export interface ListOptions {
   limit?: number;
   /** Only n-grams starting with these words. */
   prefix?: string[];
+  /** List continuation counts N1+(• x) instead of raw counts (orders below the highest). */
+  continuation?: boolean;
   byCount: boolean;
 }
 
@@ -74,6 +76,10 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
   if (!Number.isInteger(order) || order < 1 || order > manifest.config.order) {
     throw new QuernError('config', `--order must be from 1 to ${manifest.config.order} for this job, got ${order}`);
   }
+  if (options.continuation) {
+    if (manifest.stages.continuation?.status !== 'done') throw new QuernError('config', `the continuation counts of ${jobDir} are not finished; re-run the same quern count command`);
+    if (order >= manifest.config.order) throw new QuernError('config', `continuation counts exist for orders below the highest (1 to ${manifest.config.order - 1})`);
+  }
   const vocab = await readJobVocabulary(jobDir, manifest);
   const words = vocab.words;
   let readers: BatchSource[];
@@ -88,7 +94,7 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
       prefix = Uint32Array.from(options.prefix, (w) => ids.get(w)!);
     }
     stores = Array.from({ length: manifest.config.partitions }, (_, p) => PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read'));
-    readers = stores.map((store) => new StoreSource(store, order, prefix));
+    readers = stores.map((store) => new StoreSource(store, order, prefix, options.continuation ? 'continuation' : 'raw'));
   } else {
     const files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => r.file);
     readers = [];

@@ -4,7 +4,7 @@ import type { RunRecord } from '../job/manifest.ts';
 import type { PartitionMergeTask } from '../merge/merge-partition.ts';
 import type { OrderTally } from '../merge/tally.ts';
 
-export type Phase = 'vocab' | 'count' | 'merge';
+export type Phase = 'vocab' | 'count' | 'merge' | 'continuation-emit' | 'continuation-merge';
 
 export interface WorkerInit {
   phase: Phase;
@@ -20,11 +20,23 @@ export interface WorkerInit {
   words?: string[];
   eosId?: number;
   unkId?: number;
-  /** count phase: the budget of this worker's counters. */
+  /** count and continuation-emit phases: the budget of this worker's counters. */
   counterBytesMax?: number;
+  /** continuation-emit phase: vocabulary size + 1 (bounds word ids). */
+  idMax?: number;
 }
 
-export type ToWorker = { type: 'chunk'; chunk: Chunk } | { type: 'partition'; task: PartitionMergeTask } | { type: 'finish' };
+export type ToWorker =
+  | { type: 'chunk'; chunk: Chunk }
+  | { type: 'partition'; task: PartitionMergeTask }
+  | { type: 'emit'; partition: number }
+  | { type: 'finish' };
+
+export interface EmitDone {
+  type: 'done';
+  partition: number;
+  runs: RunRecord[];
+}
 
 export interface MergeDone {
   type: 'done';
@@ -76,4 +88,4 @@ export interface WorkerFailure {
   stack?: string;
 }
 
-export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | VocabFinished | CountFinished | Progress | WorkerFailure;
+export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | EmitDone | VocabFinished | CountFinished | Progress | WorkerFailure;

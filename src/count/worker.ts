@@ -10,20 +10,21 @@ import { QuernError } from '../errors.ts';
 import { readChunk } from '../corpus/read.ts';
 import { makeTokenizer } from '../corpus/tokenize.ts';
 import { BOS_ID, UNK } from '../corpus/vocabulary.ts';
-import { nodeFs } from '../job/fsio.ts';
+import { stageFs } from '../job/fsio.ts';
 import type { RunRecord } from '../job/manifest.ts';
 import type { Chunk, ReadOptions } from '../corpus/types.ts';
 import { CounterSet } from './counter-set.ts';
-import { spillOrder } from './spill-sort.ts';
-import { writeRunFile } from './run-file.ts';
+import { spillCounterSet } from './spill.ts';
 import { mergePartition, type PartitionMergeTask } from '../merge/merge-partition.ts';
 import { partitionStoreDir } from '../merge/store.ts';
+import { emitContinuations } from '../merge/continuation.ts';
 import { runFilePath } from './run-layout.ts';
 import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 
 const PROGRESS_INTERVAL_MS = 200;
 
 const port = parentPort!;
+const fs = stageFs();
 
 function readOptionsOf(chunk: Chunk): ReadOptions {
   return { format: init.inputs[chunk.fileIndex].format, textField: init.textField, skipBad: init.skipBad };
@@ -96,31 +97,10 @@ function countState(): { wordIds: Map<string, number>; counters: CounterSet } {
 
 /** Writes every non-empty counter as sorted run files, one per partition, and clears it. */
 async function spillAll(chunk: number, spill: number, runs: RunRecord[]): Promise<void> {
-  const set = counters!;
-  const idMax = init.words!.length;
-  for (const counter of set.counters) {
-    if (counter.size === 0) continue;
-    const order = counter.order;
-    const { slots, partitionStarts } = spillOrder(counter, init.partitions, idMax);
-    for (let p = 0; p < init.partitions; p++) {
-      const begin = partitionStarts[p];
-      const records = partitionStarts[p + 1] - begin;
-      if (records === 0) continue;
-      const keys = new Uint32Array(records * order);
-      const counts = new Uint32Array(records);
-      for (let j = 0; j < records; j++) {
-        const slot = slots[begin + j];
-        keys.set(counter.keys.subarray(slot * order, slot * order + order), j * order);
-        counts[j] = counter.counts[slot];
-      }
-      const file = runFilePath(order, p, chunk, spill);
-      const absolute = path.join(init.jobDir, file);
-      await nodeFs.mkdir(path.dirname(absolute));
-      const info = await writeRunFile(nodeFs, absolute, { order, partition: p, chunk, spill }, keys, counts, records);
-      runs.push({ file, order, partition: p, records, bytes: info.fileBytes });
-    }
-  }
-  set.clear();
+  runs.push(...await spillCounterSet(counters!, {
+    fs, jobDir: init.jobDir, partitions: init.partitions, idMax: init.words!.length, chunk, spill,
+    fileFor: (order, partition) => runFilePath(order, partition, chunk, spill),
+  }));
 }
 
 async function countChunk(chunk: Chunk): Promise<void> {
@@ -180,8 +160,17 @@ async function countChunk(chunk: Chunk): Promise<void> {
 // ---- merge phase ---------------------------------------------------------------------------
 
 async function mergeTask(task: PartitionMergeTask): Promise<void> {
-  const tallies = await mergePartition(init.jobDir, partitionStoreDir(task.partition), task);
+  const space = init.phase === 'continuation-merge' ? 'continuation' : 'raw';
+  const tallies = await mergePartition(init.jobDir, partitionStoreDir(task.partition), task, space);
   post({ type: 'done', partition: task.partition, tallies });
+}
+
+async function emitTask(partition: number): Promise<void> {
+  const runs = await emitContinuations({
+    fs, jobDir: init.jobDir, partition, orderMax: init.order, partitions: init.partitions,
+    idMax: init.idMax!, counterBytesMax: init.counterBytesMax!,
+  });
+  post({ type: 'done', partition, runs });
 }
 
 async function handle(message: ToWorker): Promise<void> {
@@ -194,6 +183,7 @@ async function handle(message: ToWorker): Promise<void> {
     return;
   }
   if (message.type === 'partition') await mergeTask(message.task);
+  else if (message.type === 'emit') await emitTask(message.partition);
   else if (init.phase === 'vocab') await vocabChunk(message.chunk);
   else await countChunk(message.chunk);
 }

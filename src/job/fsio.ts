@@ -132,3 +132,16 @@ export function faultyFs(base: StageFs, plan: FaultPlan): StageFs & { operations
     async syncDir(dirPath) { check('sync directory', dirPath); await base.syncDir(dirPath); },
   };
 }
+
+/** Environment variable that injects faults into every StageFs of the process (tests only). */
+export const FAULT_ENV = 'QUERN_TEST_FAULT';
+
+/**
+ * The StageFs a stage should use: the real file system, wrapped with the fault plan given as JSON
+ * in QUERN_TEST_FAULT when that is set (each thread counts its own operations).
+ */
+export function stageFs(): StageFs {
+  const plan = process.env[FAULT_ENV];
+  if (!plan) return nodeFs;
+  return faultyFs(nodeFs, JSON.parse(plan) as FaultPlan);
+}

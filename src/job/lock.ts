@@ -18,6 +18,8 @@ function processAlive(pid: number): boolean {
 }
 
 export interface JobLock {
+  /** The lock file's path. */
+  file: string;
   release(): Promise<void>;
 }
 
@@ -29,7 +31,7 @@ export async function lockJob(jobDir: string): Promise<JobLock> {
       const handle = await fsp.open(file, 'wx');
       await handle.writeFile(`${process.pid}\n`);
       await handle.close();
-      return { release: () => fsp.rm(file, { force: true }) };
+      return { file, release: () => fsp.rm(file, { force: true }) };
     } catch (error) {
       if ((error as NodeJS.ErrnoException).code !== 'EEXIST') {
         throw new QuernError('io', `cannot create lock ${file}: ${(error as Error).message}`, { cause: error });

@@ -74,6 +74,15 @@ export interface MergeStage {
   elapsedMs?: number;
 }
 
+export interface ContinuationStage {
+  status: StageStatus;
+  /** Source partitions whose suffixes were emitted, with the runs they wrote. */
+  emitted: Array<{ partition: number; runs: RunRecord[] }>;
+  /** Partitions whose continuation runs are merged into their store. */
+  partitionsDone: number[];
+  elapsedMs?: number;
+}
+
 export interface JobManifest {
   format: 'quern-job';
   version: number;
@@ -81,7 +90,7 @@ export interface JobManifest {
   config: JobConfig;
   inputs: InputFile[];
   chunks: Chunk[];
-  stages: { vocab: VocabStage; count: CountStage; merge: MergeStage };
+  stages: { vocab: VocabStage; count: CountStage; merge: MergeStage; continuation: ContinuationStage };
 }
 
 export function manifestPath(jobDir: string): string {

@@ -12,9 +12,11 @@ import type { ReadStats } from '../corpus/types.ts';
 import { countStage, readJobVocabulary, sumOccurrences, vocabStage, VOCAB_FILE } from '../count/stage.ts';
 import { RUNS_DIR } from '../count/run-layout.ts';
 import { mergeStage, STATS_FILE } from '../merge/stage.ts';
+import { continuationStage } from '../merge/continuation-stage.ts';
 import { STORE_DIR } from '../merge/store.ts';
 import { makeStageContext, silentProgress, type ProgressSink } from './context.ts';
-import { nodeFs, type StageFs } from './fsio.ts';
+import { stageFs, type StageFs } from './fsio.ts';
+import { stopCleanlyOnSignals } from './interrupt.ts';
 import { lockJob } from './lock.ts';
 import { describeDifferences, readManifest, writeManifest, MANIFEST_VERSION, type JobConfig, type JobManifest } from './manifest.ts';
 
@@ -104,6 +106,7 @@ async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobMa
       vocab: { status: 'pending' },
       count: { status: 'pending', chunks: [] },
       merge: { status: 'pending', partitionsDone: [] },
+      continuation: { status: 'pending', emitted: [], partitionsDone: [] },
     },
   };
   await writeManifest(fs, jobDir, job);
@@ -113,11 +116,13 @@ async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobMa
 /** Runs (or continues) counting and merging a job; returns its summary. */
 export async function runCount(request: CountRequest): Promise<CountSummary> {
   const started = Date.now();
-  const fs = request.fs ?? nodeFs;
+  const fs = request.fs ?? stageFs();
   const jobDir = path.resolve(request.jobDir);
   await fs.mkdir(jobDir);
   const lock = await lockJob(jobDir);
+  const removeSignalHandlers = stopCleanlyOnSignals(jobDir, lock.file, 're-run the same command to continue it.');
   try {
+    await removeStaleTemporaries(jobDir);
     const { job, resumed } = await openJob({ ...request, jobDir }, fs);
     const ctx = makeStageContext({
       jobDir, job, fs, progress: request.progress ?? silentProgress, workers: request.workers, memoryBytes: request.memoryBytes,
@@ -126,10 +131,17 @@ export async function runCount(request: CountRequest): Promise<CountSummary> {
     const vocab = await readJobVocabulary(jobDir, job);
     await countStage(ctx, vocab);
     await mergeStage(ctx);
+    await continuationStage(ctx, vocab.words.length);
     return summarize(job, jobDir, vocab.words.length - 1, vocab.typesSeen, vocab.typesCapped, request, Date.now() - started, resumed);
   } finally {
+    removeSignalHandlers();
     await lock.release();
   }
+}
+
+/** Removes temporary files an interrupted atomic write left in the job directory. */
+async function removeStaleTemporaries(jobDir: string): Promise<void> {
+  for (const name of await fsp.readdir(jobDir)) if (name.endsWith('.tmp')) await fsp.rm(path.join(jobDir, name), { force: true });
 }
 
 function summarize(
@@ -160,7 +172,7 @@ function summarize(
   const stageMs = {
     vocabulary: job.stages.vocab.elapsedMs ?? 0,
     count: count.elapsedMs ?? 0,
-    merge: job.stages.merge.elapsedMs ?? 0,
+    merge: (job.stages.merge.elapsedMs ?? 0) + (job.stages.continuation.elapsedMs ?? 0),
   };
   const workMs = stageMs.vocabulary + stageMs.count + stageMs.merge;
   return {

@@ -9,7 +9,7 @@ import { STORE_BLOCK_RECORDS, STORE_TXN_BLOCKS } from '../limits.ts';
 import { encodeBlockValue } from '../count/block-codec.ts';
 import { RunReader } from '../count/run-file.ts';
 import { mergeRuns } from '../count/run-merge.ts';
-import { ngramKey, PartitionStore } from './store.ts';
+import { ngramKey, PartitionStore, type KeySpace } from './store.ts';
 import { TallyBuilder, type OrderTally } from './tally.ts';
 
 export const MERGE_PROGRESS_VERSION = 1;
@@ -34,22 +34,25 @@ export interface PartitionMergeTask {
   files: string[][];
 }
 
-/** Merges (or finishes merging) one partition; returns its tallies per order. */
+/**
+ * Merges (or finishes merging) one partition's runs into a key space of its store; returns the
+ * tallies per order. An empty partition still gets its progress record, so 'done' is recorded.
+ */
 export async function mergePartition(
   jobDir: string,
   storeDir: string,
   task: PartitionMergeTask,
-  onRecords?: (records: number) => void,
+  space: KeySpace = 'raw',
 ): Promise<OrderTally[]> {
   const orderMax = task.files.length;
   const store = PartitionStore.open(path.join(jobDir, storeDir), 'write');
   try {
-    let progress = store.readProgress<MergeProgress>() ?? {
+    let progress = store.readProgress<MergeProgress>(space) ?? {
       version: MERGE_PROGRESS_VERSION, order: 1, records: 0, tallies: [], current: null, done: false,
     };
     assert(progress.version === MERGE_PROGRESS_VERSION, `merge progress version ${progress.version}`);
     while (!progress.done) {
-      progress = await mergeOrder(jobDir, store, task, progress, orderMax, onRecords);
+      progress = await mergeOrder(jobDir, store, task, progress, orderMax, space);
     }
     return progress.tallies;
   } finally {
@@ -63,7 +66,7 @@ async function mergeOrder(
   task: PartitionMergeTask,
   progress: MergeProgress,
   orderMax: number,
-  onRecords: ((records: number) => void) | undefined,
+  space: KeySpace,
 ): Promise<MergeProgress> {
   const order = progress.order;
   const tally = new TallyBuilder(order, progress.current ?? undefined);
@@ -75,13 +78,12 @@ async function mergeOrder(
   let pending: Array<[Buffer, Buffer]> = [];
 
   const closeBlock = (): void => {
-    pending.push([ngramKey(order, blockKeys, 0), encodeBlockValue(blockKeys, blockCounts, 0, blockSize, order)]);
+    pending.push([ngramKey(order, blockKeys, 0, space), encodeBlockValue(blockKeys, blockCounts, 0, blockSize, order)]);
     records += blockSize;
     blockSize = 0;
   };
   const commit = (next: MergeProgress): void => {
-    store.commit(pending, next);
-    onRecords?.(pending.length);
+    store.commit(pending, next, space);
     pending = [];
   };
 

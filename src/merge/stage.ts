@@ -12,16 +12,16 @@ import { runPool } from '../count/pool.ts';
 import type { MergeDone } from '../count/protocol.ts';
 import { baseInit, sumOccurrences } from '../count/stage.ts';
 import type { PartitionMergeTask } from './merge-partition.ts';
-import { PartitionStore, partitionStoreDir, STORE_DIR } from './store.ts';
+import { PartitionStore, partitionStoreDir, STORE_DIR, type KeySpace } from './store.ts';
 import { sumTallies, type OrderTally } from './tally.ts';
 import type { MergeProgress } from './merge-partition.ts';
 
 /** The tallies a finished partition recorded in its store. */
-async function finishedTallies(jobDir: string, partition: number): Promise<OrderTally[]> {
+export async function finishedTallies(jobDir: string, partition: number, space: KeySpace = 'raw'): Promise<OrderTally[]> {
   const dir = path.join(jobDir, partitionStoreDir(partition));
   const store = PartitionStore.open(dir, 'read');
   try {
-    const progress = store.readProgress<MergeProgress>();
+    const progress = store.readProgress<MergeProgress>(space);
     if (!progress?.done) throw new QuernError('corrupt', `job.json records the merge of ${dir} as finished, but the store does not; re-run with --restart`);
     return progress.tallies;
   } finally {
@@ -30,6 +30,24 @@ async function finishedTallies(jobDir: string, partition: number): Promise<Order
 }
 
 export const STATS_FILE = 'stats.json';
+
+/** stats.json: the tallies kept while merging, input of the report and of estimation. */
+export interface StatsFile {
+  order: number;
+  /** Raw counts, per order (index 0 = order 1). */
+  tallies: OrderTally[];
+  /** Continuation counts N1+(• x), per order below the highest (index 0 = order 1). */
+  continuation: OrderTally[];
+}
+
+export async function readStatsFile(jobDir: string): Promise<StatsFile> {
+  const file = path.join(jobDir, STATS_FILE);
+  try {
+    return JSON.parse(await fsp.readFile(file, 'utf8')) as StatsFile;
+  } catch (cause) {
+    throw new QuernError('corrupt', `cannot read ${file}: ${(cause as Error).message}; re-run the count to rebuild it`, { cause });
+  }
+}
 
 /** Groups the recorded run files by partition and order into merge tasks. */
 function mergeTasks(ctx: StageContext): PartitionMergeTask[] {
@@ -51,6 +69,29 @@ async function directoryBytes(dir: string): Promise<number> {
   return bytes;
 }
 
+/**
+ * A damaged run file cannot be merged: mark the chunk that wrote it for recounting (its runs are
+ * removed, and the store is started over since other partitions hold that chunk's other runs),
+ * then stop with an account of what happened. Other errors pass unchanged.
+ */
+async function recountDamagedRun(ctx: StageContext, error: unknown): Promise<never> {
+  const file = error instanceof QuernError && error.code === 'corrupt' ? error.location?.file : undefined;
+  const { job, jobDir } = ctx;
+  const owner = file === undefined ? undefined
+    : job.stages.count.chunks.find((c) => c.runs.some((r) => path.join(jobDir, r.file) === file));
+  if (owner === undefined) throw error;
+  const chunk = job.chunks[owner.chunk];
+  const input = job.inputs[chunk.fileIndex];
+  for (const run of owner.runs) await ctx.fs.unlink(path.join(jobDir, run.file));
+  job.stages.count.chunks = job.stages.count.chunks.filter((c) => c !== owner);
+  job.stages.count.status = 'pending';
+  job.stages.merge = { status: 'pending', partitionsDone: [] };
+  job.stages.continuation = { status: 'pending', emitted: [], partitionsDone: [] };
+  await fsp.rm(path.join(jobDir, STORE_DIR), { recursive: true, force: true });
+  await ctx.saveManifest();
+  throw new QuernError('corrupt', `${(error as Error).message}\nThat run holds counts of ${input.path} bytes ${chunk.byteStart}–${chunk.byteEnd} (chunk ${chunk.index}). The chunk is now marked to be counted again: re-run the same command to recount it and merge.`, { cause: error });
+}
+
 export async function mergeStage(ctx: StageContext): Promise<void> {
   const { job, jobDir } = ctx;
   const merge = job.stages.merge;
@@ -70,7 +111,8 @@ export async function mergeStage(ctx: StageContext): Promise<void> {
       merge.partitionsDone.push(result.partition);
       return ctx.saveManifest();
     },
-  }).finally(() => ctx.progress.stop());
+  }).catch((error: unknown) => recountDamagedRun(ctx, error))
+    .finally(() => ctx.progress.stop());
   merge.partitionsDone.sort((a, b) => a - b);
   const tallies: OrderTally[] = [];
   for (let n = 1; n <= job.config.order; n++) {
@@ -82,7 +124,8 @@ export async function mergeStage(ctx: StageContext): Promise<void> {
     assert(tally.total === occurrences[n - 1], `order ${n}: Σ counts in the store ${tally.total} ≠ occurrences counted ${occurrences[n - 1]}`);
     assert(tally.raw.reduce((s, [r, nr]) => s + r * nr, 0) === tally.total, `order ${n}: Σ r·n_r ≠ total count`);
   }
-  await writeFileAtomic(ctx.fs, path.join(jobDir, STATS_FILE), JSON.stringify({ order: job.config.order, tallies }, null, 1) + '\n');
+  const stats: StatsFile = { order: job.config.order, tallies, continuation: [] };
+  await writeFileAtomic(ctx.fs, path.join(jobDir, STATS_FILE), JSON.stringify(stats) + '\n');
   merge.distinct = tallies.map((t) => t.distinct);
   merge.storeBytes = await directoryBytes(path.join(jobDir, STORE_DIR));
   merge.status = 'done';

@@ -16,24 +16,36 @@ import { compareRows, DecodeFailure, decodeBlockValue, type DecodedBlock } from 
 
 export const STORE_DIR = 'counts.lmdb';
 const META = 0x00;
-const PROGRESS_KEY = Buffer.from([META, ...Buffer.from('progress', 'latin1')]);
+
+/** Key spaces: the first key byte is the order plus one of these. */
+export const KEY_SPACE = {
+  /** Raw n-gram counts. */
+  raw: 0x00,
+  /** Continuation counts N1+(• x) of the n-grams x (orders below the highest). */
+  continuation: 0x40,
+} as const;
+export type KeySpace = keyof typeof KEY_SPACE;
+
+function progressKey(space: KeySpace): Buffer {
+  return Buffer.from([META, ...Buffer.from(`progress:${space}`, 'latin1')]);
+}
 
 /** Path of partition `p`'s environment, relative to the job directory. */
 export function partitionStoreDir(partition: number): string {
   return path.join(STORE_DIR, `p${String(partition).padStart(4, '0')}`);
 }
 
-/** The store key of the n-gram `ids[offset .. offset+order)`. */
-export function ngramKey(order: number, ids: ArrayLike<number>, offset = 0): Buffer {
+/** The store key of the n-gram `ids[offset .. offset+order)` in a key space. */
+export function ngramKey(order: number, ids: ArrayLike<number>, offset = 0, space: KeySpace = 'raw'): Buffer {
   const key = Buffer.allocUnsafe(1 + 4 * order);
-  key[0] = order;
+  key[0] = KEY_SPACE[space] + order;
   for (let k = 0; k < order; k++) key.writeUInt32BE(ids[offset + k], 1 + 4 * k);
   return key;
 }
 
 /** Decodes a store key into its order and ids. */
 export function parseNgramKey(key: Uint8Array): { order: number; ids: Uint32Array } {
-  const order = key[0];
+  const order = key[0] & 0x3f;
   const view = new DataView(key.buffer, key.byteOffset, key.byteLength);
   const ids = new Uint32Array(order);
   for (let k = 0; k < order; k++) ids[k] = view.getUint32(1 + 4 * k, false);
@@ -66,8 +78,8 @@ export class PartitionStore {
   }
 
   /** The merge progress recorded with the last committed transaction, if any. */
-  readProgress<T>(): T | undefined {
-    const value = this.db.getBinary(PROGRESS_KEY);
+  readProgress<T>(space: KeySpace = 'raw'): T | undefined {
+    const value = this.db.getBinary(progressKey(space));
     if (value === undefined) return undefined;
     try {
       return JSON.parse(Buffer.from(value).toString('utf8')) as T;
@@ -77,11 +89,14 @@ export class PartitionStore {
   }
 
   /** Writes blocks (key, value) and the progress record in one synchronous, durable transaction. */
-  commit(blocks: Array<[Buffer, Buffer]>, progress: unknown): void {
+  commit(blocks: Array<[Buffer, Buffer]>, progress: unknown, space: KeySpace = 'raw'): void {
     const progressValue = Buffer.from(JSON.stringify(progress), 'utf8');
+    // Blocks come in key order, and the continuation space (first byte 0x41..) is written after
+    // the raw space (0x01..0x07) is complete, so every block key is above all stored n-gram keys:
+    // LMDB's append mode applies (metadata keys start with 0x00, below every n-gram key).
     this.db.transactionSync(() => {
       for (const [key, value] of blocks) this.db.putSync(key, value, { append: true });
-      this.db.putSync(PROGRESS_KEY, progressValue);
+      this.db.putSync(progressKey(space), progressValue);
     });
   }
 
@@ -99,10 +114,10 @@ export class PartitionStore {
   }
 
   /** Count of the n-gram `ids` (of length `order`), 0 when it was never seen. */
-  lookup(order: number, ids: ArrayLike<number>): number {
-    const target = ngramKey(order, ids);
+  lookup(order: number, ids: ArrayLike<number>, space: KeySpace = 'raw'): number {
+    const target = ngramKey(order, ids, 0, space);
     for (const { key, value } of this.db.getRange({ start: target, reverse: true, limit: 1 })) {
-      if (key[0] !== order) return 0;
+      if (key[0] !== target[0]) return 0;
       const block = this.decode(key, value);
       const probe = Uint32Array.from(ids as ArrayLike<number>);
       let low = 0;
@@ -122,16 +137,17 @@ export class PartitionStore {
    * The blocks of one order, in key order, starting with the block that may hold `from` (an n-gram
    * prefix, possibly shorter than the order) — all blocks of the order when `from` is absent.
    */
-  *blocks(order: number, from?: ArrayLike<number>): Generator<DecodedBlock> {
-    let start = Buffer.from([order]);
+  *blocks(order: number, from?: ArrayLike<number>, space: KeySpace = 'raw'): Generator<DecodedBlock> {
+    const first = KEY_SPACE[space] + order;
+    let start = Buffer.from([first]);
     if (from !== undefined && from.length > 0) {
-      const probe = ngramKey(from.length, from);
-      probe[0] = order;
-      for (const { key } of this.db.getRange({ start: probe, reverse: true, limit: 1 })) if (key[0] === order) start = Buffer.from(key);
+      const probe = ngramKey(from.length, from, 0, space);
+      probe[0] = first;
+      for (const { key } of this.db.getRange({ start: probe, reverse: true, limit: 1 })) if (key[0] === first) start = Buffer.from(key);
     }
-    const end = Buffer.from([order + 1]);
+    const end = Buffer.from([first + 1]);
     for (const { key, value } of this.db.getRange({ start, end })) {
-      assert(key[0] === order, 'range stays within the order');
+      assert(key[0] === first, 'range stays within the order');
       yield this.decode(key, value);
     }
   }
@@ -149,8 +165,8 @@ export class StoreSource {
   private readonly iterator: Generator<DecodedBlock>;
   private ended = false;
 
-  constructor(private readonly store: PartitionStore, readonly order: number, private readonly prefix?: Uint32Array) {
-    this.iterator = store.blocks(order, prefix);
+  constructor(private readonly store: PartitionStore, readonly order: number, private readonly prefix?: Uint32Array, space: KeySpace = 'raw') {
+    this.iterator = store.blocks(order, prefix, space);
   }
 
   get name(): string {

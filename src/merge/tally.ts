@@ -5,6 +5,7 @@
  */
 import { assert } from '../errors.ts';
 import type { CountOfCounts } from '../stats/types.ts';
+import { BOS_ID } from '../corpus/vocabulary.ts';
 
 /** A serialisable tally (stored in the merge progress record and in stats.json). */
 export interface OrderTally {
@@ -16,6 +17,9 @@ export interface OrderTally {
   contexts: CountOfCounts;
   /** Distinct contexts (order ≥ 2). */
   contextCount: number;
+  /** Count-of-counts of the n-grams that begin with `<s>` (id 0): Kneser-Ney keeps their raw
+   *  counts at the lower orders. */
+  bosRaw: CountOfCounts;
 }
 
 function toPairs(map: Map<number, number>): CountOfCounts {
@@ -32,6 +36,7 @@ export class TallyBuilder {
   private total = 0;
   private readonly raw = new Map<number, number>();
   private readonly contexts = new Map<number, number>();
+  private readonly bosRaw = new Map<number, number>();
   private contextCount = 0;
   /** The context being summed (first order−1 ids) and its sum so far. */
   private context: Uint32Array;
@@ -44,6 +49,7 @@ export class TallyBuilder {
       this.total = resume.tally.total;
       addPairs(this.raw, resume.tally.raw);
       addPairs(this.contexts, resume.tally.contexts);
+      addPairs(this.bosRaw, resume.tally.bosRaw);
       this.contextCount = resume.tally.contextCount;
       this.context.set(resume.context);
       this.contextSum = resume.contextSum;
@@ -56,6 +62,7 @@ export class TallyBuilder {
     this.distinct++;
     this.total += count;
     this.raw.set(count, (this.raw.get(count) ?? 0) + 1);
+    if (keys[offset] === BOS_ID) this.bosRaw.set(count, (this.bosRaw.get(count) ?? 0) + 1);
     const contextLength = this.order - 1;
     if (contextLength === 0) return;
     let same = this.contextSum > 0;
@@ -82,7 +89,7 @@ export class TallyBuilder {
   private snapshot(): OrderTally {
     return {
       order: this.order, distinct: this.distinct, total: this.total,
-      raw: toPairs(this.raw), contexts: toPairs(this.contexts), contextCount: this.contextCount,
+      raw: toPairs(this.raw), contexts: toPairs(this.contexts), contextCount: this.contextCount, bosRaw: toPairs(this.bosRaw),
     };
   }
 
@@ -97,6 +104,7 @@ export class TallyBuilder {
 export function sumTallies(order: number, tallies: OrderTally[]): OrderTally {
   const raw = new Map<number, number>();
   const contexts = new Map<number, number>();
+  const bosRaw = new Map<number, number>();
   let distinct = 0;
   let total = 0;
   let contextCount = 0;
@@ -107,6 +115,7 @@ export function sumTallies(order: number, tallies: OrderTally[]): OrderTally {
     contextCount += t.contextCount;
     addPairs(raw, t.raw);
     addPairs(contexts, t.contexts);
+    addPairs(bosRaw, t.bosRaw);
   }
-  return { order, distinct, total, raw: toPairs(raw), contexts: toPairs(contexts), contextCount };
+  return { order, distinct, total, raw: toPairs(raw), contexts: toPairs(contexts), contextCount, bosRaw: toPairs(bosRaw) };
 }

@@ -1,0 +1,23 @@
+/**
+ * SIGINT and SIGTERM while a job runs: everything a stage recorded is durable at every moment, so
+ * stopping at once is safe. Release the lock, say how to resume, exit non-zero.
+ */
+import { rmSync } from 'node:fs';
+
+const EXIT_ON_SIGNAL: Record<string, number> = { SIGINT: 130, SIGTERM: 143 };
+
+/** Installs the handlers; returns a function that removes them. */
+export function stopCleanlyOnSignals(jobDir: string, lockFile: string, resumeHint: string): () => void {
+  const handlers = Object.keys(EXIT_ON_SIGNAL).map((signal) => {
+    const handler = (): void => {
+      rmSync(lockFile, { force: true });
+      process.stderr.write(`\nquern: stopped by ${signal}. The job in ${jobDir} keeps all finished work; ${resumeHint}\n`);
+      process.exit(EXIT_ON_SIGNAL[signal]);
+    };
+    process.once(signal, handler);
+    return [signal, handler] as const;
+  });
+  return () => {
+    for (const [signal, handler] of handlers) process.removeListener(signal, handler);
+  };
+}

@@ -1,0 +1,660 @@
+/**
+ * `quern verify`: re-reads what a job directory holds and checks it against what job.json records,
+ * without changing any of it. Five checks, each with a verdict and the numbers behind it:
+ *
+ *   manifest    job.json parses, is a quern job, and its stage states agree with each other and
+ *               with the run files on disk (present, with the recorded sizes)
+ *   vocabulary  vocab.tsv has the sha256 recorded in job.json, parses, and its marker counts agree
+ *               with the sentences and tokens read
+ *   runs        every recorded run file reads to its end (checksums, record counts, sums), holds
+ *               what its record says, and the runs of each order sum to the occurrences counted
+ *   store       every block of every partition and order decodes; the per-order tallies recomputed
+ *               from the blocks equal the partitions' progress records and stats.json; Σ r·n_r =
+ *               total; unigram Σ = tokens + sentences = occurrences counted; unigram counts = vocab
+ *   inputs      (on request) the inputs still have their recorded size, mtime and fingerprint
+ *
+ * A job that is not finished is verified as far as it goes: the checks of stages that have not run
+ * are skipped and the report lists the pending stages. Memory: one run-file block or one store
+ * block at a time, the vocabulary's counts, and count-of-counts tallies (small).
+ */
+import { createHash } from 'node:crypto';
+import { promises as fsp } from 'node:fs';
+import * as path from 'node:path';
+import { QuernError } from '../errors.ts';
+import { ORDER_MAX, PARTITIONS_MAX } from '../limits.ts';
+import { discoverInputs } from '../corpus/discover.ts';
+import { BOS_ID, parseVocabulary, type Vocabulary } from '../corpus/vocabulary.ts';
+import { compareRows } from '../count/block-codec.ts';
+import { partitionOf } from '../count/hash.ts';
+import { RunReader } from '../count/run-file.ts';
+import { RUNS_DIR } from '../count/run-layout.ts';
+import { sumOccurrences, VOCAB_FILE } from '../count/stage.ts';
+import type { MergeProgress } from '../merge/merge-partition.ts';
+import { STATS_FILE } from '../merge/stage.ts';
+import { PartitionStore, partitionStoreDir } from '../merge/store.ts';
+import { sumTallies, TallyBuilder, type OrderTally } from '../merge/tally.ts';
+import type { CountOfCounts } from '../stats/types.ts';
+import { lockJob, type JobLock } from './lock.ts';
+import { describeDifferences, MANIFEST_FILE, readManifest, type JobManifest, type StageStatus } from './manifest.ts';
+
+/**
+ * Problems kept per check: enough to see a pattern, bounded however damaged the job is (the rest
+ * are counted in `problemsOmitted`). Belongs in src/limits.ts with the other limits.
+ */
+export const VERIFY_PROBLEMS_MAX = 20;
+
+export interface VerifyOptions {
+  /** Also re-read every input's size, mtime and fingerprint and compare them with job.json. */
+  inputs?: boolean;
+}
+
+export type CheckName = 'manifest' | 'vocabulary' | 'runs' | 'store' | 'inputs';
+export type CheckStatus = 'ok' | 'failed' | 'skipped';
+
+/** The verdict of one check. */
+export interface VerifyCheck {
+  name: CheckName;
+  status: CheckStatus;
+  /** The numbers behind the verdict, or why the check was skipped, in one line. */
+  summary: string;
+  /** What failed, each naming the file it concerns (at most VERIFY_PROBLEMS_MAX). */
+  problems: string[];
+  /** Problems found beyond VERIFY_PROBLEMS_MAX. */
+  problemsOmitted: number;
+  /** The figures of the summary for programs (names as in the summary). */
+  figures: Record<string, number | number[]>;
+}
+
+export interface VerifyReport {
+  jobDir: string;
+  /** True when no check failed (skipped checks do not count against it). */
+  ok: boolean;
+  /** Highest order and partitions of the job; 0 when job.json could not be read. */
+  order: number;
+  partitions: number;
+  stages: { vocab: StageStatus; count: StageStatus; merge: StageStatus } | null;
+  /** Stages not finished yet, in words (e.g. "merge (1 of 4 partitions merged)"). */
+  pending: string[];
+  checks: VerifyCheck[];
+}
+
+/** Collects one check's problems and figures. */
+class CheckRecorder {
+  readonly problems: string[] = [];
+  problemsOmitted = 0;
+  readonly figures: Record<string, number | number[]> = {};
+
+  constructor(readonly name: CheckName) {}
+
+  fail(problem: string): void {
+    if (this.problems.length < VERIFY_PROBLEMS_MAX) this.problems.push(problem);
+    else this.problemsOmitted++;
+  }
+
+  get failed(): boolean {
+    return this.problems.length > 0;
+  }
+
+  done(summary: string): VerifyCheck {
+    return {
+      name: this.name, status: this.failed ? 'failed' : 'ok', summary,
+      problems: this.problems, problemsOmitted: this.problemsOmitted, figures: this.figures,
+    };
+  }
+}
+
+function skipped(name: CheckName, why: string): VerifyCheck {
+  return { name, status: 'skipped', summary: why, problems: [], problemsOmitted: 0, figures: {} };
+}
+
+/** Integers with thousands separators, the same in every locale. */
+function num(n: number): string {
+  return n.toLocaleString('en-US');
+}
+
+/** "1 file", "2 files". */
+function plural(n: number, noun: string): string {
+  return `${num(n)} ${noun}${n === 1 ? '' : 's'}`;
+}
+
+function sum(values: number[]): number {
+  return values.reduce((s, v) => s + v, 0);
+}
+
+function isCount(value: unknown): value is number {
+  return typeof value === 'number' && Number.isSafeInteger(value) && value >= 0;
+}
+
+/**
+ * Verifies the job in `jobDir` and returns the report; never changes the job's files. It holds the
+ * job's lock while it reads, so a count cannot change the files under it.
+ *
+ * @throws QuernError('config') when `jobDir` is not a job directory or a running count holds it;
+ *   a damaged job is not thrown but reported (see `verifyFailure` to turn a report into an error).
+ */
+export async function verifyJob(jobDir: string, options: VerifyOptions = {}): Promise<VerifyReport> {
+  const dir = path.resolve(jobDir);
+  const stat = await fsp.stat(dir).catch(() => undefined);
+  if (!stat?.isDirectory()) throw new QuernError('config', `${dir} is not a directory; give the job directory of a quern count`);
+  const manifestStat = await fsp.stat(path.join(dir, MANIFEST_FILE)).catch(() => undefined);
+  if (!manifestStat) throw new QuernError('config', `${dir} is not a quern job (no ${MANIFEST_FILE}); give the job directory of a quern count`);
+  let lock: JobLock | undefined;
+  try {
+    lock = await lockJob(dir);
+  } catch (error) {
+    // A live count holds the job: its files are changing. A read-only job cannot be locked, and
+    // needs no lock.
+    if (!(error instanceof QuernError && error.code === 'io')) throw error;
+  }
+  try {
+    return await verifyLocked(dir, options);
+  } finally {
+    await lock?.release();
+  }
+}
+
+async function verifyLocked(jobDir: string, options: VerifyOptions): Promise<VerifyReport> {
+  const report: VerifyReport = { jobDir, ok: true, order: 0, partitions: 0, stages: null, pending: [], checks: [] };
+  const { check: manifestCheck, job } = await checkManifest(jobDir);
+  report.checks.push(manifestCheck);
+  if (job === undefined) {
+    const why = `${MANIFEST_FILE} cannot be used`;
+    for (const name of ['vocabulary', 'runs', 'store', 'inputs'] as const) report.checks.push(skipped(name, why));
+    report.ok = false;
+    return report;
+  }
+  const { vocab, count, merge } = job.stages;
+  report.order = job.config.order;
+  report.partitions = job.config.partitions;
+  report.stages = { vocab: vocab.status, count: count.status, merge: merge.status };
+  if (vocab.status !== 'done') report.pending.push('vocabulary');
+  if (count.status !== 'done') report.pending.push(`count (${count.chunks.length} of ${job.chunks.length} chunks counted)`);
+  if (merge.status !== 'done') report.pending.push(`merge (${merge.partitionsDone.length} of ${job.config.partitions} partitions merged)`);
+
+  const vocabResult = await checkVocabulary(jobDir, job);
+  report.checks.push(vocabResult.check);
+  report.checks.push(await checkRuns(jobDir, job, vocabResult.vocab, manifestCheck.figures.runFilesMissing as number));
+  report.checks.push(await checkStore(jobDir, job, vocabResult.vocab));
+  report.checks.push(options.inputs ? await checkInputs(job) : skipped('inputs', 'not checked (--inputs re-reads each input\'s size, mtime and fingerprint)'));
+  report.ok = report.checks.every((c) => c.status !== 'failed');
+  return report;
+}
+
+// ---- 1. job.json --------------------------------------------------------------------------------
+
+/** Checks job.json; returns the job only when it is sound enough for the other checks to use. */
+async function checkManifest(jobDir: string): Promise<{ check: VerifyCheck; job: JobManifest | undefined }> {
+  const check = new CheckRecorder('manifest');
+  const file = path.join(jobDir, MANIFEST_FILE);
+  let job: JobManifest | undefined;
+  try {
+    job = await readManifest(jobDir);
+  } catch (error) {
+    if (!(error instanceof QuernError)) throw error;
+    check.fail(error.message);
+    return { check: check.done(`${MANIFEST_FILE} cannot be read`), job: undefined };
+  }
+  if (job === undefined) throw new QuernError('config', `${jobDir} is not a quern job (no ${MANIFEST_FILE})`);
+  const shape = shapeProblems(job);
+  if (shape.length > 0) {
+    for (const problem of shape) check.fail(`${file}: ${problem}`);
+    return { check: check.done(`${MANIFEST_FILE} does not have the shape of a quern job`), job: undefined };
+  }
+
+  const { config, chunks, inputs } = job;
+  const { vocab, count, merge } = job.stages;
+  // Stage order: a stage runs only after the one before it finished.
+  if (count.status !== 'pending' && vocab.status !== 'done') check.fail(`${file}: count is ${count.status} but the vocabulary is ${vocab.status}`);
+  if (count.chunks.length > 0 && vocab.status !== 'done') check.fail(`${file}: ${count.chunks.length} chunks are counted but the vocabulary is ${vocab.status}`);
+  if (merge.status !== 'pending' && count.status !== 'done') check.fail(`${file}: merge is ${merge.status} but the count is ${count.status}`);
+  if (merge.partitionsDone.length > 0 && count.status !== 'done') check.fail(`${file}: ${merge.partitionsDone.length} partitions are merged but the count is ${count.status}`);
+  if (vocab.status === 'done') {
+    if (typeof vocab.sha256 !== 'string' || !/^[0-9a-f]{64}$/.test(vocab.sha256)) check.fail(`${file}: the vocabulary is done but has no sha256`);
+    if (!Array.isArray(vocab.reads) || vocab.reads.length !== chunks.length || !vocab.reads.every((r) => isCount(r?.sentences))) {
+      check.fail(`${file}: the vocabulary is done but its read statistics do not cover the ${chunks.length} chunks`);
+    }
+  }
+  // Chunks: each counted at most once, each one of the plan.
+  const seen = new Set<number>();
+  for (const c of count.chunks) {
+    if (!Number.isInteger(c.chunk) || c.chunk < 0 || c.chunk >= chunks.length) check.fail(`${file}: counted chunk ${c.chunk} is not in the plan of ${chunks.length} chunks`);
+    else if (seen.has(c.chunk)) check.fail(`${file}: chunk ${c.chunk} is recorded as counted more than once`);
+    seen.add(c.chunk);
+  }
+  if (count.status === 'done' && seen.size !== chunks.length) check.fail(`${file}: the count is done but ${chunks.length - seen.size} of ${chunks.length} chunks are not recorded`);
+  // Merge: each partition at most once; all of them once done.
+  const merged = new Set<number>();
+  for (const p of merge.partitionsDone) {
+    if (!Number.isInteger(p) || p < 0 || p >= config.partitions) check.fail(`${file}: merged partition ${p} is not one of the ${config.partitions} partitions`);
+    else if (merged.has(p)) check.fail(`${file}: partition ${p} is recorded as merged more than once`);
+    merged.add(p);
+  }
+  if (merge.status === 'done') {
+    if (merged.size !== config.partitions) check.fail(`${file}: the merge is done but ${config.partitions - merged.size} of ${config.partitions} partitions are not recorded as merged`);
+    if (!Array.isArray(merge.distinct) || merge.distinct.length !== config.order) check.fail(`${file}: the merge is done but its distinct counts do not cover orders 1..${config.order}`);
+  }
+  // Run files: each recorded once, inside runs/, present with its recorded size.
+  const files = new Set<string>();
+  let runFiles = 0;
+  let runBytes = 0;
+  let runFilesMissing = 0;
+  for (const c of count.chunks) {
+    for (const run of c.runs) {
+      runFiles++;
+      runBytes += run.bytes;
+      const normal = path.normalize(run.file);
+      if (path.isAbsolute(normal) || !normal.startsWith(RUNS_DIR + path.sep)) {
+        check.fail(`${file}: run file ${run.file} of chunk ${c.chunk} is not under ${RUNS_DIR}/`);
+        runFilesMissing++;
+        continue;
+      }
+      if (files.has(normal)) check.fail(`${file}: run file ${run.file} is recorded more than once`);
+      files.add(normal);
+      const where = `${run.file} (chunk ${c.chunk}${describeChunk(job, c.chunk)})`;
+      const size = await fsp.stat(path.join(jobDir, normal)).then((s) => s.size, () => undefined);
+      if (size === undefined) {
+        check.fail(`run file ${where} is recorded in ${MANIFEST_FILE} but missing`);
+        runFilesMissing++;
+      } else if (size !== run.bytes) {
+        check.fail(`run file ${where} is ${num(size)} bytes, ${MANIFEST_FILE} records ${num(run.bytes)}`);
+      }
+    }
+  }
+  Object.assign(check.figures, {
+    inputs: inputs.length, inputBytes: sum(inputs.map((f) => f.bytes)), chunks: chunks.length, chunksCounted: seen.size,
+    runFiles, runBytes, runFilesMissing, partitions: config.partitions, partitionsMerged: merged.size,
+  });
+  const summary = `${MANIFEST_FILE}: order ${config.order}, ${inputs.length} inputs (${num(check.figures.inputBytes as number)} bytes), `
+    + `${chunks.length} chunks of which ${seen.size} counted, ${runFiles} run files (${num(runBytes)} bytes)`
+    + `${runFilesMissing === 0 ? ' all present with their recorded sizes' : `, ${runFilesMissing} missing`}, `
+    + `${merged.size} of ${config.partitions} partitions merged`;
+  return { check: check.done(summary), job };
+}
+
+/** What a chunk is, for messages: " = bytes a–b of <input>". */
+function describeChunk(job: JobManifest, chunkIndex: number): string {
+  const chunk = job.chunks[chunkIndex];
+  const input = chunk === undefined ? undefined : job.inputs[chunk.fileIndex];
+  if (input === undefined) return '';
+  return `: bytes ${chunk.byteStart}–${chunk.byteEnd} of input ${input.path}`;
+}
+
+/** The fields the other checks rely on, with the types they need; problems in words. */
+function shapeProblems(job: JobManifest): string[] {
+  const problems: string[] = [];
+  const config = job.config as Partial<JobManifest['config']> | undefined;
+  if (typeof config !== 'object' || config === null) return ['no config'];
+  if (!Number.isInteger(config.order) || config.order! < 1 || config.order! > ORDER_MAX) problems.push(`config.order ${config.order} is not in 1..${ORDER_MAX}`);
+  if (!Number.isInteger(config.partitions) || config.partitions! < 1 || config.partitions! > PARTITIONS_MAX) problems.push(`config.partitions ${config.partitions} is not in 1..${PARTITIONS_MAX}`);
+  if (!Array.isArray(job.inputs) || !job.inputs.every((f) => typeof f?.path === 'string' && isCount(f.bytes))) problems.push('inputs are not a list of files with their sizes');
+  if (!Array.isArray(job.chunks)) problems.push('chunks are not a list');
+  else if (Array.isArray(job.inputs)) {
+    job.chunks.forEach((c, i) => {
+      const input = job.inputs[c?.fileIndex];
+      if (c?.index !== i || input === undefined || !isCount(c.byteStart) || !(c.byteEnd >= c.byteStart && c.byteEnd <= input.bytes)) {
+        problems.push(`chunk ${i} is not a byte range of one of the ${job.inputs.length} inputs`);
+      }
+    });
+  }
+  const stages = job.stages as Partial<JobManifest['stages']> | undefined;
+  const statuses = ['pending', 'running', 'done'];
+  if (!statuses.includes(stages?.vocab?.status as string)) problems.push('stages.vocab has no valid status');
+  if (!statuses.includes(stages?.count?.status as string) || !Array.isArray(stages?.count?.chunks)) problems.push('stages.count has no valid status or chunk list');
+  else {
+    for (const c of stages.count.chunks) {
+      if (!isCount(c?.tokens) || !Array.isArray(c.occurrences) || c.occurrences.length !== config.order || !c.occurrences.every(isCount) || !Array.isArray(c.runs)) {
+        problems.push(`counted chunk ${c?.chunk} lacks its tokens, occurrences per order or run list`);
+        continue;
+      }
+      for (const r of c.runs) {
+        if (typeof r?.file !== 'string' || !isCount(r.bytes) || !isCount(r.records) || !Number.isInteger(r.order) || r.order < 1 || r.order > config.order!
+          || !Number.isInteger(r.partition) || r.partition < 0 || r.partition >= config.partitions!) {
+          problems.push(`a run record of chunk ${c.chunk} (${JSON.stringify(r?.file)}) has no valid file, size, records, order or partition`);
+        }
+      }
+    }
+  }
+  if (!statuses.includes(stages?.merge?.status as string) || !Array.isArray(stages?.merge?.partitionsDone)) problems.push('stages.merge has no valid status or list of merged partitions');
+  return problems;
+}
+
+// ---- 2. vocab.tsv -------------------------------------------------------------------------------
+
+async function checkVocabulary(jobDir: string, job: JobManifest): Promise<{ check: VerifyCheck; vocab: Vocabulary | undefined }> {
+  const stage = job.stages.vocab;
+  if (stage.status !== 'done') return { check: skipped('vocabulary', 'vocabulary stage pending'), vocab: undefined };
+  const check = new CheckRecorder('vocabulary');
+  const file = path.join(jobDir, VOCAB_FILE);
+  let bytes: Buffer;
+  try {
+    bytes = await fsp.readFile(file);
+  } catch (cause) {
+    const reason = (cause as NodeJS.ErrnoException).code === 'ENOENT' ? 'is missing' : `cannot be read: ${(cause as Error).message}`;
+    check.fail(`${file} ${reason} (${MANIFEST_FILE} records the vocabulary as done)`);
+    return { check: check.done(`${VOCAB_FILE} not read`), vocab: undefined };
+  }
+  const sha256 = createHash('sha256').update(bytes).digest('hex');
+  if (sha256 !== stage.sha256) {
+    check.fail(`${file}: sha256 ${sha256} does not match ${stage.sha256} recorded in ${MANIFEST_FILE} (${num(bytes.length)} bytes)`);
+    return { check: check.done(`${VOCAB_FILE}: ${num(bytes.length)} bytes, checksum differs`), vocab: undefined };
+  }
+  let vocab: Vocabulary;
+  try {
+    vocab = parseVocabulary(bytes.toString('utf8'), file);
+  } catch (error) {
+    if (!(error instanceof QuernError)) throw error;
+    check.fail(error.message);
+    return { check: check.done(`${VOCAB_FILE}: sha256 matches but it does not parse`), vocab: undefined };
+  }
+  const types = vocab.words.length - 1;
+  if (stage.types !== undefined && stage.types !== types) check.fail(`${file}: ${num(types)} entries besides <s>, ${MANIFEST_FILE} records ${num(stage.types)}`);
+  const sentences = sum((stage.reads ?? []).map((r) => r.sentences));
+  const eosCount = vocab.counts[vocab.eosId];
+  if (vocab.counts[BOS_ID] !== sentences) check.fail(`${file}: <s> count ${num(vocab.counts[BOS_ID])} ≠ ${num(sentences)} sentences read`);
+  if (eosCount !== sentences) check.fail(`${file}: </s> count ${num(eosCount)} ≠ ${num(sentences)} sentences read`);
+  const predicted = sum(vocab.counts) - vocab.counts[BOS_ID];
+  let tokensNote = '';
+  if (job.stages.count.status === 'done') {
+    const tokens = sum(job.stages.count.chunks.map((c) => c.tokens));
+    if (predicted !== tokens + sentences) check.fail(`${file}: Σ counts without <s> ${num(predicted)} ≠ ${num(tokens)} tokens + ${num(sentences)} sentences counted`);
+    else tokensNote = ` = tokens + sentences counted`;
+  }
+  Object.assign(check.figures, { bytes: bytes.length, types, sentences, predicted });
+  return {
+    check: check.done(`${VOCAB_FILE}: ${num(bytes.length)} bytes, sha256 matches ${MANIFEST_FILE}, ${num(types)} types with </s> and <unk>, `
+      + `<s> = </s> = ${num(sentences)} sentences, Σ counts ${num(predicted)}${tokensNote}`),
+    vocab,
+  };
+}
+
+// ---- 3. run files -------------------------------------------------------------------------------
+
+/** Checks one row of an n-gram: its partition, its ids within the vocabulary, `<s>` only first. */
+function rowProblem(keys: Uint32Array, offset: number, order: number, partition: number, partitions: number, vocabSize: number): string | undefined {
+  for (let k = 0; k < order; k++) {
+    const id = keys[offset + k];
+    if (vocabSize > 0 && id >= vocabSize) return `word id ${id} is outside the vocabulary of ${vocabSize} ids`;
+    if (id === BOS_ID && (k > 0 || order === 1)) return `<s> at position ${k + 1} (it is only ever a context)`;
+  }
+  const home = partitionOf(keys, offset, order, partitions);
+  if (home !== partition) return `n-gram [${Array.from(keys.subarray(offset, offset + order)).join(' ')}] belongs to partition ${home}`;
+  return undefined;
+}
+
+async function checkRuns(jobDir: string, job: JobManifest, vocab: Vocabulary | undefined, runFilesMissing: number): Promise<VerifyCheck> {
+  const { order: orderMax, partitions } = job.config;
+  const chunks = job.stages.count.chunks;
+  const runCount = sum(chunks.map((c) => c.runs.length));
+  if (runCount === 0) return skipped('runs', chunks.length === 0 ? 'no chunk counted yet' : 'no run files recorded');
+  const check = new CheckRecorder('runs');
+  const vocabSize = vocab?.words.length ?? 0;
+  const records = new Array<number>(orderMax).fill(0);
+  const countSums = new Array<number>(orderMax).fill(0);
+  let filesRead = 0;
+  let filesBad = 0;
+  for (const c of chunks) {
+    for (const run of c.runs) {
+      const filePath = path.join(jobDir, path.normalize(run.file));
+      const origin = `chunk ${c.chunk}${describeChunk(job, c.chunk)}`;
+      const stat = await fsp.stat(filePath).catch(() => undefined);
+      if (!stat) continue; // reported by the manifest check
+      let reader: RunReader | undefined;
+      try {
+        reader = await RunReader.open(filePath);
+        const info = reader.info;
+        const header: string[] = [];
+        if (info.order !== run.order) header.push(`order ${info.order} (recorded ${run.order})`);
+        if (info.partition !== run.partition) header.push(`partition ${info.partition} (recorded ${run.partition})`);
+        if (info.chunk !== c.chunk) header.push(`chunk ${info.chunk} (recorded ${c.chunk})`);
+        if (info.recordCount !== run.records) header.push(`${num(info.recordCount)} records (recorded ${num(run.records)})`);
+        if (header.length > 0) throw new QuernError('corrupt', `run file ${filePath}: its header says ${header.join(', ')}`);
+        let firstBad: string | undefined;
+        for (let batch = await reader.nextBatch(); batch !== null; batch = await reader.nextBatch()) {
+          for (let j = 0; j < batch.recordCount && firstBad === undefined; j++) {
+            firstBad = rowProblem(batch.keys, j * info.order, info.order, run.partition, partitions, vocabSize);
+          }
+        }
+        if (firstBad !== undefined) throw new QuernError('corrupt', `run file ${filePath}: ${firstBad}`);
+        records[info.order - 1] += info.recordCount;
+        countSums[info.order - 1] += info.countSum;
+        filesRead++;
+      } catch (error) {
+        if (!(error instanceof QuernError)) throw error;
+        filesBad++;
+        check.fail(`${error.message} — the run holds counts of ${origin}`);
+      } finally {
+        await reader?.close().catch(() => {});
+      }
+    }
+  }
+  Object.assign(check.figures, { files: runCount, filesRead, filesBad, records, countSums });
+  const perOrder = records.map((r, n) => `order ${n + 1} ${num(r)} records Σ ${num(countSums[n])}`).join('; ');
+  let totals = '';
+  if (filesBad === 0 && runFilesMissing === 0) {
+    const occurrences = sumOccurrences(job);
+    for (let n = 1; n <= orderMax; n++) {
+      if (countSums[n - 1] !== occurrences[n - 1]) {
+        check.fail(`${path.join(jobDir, RUNS_DIR)}: the runs of order ${n} sum to ${num(countSums[n - 1])}, ${MANIFEST_FILE} records ${num(occurrences[n - 1])} occurrences counted`);
+      }
+    }
+    totals = check.failed ? '' : ' (each = occurrences counted)';
+  } else {
+    totals = ` (totals not compared: ${plural(filesBad + runFilesMissing, 'file')} unreadable or missing)`;
+  }
+  return check.done(`${filesRead} of ${runCount} run files read to the end: ${perOrder}${totals}`);
+}
+
+// ---- 4. the count store -------------------------------------------------------------------------
+
+/** The first difference between two tallies of one order, in words; undefined when equal. */
+function tallyDifference(found: OrderTally, expected: OrderTally, foundName: string, expectedName: string): string | undefined {
+  for (const field of ['distinct', 'total', 'contextCount'] as const) {
+    if (found[field] !== expected[field]) return `${field} is ${num(found[field])} in ${foundName}, ${num(expected[field])} in ${expectedName}`;
+  }
+  for (const field of ['raw', 'contexts'] as const) {
+    const a = new Map(found[field]);
+    const b = new Map(expected[field]);
+    const rs = [...new Set([...a.keys(), ...b.keys()])].sort((x, y) => x - y);
+    for (const r of rs) {
+      if (a.get(r) !== b.get(r)) {
+        const what = field === 'raw' ? 'count-of-counts' : 'context count-of-counts';
+        return `${what} n_${r} (field ${field}) is ${num(a.get(r) ?? 0)} in ${foundName}, ${num(b.get(r) ?? 0)} in ${expectedName}`;
+      }
+    }
+  }
+  return undefined;
+}
+
+/** Σ r·n_r of a count-of-counts. */
+function weightedSum(pairs: CountOfCounts): number {
+  return pairs.reduce((s, [r, n]) => s + r * n, 0);
+}
+
+/** Reads stats.json; returns its tallies, or a problem in words. */
+async function readStats(file: string, orderMax: number): Promise<OrderTally[] | string> {
+  let value: { order?: unknown; tallies?: unknown };
+  try {
+    value = JSON.parse(await fsp.readFile(file, 'utf8'));
+  } catch (cause) {
+    return (cause as NodeJS.ErrnoException).code === 'ENOENT' ? `${file} is missing (the merge is recorded as done)` : `${file} cannot be read: ${(cause as Error).message}`;
+  }
+  const tallies = value?.tallies as OrderTally[] | undefined;
+  if (value?.order !== orderMax || !Array.isArray(tallies) || tallies.length !== orderMax) return `${file} does not hold tallies of orders 1..${orderMax}`;
+  for (let n = 1; n <= orderMax; n++) {
+    const t = tallies[n - 1];
+    const pairs = (p: unknown): boolean => Array.isArray(p) && p.every((e) => Array.isArray(e) && e.length === 2 && isCount(e[0]) && isCount(e[1]));
+    if (t?.order !== n || !isCount(t.distinct) || !isCount(t.total) || !isCount(t.contextCount) || !pairs(t.raw) || !pairs(t.contexts)) {
+      return `${file}: the tally of order ${n} is malformed`;
+    }
+  }
+  return tallies;
+}
+
+async function checkStore(jobDir: string, job: JobManifest, vocab: Vocabulary | undefined): Promise<VerifyCheck> {
+  const merge = job.stages.merge;
+  const { order: orderMax, partitions } = job.config;
+  const done = merge.status === 'done';
+  const toCheck = done ? Array.from({ length: partitions }, (_, p) => p) : [...new Set(merge.partitionsDone)].filter((p) => Number.isInteger(p) && p >= 0 && p < partitions).sort((a, b) => a - b);
+  if (toCheck.length === 0) return skipped('store', 'merge pending: no partition merged yet');
+  const check = new CheckRecorder('store');
+  const vocabSize = vocab?.words.length ?? 0;
+  const byPartition: OrderTally[][] = [];
+  let blocks = 0;
+  let partitionsBad = 0;
+  let unigramTypes = 0;
+  let unigramMismatches = 0;
+  for (const p of toCheck) {
+    const dir = path.join(jobDir, partitionStoreDir(p));
+    const dataFile = path.join(dir, 'data.mdb');
+    if (!(await fsp.stat(dataFile).catch(() => undefined))) {
+      check.fail(`count store partition ${p}: ${dataFile} is missing (${MANIFEST_FILE} records the partition as merged)`);
+      partitionsBad++;
+      continue;
+    }
+    const store = PartitionStore.open(dir, 'read');
+    const failuresBefore = check.problems.length + check.problemsOmitted;
+    try {
+      let progress: MergeProgress | undefined;
+      try {
+        progress = store.readProgress<MergeProgress>();
+      } catch (error) {
+        if (!(error instanceof QuernError)) throw error;
+        check.fail(`count store partition ${p}: ${error.message}`);
+      }
+      if (progress?.done !== true) {
+        check.fail(`count store partition ${p} (${dir}): its progress record says ${progress === undefined ? 'nothing was merged' : `order ${progress.order} with ${num(progress.records)} records merged, not done`}`);
+      }
+      const tallies: OrderTally[] = [];
+      for (let order = 1; order <= orderMax; order++) {
+        const tally = new TallyBuilder(order);
+        const last = new Uint32Array(order);
+        let first = true;
+        let problem: string | undefined;
+        try {
+          for (const block of store.blocks(order)) {
+            blocks++;
+            if (!first && compareRows(block.keys, 0, last, 0, order) <= 0) {
+              problem = `block at [${Array.from(block.keys.subarray(0, order)).join(' ')}] does not follow the previous block's last n-gram`;
+              break;
+            }
+            first = false;
+            for (let j = 0; j < block.recordCount && problem === undefined; j++) {
+              problem = rowProblem(block.keys, j * order, order, p, partitions, vocabSize);
+              if (problem !== undefined) break;
+              tally.add(block.keys, j * order, block.counts[j]);
+              if (order === 1 && vocab !== undefined) {
+                unigramTypes++;
+                const id = block.keys[j];
+                if (block.counts[j] !== vocab.counts[id]) {
+                  unigramMismatches++;
+                  check.fail(`count store partition ${p}: unigram ${JSON.stringify(vocab.words[id])} (id ${id}) has count ${num(block.counts[j])}, ${VOCAB_FILE} says ${num(vocab.counts[id])}`);
+                }
+              }
+            }
+            if (problem !== undefined) break;
+            last.set(block.keys.subarray((block.recordCount - 1) * order, block.recordCount * order));
+          }
+        } catch (error) {
+          if (!(error instanceof QuernError)) throw error;
+          problem = error.message;
+        }
+        if (problem !== undefined) {
+          check.fail(`count store partition ${p} (${dir}), order ${order}: ${problem}`);
+          continue;
+        }
+        const found = tally.finish();
+        tallies.push(found);
+        const recorded = progress?.tallies?.[order - 1];
+        if (recorded !== undefined) {
+          const difference = tallyDifference(found, recorded, 'the blocks', 'its progress record');
+          if (difference !== undefined) check.fail(`count store partition ${p} (${dir}), order ${order}: ${difference}`);
+        }
+      }
+      if (tallies.length === orderMax) byPartition.push(tallies);
+    } finally {
+      await store.close();
+    }
+    if (check.problems.length + check.problemsOmitted > failuresBefore) partitionsBad++;
+  }
+  Object.assign(check.figures, { partitions: toCheck.length, partitionsBad, blocks });
+  const head = `${toCheck.length} of ${partitions} partitions, ${num(blocks)} blocks decoded`;
+  if (!done) return check.done(`${head} (merge pending: totals not compared)`);
+  if (partitionsBad > 0) return check.done(`${head}, ${plural(partitionsBad, 'partition')} damaged (totals not compared)`);
+
+  // Totals of the whole store against stats.json and what reading counted.
+  const tallies = Array.from({ length: orderMax }, (_, n) => sumTallies(n + 1, byPartition.map((t) => t[n])));
+  const statsFile = path.join(jobDir, STATS_FILE);
+  const stats = await readStats(statsFile, orderMax);
+  if (typeof stats === 'string') check.fail(stats);
+  const occurrences = sumOccurrences(job);
+  const tokens = sum(job.stages.count.chunks.map((c) => c.tokens));
+  const sentences = sum((job.stages.vocab.reads ?? []).map((r) => r.sentences));
+  for (let n = 1; n <= orderMax; n++) {
+    const t = tallies[n - 1];
+    if (weightedSum(t.raw) !== t.total) check.fail(`count store order ${n}: Σ r·n_r ${num(weightedSum(t.raw))} ≠ total count ${num(t.total)}`);
+    if (t.total !== occurrences[n - 1]) check.fail(`count store order ${n}: Σ counts ${num(t.total)} ≠ ${num(occurrences[n - 1])} occurrences counted while reading (${MANIFEST_FILE})`);
+    if (merge.distinct?.[n - 1] !== t.distinct) check.fail(`${path.join(jobDir, MANIFEST_FILE)}: merge records ${merge.distinct?.[n - 1]} distinct n-grams of order ${n}, the store holds ${num(t.distinct)}`);
+    if (typeof stats !== 'string') {
+      const s = stats[n - 1];
+      if (weightedSum(s.raw) !== s.total) check.fail(`${statsFile} order ${n}: Σ r·n_r ${num(weightedSum(s.raw))} ≠ total ${num(s.total)}`);
+      const difference = tallyDifference(s, t, STATS_FILE, 'the store');
+      if (difference !== undefined) check.fail(`${statsFile} order ${n}: ${difference}`);
+    }
+  }
+  const unigramTotal = tallies[0].total;
+  if (unigramTotal !== tokens + sentences) check.fail(`count store order 1: Σ counts ${num(unigramTotal)} ≠ ${num(tokens)} tokens + ${num(sentences)} sentences (${MANIFEST_FILE})`);
+  if (vocab !== undefined) {
+    const seenTypes = vocab.counts.filter((c, id) => id !== BOS_ID && c > 0).length;
+    if (unigramMismatches === 0 && unigramTypes !== seenTypes) check.fail(`count store order 1: ${num(unigramTypes)} unigrams stored, ${VOCAB_FILE} has ${num(seenTypes)} types with a count`);
+  }
+  Object.assign(check.figures, { distinct: tallies.map((t) => t.distinct), total: tallies.map((t) => t.total), tokens, sentences });
+  const perOrder = tallies.map((t) => `order ${t.order} ${num(t.distinct)} distinct Σ ${num(t.total)}`).join('; ');
+  if (check.failed) return check.done(`${head}: ${perOrder} (tokens ${num(tokens)}, sentences ${num(sentences)})`);
+  return check.done(`${head}: ${perOrder}; Σ r·n_r = Σ counts = occurrences counted at each order; `
+    + `order 1 Σ = ${num(tokens)} tokens + ${num(sentences)} sentences${vocab ? ` and each unigram = its ${VOCAB_FILE} count` : ''}; `
+    + `progress records and ${STATS_FILE} agree with the blocks`);
+}
+
+// ---- 5. inputs ----------------------------------------------------------------------------------
+
+async function checkInputs(job: JobManifest): Promise<VerifyCheck> {
+  const check = new CheckRecorder('inputs');
+  let same = 0;
+  for (const stored of job.inputs) {
+    let current;
+    try {
+      [current] = await discoverInputs([stored.path], { format: stored.format });
+    } catch (error) {
+      if (!(error instanceof QuernError)) throw error;
+      check.fail(`input ${stored.path}: ${error.code === 'input' ? 'missing' : error.message}`);
+      continue;
+    }
+    const differences = describeDifferences({ ...job, inputs: [stored] }, job.config, [current]);
+    if (differences.length > 0) check.fail(differences.join('; '));
+    else same++;
+  }
+  check.figures.inputs = job.inputs.length;
+  check.figures.unchanged = same;
+  return check.done(`${same} of ${job.inputs.length} inputs have their recorded size, mtime and fingerprint`);
+}
+
+// ---- the verdict as an error --------------------------------------------------------------------
+
+/**
+ * Turns a report with failed checks into one QuernError('corrupt') whose message is a paragraph
+ * naming each failed check and its first problems; undefined when the report is ok.
+ */
+export function verifyFailure(report: VerifyReport): QuernError | undefined {
+  const failed = report.checks.filter((c) => c.status === 'failed');
+  if (failed.length === 0) return undefined;
+  const shown = 3;
+  const parts = failed.map((c) => {
+    const more = c.problems.length - Math.min(shown, c.problems.length) + c.problemsOmitted;
+    return `${c.name}: ${c.problems.slice(0, shown).join('; ')}${more > 0 ? `; and ${more} more` : ''}`;
+  });
+  const onlyInputs = failed.every((c) => c.name === 'inputs');
+  const advice = onlyInputs
+    ? 'The counts describe the inputs as they were when counted; count them again with --restart to describe them as they are now.'
+    : 'The job\'s files are damaged or were changed after they were written; re-run the count with --restart to rebuild the job.';
+  return new QuernError('corrupt', `job ${report.jobDir} failed ${failed.length} of ${report.checks.length} checks. ${parts.join('. ')}. ${advice}`);
+}

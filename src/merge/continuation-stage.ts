@@ -1,0 +1,83 @@
+/**
+ * The continuation stage (main thread): emit pass, then merge pass, each partition a task on the
+ * worker pool, each recorded in job.json when durable. See continuation.ts for the passes.
+ */
+import { promises as fsp } from 'node:fs';
+import * as path from 'node:path';
+import { assert } from '../errors.ts';
+import { writeFileAtomic } from '../job/fsio.ts';
+import type { StageContext } from '../job/context.ts';
+import { runPool } from '../count/pool.ts';
+import type { EmitDone, MergeDone } from '../count/protocol.ts';
+import { baseInit, counterBudgetPerWorker } from '../count/stage.ts';
+import { CONTINUATION_RUNS_DIR } from './continuation.ts';
+import type { PartitionMergeTask } from './merge-partition.ts';
+import { finishedTallies, readStatsFile, STATS_FILE } from './stage.ts';
+import { sumTallies, type OrderTally } from './tally.ts';
+
+export async function continuationStage(ctx: StageContext, idMax: number): Promise<void> {
+  const { job, jobDir } = ctx;
+  const stage = job.stages.continuation;
+  if (stage.status === 'done') return;
+  const started = Date.now();
+  const orderMax = job.config.order;
+  const partitions = job.config.partitions;
+  stage.status = 'running';
+
+  // ---- pass 1: emit suffixes ----
+  if (orderMax >= 2) {
+    const emitted = new Set(stage.emitted.map((e) => e.partition));
+    const kept = new Set(stage.emitted.flatMap((e) => e.runs.map((r) => r.file)));
+    const root = path.join(jobDir, CONTINUATION_RUNS_DIR);
+    for (const entry of await fsp.readdir(root, { recursive: true, withFileTypes: true }).catch(() => [])) {
+      const file = path.relative(jobDir, path.join(entry.parentPath, entry.name));
+      if (entry.isFile() && !kept.has(file)) await ctx.fs.unlink(path.join(jobDir, file));
+    }
+    const todo = Array.from({ length: partitions }, (_, p) => p).filter((p) => !emitted.has(p));
+    const workers = Math.min(ctx.workers, Math.max(1, todo.length));
+    const init = { ...baseInit(job, jobDir, 'continuation-emit'), idMax, counterBytesMax: counterBudgetPerWorker(ctx.memoryBytes, workers, 0) };
+    ctx.progress.start('continuation counts', todo.length, 'tasks');
+    await runPool<number, EmitDone, unknown>(workers, init, todo, {
+      message: (partition) => ({ type: 'emit', partition }),
+      onDone: (done) => {
+        ctx.progress.update(1, 0);
+        stage.emitted.push({ partition: done.partition, runs: done.runs });
+        return ctx.saveManifest();
+      },
+    }).finally(() => ctx.progress.stop());
+  }
+
+  // ---- pass 2: merge them into each partition's store ----
+  const tasks: PartitionMergeTask[] = Array.from({ length: partitions }, (_, p) => ({
+    partition: p,
+    files: Array.from({ length: Math.max(0, orderMax - 1) }, () => [] as string[]),
+  }));
+  for (const e of stage.emitted) for (const run of e.runs) tasks[run.partition].files[run.order - 1].push(run.file);
+  const byPartition = new Map<number, OrderTally[]>();
+  const done = new Set(stage.partitionsDone);
+  if (orderMax >= 2) {
+    for (const partition of done) byPartition.set(partition, await finishedTallies(jobDir, partition, 'continuation'));
+    const todo = tasks.filter((t) => !done.has(t.partition));
+    await runPool<PartitionMergeTask, MergeDone, unknown>(ctx.workers, baseInit(job, jobDir, 'continuation-merge'), todo, {
+      message: (task) => ({ type: 'partition', task }),
+      onDone: (result) => {
+        byPartition.set(result.partition, result.tallies);
+        stage.partitionsDone.push(result.partition);
+        return ctx.saveManifest();
+      },
+    });
+  }
+  const stats = await readStatsFile(jobDir);
+  stats.continuation = [];
+  for (let m = 1; m < orderMax; m++) {
+    const tally = sumTallies(m, [...byPartition.values()].map((t) => t[m - 1]));
+    // Every distinct n-gram of order m+1 adds one to exactly one continuation count of order m.
+    assert(tally.total === stats.tallies[m].distinct, `order ${m}: Σ N1+(• x) ${tally.total} ≠ distinct n-grams of order ${m + 1} ${stats.tallies[m].distinct}`);
+    stats.continuation.push(tally);
+  }
+  await writeFileAtomic(ctx.fs, path.join(jobDir, STATS_FILE), JSON.stringify(stats) + '\n');
+  stage.partitionsDone.sort((a, b) => a - b);
+  stage.status = 'done';
+  stage.elapsedMs = (stage.elapsedMs ?? 0) + Date.now() - started;
+  await ctx.saveManifest();
+}

@@ -1,0 +1,70 @@
+/**
+ * The count store after `quern count`: continuation counts against an independent computation
+ * from the coreutils reference counts, prefix listing, and `quern report` on the same job.
+ */
+import { execFileSync } from 'node:child_process';
+import * as path from 'node:path';
+import { beforeAll, describe, expect, test } from 'vitest';
+import { SyntheticModel, writeShardFile } from '../../scripts/lib/synthetic.ts';
+import { referenceCountsByOrder } from '../support/reference-count.ts';
+import { parseListing, runQuern, tempDir } from '../support/cli.ts';
+
+describe('count store', () => {
+  let job: string;
+  let reference: Map<number, Map<string, number>>;
+  beforeAll(async () => {
+    const dir = tempDir();
+    const corpus = path.join(dir, 'corpus');
+    execFileSync('mkdir', ['-p', corpus]);
+    const model = new SyntheticModel({ seed: 9, vocabularyTypes: 5000, successorRanks: 1000, phraseCount: 500 });
+    writeShardFile(model, 0, 400_000, path.join(corpus, 'a.txt'));
+    writeShardFile(model, 1, 300_000, path.join(corpus, 'b.txt'));
+    job = path.join(dir, 'job');
+    const result = await runQuern(['count', corpus, '--job', job, '--order', '4', '--quiet', '--partitions', '5']);
+    expect(result.stderr).toBe('');
+    reference = referenceCountsByOrder([path.join(corpus, 'a.txt'), path.join(corpus, 'b.txt')], 4, { lowercase: false });
+  });
+
+  test('continuation counts N1+(• x) equal the number of distinct words before x (from the coreutils counts)', async () => {
+    for (let m = 1; m <= 3; m++) {
+      // Kneser-Ney's continuation count (Chen & Goodman 1998): |{w : c(w x) > 0}|, computed here
+      // from the reference n-grams of order m+1 by dropping their first word.
+      const expected = new Map<string, number>();
+      for (const ngram of reference.get(m + 1)!.keys()) {
+        const suffix = ngram.slice(ngram.indexOf(' ') + 1);
+        expected.set(suffix, (expected.get(suffix) ?? 0) + 1);
+      }
+      const result = await runQuern(['ngrams', job, '--order', String(m), '--continuation']);
+      expect(result.status).toBe(0);
+      expect(parseListing(result.stdout)).toEqual(expected);
+    }
+  });
+
+  test('--prefix lists exactly the n-grams that start with the given words', async () => {
+    const trigrams = reference.get(3)!;
+    const [first] = [...trigrams.keys()].filter((k) => !k.startsWith('<s>'));
+    const prefix = first.split(' ').slice(0, 2).join(' ');
+    const expected = new Map([...trigrams].filter(([k]) => k.startsWith(prefix + ' ')));
+    const result = await runQuern(['ngrams', job, '--order', '3', '--prefix', prefix]);
+    expect(result.status).toBe(0);
+    expect(parseListing(result.stdout)).toEqual(expected);
+    const single = await runQuern(['ngrams', job, '--order', '3', '--prefix', first]);
+    expect(parseListing(single.stdout)).toEqual(new Map([[first, trigrams.get(first)]]));
+  });
+
+  test('quern report: Σ r·n_r = occurrences at every order, and the continuation count-of-counts add up', async () => {
+    const result = await runQuern(['report', job, '--json']);
+    expect(result.stderr).toBe('');
+    const report = JSON.parse(result.stdout);
+    expect(report.orders).toHaveLength(4);
+    for (const order of report.orders) {
+      const expected = reference.get(order.order)!;
+      const occurrences = [...expected.values()].reduce((a, b) => a + b, 0);
+      expect(order.distinct).toBe(expected.size);
+      expect(order.total).toBe(occurrences);
+    }
+    const text = await runQuern(['report', job]);
+    expect(text.status).toBe(0);
+    expect(text.stdout).toMatch(/Count-of-counts/);
+  });
+});

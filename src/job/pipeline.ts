@@ -83,7 +83,10 @@ async function removeJobData(jobDir: string): Promise<void> {
 /** Creates the job, or checks that the existing one was started with the same inputs and config. */
 async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobManifest; resumed: boolean }> {
   const { jobDir, config } = request;
-  const inputs = await discoverInputs(request.inputSpecs, config.format === 'auto' ? {} : { format: config.format });
+  // A job directory inside an input directory must not count its own files.
+  const inputs = (await discoverInputs(request.inputSpecs, config.format === 'auto' ? {} : { format: config.format }))
+    .filter((f) => !f.path.startsWith(jobDir + path.sep));
+  if (inputs.length === 0) throw new QuernError('input', `no input files in ${request.inputSpecs.join(', ')} (outside the job directory)`);
   const jsonl = inputs.find((f) => f.format === 'jsonl');
   if (jsonl && config.textField === null) {
     throw new QuernError('config', `${jsonl.path} is JSON Lines: say where the text is with --text-field (e.g. --text-field body.text)`);

@@ -104,6 +104,10 @@ export const WORKER_COUNTER_BYTES_MIN = 4 << 20;
 /** Default `--memory`: a quarter of the machine, at least 1 GiB. */
 export const MEMORY_DEFAULT_FRACTION = 0.25;
 
+/** Spill numbers of runs re-keyed after an addition start at generation × this, so their file
+ *  names never collide with earlier runs of the same chunk (a chunk spills far fewer times). */
+export const REMAP_SPILL_STRIDE = 100_000;
+
 // ---- Count store (LMDB) ----------------------------------------------------------------------
 
 /** N-grams per LMDB value: one entry per n-gram writes at ~0.6 M/s here, blocks of ~1,000 at over

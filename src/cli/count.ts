@@ -58,10 +58,12 @@ export const countCommand: CommandModule = {
     .option('partitions', { type: 'number', default: PARTITIONS_DEFAULT, describe: 'Partitions of the n-gram space (independent merge tasks)' })
     .option('chunk-size', { type: 'string', default: String(CHUNK_BYTES_TARGET), describe: 'Split plain inputs into line-aligned chunks of about this size' })
     .option('restart', { type: 'boolean', default: false, describe: 'Discard an existing job in --job and start over' })
+    .option('add', { type: 'boolean', default: false, describe: 'Add these inputs to the counted job in --job: only they are read; the store is rebuilt' })
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' })
     .option('json', { type: 'boolean', default: false, describe: 'Print the summary as JSON' }))
     .example('$0 count corpus/ --job job --order 5 --memory 4GiB', 'Count orders 1..5 of every file under corpus/')
-    .example('$0 count "crawl/*.jsonl.gz" --text-field body.text --job job', 'Count the text at body.text of JSON Lines shards'),
+    .example('$0 count "crawl/*.jsonl.gz" --text-field body.text --job job', 'Count the text at body.text of JSON Lines shards')
+    .example('$0 count new-shards/ --job job --order 5 --add', 'Add shards to a counted job'),
   handler: async (argv) => {
     const vocabTop = argv['vocab-top'] === undefined ? undefined : intInRange(argv['vocab-top'], '--vocab-top', 1, 2 ** 32 - 16);
     const vocabMinCount = argv['vocab-min-count'] === undefined ? undefined : intInRange(argv['vocab-min-count'], '--vocab-min-count', 1, Number.MAX_SAFE_INTEGER);
@@ -78,6 +80,7 @@ export const countCommand: CommandModule = {
     if (config.textField !== null && !/^[^.]+(\.[^.]+)*$/.test(config.textField)) {
       throw new QuernError('config', `--text-field expects a dotted path such as body.text, got '${config.textField}'`);
     }
+    if (argv.add && argv.restart) throw new QuernError('config', '--add and --restart cannot go together: --restart discards the job that --add would extend');
     const workers = intInRange(argv.workers, '--workers', 1, 256);
     const memoryBytes = argv.memory === undefined ? defaultMemoryBytes() : parseSize(argv.memory as string, '--memory');
     const summary = await runCount({
@@ -87,6 +90,7 @@ export const countCommand: CommandModule = {
       workers,
       memoryBytes,
       restart: Boolean(argv.restart),
+      add: Boolean(argv.add),
       progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
     });
     if (argv.json) process.stdout.write(JSON.stringify(summary, null, 2) + '\n');

@@ -78,15 +78,15 @@ export class CounterSet {
   }
 
   /**
-   * Adds one occurrence of the n-gram `ids[start .. start+order)`, growing its counter within the
+   * Adds `increment` occurrences of the n-gram `ids[start .. start+order)`, growing its counter within the
    * budget. Returns false, changing nothing, when the budget is reached: the owner must spill.
    */
-  addNgram(ids: Uint32Array, start: number, order: number): boolean {
+  addNgram(ids: Uint32Array, start: number, order: number, increment = 1): boolean {
     const counter = this.counters[order - 1];
     const hash = ngramHash(ids, start, order);
-    if (counter.add(ids, start, hash)) return true;
+    if (counter.add(ids, start, hash, increment)) return true;
     if (!this.reserve(2)) return false;
-    const added = counter.add(ids, start, hash);
+    const added = counter.add(ids, start, hash, increment);
     assert(added, 'a counter with room accepts an n-gram');
     return true;
   }

@@ -45,10 +45,10 @@ export class NgramCounter {
   }
 
   /**
-   * Adds one occurrence of `ids[start .. start+order)` whose slot hash is `hash`.
-   * Returns false, changing nothing, when the n-gram is new and the table is full.
+   * Adds `increment` (default one) occurrences of `ids[start .. start+order)` whose slot hash is
+   * `hash`. Returns false, changing nothing, when the n-gram is new and the table is full.
    */
-  add(ids: Uint32Array, start: number, hash: number): boolean {
+  add(ids: Uint32Array, start: number, hash: number, increment = 1): boolean {
     const order = this.order;
     const keys = this.keys;
     const counts = this.counts;
@@ -61,8 +61,8 @@ export class NgramCounter {
       let k = 0;
       while (k < order && keys[base + k] === ids[start + k]) k++;
       if (k === order) {
-        assert(count < 0xffff_ffff, 'counter overflow: spill before 2^32 occurrences');
-        counts[slot] = count + 1;
+        assert(count + increment <= 0xffff_ffff, 'counter overflow: spill before 2^32 occurrences');
+        counts[slot] = count + increment;
         return true;
       }
       slot = (slot + 1) & mask;
@@ -70,7 +70,7 @@ export class NgramCounter {
     if (this.size >= this.sizeMax) return false;
     const base = slot * order;
     for (let k = 0; k < order; k++) keys[base + k] = ids[start + k];
-    counts[slot] = 1;
+    counts[slot] = increment;
     this.size += 1;
     return true;
   }

@@ -4,7 +4,7 @@ import type { RunRecord } from '../job/manifest.ts';
 import type { PartitionMergeTask } from '../merge/merge-partition.ts';
 import type { OrderTally } from '../merge/tally.ts';
 
-export type Phase = 'vocab' | 'count' | 'merge' | 'continuation-emit' | 'continuation-merge';
+export type Phase = 'vocab' | 'count' | 'remap' | 'merge' | 'continuation-emit' | 'continuation-merge';
 
 export interface WorkerInit {
   phase: Phase;
@@ -22,15 +22,25 @@ export interface WorkerInit {
   unkId?: number;
   /** count and continuation-emit phases: the budget of this worker's counters. */
   counterBytesMax?: number;
-  /** continuation-emit phase: vocabulary size + 1 (bounds word ids). */
+  /** continuation-emit and remap phases: vocabulary size + 1 (bounds word ids). */
   idMax?: number;
+  /** remap phase: idMap[oldId] = newId, and the first spill number of the new runs. */
+  idMap?: Uint32Array;
+  spillBase?: number;
 }
 
 export type ToWorker =
   | { type: 'chunk'; chunk: Chunk }
   | { type: 'partition'; task: PartitionMergeTask }
   | { type: 'emit'; partition: number }
+  | { type: 'remap'; chunk: number; files: string[] }
   | { type: 'finish' };
+
+export interface RemapDone {
+  type: 'done';
+  chunk: number;
+  runs: RunRecord[];
+}
 
 export interface EmitDone {
   type: 'done';
@@ -88,4 +98,4 @@ export interface WorkerFailure {
   stack?: string;
 }
 
-export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | EmitDone | VocabFinished | CountFinished | Progress | WorkerFailure;
+export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | EmitDone | RemapDone | VocabFinished | CountFinished | Progress | WorkerFailure;

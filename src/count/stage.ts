@@ -71,16 +71,43 @@ function chunkBytes(chunks: Chunk[]): number {
   return chunks.reduce((sum, c) => sum + c.byteEnd - c.byteStart, 0);
 }
 
-/** The vocabulary pass: word counts of every chunk → vocab.tsv. */
+export const PREVIOUS_VOCAB_FILE = 'vocab.previous.tsv';
+
+/** Reads the vocabulary as it was before inputs were added (kept until the runs are re-keyed). */
+export async function readPreviousVocabulary(jobDir: string, job: JobManifest): Promise<Vocabulary> {
+  const file = path.join(jobDir, PREVIOUS_VOCAB_FILE);
+  const bytes = await fsp.readFile(file).catch((cause) => {
+    throw new QuernError('io', `cannot read ${file}: ${(cause as Error).message}`, { cause });
+  });
+  if (createHash('sha256').update(bytes).digest('hex') !== job.stages.vocab.previousSha) {
+    throw new QuernError('corrupt', `${file} does not match the checksum recorded in job.json; re-run the count with --restart`);
+  }
+  return parseVocabulary(bytes.toString('utf8'), file);
+}
+
+/**
+ * The vocabulary pass: word counts of every chunk not read yet → vocab.tsv. When inputs are being
+ * added, the previous vocabulary's counts are the starting point (the job has no cap then, so they
+ * are the exact word counts of the earlier chunks).
+ */
 export async function vocabStage(ctx: StageContext): Promise<void> {
   const { job, jobDir } = ctx;
   if (job.stages.vocab.status === 'done') return;
   const started = Date.now();
-  const reads: ReadStats[] = new Array(job.chunks.length);
+  const reads: Array<ReadStats | null> = Array.from({ length: job.chunks.length }, (_, i) => job.stages.vocab.reads?.[i] ?? null);
   const wordCounts = new Map<string, number>();
   let unkSeen = 0;
-  ctx.progress.start('vocabulary', chunkBytes(job.chunks));
-  await runPool<Chunk, VocabChunkDone, VocabFinished>(ctx.workers, baseInit(job, jobDir, 'vocab'), job.chunks, {
+  if (job.stages.vocab.previousSha !== undefined) {
+    const previous = await readPreviousVocabulary(jobDir, job);
+    for (let id = 1; id < previous.words.length; id++) {
+      if (id === previous.eosId) continue;
+      if (id === previous.unkId) unkSeen += previous.counts[id];
+      else wordCounts.set(previous.words[id], previous.counts[id]);
+    }
+  }
+  const todo = job.chunks.filter((c) => reads[c.index] === null);
+  ctx.progress.start('vocabulary', chunkBytes(todo));
+  await runPool<Chunk, VocabChunkDone, VocabFinished>(ctx.workers, baseInit(job, jobDir, 'vocab'), todo, {
     message: (chunk) => ({ type: 'chunk', chunk }),
     onProgress: (bytes, tokens) => ctx.progress.update(bytes, tokens),
     onDone: (done) => { reads[done.chunk] = done.reads; },
@@ -92,16 +119,17 @@ export async function vocabStage(ctx: StageContext): Promise<void> {
       unkSeen += finished.unkSeen;
     },
   }).finally(() => ctx.progress.stop());
-  const sentences = reads.reduce((sum, r) => sum + r.sentences, 0);
+  const sentences = reads.reduce((sum, r) => sum + r!.sentences, 0);
   const vocab = buildVocabulary(wordCounts, sentences, unkSeen, job.config.vocabCap);
   const text = formatVocabulary(vocab);
   await writeFileAtomic(ctx.fs, path.join(jobDir, VOCAB_FILE), text);
   job.stages.vocab = {
+    ...(job.stages.vocab.previousSha !== undefined ? { previousSha: job.stages.vocab.previousSha } : {}),
     status: 'done',
     sha256: createHash('sha256').update(text, 'utf8').digest('hex'),
     types: vocab.words.length - 1,
     reads,
-    elapsedMs: Date.now() - started,
+    elapsedMs: (job.stages.vocab.elapsedMs ?? 0) + Date.now() - started,
   };
   await ctx.saveManifest();
 }

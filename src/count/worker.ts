@@ -18,6 +18,7 @@ import { spillCounterSet } from './spill.ts';
 import { mergePartition, type PartitionMergeTask } from '../merge/merge-partition.ts';
 import { partitionStoreDir } from '../merge/store.ts';
 import { emitContinuations } from '../merge/continuation.ts';
+import { remapChunkRuns } from './remap.ts';
 import { runFilePath } from './run-layout.ts';
 import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 
@@ -165,6 +166,14 @@ async function mergeTask(task: PartitionMergeTask): Promise<void> {
   post({ type: 'done', partition: task.partition, tallies });
 }
 
+async function remapTask(chunk: number, files: string[]): Promise<void> {
+  const runs = await remapChunkRuns({
+    fs, jobDir: init.jobDir, chunk, files, idMap: init.idMap!, orderMax: init.order, partitions: init.partitions,
+    idMax: init.idMax!, counterBytesMax: init.counterBytesMax!, spillBase: init.spillBase!,
+  });
+  post({ type: 'done', chunk, runs });
+}
+
 async function emitTask(partition: number): Promise<void> {
   const runs = await emitContinuations({
     fs, jobDir: init.jobDir, partition, orderMax: init.order, partitions: init.partitions,
@@ -184,6 +193,7 @@ async function handle(message: ToWorker): Promise<void> {
   }
   if (message.type === 'partition') await mergeTask(message.task);
   else if (message.type === 'emit') await emitTask(message.partition);
+  else if (message.type === 'remap') await remapTask(message.chunk, message.files);
   else if (init.phase === 'vocab') await vocabChunk(message.chunk);
   else await countChunk(message.chunk);
 }

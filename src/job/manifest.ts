@@ -49,11 +49,14 @@ export interface RunRecord {
 
 export interface VocabStage {
   status: StageStatus;
+  /** While inputs are being added: sha256 of the vocabulary before the addition (vocab.previous.tsv). */
+  previousSha?: string;
   /** sha256 of vocab.tsv once written. */
   sha256?: string;
   types?: number;
-  /** Read statistics per chunk (index = chunk index), from the vocabulary pass. */
-  reads?: ReadStats[];
+  /** Read statistics per chunk (index = chunk index), from the vocabulary pass; null for a chunk
+   *  not read yet (inputs being added). */
+  reads?: Array<ReadStats | null>;
   elapsedMs?: number;
 }
 
@@ -61,6 +64,16 @@ export interface CountStage {
   status: StageStatus;
   chunks: ChunkResult[];
   elapsedMs?: number;
+}
+
+/** Re-keying the runs of chunks counted before inputs were added (the ids changed). */
+export interface RemapStage {
+  status: StageStatus;
+  /** Chunks whose runs are keyed by the previous vocabulary's ids. */
+  chunks: number[];
+  chunksDone: number[];
+  /** Additions so far; new runs are numbered from generation × REMAP_SPILL_STRIDE. */
+  generation: number;
 }
 
 export interface MergeStage {
@@ -90,7 +103,7 @@ export interface JobManifest {
   config: JobConfig;
   inputs: InputFile[];
   chunks: Chunk[];
-  stages: { vocab: VocabStage; count: CountStage; merge: MergeStage; continuation: ContinuationStage };
+  stages: { vocab: VocabStage; remap?: RemapStage; count: CountStage; merge: MergeStage; continuation: ContinuationStage };
 }
 
 export function manifestPath(jobDir: string): string {

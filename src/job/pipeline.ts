@@ -8,7 +8,7 @@ import * as path from 'node:path';
 import { QuernError } from '../errors.ts';
 import { discoverInputs } from '../corpus/discover.ts';
 import { planChunks } from '../corpus/plan.ts';
-import type { ReadStats } from '../corpus/types.ts';
+import type { InputFile, ReadStats } from '../corpus/types.ts';
 import { countStage, readJobVocabulary, sumOccurrences, vocabStage, VOCAB_FILE } from '../count/stage.ts';
 import { RUNS_DIR } from '../count/run-layout.ts';
 import { mergeStage, STATS_FILE } from '../merge/stage.ts';
@@ -17,6 +17,7 @@ import { STORE_DIR } from '../merge/store.ts';
 import { makeStageContext, silentProgress, type ProgressSink } from './context.ts';
 import { stageFs, type StageFs } from './fsio.ts';
 import { stopCleanlyOnSignals } from './interrupt.ts';
+import { beginAddition, newInputs, remapStage } from './add.ts';
 import { lockJob } from './lock.ts';
 import { describeDifferences, readManifest, writeManifest, MANIFEST_VERSION, type JobConfig, type JobManifest } from './manifest.ts';
 
@@ -29,6 +30,8 @@ export interface CountRequest {
   memoryBytes: number;
   /** Discard an existing job in jobDir and start over. */
   restart: boolean;
+  /** Add the inputs to the existing, counted job instead of starting one. */
+  add?: boolean;
   progress?: ProgressSink;
   fs?: StageFs;
 }
@@ -81,7 +84,7 @@ async function removeJobData(jobDir: string): Promise<void> {
 }
 
 /** Creates the job, or checks that the existing one was started with the same inputs and config. */
-async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobManifest; resumed: boolean }> {
+async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobManifest; resumed: boolean; added: InputFile[] }> {
   const { jobDir, config } = request;
   // A job directory inside an input directory must not count its own files.
   const inputs = (await discoverInputs(request.inputSpecs, config.format === 'auto' ? {} : { format: config.format }))
@@ -92,9 +95,18 @@ async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobMa
     throw new QuernError('config', `${jsonl.path} is JSON Lines: say where the text is with --text-field (e.g. --text-field body.text)`);
   }
   const existing = await readManifest(jobDir);
+  if (request.add) {
+    if (!existing) throw new QuernError('config', `--add: there is no job in ${jobDir} to add to; count without --add first`);
+    const added = newInputs(existing, inputs);
+    // The inputs given that the job already holds must be unchanged; the job's others are not compared.
+    const known = new Set(inputs.filter((f) => !added.includes(f)).map((f) => f.path));
+    const differences = describeDifferences({ ...existing, inputs: existing.inputs.filter((f) => known.has(f.path)) }, config, inputs.filter((f) => known.has(f.path)));
+    if (differences.length > 0) throw new QuernError('config', `--add: the job in ${jobDir} differs:\n  ${differences.join('\n  ')}`);
+    return { job: existing, resumed: true, added };
+  }
   if (existing && !request.restart) {
     const differences = describeDifferences(existing, config, inputs);
-    if (differences.length === 0) return { job: existing, resumed: true };
+    if (differences.length === 0) return { job: existing, resumed: true, added: [] };
     throw new QuernError('config', `job ${jobDir} was started with other inputs or settings:\n  ${differences.join('\n  ')}\nre-run with --restart to discard it and start over`);
   }
   await removeJobData(jobDir);
@@ -113,7 +125,7 @@ async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobMa
     },
   };
   await writeManifest(fs, jobDir, job);
-  return { job, resumed: false };
+  return { job, resumed: false, added: [] };
 }
 
 /** Runs (or continues) counting and merging a job; returns its summary. */
@@ -126,12 +138,14 @@ export async function runCount(request: CountRequest): Promise<CountSummary> {
   const removeSignalHandlers = stopCleanlyOnSignals(jobDir, lock.file, 're-run the same command to continue it.');
   try {
     await removeStaleTemporaries(jobDir);
-    const { job, resumed } = await openJob({ ...request, jobDir }, fs);
+    const { job, resumed, added } = await openJob({ ...request, jobDir }, fs);
     const ctx = makeStageContext({
       jobDir, job, fs, progress: request.progress ?? silentProgress, workers: request.workers, memoryBytes: request.memoryBytes,
     });
+    if (added.length > 0) await beginAddition(ctx, added);
     await vocabStage(ctx);
     const vocab = await readJobVocabulary(jobDir, job);
+    await remapStage(ctx, vocab);
     await countStage(ctx, vocab);
     await mergeStage(ctx);
     await continuationStage(ctx, vocab.words.length);
@@ -151,7 +165,7 @@ function summarize(
   job: JobManifest, jobDir: string, vocabularySize: number, typesSeen: number, typesCapped: number,
   request: CountRequest, elapsedMs: number, resumed: boolean,
 ): CountSummary {
-  const reads = job.stages.vocab.reads ?? [];
+  const reads = (job.stages.vocab.reads ?? []) as ReadStats[]; // all read once the job is done
   const sum = (f: (r: ReadStats) => number): number => reads.reduce((s, r) => s + f(r), 0);
   const count = job.stages.count;
   const runs = count.chunks.flatMap((c) => c.runs);

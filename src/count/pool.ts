@@ -1,22 +1,24 @@
 /**
- * A pool of worker threads that each own their data. The main thread hands out one task at a time
- * to an idle worker (the queue is the task list itself, so nothing unbounded is buffered), relays
- * progress, and stops every worker at the first failure.
+ * A pool of worker threads that each own their data, kept for the whole job: every phase
+ * (vocabulary, count, merge, …) reuses the same threads, started once. For a phase, the main thread
+ * sends each worker the phase's settings, then hands out one task at a time to an idle worker (the
+ * queue is the task list itself, so nothing unbounded is buffered), relays progress, and stops every
+ * worker at the first failure.
  */
 import { Worker } from 'node:worker_threads';
-import { QuernError } from '../errors.ts';
-import type { FromWorker, WorkerInit } from './protocol.ts';
+import { assert, QuernError } from '../errors.ts';
+import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 
 const BOOT_URL = new URL('./worker-boot.mjs', import.meta.url);
 const WORKER_URL = new URL(import.meta.url.endsWith('.ts') ? './worker.ts' : './worker.js', import.meta.url);
 
 export interface PoolCallbacks<Task, Done, Finished> {
-  /** Called in task order of completion, one at a time (awaited before the worker gets more). */
+  /** Called for each finished task; the worker gets its next task once this settles. */
   onDone(done: Done): Promise<void> | void;
   onProgress?(bytes: number, tokens: number): void;
-  /** Sends a task; returns the message for the worker. */
-  message(task: Task): unknown;
-  /** Collects each worker's 'finished' message. */
+  /** The message that hands `task` to a worker. */
+  message(task: Task): ToWorker;
+  /** Collects each worker's 'finished' message at the end of the phase. */
   onFinished?(finished: Finished): void;
 }
 
@@ -29,61 +31,103 @@ function toError(failure: Extract<FromWorker, { type: 'error' }>): Error {
   return error;
 }
 
-/**
- * Runs `tasks` on `workerCount` workers started with `init`. Resolves when every task is done and
- * every worker has sent its 'finished' message; rejects with the first failure.
- */
-export function runPool<Task, Done, Finished>(
-  workerCount: number,
-  init: WorkerInit,
-  tasks: readonly Task[],
-  callbacks: PoolCallbacks<Task, Done, Finished>,
-): Promise<void> {
-  const count = Math.max(1, Math.min(workerCount, Math.max(tasks.length, 1)));
-  return new Promise<void>((resolve, reject) => {
-    const workers: Worker[] = [];
-    let next = 0;
-    const finishedWorkers = new Set<Worker>();
-    let failed = false;
-    const fail = (error: unknown): void => {
-      if (failed) return;
-      failed = true;
-      Promise.all(workers.map((w) => w.terminate())).finally(() => reject(error));
-    };
-    const dispatch = (worker: Worker): void => {
-      if (failed) return;
-      if (next < tasks.length) worker.postMessage(callbacks.message(tasks[next++]));
-      else worker.postMessage({ type: 'finish' });
-    };
-    for (let w = 0; w < count; w++) {
-      const worker = new Worker(BOOT_URL, { workerData: { module: WORKER_URL.href, init } });
-      workers.push(worker);
-      worker.on('message', (message: FromWorker) => {
-        if (failed) return;
-        switch (message.type) {
-          case 'progress':
-            callbacks.onProgress?.(message.bytes, message.tokens);
-            break;
-          case 'done':
-            Promise.resolve(callbacks.onDone(message as Done)).then(() => dispatch(worker), fail);
-            break;
-          case 'finished':
-            callbacks.onFinished?.(message as Finished);
-            finishedWorkers.add(worker);
-            worker.terminate().then(() => {
-              if (finishedWorkers.size === count && !failed) resolve();
-            }, fail);
-            break;
-          case 'error':
-            fail(toError(message));
-            break;
+export class WorkerPool {
+  private readonly workers: Worker[] = [];
+  private broken: unknown;
+  private busy = false;
+
+  /** @param size the most workers a phase may use */
+  constructor(readonly size: number) {
+    assert(Number.isInteger(size) && size >= 1, `pool size ${size} must be a positive integer`);
+  }
+
+  private worker(index: number): Worker {
+    while (this.workers.length <= index) this.workers.push(new Worker(BOOT_URL, { workerData: { module: WORKER_URL.href } }));
+    return this.workers[index];
+  }
+
+  /**
+   * Runs one phase: `tasks` on at most `workerCount` workers set up with `init`. Resolves when every
+   * task is done and every worker has sent its 'finished' message; rejects with the first failure
+   * (after which the pool is closed).
+   */
+  run<Task, Done, Finished>(
+    init: WorkerInit,
+    tasks: readonly Task[],
+    callbacks: PoolCallbacks<Task, Done, Finished>,
+    workerCount = this.size,
+  ): Promise<void> {
+    if (this.broken !== undefined) return Promise.reject(this.broken);
+    assert(!this.busy, 'one phase at a time per pool');
+    this.busy = true;
+    const count = Math.max(1, Math.min(workerCount, this.size, Math.max(tasks.length, 1)));
+    const workers = Array.from({ length: count }, (_, i) => this.worker(i));
+    return new Promise<void>((resolve, reject) => {
+      const finished = new Set<Worker>();
+      let next = 0;
+      let failed = false;
+      const detach: Array<() => void> = [];
+      const settle = (error?: unknown): void => {
+        for (const off of detach) off();
+        this.busy = false;
+        if (error === undefined) {
+          resolve();
+          return;
         }
-      });
-      worker.on('error', fail);
-      worker.on('exit', (code) => {
-        if (!failed && !finishedWorkers.has(worker)) fail(new Error(`worker exited with code ${code}`));
-      });
-      dispatch(worker);
-    }
-  });
+        this.broken = error;
+        this.close().finally(() => reject(error));
+      };
+      const fail = (error: unknown): void => {
+        if (failed) return;
+        failed = true;
+        settle(error);
+      };
+      const dispatch = (worker: Worker): void => {
+        if (failed) return;
+        worker.postMessage(next < tasks.length ? callbacks.message(tasks[next++]) : { type: 'finish' } satisfies ToWorker);
+      };
+      for (const worker of workers) {
+        const onMessage = (message: FromWorker): void => {
+          if (failed) return;
+          switch (message.type) {
+            case 'progress':
+              callbacks.onProgress?.(message.bytes, message.tokens);
+              break;
+            case 'done':
+              Promise.resolve(callbacks.onDone(message as Done)).then(() => dispatch(worker), fail);
+              break;
+            case 'finished':
+              callbacks.onFinished?.(message as Finished);
+              finished.add(worker);
+              if (finished.size === count) {
+                failed = true; // no more messages of this phase are expected
+                settle();
+              }
+              break;
+            case 'error':
+              fail(toError(message));
+              break;
+          }
+        };
+        const onError = (error: Error): void => fail(error);
+        const onExit = (code: number): void => fail(new Error(`worker exited with code ${code}`));
+        worker.on('message', onMessage);
+        worker.on('error', onError);
+        worker.on('exit', onExit);
+        detach.push(() => {
+          worker.off('message', onMessage);
+          worker.off('error', onError);
+          worker.off('exit', onExit);
+        });
+        worker.postMessage({ type: 'init', init } satisfies ToWorker);
+        dispatch(worker);
+      }
+    });
+  }
+
+  /** Stops every worker. */
+  async close(): Promise<void> {
+    const workers = this.workers.splice(0);
+    await Promise.all(workers.map((w) => w.terminate()));
+  }
 }

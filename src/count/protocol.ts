@@ -30,6 +30,7 @@ export interface WorkerInit {
 }
 
 export type ToWorker =
+  | { type: 'init'; init: WorkerInit }
   | { type: 'chunk'; chunk: Chunk }
   | { type: 'partition'; task: PartitionMergeTask }
   | { type: 'emit'; partition: number }

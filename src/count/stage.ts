@@ -12,7 +12,6 @@ import { buildVocabulary, formatVocabulary, parseVocabulary, type Vocabulary } f
 import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
 import type { JobManifest } from '../job/manifest.ts';
-import { runPool } from './pool.ts';
 import type { CountChunkDone, VocabChunkDone, VocabFinished, WorkerInit } from './protocol.ts';
 import { RUNS_DIR } from './run-layout.ts';
 
@@ -107,7 +106,7 @@ export async function vocabStage(ctx: StageContext): Promise<void> {
   }
   const todo = job.chunks.filter((c) => reads[c.index] === null);
   ctx.progress.start('vocabulary', chunkBytes(todo));
-  await runPool<Chunk, VocabChunkDone, VocabFinished>(ctx.workers, baseInit(job, jobDir, 'vocab'), todo, {
+  await ctx.pool.run<Chunk, VocabChunkDone, VocabFinished>(baseInit(job, jobDir, 'vocab'), todo, {
     message: (chunk) => ({ type: 'chunk', chunk }),
     onProgress: (bytes, tokens) => ctx.progress.update(bytes, tokens),
     onDone: (done) => { reads[done.chunk] = done.reads; },
@@ -155,7 +154,7 @@ export async function countStage(ctx: StageContext, vocab: Vocabulary): Promise<
   };
   count.status = 'running';
   ctx.progress.start(`counting to order ${job.config.order}`, chunkBytes(todo));
-  await runPool<Chunk, CountChunkDone, unknown>(workers, init, todo, {
+  await ctx.pool.run<Chunk, CountChunkDone, unknown>(init, todo, {
     message: (chunk) => ({ type: 'chunk', chunk }),
     onProgress: (bytes, tokens) => ctx.progress.update(bytes, tokens),
     onDone: (done) => {

@@ -4,7 +4,7 @@
  * sorted, partitioned run files when its budget is reached and at the end of every chunk (so a
  * finished chunk is a durable unit of work).
  */
-import { parentPort, workerData } from 'node:worker_threads';
+import { parentPort } from 'node:worker_threads';
 import * as path from 'node:path';
 import { QuernError } from '../errors.ts';
 import { readChunk } from '../corpus/read.ts';
@@ -30,8 +30,9 @@ const fs = stageFs();
 function readOptionsOf(chunk: Chunk): ReadOptions {
   return { format: init.inputs[chunk.fileIndex].format, textField: init.textField, skipBad: init.skipBad };
 }
-const init = workerData.init as WorkerInit;
-const tokenize = makeTokenizer(init.normalize);
+// The phase this worker is in, set by each 'init' message: one worker serves every phase of a job.
+let init: WorkerInit;
+let tokenize: ReturnType<typeof makeTokenizer>;
 const tokens: string[] = [];
 
 function post(message: FromWorker): void {
@@ -61,7 +62,7 @@ function progressReporter(): (bytesRead: number) => void {
 
 // ---- vocabulary phase ----------------------------------------------------------------------
 
-const wordCounts = new Map<string, number>();
+let wordCounts = new Map<string, number>();
 let unkSeen = 0;
 
 async function vocabChunk(chunk: Chunk): Promise<void> {
@@ -182,13 +183,31 @@ async function emitTask(partition: number): Promise<void> {
   post({ type: 'done', partition, runs });
 }
 
+/** Starts a phase: its settings, and a fresh state for it. */
+function startPhase(next: WorkerInit): void {
+  init = next;
+  tokenize = makeTokenizer(init.normalize);
+  wordCounts = new Map();
+  unkSeen = 0;
+  wordIds = undefined;
+  counters = undefined;
+}
+
 async function handle(message: ToWorker): Promise<void> {
+  if (message.type === 'init') {
+    startPhase(message.init);
+    return;
+  }
   if (message.type === 'finish') {
     if (init.phase === 'vocab') {
       post({ type: 'finished', words: [...wordCounts.keys()], counts: [...wordCounts.values()], unkSeen });
     } else {
       post({ type: 'finished' });
     }
+    // Let the phase's memory go before the next one.
+    wordCounts = new Map();
+    wordIds = undefined;
+    counters = undefined;
     return;
   }
   if (message.type === 'partition') await mergeTask(message.task);

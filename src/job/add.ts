@@ -11,7 +11,6 @@ import { REMAP_SPILL_STRIDE } from '../limits.ts';
 import { planChunks } from '../corpus/plan.ts';
 import type { InputFile } from '../corpus/types.ts';
 import type { Vocabulary } from '../corpus/vocabulary.ts';
-import { runPool } from '../count/pool.ts';
 import type { RemapDone } from '../count/protocol.ts';
 import { baseInit, counterBudgetPerWorker, PREVIOUS_VOCAB_FILE, readPreviousVocabulary, VOCAB_FILE } from '../count/stage.ts';
 import { STATS_FILE } from '../merge/stage.ts';
@@ -83,7 +82,7 @@ export async function remapStage(ctx: StageContext, vocab: Vocabulary): Promise<
   remap.status = 'running';
   const byChunk = new Map(job.stages.count.chunks.map((c) => [c.chunk, c]));
   ctx.progress.start('re-keying earlier runs', todo.length, 'tasks');
-  await runPool<number, RemapDone, unknown>(workers, init, todo, {
+  await ctx.pool.run<number, RemapDone, unknown>(init, todo, {
     message: (chunk) => ({ type: 'remap', chunk, files: byChunk.get(chunk)!.runs.map((r) => r.file) }),
     onDone: async (result) => {
       ctx.progress.update(1, 0);

@@ -1,6 +1,7 @@
 /** What every stage of a running job gets: the job, its directory, and how to record progress. */
 import pLimit from 'p-limit';
 import type { StageFs } from './fsio.ts';
+import type { WorkerPool } from '../count/pool.ts';
 import { writeManifest, type JobManifest } from './manifest.ts';
 
 /** Receives progress of long work; the CLI draws it, tests ignore it. */
@@ -20,6 +21,8 @@ export interface StageContext {
   workers: number;
   /** Budget for all counting memory together, bytes. */
   memoryBytes: number;
+  /** The job's worker threads (ctx.workers of them at most), shared by every phase. */
+  pool: WorkerPool;
   /** Writes job.json atomically; concurrent calls are written one at a time, in call order. */
   saveManifest(): Promise<void>;
 }

@@ -18,6 +18,7 @@ import { makeStageContext, silentProgress, type ProgressSink } from './context.t
 import { stageFs, type StageFs } from './fsio.ts';
 import { stopCleanlyOnSignals } from './interrupt.ts';
 import { beginAddition, newInputs, remapStage } from './add.ts';
+import { WorkerPool } from '../count/pool.ts';
 import { lockJob } from './lock.ts';
 import { describeDifferences, readManifest, writeManifest, MANIFEST_VERSION, type JobConfig, type JobManifest } from './manifest.ts';
 
@@ -136,11 +137,12 @@ export async function runCount(request: CountRequest): Promise<CountSummary> {
   await fs.mkdir(jobDir);
   const lock = await lockJob(jobDir);
   const removeSignalHandlers = stopCleanlyOnSignals(jobDir, lock.file, 're-run the same command to continue it.');
+  const pool = new WorkerPool(request.workers);
   try {
     await removeStaleTemporaries(jobDir);
     const { job, resumed, added } = await openJob({ ...request, jobDir }, fs);
     const ctx = makeStageContext({
-      jobDir, job, fs, progress: request.progress ?? silentProgress, workers: request.workers, memoryBytes: request.memoryBytes,
+      jobDir, job, fs, progress: request.progress ?? silentProgress, workers: request.workers, memoryBytes: request.memoryBytes, pool,
     });
     if (added.length > 0) await beginAddition(ctx, added);
     await vocabStage(ctx);
@@ -151,6 +153,7 @@ export async function runCount(request: CountRequest): Promise<CountSummary> {
     await continuationStage(ctx, vocab.words.length);
     return summarize(job, jobDir, vocab.words.length - 1, vocab.typesSeen, vocab.typesCapped, request, Date.now() - started, resumed);
   } finally {
+    await pool.close();
     removeSignalHandlers();
     await lock.release();
   }

@@ -7,7 +7,6 @@ import * as path from 'node:path';
 import { assert } from '../errors.ts';
 import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
-import { runPool } from '../count/pool.ts';
 import type { EmitDone, MergeDone } from '../count/protocol.ts';
 import { baseInit, counterBudgetPerWorker } from '../count/stage.ts';
 import { CONTINUATION_RUNS_DIR } from './continuation.ts';
@@ -37,7 +36,7 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
     const workers = Math.min(ctx.workers, Math.max(1, todo.length));
     const init = { ...baseInit(job, jobDir, 'continuation-emit'), idMax, counterBytesMax: counterBudgetPerWorker(ctx.memoryBytes, workers, 0) };
     ctx.progress.start('continuation counts', todo.length, 'tasks');
-    await runPool<number, EmitDone, unknown>(workers, init, todo, {
+    await ctx.pool.run<number, EmitDone, unknown>(init, todo, {
       message: (partition) => ({ type: 'emit', partition }),
       onDone: (done) => {
         ctx.progress.update(1, 0);
@@ -58,7 +57,7 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
   if (orderMax >= 2) {
     for (const partition of done) byPartition.set(partition, await finishedTallies(jobDir, partition, 'continuation'));
     const todo = tasks.filter((t) => !done.has(t.partition));
-    await runPool<PartitionMergeTask, MergeDone, unknown>(ctx.workers, baseInit(job, jobDir, 'continuation-merge'), todo, {
+    await ctx.pool.run<PartitionMergeTask, MergeDone, unknown>(baseInit(job, jobDir, 'continuation-merge'), todo, {
       message: (task) => ({ type: 'partition', task }),
       onDone: (result) => {
         byPartition.set(result.partition, result.tallies);

@@ -8,7 +8,6 @@ import * as path from 'node:path';
 import { assert, QuernError } from '../errors.ts';
 import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
-import { runPool } from '../count/pool.ts';
 import type { MergeDone } from '../count/protocol.ts';
 import { baseInit, sumOccurrences } from '../count/stage.ts';
 import type { PartitionMergeTask } from './merge-partition.ts';
@@ -103,7 +102,7 @@ export async function mergeStage(ctx: StageContext): Promise<void> {
   for (const partition of done) byPartition.set(partition, await finishedTallies(jobDir, partition));
   merge.status = 'running';
   ctx.progress.start(`merging ${todo.length} partitions`, todo.length, 'tasks');
-  await runPool<PartitionMergeTask, MergeDone, unknown>(ctx.workers, baseInit(job, jobDir, 'merge'), todo, {
+  await ctx.pool.run<PartitionMergeTask, MergeDone, unknown>(baseInit(job, jobDir, 'merge'), todo, {
     message: (task) => ({ type: 'partition', task }),
     onDone: (result) => {
       ctx.progress.update(1, 0);

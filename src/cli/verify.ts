@@ -8,8 +8,8 @@ const LABEL = { ok: 'ok', failed: 'FAILED', skipped: 'skipped' } as const;
 export function printVerifyReport(report: VerifyReport, out: NodeJS.WritableStream = process.stdout): void {
   const lines: string[] = [`job ${report.jobDir}`];
   if (report.stages !== null) {
-    const { vocab, count, merge } = report.stages;
-    lines.push(`stages: vocabulary ${vocab}, count ${count}, merge ${merge}`);
+    const { vocab, count, merge, continuation } = report.stages;
+    lines.push(`stages: vocabulary ${vocab}, count ${count}, merge ${merge}, continuation counts ${continuation}`);
   }
   if (report.pending.length > 0) lines.push(`pending: ${report.pending.join(', ')} (verified what exists)`);
   const nameWidth = Math.max(...report.checks.map((c) => c.name.length));
@@ -23,6 +23,7 @@ export function printVerifyReport(report: VerifyReport, out: NodeJS.WritableStre
   out.write(lines.join('\n') + '\n');
 }
 
+/** The yargs module of `quern verify`; a failed check ends it with QuernError('corrupt'), exit status 5. */
 export const verifyCommand: CommandModule = {
   command: 'verify <job>',
   describe: 'Check a job directory: job.json, the vocabulary, every run file, every block of the count store, stats.json, and (with --inputs) the inputs',

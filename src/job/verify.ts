@@ -6,11 +6,14 @@
  *               with the run files on disk (present, with the recorded sizes)
  *   vocabulary  vocab.tsv has the sha256 recorded in job.json, parses, and its marker counts agree
  *               with the sentences and tokens read
- *   runs        every recorded run file reads to its end (checksums, record counts, sums), holds
- *               what its record says, and the runs of each order sum to the occurrences counted
- *   store       every block of every partition and order decodes; the per-order tallies recomputed
- *               from the blocks equal the partitions' progress records and stats.json; Σ r·n_r =
- *               total; unigram Σ = tokens + sentences = occurrences counted; unigram counts = vocab
+ *   runs        every recorded run file (n-gram runs and continuation runs) reads to its end
+ *               (checksums, record counts, sums), holds what its record says, and the runs of each
+ *               order sum to the occurrences counted (continuation runs: to the distinct n-grams
+ *               of the order above)
+ *   store       every block of every partition, key space and order decodes; the per-order tallies
+ *               recomputed from the blocks equal the partitions' progress records and stats.json;
+ *               Σ r·n_r = total; unigram Σ = tokens + sentences = occurrences counted; unigram
+ *               counts = vocab.tsv; Σ N1+(• x) at order m = distinct n-grams of order m+1
  *   inputs      (on request) the inputs still have their recorded size, mtime and fingerprint
  *
  * A job that is not finished is verified as far as it goes: the checks of stages that have not run
@@ -31,11 +34,13 @@ import { RUNS_DIR } from '../count/run-layout.ts';
 import { sumOccurrences, VOCAB_FILE } from '../count/stage.ts';
 import type { MergeProgress } from '../merge/merge-partition.ts';
 import { STATS_FILE } from '../merge/stage.ts';
-import { PartitionStore, partitionStoreDir } from '../merge/store.ts';
+import { PartitionStore, partitionStoreDir, type KeySpace } from '../merge/store.ts';
 import { sumTallies, TallyBuilder, type OrderTally } from '../merge/tally.ts';
 import type { CountOfCounts } from '../stats/types.ts';
 import { lockJob, type JobLock } from './lock.ts';
-import { describeDifferences, MANIFEST_FILE, readManifest, type JobManifest, type StageStatus } from './manifest.ts';
+import {
+  describeDifferences, MANIFEST_FILE, readManifest, type ContinuationStage, type JobManifest, type RunRecord, type StageStatus,
+} from './manifest.ts';
 
 /**
  * Problems kept per check: enough to see a pattern, bounded however damaged the job is (the rest
@@ -43,12 +48,15 @@ import { describeDifferences, MANIFEST_FILE, readManifest, type JobManifest, typ
  */
 export const VERIFY_PROBLEMS_MAX = 20;
 
+/** What to verify besides the job directory itself. */
 export interface VerifyOptions {
   /** Also re-read every input's size, mtime and fingerprint and compare them with job.json. */
   inputs?: boolean;
 }
 
+/** The checks, in the order they run (see the file comment). */
 export type CheckName = 'manifest' | 'vocabulary' | 'runs' | 'store' | 'inputs';
+/** 'skipped': the stage has not run yet, or (inputs) the check was not asked for. */
 export type CheckStatus = 'ok' | 'failed' | 'skipped';
 
 /** The verdict of one check. */
@@ -65,6 +73,7 @@ export interface VerifyCheck {
   figures: Record<string, number | number[]>;
 }
 
+/** Everything verify found: the verdict of each check, the stages, what is pending. */
 export interface VerifyReport {
   jobDir: string;
   /** True when no check failed (skipped checks do not count against it). */
@@ -72,7 +81,7 @@ export interface VerifyReport {
   /** Highest order and partitions of the job; 0 when job.json could not be read. */
   order: number;
   partitions: number;
-  stages: { vocab: StageStatus; count: StageStatus; merge: StageStatus } | null;
+  stages: { vocab: StageStatus; count: StageStatus; merge: StageStatus; continuation: StageStatus } | null;
   /** Stages not finished yet, in words (e.g. "merge (1 of 4 partitions merged)"). */
   pending: string[];
   checks: VerifyCheck[];
@@ -133,6 +142,7 @@ function isCount(value: unknown): value is number {
  *   a damaged job is not thrown but reported (see `verifyFailure` to turn a report into an error).
  */
 export async function verifyJob(jobDir: string, options: VerifyOptions = {}): Promise<VerifyReport> {
+  if (typeof jobDir !== 'string' || jobDir === '') throw new QuernError('config', `jobDir: expected the path of a job directory, got ${JSON.stringify(jobDir)}`);
   const dir = path.resolve(jobDir);
   const stat = await fsp.stat(dir).catch(() => undefined);
   if (!stat?.isDirectory()) throw new QuernError('config', `${dir} is not a directory; give the job directory of a quern count`);
@@ -163,17 +173,20 @@ async function verifyLocked(jobDir: string, options: VerifyOptions): Promise<Ver
     report.ok = false;
     return report;
   }
-  const { vocab, count, merge } = job.stages;
+  const { vocab, count, merge, continuation } = job.stages;
   report.order = job.config.order;
   report.partitions = job.config.partitions;
-  report.stages = { vocab: vocab.status, count: count.status, merge: merge.status };
+  report.stages = { vocab: vocab.status, count: count.status, merge: merge.status, continuation: continuation.status };
   if (vocab.status !== 'done') report.pending.push('vocabulary');
   if (count.status !== 'done') report.pending.push(`count (${count.chunks.length} of ${job.chunks.length} chunks counted)`);
   if (merge.status !== 'done') report.pending.push(`merge (${merge.partitionsDone.length} of ${job.config.partitions} partitions merged)`);
+  if (continuation.status !== 'done') {
+    report.pending.push(`continuation counts (${continuation.emitted.length} of ${job.config.partitions} partitions emitted, ${continuation.partitionsDone.length} merged)`);
+  }
 
   const vocabResult = await checkVocabulary(jobDir, job);
   report.checks.push(vocabResult.check);
-  report.checks.push(await checkRuns(jobDir, job, vocabResult.vocab, manifestCheck.figures.runFilesMissing as number));
+  report.checks.push(await checkRuns(jobDir, job, vocabResult.vocab));
   report.checks.push(await checkStore(jobDir, job, vocabResult.vocab));
   report.checks.push(options.inputs ? await checkInputs(job) : skipped('inputs', 'not checked (--inputs re-reads each input\'s size, mtime and fingerprint)'));
   report.ok = report.checks.every((c) => c.status !== 'failed');
@@ -190,7 +203,8 @@ async function checkManifest(jobDir: string): Promise<{ check: VerifyCheck; job:
   try {
     job = await readManifest(jobDir);
   } catch (error) {
-    if (!(error instanceof QuernError)) throw error;
+    // A manifest of a newer quern ('config') or an unreadable file ('io') is not damage.
+    if (!(error instanceof QuernError && error.code === 'corrupt')) throw error;
     check.fail(error.message);
     return { check: check.done(`${MANIFEST_FILE} cannot be read`), job: undefined };
   }
@@ -201,11 +215,14 @@ async function checkManifest(jobDir: string): Promise<{ check: VerifyCheck; job:
     return { check: check.done(`${MANIFEST_FILE} does not have the shape of a quern job`), job: undefined };
   }
 
+  // A job written before the continuation stage existed has not run it.
+  job.stages.continuation ??= { status: 'pending', emitted: [], partitionsDone: [] };
   const { config, chunks, inputs } = job;
-  const { vocab, count, merge } = job.stages;
+  const { vocab, count, merge, continuation } = job.stages;
   // Stage order: a stage runs only after the one before it finished.
   if (count.status !== 'pending' && vocab.status !== 'done') check.fail(`${file}: count is ${count.status} but the vocabulary is ${vocab.status}`);
-  if (count.chunks.length > 0 && vocab.status !== 'done') check.fail(`${file}: ${count.chunks.length} chunks are counted but the vocabulary is ${vocab.status}`);
+  // (While inputs are being added to a job, the chunks counted before wait for the new vocabulary.)
+  if (count.chunks.length > 0 && vocab.status !== 'done' && vocab.previousSha === undefined) check.fail(`${file}: ${count.chunks.length} chunks are counted but the vocabulary is ${vocab.status}`);
   if (merge.status !== 'pending' && count.status !== 'done') check.fail(`${file}: merge is ${merge.status} but the count is ${count.status}`);
   if (merge.partitionsDone.length > 0 && count.status !== 'done') check.fail(`${file}: ${merge.partitionsDone.length} partitions are merged but the count is ${count.status}`);
   if (vocab.status === 'done') {
@@ -219,64 +236,100 @@ async function checkManifest(jobDir: string): Promise<{ check: VerifyCheck; job:
   for (const c of count.chunks) {
     if (!Number.isInteger(c.chunk) || c.chunk < 0 || c.chunk >= chunks.length) check.fail(`${file}: counted chunk ${c.chunk} is not in the plan of ${chunks.length} chunks`);
     else if (seen.has(c.chunk)) check.fail(`${file}: chunk ${c.chunk} is recorded as counted more than once`);
-    seen.add(c.chunk);
+    else seen.add(c.chunk);
   }
   if (count.status === 'done' && seen.size !== chunks.length) check.fail(`${file}: the count is done but ${chunks.length - seen.size} of ${chunks.length} chunks are not recorded`);
   // Merge: each partition at most once; all of them once done.
-  const merged = new Set<number>();
-  for (const p of merge.partitionsDone) {
-    if (!Number.isInteger(p) || p < 0 || p >= config.partitions) check.fail(`${file}: merged partition ${p} is not one of the ${config.partitions} partitions`);
-    else if (merged.has(p)) check.fail(`${file}: partition ${p} is recorded as merged more than once`);
-    merged.add(p);
-  }
+  const merged = partitionSet(merge.partitionsDone, config.partitions, 'merged counts', file, check);
   if (merge.status === 'done') {
     if (merged.size !== config.partitions) check.fail(`${file}: the merge is done but ${config.partitions - merged.size} of ${config.partitions} partitions are not recorded as merged`);
     if (!Array.isArray(merge.distinct) || merge.distinct.length !== config.order) check.fail(`${file}: the merge is done but its distinct counts do not cover orders 1..${config.order}`);
   }
+  // Continuation counts: emitted from and merged into each partition at most once, after the merge.
+  if (continuation.status !== 'pending' && merge.status !== 'done') check.fail(`${file}: continuation counts are ${continuation.status} but the merge is ${merge.status}`);
+  const emitted = partitionSet(continuation.emitted.map((e) => e.partition), config.partitions, 'emitted continuation counts', file, check);
+  const contMerged = partitionSet(continuation.partitionsDone, config.partitions, 'merged continuation counts', file, check);
+  if ((emitted.size > 0 || contMerged.size > 0) && merge.status !== 'done') check.fail(`${file}: continuation counts are recorded but the merge is ${merge.status}`);
+  if (continuation.status === 'done' && config.order >= 2) {
+    if (emitted.size !== config.partitions) check.fail(`${file}: continuation counts are done but ${config.partitions - emitted.size} of ${config.partitions} partitions are not recorded as emitted`);
+    if (contMerged.size !== config.partitions) check.fail(`${file}: continuation counts are done but ${config.partitions - contMerged.size} of ${config.partitions} partitions are not recorded as merged`);
+  }
   // Run files: each recorded once, inside runs/, present with its recorded size.
   const files = new Set<string>();
-  let runFiles = 0;
-  let runBytes = 0;
+  const runs = recordedRuns(job);
   let runFilesMissing = 0;
-  for (const c of count.chunks) {
-    for (const run of c.runs) {
-      runFiles++;
-      runBytes += run.bytes;
-      const normal = path.normalize(run.file);
-      if (path.isAbsolute(normal) || !normal.startsWith(RUNS_DIR + path.sep)) {
-        check.fail(`${file}: run file ${run.file} of chunk ${c.chunk} is not under ${RUNS_DIR}/`);
-        runFilesMissing++;
-        continue;
-      }
-      if (files.has(normal)) check.fail(`${file}: run file ${run.file} is recorded more than once`);
-      files.add(normal);
-      const where = `${run.file} (chunk ${c.chunk}${describeChunk(job, c.chunk)})`;
-      const size = await fsp.stat(path.join(jobDir, normal)).then((s) => s.size, () => undefined);
-      if (size === undefined) {
-        check.fail(`run file ${where} is recorded in ${MANIFEST_FILE} but missing`);
-        runFilesMissing++;
-      } else if (size !== run.bytes) {
-        check.fail(`run file ${where} is ${num(size)} bytes, ${MANIFEST_FILE} records ${num(run.bytes)}`);
-      }
+  let runFilesResized = 0;
+  for (const { run, origin } of runs) {
+    const normal = path.normalize(run.file);
+    if (path.isAbsolute(normal) || !normal.startsWith(RUNS_DIR + path.sep)) {
+      check.fail(`${file}: run file ${run.file} (${origin}) is not under ${RUNS_DIR}/`);
+      runFilesMissing++;
+      continue;
+    }
+    if (files.has(normal)) check.fail(`${file}: run file ${run.file} is recorded more than once`);
+    files.add(normal);
+    const size = await fsp.stat(path.join(jobDir, normal)).then((s) => s.size, () => undefined);
+    if (size === undefined) {
+      check.fail(`run file ${run.file} (${origin}) is recorded in ${MANIFEST_FILE} but missing`);
+      runFilesMissing++;
+    } else if (size !== run.bytes) {
+      runFilesResized++;
+      check.fail(`run file ${run.file} (${origin}) is ${num(size)} bytes, ${MANIFEST_FILE} records ${num(run.bytes)}`);
     }
   }
+  const runBytes = sum(runs.map((r) => r.run.bytes));
   Object.assign(check.figures, {
     inputs: inputs.length, inputBytes: sum(inputs.map((f) => f.bytes)), chunks: chunks.length, chunksCounted: seen.size,
-    runFiles, runBytes, runFilesMissing, partitions: config.partitions, partitionsMerged: merged.size,
+    runFiles: runs.length, runBytes, runFilesMissing, runFilesResized, partitions: config.partitions, partitionsMerged: merged.size,
+    partitionsEmitted: emitted.size, partitionsContinuationMerged: contMerged.size,
   });
   const summary = `${MANIFEST_FILE}: order ${config.order}, ${inputs.length} inputs (${num(check.figures.inputBytes as number)} bytes), `
-    + `${chunks.length} chunks of which ${seen.size} counted, ${runFiles} run files (${num(runBytes)} bytes)`
-    + `${runFilesMissing === 0 ? ' all present with their recorded sizes' : `, ${runFilesMissing} missing`}, `
-    + `${merged.size} of ${config.partitions} partitions merged`;
+    + `${chunks.length} chunks of which ${seen.size} counted, ${runs.length} run files (${num(runBytes)} bytes)`
+    + `${runFilesMissing + runFilesResized === 0 ? ' all present with their recorded sizes' : `, ${runFilesMissing} missing, ${runFilesResized} of another size`}; `
+    + `of ${config.partitions} partitions ${merged.size} merged, ${emitted.size} emitted and ${contMerged.size} merged continuation counts`;
   return { check: check.done(summary), job };
 }
 
-/** What a chunk is, for messages: " = bytes a–b of <input>". */
+/** The distinct partitions of a list, each checked to be in range and listed once. */
+function partitionSet(list: number[], partitions: number, what: string, file: string, check: CheckRecorder): Set<number> {
+  const set = new Set<number>();
+  for (const p of list) {
+    if (!Number.isInteger(p) || p < 0 || p >= partitions) check.fail(`${file}: ${what} of partition ${p}, which is not one of the ${partitions} partitions`);
+    else if (set.has(p)) check.fail(`${file}: ${what} of partition ${p} are recorded more than once`);
+    else set.add(p);
+  }
+  return set;
+}
+
+/** A recorded run file, with what wrote it. */
+interface RecordedRun {
+  run: RunRecord;
+  kind: 'count' | 'continuation';
+  /** The provenance number in the run's header: the chunk, or the source partition of continuation runs. */
+  headerChunk: number;
+  /** Where its counts come from, in words. */
+  origin: string;
+}
+
+/** Every run file job.json records: the count's, then the continuation stage's. */
+function recordedRuns(job: JobManifest): RecordedRun[] {
+  const runs: RecordedRun[] = [];
+  for (const c of job.stages.count.chunks) {
+    for (const run of c.runs) runs.push({ run, kind: 'count', headerChunk: c.chunk, origin: describeChunk(job, c.chunk) });
+  }
+  for (const e of job.stages.continuation.emitted) {
+    const origin = `continuation counts emitted from the order 2..${job.config.order} n-grams of partition ${e.partition}`;
+    for (const run of e.runs) runs.push({ run, kind: 'continuation', headerChunk: e.partition, origin });
+  }
+  return runs;
+}
+
+/** What a chunk is, for messages: "chunk i: bytes a–b of input <path>". */
 function describeChunk(job: JobManifest, chunkIndex: number): string {
   const chunk = job.chunks[chunkIndex];
   const input = chunk === undefined ? undefined : job.inputs[chunk.fileIndex];
-  if (input === undefined) return '';
-  return `: bytes ${chunk.byteStart}–${chunk.byteEnd} of input ${input.path}`;
+  if (input === undefined) return `chunk ${chunkIndex}`;
+  return `chunk ${chunkIndex}: bytes ${chunk.byteStart}–${chunk.byteEnd} of input ${input.path}`;
 }
 
 /** The fields the other checks rely on, with the types they need; problems in words. */
@@ -306,16 +359,32 @@ function shapeProblems(job: JobManifest): string[] {
         problems.push(`counted chunk ${c?.chunk} lacks its tokens, occurrences per order or run list`);
         continue;
       }
-      for (const r of c.runs) {
-        if (typeof r?.file !== 'string' || !isCount(r.bytes) || !isCount(r.records) || !Number.isInteger(r.order) || r.order < 1 || r.order > config.order!
-          || !Number.isInteger(r.partition) || r.partition < 0 || r.partition >= config.partitions!) {
-          problems.push(`a run record of chunk ${c.chunk} (${JSON.stringify(r?.file)}) has no valid file, size, records, order or partition`);
-        }
-      }
+      for (const r of c.runs) runRecordProblem(r, config.order!, config.partitions!, `chunk ${c.chunk}`, problems);
     }
   }
   if (!statuses.includes(stages?.merge?.status as string) || !Array.isArray(stages?.merge?.partitionsDone)) problems.push('stages.merge has no valid status or list of merged partitions');
+  const continuation = stages?.continuation as Partial<ContinuationStage> | undefined;
+  if (continuation !== undefined) {
+    if (!statuses.includes(continuation.status as string) || !Array.isArray(continuation.emitted) || !Array.isArray(continuation.partitionsDone)) {
+      problems.push('stages.continuation has no valid status, list of emitted partitions or list of merged partitions');
+    } else {
+      for (const e of continuation.emitted) {
+        if (!Array.isArray(e?.runs)) {
+          problems.push(`emitted continuation counts of partition ${e?.partition} have no run list`);
+          continue;
+        }
+        for (const r of e.runs) runRecordProblem(r, config.order! - 1, config.partitions!, `continuation counts of partition ${e.partition}`, problems);
+      }
+    }
+  }
   return problems;
+}
+
+function runRecordProblem(r: RunRecord, orderMax: number, partitions: number, owner: string, problems: string[]): void {
+  if (typeof r?.file !== 'string' || !isCount(r.bytes) || !isCount(r.records) || !Number.isInteger(r.order) || r.order < 1 || r.order > orderMax
+    || !Number.isInteger(r.partition) || r.partition < 0 || r.partition >= partitions) {
+    problems.push(`a run record of ${owner} (${JSON.stringify(r?.file)}) has no valid file, size, records, order (1..${orderMax}) or partition`);
+  }
 }
 
 // ---- 2. vocab.tsv -------------------------------------------------------------------------------
@@ -348,7 +417,7 @@ async function checkVocabulary(jobDir: string, job: JobManifest): Promise<{ chec
   }
   const types = vocab.words.length - 1;
   if (stage.types !== undefined && stage.types !== types) check.fail(`${file}: ${num(types)} entries besides <s>, ${MANIFEST_FILE} records ${num(stage.types)}`);
-  const sentences = sum((stage.reads ?? []).map((r) => r.sentences));
+  const sentences = sum((stage.reads ?? []).map((r) => r?.sentences ?? 0));
   const eosCount = vocab.counts[vocab.eosId];
   if (vocab.counts[BOS_ID] !== sentences) check.fail(`${file}: <s> count ${num(vocab.counts[BOS_ID])} ≠ ${num(sentences)} sentences read`);
   if (eosCount !== sentences) check.fail(`${file}: </s> count ${num(eosCount)} ≠ ${num(sentences)} sentences read`);
@@ -369,97 +438,139 @@ async function checkVocabulary(jobDir: string, job: JobManifest): Promise<{ chec
 
 // ---- 3. run files -------------------------------------------------------------------------------
 
-/** Checks one row of an n-gram: its partition, its ids within the vocabulary, `<s>` only first. */
-function rowProblem(keys: Uint32Array, offset: number, order: number, partition: number, partitions: number, vocabSize: number): string | undefined {
+/**
+ * Checks one row of an n-gram: its partition, its ids within the vocabulary, and `<s>` only where
+ * it can be — first in a raw n-gram of order ≥ 2 (a context, never predicted), nowhere in a
+ * continuation n-gram (a suffix never starts a sentence).
+ */
+function rowProblem(
+  keys: Uint32Array, offset: number, order: number, space: KeySpace, partition: number, partitions: number, vocabSize: number,
+): string | undefined {
   for (let k = 0; k < order; k++) {
     const id = keys[offset + k];
     if (vocabSize > 0 && id >= vocabSize) return `word id ${id} is outside the vocabulary of ${vocabSize} ids`;
-    if (id === BOS_ID && (k > 0 || order === 1)) return `<s> at position ${k + 1} (it is only ever a context)`;
+    if (id === BOS_ID && (k > 0 || order === 1 || space === 'continuation')) return `<s> at position ${k + 1} of an n-gram of order ${order}`;
   }
   const home = partitionOf(keys, offset, order, partitions);
   if (home !== partition) return `n-gram [${Array.from(keys.subarray(offset, offset + order)).join(' ')}] belongs to partition ${home}`;
   return undefined;
 }
 
-async function checkRuns(jobDir: string, job: JobManifest, vocab: Vocabulary | undefined, runFilesMissing: number): Promise<VerifyCheck> {
+/** Reads one run file to its end; returns its header, or throws QuernError('corrupt' | 'io'). */
+async function readRun(filePath: string, recorded: RecordedRun, partitions: number, vocabSize: number): Promise<{ order: number; recordCount: number; countSum: number }> {
+  const { run, headerChunk, kind } = recorded;
+  const reader = await RunReader.open(filePath);
+  try {
+    const info = reader.info;
+    const header: string[] = [];
+    if (info.order !== run.order) header.push(`order ${info.order} (recorded ${run.order})`);
+    if (info.partition !== run.partition) header.push(`partition ${info.partition} (recorded ${run.partition})`);
+    if (info.chunk !== headerChunk) header.push(`${kind === 'count' ? 'chunk' : 'source partition'} ${info.chunk} (recorded ${headerChunk})`);
+    if (info.recordCount !== run.records) header.push(`${num(info.recordCount)} records (recorded ${num(run.records)})`);
+    if (header.length > 0) throw new QuernError('corrupt', `run file ${filePath}: its header says ${header.join(', ')}`);
+    const space: KeySpace = kind === 'count' ? 'raw' : 'continuation';
+    for (let batch = await reader.nextBatch(); batch !== null; batch = await reader.nextBatch()) {
+      for (let j = 0; j < batch.recordCount; j++) {
+        const problem = rowProblem(batch.keys, j * info.order, info.order, space, run.partition, partitions, vocabSize);
+        if (problem !== undefined) throw new QuernError('corrupt', `run file ${filePath}: ${problem}`);
+      }
+    }
+    return info;
+  } finally {
+    await reader.close().catch(() => {});
+  }
+}
+
+async function checkRuns(jobDir: string, job: JobManifest, vocab: Vocabulary | undefined): Promise<VerifyCheck> {
   const { order: orderMax, partitions } = job.config;
-  const chunks = job.stages.count.chunks;
-  const runCount = sum(chunks.map((c) => c.runs.length));
-  if (runCount === 0) return skipped('runs', chunks.length === 0 ? 'no chunk counted yet' : 'no run files recorded');
+  const runs = recordedRuns(job);
+  if (runs.length === 0) return skipped('runs', job.stages.count.chunks.length === 0 ? 'no chunk counted yet' : 'no run files recorded');
   const check = new CheckRecorder('runs');
   const vocabSize = vocab?.words.length ?? 0;
-  const records = new Array<number>(orderMax).fill(0);
-  const countSums = new Array<number>(orderMax).fill(0);
-  let filesRead = 0;
-  let filesBad = 0;
-  for (const c of chunks) {
-    for (const run of c.runs) {
-      const filePath = path.join(jobDir, path.normalize(run.file));
-      const origin = `chunk ${c.chunk}${describeChunk(job, c.chunk)}`;
-      const stat = await fsp.stat(filePath).catch(() => undefined);
-      if (!stat) continue; // reported by the manifest check
-      let reader: RunReader | undefined;
-      try {
-        reader = await RunReader.open(filePath);
-        const info = reader.info;
-        const header: string[] = [];
-        if (info.order !== run.order) header.push(`order ${info.order} (recorded ${run.order})`);
-        if (info.partition !== run.partition) header.push(`partition ${info.partition} (recorded ${run.partition})`);
-        if (info.chunk !== c.chunk) header.push(`chunk ${info.chunk} (recorded ${c.chunk})`);
-        if (info.recordCount !== run.records) header.push(`${num(info.recordCount)} records (recorded ${num(run.records)})`);
-        if (header.length > 0) throw new QuernError('corrupt', `run file ${filePath}: its header says ${header.join(', ')}`);
-        let firstBad: string | undefined;
-        for (let batch = await reader.nextBatch(); batch !== null; batch = await reader.nextBatch()) {
-          for (let j = 0; j < batch.recordCount && firstBad === undefined; j++) {
-            firstBad = rowProblem(batch.keys, j * info.order, info.order, run.partition, partitions, vocabSize);
-          }
-        }
-        if (firstBad !== undefined) throw new QuernError('corrupt', `run file ${filePath}: ${firstBad}`);
-        records[info.order - 1] += info.recordCount;
-        countSums[info.order - 1] += info.countSum;
-        filesRead++;
-      } catch (error) {
-        if (!(error instanceof QuernError)) throw error;
-        filesBad++;
-        check.fail(`${error.message} — the run holds counts of ${origin}`);
-      } finally {
-        await reader?.close().catch(() => {});
+  // Per kind and order: records and Σ counts of the files read; files not read cleanly.
+  const records = { count: new Array<number>(orderMax).fill(0), continuation: new Array<number>(Math.max(0, orderMax - 1)).fill(0) };
+  const countSums = { count: new Array<number>(orderMax).fill(0), continuation: new Array<number>(Math.max(0, orderMax - 1)).fill(0) };
+  const unread = { count: 0, continuation: 0 };
+  for (const recorded of runs) {
+    const filePath = path.join(jobDir, path.normalize(recorded.run.file));
+    try {
+      if (!(await fsp.stat(filePath).catch(() => undefined))) {
+        unread[recorded.kind]++; // reported by the manifest check
+        continue;
       }
+      const info = await readRun(filePath, recorded, partitions, vocabSize);
+      records[recorded.kind][info.order - 1] += info.recordCount;
+      countSums[recorded.kind][info.order - 1] += info.countSum;
+    } catch (error) {
+      if (!(error instanceof QuernError)) throw error;
+      unread[recorded.kind]++;
+      check.fail(`${error.message} — the run holds ${recorded.kind === 'count' ? 'counts of ' : ''}${recorded.origin}`);
     }
   }
-  Object.assign(check.figures, { files: runCount, filesRead, filesBad, records, countSums });
-  const perOrder = records.map((r, n) => `order ${n + 1} ${num(r)} records Σ ${num(countSums[n])}`).join('; ');
-  let totals = '';
-  if (filesBad === 0 && runFilesMissing === 0) {
+  const filesRead = runs.length - unread.count - unread.continuation;
+  Object.assign(check.figures, {
+    files: runs.length, filesRead, records: records.count, countSums: countSums.count,
+    continuationRecords: records.continuation, continuationCountSums: countSums.continuation,
+  });
+  const perOrder = (kind: 'count' | 'continuation'): string => records[kind].map((r, n) => `order ${n + 1} ${num(r)} records Σ ${num(countSums[kind][n])}`).join('; ');
+
+  // Totals: the count's runs of each order sum to the occurrences counted while reading; the
+  // continuation runs of order m (every partition emitted) to the distinct n-grams of order m+1.
+  let countTotals = '';
+  if (unread.count > 0) countTotals = ` (totals not compared: ${plural(unread.count, 'file')} unreadable or missing)`;
+  else {
     const occurrences = sumOccurrences(job);
+    let same = true;
     for (let n = 1; n <= orderMax; n++) {
-      if (countSums[n - 1] !== occurrences[n - 1]) {
-        check.fail(`${path.join(jobDir, RUNS_DIR)}: the runs of order ${n} sum to ${num(countSums[n - 1])}, ${MANIFEST_FILE} records ${num(occurrences[n - 1])} occurrences counted`);
-      }
+      if (countSums.count[n - 1] === occurrences[n - 1]) continue;
+      same = false;
+      check.fail(`${path.join(jobDir, RUNS_DIR)}: the runs of order ${n} sum to ${num(countSums.count[n - 1])}, ${MANIFEST_FILE} records ${num(occurrences[n - 1])} occurrences counted`);
     }
-    totals = check.failed ? '' : ' (each = occurrences counted)';
-  } else {
-    totals = ` (totals not compared: ${plural(filesBad + runFilesMissing, 'file')} unreadable or missing)`;
+    if (same) countTotals = ' (each = occurrences counted)';
   }
-  return check.done(`${filesRead} of ${runCount} run files read to the end: ${perOrder}${totals}`);
+  let summary = `${filesRead} of ${runs.length} run files read to the end; counts: ${perOrder('count')}${countTotals}`;
+  const continuation = job.stages.continuation;
+  if (continuation.emitted.length > 0) {
+    let contTotals = '';
+    const distinct = job.stages.merge.distinct;
+    if (unread.continuation > 0) contTotals = ` (totals not compared: ${plural(unread.continuation, 'file')} unreadable or missing)`;
+    else if (continuation.emitted.length === partitions && distinct !== undefined) {
+      let same = true;
+      for (let m = 1; m < orderMax; m++) {
+        if (countSums.continuation[m - 1] === distinct[m]) continue;
+        same = false;
+        check.fail(`${path.join(jobDir, RUNS_DIR)}: the continuation runs of order ${m} sum to ${num(countSums.continuation[m - 1])}, the merge records ${num(distinct[m])} distinct n-grams of order ${m + 1}`);
+      }
+      if (same) contTotals = ' (each = distinct n-grams of the order above)';
+    }
+    summary += `; continuation: ${perOrder('continuation')}${contTotals}`;
+  }
+  return check.done(summary);
 }
 
 // ---- 4. the count store -------------------------------------------------------------------------
+
+/** How each key space is named in messages. */
+const SPACE_NAME: Record<KeySpace, string> = { raw: 'order', continuation: 'continuation counts of order' };
+
+/** Count-of-counts fields of a tally, with their names in messages. */
+const PAIR_FIELDS = [
+  ['raw', 'count-of-counts'],
+  ['contexts', 'context count-of-counts'],
+  ['bosRaw', 'count-of-counts of n-grams starting with <s>'],
+] as const;
 
 /** The first difference between two tallies of one order, in words; undefined when equal. */
 function tallyDifference(found: OrderTally, expected: OrderTally, foundName: string, expectedName: string): string | undefined {
   for (const field of ['distinct', 'total', 'contextCount'] as const) {
     if (found[field] !== expected[field]) return `${field} is ${num(found[field])} in ${foundName}, ${num(expected[field])} in ${expectedName}`;
   }
-  for (const field of ['raw', 'contexts'] as const) {
-    const a = new Map(found[field]);
-    const b = new Map(expected[field]);
+  for (const [field, what] of PAIR_FIELDS) {
+    const a = new Map(found[field] ?? []);
+    const b = new Map(expected[field] ?? []);
     const rs = [...new Set([...a.keys(), ...b.keys()])].sort((x, y) => x - y);
     for (const r of rs) {
-      if (a.get(r) !== b.get(r)) {
-        const what = field === 'raw' ? 'count-of-counts' : 'context count-of-counts';
-        return `${what} n_${r} (field ${field}) is ${num(a.get(r) ?? 0)} in ${foundName}, ${num(b.get(r) ?? 0)} in ${expectedName}`;
-      }
+      if (a.get(r) !== b.get(r)) return `${what} n_${r} (field ${field}) is ${num(a.get(r) ?? 0)} in ${foundName}, ${num(b.get(r) ?? 0)} in ${expectedName}`;
     }
   }
   return undefined;
@@ -470,148 +581,237 @@ function weightedSum(pairs: CountOfCounts): number {
   return pairs.reduce((s, [r, n]) => s + r * n, 0);
 }
 
-/** Reads stats.json; returns its tallies, or a problem in words. */
-async function readStats(file: string, orderMax: number): Promise<OrderTally[] | string> {
-  let value: { order?: unknown; tallies?: unknown };
+function isPairs(value: unknown): value is CountOfCounts {
+  return Array.isArray(value) && value.every((e) => Array.isArray(e) && e.length === 2 && isCount(e[0]) && isCount(e[1]));
+}
+
+/** The first malformed tally of a list that should hold orders 1..count, in words. */
+function talliesProblem(tallies: unknown, count: number, what: string): string | undefined {
+  if (!Array.isArray(tallies) || tallies.length !== count) return `does not hold ${what} of orders 1..${count}`;
+  for (let n = 1; n <= count; n++) {
+    const t = tallies[n - 1] as OrderTally | undefined;
+    if (t?.order !== n || !isCount(t.distinct) || !isCount(t.total) || !isCount(t.contextCount) || !isPairs(t.raw) || !isPairs(t.contexts)
+      || (t.bosRaw !== undefined && !isPairs(t.bosRaw))) {
+      return `the ${what} of order ${n} are malformed`;
+    }
+  }
+  return undefined;
+}
+
+/** Reads stats.json: its raw tallies, and its continuation tallies when that stage is done. */
+async function readStats(file: string, orderMax: number, continuationDone: boolean): Promise<{ tallies: OrderTally[]; continuation: OrderTally[] } | string> {
+  let value: { order?: unknown; tallies?: unknown; continuation?: unknown };
   try {
     value = JSON.parse(await fsp.readFile(file, 'utf8'));
   } catch (cause) {
     return (cause as NodeJS.ErrnoException).code === 'ENOENT' ? `${file} is missing (the merge is recorded as done)` : `${file} cannot be read: ${(cause as Error).message}`;
   }
-  const tallies = value?.tallies as OrderTally[] | undefined;
-  if (value?.order !== orderMax || !Array.isArray(tallies) || tallies.length !== orderMax) return `${file} does not hold tallies of orders 1..${orderMax}`;
-  for (let n = 1; n <= orderMax; n++) {
-    const t = tallies[n - 1];
-    const pairs = (p: unknown): boolean => Array.isArray(p) && p.every((e) => Array.isArray(e) && e.length === 2 && isCount(e[0]) && isCount(e[1]));
-    if (t?.order !== n || !isCount(t.distinct) || !isCount(t.total) || !isCount(t.contextCount) || !pairs(t.raw) || !pairs(t.contexts)) {
-      return `${file}: the tally of order ${n} is malformed`;
+  if (value?.order !== orderMax) return `${file} is not the stats of order ${orderMax}`;
+  const problem = talliesProblem(value.tallies, orderMax, 'tallies')
+    ?? (continuationDone ? talliesProblem(value.continuation, orderMax - 1, 'continuation tallies') : undefined);
+  if (problem !== undefined) return `${file} ${problem}`;
+  return { tallies: value.tallies as OrderTally[], continuation: continuationDone ? value.continuation as OrderTally[] : [] };
+}
+
+/** What the scan of the store's blocks adds up across partitions and orders. */
+interface StoreScan {
+  check: CheckRecorder;
+  partitions: number;
+  vocab: Vocabulary | undefined;
+  blocks: number;
+  /** Unigrams read (when the vocabulary could be read), and how many differ from its counts. */
+  unigrams: number;
+  unigramMismatches: number;
+}
+
+/**
+ * Reads every block of one order and key space of one partition: each decodes (checksum, first
+ * n-gram = key), follows the block before it, and holds rows of this partition within the
+ * vocabulary. Returns the tally recomputed from the rows, or a problem in words.
+ */
+function scanOrder(scan: StoreScan, store: PartitionStore, partition: number, order: number, space: KeySpace): OrderTally | string {
+  const { vocab } = scan;
+  const vocabSize = vocab?.words.length ?? 0;
+  const tally = new TallyBuilder(order);
+  const last = new Uint32Array(order);
+  const unigrams = order === 1 && space === 'raw' && vocab !== undefined;
+  let first = true;
+  try {
+    for (const block of store.blocks(order, undefined, space)) {
+      scan.blocks++;
+      if (!first && compareRows(block.keys, 0, last, 0, order) <= 0) {
+        return `block at [${Array.from(block.keys.subarray(0, order)).join(' ')}] does not follow the previous block's last n-gram`;
+      }
+      first = false;
+      for (let j = 0; j < block.recordCount; j++) {
+        const problem = rowProblem(block.keys, j * order, order, space, partition, scan.partitions, vocabSize);
+        if (problem !== undefined) return problem;
+        tally.add(block.keys, j * order, block.counts[j]);
+        if (!unigrams) continue;
+        scan.unigrams++;
+        const id = block.keys[j];
+        if (block.counts[j] !== vocab.counts[id]) {
+          scan.unigramMismatches++;
+          scan.check.fail(`count store partition ${partition}: unigram ${JSON.stringify(vocab.words[id])} (id ${id}) has count ${num(block.counts[j])}, ${VOCAB_FILE} says ${num(vocab.counts[id])}`);
+        }
+      }
+      last.set(block.keys.subarray((block.recordCount - 1) * order, block.recordCount * order));
     }
+  } catch (error) {
+    if (!isStoreDamage(error)) throw error;
+    return (error as Error).message;
   }
-  return tallies;
+  return tally.finish();
+}
+
+/**
+ * A corrupt block (QuernError) or an error LMDB itself raises on a damaged file (MDB_CORRUPTED,
+ * MDB_PAGE_NOTFOUND, …); anything else is a programmer error and passes on.
+ */
+function isStoreDamage(error: unknown): boolean {
+  return error instanceof QuernError || (error instanceof Error && /\bMDB_[A-Z_]+/.test(error.message));
+}
+
+/**
+ * Checks the key spaces of one partition that job.json records as merged; returns the tallies per
+ * order of each space that reads cleanly.
+ */
+async function scanPartition(
+  scan: StoreScan, jobDir: string, partition: number, orderMax: number, spaces: KeySpace[],
+): Promise<Partial<Record<KeySpace, OrderTally[]>>> {
+  const { check } = scan;
+  const dir = path.join(jobDir, partitionStoreDir(partition));
+  const where = `count store partition ${partition} (${dir})`;
+  const dataFile = path.join(dir, 'data.mdb');
+  if (!(await fsp.stat(dataFile).catch(() => undefined))) {
+    check.fail(`${where}: ${dataFile} is missing (${MANIFEST_FILE} records the partition as merged)`);
+    return {};
+  }
+  let store: PartitionStore;
+  try {
+    store = PartitionStore.open(dir, 'read');
+  } catch (error) {
+    if (!isStoreDamage(error)) throw error;
+    check.fail(`${where}: ${(error as Error).message}`);
+    return {};
+  }
+  const result: Partial<Record<KeySpace, OrderTally[]>> = {};
+  try {
+    for (const space of spaces) {
+      let progress: MergeProgress | undefined;
+      try {
+        progress = store.readProgress<MergeProgress>(space);
+      } catch (error) {
+        if (!isStoreDamage(error)) throw error;
+        check.fail(`${where}: ${(error as Error).message}`);
+      }
+      if (progress?.done !== true) {
+        const said = progress === undefined ? 'nothing was merged' : `order ${progress.order} with ${num(progress.records)} records merged, not done`;
+        check.fail(`${where}: its ${space} progress record says ${said}`);
+      }
+      const orders = space === 'raw' ? orderMax : orderMax - 1;
+      const tallies: OrderTally[] = [];
+      for (let order = 1; order <= orders; order++) {
+        const at = `${where}, ${SPACE_NAME[space]} ${order}`;
+        const found = scanOrder(scan, store, partition, order, space);
+        if (typeof found === 'string') {
+          check.fail(`${at}: ${found}`);
+          continue;
+        }
+        tallies.push(found);
+        const recorded = progress?.tallies?.[order - 1];
+        const difference = recorded === undefined ? undefined : tallyDifference(found, recorded, 'the blocks', 'its progress record');
+        if (difference !== undefined) check.fail(`${at}: ${difference}`);
+      }
+      if (tallies.length === orders) result[space] = tallies;
+    }
+    return result;
+  } finally {
+    await store.close();
+  }
+}
+
+/** The valid partitions of a list, sorted. */
+function validPartitions(list: number[], partitions: number): number[] {
+  return [...new Set(list)].filter((p) => Number.isInteger(p) && p >= 0 && p < partitions).sort((a, b) => a - b);
 }
 
 async function checkStore(jobDir: string, job: JobManifest, vocab: Vocabulary | undefined): Promise<VerifyCheck> {
-  const merge = job.stages.merge;
+  const { merge, continuation } = job.stages;
   const { order: orderMax, partitions } = job.config;
-  const done = merge.status === 'done';
-  const toCheck = done ? Array.from({ length: partitions }, (_, p) => p) : [...new Set(merge.partitionsDone)].filter((p) => Number.isInteger(p) && p >= 0 && p < partitions).sort((a, b) => a - b);
+  const all = Array.from({ length: partitions }, (_, p) => p);
+  const mergeDone = merge.status === 'done';
+  const continuationDone = continuation.status === 'done' && orderMax >= 2;
+  const rawParts = new Set(mergeDone ? all : validPartitions(merge.partitionsDone, partitions));
+  const contParts = new Set(orderMax < 2 ? [] : continuationDone ? all : validPartitions(continuation.partitionsDone, partitions));
+  const toCheck = all.filter((p) => rawParts.has(p) || contParts.has(p));
   if (toCheck.length === 0) return skipped('store', 'merge pending: no partition merged yet');
   const check = new CheckRecorder('store');
-  const vocabSize = vocab?.words.length ?? 0;
-  const byPartition: OrderTally[][] = [];
-  let blocks = 0;
+  const scan: StoreScan = { check, partitions, vocab, blocks: 0, unigrams: 0, unigramMismatches: 0 };
+  const raw: OrderTally[][] = [];
+  const cont: OrderTally[][] = [];
   let partitionsBad = 0;
-  let unigramTypes = 0;
-  let unigramMismatches = 0;
   for (const p of toCheck) {
-    const dir = path.join(jobDir, partitionStoreDir(p));
-    const dataFile = path.join(dir, 'data.mdb');
-    if (!(await fsp.stat(dataFile).catch(() => undefined))) {
-      check.fail(`count store partition ${p}: ${dataFile} is missing (${MANIFEST_FILE} records the partition as merged)`);
-      partitionsBad++;
-      continue;
-    }
-    const store = PartitionStore.open(dir, 'read');
     const failuresBefore = check.problems.length + check.problemsOmitted;
-    try {
-      let progress: MergeProgress | undefined;
-      try {
-        progress = store.readProgress<MergeProgress>();
-      } catch (error) {
-        if (!(error instanceof QuernError)) throw error;
-        check.fail(`count store partition ${p}: ${error.message}`);
-      }
-      if (progress?.done !== true) {
-        check.fail(`count store partition ${p} (${dir}): its progress record says ${progress === undefined ? 'nothing was merged' : `order ${progress.order} with ${num(progress.records)} records merged, not done`}`);
-      }
-      const tallies: OrderTally[] = [];
-      for (let order = 1; order <= orderMax; order++) {
-        const tally = new TallyBuilder(order);
-        const last = new Uint32Array(order);
-        let first = true;
-        let problem: string | undefined;
-        try {
-          for (const block of store.blocks(order)) {
-            blocks++;
-            if (!first && compareRows(block.keys, 0, last, 0, order) <= 0) {
-              problem = `block at [${Array.from(block.keys.subarray(0, order)).join(' ')}] does not follow the previous block's last n-gram`;
-              break;
-            }
-            first = false;
-            for (let j = 0; j < block.recordCount && problem === undefined; j++) {
-              problem = rowProblem(block.keys, j * order, order, p, partitions, vocabSize);
-              if (problem !== undefined) break;
-              tally.add(block.keys, j * order, block.counts[j]);
-              if (order === 1 && vocab !== undefined) {
-                unigramTypes++;
-                const id = block.keys[j];
-                if (block.counts[j] !== vocab.counts[id]) {
-                  unigramMismatches++;
-                  check.fail(`count store partition ${p}: unigram ${JSON.stringify(vocab.words[id])} (id ${id}) has count ${num(block.counts[j])}, ${VOCAB_FILE} says ${num(vocab.counts[id])}`);
-                }
-              }
-            }
-            if (problem !== undefined) break;
-            last.set(block.keys.subarray((block.recordCount - 1) * order, block.recordCount * order));
-          }
-        } catch (error) {
-          if (!(error instanceof QuernError)) throw error;
-          problem = error.message;
-        }
-        if (problem !== undefined) {
-          check.fail(`count store partition ${p} (${dir}), order ${order}: ${problem}`);
-          continue;
-        }
-        const found = tally.finish();
-        tallies.push(found);
-        const recorded = progress?.tallies?.[order - 1];
-        if (recorded !== undefined) {
-          const difference = tallyDifference(found, recorded, 'the blocks', 'its progress record');
-          if (difference !== undefined) check.fail(`count store partition ${p} (${dir}), order ${order}: ${difference}`);
-        }
-      }
-      if (tallies.length === orderMax) byPartition.push(tallies);
-    } finally {
-      await store.close();
-    }
+    const spaces: KeySpace[] = [...(rawParts.has(p) ? ['raw' as const] : []), ...(contParts.has(p) ? ['continuation' as const] : [])];
+    const tallies = await scanPartition(scan, jobDir, p, orderMax, spaces);
+    if (tallies.raw) raw.push(tallies.raw);
+    if (tallies.continuation) cont.push(tallies.continuation);
     if (check.problems.length + check.problemsOmitted > failuresBefore) partitionsBad++;
   }
-  Object.assign(check.figures, { partitions: toCheck.length, partitionsBad, blocks });
-  const head = `${toCheck.length} of ${partitions} partitions, ${num(blocks)} blocks decoded`;
-  if (!done) return check.done(`${head} (merge pending: totals not compared)`);
+  Object.assign(check.figures, { partitions: toCheck.length, partitionsBad, blocks: scan.blocks });
+  const head = `${toCheck.length} of ${partitions} partitions (${rawParts.size} with counts, ${contParts.size} with continuation counts), ${num(scan.blocks)} blocks decoded`;
+  if (!mergeDone) return check.done(`${head} (merge pending: totals not compared)`);
   if (partitionsBad > 0) return check.done(`${head}, ${plural(partitionsBad, 'partition')} damaged (totals not compared)`);
 
   // Totals of the whole store against stats.json and what reading counted.
-  const tallies = Array.from({ length: orderMax }, (_, n) => sumTallies(n + 1, byPartition.map((t) => t[n])));
+  const tallies = Array.from({ length: orderMax }, (_, n) => sumTallies(n + 1, raw.map((t) => t[n])));
   const statsFile = path.join(jobDir, STATS_FILE);
-  const stats = await readStats(statsFile, orderMax);
+  const stats = await readStats(statsFile, orderMax, continuationDone);
   if (typeof stats === 'string') check.fail(stats);
   const occurrences = sumOccurrences(job);
   const tokens = sum(job.stages.count.chunks.map((c) => c.tokens));
-  const sentences = sum((job.stages.vocab.reads ?? []).map((r) => r.sentences));
+  const sentences = sum((job.stages.vocab.reads ?? []).map((r) => r?.sentences ?? 0));
   for (let n = 1; n <= orderMax; n++) {
     const t = tallies[n - 1];
     if (weightedSum(t.raw) !== t.total) check.fail(`count store order ${n}: Σ r·n_r ${num(weightedSum(t.raw))} ≠ total count ${num(t.total)}`);
     if (t.total !== occurrences[n - 1]) check.fail(`count store order ${n}: Σ counts ${num(t.total)} ≠ ${num(occurrences[n - 1])} occurrences counted while reading (${MANIFEST_FILE})`);
     if (merge.distinct?.[n - 1] !== t.distinct) check.fail(`${path.join(jobDir, MANIFEST_FILE)}: merge records ${merge.distinct?.[n - 1]} distinct n-grams of order ${n}, the store holds ${num(t.distinct)}`);
-    if (typeof stats !== 'string') {
-      const s = stats[n - 1];
-      if (weightedSum(s.raw) !== s.total) check.fail(`${statsFile} order ${n}: Σ r·n_r ${num(weightedSum(s.raw))} ≠ total ${num(s.total)}`);
-      const difference = tallyDifference(s, t, STATS_FILE, 'the store');
-      if (difference !== undefined) check.fail(`${statsFile} order ${n}: ${difference}`);
-    }
+    if (typeof stats === 'string') continue;
+    const s = stats.tallies[n - 1];
+    if (weightedSum(s.raw) !== s.total) check.fail(`${statsFile} order ${n}: Σ r·n_r ${num(weightedSum(s.raw))} ≠ total ${num(s.total)}`);
+    const difference = tallyDifference(s, t, STATS_FILE, 'the store');
+    if (difference !== undefined) check.fail(`${statsFile} order ${n}: ${difference}`);
   }
   const unigramTotal = tallies[0].total;
   if (unigramTotal !== tokens + sentences) check.fail(`count store order 1: Σ counts ${num(unigramTotal)} ≠ ${num(tokens)} tokens + ${num(sentences)} sentences (${MANIFEST_FILE})`);
   if (vocab !== undefined) {
     const seenTypes = vocab.counts.filter((c, id) => id !== BOS_ID && c > 0).length;
-    if (unigramMismatches === 0 && unigramTypes !== seenTypes) check.fail(`count store order 1: ${num(unigramTypes)} unigrams stored, ${VOCAB_FILE} has ${num(seenTypes)} types with a count`);
+    if (scan.unigramMismatches === 0 && scan.unigrams !== seenTypes) check.fail(`count store order 1: ${num(scan.unigrams)} unigrams stored, ${VOCAB_FILE} has ${num(seenTypes)} types with a count`);
   }
   Object.assign(check.figures, { distinct: tallies.map((t) => t.distinct), total: tallies.map((t) => t.total), tokens, sentences });
-  const perOrder = tallies.map((t) => `order ${t.order} ${num(t.distinct)} distinct Σ ${num(t.total)}`).join('; ');
-  if (check.failed) return check.done(`${head}: ${perOrder} (tokens ${num(tokens)}, sentences ${num(sentences)})`);
-  return check.done(`${head}: ${perOrder}; Σ r·n_r = Σ counts = occurrences counted at each order; `
+  let summary = `${head}: ${tallies.map((t) => `order ${t.order} ${num(t.distinct)} distinct Σ ${num(t.total)}`).join('; ')}`;
+
+  // Continuation counts: N1+(• x) over the x of order m adds up to the distinct n-grams of order m+1.
+  if (continuationDone) {
+    const contTallies = Array.from({ length: orderMax - 1 }, (_, m) => sumTallies(m + 1, cont.map((t) => t[m])));
+    for (let m = 1; m < orderMax; m++) {
+      const t = contTallies[m - 1];
+      const where = `count store continuation counts of order ${m}`;
+      if (weightedSum(t.raw) !== t.total) check.fail(`${where}: Σ r·n_r ${num(weightedSum(t.raw))} ≠ Σ N1+ ${num(t.total)}`);
+      if (t.total !== tallies[m].distinct) check.fail(`${where}: Σ N1+(• x) ${num(t.total)} ≠ ${num(tallies[m].distinct)} distinct n-grams of order ${m + 1}`);
+      if (t.distinct > tallies[m - 1].distinct) check.fail(`${where}: ${num(t.distinct)} n-grams, more than the ${num(tallies[m - 1].distinct)} n-grams of order ${m}`);
+      if (typeof stats === 'string') continue;
+      const difference = tallyDifference(stats.continuation[m - 1], t, STATS_FILE, 'the store');
+      if (difference !== undefined) check.fail(`${statsFile} continuation order ${m}: ${difference}`);
+    }
+    Object.assign(check.figures, { continuationDistinct: contTallies.map((t) => t.distinct), continuationTotal: contTallies.map((t) => t.total) });
+    summary += `; continuation ${contTallies.map((t) => `order ${t.order} ${num(t.distinct)} distinct Σ N1+ ${num(t.total)}`).join('; ')}`;
+  }
+  if (check.failed) return check.done(`${summary} (tokens ${num(tokens)}, sentences ${num(sentences)})`);
+  return check.done(`${summary}. Σ r·n_r = Σ counts = occurrences counted at each order; `
     + `order 1 Σ = ${num(tokens)} tokens + ${num(sentences)} sentences${vocab ? ` and each unigram = its ${VOCAB_FILE} count` : ''}; `
+    + `${continuationDone ? 'Σ N1+ at order m = distinct n-grams of order m+1; ' : 'continuation counts pending; '}`
     + `progress records and ${STATS_FILE} agree with the blocks`);
 }
 

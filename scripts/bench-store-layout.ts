@@ -11,7 +11,7 @@ import * as os from 'node:os';
 import * as path from 'node:path';
 import { parseArgs } from 'node:util';
 import { isMainThread, parentPort, Worker, workerData } from 'node:worker_threads';
-import { open } from 'lmdb';
+import { open, type Database } from 'lmdb';
 import { encodeBlockValue } from '../src/count/block-codec.ts';
 import { ngramKey } from '../src/merge/store.ts';
 import { STORE_BLOCK_RECORDS, STORE_MAP_BYTES, STORE_TXN_BLOCKS } from '../src/limits.ts';
@@ -43,7 +43,7 @@ function* partitionBlocks(partition: number, ngrams: number): Generator<[Buffer,
 const storageOptions = { keyEncoding: 'binary', encoding: 'binary', compression: false, mapSize: STORE_MAP_BYTES, noSync: false, overlappingSync: false } as const;
 
 /** Writes one partition's blocks into `db` in transactions of STORE_TXN_BLOCKS blocks. */
-function writePartition(db: ReturnType<typeof open<Buffer, Buffer>>, partition: number, ngrams: number): void {
+function writePartition(db: Database<Buffer, Buffer>, partition: number, ngrams: number): void {
   let batch: Array<[Buffer, Buffer]> = [];
   const commit = (): void => {
     db.transactionSync(() => { for (const [k, v] of batch) db.putSync(k, v, { append: true }); });

@@ -127,6 +127,12 @@ export const STORE_MAP_BYTES = 2 ** 40;
 /** N-grams `quern ngrams --by-count` sorts in memory when no --limit is given (≈ 40 B each). */
 export const LISTING_SORT_ENTRIES_MAX = 20_000_000;
 
+// ---- Verify --------------------------------------------------------------------------------
+
+/** Problems `quern verify` lists per check; the rest are counted. Twenty name the pattern of a
+ *  damage without burying the summary. */
+export const VERIFY_PROBLEMS_MAX = 20;
+
 // ---- Assertions on relations between limits -------------------------------------------------
 assert(CHUNK_BYTES_TARGET >= READ_BLOCK_BYTES, 'a chunk holds at least one read block');
 assert(LINE_BYTES_MAX >= READ_BLOCK_BYTES, 'a line may span read blocks');

@@ -20,6 +20,7 @@
  * are skipped and the report lists the pending stages. Memory: one run-file block or one store
  * block at a time, the vocabulary's counts, and count-of-counts tallies (small).
  */
+import { VERIFY_PROBLEMS_MAX } from '../limits.ts';
 import { createHash } from 'node:crypto';
 import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
@@ -46,7 +47,6 @@ import {
  * Problems kept per check: enough to see a pattern, bounded however damaged the job is (the rest
  * are counted in `problemsOmitted`). Belongs in src/limits.ts with the other limits.
  */
-export const VERIFY_PROBLEMS_MAX = 20;
 
 /** What to verify besides the job directory itself. */
 export interface VerifyOptions {

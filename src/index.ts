@@ -1,0 +1,18 @@
+/**
+ * Quern as a library: count a corpus into a job directory, read its counts, report on them.
+ * The CLI (`src/cli/`) is a thin layer over these functions.
+ */
+export { runCount, type CountRequest, type CountSummary } from './job/pipeline.ts';
+export type { JobConfig, JobManifest } from './job/manifest.ts';
+export type { ProgressSink } from './job/context.ts';
+export { listNgrams, type ListedNgram, type ListOptions } from './count/listing.ts';
+export { PartitionStore, partitionStoreDir } from './merge/store.ts';
+export { storeDigest } from './merge/digest.ts';
+export { readStatsFile, type StatsFile } from './merge/stage.ts';
+export { loadStatsInput } from './stats/job-stats.ts';
+export { buildReport, type Report } from './stats/report.ts';
+export { renderText } from './stats/render-text.ts';
+export { renderHtml } from './stats/render-html.ts';
+export { verifyJob, verifyFailure, type VerifyReport } from './job/verify.ts';
+export { QuernError, type QuernErrorCode } from './errors.ts';
+export type { NormalizeOptions, InputFile, Chunk } from './corpus/types.ts';

@@ -14,20 +14,11 @@ import {
   writeRunFile,
   type RunMeta,
 } from '../../src/count/run-file.ts';
+import { seededRandom } from '../support/seeded.ts';
 
 // ---- Helpers -----------------------------------------------------------------------------------
 
-/** mulberry32: a small seeded PRNG, uniform in [0, 1). */
-function prng(seed: number): () => number {
-  let s = seed >>> 0;
-  return () => {
-    s = (s + 0x6d2b79f5) >>> 0;
-    let t = s;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+const prng = seededRandom;
 
 interface Run {
   keys: Uint32Array;

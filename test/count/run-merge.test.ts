@@ -7,18 +7,9 @@ import { nodeFs } from '../../src/job/fsio.ts';
 import { MERGE_BATCH_RECORDS, RUN_BLOCK_RECORDS_MAX } from '../../src/limits.ts';
 import { RunReader, writeRunFile, type RunBatch } from '../../src/count/run-file.ts';
 import { mergeRuns, type BatchSource } from '../../src/count/run-merge.ts';
+import { seededRandom } from '../support/seeded.ts';
 
-/** mulberry32: a small seeded PRNG, uniform in [0, 1). */
-function prng(seed: number): () => number {
-  let s = seed >>> 0;
-  return () => {
-    s = (s + 0x6d2b79f5) >>> 0;
-    let t = s;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+const prng = seededRandom;
 
 /** A run as a map from "id,id,…" to count, plus its sorted rows for writing. */
 interface Run {

@@ -62,7 +62,9 @@ function progressReporter(): (bytesRead: number) => void {
 
 // ---- vocabulary phase ----------------------------------------------------------------------
 
-let wordCounts = new Map<string, number>();
+// Word → slot in `slotCounts`: an existing word costs one Map lookup, not a get and a set.
+let wordSlots = new Map<string, number>();
+let slotCounts: number[] = [];
 let unkSeen = 0;
 
 async function vocabChunk(chunk: Chunk): Promise<void> {
@@ -71,8 +73,13 @@ async function vocabChunk(chunk: Chunk): Promise<void> {
     const n = tokenize(sentence, tokens);
     for (let i = 0; i < n; i++) {
       const word = tokens[i];
-      if (word === UNK) unkSeen++;
-      else wordCounts.set(word, (wordCounts.get(word) ?? 0) + 1);
+      const slot = wordSlots.get(word);
+      if (slot !== undefined) slotCounts[slot]++;
+      else if (word === UNK) unkSeen++;
+      else {
+        wordSlots.set(word, slotCounts.length);
+        slotCounts.push(1);
+      }
     }
     chunkTokens += n;
     progressTokens += n;
@@ -187,7 +194,8 @@ async function emitTask(partition: number): Promise<void> {
 function startPhase(next: WorkerInit): void {
   init = next;
   tokenize = makeTokenizer(init.normalize);
-  wordCounts = new Map();
+  wordSlots = new Map();
+  slotCounts = [];
   unkSeen = 0;
   wordIds = undefined;
   counters = undefined;
@@ -200,12 +208,13 @@ async function handle(message: ToWorker): Promise<void> {
   }
   if (message.type === 'finish') {
     if (init.phase === 'vocab') {
-      post({ type: 'finished', words: [...wordCounts.keys()], counts: [...wordCounts.values()], unkSeen });
+      post({ type: 'finished', words: [...wordSlots.keys()], counts: slotCounts, unkSeen });
     } else {
       post({ type: 'finished' });
     }
     // Let the phase's memory go before the next one.
-    wordCounts = new Map();
+    wordSlots = new Map();
+    slotCounts = [];
     wordIds = undefined;
     counters = undefined;
     return;

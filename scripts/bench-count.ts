@@ -1,0 +1,511 @@
+/**
+ * Benchmark of `quern count` against the plain shell pipeline that counts the same n-grams,
+ * measured side by side in one run, on seeded synthetic corpora of two shapes (a few large shards
+ * and many small ones, as ripgrep's benchmark suite does).
+ *
+ *   npm run bench:count -- [--bytes 200MB] [--shape few-large|many-small|both] [--orders 3,5]
+ *                          [--memory 2GiB] [--workers 2] [--corpus-dir DIR] [--seed 1] [--keep]
+ *
+ * --bytes       corpus size, all shards together (default 200MB; 1GB for the large variant)
+ * --shape       few-large (2 shards), many-small (200 shards) or both (default), one after the other
+ * --orders      highest orders to count, each a separate pair of runs (default 3,5)
+ * --memory      quern's --memory and the pipeline's `sort -S` (default 2GiB)
+ * --workers     quern's --workers and the pipeline's `sort --parallel` (default 2)
+ * --corpus-dir  where the corpus is generated or reused (default bench-out/corpus-<bytes>-<shape>;
+ *               only with a single shape). A corpus whose .gen-corpus.json matches the options is
+ *               reused; otherwise it is regenerated there with scripts/gen-corpus.ts.
+ * --seed        corpus seed (default 1)
+ * --keep        keep quern's job directories and the pipeline's `uniq -c` output under
+ *               bench-out/work/ (by default each is removed once its counts are checked; the corpus
+ *               is always kept, so the next run can reuse it)
+ *
+ * For each shape and order, both tools run under GNU time (wall time and peak RSS, see
+ * scripts/lib/rss.ts):
+ *   quern     node bin/quern.js count SHARDS --job FRESH_DIR --order N --workers K --memory M --quiet --json
+ *   pipeline  LC_ALL=C awk '<emit n-grams>' SHARDS | LC_ALL=C sort -S M --parallel=K -T TMP | LC_ALL=C uniq -c > OUT
+ * The awk program is the one of test/support/reference-count.ts, so the pipeline follows the
+ * project's conventions exactly. The benchmark then checks that both counted the same thing — the
+ * distinct n-grams and the occurrences of every order — and stops with exit status 1 if not.
+ *
+ * Throughput is the corpus's tokens (words, as quern reports them) over the wall time measured by
+ * GNU time, start-up included, for both tools. The pipeline's peak RSS is that of its largest
+ * process (sort), as GNU time reports for a command's descendants; quern's is the whole process,
+ * worker threads included. Quern's peak RSS is compared with the bound DEVELOPERS.md states,
+ * `rssBoundBytes(--memory, workers)`; a run above it ends the benchmark with exit status 1 after
+ * the table is printed. The targets (≥ 8× the pipeline's throughput at order 3, ≥ 5× at order 5)
+ * are printed beside the ratios but do not change the exit status.
+ *
+ * Results go to stdout as a table and to bench-out/bench-count-<timestamp>.json.
+ */
+import bytesIec from 'bytes-iec';
+import { spawnSync } from 'node:child_process';
+import { createReadStream, existsSync, mkdirSync, readFileSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
+import * as os from 'node:os';
+import { join, relative, resolve } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { parseArgs } from 'node:util';
+import { rssBoundBytes } from '../src/count/stage.ts';
+import { PROCESS_OVERHEAD_BYTES, WORKER_OVERHEAD_BYTES, ORDER_MAX } from '../src/limits.ts';
+import { AWK_PROGRAM } from '../test/support/reference-count.ts';
+import { tallyUniqCounts, type OrderTally } from './lib/bench-uniq-tally.ts';
+import { measureCommand, type Measurement } from './lib/rss.ts';
+import { SHAPE_SHARDS, shardName, type CorpusShape } from './lib/synthetic.ts';
+
+const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
+const BENCH_OUT = join(REPO, 'bench-out');
+const WORK_DIR = join(BENCH_OUT, 'work');
+const QUERN_BIN = join(REPO, 'bin/quern.js');
+const GEN_CORPUS = join(REPO, 'scripts/gen-corpus.ts');
+const CORPUS_MANIFEST = '.gen-corpus.json';
+/** Vocabulary size gen-corpus uses by default; the reuse check compares against it. */
+const CORPUS_VOCABULARY_TYPES = 200_000;
+
+/** Throughput targets of the issue: quern's tokens/s over the pipeline's, by order. */
+const TARGET_RATIOS: Readonly<Record<number, number>> = { 3: 8, 5: 5 };
+
+const SHAPES: readonly CorpusShape[] = ['few-large', 'many-small'];
+
+/** The pipeline; "$@" are the shards. pipefail so that a failing awk or sort fails the run. */
+const PIPELINE_SCRIPT =
+  'set -o pipefail; LC_ALL=C awk -v order="$BENCH_ORDER" -v lowercase=0 "$BENCH_AWK" "$@" ' +
+  '| LC_ALL=C sort -S "$BENCH_SORT_BYTES"b --parallel="$BENCH_SORT_PARALLEL" -T "$BENCH_SORT_TMP" ' +
+  '| LC_ALL=C uniq -c > "$BENCH_OUT"';
+
+interface Options {
+  bytes: number;
+  shapes: CorpusShape[];
+  orders: number[];
+  memoryBytes: number;
+  workers: number;
+  corpusDir: string | null;
+  seed: number;
+  keep: boolean;
+}
+
+interface CorpusManifest {
+  seed: number;
+  vocabularyTypes: number;
+  shape: string | null;
+  shardCount: number;
+  bytes: number;
+  sentences: number;
+  tokens: number;
+  shards: Array<{ name: string; bytes: number }>;
+}
+
+interface Corpus {
+  shape: CorpusShape;
+  dir: string;
+  files: string[];
+  manifest: CorpusManifest;
+  generated: boolean;
+}
+
+interface ToolResult {
+  tool: 'quern' | 'pipeline';
+  wallMs: number;
+  tokensPerSecond: number;
+  rssBytesMax: number;
+  distinct: number[];
+  occurrences: number[];
+  loadAverage1m: number;
+}
+
+interface QuernResult extends ToolResult {
+  tool: 'quern';
+  /** Quern's own summary fields of interest. */
+  selfElapsedMs: number;
+  selfTokensPerSecond: number;
+  spills: number;
+  runFiles: number;
+  runBytes: number;
+  storeBytes: number | null;
+  /** Quern's time per stage (vocabulary pass, n-gram pass, merge), as it reports it. */
+  stageMs: Record<string, number> | null;
+  workers: number;
+  rssBoundBytes: number;
+  withinBound: boolean;
+  overheadAboveMemoryBytes: number;
+}
+
+interface PairResult {
+  shape: CorpusShape;
+  order: number;
+  tokens: number;
+  quern: QuernResult;
+  pipeline: ToolResult;
+  /** quern tokens/s over pipeline tokens/s. */
+  ratio: number;
+  targetRatio: number | null;
+  targetMet: boolean | null;
+}
+
+function fail(message: string): never {
+  process.stderr.write(`bench-count: ${message}\n`);
+  process.exit(2);
+}
+
+function parseOptions(argv: string[]): Options {
+  let parsed;
+  try {
+    parsed = parseArgs({
+      args: argv,
+      strict: true,
+      options: {
+        bytes: { type: 'string', default: '200MB' },
+        shape: { type: 'string', default: 'both' },
+        orders: { type: 'string', default: '3,5' },
+        memory: { type: 'string', default: '2GiB' },
+        workers: { type: 'string', default: '2' },
+        'corpus-dir': { type: 'string' },
+        seed: { type: 'string', default: '1' },
+        keep: { type: 'boolean', default: false },
+      },
+    });
+  } catch (error) {
+    fail((error as Error).message);
+  }
+  const v = parsed.values;
+  const bytes = bytesIec.parse(v.bytes);
+  if (bytes === null || !Number.isFinite(bytes) || bytes < 1) fail(`--bytes: not a size: ${v.bytes}`);
+  let shapes: CorpusShape[];
+  if (v.shape === 'both') shapes = [...SHAPES];
+  else if ((SHAPES as readonly string[]).includes(v.shape)) shapes = [v.shape as CorpusShape];
+  else fail(`--shape must be few-large, many-small or both, got ${v.shape}`);
+  const orders = v.orders.split(',').map((text) => Number(text.trim()));
+  for (const order of orders) {
+    if (!Number.isInteger(order) || order < 1 || order > ORDER_MAX) fail(`--orders: each order must be an integer in [1, ${ORDER_MAX}], got ${v.orders}`);
+  }
+  if (new Set(orders).size !== orders.length) fail(`--orders: an order is listed twice: ${v.orders}`);
+  const memoryBytes = bytesIec.parse(v.memory);
+  if (memoryBytes === null || !Number.isFinite(memoryBytes) || memoryBytes < 1 << 20) fail(`--memory: a size of at least 1MiB, got ${v.memory}`);
+  const workers = Number(v.workers);
+  if (!Number.isInteger(workers) || workers < 1 || workers > 256) fail(`--workers must be an integer in [1, 256], got ${v.workers}`);
+  const seed = Number(v.seed);
+  if (!Number.isSafeInteger(seed)) fail(`--seed must be an integer, got ${v.seed}`);
+  const corpusDir = v['corpus-dir'] === undefined ? null : resolve(v['corpus-dir']);
+  if (corpusDir !== null && shapes.length > 1) fail('--corpus-dir needs a single --shape (each shape has its own corpus)');
+  return { bytes: Math.floor(bytes), shapes, orders, memoryBytes: Math.floor(memoryBytes), workers, corpusDir, seed, keep: v.keep === true };
+}
+
+// ---- Corpus ----------------------------------------------------------------------------------
+
+function readCorpusManifest(dir: string): CorpusManifest | null {
+  try {
+    return JSON.parse(readFileSync(join(dir, CORPUS_MANIFEST), 'utf8')) as CorpusManifest;
+  } catch {
+    return null;
+  }
+}
+
+function corpusMatches(manifest: CorpusManifest | null, dir: string, options: Options, shape: CorpusShape): manifest is CorpusManifest {
+  if (manifest === null) return false;
+  const shardCount = SHAPE_SHARDS[shape];
+  if (manifest.seed !== options.seed || manifest.bytes !== options.bytes || manifest.shardCount !== shardCount) return false;
+  if (manifest.vocabularyTypes !== CORPUS_VOCABULARY_TYPES || manifest.shards.length !== shardCount) return false;
+  // The shards must still be there, whole.
+  return manifest.shards.every((shard, index) => {
+    if (shard.name !== shardName(index)) return false;
+    try {
+      return statSync(join(dir, shard.name)).size === shard.bytes;
+    } catch {
+      return false;
+    }
+  });
+}
+
+/** Reuses the corpus in `dir` when its manifest matches the options, else generates it there. */
+function prepareCorpus(options: Options, shape: CorpusShape): Corpus {
+  const dir = options.corpusDir ?? join(BENCH_OUT, `corpus-${bytesIec.format(options.bytes)}-${shape}`);
+  let generated = false;
+  if (!corpusMatches(readCorpusManifest(dir), dir, options, shape)) {
+    log(`generating ${bytesIec.format(options.bytes)} corpus, shape ${shape}, seed ${options.seed} in ${relative(REPO, dir) || dir} …`);
+    const result = spawnSync(
+      process.execPath,
+      ['--import', 'tsx', GEN_CORPUS, '--bytes', String(options.bytes), '--out', dir, '--shape', shape, '--seed', String(options.seed), '--overwrite'],
+      { cwd: REPO, stdio: ['ignore', 'pipe', 'inherit'] },
+    );
+    if (result.status !== 0) fail(`gen-corpus failed (exit ${result.status ?? result.signal})`);
+    log(`  ${result.stdout.toString('utf8').trim()}`);
+    generated = true;
+  }
+  const manifest = readCorpusManifest(dir);
+  if (!corpusMatches(manifest, dir, options, shape)) fail(`corpus in ${dir} does not match the options after generating it`);
+  return { shape, dir, files: manifest.shards.map((shard) => join(dir, shard.name)), manifest, generated };
+}
+
+/** Reads every shard once, so neither tool pays for a cold page cache. */
+async function warmPageCache(files: readonly string[]): Promise<void> {
+  for (const file of files) {
+    for await (const _ of createReadStream(file, { highWaterMark: 1 << 20 })) {
+      // Reading is the point.
+    }
+  }
+}
+
+// ---- Runs ------------------------------------------------------------------------------------
+
+function checkMeasured(what: string, measured: Measurement): void {
+  if (measured.exitCode === 0) return;
+  const how = measured.signal !== null ? `signal ${measured.signal}` : `exit ${measured.exitCode}`;
+  throw new Error(`${what} failed (${how}): ${measured.stderr.trim().slice(-2000)}`);
+}
+
+async function runQuern(corpus: Corpus, order: number, options: Options): Promise<QuernResult> {
+  const jobDir = join(WORK_DIR, `${corpus.shape}-order${order}-quern-job`);
+  rmSync(jobDir, { recursive: true, force: true }); // a fresh job every time
+  const args = [
+    QUERN_BIN, 'count', ...corpus.files, '--job', jobDir, '--order', String(order),
+    '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet', '--json',
+  ];
+  const loadAverage1m = os.loadavg()[0];
+  const measured = await measureCommand(process.execPath, args, { cwd: REPO });
+  checkMeasured(`quern count (${corpus.shape}, order ${order})`, measured);
+  const summary = JSON.parse(measured.stdout) as {
+    tokens: number; distinct: number[]; occurrences: number[]; spills: number; runFiles: number; runBytes: number;
+    elapsedMs: number; tokensPerSecond: number; memoryBytes: number; workers: number;
+    storeBytes?: number; stageMs?: Record<string, number>;
+  };
+  if (!options.keep) rmSync(jobDir, { recursive: true, force: true });
+  if (summary.tokens !== corpus.manifest.tokens) {
+    throw new Error(`quern counted ${summary.tokens} tokens, the corpus manifest says ${corpus.manifest.tokens}`);
+  }
+  if (summary.memoryBytes !== options.memoryBytes) throw new Error(`quern ran with --memory ${summary.memoryBytes}, asked ${options.memoryBytes}`);
+  const bound = rssBoundBytes(summary.memoryBytes, summary.workers);
+  return {
+    tool: 'quern',
+    wallMs: measured.elapsedMs,
+    tokensPerSecond: perSecond(corpus.manifest.tokens, measured.elapsedMs),
+    rssBytesMax: measured.rssBytesMax,
+    distinct: summary.distinct,
+    occurrences: summary.occurrences,
+    loadAverage1m,
+    selfElapsedMs: summary.elapsedMs,
+    selfTokensPerSecond: summary.tokensPerSecond,
+    spills: summary.spills,
+    runFiles: summary.runFiles,
+    runBytes: summary.runBytes,
+    storeBytes: summary.storeBytes ?? null,
+    stageMs: summary.stageMs ?? null,
+    workers: summary.workers,
+    rssBoundBytes: bound,
+    withinBound: measured.rssBytesMax <= bound,
+    overheadAboveMemoryBytes: measured.rssBytesMax - summary.memoryBytes,
+  };
+}
+
+async function runPipeline(corpus: Corpus, order: number, options: Options): Promise<ToolResult> {
+  const outPath = join(WORK_DIR, `${corpus.shape}-order${order}-pipeline.uniq-c.txt`);
+  const sortTmp = join(WORK_DIR, 'sort-tmp');
+  rmSync(outPath, { force: true });
+  rmSync(sortTmp, { recursive: true, force: true });
+  mkdirSync(sortTmp, { recursive: true });
+  const env = {
+    ...process.env,
+    BENCH_ORDER: String(order),
+    BENCH_AWK: AWK_PROGRAM,
+    BENCH_SORT_BYTES: String(options.memoryBytes),
+    BENCH_SORT_PARALLEL: String(options.workers),
+    BENCH_SORT_TMP: sortTmp,
+    BENCH_OUT: outPath,
+  };
+  const loadAverage1m = os.loadavg()[0];
+  const measured = await measureCommand('bash', ['-c', PIPELINE_SCRIPT, 'bench-pipeline', ...corpus.files], { cwd: REPO, env });
+  rmSync(sortTmp, { recursive: true, force: true });
+  checkMeasured(`pipeline (${corpus.shape}, order ${order})`, measured);
+  let tally: OrderTally;
+  try {
+    tally = await tallyUniqCounts(outPath, order);
+  } finally {
+    if (!options.keep) rmSync(outPath, { force: true });
+  }
+  return {
+    tool: 'pipeline',
+    wallMs: measured.elapsedMs,
+    tokensPerSecond: perSecond(corpus.manifest.tokens, measured.elapsedMs),
+    rssBytesMax: measured.rssBytesMax,
+    distinct: tally.distinct,
+    occurrences: tally.occurrences,
+    loadAverage1m,
+  };
+}
+
+/** The differences between what the two tools counted, one line each; empty when they agree. */
+function countDifferences(quern: ToolResult, pipeline: ToolResult, order: number, corpus: Corpus): string[] {
+  const differences: string[] = [];
+  for (let n = 1; n <= order; n++) {
+    const q = { distinct: quern.distinct[n - 1], occurrences: quern.occurrences[n - 1] };
+    const p = { distinct: pipeline.distinct[n - 1], occurrences: pipeline.occurrences[n - 1] };
+    if (q.distinct !== p.distinct) differences.push(`order ${n}: quern ${q.distinct} distinct, pipeline ${p.distinct}`);
+    if (q.occurrences !== p.occurrences) differences.push(`order ${n}: quern ${q.occurrences} occurrences, pipeline ${p.occurrences}`);
+  }
+  if (quern.distinct.length !== order) differences.push(`quern reported ${quern.distinct.length} orders, asked ${order}`);
+  // Every token and every sentence end is a unigram occurrence (source: the corpus manifest).
+  const unigrams = corpus.manifest.tokens + corpus.manifest.sentences;
+  if (pipeline.occurrences[0] !== unigrams) differences.push(`pipeline ${pipeline.occurrences[0]} unigram occurrences, corpus has ${unigrams} tokens + sentence ends`);
+  return differences;
+}
+
+// ---- Output ----------------------------------------------------------------------------------
+
+function log(line: string): void {
+  process.stderr.write(`${line}\n`);
+}
+
+function perSecond(tokens: number, ms: number): number {
+  return ms > 0 ? Math.round((tokens / ms) * 1000) : 0;
+}
+
+function formatSize(bytes: number): string {
+  const sign = bytes < 0 ? '-' : '';
+  return sign + (bytesIec.format(Math.abs(bytes), { mode: 'binary', decimalPlaces: 1 }) ?? `${bytes} B`);
+}
+
+function formatRate(perSecondValue: number): string {
+  if (perSecondValue >= 1e6) return `${(perSecondValue / 1e6).toFixed(2)} M`;
+  if (perSecondValue >= 1e3) return `${(perSecondValue / 1e3).toFixed(1)} k`;
+  return String(perSecondValue);
+}
+
+/** Quern's stage times as `vocabulary 1.2 + count 3.4 + merge 0.5`. */
+function formatStages(stageMs: Record<string, number> | null): string {
+  if (stageMs === null) return '—';
+  return Object.entries(stageMs).map(([stage, ms]) => `${stage} ${(ms / 1000).toFixed(1)}`).join(' + ');
+}
+
+function renderTable(rows: string[][], rightAligned: ReadonlySet<number>): string {
+  const widths = rows[0].map((_, column) => Math.max(...rows.map((row) => row[column].length)));
+  return rows
+    .map((row) => row.map((cell, column) => (rightAligned.has(column) ? cell.padStart(widths[column]) : cell.padEnd(widths[column]))).join('  ').trimEnd())
+    .join('\n');
+}
+
+function printResults(results: readonly PairResult[], options: Options): void {
+  const rows: string[][] = [['shape', 'order', 'tool', 'wall s', 'tokens/s', 'peak RSS', 'quern/pipeline', 'target', 'met', 'load']];
+  for (const r of results) {
+    const target = r.targetRatio === null ? '—' : `≥ ${r.targetRatio}×`;
+    const met = r.targetMet === null ? '—' : r.targetMet ? 'yes' : 'NO';
+    rows.push([r.shape, String(r.order), 'quern', (r.quern.wallMs / 1000).toFixed(2), formatRate(r.quern.tokensPerSecond), formatSize(r.quern.rssBytesMax), `${r.ratio.toFixed(2)}×`, target, met, r.quern.loadAverage1m.toFixed(1)]);
+    rows.push([r.shape, String(r.order), 'pipeline', (r.pipeline.wallMs / 1000).toFixed(2), formatRate(r.pipeline.tokensPerSecond), formatSize(r.pipeline.rssBytesMax), '', '', '', r.pipeline.loadAverage1m.toFixed(1)]);
+  }
+  process.stdout.write(`\n${renderTable(rows, new Set([1, 3, 4, 5, 6, 9]))}\n`);
+  process.stdout.write(`(load: the machine's 1-minute load average as the run started; above ${os.availableParallelism()} other work shared the CPUs)\n\n`);
+
+  const workers = results[0]?.quern.workers ?? options.workers;
+  process.stdout.write(
+    `quern peak RSS against the documented bound: --memory ${formatSize(options.memoryBytes)} + ${formatSize(PROCESS_OVERHEAD_BYTES)} ` +
+      `+ ${workers} × ${formatSize(WORKER_OVERHEAD_BYTES)} = ${formatSize(rssBoundBytes(options.memoryBytes, workers))}\n`,
+  );
+  const boundRows: string[][] = [['shape', 'order', 'peak RSS', 'bound', 'within', 'above --memory', 'spills', 'run files', 'stages s']];
+  for (const r of results) {
+    boundRows.push([
+      r.shape, String(r.order), formatSize(r.quern.rssBytesMax), formatSize(r.quern.rssBoundBytes), r.quern.withinBound ? 'yes' : 'EXCEEDED',
+      formatSize(r.quern.overheadAboveMemoryBytes), String(r.quern.spills), String(r.quern.runFiles), formatStages(r.quern.stageMs),
+    ]);
+  }
+  process.stdout.write(`${renderTable(boundRows, new Set([1, 2, 3, 5, 6, 7]))}\n`);
+  if (results.some((r) => r.quern.spills === 0)) {
+    process.stdout.write('(a run with 0 spills never filled its budget, so its figure above --memory is not the overhead at a full budget)\n');
+  }
+}
+
+function toolVersions(): Record<string, string> {
+  const first = (command: string, args: string[]): string => {
+    const result = spawnSync(command, args, { encoding: 'utf8' });
+    return `${result.stdout ?? ''}${result.stderr ?? ''}`.split('\n')[0].trim();
+  };
+  return { node: process.version, awk: first('awk', ['-W', 'version']), sort: first('sort', ['--version']), uniq: first('uniq', ['--version']) };
+}
+
+function writeJson(path: string, value: unknown): void {
+  writeFileSync(`${path}.tmp`, JSON.stringify(value, null, 2) + '\n');
+  renameSync(`${path}.tmp`, path);
+}
+
+// ---- Main ------------------------------------------------------------------------------------
+
+/** Runs every shape and order, appending to `corpora` and `results`; exits 1 if counts differ. */
+async function measureAll(
+  options: Options,
+  corpora: Array<Omit<Corpus, 'files'> & { shards: number }>,
+  results: PairResult[],
+  writeReport: (status: string, extra: Record<string, unknown>) => void,
+  jsonPath: string,
+): Promise<void> {
+  for (const shape of options.shapes) {
+    const corpus = prepareCorpus(options, shape);
+    corpora.push({ shape, dir: corpus.dir, manifest: corpus.manifest, generated: corpus.generated, shards: corpus.files.length });
+    await warmPageCache(corpus.files);
+    for (const order of options.orders) {
+      log(`${shape}, order ${order}: quern …`);
+      const quern = await runQuern(corpus, order, options);
+      log(`  ${(quern.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(quern.rssBytesMax)}; pipeline …`);
+      const pipeline = await runPipeline(corpus, order, options);
+      log(`  ${(pipeline.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(pipeline.rssBytesMax)}`);
+      const differences = countDifferences(quern, pipeline, order, corpus);
+      if (differences.length > 0) {
+        writeReport('counts differ', { shape, order, differences, quern, pipeline });
+        process.stderr.write(`\nbench-count: QUERN AND THE PIPELINE COUNTED DIFFERENT N-GRAMS (${shape}, order ${order}); the timings mean nothing:\n`);
+        for (const line of differences) process.stderr.write(`  ${line}\n`);
+        process.stderr.write(`  details in ${relative(REPO, jsonPath)}\n`);
+        process.exit(1);
+      }
+      const ratio = quern.tokensPerSecond / pipeline.tokensPerSecond;
+      const targetRatio = TARGET_RATIOS[order] ?? null;
+      results.push({ shape, order, tokens: corpus.manifest.tokens, quern, pipeline, ratio, targetRatio, targetMet: targetRatio === null ? null : ratio >= targetRatio });
+    }
+  }
+}
+
+async function main(): Promise<void> {
+  const options = parseOptions(process.argv.slice(2));
+  mkdirSync(WORK_DIR, { recursive: true });
+  const startedAt = new Date();
+  const jsonPath = join(BENCH_OUT, `bench-count-${startedAt.toISOString().replace(/[:.]/g, '-')}.json`);
+  const results: PairResult[] = [];
+  const corpora: Array<Omit<Corpus, 'files'> & { shards: number }> = [];
+  const report = (status: string, extra: Record<string, unknown> = {}) => ({
+    benchmark: 'scripts/bench-count.ts',
+    status,
+    startedAt: startedAt.toISOString(),
+    finishedAt: new Date().toISOString(),
+    options: { ...options, memory: formatSize(options.memoryBytes) },
+    machine: { cpus: os.availableParallelism(), cpuModel: os.cpus()[0]?.model ?? null, totalMemoryBytes: os.totalmem(), platform: `${os.platform()} ${os.release()}` },
+    tools: toolVersions(),
+    commands: {
+      quern: `node bin/quern.js count SHARDS --job FRESH_DIR --order N --workers ${options.workers} --memory ${options.memoryBytes} --quiet --json`,
+      pipeline: PIPELINE_SCRIPT,
+      awkProgram: AWK_PROGRAM,
+    },
+    rss: { processOverheadBytes: PROCESS_OVERHEAD_BYTES, workerOverheadBytes: WORKER_OVERHEAD_BYTES },
+    targets: TARGET_RATIOS,
+    corpora,
+    results,
+    ...extra,
+  });
+
+  try {
+    await measureAll(options, corpora, results, (status, extra) => writeJson(jsonPath, report(status, extra)), jsonPath);
+  } catch (error) {
+    writeJson(jsonPath, report('failed', { error: (error as Error).message }));
+    if (results.length > 0) printResults(results, options);
+    process.stderr.write(`\nbench-count: ${(error as Error).message}\n  partial results in ${relative(REPO, jsonPath)}\n`);
+    process.exit(1);
+  }
+
+  process.stdout.write(
+    `quern count vs awk | sort -S ${formatSize(options.memoryBytes)} --parallel=${options.workers} | uniq -c, ${bytesIec.format(options.bytes)} corpus, ` +
+      `--workers ${options.workers}, ${os.availableParallelism()} CPUs; counts agree for every run.\n`,
+  );
+  printResults(results, options);
+  const exceeded = results.filter((r) => !r.quern.withinBound);
+  writeJson(jsonPath, report(exceeded.length > 0 ? 'rss bound exceeded' : 'ok'));
+  process.stdout.write(`\nresults: ${relative(REPO, jsonPath)}\n`);
+  if (exceeded.length > 0) {
+    process.stderr.write(`bench-count: quern's peak RSS exceeded the documented bound in ${exceeded.length} run(s)\n`);
+    process.exit(1);
+  }
+}
+
+if (!existsSync('/usr/bin/time')) fail('GNU time (/usr/bin/time) is needed to measure peak RSS');
+await main();

@@ -81,13 +81,17 @@ async function recountDamagedRun(ctx: StageContext, error: unknown): Promise<nev
   if (owner === undefined) throw error;
   const chunk = job.chunks[owner.chunk];
   const input = job.inputs[chunk.fileIndex];
-  for (const run of owner.runs) await ctx.fs.unlink(path.join(jobDir, run.file));
-  job.stages.count.chunks = job.stages.count.chunks.filter((c) => c !== owner);
-  job.stages.count.status = 'pending';
+  // Whenever the process stops in here, a re-run must finish the job: first forget the merge (the
+  // store still matches the recorded runs), then remove the store, then drop the chunk, and only
+  // then remove its runs (the count stage removes runs it does not record, should this stop early).
   job.stages.merge = { status: 'pending', partitionsDone: [] };
   job.stages.continuation = { status: 'pending', emitted: [], partitionsDone: [] };
-  await fsp.rm(path.join(jobDir, STORE_DIR), { recursive: true, force: true });
   await ctx.saveManifest();
+  await fsp.rm(path.join(jobDir, STORE_DIR), { recursive: true, force: true });
+  job.stages.count.chunks = job.stages.count.chunks.filter((c) => c !== owner);
+  job.stages.count.status = 'pending';
+  await ctx.saveManifest();
+  for (const run of owner.runs) await ctx.fs.unlink(path.join(jobDir, run.file));
   throw new QuernError('corrupt', `${(error as Error).message}\nThat run holds counts of ${input.path} bytes ${chunk.byteStart}–${chunk.byteEnd} (chunk ${chunk.index}). The chunk is now marked to be counted again: re-run the same command to recount it and merge.`, { cause: error });
 }
 

@@ -38,11 +38,18 @@ export interface PartitionMergeTask {
  * Merges (or finishes merging) one partition's runs into a key space of its store; returns the
  * tallies per order. An empty partition still gets its progress record, so 'done' is recorded.
  */
+/** Test hooks: smaller transactions, and a callback after each commit (which may throw to stop). */
+export interface MergeTuning {
+  txnBlocks?: number;
+  afterCommit?: () => void;
+}
+
 export async function mergePartition(
   jobDir: string,
   storeDir: string,
   task: PartitionMergeTask,
   space: KeySpace = 'raw',
+  tuning: MergeTuning = {},
 ): Promise<OrderTally[]> {
   const orderMax = task.files.length;
   const store = PartitionStore.open(path.join(jobDir, storeDir), 'write');
@@ -52,7 +59,7 @@ export async function mergePartition(
     };
     assert(progress.version === MERGE_PROGRESS_VERSION, `merge progress version ${progress.version}`);
     while (!progress.done) {
-      progress = await mergeOrder(jobDir, store, task, progress, orderMax, space);
+      progress = await mergeOrder(jobDir, store, task, progress, orderMax, space, tuning);
     }
     return progress.tallies;
   } finally {
@@ -67,7 +74,9 @@ async function mergeOrder(
   progress: MergeProgress,
   orderMax: number,
   space: KeySpace,
+  tuning: MergeTuning,
 ): Promise<MergeProgress> {
+  const txnBlocks = tuning.txnBlocks ?? STORE_TXN_BLOCKS;
   const order = progress.order;
   const tally = new TallyBuilder(order, progress.current ?? undefined);
   let skip = progress.records;
@@ -85,6 +94,7 @@ async function mergeOrder(
   const commit = (next: MergeProgress): void => {
     store.commit(pending, next, space);
     pending = [];
+    tuning.afterCommit?.();
   };
 
   const readers = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file))));
@@ -101,7 +111,7 @@ async function mergeOrder(
       tally.add(batch.keys, j * order, batch.counts[j]);
       if (blockSize === STORE_BLOCK_RECORDS) {
         closeBlock();
-        if (pending.length === STORE_TXN_BLOCKS) {
+        if (pending.length === txnBlocks) {
           commit({ ...progress, records, current: tally.checkpoint() });
         }
       }

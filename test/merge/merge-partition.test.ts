@@ -1,0 +1,78 @@
+/**
+ * Resuming a partition's merge in the middle of an order: the merge is stopped after each of many
+ * small transactions in turn, resumed, and must end with the same store and tallies as one
+ * uninterrupted merge.
+ */
+import { mkdtempSync } from 'node:fs';
+import * as os from 'node:os';
+import * as path from 'node:path';
+import { describe, expect, test } from 'vitest';
+import { writeRunFile } from '../../src/count/run-file.ts';
+import { nodeFs } from '../../src/job/fsio.ts';
+import { mergePartition, type PartitionMergeTask } from '../../src/merge/merge-partition.ts';
+import { PartitionStore, StoreSource } from '../../src/merge/store.ts';
+import { mergeRuns } from '../../src/count/run-merge.ts';
+import { STORE_BLOCK_RECORDS } from '../../src/limits.ts';
+import { seededRandom } from '../support/seeded.ts';
+
+/** Writes `runs` sorted runs of order 2 with overlapping random n-grams; returns the task. */
+async function writeRuns(dir: string, runs: number, rows: number): Promise<PartitionMergeTask> {
+  const random = seededRandom(17);
+  const files: string[][] = [[], []];
+  for (let r = 0; r < runs; r++) {
+    const set = new Map<string, [number, number]>();
+    while (set.size < rows) {
+      const a = Math.floor(random() ** 2 * 300);
+      const b = Math.floor(random() * 400);
+      set.set(`${a},${b}`, [a, b]);
+    }
+    const sorted = [...set.values()].sort((x, y) => x[0] - y[0] || x[1] - y[1]);
+    const keys = Uint32Array.from(sorted.flat());
+    const counts = Float64Array.from(sorted, () => 1 + Math.floor(random() * 5));
+    const file = `o2-r${r}.run`;
+    await writeRunFile(nodeFs, path.join(dir, file), { order: 2, partition: 0, chunk: r, spill: 0 }, keys, counts, sorted.length);
+    files[1].push(file);
+  }
+  return { partition: 0, files };
+}
+
+async function contents(dir: string, name: string): Promise<string> {
+  const store = PartitionStore.open(path.join(dir, name), 'read');
+  const rows: string[] = [];
+  for await (const batch of mergeRuns([new StoreSource(store, 2)], 2)) {
+    for (let j = 0; j < batch.recordCount; j++) rows.push(`${batch.keys[2 * j]} ${batch.keys[2 * j + 1]} ${batch.counts[j]}`);
+  }
+  await store.close();
+  return rows.join('\n');
+}
+
+describe('mergePartition', () => {
+  test('stopped after every transaction in turn, then resumed, it gives the uninterrupted store', async () => {
+    const dir = mkdtempSync(path.join(os.tmpdir(), 'quern-merge-'));
+    const task = await writeRuns(dir, 4, 6000);
+    const reference = mkdtempSync(path.join(os.tmpdir(), 'quern-merge-ref-'));
+    for (const file of task.files[1]) await nodeFs.rename(path.join(dir, file), path.join(reference, file));
+    const expectedTallies = await mergePartition(reference, 'store', task, 'raw', { txnBlocks: 1 });
+    const expected = await contents(reference, 'store');
+    expect(expected.split('\n').length).toBeGreaterThan(4 * STORE_BLOCK_RECORDS);
+
+    // Stop after commit k (k = 1, 2, …), resume each time, until a run finishes.
+    let stops = 0;
+    for (let k = 1; ; k++) {
+      let commits = 0;
+      try {
+        const tallies = await mergePartition(reference, 'resumed', task, 'raw', {
+          txnBlocks: 1,
+          afterCommit: () => { if (++commits === k) throw new Error('stop'); },
+        });
+        expect(tallies).toEqual(expectedTallies);
+        break;
+      } catch (error) {
+        expect((error as Error).message).toBe('stop');
+        stops++;
+      }
+    }
+    expect(stops).toBeGreaterThan(4);
+    expect(await contents(reference, 'resumed')).toBe(expected);
+  });
+});

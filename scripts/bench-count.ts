@@ -126,6 +126,11 @@ interface QuernResult extends ToolResult {
   rssBoundBytes: number;
   withinBound: boolean;
   overheadAboveMemoryBytes: number;
+  /** Distinct n-grams (all orders) per second of merging into the store. */
+  mergeNgramsPerSecond: number | null;
+  storeBytesPerNgram: number | null;
+  /** Wall time of `quern report --json` on the finished job. */
+  reportWallMs: number;
 }
 
 interface PairResult {
@@ -266,6 +271,9 @@ async function runQuern(corpus: Corpus, order: number, options: Options): Promis
     elapsedMs: number; tokensPerSecond: number; memoryBytes: number; workers: number;
     storeBytes?: number; stageMs?: Record<string, number>;
   };
+  // `quern report` on the finished job: answered from what the merge kept (issue target < 2 s).
+  const report = await measureCommand(process.execPath, [QUERN_BIN, 'report', jobDir, '--json'], { cwd: REPO });
+  checkMeasured(`quern report (${corpus.shape}, order ${order})`, report);
   if (!options.keep) rmSync(jobDir, { recursive: true, force: true });
   if (summary.tokens !== corpus.manifest.tokens) {
     throw new Error(`quern counted ${summary.tokens} tokens, the corpus manifest says ${corpus.manifest.tokens}`);
@@ -291,6 +299,19 @@ async function runQuern(corpus: Corpus, order: number, options: Options): Promis
     rssBoundBytes: bound,
     withinBound: measured.rssBytesMax <= bound,
     overheadAboveMemoryBytes: measured.rssBytesMax - summary.memoryBytes,
+    ...mergeFigures(summary),
+    reportWallMs: report.elapsedMs,
+  };
+}
+
+/** Merge throughput (distinct n-grams of all orders into the store per second of the merge and
+ *  continuation stages) and the store's bytes per n-gram on disk (both key spaces). */
+function mergeFigures(summary: { distinct: number[]; storeBytes?: number; stageMs?: Record<string, number> }): { mergeNgramsPerSecond: number | null; storeBytesPerNgram: number | null } {
+  const ngrams = summary.distinct.reduce((a, b) => a + b, 0);
+  const mergeMs = summary.stageMs?.merge;
+  return {
+    mergeNgramsPerSecond: mergeMs ? Math.round((ngrams / mergeMs) * 1000) : null,
+    storeBytesPerNgram: summary.storeBytes ? Math.round((summary.storeBytes / ngrams) * 100) / 100 : null,
   };
 }
 
@@ -407,6 +428,18 @@ function printResults(results: readonly PairResult[], options: Options): void {
   if (results.some((r) => r.quern.spills === 0)) {
     process.stdout.write('(a run with 0 spills never filled its budget, so its figure above --memory is not the overhead at a full budget)\n');
   }
+  const storeRows: string[][] = [['shape', 'order', 'merge n-grams/s', 'store B/n-gram', 'merge ÷ count stage', 'quern report s']];
+  for (const r of results) {
+    const stages = r.quern.stageMs;
+    storeRows.push([
+      r.shape, String(r.order),
+      r.quern.mergeNgramsPerSecond === null ? '—' : formatRate(r.quern.mergeNgramsPerSecond),
+      r.quern.storeBytesPerNgram === null ? '—' : r.quern.storeBytesPerNgram.toFixed(2),
+      stages?.merge && stages?.count ? `${(stages.merge / stages.count).toFixed(2)}×` : '—',
+      (r.quern.reportWallMs / 1000).toFixed(2),
+    ]);
+  }
+  process.stdout.write(`${renderTable(storeRows, new Set([1, 2, 3, 4, 5]))}\n`);
 }
 
 function toolVersions(): Record<string, string> {

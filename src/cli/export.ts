@@ -1,0 +1,24 @@
+/** `quern export`: a Quern model file → the ARPA back-off text format. */
+import type { CommandModule } from 'yargs';
+import { QuernError } from '../errors.ts';
+import { stageFs } from '../job/fsio.ts';
+import { writeArpa, writeArpaFile } from '../pack/arpa.ts';
+import { openModel } from '../pack/reader.ts';
+
+export const exportCommand: CommandModule = {
+  command: 'export <model>',
+  describe: 'Write a model file in the ARPA back-off format (log10 values to 7 significant digits)',
+  builder: (yargs) => yargs
+    .positional('model', { type: 'string', describe: 'Model file written by quern pack' })
+    .option('out', { type: 'string', describe: 'Write to this file (atomically) instead of standard output' })
+    .example('$0 export model.qm --out model.arpa', 'The model as an ARPA file'),
+  handler: async (argv) => {
+    const model = (await openModel(argv.model as string)).toLanguageModel();
+    if (typeof argv.out === 'string') {
+      if (argv.out === '') throw new QuernError('config', '--out expects a file name');
+      await writeArpaFile(model, stageFs(), argv.out);
+    } else {
+      await writeArpa(model, process.stdout);
+    }
+  },
+};

@@ -1,0 +1,63 @@
+/** `quern info`: what a model file holds, after verifying every checksum and its structure. */
+import type { CommandModule } from 'yargs';
+import type { MethodParameters, OrderDiscounts } from '../estimate/model.ts';
+import { openModel, type PackedModel } from '../pack/reader.ts';
+
+/** The method's parameters in a few words per order. */
+export function describeParameters(parameters: MethodParameters): string[] {
+  const discounts = (list: OrderDiscounts[]): string[] => list
+    .filter((entry) => entry.values.length > 0)
+    .map((entry) => `order ${entry.order}: ${entry.names.map((name, i) => `${name} = ${entry.values[i].toFixed(4)}`).join(', ')} (${entry.source})`);
+  switch (parameters.method) {
+    case 'modified-kneser-ney':
+    case 'kneser-ney':
+    case 'absolute-discounting':
+      return discounts(parameters.discounts);
+    case 'katz':
+      return [`k = ${parameters.k}, unigram level: ${parameters.unigramLevel}`, ...discounts(parameters.discounts)];
+    case 'jelinek-mercer':
+      return parameters.weights.orders.map((entry) => `order ${entry.order}: λ = ${entry.buckets.map((bucket) => bucket.weight.toFixed(4)).join(', ')}`);
+    case 'stupid-backoff':
+      return [`α = ${parameters.alpha}`];
+    default:
+      return [];
+  }
+}
+
+/** The text `quern info` prints. */
+export function formatModelInfo(model: PackedModel): string {
+  const total = model.ngrams.reduce((sum, rows) => sum + rows, 0);
+  const lines = [
+    `${model.filePath}: Quern model file, format ${model.version.major}.${model.version.minor}, ${model.fileBytes.toLocaleString('en-US')} bytes, every checksum verified`,
+    `order        ${model.order}`,
+    `vocabulary   ${model.vocabularySize.toLocaleString('en-US')} words (</s> and <unk> included, <s> not)`,
+    `n-grams      ${model.ngrams.map((rows, i) => `order ${i + 1}: ${rows.toLocaleString('en-US')}`).join(', ')}; ${total.toLocaleString('en-US')} in all, ${(model.fileBytes / total).toFixed(2)} bytes each`,
+    `values       ${model.encodingName}`,
+    `method       ${model.parameters.method}${model.normalised ? '' : ' (scores, not probabilities)'}`,
+    ...describeParameters(model.parameters).map((line) => `             ${line}`),
+    `cutoffs      ${model.cutoffs.join(' ')}`,
+    `cap          ${model.vocabularyCap === null ? 'none' : JSON.stringify(model.vocabularyCap)}`,
+    `fingerprint  ${model.fingerprint === '' ? '(none)' : model.fingerprint}`,
+    'sections',
+    ...model.sections.map((section) => `  ${section.name.padEnd(32)} ${section.offset.toString().padStart(12)}  ${section.bytes.toLocaleString('en-US').padStart(15)} bytes  crc32 ${section.crc32.toString(16).padStart(8, '0')}`),
+  ];
+  return lines.join('\n') + '\n';
+}
+
+export const infoCommand: CommandModule = {
+  command: 'info <model>',
+  describe: 'Describe a model file (order, vocabulary, n-grams per order, method, parameters, sections), verifying it',
+  builder: (yargs) => yargs
+    .positional('model', { type: 'string', describe: 'Model file written by quern pack' })
+    .option('json', { type: 'boolean', default: false, describe: 'Print the description as JSON' })
+    .example('$0 info model.qm', 'What the file holds; exit status 5 if it is damaged'),
+  handler: async (argv) => {
+    const model = await openModel(argv.model as string);
+    if (!argv.json) {
+      process.stdout.write(formatModelInfo(model));
+      return;
+    }
+    const { filePath, version, fileBytes, order, vocabularySize, ngrams, encodingName, normalised, parameters, cutoffs, vocabularyCap, fingerprint, log10UnseenContextWeight, sections } = model;
+    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, fingerprint, log10UnseenContextWeight, sections }, null, 2) + '\n');
+  },
+};

@@ -1,0 +1,36 @@
+/** `quern pack`: an ARPA model file → a Quern model file (docs/model-file.md). */
+import type { CommandModule } from 'yargs';
+import { QuernError } from '../errors.ts';
+import { stageFs } from '../job/fsio.ts';
+import { readArpa } from '../pack/arpa.ts';
+import { ENCODING_NAMES } from '../pack/format.ts';
+import { packModel, type PackOptions, type PackSummary } from '../pack/writer.ts';
+
+/** One line about a packed file: where, what, how big. */
+export function formatPackSummary(summary: PackSummary): string {
+  const ngrams = summary.ngrams.reduce((sum, rows) => sum + rows, 0);
+  return `packed ${summary.filePath}: order ${summary.ngrams.length}, n-grams ${summary.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}, ` +
+    `${ENCODING_NAMES[summary.encoding]} values, ${summary.bytes.toLocaleString('en-US')} bytes (${(summary.bytes / ngrams).toFixed(2)} per n-gram)\n`;
+}
+
+export const packCommand: CommandModule = {
+  command: 'pack <arpa>',
+  describe: 'Pack a model in the ARPA format (as quern export writes it) into one memory-mappable model file',
+  builder: (yargs) => yargs
+    .positional('arpa', { type: 'string', describe: 'ARPA file written by quern export (it records how the model was estimated)' })
+    .option('out', { type: 'string', demandOption: true, describe: 'The model file to write (atomically)' })
+    .option('quant', { type: 'number', choices: [8, 16], describe: 'Quantise log10 probabilities and back-off weights to 8 or 16 bits (codebooks fitted per order)' })
+    .option('float', { type: 'number', choices: [32, 64], describe: 'Store unquantised values as float32 (default) or float64' })
+    .option('fingerprint', { type: 'string', default: '', describe: 'Corpus fingerprint to record in the file' })
+    .conflicts('quant', 'float')
+    .example('$0 pack model.arpa --out model.qm --quant 8', 'An 8-bit model file'),
+  handler: async (argv) => {
+    const out = argv.out as string;
+    if (out === '') throw new QuernError('config', '--out expects a file name');
+    const model = await readArpa(argv.arpa as string);
+    const options: PackOptions = { fingerprint: argv.fingerprint as string };
+    if (argv.quant !== undefined) options.quantBits = argv.quant as 8 | 16;
+    if (argv.float !== undefined) options.floatBits = argv.float as 32 | 64;
+    process.stdout.write(formatPackSummary(await packModel(model, options, stageFs(), out)));
+  },
+};

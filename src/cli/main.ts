@@ -4,6 +4,12 @@ import { hideBin } from 'yargs/helpers';
 import { countCommand } from './count.ts';
 import { ngramsCommand } from './ngrams.ts';
 import { reportCommand } from './report.ts';
+import { estimateCommand } from './estimate.ts';
+import { packCommand } from './pack.ts';
+import { infoCommand } from './info.ts';
+import { exportCommand } from './export.ts';
+import { scoreCommand } from './score.ts';
+import { buildCommand } from './build.ts';
 import { verifyCommand } from './verify.ts';
 import { reportError, EXIT_STATUS } from './exit.ts';
 
@@ -15,6 +21,12 @@ export async function main(args: string[]): Promise<number> {
       .command(countCommand)
       .command(ngramsCommand)
       .command(reportCommand)
+      .command(estimateCommand)
+      .command(packCommand)
+      .command(infoCommand)
+      .command(exportCommand)
+      .command(scoreCommand)
+      .command(buildCommand)
       .command(verifyCommand)
       .demandCommand(1, 'Say which command to run; see quern --help')
       .strict()

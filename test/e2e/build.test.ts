@@ -1,0 +1,48 @@
+/** The whole job in one command, and scoring with the packed model, against the in-memory estimator. */
+import { readFileSync } from 'node:fs';
+import * as path from 'node:path';
+import { describe, expect, test } from 'vitest';
+import { loadCountTables } from '../../src/estimate/from-store.ts';
+import { estimate } from '../../src/estimate/estimate.ts';
+import { perplexity } from '../../src/score/perplexity.ts';
+import { REPO, runQuern, tempDir } from '../support/cli.ts';
+
+describe('quern build and quern score', () => {
+  test('the packed model (float32) scores held-out text as the in-memory model does', async () => {
+    const dir = tempDir();
+    const out = path.join(dir, 'model.qm');
+    const build = await runQuern(['build', path.join(REPO, 'sample-data/logbook'), '--lowercase', '--order', '3', '--out', out, '--fallback', '--quiet']);
+    expect(build.status).toBe(0);
+    expect(build.stdout).toMatch(/^packed .*model\.qm: order 3/);
+    const heldout = path.join(REPO, 'sample-data/heldout/harbour-heldout.txt');
+    const scored = await runQuern(['score', out, heldout, '--lowercase', '--json']);
+    expect(scored.stderr).toBe('');
+    const { total } = JSON.parse(scored.stdout);
+
+    const model = estimate(await loadCountTables(`${out}.job`, 1 << 30), { fallback: true });
+    const sentences = readFileSync(heldout, 'utf8').split('\n').map((l) => l.toLowerCase().split(/\s+/).filter(Boolean)).filter((s) => s.length > 0);
+    const expected = perplexity(model, sentences);
+    expect(total.tokens).toBe(expected.tokens);
+    expect(total.oov).toBe(expected.oov);
+    // float32 values in the file: agreement to float32 precision over ~20,000 tokens.
+    expect(Math.abs(total.log10Prob - expected.log10Prob) / Math.abs(expected.log10Prob)).toBeLessThan(1e-6);
+    expect(total.perplexity).toBeCloseTo(expected.perplexity, 4);
+
+    // Per line: one JSON record per sentence, summing to the total.
+    const lines = await runQuern(['score', out, heldout, '--lowercase', '--per-line']);
+    const records = lines.stdout.trim().split('\n').map((l) => JSON.parse(l));
+    expect(records).toHaveLength(expected.sentences);
+    expect(records.reduce((s, r) => s + r.tokens, 0)).toBe(expected.tokens);
+  });
+
+  test('a stupid-backoff model is refused by score: scores, not probabilities', async () => {
+    const dir = tempDir();
+    const job = path.join(dir, 'job');
+    await runQuern(['count', path.join(REPO, 'sample-data/logbook'), '--job', job, '--order', '2', '--quiet']);
+    const est = await runQuern(['estimate', job, '--method', 'stupid-backoff', '--out', path.join(dir, 'sb.qm')]);
+    expect(est.status).toBe(0);
+    const scored = await runQuern(['score', path.join(dir, 'sb.qm'), path.join(REPO, 'sample-data/heldout')]);
+    expect(scored.status).toBe(2);
+    expect(scored.stderr).toMatch(/scores, not probabilities/);
+  });
+});

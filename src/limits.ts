@@ -136,3 +136,51 @@ export const VERIFY_PROBLEMS_MAX = 20;
 // ---- Assertions on relations between limits -------------------------------------------------
 assert(CHUNK_BYTES_TARGET >= READ_BLOCK_BYTES, 'a chunk holds at least one read block');
 assert(LINE_BYTES_MAX >= READ_BLOCK_BYTES, 'a line may span read blocks');
+
+// ---- Pack (model file, ARPA) -----------------------------------------------------------------
+
+/** Bytes of one model-file section at most. A reader reads each section into a buffer of its own
+ *  (DESIGN.md: never one buffer for the whole file); 2 GiB fits a Buffer on every 64-bit Node and
+ *  one read call (fs reads stop at 2 GiB − 1). With float32 values an order may then hold up to
+ *  536 M n-grams, with 8-bit codes 2 G. */
+export const PACK_SECTION_BYTES_MAX = 2 ** 31;
+
+/** Rows of one order at most: row numbers are u32 and a children table holds rows + 1 of them. */
+export const PACK_ROWS_MAX = 2 ** 32 - 2;
+
+/** Sections of a model file at most: 5 file-wide plus at most 6 per order (47 at order 7); the
+ *  rest is room for kinds a later minor version may add. Bounds the section table a reader reads
+ *  (64 × 32 bytes) before anything is verified. */
+export const PACK_SECTIONS_MAX = 64;
+
+/** Bytes of the description section (JSON of the method's parameters) at most: the largest,
+ *  bucketed Jelinek-Mercer weights, is a few KiB; 16 MiB bounds what a reader parses as JSON. */
+export const PACK_DESCRIPTION_BYTES_MAX = 16 << 20;
+
+/** Bytes of the corpus fingerprint at most: a hash or a short provenance string. */
+export const PACK_FINGERPRINT_BYTES_MAX = 4096;
+
+/** Bytes per read call when a section is loaded: large calls for speed, well under fs's 2 GiB. */
+export const PACK_READ_BYTES_MAX = 256 << 20;
+
+/** Values a quantisation codebook is fitted on at most: larger orders are represented by an
+ *  evenly spaced sample of their sorted values (their quantiles), which keeps each Lloyd
+ *  iteration to a few milliseconds; the codes are still assigned to every value. */
+export const QUANT_FIT_VALUES_MAX = 1 << 22;
+
+/** Lloyd iterations of a codebook fit at most; it stops earlier when no centre moves. Measured on
+ *  the log10 probabilities of a Brown order-3 model: the RMS error of 8-bit codes falls from
+ *  8.6·10⁻³ after one iteration to 7.03·10⁻³ after 30 and 7.02·10⁻³ after 200; 16-bit codes
+ *  settle after 5. */
+export const QUANT_ITERATIONS_MAX = 30;
+
+/** Significant digits of the log10 values Quern writes to ARPA files: 7 keeps a float32 value
+ *  (about 7.2 digits) and bounds the round-trip error of each value to 5·10⁻⁷ of it. */
+export const ARPA_SIGNIFICANT_DIGITS = 7;
+
+/** The log10 written for probability 0 (log10 −∞) in ARPA files, and the value at or below which
+ *  a read value is taken as −∞: −99 is common practice for `<s>`'s unigram probability. */
+export const ARPA_LOG10_ZERO = -99;
+
+assert(PACK_SECTION_BYTES_MAX <= 2 ** 31, 'a section fits one read call and a Buffer on any 64-bit Node');
+assert(PACK_READ_BYTES_MAX < 2 ** 31, 'a read call stays under fs\'s 2 GiB limit');

@@ -35,6 +35,14 @@ export const SKIPPED_SAMPLES_PER_FILE_MAX = 20;
  *  latency; far below the usual 1024 open-file limit even with a directory of 100,000 shards. */
 export const DISCOVER_FILES_OPEN_MAX = 16;
 
+/** Highest load factor of a word table (corpus/word-table.ts). Lower than the counters' 0.7:
+ *  a word table is small (one entry per word type) and looked up once per token, so short probe
+ *  chains are worth the space. */
+export const WORD_TABLE_LOAD_MAX = 0.5;
+
+/** Initial slots of a word table (power of two); it doubles as words arrive. */
+export const WORD_TABLE_SLOTS_MIN = 1 << 12;
+
 /** Bytes read per step when the planner scans forward from a target offset to the next '\n'.
  *  Lines are short, so one small read almost always finds it; no need to read a whole block. */
 export const PLAN_SCAN_BLOCK_BYTES = 64 << 10;
@@ -85,12 +93,40 @@ export const COUNTER_LOAD_MAX = 0.7;
 /** Initial slots of a counter table (power of two): small, so 7 orders × many workers start cheap. */
 export const COUNTER_SLOTS_MIN = 1 << 12;
 
-/** Scratch bytes per counter entry during a spill (the radix sort's two uint32 permutations plus a
- *  uint16 digit), charged against the budget with the table itself. */
-export const SPILL_SORT_BYTES_PER_ENTRY = 10;
+/** Initial log capacity (rows) of a counter of order ≥ 2 (count/counter.ts): 4,096 rows of at most
+ *  32 bytes, like the table. */
+export const COUNTER_LOG_ROWS_MIN = 1 << 12;
 
-/** Estimated bytes per vocabulary type held by each worker (a Map entry with a short string),
- *  charged against `--memory` before the counters get theirs. */
+/** Positions (n-grams of each order) a count worker hands its counters at once (CounterSet.
+ *  addSentences, which goes order by order over them): 16,384 keep the running hashes and the
+ *  batch's ids (64 KiB each) in the second-level cache beside one order's filter; a budget too
+ *  small for a batch's room is still used sentence by sentence. */
+export const COUNTER_BATCH_POSITIONS = 1 << 14;
+
+/** Seen-filter bits per log row of a counter of order ≥ 2, at least (rounded up to a power of two:
+ *  4 to 8). With b bits per n-gram a filter with one hash function sends about 1 − e^(−1/b) of new
+ *  n-grams (22 % at 4 bits, 12 % at 8) to the table instead of the log — a cost, never an error.
+ *  Measured by scripts/bench-hot-path.ts: a filter that stays in the caches matters more than its
+ *  rate; at 16 bits per n-gram counting was slower than at 4–8. */
+export const COUNTER_FILTER_BITS_PER_ENTRY = 4;
+
+/** A counter structure (table, log, filter) more than this many times larger than the next chunk
+ *  is expected to need is shrunk before the chunk (CounterSet.presize): clearing a table or a
+ *  filter and finding a table's entries at a spill cost time in proportion to its size, which
+ *  matters for many small chunks after a large one. Below this factor a structure is kept, so
+ *  ordinary variation never reallocates. */
+export const COUNTER_PRESIZE_SHRINK_FACTOR = 8;
+
+/** Run files a spill writes at once (count/spill.ts). Each is fsynced, with its directory, before
+ *  the next starts in its lane; eight lanes overlap the syncs (48 small files took 164 ms one by
+ *  one and 43 ms sixteen at a time here) while each in-flight writer's buffer (≤ 1 MiB,
+ *  RUN_WRITE_BUFFER_BYTES) stays within the worker's fixed overhead. */
+export const SPILL_FILES_WRITING_MAX = 8;
+
+/** Estimated bytes per vocabulary type held by each worker, charged against `--memory` before the
+ *  counters get theirs: the word as a string (~40–50 B), its word-table slots and record (~35–50 B
+ *  at a load of 0.25–0.5) and its id (4 B). The dense unigram counter (4 B per id, and its spill
+ *  scratch) is charged to the counters. */
 export const VOCAB_BYTES_PER_TYPE = 120;
 
 /** Memory kept outside the counting budget: Node's heap and code per thread, read buffers.

@@ -16,6 +16,22 @@ import type { Chunk, InputFile, ReadOptions, ReadStats, SkippedSample } from './
 /** Receives one sentence: the raw text of a line (no normalisation yet), never blank. */
 export type SentenceHandler = (text: string) => void;
 
+/** What a `LinesHandler` found in the lines it was given. */
+export interface LinesSeen {
+  lines: number;
+  /** Lines that are empty or hold only white space (the JS `\s` set). */
+  blankLines: number;
+}
+
+/**
+ * Receives whole lines as bytes: bytes[start, end) is valid UTF-8 and holds complete lines, each
+ * ending with '\n' except a final line of the input without one. A trailing '\r' is left in the
+ * line (it is white space); a UTF-8 byte-order mark at the start of the file is not included.
+ * Returns the lines it found and how many of them were blank, for the read statistics (a line
+ * that is not blank is a sentence).
+ */
+export type LinesHandler = (bytes: Buffer, start: number, end: number) => LinesSeen;
+
 /**
  * Receives the input bytes consumed so far in this chunk (compressed bytes for gzip), after each
  * block. When it returns a promise, reading waits for it: the count worker spills there, between
@@ -69,12 +85,7 @@ export async function readChunk(
   onSentence: SentenceHandler,
   onProgress?: ProgressHandler,
 ): Promise<ChunkReadStats> {
-  assert(options.format === file.format, `ReadOptions.format (${options.format}) must equal the file's format (${file.format})`);
-  assert(
-    Number.isSafeInteger(chunk.byteStart) && chunk.byteStart >= 0 && chunk.byteStart <= chunk.byteEnd && chunk.byteEnd <= file.bytes,
-    `chunk ${chunk.index} range ${chunk.byteStart}..${chunk.byteEnd} lies within ${file.path} (${file.bytes} bytes)`,
-  );
-  assert(!file.gzip || (chunk.byteStart === 0 && chunk.byteEnd === file.bytes), 'a gzip input is read as one whole chunk');
+  checkChunk(file, chunk, options);
   let readRecord: RecordReader | undefined;
   if (options.format === 'jsonl') {
     if (options.textField === undefined || options.textField.length === 0) {
@@ -82,7 +93,45 @@ export async function readChunk(
     }
     readRecord = makeRecordReader(options.textField);
   }
-  const reader = new LineReader(chunk.byteStart, options.skipBad, onSentence, readRecord);
+  return readWith(file, chunk, new LineReader(chunk.byteStart, options.skipBad, onSentence, readRecord), onProgress);
+}
+
+/**
+ * `readChunk` for text input whose consumer splits lines itself: hands over blocks of whole lines
+ * as bytes (validated UTF-8; one call per read block, or per line around a bad or carried one)
+ * instead of one string per sentence, so a byte-level tokenizer never decodes the text. Checks,
+ * errors, `skipBad`, progress and the returned statistics are those of `readChunk`, except that
+ * `lines`, `sentences` and `emptyLines` come from what `onLines` reports.
+ *
+ * @param options `options.format` must be 'text' (JSONL records are parsed as strings: use `readChunk`).
+ */
+export async function readChunkLines(
+  file: InputFile,
+  chunk: Chunk,
+  options: ReadOptions,
+  onLines: LinesHandler,
+  onProgress?: ProgressHandler,
+): Promise<ChunkReadStats> {
+  checkChunk(file, chunk, options);
+  assert(options.format === 'text', `readChunkLines reads text input, not ${options.format}`);
+  return readWith(file, chunk, new LineReader(chunk.byteStart, options.skipBad, undefined, undefined, onLines), onProgress);
+}
+
+function checkChunk(file: InputFile, chunk: Chunk, options: ReadOptions): void {
+  assert(options.format === file.format, `ReadOptions.format (${options.format}) must equal the file's format (${file.format})`);
+  assert(
+    Number.isSafeInteger(chunk.byteStart) && chunk.byteStart >= 0 && chunk.byteStart <= chunk.byteEnd && chunk.byteEnd <= file.bytes,
+    `chunk ${chunk.index} range ${chunk.byteStart}..${chunk.byteEnd} lies within ${file.path} (${file.bytes} bytes)`,
+  );
+  assert(!file.gzip || (chunk.byteStart === 0 && chunk.byteEnd === file.bytes), 'a gzip input is read as one whole chunk');
+}
+
+async function readWith(
+  file: InputFile,
+  chunk: Chunk,
+  reader: LineReader,
+  onProgress: ProgressHandler | undefined,
+): Promise<ChunkReadStats> {
   try {
     if (file.gzip) await readGzip(file, reader, onProgress);
     else await readPlain(file, chunk, reader, onProgress);
@@ -218,8 +267,10 @@ class LineReader {
   constructor(
     byteStart: number,
     private readonly skipBad: boolean,
-    private readonly onSentence: SentenceHandler,
+    private readonly onSentence: SentenceHandler | undefined,
     private readonly readRecord: RecordReader | undefined,
+    /** When set, whole lines go here as bytes instead of to `onSentence` as strings. */
+    private readonly onLines?: LinesHandler,
   ) {
     this.offset = byteStart;
     this.lineBase = byteStart === 0 ? 0 : undefined;
@@ -264,7 +315,7 @@ class LineReader {
     this.carry = [];
     this.carryBytes = 0;
     if (isUtf8(line)) {
-      this.segment(line.toString('utf8'), this.carryStart);
+      this.valid(line, 0, line.length, this.carryStart);
     } else {
       this.stats.lines++;
       this.badLine('invalid UTF-8', this.carryStart);
@@ -310,7 +361,7 @@ class LineReader {
   /** block[start, end) holds complete lines, the last ending with '\n'. */
   private lines(block: Buffer, start: number, end: number, blockStart: number): void {
     if (isUtf8(block.subarray(start, end))) {
-      this.segment(block.toString('utf8', start, end), blockStart + start);
+      this.valid(block, start, end, blockStart + start);
       return;
     }
     // Rare path: find the bad lines one by one.
@@ -319,13 +370,28 @@ class LineReader {
       const lineEnd = block.indexOf(0x0a, position) + 1;
       assert(lineEnd > position && lineEnd <= end, 'every line of a complete-lines range ends with a newline');
       if (isUtf8(block.subarray(position, lineEnd))) {
-        this.segment(block.toString('utf8', position, lineEnd), blockStart + position);
+        this.valid(block, position, lineEnd, blockStart + position);
       } else {
         this.stats.lines++;
         this.badLine('invalid UTF-8', blockStart + position);
       }
       position = lineEnd;
     }
+  }
+
+  /** block[start, end) is valid UTF-8 holding whole lines from absolute byte `byteStart`; only
+   *  the last may lack '\n'. */
+  private valid(block: Buffer, start: number, end: number, byteStart: number): void {
+    if (this.onLines === undefined) {
+      this.segment(block.toString('utf8', start, end), byteStart);
+      return;
+    }
+    // The byte-order mark, as `segment` drops it.
+    if (byteStart === 0 && end - start >= 3 && block[start] === 0xef && block[start + 1] === 0xbb && block[start + 2] === 0xbf) start += 3;
+    const seen = this.onLines(block, start, end);
+    this.stats.lines += seen.lines;
+    this.stats.sentences += seen.lines - seen.blankLines;
+    this.stats.emptyLines += seen.blankLines;
   }
 
   /** `text` holds whole lines starting at absolute byte `byteStart`; only the last may lack '\n'. */
@@ -336,7 +402,7 @@ class LineReader {
   }
 
   private textLines(text: string, start: number): void {
-    const onSentence = this.onSentence;
+    const onSentence = this.onSentence!;
     const length = text.length;
     let lines = 0;
     let sentences = 0;
@@ -400,7 +466,7 @@ class LineReader {
       this.stats.emptyLines++;
     } else {
       this.stats.sentences++;
-      this.onSentence(line);
+      this.onSentence!(line);
     }
   };
 

@@ -1,61 +1,209 @@
 /**
  * Orders a counter's entries for a spill: by partition, then lexicographically by word ids.
- * LSD radix sort of a permutation of the occupied slots, RADIX_BITS per pass, using only as many
- * passes as the largest id needs. No comparator calls; memory is two uint32 per entry.
+ *
+ * The rows (count and ids) are moved, not a permutation of slot numbers, so every pass reads and
+ * writes memory in order instead of gathering rows from all over the table:
+ *  1. gathering: every row — the log's and the table's (counter.ts) — into one array, densely, each
+ *     row's partition noted (two bytes per entry, charged with the scratch: `sortScratchBytes`);
+ *  2. a counting pass by partition moves them into the scratch;
+ *  3. each partition alone (a few MB: it stays in cache) goes through an LSD radix sort on its ids,
+ *     last id first, as many passes per id as the largest id present needs, digits of at most
+ *     RADIX_BITS_MAX bits; a pass whose digit is the same for every row is skipped;
+ *  4. the sorted rows are split into the ids and the counts the run-file writer takes; an n-gram
+ *     with a row in both the log and the table becomes one record with the sum of the counts.
+ * The gathering array and the scratch take turns as source and target. The counter's contents are
+ * destroyed: the owner must `clear()` it afterwards (spillCounterSet does).
  */
 import { assert } from '../errors.ts';
 import { partitionOf } from './hash.ts';
 import type { NgramCounter } from './counter.ts';
 
-const RADIX_BITS = 11;
-const RADIX_BUCKETS = 1 << RADIX_BITS;
+/** Widest radix digit: 2^11 histogram buckets stay in the first-level cache. */
+const RADIX_BITS_MAX = 11;
 
 export interface SpillOrder {
-  /** Slot indices of the counter in output order. */
-  slots: Uint32Array;
-  /** partitionStarts[p] .. partitionStarts[p+1] is partition p's range within `slots`. */
-  partitionStarts: Uint32Array;
+  /** N-grams (distinct, after equal rows were added up) of partition p. */
+  recordsOf(partition: number): number;
+  /** Partition p's n-grams, sorted: `order` ids each, row-major. */
+  keysOf(partition: number): Uint32Array;
+  /** Partition p's counts, in the same order. */
+  countsOf(partition: number): Uint32Array;
 }
 
-function countingPass(
-  source: Uint32Array,
-  target: Uint32Array,
-  digits: Uint16Array,
-  bucketCount: number,
-  histogram: Uint32Array,
-): void {
-  histogram.fill(0, 0, bucketCount + 1);
-  const m = source.length;
-  for (let j = 0; j < m; j++) histogram[digits[j] + 1]++;
-  for (let b = 0; b < bucketCount; b++) histogram[b + 1] += histogram[b];
-  for (let j = 0; j < m; j++) target[histogram[digits[j]]++] = source[j];
-}
-
-/** Computes the spill order of `counter` for `partitions` partitions. `idMax` bounds every id. */
-export function spillOrder(counter: NgramCounter, partitions: number, idMax: number): SpillOrder {
+/**
+ * Sorts the entries of `counter` for `partitions` partitions. `idMax` bounds every id (exclusive);
+ * `scratch` holds at least size × (order + 1) words (CounterSet.sortScratch).
+ */
+export function spillOrder(counter: NgramCounter, partitions: number, idMax: number, scratch: Uint32Array): SpillOrder {
   const order = counter.order;
-  const keys = counter.keys;
-  const counts = counter.counts;
+  const stride = counter.stride;
   const m = counter.size;
-  let perm = new Uint32Array(m);
-  let spare = new Uint32Array(m);
-  let filled = 0;
-  for (let slot = 0; slot < counts.length; slot++) if (counts[slot] !== 0) perm[filled++] = slot;
-  assert(filled === m, `counter size ${m} disagrees with occupied slots ${filled}`);
+  assert(scratch.length >= m * stride, `scratch of ${scratch.length} words for ${m} rows of ${stride}`);
+  assert(Number.isInteger(partitions) && partitions >= 1 && partitions <= 0xffff, `partitions ${partitions} must be in 1..65535`);
 
-  const digits = new Uint16Array(m);
-  const histogram = new Uint32Array(Math.max(RADIX_BUCKETS, partitions) + 1);
-  const idBits = Math.max(1, 32 - Math.clz32(idMax));
-  for (let position = order - 1; position >= 0; position--) {
-    for (let shift = 0; shift < idBits; shift += RADIX_BITS) {
-      for (let j = 0; j < m; j++) digits[j] = (keys[perm[j] * order + position] >>> shift) & (RADIX_BUCKETS - 1);
-      countingPass(perm, spare, digits, RADIX_BUCKETS, histogram);
-      [perm, spare] = [spare, perm];
-    }
-  }
-  for (let j = 0; j < m; j++) digits[j] = partitionOf(keys, perm[j] * order, order, partitions);
-  countingPass(perm, spare, digits, partitions, histogram);
+  if (counter.dense) return denseOrder(counter, partitions, scratch);
+
+  // 1. Gathering: every row into `front`, densely — the log's rows stay where they are and the
+  // table's follow them (the log has room: counter.ts's invariant); an order-1 counter's table is
+  // compacted in place. Each row's partition is noted, and the ids' bits, ORed, give the digits
+  // the sort needs.
+  const front = counter.logged ? counter.log : counter.table;
+  const partitionOfRow = new Uint16Array(m);
   const partitionStarts = new Uint32Array(partitions + 1);
-  for (let p = 0; p < partitions; p++) partitionStarts[p + 1] = histogram[p];
-  return { slots: spare, partitionStarts };
+  let rows = 0;
+  let idBitsAll = 0;
+  for (; rows < counter.logCount; rows++) {
+    const base = rows * stride;
+    for (let w = 1; w < stride; w++) idBitsAll |= front[base + w];
+    const partition = partitionOf(front, base + 1, order, partitions);
+    partitionOfRow[rows] = partition;
+    partitionStarts[partition + 1]++;
+  }
+  const table = counter.table;
+  for (let from = 0; from < table.length; from += stride) {
+    if (table[from] === 0) continue;
+    const to = rows * stride;
+    if (front !== table || from !== to) for (let w = 0; w < stride; w++) front[to + w] = table[from + w];
+    for (let w = 1; w < stride; w++) idBitsAll |= front[to + w];
+    const partition = partitionOf(front, to + 1, order, partitions);
+    partitionOfRow[rows++] = partition;
+    partitionStarts[partition + 1]++;
+  }
+  assert(rows === m, `counter size ${m} disagrees with the rows found, ${rows}`);
+  const idBits = Math.max(1, 32 - Math.clz32(idBitsAll));
+  assert(idMax > 0 && (idBitsAll >>> 0) < 2 ** Math.max(1, 32 - Math.clz32(idMax)), `ids within the bound idMax = ${idMax}`);
+
+  // 2. By partition, front → scratch.
+  for (let p = 0; p < partitions; p++) partitionStarts[p + 1] += partitionStarts[p];
+  const next = partitionStarts.slice(0, partitions);
+  for (let j = 0; j < m; j++) {
+    const from = j * stride;
+    const to = next[partitionOfRow[j]]++ * stride;
+    for (let w = 0; w < stride; w++) scratch[to + w] = front[from + w];
+  }
+
+  // 3. Radix passes per partition; 4. rows into ids and counts (into the other buffer), equal
+  // n-grams (a log row and a table row) added up.
+  const passesPerId = Math.ceil(idBits / RADIX_BITS_MAX);
+  const digitBits = Math.ceil(idBits / passesPerId);
+  const buckets = 1 << digitBits;
+  const histogram = new Uint32Array(buckets);
+  const outputs: Uint32Array[] = [];
+  const records = new Uint32Array(partitions);
+  for (let p = 0; p < partitions; p++) {
+    const begin = partitionStarts[p];
+    const end = partitionStarts[p + 1];
+    let source = scratch;
+    let target = front;
+    for (let k = order; k >= 1; k--) {
+      for (let shift = 0; shift < idBits; shift += digitBits) {
+        if (radixPass(source, target, begin, end, stride, k, shift, buckets - 1, histogram)) [source, target] = [target, source];
+      }
+    }
+    records[p] = splitRows(source, target, begin, end, stride, order, counter.logged);
+    outputs.push(target);
+  }
+  return {
+    recordsOf: (p) => records[p],
+    keysOf: (p) => outputs[p].subarray(partitionStarts[p] * stride, partitionStarts[p] * stride + records[p] * order),
+    countsOf: (p) => {
+      const countsAt = partitionStarts[p] * stride + (partitionStarts[p + 1] - partitionStarts[p]) * order;
+      return outputs[p].subarray(countsAt, countsAt + records[p]);
+    },
+  };
+}
+/**
+ * The spill order of a counter indexed by id: its ids are already in order, so one counting pass by
+ * partition puts them, with their counts, straight into the layout the run-file writer takes.
+ */
+function denseOrder(counter: NgramCounter, partitions: number, scratch: Uint32Array): SpillOrder {
+  const counts = counter.table;
+  const m = counter.size;
+  const partitionOfRow = new Uint16Array(m);
+  const partitionStarts = new Uint32Array(partitions + 1);
+  const key = new Uint32Array(1);
+  let rows = 0;
+  for (let id = 0; id < counts.length; id++) {
+    if (counts[id] === 0) continue;
+    key[0] = id;
+    const partition = partitionOf(key, 0, 1, partitions);
+    partitionOfRow[rows++] = partition;
+    partitionStarts[partition + 1]++;
+  }
+  assert(rows === m, `counter size ${m} disagrees with the ids counted, ${rows}`);
+  for (let p = 0; p < partitions; p++) partitionStarts[p + 1] += partitionStarts[p];
+  // Partition p: its ids at scratch[2·begin ..), then its counts.
+  const placed = new Uint32Array(partitions);
+  rows = 0;
+  for (let id = 0; id < counts.length; id++) {
+    if (counts[id] === 0) continue;
+    const p = partitionOfRow[rows++];
+    const begin = partitionStarts[p];
+    const size = partitionStarts[p + 1] - begin;
+    const j = placed[p]++;
+    scratch[2 * begin + j] = id;
+    scratch[2 * begin + size + j] = counts[id];
+  }
+  const sizeOf = (p: number): number => partitionStarts[p + 1] - partitionStarts[p];
+  return {
+    recordsOf: sizeOf,
+    keysOf: (p) => scratch.subarray(2 * partitionStarts[p], 2 * partitionStarts[p] + sizeOf(p)),
+    countsOf: (p) => scratch.subarray(2 * partitionStarts[p] + sizeOf(p), 2 * partitionStarts[p + 1]),
+  };
+}
+
+/**
+ * One stable counting pass over rows begin..end of `source` by the digit (row[word] >>> shift) &
+ * mask, into the same rows of `target`. Returns false, moving nothing, when every row has the
+ * same digit (the order would not change).
+ */
+function radixPass(
+  source: Uint32Array, target: Uint32Array, begin: number, end: number, stride: number,
+  word: number, shift: number, mask: number, histogram: Uint32Array,
+): boolean {
+  histogram.fill(0);
+  for (let j = begin * stride + word, last = end * stride; j < last; j += stride) histogram[(source[j] >>> shift) & mask]++;
+  const rows = end - begin;
+  let offset = begin;
+  for (let b = 0; b <= mask; b++) {
+    const n = histogram[b];
+    if (n === rows) return false;
+    histogram[b] = offset;
+    offset += n;
+  }
+  for (let from = begin * stride, last = end * stride; from < last; from += stride) {
+    const to = histogram[(source[from + word] >>> shift) & mask]++ * stride;
+    for (let w = 0; w < stride; w++) target[to + w] = source[from + w];
+  }
+  return true;
+}
+
+/**
+ * Rows begin..end of `rows` (count, ids), sorted, → in `target`'s same words: the ids row-major,
+ * then (after room for every row's ids) the counts. With `merge`, equal adjacent n-grams become one
+ * record with the sum of their counts. Returns the records written.
+ */
+function splitRows(rows: Uint32Array, target: Uint32Array, begin: number, end: number, stride: number, order: number, merge: boolean): number {
+  const keysAt = begin * stride;
+  const countsAt = keysAt + (end - begin) * order;
+  let records = 0;
+  for (let j = begin; j < end; j++) {
+    const from = j * stride;
+    if (merge && records > 0) {
+      const previous = keysAt + (records - 1) * order;
+      let k = 0;
+      while (k < order && target[previous + k] === rows[from + 1 + k]) k++;
+      if (k === order) {
+        const sum = target[countsAt + records - 1] + rows[from];
+        assert(sum <= 0xffff_ffff, 'counter overflow: spill before 2^32 occurrences');
+        target[countsAt + records - 1] = sum;
+        continue;
+      }
+    }
+    target[countsAt + records] = rows[from];
+    const keyAt = keysAt + records * order;
+    for (let k = 0; k < order; k++) target[keyAt + k] = rows[from + 1 + k];
+    records++;
+  }
+  return records;
 }

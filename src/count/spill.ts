@@ -1,7 +1,10 @@
 /**
  * Spilling a CounterSet: every non-empty counter is sorted (spill-sort.ts) and written as one run
- * file per partition, then the set is cleared. Used by the n-gram pass and by the continuation
- * pass, which differ only in where their runs go.
+ * file per partition (up to SPILL_FILES_WRITING_MAX at once), then the set is cleared. When a write
+ * fails, the writes in flight end before the error is thrown; as when files were written one by one,
+ * the runs finished before a failure are left unrecorded, for the stage's clean-up of unrecorded
+ * runs. Used by the n-gram pass and by the continuation pass, which differ only in where their runs
+ * go.
  */
 import * as path from 'node:path';
 import type { StageFs } from '../job/fsio.ts';
@@ -9,6 +12,7 @@ import type { RunRecord } from '../job/manifest.ts';
 import type { CounterSet } from './counter-set.ts';
 import { writeRunFile } from './run-file.ts';
 import { spillOrder } from './spill-sort.ts';
+import { SPILL_FILES_WRITING_MAX } from '../limits.ts';
 
 export interface SpillTarget {
   fs: StageFs;
@@ -25,29 +29,43 @@ export interface SpillTarget {
 
 export async function spillCounterSet(set: CounterSet, target: SpillTarget): Promise<RunRecord[]> {
   const runs: RunRecord[] = [];
-  for (const counter of set.counters) {
-    if (counter.size === 0) continue;
-    const order = counter.order;
-    const { slots, partitionStarts } = spillOrder(counter, target.partitions, target.idMax);
-    for (let p = 0; p < target.partitions; p++) {
-      const begin = partitionStarts[p];
-      const records = partitionStarts[p + 1] - begin;
-      if (records === 0) continue;
-      const keys = new Uint32Array(records * order);
-      const counts = new Uint32Array(records);
-      for (let j = 0; j < records; j++) {
-        const slot = slots[begin + j];
-        keys.set(counter.keys.subarray(slot * order, slot * order + order), j * order);
-        counts[j] = counter.counts[slot];
-      }
-      const file = target.fileFor(order, p);
-      const absolute = path.join(target.jobDir, file);
-      await target.fs.mkdir(path.dirname(absolute));
-      const meta = { order, partition: p, chunk: target.chunk, spill: target.spill };
-      const info = await writeRunFile(target.fs, absolute, meta, keys, counts, records);
-      runs.push({ file, order, partition: p, records, bytes: info.fileBytes });
+  // Sorting destroys a table's hash layout, so the set is cleared even when a write fails: its
+  // entries are lost either way, and a worker must never count on top of a half-spilled set.
+  try {
+    for (const counter of set.counters) {
+      if (counter.size === 0) continue;
+      const order = counter.order;
+      const sorted = spillOrder(counter, target.partitions, target.idMax, set.sortScratch());
+      // Each run file is synced on its own; several in flight let the syncs overlap (with many small
+      // chunks, waiting for them one by one was most of the count stage).
+      const written: Array<RunRecord | undefined> = new Array(target.partitions);
+      let next = 0;
+      let failed = false;
+      const writer = async (): Promise<void> => {
+        while (!failed && next < target.partitions) {
+          const p = next++;
+          const records = sorted.recordsOf(p);
+          if (records === 0) continue;
+          const file = target.fileFor(order, p);
+          const absolute = path.join(target.jobDir, file);
+          try {
+            await target.fs.mkdir(path.dirname(absolute));
+            const meta = { order, partition: p, chunk: target.chunk, spill: target.spill };
+            const info = await writeRunFile(target.fs, absolute, meta, sorted.keysOf(p), sorted.countsOf(p), records);
+            written[p] = { file, order, partition: p, records, bytes: info.fileBytes };
+          } catch (error) {
+            failed = true;
+            throw error;
+          }
+        }
+      };
+      const outcomes = await Promise.allSettled(Array.from({ length: Math.min(SPILL_FILES_WRITING_MAX, target.partitions) }, writer));
+      const failure = outcomes.find((o): o is PromiseRejectedResult => o.status === 'rejected');
+      if (failure) throw failure.reason;
+      for (const run of written) if (run) runs.push(run);
     }
+  } finally {
+    set.clear();
   }
-  set.clear();
   return runs;
 }

@@ -1,19 +1,21 @@
 /**
- * A count worker thread. In the vocabulary phase it counts word strings per chunk; in the count
- * phase it turns words into ids and counts n-grams of orders 1..N in its CounterSet, spilling
- * sorted, partitioned run files when its budget is reached and at the end of every chunk (so a
- * finished chunk is a durable unit of work).
+ * A count worker thread. In the vocabulary phase it counts words per chunk in a word table keyed
+ * by their UTF-8 bytes; in the count phase it turns words into ids through a table of the
+ * vocabulary and counts n-grams of orders 1..N in its CounterSet, spilling sorted, partitioned run
+ * files when its budget is reached and at the end of every chunk (so a finished chunk is a durable
+ * unit of work). Tokens come from corpus/read-tokens.ts, a read block at a time.
  */
 import { parentPort } from 'node:worker_threads';
-import * as path from 'node:path';
 import { QuernError } from '../errors.ts';
-import { readChunk } from '../corpus/read.ts';
-import { makeTokenizer } from '../corpus/tokenize.ts';
-import { BOS_ID, UNK } from '../corpus/vocabulary.ts';
+import { COUNTER_BATCH_POSITIONS } from '../limits.ts';
+import { RESERVED_WORDS, reserveWords, type TokenBlock } from '../corpus/byte-tokenizer.ts';
+import { TokenReader } from '../corpus/read-tokens.ts';
+import { BOS_ID } from '../corpus/vocabulary.ts';
+import { WordTable } from '../corpus/word-table.ts';
 import { stageFs } from '../job/fsio.ts';
 import type { RunRecord } from '../job/manifest.ts';
 import type { Chunk, ReadOptions } from '../corpus/types.ts';
-import { CounterSet } from './counter-set.ts';
+import { CounterSet, type CounterNeed } from './counter-set.ts';
 import { spillCounterSet } from './spill.ts';
 import { mergePartition, type PartitionMergeTask } from '../merge/merge-partition.ts';
 import { partitionStoreDir } from '../merge/store.ts';
@@ -32,8 +34,6 @@ function readOptionsOf(chunk: Chunk): ReadOptions {
 }
 // The phase this worker is in, set by each 'init' message: one worker serves every phase of a job.
 let init: WorkerInit;
-let tokenize: ReturnType<typeof makeTokenizer>;
-const tokens: string[] = [];
 
 function post(message: FromWorker): void {
   port.postMessage(message);
@@ -60,106 +60,225 @@ function progressReporter(): (bytesRead: number) => void {
   };
 }
 
+/**
+ * N-grams per input byte (tokens + sentences, the occurrences of each order at most), learned in
+ * the vocabulary phase and from counted chunks, by kind of input (gzip bytes hold several times more
+ * text). It sizes the counters before a chunk (CounterSet.presize); it never changes a result.
+ */
+const ngramsPerByte = { plain: 0, gzip: 0 };
+
+function learnNgramsPerByte(chunk: Chunk, ngrams: number): void {
+  const bytes = chunk.byteEnd - chunk.byteStart;
+  if (bytes <= 0) return;
+  const kind = init.inputs[chunk.fileIndex].gzip ? 'gzip' : 'plain';
+  ngramsPerByte[kind] = Math.max(ngramsPerByte[kind], ngrams / bytes);
+}
+
 // ---- vocabulary phase ----------------------------------------------------------------------
 
-// Word → slot in `slotCounts`: an existing word costs one Map lookup, not a get and a set.
-let wordSlots = new Map<string, number>();
-let slotCounts: number[] = [];
-let unkSeen = 0;
+// Every word this worker has seen, with its count by entry; entries 0..2 are the reserved words
+// (`<s>`, `</s>`, `<unk>`), whose occurrences in the text count as `<unk>`.
+let vocabTable: WordTable | undefined;
+let vocabReader: TokenReader | undefined;
+let entryCounts = new Float64Array(0);
 
 async function vocabChunk(chunk: Chunk): Promise<void> {
+  if (!vocabTable) {
+    vocabTable = new WordTable();
+    reserveWords(vocabTable);
+    vocabReader = new TokenReader(init.normalize, vocabTable, true);
+  }
+  const table = vocabTable;
   let chunkTokens = 0;
-  const reads = await readChunk(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), (sentence) => {
-    const n = tokenize(sentence, tokens);
-    for (let i = 0; i < n; i++) {
-      const word = tokens[i];
-      const slot = wordSlots.get(word);
-      if (slot !== undefined) slotCounts[slot]++;
-      else if (word === UNK) unkSeen++;
-      else {
-        wordSlots.set(word, slotCounts.length);
-        slotCounts.push(1);
-      }
+  const reads = await vocabReader!.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), (block) => {
+    if (entryCounts.length < table.size) {
+      const counts = new Float64Array(Math.max(table.size, 2 * entryCounts.length));
+      counts.set(entryCounts);
+      entryCounts = counts;
     }
-    chunkTokens += n;
-    progressTokens += n;
+    const counts = entryCounts;
+    const entries = block.entries;
+    for (let i = 0; i < block.tokens; i++) counts[entries[i]]++;
+    chunkTokens += block.tokens;
+    progressTokens += block.tokens;
   }, progressReporter());
+  learnNgramsPerByte(chunk, chunkTokens + reads.sentences);
   flushProgress(true);
   post({ type: 'done', chunk: chunk.index, reads, tokens: chunkTokens });
 }
 
+function vocabFinished(): FromWorker {
+  const words: string[] = [];
+  const counts: number[] = [];
+  let unkSeen = 0;
+  const table = vocabTable;
+  if (table) {
+    for (let entry = 0; entry < RESERVED_WORDS.length; entry++) unkSeen += entryCounts[entry] ?? 0;
+    for (let entry = RESERVED_WORDS.length; entry < table.size; entry++) {
+      words.push(table.word(entry));
+      counts.push(entryCounts[entry]);
+    }
+  }
+  return { type: 'finished', words, counts, unkSeen };
+}
+
 // ---- count phase ---------------------------------------------------------------------------
 
-let wordIds: Map<string, number> | undefined;
-let counters: CounterSet | undefined;
-let ids = new Uint32Array(1024);
+interface CountState {
+  reader: TokenReader;
+  /** idOfEntry[entry] = the word id of a word-table entry (`<unk>` for the reserved words). */
+  idOfEntry: Uint32Array;
+  counters: CounterSet;
+}
 
-function countState(): { wordIds: Map<string, number>; counters: CounterSet } {
-  if (!wordIds) {
-    wordIds = new Map();
+let countState: CountState | undefined;
+/** Per input byte, by order: counter entries and table entries at the end of the last chunk counted
+ *  without a budget spill (plain input). */
+let needsPerByte: CounterNeed[] | undefined;
+
+function countStateOf(): CountState {
+  if (!countState) {
     const words = init.words!;
-    for (let id = 1; id < words.length; id++) wordIds.set(words[id], id);
-    counters = new CounterSet(init.order, init.counterBytesMax!);
+    const table = WordTable.sizedFor(RESERVED_WORDS.length + words.length);
+    reserveWords(table);
+    // Entries from 3 on are the vocabulary's words; `</s>` and `<unk>` are in the vocabulary too,
+    // but as text they are reserved entries, which read as `<unk>`.
+    const idOfEntry = new Uint32Array(RESERVED_WORDS.length + words.length);
+    idOfEntry.fill(init.unkId!, 0, RESERVED_WORDS.length);
+    for (let id = 1; id < words.length; id++) {
+      const entry = table.internWord(words[id]);
+      if (entry >= RESERVED_WORDS.length) idOfEntry[entry] = id;
+    }
+    const counters = new CounterSet(init.order, init.counterBytesMax!, words.length);
+    countState = { reader: new TokenReader(init.normalize, table, false), idOfEntry, counters };
   }
-  return { wordIds, counters: counters! };
+  return countState;
 }
 
 /** Writes every non-empty counter as sorted run files, one per partition, and clears it. */
 async function spillAll(chunk: number, spill: number, runs: RunRecord[]): Promise<void> {
-  runs.push(...await spillCounterSet(counters!, {
+  runs.push(...await spillCounterSet(countState!.counters, {
     fs, jobDir: init.jobDir, partitions: init.partitions, idMax: init.words!.length, chunk, spill,
     fileFor: (order, partition) => runFilePath(order, partition, chunk, spill),
   }));
 }
 
-async function countChunk(chunk: Chunk): Promise<void> {
-  const { wordIds: map, counters: set } = countState();
+/** Sizes the (empty) counters for `chunk` from what earlier chunks showed. */
+function presizeFor(chunk: Chunk, counters: CounterSet): void {
+  const bytes = chunk.byteEnd - chunk.byteStart;
+  const gzip = init.inputs[chunk.fileIndex].gzip;
+  let needs: CounterNeed[];
+  if (needsPerByte !== undefined && !gzip) {
+    // A little headroom: the next chunk may be a little richer.
+    needs = needsPerByte.map((need) => ({ entries: Math.ceil(1.1 * need.entries * bytes), tableEntries: Math.ceil(1.1 * need.tableEntries * bytes) }));
+  } else {
+    const rate = ngramsPerByte[gzip ? 'gzip' : 'plain'];
+    if (rate === 0) return;
+    // Unknown yet: each order has at most as many entries as occurrences, order 1 at most the
+    // vocabulary; a guess of an eighth of them repeated (the table grows if that is short).
+    const ngrams = Math.ceil(1.1 * rate * bytes);
+    needs = Array.from({ length: init.order }, (_, n) => {
+      const entries = n === 0 ? Math.min(ngrams, init.words!.length) : ngrams;
+      return { entries, tableEntries: n === 0 ? entries : Math.ceil(entries / 8) };
+    });
+  }
+  counters.presize(needs);
+}
+
+/** The sentences of the current block wrapped as id sequences: sentence s is
+ *  wrapped[wrappedStarts[s] .. wrappedStarts[s+1]), `<s>` first and `</s>` last. */
+let wrapped = new Uint32Array(1 << 16);
+let wrappedStarts = new Uint32Array(1 << 12);
+
+/** Turns the block's sentences into word ids, wrapped; adds their n-gram occurrences per order. */
+function wrapSentences(block: TokenBlock, state: CountState, occurrences: number[]): void {
+  const { idOfEntry } = state;
+  const entries = block.entries;
+  const ends = block.sentenceEnds;
   const eosId = init.eosId!;
   const unkId = init.unkId!;
+  const orderMax = init.order;
+  if (wrapped.length < block.tokens + 2 * block.sentences) wrapped = new Uint32Array(2 * (block.tokens + 2 * block.sentences));
+  if (wrappedStarts.length < block.sentences + 1) wrappedStarts = new Uint32Array(2 * (block.sentences + 1));
+  const out = wrapped;
+  let at = 0;
+  let tokenStart = 0;
+  for (let s = 0; s < block.sentences; s++) {
+    const tokenEnd = ends[s];
+    const n = tokenEnd - tokenStart;
+    wrappedStarts[s] = at;
+    out[at++] = BOS_ID;
+    for (let i = tokenStart; i < tokenEnd; i++) {
+      const entry = entries[i];
+      out[at++] = entry < 0 ? unkId : idOfEntry[entry];
+    }
+    out[at++] = eosId;
+    // A wrapped sentence of n+2 ids has an n-gram of order k ending at positions max(1,k−1)..n+1.
+    for (let k = 1; k <= orderMax; k++) occurrences[k - 1] += Math.max(0, n + 2 - Math.max(1, k - 1));
+    tokenStart = tokenEnd;
+  }
+  wrappedStarts[block.sentences] = at;
+}
+
+/**
+ * Counts the wrapped sentences `first .. sentences−1` as long as the budget allows, in batches of
+ * up to COUNTER_BATCH_POSITIONS positions (one sentence at a time near the budget). Returns the
+ * first sentence not counted (`sentences` when all were).
+ */
+function countSentences(first: number, sentences: number, counters: CounterSet): number {
+  const starts = wrappedStarts;
+  let s = first;
+  while (s < sentences) {
+    let end = s + 1;
+    let positions = starts[end] - starts[s] - 1;
+    while (end < sentences && positions + (starts[end + 1] - starts[end] - 1) <= COUNTER_BATCH_POSITIONS) {
+      positions += starts[end + 1] - starts[end] - 1;
+      end++;
+    }
+    if (!counters.reserve(positions + 1)) {
+      if (end - s === 1) return s;
+      end = s + 1;
+      if (!counters.reserve(starts[end] - starts[s])) return s;
+    }
+    counters.addSentences(wrapped, starts, s, end);
+    s = end;
+  }
+  return sentences;
+}
+
+async function countChunk(chunk: Chunk): Promise<void> {
+  const state = countStateOf();
+  const set = state.counters;
   const runs: RunRecord[] = [];
   let spillSeq = 0;
   let budgetSpills = 0;
   let chunkTokens = 0;
   const occurrences = new Array<number>(init.order).fill(0);
-  // The reader calls back synchronously for every sentence of a block, but a spill writes files
-  // (async). So a sentence that does not fit waits in the backlog — at most one read block's worth —
-  // and the spill runs between blocks, in the reader's awaited progress callback.
-  const backlog: Uint32Array[] = [];
-  const drain = async (): Promise<void> => {
-    if (backlog.length === 0) return;
-    await spillAll(chunk.index, spillSeq++, runs);
-    budgetSpills++;
-    for (const sentence of backlog) {
-      if (!set.reserve(sentence.length)) {
-        await spillAll(chunk.index, spillSeq++, runs);
-        budgetSpills++;
-        if (!set.reserve(sentence.length)) {
-          throw new QuernError('limit', `a sentence of ${sentence.length - 2} tokens in ${init.inputs[chunk.fileIndex].path} does not fit the counting budget of ${set.bytesMax} bytes per worker; raise --memory`);
-        }
+  presizeFor(chunk, set);
+  // Tokens arrive a read block at a time; when the budget runs out in a block, the counters are
+  // spilled (async: it writes files) and counting goes on from the sentence that did not fit.
+  const onTokens = async (block: TokenBlock): Promise<void> => {
+    chunkTokens += block.tokens;
+    progressTokens += block.tokens;
+    wrapSentences(block, state, occurrences);
+    let next = countSentences(0, block.sentences, set);
+    while (next < block.sentences) {
+      await spillAll(chunk.index, spillSeq++, runs);
+      budgetSpills++;
+      const after = countSentences(next, block.sentences, set);
+      if (after === next) {
+        const length = wrappedStarts[next + 1] - wrappedStarts[next] - 2;
+        throw new QuernError('limit', `a sentence of ${length} tokens in ${init.inputs[chunk.fileIndex].path} does not fit the counting budget of ${set.bytesMax} bytes per worker; raise --memory`);
       }
-      set.addSentence(sentence, sentence.length);
+      next = after;
     }
-    backlog.length = 0;
   };
-  const reportProgress = progressReporter();
-
-  await readChunk(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), (sentence) => {
-    const n = tokenize(sentence, tokens);
-    if (ids.length < n + 2) ids = new Uint32Array(2 * (n + 2));
-    ids[0] = BOS_ID;
-    for (let i = 0; i < n; i++) ids[i + 1] = map.get(tokens[i]) ?? unkId;
-    ids[n + 1] = eosId;
-    chunkTokens += n;
-    progressTokens += n;
-    // A wrapped sentence of n+2 ids has an n-gram of order k ending at positions max(1,k−1)..n+1.
-    for (let k = 1; k <= init.order; k++) occurrences[k - 1] += Math.max(0, n + 2 - Math.max(1, k - 1));
-    if (backlog.length === 0 && set.reserve(n + 2)) set.addSentence(ids, n + 2);
-    else backlog.push(ids.slice(0, n + 2));
-  }, (bytesRead) => {
-    reportProgress(bytesRead);
-    return backlog.length > 0 ? drain() : undefined;
-  });
-  await drain();
+  const reads = await state.reader.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), onTokens, progressReporter());
+  if (budgetSpills === 0) {
+    const bytes = chunk.byteEnd - chunk.byteStart;
+    if (bytes > 0 && !init.inputs[chunk.fileIndex].gzip) needsPerByte = set.counters.map((c) => ({ entries: c.size / bytes, tableEntries: c.tableSize / bytes }));
+  }
+  learnNgramsPerByte(chunk, chunkTokens + reads.sentences);
   // The end of a chunk is a spill point: a finished chunk is then wholly in durable run files.
   await spillAll(chunk.index, spillSeq++, runs);
   flushProgress(true);
@@ -193,12 +312,16 @@ async function emitTask(partition: number): Promise<void> {
 /** Starts a phase: its settings, and a fresh state for it. */
 function startPhase(next: WorkerInit): void {
   init = next;
-  tokenize = makeTokenizer(init.normalize);
-  wordSlots = new Map();
-  slotCounts = [];
-  unkSeen = 0;
-  wordIds = undefined;
-  counters = undefined;
+  releasePhaseState();
+}
+
+/** Lets the phase's memory go before the next one. */
+function releasePhaseState(): void {
+  vocabTable = undefined;
+  vocabReader = undefined;
+  entryCounts = new Float64Array(0);
+  countState = undefined;
+  needsPerByte = undefined;
 }
 
 async function handle(message: ToWorker): Promise<void> {
@@ -207,16 +330,8 @@ async function handle(message: ToWorker): Promise<void> {
     return;
   }
   if (message.type === 'finish') {
-    if (init.phase === 'vocab') {
-      post({ type: 'finished', words: [...wordSlots.keys()], counts: slotCounts, unkSeen });
-    } else {
-      post({ type: 'finished' });
-    }
-    // Let the phase's memory go before the next one.
-    wordSlots = new Map();
-    slotCounts = [];
-    wordIds = undefined;
-    counters = undefined;
+    post(init.phase === 'vocab' ? vocabFinished() : { type: 'finished' });
+    releasePhaseState();
     return;
   }
   if (message.type === 'partition') await mergeTask(message.task);

@@ -1,0 +1,207 @@
+/**
+ * Tokenizing straight from UTF-8 bytes into word-table entries: the fast path of both corpus
+ * passes for text split on white space. A token is a maximal run of bytes that are not white
+ * space, where white space is exactly the tokenizer's set (JS `\s`, `isSpaceCode` in tokenize.ts):
+ * the ASCII ones and U+00A0, U+1680, U+2000–U+200A, U+2028, U+2029, U+202F, U+205F, U+3000,
+ * U+FEFF, recognised by their byte sequences. No string is made per token: each token is hashed
+ * while its end is sought and looked up in the word table by its bytes.
+ *
+ * The result of a block of lines is a `TokenBlock`: the tokens' entries in order and where each
+ * sentence (non-blank line) ends. Lines that need what only strings offer (Unicode normalisation,
+ * non-ASCII lower-casing, grapheme splitting) go through `addSentenceText` with the string
+ * tokenizer instead, into the same block.
+ */
+import { assert } from '../errors.ts';
+import { UNKNOWN_TOKEN, type Tokenizer } from './tokenize.ts';
+import { FNV_OFFSET, FNV_PRIME, hashBytes, type WordTable } from './word-table.ts';
+
+/** Tokens of a run of lines, as word-table entries. */
+export interface TokenBlock {
+  /** entries[0 .. tokens): the entry of each token in input order; −1 for a word the table does
+   *  not hold (lookup mode only). */
+  entries: Int32Array;
+  tokens: number;
+  /** sentenceEnds[0 .. sentences): sentence i is entries[sentenceEnds[i−1] (0 for i = 0) ..
+   *  sentenceEnds[i]). A sentence may have no tokens when a normalisation removed them all. */
+  sentenceEnds: Uint32Array;
+  sentences: number;
+  /** Lines seen, blank ones included. */
+  lines: number;
+  /** Lines that were empty or held only white space (not sentences). */
+  blankLines: number;
+}
+
+export function newTokenBlock(): TokenBlock {
+  return { entries: new Int32Array(1 << 16), tokens: 0, sentenceEnds: new Uint32Array(1 << 12), sentences: 0, lines: 0, blankLines: 0 };
+}
+
+/** Empties a block, keeping its arrays. */
+export function clearTokenBlock(block: TokenBlock): void {
+  block.tokens = 0;
+  block.sentences = 0;
+  block.lines = 0;
+  block.blankLines = 0;
+}
+
+function growEntries(block: TokenBlock): Int32Array {
+  const entries = new Int32Array(2 * block.entries.length);
+  entries.set(block.entries.subarray(0, block.tokens));
+  block.entries = entries;
+  return entries;
+}
+
+/** Counts one line; a line with tokens since the last sentence end is a sentence. */
+function endLine(block: TokenBlock, blank: boolean): void {
+  block.lines++;
+  if (blank) {
+    block.blankLines++;
+    return;
+  }
+  if (block.sentences === block.sentenceEnds.length) {
+    const ends = new Uint32Array(2 * block.sentenceEnds.length);
+    ends.set(block.sentenceEnds);
+    block.sentenceEnds = ends;
+  }
+  block.sentenceEnds[block.sentences++] = block.tokens;
+}
+
+// Byte classes for the scanner.
+const WORD = 0;
+const SPACE = 1;
+const NEWLINE = 2;
+/** Lead byte of a multi-byte white-space character (C2, E1, E2, E3, EF), or of another character. */
+const MAYBE_SPACE = 3;
+
+const BYTE_CLASS = new Uint8Array(256);
+for (const b of [0x09, 0x0b, 0x0c, 0x0d, 0x20]) BYTE_CLASS[b] = SPACE;
+BYTE_CLASS[0x0a] = NEWLINE;
+for (const b of [0xc2, 0xe1, 0xe2, 0xe3, 0xef]) BYTE_CLASS[b] = MAYBE_SPACE;
+
+/**
+ * Width in bytes of the multi-byte white-space character starting at bytes[p], or 0 when the
+ * character there is not white space. bytes[p .. end) must be valid UTF-8.
+ */
+export function multiByteSpaceWidth(bytes: Uint8Array, p: number, end: number): number {
+  const b0 = bytes[p];
+  if (b0 === 0xc2) return p + 1 < end && bytes[p + 1] === 0xa0 ? 2 : 0; // U+00A0
+  if (p + 2 >= end) return 0;
+  const b1 = bytes[p + 1];
+  const b2 = bytes[p + 2];
+  switch (b0) {
+    case 0xe1: // U+1680
+      return b1 === 0x9a && b2 === 0x80 ? 3 : 0;
+    case 0xe2: // U+2000–U+200A, U+2028, U+2029, U+202F (E2 80 xx); U+205F (E2 81 9F)
+      if (b1 === 0x80) return b2 <= 0x8a || b2 === 0xa8 || b2 === 0xa9 || b2 === 0xaf ? 3 : 0;
+      return b1 === 0x81 && b2 === 0x9f ? 3 : 0;
+    case 0xe3: // U+3000
+      return b1 === 0x80 && b2 === 0x80 ? 3 : 0;
+    case 0xef: // U+FEFF
+      return b1 === 0xbb && b2 === 0xbf ? 3 : 0;
+    default:
+      return 0;
+  }
+}
+
+/**
+ * Splits bytes[start, end) — valid UTF-8 holding whole lines, each ending with '\n' except perhaps
+ * the last — on white space and appends the tokens' entries and the sentence ends to `out`. With
+ * `intern`, new words are added to `table`; otherwise they get entry −1. Text is taken as it is:
+ * no normalisation, no lower-casing (the caller lower-cases ASCII bytes beforehand), and the
+ * sentence markers are left to the table (the passes keep entries for `<s>`, `</s>`, `<unk>`).
+ */
+export function scanLines(bytes: Uint8Array, start: number, end: number, table: WordTable, intern: boolean, out: TokenBlock): void {
+  let entries = out.entries;
+  let tokens = out.tokens;
+  let lineStart = tokens;
+  let p = start;
+  while (p < end) {
+    const c = BYTE_CLASS[bytes[p]];
+    if (c === SPACE) {
+      p++;
+      continue;
+    }
+    if (c === NEWLINE) {
+      out.tokens = tokens;
+      endLine(out, tokens === lineStart);
+      lineStart = tokens;
+      p++;
+      continue;
+    }
+    if (c === MAYBE_SPACE) {
+      const width = multiByteSpaceWidth(bytes, p, end);
+      if (width !== 0) {
+        p += width;
+        continue;
+      }
+    }
+    // A token starts at p: hash it while seeking its end.
+    const tokenStart = p;
+    let h = FNV_OFFSET;
+    for (;;) {
+      h = Math.imul(h ^ bytes[p], FNV_PRIME);
+      if (++p === end) break;
+      const next = BYTE_CLASS[bytes[p]];
+      if (next === WORD) continue;
+      if (next !== MAYBE_SPACE || multiByteSpaceWidth(bytes, p, end) !== 0) break;
+    }
+    if (tokens === entries.length) {
+      out.tokens = tokens;
+      entries = growEntries(out);
+    }
+    entries[tokens++] = intern ? table.intern(bytes, tokenStart, p, h) : table.find(bytes, tokenStart, p, h);
+  }
+  out.tokens = tokens;
+  if (end > start && bytes[end - 1] !== 0x0a) endLine(out, tokens === lineStart);
+}
+
+/**
+ * Copies bytes[start, end) into `target` (at 0) with A–Z lower-cased: String.prototype.toLowerCase
+ * of ASCII text. Returns `target`, or a larger buffer when it was too small.
+ */
+export function lowerAscii(bytes: Buffer, start: number, end: number, target: Buffer): Buffer {
+  if (target.length < end - start) target = Buffer.allocUnsafe(Math.max(end - start, 2 * target.length));
+  // Three native passes beat a JS loop over the bytes.
+  target.write(bytes.toString('latin1', start, end).toLowerCase(), 0, 'latin1');
+  return target;
+}
+
+/**
+ * Appends one sentence given as text (a non-blank line, raw) through the string tokenizer: for
+ * lines the byte scanner cannot take (normalisation, non-ASCII lower-casing, 'chars' splitting)
+ * and for JSONL text fields. Each token is encoded to UTF-8 and looked up like a scanned one.
+ */
+export class SentenceTextAdder {
+  private readonly strings: string[] = [];
+  private scratch = Buffer.allocUnsafe(1 << 12);
+
+  constructor(private readonly tokenize: Tokenizer) {}
+
+  add(text: string, table: WordTable, intern: boolean, out: TokenBlock): void {
+    const strings = this.strings;
+    const count = this.tokenize(text, strings);
+    for (let i = 0; i < count; i++) {
+      const token = strings[i];
+      if (this.scratch.length < 3 * token.length) this.scratch = Buffer.allocUnsafe(Math.max(3 * token.length, 2 * this.scratch.length));
+      const length = this.scratch.write(token, 0, 'utf8');
+      const h = hashBytes(this.scratch, 0, length);
+      if (out.tokens === out.entries.length) growEntries(out);
+      out.entries[out.tokens++] = intern ? table.intern(this.scratch, 0, length, h) : table.find(this.scratch, 0, length, h);
+    }
+    endLine(out, false);
+  }
+
+  /** Counts a blank line (one the reader or the caller found to hold only white space). */
+  static blankLine(out: TokenBlock): void {
+    endLine(out, true);
+  }
+}
+
+/** The words every pass keeps a table entry for, so that text can never forge them: entries 0..2
+ *  of a fresh table, each counted as `<unk>` (tokenize.ts: the sentence markers are reserved). */
+export const RESERVED_WORDS: readonly string[] = ['<s>', '</s>', UNKNOWN_TOKEN];
+
+/** A word table holding the reserved words as entries 0..2. */
+export function reserveWords(table: WordTable): void {
+  assert(table.size === 0, 'reserved words go first into an empty table');
+  for (const word of RESERVED_WORDS) table.internWord(word);
+}

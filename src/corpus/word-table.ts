@@ -1,0 +1,196 @@
+/**
+ * Word table: the distinct words of a text keyed by their UTF-8 bytes, each with a dense entry
+ * number (0, 1, 2, … in order of first insertion). The hot path of both corpus passes looks every
+ * token up here straight from the input bytes, so no string is made per token.
+ *
+ * Open addressing with linear probing over one Int32Array of [hash, record] pairs (one cache line
+ * per probe); each word's record — its entry, its length and its bytes — lies in one arena, so a
+ * lookup touches a slot and a record. Hashes are FNV-1a over the bytes, which a scanner can compute
+ * while it looks for the token's end, then mixed (fmix32) before use.
+ */
+import { assert } from '../errors.ts';
+import { WORD_TABLE_LOAD_MAX, WORD_TABLE_SLOTS_MIN } from '../limits.ts';
+
+/** FNV-1a (32-bit) offset basis and prime: start a token's hash at the basis, then per byte
+ *  `h = Math.imul(h ^ byte, FNV_PRIME)`. */
+export const FNV_OFFSET = 0x811c9dc5 | 0;
+export const FNV_PRIME = 0x01000193;
+
+/** FNV-1a hash of bytes[start, end), as a scanner computes it byte by byte. */
+export function hashBytes(bytes: Uint8Array, start: number, end: number): number {
+  let h = FNV_OFFSET;
+  for (let i = start; i < end; i++) h = Math.imul(h ^ bytes[i], FNV_PRIME);
+  return h;
+}
+
+/** murmur3's fmix32: spreads FNV's weak low bits over the whole word. Result as int32. */
+function fmix(h: number): number {
+  h ^= h >>> 16;
+  h = Math.imul(h, 0x85ebca6b);
+  h ^= h >>> 13;
+  h = Math.imul(h, 0xc2b2ae35);
+  return h ^ (h >>> 16);
+}
+
+export class WordTable {
+  /** [mixed hash, record + 1] per slot; 0 in the second word is an empty slot. */
+  private slots: Int32Array;
+  private mask: number;
+  private sizeMax: number;
+  /** Word records end to end, 4-byte aligned: [entry, byte length, bytes…]. A lookup reads one slot
+   *  and one record: two cache lines, not three (no separate array of offsets on the way). */
+  private arena8: Uint8Array;
+  private arena32: Uint32Array;
+  /** Words (32-bit) of the arena in use. */
+  private arenaWords = 0;
+  /** records[e]: where word e's record starts (in 32-bit words), for going from entry to word. */
+  private records: Uint32Array;
+  /** Words held. */
+  size = 0;
+  /** A Buffer over the arena, for decoding words. */
+  private arenaView: Buffer | undefined;
+  /** Room to encode a word given as a string. */
+  private scratch: Buffer = Buffer.allocUnsafe(256);
+
+  constructor(slots: number = WORD_TABLE_SLOTS_MIN) {
+    assert(slots >= 2 && (slots & (slots - 1)) === 0, `slots ${slots} must be a power of two`);
+    this.slots = new Int32Array(2 * slots);
+    this.mask = slots - 1;
+    this.sizeMax = Math.floor(slots * WORD_TABLE_LOAD_MAX);
+    this.arena32 = new Uint32Array(slots * 4);
+    this.arena8 = new Uint8Array(this.arena32.buffer);
+    this.records = new Uint32Array(this.sizeMax);
+  }
+
+  /** A table with room for `words` words before it grows. */
+  static sizedFor(words: number): WordTable {
+    let slots = WORD_TABLE_SLOTS_MIN;
+    while (Math.floor(slots * WORD_TABLE_LOAD_MAX) < words) slots *= 2;
+    return new WordTable(slots);
+  }
+
+  /** Bytes held by the table's arrays. */
+  get bytes(): number {
+    return this.slots.byteLength + this.arena32.byteLength + this.records.byteLength;
+  }
+
+  /**
+   * The entry of the word bytes[start, end) whose FNV-1a hash (`hashBytes`) is `hash`, or −1
+   * when the table does not hold it.
+   */
+  find(bytes: Uint8Array, start: number, end: number, hash: number): number {
+    const h = fmix(hash);
+    const slots = this.slots;
+    const mask = this.mask;
+    for (let slot = h & mask; ; slot = (slot + 1) & mask) {
+      const stored = slots[2 * slot + 1];
+      if (stored === 0) return -1;
+      if (slots[2 * slot] === h && this.holds(stored - 1, bytes, start, end)) return this.arena32[stored - 1];
+    }
+  }
+
+  /** Like `find`, but adds the word when it is new; returns its entry either way. */
+  intern(bytes: Uint8Array, start: number, end: number, hash: number): number {
+    const h = fmix(hash);
+    const slots = this.slots;
+    const mask = this.mask;
+    let slot = h & mask;
+    for (; ; slot = (slot + 1) & mask) {
+      const stored = slots[2 * slot + 1];
+      if (stored === 0) break;
+      if (slots[2 * slot] === h && this.holds(stored - 1, bytes, start, end)) return this.arena32[stored - 1];
+    }
+    if (this.size >= this.sizeMax) {
+      this.grow();
+      return this.intern(bytes, start, end, hash);
+    }
+    const entry = this.size;
+    const length = end - start;
+    const record = this.arenaWords;
+    const recordWords = 2 + ((length + 3) >>> 2);
+    if (record + recordWords > this.arena32.length) {
+      const arena32 = new Uint32Array(Math.max(2 * this.arena32.length, record + recordWords));
+      arena32.set(this.arena32.subarray(0, record));
+      this.arena32 = arena32;
+      this.arena8 = new Uint8Array(arena32.buffer);
+    }
+    this.arena32[record] = entry;
+    this.arena32[record + 1] = length;
+    const arena8 = this.arena8;
+    const from = 4 * (record + 2);
+    for (let i = 0; i < length; i++) arena8[from + i] = bytes[start + i];
+    this.arenaWords = record + recordWords;
+    this.records[entry] = record;
+    slots[2 * slot] = h;
+    slots[2 * slot + 1] = record + 1;
+    this.size = entry + 1;
+    return entry;
+  }
+
+  /** Interns a word given as a string (setup and the string paths; not the byte hot path). */
+  internWord(word: string): number {
+    const length = this.encode(word);
+    return this.intern(this.scratch, 0, length, hashBytes(this.scratch, 0, length));
+  }
+
+  /** The entry of a word given as a string, or −1. */
+  findWord(word: string): number {
+    const length = this.encode(word);
+    return this.find(this.scratch, 0, length, hashBytes(this.scratch, 0, length));
+  }
+
+  /** Writes the UTF-8 bytes of `word` to the scratch buffer; returns their length. */
+  private encode(word: string): number {
+    if (this.scratch.length < 3 * word.length) this.scratch = Buffer.allocUnsafe(Math.max(3 * word.length, 2 * this.scratch.length));
+    return this.scratch.write(word, 0, 'utf8');
+  }
+
+  /** The UTF-8 bytes of entry `entry` (a view into the arena, valid until the next insertion). */
+  wordBytes(entry: number): Uint8Array {
+    if (!(entry >= 0 && entry < this.size)) assert(false, `entry ${entry} must be in 0..${this.size - 1}`);
+    const record = this.records[entry];
+    return this.arena8.subarray(4 * (record + 2), 4 * (record + 2) + this.arena32[record + 1]);
+  }
+
+  /** The word of entry `entry` as a string. The bytes came from validated UTF-8 cut at code-point
+   *  boundaries, so decoding gives back exactly the text's characters. */
+  word(entry: number): string {
+    if (!(entry >= 0 && entry < this.size)) assert(false, `entry ${entry} must be in 0..${this.size - 1}`);
+    if (this.arenaView === undefined || this.arenaView.buffer !== this.arena8.buffer) {
+      this.arenaView = Buffer.from(this.arena8.buffer, this.arena8.byteOffset, this.arena8.byteLength);
+    }
+    const record = this.records[entry];
+    return this.arenaView.toString('utf8', 4 * (record + 2), 4 * (record + 2) + this.arena32[record + 1]);
+  }
+
+  /** True when the record at `record` holds exactly bytes[start, end). */
+  private holds(record: number, bytes: Uint8Array, start: number, end: number): boolean {
+    const length = end - start;
+    if (this.arena32[record + 1] !== length) return false;
+    const arena8 = this.arena8;
+    const from = 4 * (record + 2);
+    for (let i = 0; i < length; i++) if (arena8[from + i] !== bytes[start + i]) return false;
+    return true;
+  }
+
+  /** Doubles the slots, re-placing every word by its stored hash (the words are not read). */
+  private grow(): void {
+    const old = this.slots;
+    const slotCount = old.length; // 2 × old slots = the new slot count
+    this.slots = new Int32Array(2 * slotCount);
+    this.mask = slotCount - 1;
+    this.sizeMax = Math.floor(slotCount * WORD_TABLE_LOAD_MAX);
+    const records = new Uint32Array(this.sizeMax);
+    records.set(this.records.subarray(0, this.size));
+    this.records = records;
+    const slots = this.slots;
+    const mask = this.mask;
+    for (let i = 0; i < old.length; i += 2) {
+      if (old[i + 1] === 0) continue;
+      let slot = old[i] & mask;
+      while (slots[2 * slot + 1] !== 0) slot = (slot + 1) & mask;
+      slots[2 * slot] = old[i];
+      slots[2 * slot + 1] = old[i + 1];
+    }
+  }
+}

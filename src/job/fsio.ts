@@ -77,21 +77,32 @@ export const nodeFs: StageFs = {
 };
 
 /**
- * Writes `data` to `filePath` atomically: a temporary file beside it, fsync, rename, fsync of the
- * directory. A crash leaves either the old file or the new one, never a half-written one.
+ * Writes a file atomically through `write`, which appends to it: a temporary file beside it, fsync,
+ * rename, fsync of the directory. A crash or a failure leaves either the old file or the new one,
+ * never a half-written one (the temporary file is removed on failure).
  */
-export async function writeFileAtomic(fs: StageFs, filePath: string, data: Uint8Array | string): Promise<void> {
-  const bytes = typeof data === 'string' ? Buffer.from(data, 'utf8') : data;
+export async function writeFileThrough(fs: StageFs, filePath: string, write: (file: WritableFile) => Promise<void>): Promise<void> {
   const tmpPath = `${filePath}.${process.pid}.tmp`;
   const file = await fs.create(tmpPath);
   try {
-    await file.write(bytes);
-    await file.sync();
-  } finally {
-    await file.close();
+    try {
+      await write(file);
+      await file.sync();
+    } finally {
+      await file.close();
+    }
+    await fs.rename(tmpPath, filePath);
+  } catch (error) {
+    await fs.unlink(tmpPath).catch(() => undefined);
+    throw error;
   }
-  await fs.rename(tmpPath, filePath);
   await fs.syncDir(path.dirname(filePath));
+}
+
+/** Writes `data` to `filePath` atomically (writeFileThrough). */
+export async function writeFileAtomic(fs: StageFs, filePath: string, data: Uint8Array | string): Promise<void> {
+  const bytes = typeof data === 'string' ? Buffer.from(data, 'utf8') : data;
+  await writeFileThrough(fs, filePath, (file) => file.write(bytes));
 }
 
 export interface FaultPlan {

@@ -31,14 +31,13 @@
  */
 import { once } from 'node:events';
 import { promises as fsp } from 'node:fs';
-import * as path from 'node:path';
 import { Writable } from 'node:stream';
 import { assert, ioError, QuernError } from '../errors.ts';
 import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
 import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, modelRowCount, type LanguageModel, type MethodParameters, type ModelOrder } from '../estimate/model.ts';
 import { compareRow, searchRows } from '../estimate/rows.ts';
-import type { StageFs } from '../job/fsio.ts';
+import { writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { ARPA_LOG10_ZERO, ARPA_SIGNIFICANT_DIGITS, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
 
 /** What Quern records about a model beside its ARPA tables (the `quern-model` line). */
@@ -150,31 +149,19 @@ function drained(out: NodeJS.WritableStream): Promise<void> {
  * rename, directory fsync (no half-written file is ever left under `filePath`).
  */
 export async function writeArpaFile(model: LanguageModel, fs: StageFs, filePath: string): Promise<void> {
-  const tmpPath = `${filePath}.${process.pid}.tmp`;
-  const file = await fs.create(tmpPath);
-  try {
-    try {
-      const out = new Writable({
-        highWaterMark: 1 << 20,
-        write(chunk: Buffer, _encoding, callback) {
-          file.write(chunk).then(() => callback(), callback);
-        },
-      });
-      const finished = once(out, 'finish');
-      finished.catch(() => undefined); // awaited below; writeArpa reports a failure first
-      await writeArpa(model, out);
-      out.end();
-      await finished;
-      await file.sync();
-    } finally {
-      await file.close();
-    }
-    await fs.rename(tmpPath, filePath);
-  } catch (error) {
-    await fs.unlink(tmpPath).catch(() => undefined);
-    throw error;
-  }
-  await fs.syncDir(path.dirname(filePath));
+  await writeFileThrough(fs, filePath, async (file) => {
+    const out = new Writable({
+      highWaterMark: 1 << 20,
+      write(chunk: Buffer, _encoding, callback) {
+        file.write(chunk).then(() => callback(), callback);
+      },
+    });
+    const finished = once(out, 'finish');
+    finished.catch(() => undefined); // awaited below; writeArpa reports a failure first
+    await writeArpa(model, out);
+    out.end();
+    await finished;
+  });
 }
 
 /** Options of `readArpa`. */

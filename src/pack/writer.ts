@@ -12,13 +12,12 @@
  * model always gives the same file. Each section is built as a buffer of its own; the whole file is
  * never one buffer.
  */
-import * as path from 'node:path';
 import { crc32 } from 'node:zlib';
 import { assert, QuernError } from '../errors.ts';
 import { BOS, BOS_ID, EOS, UNK } from '../corpus/vocabulary.ts';
 import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, modelRowCount, type LanguageModel } from '../estimate/model.ts';
-import type { StageFs } from '../job/fsio.ts';
+import { writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { ORDER_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_DESCRIPTION_BYTES_MAX, PACK_SECTIONS_MAX } from '../limits.ts';
 import {
   alignUp, FLAG_NORMALISED, fnv1a32, H, hashSlotsFor, HEADER_BYTES, MODEL_MAGIC, MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR,
@@ -73,31 +72,19 @@ export async function packModel(model: LanguageModel, options: PackOptions, fs: 
   const sections = buildSections(model, encoding, fingerprint);
   const { header, table } = layOut(model, encoding, sections);
 
-  const tmpPath = `${filePath}.${process.pid}.tmp`;
-  const file = await fs.create(tmpPath);
   let fileBytes = 0;
-  try {
-    try {
-      await file.write(header);
-      await file.write(table);
-      fileBytes = header.length + table.length;
-      for (const section of sections) {
-        await file.write(section.bytes);
-        fileBytes += section.bytes.length;
-        const padding = alignUp(fileBytes) - fileBytes;
-        if (padding > 0) await file.write(new Uint8Array(padding));
-        fileBytes += padding;
-      }
-      await file.sync();
-    } finally {
-      await file.close();
+  await writeFileThrough(fs, filePath, async (file) => {
+    await file.write(header);
+    await file.write(table);
+    fileBytes = header.length + table.length;
+    for (const section of sections) {
+      await file.write(section.bytes);
+      fileBytes += section.bytes.length;
+      const padding = alignUp(fileBytes) - fileBytes;
+      if (padding > 0) await file.write(new Uint8Array(padding));
+      fileBytes += padding;
     }
-    await fs.rename(tmpPath, filePath);
-  } catch (error) {
-    await fs.unlink(tmpPath).catch(() => undefined);
-    throw error;
-  }
-  await fs.syncDir(path.dirname(filePath));
+  });
   return { filePath, bytes: fileBytes, ngrams: model.orders.map(modelRowCount), encoding, sections: sections.length };
 }
 

@@ -49,7 +49,7 @@ export const PLAN_SCAN_BLOCK_BYTES = 64 << 10;
 
 // ---- Count (counters, spills, run files) -----------------------------------------------------
 
-/** Partitions of the n-gram space (by a hash of the context). Each partition is an independent
+/** Partitions of the n-gram space (by a hash of the context's last word, see count/hash.ts). Each partition is an independent
  *  merge/estimate task; 16 keeps two cores busy with room for uneven partitions. */
 export const PARTITIONS_DEFAULT = 16;
 export const PARTITIONS_MAX = 4096;

@@ -1,9 +1,12 @@
 /**
  * Integer hashing of word-id sequences. Two uses with different needs:
  * - the counters' slot hash, built leftwards one id at a time as the orders grow;
- * - the partition of an n-gram, a hash of its context (all ids but the last; the word itself for
- *   unigrams), so that every n-gram sharing a context lands in the same partition. It is part of
- *   the job's on-disk layout: changing it changes which run file an n-gram goes to.
+ * - the partition of an n-gram, a hash of the last word of its context (the word itself for
+ *   unigrams). Every n-gram sharing a context lands in the same partition, and so do all its
+ *   suffixes of order ≥ 2 (w1…wm, w2…wm, …, w(m−1) wm share w(m−1)): Kneser-Ney continuation counts
+ *   and the lower-order probabilities an estimator needs for an n-gram are in its own partition,
+ *   so estimation runs partition by partition with only the unigrams shared. It is part of the
+ *   job's on-disk layout: changing it changes which run file an n-gram goes to.
  */
 
 /** Finaliser of a 32-bit hash (murmur3's fmix32): every input bit affects every output bit. */
@@ -24,14 +27,12 @@ export function combine32(h: number, id: number): number {
 export const HASH_SEED = 0x3c6ef372;
 
 /**
- * Partition of the n-gram `ids[start .. start+order)`: a hash of its context (the first
- * order−1 ids), or of the word itself for order 1, reduced to `0 .. partitions−1`.
+ * Partition of the n-gram `ids[start .. start+order)`: a hash of the last id of its context
+ * (`ids[start+order−2]`), or of the word itself for order 1, reduced to `0 .. partitions−1`.
  */
 export function partitionOf(ids: ArrayLike<number>, start: number, order: number, partitions: number): number {
-  const contextLength = order === 1 ? 1 : order - 1;
-  let h = HASH_SEED ^ 0x5bd1e995;
-  for (let k = 0; k < contextLength; k++) h = combine32(h, ids[start + k]);
-  return h % partitions;
+  const key = ids[order === 1 ? start : start + order - 2];
+  return combine32(HASH_SEED ^ 0x5bd1e995, key) % partitions;
 }
 
 /**

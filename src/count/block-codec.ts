@@ -210,12 +210,17 @@ export interface DecodedBlock {
   countSum: number;
 }
 
+/** Where `encodeBlockValue` encodes before copying out the exact bytes (grown on demand). */
+let valueScratch = Buffer.allocUnsafe(0);
+
 /**
  * Encodes the rows [first, first+recordCount) of `keys`/`counts` as one self-contained block
  * (a fresh buffer of exactly its size).
  */
 export function encodeBlockValue(keys: Uint32Array, counts: ArrayLike<number>, first: number, recordCount: number, order: number): Buffer {
-  const scratch = Buffer.allocUnsafe(blockBytesMax(order, recordCount));
+  const bytesMax = blockBytesMax(order, recordCount);
+  if (valueScratch.length < bytesMax) valueScratch = Buffer.allocUnsafe(bytesMax);
+  const scratch = valueScratch;
   const end = encodeBlock(scratch, 0, keys, counts, first, recordCount, order);
   return Buffer.from(scratch.subarray(0, end));
 }

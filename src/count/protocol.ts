@@ -33,7 +33,7 @@ export type ToWorker =
   | { type: 'init'; init: WorkerInit }
   | { type: 'chunk'; chunk: Chunk }
   | { type: 'partition'; task: PartitionMergeTask }
-  | { type: 'emit'; partition: number }
+  | { type: 'emit'; partition: number; localOrders: number[] }
   | { type: 'remap'; chunk: number; files: string[] }
   | { type: 'finish' };
 

@@ -301,10 +301,10 @@ async function remapTask(chunk: number, files: string[]): Promise<void> {
   post({ type: 'done', chunk, runs });
 }
 
-async function emitTask(partition: number): Promise<void> {
+async function emitTask(partition: number, localOrders: number[]): Promise<void> {
   const runs = await emitContinuations({
     fs, jobDir: init.jobDir, partition, orderMax: init.order, partitions: init.partitions,
-    idMax: init.idMax!, counterBytesMax: init.counterBytesMax!,
+    idMax: init.idMax!, counterBytesMax: init.counterBytesMax!, localOrders,
   });
   post({ type: 'done', partition, runs });
 }
@@ -335,7 +335,7 @@ async function handle(message: ToWorker): Promise<void> {
     return;
   }
   if (message.type === 'partition') await mergeTask(message.task);
-  else if (message.type === 'emit') await emitTask(message.partition);
+  else if (message.type === 'emit') await emitTask(message.partition, message.localOrders);
   else if (message.type === 'remap') await remapTask(message.chunk, message.files);
   else if (init.phase === 'vocab') await vocabChunk(message.chunk);
   else await countChunk(message.chunk);

@@ -93,6 +93,10 @@ export interface ContinuationStage {
   emitted: Array<{ partition: number; runs: RunRecord[] }>;
   /** Partitions whose continuation runs are merged into their store. */
   partitionsDone: number[];
+  /** Per partition, the orders (≥ 2) whose continuation counts it computes from its own store
+   *  (merge/local-continuation.ts) rather than from emitted runs; fixed when the stage starts,
+   *  so a resumed stage (even with another --memory) splits the work the same way. */
+  local?: number[][];
   elapsedMs?: number;
 }
 

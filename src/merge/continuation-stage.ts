@@ -1,6 +1,8 @@
 /**
  * The continuation stage (main thread): emit pass, then merge pass, each partition a task on the
- * worker pool, each recorded in job.json when durable. See continuation.ts for the passes.
+ * worker pool, each recorded in job.json when durable. See continuation.ts for the passes; the
+ * orders whose counts a partition can compute from its own store within a worker's budget skip
+ * the emit pass (local-continuation.ts), decided once when the stage starts.
  */
 import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
@@ -10,9 +12,13 @@ import type { StageContext } from '../job/context.ts';
 import type { EmitDone, MergeDone } from '../count/protocol.ts';
 import { baseInit, counterBudgetPerWorker } from '../count/stage.ts';
 import { CONTINUATION_RUNS_DIR } from './continuation.ts';
+import { localContinuationBytes } from './local-continuation.ts';
 import type { PartitionMergeTask } from './merge-partition.ts';
 import { finishedTallies, readStatsFile, STATS_FILE } from './stage.ts';
 import { sumTallies, type OrderTally } from './tally.ts';
+
+/** Environment variable: '1' makes every partition emit runs for every order (a test hook). */
+export const NO_LOCAL_CONTINUATION_ENV = 'QUERN_TEST_NO_LOCAL_CONTINUATION';
 
 export async function continuationStage(ctx: StageContext, idMax: number): Promise<void> {
   const { job, jobDir } = ctx;
@@ -22,6 +28,23 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
   const orderMax = job.config.order;
   const partitions = job.config.partitions;
   stage.status = 'running';
+
+  // ---- which orders each partition computes itself ----
+  if (stage.local === undefined) {
+    // Tests set NO_LOCAL_CONTINUATION_ENV to take the run path whatever the budget.
+    const budget = process.env[NO_LOCAL_CONTINUATION_ENV] === '1' ? -1 : counterBudgetPerWorker(ctx.memoryBytes, ctx.workers, 0);
+    const local: number[][] = [];
+    for (let p = 0; p < partitions; p++) {
+      const tallies = await finishedTallies(jobDir, p, 'raw');
+      const orders: number[] = [];
+      for (let m = 2; m < orderMax; m++) if (localContinuationBytes(tallies[m - 1].distinct, m) <= budget) orders.push(m);
+      local.push(orders);
+    }
+    stage.local = local;
+    await ctx.saveManifest();
+  }
+  const local = stage.local;
+  assert(local.length === partitions, 'a local-order list per partition');
 
   // ---- pass 1: emit suffixes ----
   if (orderMax >= 2) {
@@ -37,7 +60,7 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
     const init = { ...baseInit(job, jobDir, 'continuation-emit'), idMax, counterBytesMax: counterBudgetPerWorker(ctx.memoryBytes, workers, 0) };
     ctx.progress.start('continuation counts', todo.length, 'tasks');
     await ctx.pool.run<number, EmitDone, unknown>(init, todo, {
-      message: (partition) => ({ type: 'emit', partition }),
+      message: (partition) => ({ type: 'emit', partition, localOrders: local[partition] }),
       onDone: (done) => {
         ctx.progress.update(1, 0);
         stage.emitted.push({ partition: done.partition, runs: done.runs });
@@ -50,6 +73,7 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
   const tasks: PartitionMergeTask[] = Array.from({ length: partitions }, (_, p) => ({
     partition: p,
     files: Array.from({ length: Math.max(0, orderMax - 1) }, () => [] as string[]),
+    localOrders: local[p],
   }));
   for (const e of stage.emitted) for (const run of e.runs) tasks[run.partition].files[run.order - 1].push(run.file);
   const byPartition = new Map<number, OrderTally[]>();

@@ -2,7 +2,8 @@
  * Continuation counts N1+(• x): for every n-gram x of order m below the highest, the number of
  * distinct words seen before it — the counts Kneser-Ney uses at the lower orders.
  *
- * Two partition-independent passes after the merge:
+ * Two partition-independent passes after the merge (orders the stage computes inside their
+ * partition, local-continuation.ts, skip the first pass):
  *  1. emit: each partition's n-grams w1..wn (n ≥ 2) emit their suffix w2..wn once; the suffixes are
  *     counted in a bounded CounterSet and spilled as run files partitioned by the suffix's own
  *     partition (runs/cont/…);
@@ -35,6 +36,8 @@ export interface EmitRequest {
   partitions: number;
   idMax: number;
   counterBytesMax: number;
+  /** Orders of suffixes (≥ 2) not to emit: the target partition computes them itself. */
+  localOrders: number[];
 }
 
 /** Pass 1 for one source partition: returns the continuation runs it wrote. */
@@ -53,6 +56,7 @@ export async function emitContinuations(request: EmitRequest): Promise<RunRecord
   };
   try {
     for (let n = 2; n <= orderMax; n++) {
+      if (request.localOrders.includes(n - 1)) continue;
       for (const block of store.blocks(n)) {
         for (let j = 0; j < block.recordCount; j++) {
           const start = j * n + 1;

@@ -8,7 +8,8 @@ import { assert } from '../errors.ts';
 import { STORE_BLOCK_RECORDS, STORE_TXN_BLOCKS } from '../limits.ts';
 import { encodeBlockValue } from '../count/block-codec.ts';
 import { RunReader } from '../count/run-file.ts';
-import { mergeRuns } from '../count/run-merge.ts';
+import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
+import { localContinuationSource } from './local-continuation.ts';
 import { ngramKey, PartitionStore, type KeySpace } from './store.ts';
 import { TallyBuilder, type OrderTally } from './tally.ts';
 
@@ -32,6 +33,9 @@ export interface PartitionMergeTask {
   partition: number;
   /** Run files per order (index 0 = order 1), relative to the job directory. */
   files: string[][];
+  /** Continuation space only: orders whose counts come from the partition's own raw n-grams of
+   *  the next order (local-continuation.ts) besides any runs. */
+  localOrders?: number[];
 }
 
 /**
@@ -96,24 +100,45 @@ async function mergeOrder(
     pending = [];
     tuning.afterCommit?.();
   };
+  const afterBlock = (): void => {
+    if (pending.length === txnBlocks) commit({ ...progress, records, current: tally.checkpoint() });
+  };
 
-  const readers = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file))));
+  const readers: BatchSource[] = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file))));
+  if (task.localOrders?.includes(order)) {
+    assert(space === 'continuation', 'local counts are continuation counts');
+    const rows = store.readProgress<MergeProgress>('raw')?.tallies[order - 1]?.distinct;
+    assert(rows !== undefined, `partition ${task.partition}: the raw merge of order ${order} is recorded`);
+    readers.push(localContinuationSource(store, order, rows));
+  }
   for await (const batch of mergeRuns(readers, order)) {
+    const { keys, counts, recordCount } = batch;
     let j = 0;
     if (skip > 0) {
-      j = Math.min(skip, batch.recordCount);
+      j = Math.min(skip, recordCount);
       skip -= j;
     }
-    for (; j < batch.recordCount; j++) {
-      blockKeys.set(batch.keys.subarray(j * order, j * order + order), blockSize * order);
-      blockCounts[blockSize] = batch.counts[j];
-      blockSize++;
-      tally.add(batch.keys, j * order, batch.counts[j]);
+    // The tally takes exactly the records placed in blocks so far: the checkpoint committed with a
+    // transaction must describe the records committed with it.
+    while (j < recordCount) {
+      if (blockSize === 0 && recordCount - j >= STORE_BLOCK_RECORDS) {
+        // A whole block inside the batch: encode it from the batch's arrays, without a copy.
+        for (let r = j; r < j + STORE_BLOCK_RECORDS; r++) tally.add(keys, r * order, counts[r]);
+        pending.push([ngramKey(order, keys, j * order, space), encodeBlockValue(keys, counts, j, STORE_BLOCK_RECORDS, order)]);
+        records += STORE_BLOCK_RECORDS;
+        j += STORE_BLOCK_RECORDS;
+        afterBlock();
+        continue;
+      }
+      const take = Math.min(STORE_BLOCK_RECORDS - blockSize, recordCount - j);
+      for (let r = j; r < j + take; r++) tally.add(keys, r * order, counts[r]);
+      blockKeys.set(keys.subarray(j * order, (j + take) * order), blockSize * order);
+      blockCounts.set(counts.subarray(j, j + take), blockSize);
+      blockSize += take;
+      j += take;
       if (blockSize === STORE_BLOCK_RECORDS) {
         closeBlock();
-        if (pending.length === txnBlocks) {
-          commit({ ...progress, records, current: tally.checkpoint() });
-        }
+        afterBlock();
       }
     }
   }

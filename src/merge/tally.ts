@@ -26,6 +26,33 @@ function toPairs(map: Map<number, number>): CountOfCounts {
   return [...map.entries()].sort((a, b) => a[0] - b[0]);
 }
 
+/** Counts below this are tallied in an array, larger ones in a map (most n-grams are rare). */
+const DENSE_COUNTS = 4096;
+
+/** A count-of-counts being built: an array for small counts, a map beyond. */
+class CountHistogram {
+  private readonly dense = new Float64Array(DENSE_COUNTS);
+  private readonly sparse = new Map<number, number>();
+
+  add(count: number): void {
+    if (count < DENSE_COUNTS) this.dense[count]++;
+    else this.sparse.set(count, (this.sparse.get(count) ?? 0) + 1);
+  }
+
+  addPairs(pairs: CountOfCounts): void {
+    for (const [r, n] of pairs) {
+      if (r < DENSE_COUNTS) this.dense[r] += n;
+      else this.sparse.set(r, (this.sparse.get(r) ?? 0) + n);
+    }
+  }
+
+  pairs(): CountOfCounts {
+    const out: CountOfCounts = [];
+    for (let r = 0; r < DENSE_COUNTS; r++) if (this.dense[r] > 0) out.push([r, this.dense[r]]);
+    return out.concat(toPairs(this.sparse));
+  }
+}
+
 function addPairs(map: Map<number, number>, pairs: CountOfCounts): void {
   for (const [r, n] of pairs) map.set(r, (map.get(r) ?? 0) + n);
 }
@@ -34,9 +61,9 @@ function addPairs(map: Map<number, number>, pairs: CountOfCounts): void {
 export class TallyBuilder {
   private distinct = 0;
   private total = 0;
-  private readonly raw = new Map<number, number>();
-  private readonly contexts = new Map<number, number>();
-  private readonly bosRaw = new Map<number, number>();
+  private readonly raw = new CountHistogram();
+  private readonly contexts = new CountHistogram();
+  private readonly bosRaw = new CountHistogram();
   private contextCount = 0;
   /** The context being summed (first order−1 ids) and its sum so far. */
   private context: Uint32Array;
@@ -47,9 +74,9 @@ export class TallyBuilder {
     if (resume) {
       this.distinct = resume.tally.distinct;
       this.total = resume.tally.total;
-      addPairs(this.raw, resume.tally.raw);
-      addPairs(this.contexts, resume.tally.contexts);
-      addPairs(this.bosRaw, resume.tally.bosRaw);
+      this.raw.addPairs(resume.tally.raw);
+      this.contexts.addPairs(resume.tally.contexts);
+      this.bosRaw.addPairs(resume.tally.bosRaw);
       this.contextCount = resume.tally.contextCount;
       this.context.set(resume.context);
       this.contextSum = resume.contextSum;
@@ -61,8 +88,8 @@ export class TallyBuilder {
     assert(count >= 1, `count ${count} of a stored n-gram is at least 1`);
     this.distinct++;
     this.total += count;
-    this.raw.set(count, (this.raw.get(count) ?? 0) + 1);
-    if (keys[offset] === BOS_ID) this.bosRaw.set(count, (this.bosRaw.get(count) ?? 0) + 1);
+    this.raw.add(count);
+    if (keys[offset] === BOS_ID) this.bosRaw.add(count);
     const contextLength = this.order - 1;
     if (contextLength === 0) return;
     let same = this.contextSum > 0;
@@ -76,7 +103,7 @@ export class TallyBuilder {
 
   private closeContext(): void {
     if (this.contextSum === 0) return;
-    this.contexts.set(this.contextSum, (this.contexts.get(this.contextSum) ?? 0) + 1);
+    this.contexts.add(this.contextSum);
     this.contextCount++;
     this.contextSum = 0;
   }
@@ -89,7 +116,7 @@ export class TallyBuilder {
   private snapshot(): OrderTally {
     return {
       order: this.order, distinct: this.distinct, total: this.total,
-      raw: toPairs(this.raw), contexts: toPairs(this.contexts), contextCount: this.contextCount, bosRaw: toPairs(this.bosRaw),
+      raw: this.raw.pairs(), contexts: this.contexts.pairs(), contextCount: this.contextCount, bosRaw: this.bosRaw.pairs(),
     };
   }
 

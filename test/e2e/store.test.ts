@@ -8,13 +8,17 @@ import { beforeAll, describe, expect, test } from 'vitest';
 import { SyntheticModel, writeShardFile } from '../../scripts/lib/synthetic.ts';
 import { referenceCountsByOrder } from '../support/reference-count.ts';
 import { parseListing, runQuern, tempDir } from '../support/cli.ts';
+import { readFileSync } from 'node:fs';
+import { NO_LOCAL_CONTINUATION_ENV } from '../../src/merge/continuation-stage.ts';
+import { jobDigest } from '../support/crash.ts';
 
 describe('count store', () => {
   let job: string;
+  let corpus: string;
   let reference: Map<number, Map<string, number>>;
   beforeAll(async () => {
     const dir = tempDir();
-    const corpus = path.join(dir, 'corpus');
+    corpus = path.join(dir, 'corpus');
     execFileSync('mkdir', ['-p', corpus]);
     const model = new SyntheticModel({ seed: 9, vocabularyTypes: 5000, successorRanks: 1000, phraseCount: 500 });
     writeShardFile(model, 0, 400_000, path.join(corpus, 'a.txt'));
@@ -38,6 +42,20 @@ describe('count store', () => {
       expect(result.status).toBe(0);
       expect(parseListing(result.stdout)).toEqual(expected);
     }
+  });
+
+  test('continuation counts computed inside each partition equal those merged from emitted runs', async () => {
+    // The job above computes orders 2 and 3 inside their partitions (local-continuation.ts); this
+    // one is forced through the emit-and-merge path for every order.
+    const viaRuns = path.join(tempDir(), 'job');
+    const result = await runQuern(['count', corpus, '--job', viaRuns, '--order', '4', '--quiet', '--partitions', '5'], { env: { [NO_LOCAL_CONTINUATION_ENV]: '1' } });
+    expect(result.status).toBe(0);
+    const manifest = (dir: string) => JSON.parse(readFileSync(path.join(dir, 'job.json'), 'utf8'));
+    expect(manifest(job).stages.continuation.local).toEqual([[2, 3], [2, 3], [2, 3], [2, 3], [2, 3]]);
+    expect(manifest(viaRuns).stages.continuation.local).toEqual([[], [], [], [], []]);
+    expect(manifest(viaRuns).stages.continuation.emitted.flatMap((e: { runs: Array<{ order: number }> }) => e.runs.map((r) => r.order))).toContain(3);
+    expect(await jobDigest(viaRuns)).toEqual(await jobDigest(job));
+    expect(readFileSync(path.join(viaRuns, 'stats.json'), 'utf8')).toBe(readFileSync(path.join(job, 'stats.json'), 'utf8'));
   });
 
   test('--prefix lists exactly the n-grams that start with the given words', async () => {

@@ -15,7 +15,7 @@ import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
 import { crc32 } from 'node:zlib';
 import { assert, ioError, QuernError } from '../errors.ts';
-import type { StageFs, WritableFile } from '../job/fsio.ts';
+import { writeFileThrough, type StageFs } from '../job/fsio.ts';
 import {
   BLOCK_HEADER_FIXED_BYTES, blockBytesMax, blockHeaderBytes, compareRows, DecodeFailure, decodeRecords,
   encodeBlock, RECORD_BYTES_MIN, recordBytesMax,
@@ -193,9 +193,10 @@ function encodeTrailer(buf: Buffer, p: number, fileBytes: number, blockCount: nu
  * Writes a run file: `recordCount` distinct n-grams of `meta.order` (row-major in `keys`, rows
  * strictly increasing in lexicographic order of their id tuples) and their counts (integers ≥ 1).
  * Input that breaks these rules is a programmer error (assertion), found before anything is
- * written. The file is streamed to `${filePath}.tmp`, synced, renamed to `filePath`, and the
- * directory (which must exist) synced. On any failure (an 'io' QuernError from `fs`) neither the
- * temporary file nor `filePath` is left behind, as far as `fs` still allows removing them.
+ * written. The file is written through `writeFileThrough` (a temporary file, synced, renamed to
+ * `filePath`, the directory — which must exist — synced); on a failure (an 'io' QuernError from
+ * `fs`) no temporary file is left behind, as far as `fs` still allows removing it, and a run that
+ * is not recorded in job.json is never trusted (the stages remove unrecorded runs).
  */
 export async function writeRunFile(
   fs: StageFs,
@@ -219,12 +220,8 @@ export async function writeRunFile(
 
   const fileBytesMax = RUN_HEADER_BYTES + RUN_TRAILER_BYTES + blockCount * blockHeaderBytes(order) + recordCount * recordBytesMax(order);
   const buf = Buffer.alloc(Math.min(RUN_WRITE_BUFFER_BYTES, fileBytesMax));
-  const tmpPath = `${filePath}.tmp`;
   let fileBytes = 0;
-  let file: WritableFile | undefined;
-  let renamed = false;
-  try {
-    file = await fs.create(tmpPath);
+  await writeFileThrough(fs, filePath, async (file) => {
     const headerCrc = encodeHeader(buf, meta, recordCount, countSum, blockCount);
     let used = RUN_HEADER_BYTES;
     for (let first = 0; first < recordCount; first += RUN_BLOCK_RECORDS_MAX) {
@@ -244,19 +241,7 @@ export async function writeRunFile(
     fileBytes += used + RUN_TRAILER_BYTES;
     encodeTrailer(buf, used, fileBytes, blockCount, headerCrc);
     await file.write(buf.subarray(0, used + RUN_TRAILER_BYTES));
-    await file.sync();
-    const closing = file;
-    file = undefined;
-    await closing.close();
-    await fs.rename(tmpPath, filePath);
-    renamed = true;
-    await fs.syncDir(path.dirname(filePath));
-  } catch (error) {
-    // Best effort: the first error is the one to report; the file system may be failing for good.
-    if (file !== undefined) await file.close().catch(() => {});
-    await fs.unlink(renamed ? filePath : tmpPath).catch(() => {});
-    throw error;
-  }
+  });
   return {
     filePath,
     formatVersion: RUN_FORMAT_VERSION,

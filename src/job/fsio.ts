@@ -96,7 +96,14 @@ export async function writeFileThrough(fs: StageFs, filePath: string, write: (fi
     await fs.unlink(tmpPath).catch(() => undefined);
     throw error;
   }
-  await fs.syncDir(path.dirname(filePath));
+  try {
+    await fs.syncDir(path.dirname(filePath));
+  } catch (error) {
+    // The rename may not survive a crash: report the failure with nothing at the final path (best
+    // effort: a file system failing for good may keep the complete file there).
+    await fs.unlink(filePath).catch(() => undefined);
+    throw error;
+  }
 }
 
 /** Writes `data` to `filePath` atomically (writeFileThrough). */

@@ -95,8 +95,8 @@ interface FaultCase {
 const CASES: FaultCase[] = [
   { label: 'job.json of a new job', start: 'fresh', mode: 'once', errno: 'EIO', operations: [1, 5], path: /^job\.json/ },
   { label: 'vocab.tsv', start: 'fresh', mode: 'always', errno: 'ENOSPC', operations: [6, 10], path: /^vocab\.tsv/ },
-  { label: 'a run file', start: 'fresh', mode: 'once', errno: 'EIO', operations: [16, 80], path: /^runs\/o\d\/p\d{4}(\/c\d{6}-s\d{3}\.run(\.tmp)?)?$/ },
-  { label: 'a run file', start: 'fresh', mode: 'always', errno: 'ENOSPC', operations: [16, 80], path: /^runs\/o\d\/p\d{4}(\/c\d{6}-s\d{3}\.run(\.tmp)?)?$/ },
+  { label: 'a run file', start: 'fresh', mode: 'once', errno: 'EIO', operations: [16, 80], path: /^runs\/o\d\/p\d{4}(\/c\d{6}-s\d{3}\.run(\.\d+\.tmp)?)?$/ },
+  { label: 'a run file', start: 'fresh', mode: 'always', errno: 'ENOSPC', operations: [16, 80], path: /^runs\/o\d\/p\d{4}(\/c\d{6}-s\d{3}\.run(\.\d+\.tmp)?)?$/ },
   { label: 'job.json recording a merged partition', start: 'counted', mode: 'once', errno: 'EIO', operations: [1, 20], path: /^job\.json/ },
   { label: 'stats.json', start: 'counted', mode: 'always', errno: 'ENOSPC', operations: [21, 25], path: /^stats\.json/ },
 ];

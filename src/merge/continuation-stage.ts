@@ -37,7 +37,7 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
     for (let p = 0; p < partitions; p++) {
       const tallies = await finishedTallies(jobDir, p, 'raw');
       const orders: number[] = [];
-      for (let m = 2; m < orderMax; m++) if (localContinuationBytes(tallies[m - 1].distinct, m) <= budget) orders.push(m);
+      for (let m = 2; m < orderMax; m++) if (localContinuationBytes(tallies[m].distinct, m) <= budget) orders.push(m);
       local.push(orders);
     }
     stage.local = local;

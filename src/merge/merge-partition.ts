@@ -107,9 +107,9 @@ async function mergeOrder(
   const readers: BatchSource[] = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file))));
   if (task.localOrders?.includes(order)) {
     assert(space === 'continuation', 'local counts are continuation counts');
-    const rows = store.readProgress<MergeProgress>('raw')?.tallies[order - 1]?.distinct;
-    assert(rows !== undefined, `partition ${task.partition}: the raw merge of order ${order} is recorded`);
-    readers.push(localContinuationSource(store, order, rows));
+    const higherRows = store.readProgress<MergeProgress>('raw')?.tallies[order]?.distinct;
+    assert(higherRows !== undefined, `partition ${task.partition}: the raw merge of order ${order + 1} is recorded`);
+    readers.push(localContinuationSource(store, order, higherRows));
   }
   for await (const batch of mergeRuns(readers, order)) {
     const { keys, counts, recordCount } = batch;

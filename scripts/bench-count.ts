@@ -4,7 +4,7 @@
  * and many small ones, as ripgrep's benchmark suite does).
  *
  *   npm run bench:count -- [--bytes 200MB] [--shape few-large|many-small|both] [--orders 3,5]
- *                          [--memory 2GiB] [--workers 2] [--corpus-dir DIR] [--seed 1] [--keep]
+ *                          [--memory 2GiB] [--workers 2] [--corpus-dir DIR] [--seed 1] [--keep] [--skip-pipeline]
  *
  * --bytes       corpus size, all shards together (default 200MB; 1GB for the large variant)
  * --shape       few-large (2 shards), many-small (200 shards) or both (default), one after the other
@@ -15,6 +15,8 @@
  *               only with a single shape). A corpus whose .gen-corpus.json matches the options is
  *               reused; otherwise it is regenerated there with scripts/gen-corpus.ts.
  * --seed        corpus seed (default 1)
+ * --skip-pipeline  time quern alone: the store, memory and stage figures without the throughput
+ *               ratio (for the 1 GB store measurement once the pipeline's time at that size is known)
  * --keep        keep quern's job directories and the pipeline's `uniq -c` output under
  *               bench-out/work/ (by default each is removed once its counts are checked; the corpus
  *               is always kept, so the next run can reuse it)
@@ -80,6 +82,8 @@ interface Options {
   corpusDir: string | null;
   seed: number;
   keep: boolean;
+  /** Time quern alone (the store and memory figures; no throughput ratio). */
+  skipPipeline: boolean;
 }
 
 interface CorpusManifest {
@@ -138,9 +142,10 @@ interface PairResult {
   order: number;
   tokens: number;
   quern: QuernResult;
-  pipeline: ToolResult;
-  /** quern tokens/s over pipeline tokens/s. */
-  ratio: number;
+  /** null with --skip-pipeline. */
+  pipeline: ToolResult | null;
+  /** quern tokens/s over pipeline tokens/s (null without the pipeline). */
+  ratio: number | null;
   targetRatio: number | null;
   targetMet: boolean | null;
 }
@@ -165,6 +170,7 @@ function parseOptions(argv: string[]): Options {
         'corpus-dir': { type: 'string' },
         seed: { type: 'string', default: '1' },
         keep: { type: 'boolean', default: false },
+        'skip-pipeline': { type: 'boolean', default: false },
       },
     });
   } catch (error) {
@@ -190,7 +196,7 @@ function parseOptions(argv: string[]): Options {
   if (!Number.isSafeInteger(seed)) fail(`--seed must be an integer, got ${v.seed}`);
   const corpusDir = v['corpus-dir'] === undefined ? null : resolve(v['corpus-dir']);
   if (corpusDir !== null && shapes.length > 1) fail('--corpus-dir needs a single --shape (each shape has its own corpus)');
-  return { bytes: Math.floor(bytes), shapes, orders, memoryBytes: Math.floor(memoryBytes), workers, corpusDir, seed, keep: v.keep === true };
+  return { bytes: Math.floor(bytes), shapes, orders, memoryBytes: Math.floor(memoryBytes), workers, corpusDir, seed, keep: v.keep === true, skipPipeline: v['skip-pipeline'] === true };
 }
 
 // ---- Corpus ----------------------------------------------------------------------------------
@@ -304,8 +310,8 @@ async function runQuern(corpus: Corpus, order: number, options: Options): Promis
   };
 }
 
-/** Merge throughput (distinct n-grams of all orders into the store per second of the merge and
- *  continuation stages) and the store's bytes per n-gram on disk (both key spaces). */
+/** Merge throughput (distinct n-grams of all orders into the store per second of the merge
+ *  stage) and the store's bytes per n-gram on disk (both key spaces). */
 function mergeFigures(summary: { distinct: number[]; storeBytes?: number; stageMs?: Record<string, number> }): { mergeNgramsPerSecond: number | null; storeBytesPerNgram: number | null } {
   const ngrams = summary.distinct.reduce((a, b) => a + b, 0);
   const mergeMs = summary.stageMs?.merge;
@@ -406,8 +412,8 @@ function printResults(results: readonly PairResult[], options: Options): void {
   for (const r of results) {
     const target = r.targetRatio === null ? '—' : `≥ ${r.targetRatio}×`;
     const met = r.targetMet === null ? '—' : r.targetMet ? 'yes' : 'NO';
-    rows.push([r.shape, String(r.order), 'quern', (r.quern.wallMs / 1000).toFixed(2), formatRate(r.quern.tokensPerSecond), formatSize(r.quern.rssBytesMax), `${r.ratio.toFixed(2)}×`, target, met, r.quern.loadAverage1m.toFixed(1)]);
-    rows.push([r.shape, String(r.order), 'pipeline', (r.pipeline.wallMs / 1000).toFixed(2), formatRate(r.pipeline.tokensPerSecond), formatSize(r.pipeline.rssBytesMax), '', '', '', r.pipeline.loadAverage1m.toFixed(1)]);
+    rows.push([r.shape, String(r.order), 'quern', (r.quern.wallMs / 1000).toFixed(2), formatRate(r.quern.tokensPerSecond), formatSize(r.quern.rssBytesMax), r.ratio === null ? '—' : `${r.ratio.toFixed(2)}×`, target, met, r.quern.loadAverage1m.toFixed(1)]);
+    if (r.pipeline) rows.push([r.shape, String(r.order), 'pipeline', (r.pipeline.wallMs / 1000).toFixed(2), formatRate(r.pipeline.tokensPerSecond), formatSize(r.pipeline.rssBytesMax), '', '', '', r.pipeline.loadAverage1m.toFixed(1)]);
   }
   process.stdout.write(`\n${renderTable(rows, new Set([1, 3, 4, 5, 6, 9]))}\n`);
   process.stdout.write(`(load: the machine's 1-minute load average as the run started; above ${os.availableParallelism()} other work shared the CPUs)\n\n`);
@@ -428,7 +434,7 @@ function printResults(results: readonly PairResult[], options: Options): void {
   if (results.some((r) => r.quern.spills === 0)) {
     process.stdout.write('(a run with 0 spills never filled its budget, so its figure above --memory is not the overhead at a full budget)\n');
   }
-  const storeRows: string[][] = [['shape', 'order', 'merge n-grams/s', 'store B/n-gram', 'merge ÷ count stage', 'quern report s']];
+  const storeRows: string[][] = [['shape', 'order', 'merge n-grams/s', 'store B/n-gram', 'merge ÷ count stage', '(merge + continuation) ÷ count', 'quern report s']];
   for (const r of results) {
     const stages = r.quern.stageMs;
     storeRows.push([
@@ -436,10 +442,11 @@ function printResults(results: readonly PairResult[], options: Options): void {
       r.quern.mergeNgramsPerSecond === null ? '—' : formatRate(r.quern.mergeNgramsPerSecond),
       r.quern.storeBytesPerNgram === null ? '—' : r.quern.storeBytesPerNgram.toFixed(2),
       stages?.merge && stages?.count ? `${(stages.merge / stages.count).toFixed(2)}×` : '—',
+      stages?.merge && stages?.count ? `${((stages.merge + (stages.continuation ?? 0)) / stages.count).toFixed(2)}×` : '—',
       (r.quern.reportWallMs / 1000).toFixed(2),
     ]);
   }
-  process.stdout.write(`${renderTable(storeRows, new Set([1, 2, 3, 4, 5]))}\n`);
+  process.stdout.write(`${renderTable(storeRows, new Set([1, 2, 3, 4, 5, 6]))}\n`);
 }
 
 function toolVersions(): Record<string, string> {
@@ -472,7 +479,11 @@ async function measureAll(
     for (const order of options.orders) {
       log(`${shape}, order ${order}: quern …`);
       const quern = await runQuern(corpus, order, options);
-      log(`  ${(quern.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(quern.rssBytesMax)}; pipeline …`);
+      log(`  ${(quern.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(quern.rssBytesMax)}${options.skipPipeline ? '' : '; pipeline …'}`);
+      if (options.skipPipeline) {
+        results.push({ shape, order, tokens: corpus.manifest.tokens, quern, pipeline: null, ratio: null, targetRatio: TARGET_RATIOS[order] ?? null, targetMet: null });
+        continue;
+      }
       const pipeline = await runPipeline(corpus, order, options);
       log(`  ${(pipeline.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(pipeline.rssBytesMax)}`);
       const differences = countDifferences(quern, pipeline, order, corpus);

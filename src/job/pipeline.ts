@@ -72,7 +72,7 @@ export interface CountSummary {
   /** Wall time of this command. */
   elapsedMs: number;
   /** Time spent in each stage over all runs of the job (a resumed job adds up its runs). */
-  stageMs: { vocabulary: number; count: number; merge: number };
+  stageMs: { vocabulary: number; count: number; merge: number; continuation: number };
   tokensPerSecond: number;
   /** True when this run continued an interrupted job or found it already finished. */
   resumed: boolean;
@@ -192,9 +192,10 @@ function summarize(
   const stageMs = {
     vocabulary: job.stages.vocab.elapsedMs ?? 0,
     count: count.elapsedMs ?? 0,
-    merge: (job.stages.merge.elapsedMs ?? 0) + (job.stages.continuation.elapsedMs ?? 0),
+    merge: job.stages.merge.elapsedMs ?? 0,
+    continuation: job.stages.continuation.elapsedMs ?? 0,
   };
-  const workMs = stageMs.vocabulary + stageMs.count + stageMs.merge;
+  const workMs = stageMs.vocabulary + stageMs.count + stageMs.merge + stageMs.continuation;
   return {
     jobDir,
     inputs: job.inputs.length,

@@ -1,33 +1,19 @@
 /** The `quern` command: yargs, one module per command, errors mapped to exit codes in one place. */
 import yargs from 'yargs';
 import { hideBin } from 'yargs/helpers';
-import { countCommand } from './count.ts';
-import { ngramsCommand } from './ngrams.ts';
-import { reportCommand } from './report.ts';
-import { estimateCommand } from './estimate.ts';
-import { packCommand } from './pack.ts';
-import { infoCommand } from './info.ts';
-import { exportCommand } from './export.ts';
-import { scoreCommand } from './score.ts';
-import { buildCommand } from './build.ts';
-import { verifyCommand } from './verify.ts';
+import { COMMAND_LOADERS } from './commands.ts';
 import { reportError, EXIT_STATUS } from './exit.ts';
 
 export async function main(args: string[]): Promise<number> {
   try {
-    await yargs(args)
+    const first = args[0];
+    const loaders = first !== undefined && Object.hasOwn(COMMAND_LOADERS, first) ? [COMMAND_LOADERS[first]] : Object.values(COMMAND_LOADERS);
+    const commands = await Promise.all(loaders.map((load) => load()));
+    let parser = yargs(args)
       .scriptName('quern')
-      .usage('$0 <command> [options]\n\nCount n-grams of huge corpora and build n-gram language models.')
-      .command(countCommand)
-      .command(ngramsCommand)
-      .command(reportCommand)
-      .command(estimateCommand)
-      .command(packCommand)
-      .command(infoCommand)
-      .command(exportCommand)
-      .command(scoreCommand)
-      .command(buildCommand)
-      .command(verifyCommand)
+      .usage('$0 <command> [options]\n\nCount n-grams of huge corpora and build n-gram language models.');
+    for (const command of commands) parser = parser.command(command);
+    await parser
       .demandCommand(1, 'Say which command to run; see quern --help')
       .strict()
       .recommendCommands()

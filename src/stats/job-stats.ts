@@ -1,10 +1,12 @@
 /**
- * Builds the statistics input of a finished count job from what the merge kept (stats.json), the
- * vocabulary and job.json — no pass over the store.
+ * Builds the statistics input of a finished count job from what the merge kept (stats.json) and
+ * job.json — no pass over the store, and not even the vocabulary file: the unigram counts the Zipf
+ * fit ranks are the order-1 count-of-counts expanded (the same multiset of counts ≥ 1), V is the
+ * vocabulary stage's type count, and the sentences are those its reads counted.
  */
 import { QuernError } from '../errors.ts';
 import { readManifest } from '../job/manifest.ts';
-import { readJobVocabulary } from '../count/stage.ts';
+import { assert } from '../errors.ts';
 import { readStatsFile } from '../merge/stage.ts';
 import type { CountOfCounts, StatsInput } from './types.ts';
 
@@ -14,6 +16,16 @@ function addCountOfCounts(a: CountOfCounts, b: CountOfCounts): CountOfCounts {
   return [...map.entries()].sort((x, y) => x[0] - y[0]);
 }
 
+/** The counts a count-of-counts describes, n_r copies of each r, and zeros up to `length` (the
+ *  vocabulary words never seen, such as an unused `<unk>`). */
+function expandCountOfCounts(pairs: CountOfCounts, length: number): number[] {
+  const counts: number[] = [];
+  for (const [r, n] of pairs) for (let i = 0; i < n; i++) counts.push(r);
+  assert(counts.length <= length, `${counts.length} distinct unigrams in a vocabulary of ${length}`);
+  while (counts.length < length) counts.push(0);
+  return counts;
+}
+
 export async function loadStatsInput(jobDir: string): Promise<StatsInput> {
   const job = await readManifest(jobDir);
   if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
@@ -21,14 +33,15 @@ export async function loadStatsInput(jobDir: string): Promise<StatsInput> {
     throw new QuernError('config', `the count in ${jobDir} has not finished; re-run the same quern count command to complete it`);
   }
   const stats = await readStatsFile(jobDir);
-  const vocab = await readJobVocabulary(jobDir, job);
   const orderMax = job.config.order;
+  const { types, reads } = job.stages.vocab;
+  assert(types !== undefined && reads !== undefined && reads.every((r) => r !== null), 'a finished count records its vocabulary');
   return {
     order: orderMax,
-    vocabularySize: vocab.words.length - 1,
+    vocabularySize: types,
     tokens: job.stages.count.chunks.reduce((s, c) => s + c.tokens, 0),
-    sentences: vocab.counts[0],
-    unigramCounts: vocab.counts.slice(1),
+    sentences: reads.reduce((sum, r) => sum + r!.sentences, 0),
+    unigramCounts: expandCountOfCounts(stats.tallies[0].raw, types),
     orders: stats.tallies.map((t) => ({
       order: t.order,
       distinct: t.distinct,

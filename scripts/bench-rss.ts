@@ -83,13 +83,13 @@ async function main(): Promise<void> {
         spills: summary.spills, loadAverage1m,
       });
       const r = runs[runs.length - 1];
-      process.stderr.write(`--memory ${bytes.format(memoryBytes)} --workers ${workers}: peak ${(r.rssBytesMax / MIB).toFixed(0)} MiB, ${(r.aboveBudgetBytes / MIB).toFixed(0)} MiB above the budget, ${r.spills} spills\n`);
+      process.stderr.write(`--memory ${bytes.format(memoryBytes, { mode: 'binary' })} --workers ${workers}: peak ${(r.rssBytesMax / MIB).toFixed(0)} MiB, ${(r.aboveBudgetBytes / MIB).toFixed(0)} MiB above the budget, ${r.spills} spills\n`);
     }
   }
 
   const rows = [['--memory', 'workers', 'peak RSS MiB', 'above budget MiB', 'bound MiB', 'within', 'spills', 'wall s', 'load']];
   for (const r of runs) {
-    rows.push([bytes.format(r.memoryBytes) ?? '', String(r.workers), (r.rssBytesMax / MIB).toFixed(0), (r.aboveBudgetBytes / MIB).toFixed(0),
+    rows.push([bytes.format(r.memoryBytes, { mode: 'binary' }) ?? '', String(r.workers), (r.rssBytesMax / MIB).toFixed(0), (r.aboveBudgetBytes / MIB).toFixed(0),
       (r.boundBytes / MIB).toFixed(0), r.withinBound ? 'yes' : 'NO', String(r.spills), (r.wallMs / 1000).toFixed(1), r.loadAverage1m.toFixed(1)]);
   }
   const widths = rows[0].map((_, c) => Math.max(...rows.map((row) => row[c].length)));

@@ -950,7 +950,7 @@ export class PackedModel {
     if (keep > 0) {
       rows[1] = word + 1;
       const ids = state.ids;
-      if (keep === length) ids.copyWithin(0, 1, length);
+      if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
       ids[keep - 1] = word;
     }
     state.length = keep;
@@ -1072,53 +1072,55 @@ export class PackedModel {
 }
 
 /**
- * Two passes over the children of an order n < N, decoding them in sequence: first the ranges (the
- * children start at 0, ascend, end at the `nextRows` rows of order n + 1, and each block's first
- * offset is 0; `row`/`problem` name the first failure); then, once every range is known to lie
- * inside order n + 1, the word ids of order n + 1 (within each context they ascend and lie in
- * 1..`size`; `child` names the first row that fails).
+ * The children of an order n < N and the word ids of order n + 1, decoded in sequence in one pass:
+ * the children start at 0, ascend, end at the `nextRows` rows of order n + 1, and each block's
+ * first offset is 0 (`row`/`problem` name the first failure); within each context the word ids
+ * ascend and lie in 1..`size` (`child` names the first row of order n + 1 that fails). A context's
+ * words are read only once its range is known to lie inside order n + 1; when a word fails, the
+ * ranges are checked to the end first, so that damaged children are reported as such.
  */
 function checkChildren(bases: Uint32Array, offsets: Uint32Array, bits: number, rows: number, words: Uint32Array, wordBits: number, nextRows: number, size: number): { row: number; problem: string; child: number } {
   const mask = maskFor(bits);
   const wordMask = maskFor(wordBits);
-  for (let pass = 0; pass < 2; pass++) {
-    let at = 0;
-    let shift = 0;
-    let wordAt = 0;
-    let wordShift = 0;
-    let previousStart = 0;
-    for (let row = 0; row <= rows; row++) {
-      const offset = (((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0;
-      shift += bits;
-      if (shift >= 32) {
-        shift -= 32;
-        at++;
-      }
-      const start = bases[row >>> CHILD_BLOCK_SHIFT] + offset;
-      if (pass === 0) {
-        if ((row & (CHILD_BLOCK_ROWS - 1)) === 0 && offset !== 0) return { row, problem: `the offset of row ${row}, the first of its block, is ${offset}, not 0`, child: -1 };
-        if (row === 0 && start !== 0) return { row, problem: `the children of row 0 start at ${start}, not 0`, child: -1 };
-        if (start < previousStart) return { row, problem: `the children of row ${row} start before those of row ${row - 1}`, child: -1 };
-        if (start > nextRows) return { row, problem: `the children of row ${row} start at ${start}, past the ${nextRows} rows of the next order`, child: -1 };
-        if (row === rows && start !== nextRows) return { row, problem: `children must run from row 0 to the ${nextRows} rows of the next order (they end at ${start})`, child: -1 };
-      } else {
-        // The children of row − 1: [previousStart, start), read in sequence.
-        let previous = 0;
-        for (let child = previousStart; child < start; child++) {
-          const word = (((words[wordAt] >>> wordShift) | ((words[wordAt + 1] << 1) << (31 - wordShift))) & wordMask) >>> 0;
-          wordShift += wordBits;
-          if (wordShift >= 32) {
-            wordShift -= 32;
-            wordAt++;
-          }
-          if (word <= previous || word > size) return { row: -1, problem: '', child };
-          previous = word;
-        }
-      }
-      previousStart = start;
+  let at = 0;
+  let shift = 0;
+  let wordAt = 0;
+  let wordShift = 0;
+  let previousStart = 0;
+  let failedChild = -1;
+  for (let row = 0; row <= rows; row++) {
+    const offset = (((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0;
+    shift += bits;
+    if (shift >= 32) {
+      shift -= 32;
+      at++;
     }
+    const start = bases[row >>> CHILD_BLOCK_SHIFT] + offset;
+    if ((row & (CHILD_BLOCK_ROWS - 1)) === 0 && offset !== 0) return { row, problem: `the offset of row ${row}, the first of its block, is ${offset}, not 0`, child: -1 };
+    if (row === 0 && start !== 0) return { row, problem: `the children of row 0 start at ${start}, not 0`, child: -1 };
+    if (start < previousStart) return { row, problem: `the children of row ${row} start before those of row ${row - 1}`, child: -1 };
+    if (start > nextRows) return { row, problem: `the children of row ${row} start at ${start}, past the ${nextRows} rows of the next order`, child: -1 };
+    if (row === rows && start !== nextRows) return { row, problem: `children must run from row 0 to the ${nextRows} rows of the next order (they end at ${start})`, child: -1 };
+    if (failedChild < 0) {
+      // The children of row − 1: [previousStart, start), read in sequence.
+      let previous = 0;
+      for (let child = previousStart; child < start; child++) {
+        const word = (((words[wordAt] >>> wordShift) | ((words[wordAt + 1] << 1) << (31 - wordShift))) & wordMask) >>> 0;
+        wordShift += wordBits;
+        if (wordShift >= 32) {
+          wordShift -= 32;
+          wordAt++;
+        }
+        if (word <= previous || word > size) {
+          failedChild = child;
+          break;
+        }
+        previous = word;
+      }
+    }
+    previousStart = start;
   }
-  return { row: -1, problem: '', child: -1 };
+  return { row: -1, problem: '', child: failedChild };
 }
 
 /** Codes of a quantised section must index their codebook. */

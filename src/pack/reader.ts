@@ -681,7 +681,8 @@ export class PackedModel {
       });
     }
     const empty32 = new Uint32Array(0);
-    const emptyValues = new Float32Array(0);
+    // Placeholders of the same array types as the real ones, so that the hot path sees one kind.
+    const emptyValues = valueView(header.encoding, Buffer.alloc(0));
     this.wordsOf = [empty32, ...this.levels.map((level) => level.words ?? empty32)];
     this.wordsAligned = this.wordBits === 16 || this.wordBits === 32;
     this.alignedWordsOf = this.wordsOf.map((words) => (this.wordBits === 16 ? new Uint16Array(words.buffer, words.byteOffset, words.length * 2) : words));

@@ -9,7 +9,9 @@
  * estimated with interpolated modified Kneser-Ney at each order asked for.
  *
  * The lookups are the held-out text's tokens in order, `</s>` included, OOVs as `<unk>`:
- *   - packed, state carried   `advance(state, id)` from `beginState()` at each sentence (a decoder's loop);
+ *   - packed, state carried   `step(state, id)`, the state reset (`resetState`) at each sentence: a
+ *                             decoder's loop, no allocation per word;
+ *   - packed, advance         `advance(state, id)` from `beginState()`: a new immutable state per word;
  *   - packed, stateless       `logProb(history, id)` with the history as a sliding array;
  *   - in memory (baseline)    `logProb(model, history, id)` of src/estimate/model.ts, same history.
  * Each runs for at least --seconds (and 5 passes); the figure is the median pass. The sums of log10 p
@@ -17,17 +19,23 @@
  * Load: `openModel` of the float32 file, median of 7, with every check, and with the checksums only;
  * beside it the cost of allocating and filling as much fresh memory, the floor of any load that
  * copies the file into memory (no mapping).
- * Lookups and loads are measured in a fresh child process (--measure DIR), whose heap holds nothing
- * but the models: in the building process, the corpus and its counts make every collection that
- * the loads' large buffers trigger several times slower. The baseline there is the float64 file's
- * model as a LanguageModel (`toLanguageModel`: the same values).
+ * Lookups and loads are measured in fresh child processes (--measure DIR --part P), whose heaps hold
+ * nothing but one model: in the building process, the corpus and its counts make every collection
+ * that the loads' large buffers trigger several times slower; and one process per file keeps the
+ * lookup code specialised to that file's value arrays, as in a program that opens one model. The
+ * baseline, in a process of its own, is the float64 file's model as a LanguageModel
+ * (`toLanguageModel`: the same values).
  *
- *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1]
+ * With --against REF (a git revision), the float32 file and reader of REF's src/pack are measured
+ * beside this checkout's, on the same model (lookups with REF's state API, loads, size).
+ *
+ *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF]
  */
 import { execFileSync } from 'node:child_process';
-import { readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import * as path from 'node:path';
+import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
 import bytes from 'bytes-iec';
 import { BOS_ID } from '../src/corpus/vocabulary.ts';
@@ -47,12 +55,35 @@ const { values: args } = parseArgs({
     'synthetic-bytes': { type: 'string', default: '24MB' },
     seconds: { type: 'string', default: '1' },
     measure: { type: 'string' },
+    part: { type: 'string' },
+    against: { type: 'string' },
   },
 });
 const orders = args.orders.split(',').map(Number);
 const seconds = Number(args.seconds);
 const syntheticBytes = bytes.parse(args['synthetic-bytes']) as number;
-const dir = mkdtempSync(path.join(os.tmpdir(), 'quern-bench-query-'));
+// A measuring process works in its parent's directory.
+const dir = args.measure ?? mkdtempSync(path.join(os.tmpdir(), 'quern-bench-query-'));
+const REPO = path.resolve(path.dirname(fileURLToPath(import.meta.url)), '..');
+const AGAINST_FILES = ['format', 'quantise', 'writer', 'reader'];
+
+/**
+ * --against REF: the model-file code of git revision REF (src/pack/{format,quantise,writer,reader}.ts),
+ * copied into the run's directory with its imports of the rest of src/ pointed at this checkout, so
+ * that the file format and reader of REF are measured side by side with this one, on the same
+ * model, machine and moment. Returns the directory, or null without --against.
+ */
+function againstDirectory(): string | null {
+  if (args.against === undefined) return null;
+  const target = path.join(dir, 'against');
+  mkdirSync(target, { recursive: true });
+  writeFileSync(path.join(target, 'package.json'), '{"type":"module"}\n');
+  for (const name of AGAINST_FILES) {
+    const source = execFileSync('git', ['show', `${args.against}:src/pack/${name}.ts`], { cwd: REPO, encoding: 'utf8' });
+    writeFileSync(path.join(target, `${name}.ts`), source.replaceAll("from '../", `from '${REPO}/src/`));
+  }
+  return target;
+}
 
 interface Corpus {
   name: string;
@@ -109,6 +140,46 @@ function statePass(model: PackedModel, stream: number[][]): number {
   return sum;
 }
 
+/** measure() of several passes at once, run in turn (pass 1, pass 2, pass 1, …) so that each sees the
+ *  same moments of a shared machine; the median of each. */
+function measureTogether(tokens: number, passes: Array<() => number>): Array<{ perSecond: number; sum: number }> {
+  const sums = passes.map((pass) => pass());
+  const rates: number[][] = passes.map(() => []);
+  const started = performance.now();
+  while (rates[0].length < 5 || performance.now() - started < seconds * 1000 * passes.length) {
+    passes.forEach((pass, index) => {
+      const passStarted = performance.now();
+      pass();
+      rates[index].push(tokens / ((performance.now() - passStarted) / 1000));
+    });
+  }
+  return passes.map((_, index) => ({ perSecond: median(rates[index]), sum: sums[index] }));
+}
+
+/** A pass with the --against revision's state API (`advance`, a new state per word). */
+function againstPass(model: AgainstModel, stream: number[][]): number {
+  let sum = 0;
+  for (const sentence of stream) {
+    let state = model.beginState();
+    for (let i = 0; i < sentence.length; i++) {
+      const step = model.advance(state, sentence[i]);
+      sum += step.log10Prob;
+      state = step.state;
+    }
+  }
+  return sum;
+}
+
+function stepPass(model: PackedModel, stream: number[][]): number {
+  let sum = 0;
+  const state = model.newState();
+  for (const sentence of stream) {
+    model.resetState(state);
+    for (let i = 0; i < sentence.length; i++) sum += model.step(state, sentence[i]);
+  }
+  return sum;
+}
+
 function historyPass(order: number, stream: number[][], lookup: (history: number[], word: number) => number): number {
   let sum = 0;
   const history: number[] = [];
@@ -136,57 +207,112 @@ const VARIANTS: Array<[string, PackOptions]> = [
   ['8-bit', { quantBits: 8, fingerprint: '' }],
 ];
 
-/** What the measuring process reports. */
+/** What the measuring processes report (each part from a process of its own). */
 interface Measured {
   loadMs: number;
   loadUncheckedMs: number;
   touchMs: number;
   baseline: number;
+  baselineSum: number;
   state: Record<string, number>;
+  stateSum: Record<string, number>;
+  advance: number;
   stateless: number;
+  /** --against: the float32 file of that revision (lookups with its state API, loads), measured in
+   *  the float32 process, in turn with this revision's. */
+  againstState?: number;
+  againstSum?: number;
+  againstLoadMs?: number;
+  againstLoadUncheckedMs?: number;
 }
 
+/** The reader of the --against revision, as much of it as is measured. */
+interface AgainstModel {
+  beginState(): unknown;
+  advance(state: unknown, word: number): { log10Prob: number; state: unknown };
+}
+interface AgainstReader {
+  openModel(filePath: string, options?: { checkStructure?: boolean }): Promise<AgainstModel>;
+}
+
+/** Loads measured per file (the median is reported: the first ones run code not yet optimised,
+ *  and the machine is shared). */
+const LOADS = 15;
+
+/** What one measuring process measures: the baseline, or the lookups of one file (float32: also
+ *  its loads, `advance` and the stateless lookup). */
+type Part = 'baseline' | 'float64' | 'float32' | '8-bit';
+const PARTS: Part[] = ['baseline', 'float64', 'float32', '8-bit'];
+
 /**
- * The measuring process (--measure DIR): a fresh process, so that neither the corpus nor the counts
- * of the building process weigh on its heap. The baseline is the in-memory model of the float64
- * file (`toLanguageModel`: the same values), scored with src/estimate/model.ts's `logProb`.
+ * A measuring process (--measure DIR --part P): a fresh process, so that neither the corpus nor
+ * the counts of the building process weigh on its heap, and one per part, so that the lookup code
+ * sees one kind of value array (float64, float32 or 8-bit codes), as a program that opens one
+ * model does — in one process for all, the later files would run code made generic by the
+ * earlier ones. The baseline is the in-memory model of the float64 file (`toLanguageModel`: the
+ * same values), scored with src/estimate/model.ts's `logProb`.
  */
-async function measureFiles(from: string): Promise<Measured> {
+async function measurePart(from: string, part: Part): Promise<Partial<Measured>> {
   const stream = JSON.parse(readFileSync(path.join(from, 'stream.json'), 'utf8')) as number[][];
   const tokens = stream.reduce((sum, sentence) => sum + sentence.length, 0);
-  const float32Path = path.join(from, 'float32.qm');
-  const fileBytes = statSync(float32Path).size;
-  const loads: number[] = [];
-  const loadsUnchecked: number[] = [];
-  const touches: number[] = [];
-  for (let i = 0; i < 7; i++) {
-    let started = performance.now();
-    await openModel(float32Path);
-    loads.push(performance.now() - started);
-    started = performance.now();
-    await openModel(float32Path, { checkStructure: false });
-    loadsUnchecked.push(performance.now() - started);
-    // The floor of any load that copies the file into memory: allocating and filling as much.
-    started = performance.now();
-    Buffer.allocUnsafeSlow(fileBytes).fill(1);
-    touches.push(performance.now() - started);
+  if (part === 'baseline') {
+    const model = (await openModel(path.join(from, 'float64.qm'))).toLanguageModel();
+    const baseline = measure(tokens, () => historyPass(model.order, stream, (history, word) => logProb(model, history, word).log10Prob));
+    return { baseline: baseline.perSecond, baselineSum: baseline.sum };
   }
-  const opened = new Map<string, PackedModel>();
-  for (const [name] of VARIANTS) opened.set(name, await openModel(path.join(from, `${name}.qm`)));
-  const exact = opened.get('float64') as PackedModel;
-  const model = exact.toLanguageModel();
-  const baseline = measure(tokens, () => historyPass(model.order, stream, (history, word) => logProb(model, history, word).log10Prob));
-  const state: Record<string, number> = {};
-  for (const name of ['float64', 'float32', '8-bit']) {
-    const result = measure(tokens, () => statePass(opened.get(name) as PackedModel, stream));
-    if (name === 'float64' && Math.abs(result.sum - baseline.sum) > 1e-6 * Math.abs(baseline.sum)) {
-      throw new Error(`float64 file: Σ log10 p ${result.sum} differs from the in-memory model's ${baseline.sum}`);
+  const filePath = path.join(from, `${part}.qm`);
+  const result: Partial<Measured> = {};
+  const againstPath = path.join(from, 'against-float32.qm');
+  const against = part === 'float32' && existsSync(againstPath) ? ((await import(path.join(from, 'against', 'reader.ts'))) as AgainstReader) : null;
+  if (part === 'float32') {
+    // Loads, alternating with those of the --against file when there is one (the same moments).
+    const fileBytes = statSync(filePath).size;
+    const loads: number[] = [];
+    const loadsUnchecked: number[] = [];
+    const touches: number[] = [];
+    const againstLoads: number[] = [];
+    const againstLoadsUnchecked: number[] = [];
+    for (let i = 0; i < LOADS; i++) {
+      let started = performance.now();
+      await openModel(filePath);
+      loads.push(performance.now() - started);
+      started = performance.now();
+      await openModel(filePath, { checkStructure: false });
+      loadsUnchecked.push(performance.now() - started);
+      if (against !== null) {
+        started = performance.now();
+        await against.openModel(againstPath);
+        againstLoads.push(performance.now() - started);
+        started = performance.now();
+        await against.openModel(againstPath, { checkStructure: false });
+        againstLoadsUnchecked.push(performance.now() - started);
+      }
+      // The floor of any load that copies the file into memory: allocating and filling as much.
+      started = performance.now();
+      Buffer.allocUnsafeSlow(fileBytes).fill(1);
+      touches.push(performance.now() - started);
     }
-    state[name] = result.perSecond;
+    Object.assign(result, { loadMs: median(loads), loadUncheckedMs: median(loadsUnchecked), touchMs: median(touches) });
+    if (against !== null) Object.assign(result, { againstLoadMs: median(againstLoads), againstLoadUncheckedMs: median(againstLoadsUnchecked) });
   }
-  const float32 = opened.get('float32') as PackedModel;
-  const stateless = measure(tokens, () => historyPass(model.order, stream, (history, word) => float32.logProb(history, word).log10Prob));
-  return { loadMs: median(loads), loadUncheckedMs: median(loadsUnchecked), touchMs: median(touches), baseline: baseline.perSecond, state, stateless: stateless.perSecond };
+  const packed = await openModel(filePath);
+  if (against !== null) {
+    // This revision's step and the --against revision's advance, pass for pass.
+    const old = await against.openModel(againstPath);
+    const [state, previous] = measureTogether(tokens, [() => stepPass(packed, stream), () => againstPass(old, stream)]);
+    result.state = { [part]: state.perSecond };
+    result.stateSum = { [part]: state.sum };
+    Object.assign(result, { againstState: previous.perSecond, againstSum: previous.sum });
+  } else {
+    const state = measure(tokens, () => stepPass(packed, stream));
+    result.state = { [part]: state.perSecond };
+    result.stateSum = { [part]: state.sum };
+  }
+  if (part === 'float32') {
+    result.advance = measure(tokens, () => statePass(packed, stream)).perSecond;
+    result.stateless = measure(tokens, () => historyPass(packed.order, stream, (history, word) => packed.logProb(history, word).log10Prob)).perSecond;
+  }
+  return result;
 }
 
 const rows: string[] = [];
@@ -198,29 +324,56 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
     await packModel(model, options, nodeFs, file);
     sizes[name] = statSync(file).size;
   }
+  const against = againstDirectory();
+  if (against !== null) {
+    const writer = (await import(path.join(against, 'writer.ts'))) as { packModel: typeof packModel };
+    const file = path.join(dir, 'against-float32.qm');
+    await writer.packModel(model, { floatBits: 32, fingerprint: '' }, nodeFs, file);
+    sizes.against = statSync(file).size;
+  }
   writeFileSync(path.join(dir, 'stream.json'), JSON.stringify(stream));
-  const output = execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--measure', dir, '--seconds', String(seconds)], { encoding: 'utf8', maxBuffer: 1 << 20 });
-  const result = JSON.parse(output) as Measured;
+  const result = { state: {}, stateSum: {} } as Measured;
+  for (const part of PARTS) {
+    const output = execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--measure', dir, '--part', part, '--seconds', String(seconds)], { encoding: 'utf8', maxBuffer: 1 << 20 });
+    const measured = JSON.parse(output) as Partial<Measured>;
+    Object.assign(result.state, measured.state ?? {});
+    Object.assign(result.stateSum, measured.stateSum ?? {});
+    delete measured.state;
+    delete measured.stateSum;
+    Object.assign(result, measured);
+  }
+  if (result.againstSum !== undefined && Math.abs(result.againstSum - result.stateSum.float32) > 1e-6 * Math.abs(result.stateSum.float32)) {
+    throw new Error(`--against ${args.against}: Σ log10 p ${result.againstSum} differs from this revision's float32 file's ${result.stateSum.float32}`);
+  }
+  if (Math.abs(result.stateSum.float64 - result.baselineSum) > 1e-6 * Math.abs(result.baselineSum)) {
+    throw new Error(`float64 file: Σ log10 p ${result.stateSum.float64} differs from the in-memory model's ${result.baselineSum}`);
+  }
   const million = (value: number): string => `${(value / 1e6).toFixed(2)} M/s`;
   const ratio = (value: number): string => `×${(value / result.baseline).toFixed(1)}`;
   const perGigabyte = (ms: number): string => `${(ms / 1000 / (sizes.float32 / 1e9)).toFixed(2)} s/GB`;
   const perNgram = (name: string): string => (sizes[name] / ngrams).toFixed(2);
   rows.push(
     `${corpus.name}, order ${model.order}: ${ngrams.toLocaleString('en-US')} n-grams (${model.orders.map((t) => t.log10Prob.length.toLocaleString('en-US')).join(' + ')}), ` +
-      `${tokens.toLocaleString('en-US')} held-out tokens per pass\n` +
-      `  lookups   in memory logProb ${million(result.baseline)} (baseline) | packed with state: float64 ${million(result.state.float64)} (${ratio(result.state.float64)}), ` +
+      `${tokens.toLocaleString('en-US')} held-out tokens per pass; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
+      `  lookups   in memory logProb ${million(result.baseline)} (baseline) | packed, state carried (step): float64 ${million(result.state.float64)} (${ratio(result.state.float64)}), ` +
       `float32 ${million(result.state.float32)} (${ratio(result.state.float32)}), 8-bit ${million(result.state['8-bit'])} (${ratio(result.state['8-bit'])}) | ` +
-      `packed stateless float32 ${million(result.stateless)} (${ratio(result.stateless)})\n` +
+      `packed float32 advance (a new state per word) ${million(result.advance)} (${ratio(result.advance)}), stateless ${million(result.stateless)} (${ratio(result.stateless)})\n` +
       `  size      B/n-gram: float64 ${perNgram('float64')}, float32 ${perNgram('float32')}, 16-bit ${perNgram('16-bit')}, 8-bit ${perNgram('8-bit')} ` +
       `(files ${VARIANTS.map(([name]) => bytes.format(sizes[name], { decimalPlaces: 1 })).join(', ')})\n` +
       `  load      float32 file of ${bytes.format(sizes.float32, { decimalPlaces: 1 })}: ${result.loadMs.toFixed(1)} ms = ${perGigabyte(result.loadMs)} (checksums and structure verified); ` +
-      `${perGigabyte(result.loadUncheckedMs)} with checksums only; allocating and filling as much fresh memory: ${perGigabyte(result.touchMs)}`,
+      `${perGigabyte(result.loadUncheckedMs)} with checksums only; allocating and filling as much fresh memory: ${perGigabyte(result.touchMs)}` +
+      (result.againstState === undefined
+        ? ''
+        : `\n  against   ${args.against}, float32 file of ${bytes.format(sizes.against, { decimalPlaces: 1 })} (${(sizes.against / ngrams).toFixed(2)} B/n-gram): ` +
+          `lookups with its state API ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}); ` +
+          `load ${perGigabyte(result.againstLoadMs as number)} verified, ${perGigabyte(result.againstLoadUncheckedMs as number)} checksums only ` +
+          `(this revision: ×${((result.againstLoadMs as number) / result.loadMs).toFixed(2)} and ×${((result.againstLoadUncheckedMs as number) / result.loadUncheckedMs).toFixed(2)} faster)`),
   );
   console.log(rows[rows.length - 1]);
 }
 
 if (args.measure !== undefined) {
-  process.stdout.write(JSON.stringify(await measureFiles(args.measure)));
+  process.stdout.write(JSON.stringify(await measurePart(args.measure, args.part as Part)));
   process.exit(0);
 }
 

@@ -21,6 +21,6 @@ export { loadCountTables } from './estimate/from-store.ts';
 export { countCorpus, type CountTables } from './estimate/counts.ts';
 export { logProb, type LanguageModel } from './estimate/model.ts';
 export { perplexity } from './score/perplexity.ts';
-export { packModel } from './pack/writer.ts';
-export { openModel, type PackedModel } from './pack/reader.ts';
+export { packModel, packModelSource, type PackOptions, type PackSummary } from './pack/writer.ts';
+export { DecoderState, openModel, type PackedModel } from './pack/reader.ts';
 export { readArpa, writeArpa } from './pack/arpa.ts';

@@ -199,8 +199,13 @@ export const PACK_DESCRIPTION_BYTES_MAX = 16 << 20;
 /** Bytes of the corpus fingerprint at most: a hash or a short provenance string. */
 export const PACK_FINGERPRINT_BYTES_MAX = 4096;
 
-/** Bytes per read call when a section is loaded: large calls for speed, well under fs's 2 GiB. */
-export const PACK_READ_BYTES_MAX = 256 << 20;
+/** Bytes per read call when a section is loaded, each checksummed right after it is read, while
+ *  it is still in the CPU's cache (2 MiB of L2 per core here): 1 MiB pieces. Well under fs's 2 GiB. */
+export const PACK_READ_BYTES_MAX = 1 << 20;
+
+/** Bytes the model-file writer gathers before one write call: sections are built in batches of
+ *  rows, often smaller; 1 MiB writes keep the calls few. */
+export const PACK_WRITE_BUFFER_BYTES = 1 << 20;
 
 /** Values a quantisation codebook is fitted on at most: larger orders are represented by an
  *  evenly spaced sample of their sorted values (their quantiles), which keeps each Lloyd

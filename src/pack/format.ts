@@ -9,15 +9,24 @@ import { QuernError } from '../errors.ts';
 /** Magic: ASCII `QRNMODEL`. */
 export const MODEL_MAGIC = Buffer.from('QRNMODEL', 'latin1');
 
-/** Major version: a reader reads exactly its own major version. */
-export const MODEL_VERSION_MAJOR = 1;
+/** Major version: a reader reads exactly its own major version. Version 2 (bit-packed word ids and
+ *  children, the section table and the checksums at the end so that a writer never seeks back)
+ *  replaced version 1. */
+export const MODEL_VERSION_MAJOR = 2;
 /** Minor version: a reader reads every minor version of its major; newer ones may add section kinds. */
 export const MODEL_VERSION_MINOR = 0;
 
 /** Header size in bytes (offset 0). */
 export const HEADER_BYTES = 128;
-/** Bytes of one section table entry; the table starts right after the header. */
+/** Bytes of one section table entry; the table follows the last section. */
 export const SECTION_ENTRY_BYTES = 32;
+/** Bytes of the footer, the last bytes of the file: where the section table is, and its checksum. */
+export const FOOTER_BYTES = 32;
+/** Rows of a block of the children section: each block stores the absolute children start of its
+ *  first row, and each row its offset from there (docs/model-file.md, "Children"). */
+export const CHILD_BLOCK_ROWS = 64;
+/** log2 CHILD_BLOCK_ROWS: the block of row r is r >>> CHILD_BLOCK_SHIFT. */
+export const CHILD_BLOCK_SHIFT = 6;
 /** Every section starts at a multiple of this many bytes. */
 export const SECTION_ALIGN_BYTES = 8;
 
@@ -27,21 +36,30 @@ export const H = {
   versionMajor: 8,
   versionMinor: 10,
   headerBytes: 12,
-  fileBytes: 16,
+  reserved16: 16,
   flags: 24,
   order: 28,
   vocabularySize: 32,
   eosId: 36,
   unkId: 40,
   valueEncoding: 44,
-  wordIdBytes: 45,
+  wordIdBits: 45,
   reserved46: 46,
   log10UnseenContextWeight: 48,
-  sectionCount: 56,
-  sectionTableCrc: 60,
+  reserved56: 56,
   ngramCounts: 64,
   reserved120: 120,
   headerCrc: 124,
+} as const;
+
+/** Byte offsets of the footer fields, from the footer's start (docs/model-file.md, "Footer"). */
+export const F = {
+  tableOffset: 0,
+  sectionCount: 8,
+  tableCrc: 12,
+  fileBytes: 16,
+  reserved24: 24,
+  footerCrc: 28,
 } as const;
 
 /** Header flag bits. */
@@ -124,9 +142,27 @@ export function alignUp(value: number): number {
   return Math.ceil(value / SECTION_ALIGN_BYTES) * SECTION_ALIGN_BYTES;
 }
 
-/** Bytes of a word id in the file: 2 when every id fits in 16 bits, else 4. */
-export function wordIdBytesFor(vocabularySize: number): 2 | 4 {
-  return vocabularySize <= 0xffff ? 2 : 4;
+/** Bits of an unsigned integer up to `max`: 0 for 0, else ⌊log2 max⌋ + 1 (at most 32). */
+export function bitsFor(max: number): number {
+  let bits = 0;
+  while (bits < 32 && 2 ** bits <= max) bits++;
+  return bits;
+}
+
+/** Bytes of `count` values of `bits` bits packed back to back (src/pack/bits.ts): the ⌊count·bits/32⌋ + 1
+ *  u32 words that hold them, one spare zero u32, rounded up to a multiple of 8 bytes. */
+export function packedBytes(count: number, bits: number): number {
+  return 8 * Math.ceil((Math.floor((count * bits) / 32) + 2) / 2);
+}
+
+/** Blocks of the children section of an order of `rows` rows (rows + 1 entries). */
+export function childBlocks(rows: number): number {
+  return Math.floor(rows / CHILD_BLOCK_ROWS) + 1;
+}
+
+/** Byte offset, within a children section, of its packed offsets (after the width and the bases). */
+export function childOffsetsStart(rows: number): number {
+  return alignUp(8 + 4 * childBlocks(rows));
 }
 
 /** Slots of the vocabulary hash table for V + 1 ids: the smallest power of two ≥ 2·(V + 1), at least 8. */

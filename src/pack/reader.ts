@@ -11,17 +11,20 @@
  * check is a QuernError 'corrupt' naming the file and the section; nothing is allocated beyond the
  * file's own size.
  *
- * Queries then read typed-array views of those buffers, with no per-entry decoding:
+ * Queries then read typed-array views of those buffers, decoding only the entries they touch:
  *
  *   rows of order n are grouped by context; order 1 has one row per id (row = id);
- *   children_n[r] .. children_n[r+1]  = the rows of order n+1 whose context is row r of order n;
- *   words_n[row]                      = the last word id of a row of order n ≥ 2 (ascending within a context);
- *   prob_n[row], backOff_n[row]       = log10 p(w | h) and log10 bow(h w), as floats or codebook codes.
+ *   children_n(r) .. children_n(r+1) = the rows of order n+1 whose context is row r of order n,
+ *                                       children_n(r) = bases_n[r / 64] + offsets_n[r] (bit-packed);
+ *   words_n[row]                     = the last word id of a row of order n ≥ 2 (bit-packed,
+ *                                       ascending within a context);
+ *   prob_n[row], backOff_n[row]      = log10 p(w | h) and log10 bow(h w), as floats or codebook codes.
  *
  * A lookup of p(w | h) finds the row of h at each order by descending from its first word (one
- * binary search per word, each within one context's children), then searches w among h's children;
- * the incremental state (`beginState`, `advance`) keeps the rows of every suffix of the history, so a
- * decoder's lookup is one binary search per order it backs off through (see `advance`).
+ * search per word, each within one context's children), then searches w among h's children; the
+ * incremental state (`newState`/`step` without allocation, or `beginState`/`advance` with immutable
+ * states) keeps the rows of every suffix of the history, so a decoder's lookup is one search per
+ * order it backs off through, plus one per shorter order to keep the state's rows.
  */
 import { promises as fsp } from 'node:fs';
 import { crc32 } from 'node:zlib';
@@ -31,9 +34,11 @@ import type { LanguageModel, MethodParameters, ModelOrder } from '../estimate/mo
 import {
   ORDER_MAX, PACK_DESCRIPTION_BYTES_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_READ_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_SECTIONS_MAX, VOCAB_TYPES_MAX,
 } from '../limits.ts';
+import { maskFor, unpack } from './bits.ts';
 import {
-  alignUp, codeBits, ENCODING_NAMES, FLAG_NORMALISED, FLAGS_KNOWN, fnv1a32, H, hashSlotsFor, HEADER_BYTES, isPerOrderKind, MODEL_MAGIC,
-  MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR, requireLittleEndian, SECTION_ENTRY_BYTES, SECTION_KIND_MAX, SectionKind, sectionName, ValueEncoding, valueBytes,
+  alignUp, bitsFor, CHILD_BLOCK_ROWS, CHILD_BLOCK_SHIFT, childBlocks, childOffsetsStart, codeBits, ENCODING_NAMES, F, FLAG_NORMALISED, FLAGS_KNOWN, fnv1a32, FOOTER_BYTES, H, hashSlotsFor,
+  HEADER_BYTES, isPerOrderKind, MODEL_MAGIC, MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR, packedBytes, requireLittleEndian, SECTION_ENTRY_BYTES, SECTION_KIND_MAX,
+  SectionKind, sectionName, ValueEncoding, valueBytes,
 } from './format.ts';
 
 /** A section as listed in the section table. */
@@ -78,6 +83,28 @@ export class ModelState {
   }
 }
 
+/**
+ * A decoder state that `step` changes in place, so that a decoder's loop allocates nothing per
+ * word: the history after which the next word is predicted (the last min(N − 1, i) ids) and the
+ * rows of its suffixes. Create it with `newState`; `resetState` starts a new sentence.
+ */
+export class DecoderState {
+  /** @internal The number of history ids, min(N − 1, i). */
+  length = 0;
+  /** @internal History ids, oldest first. */
+  readonly ids = new Float64Array(ORDER_MAX);
+  /** @internal rows[k] (k = 1..length): 1 + the row at order k of the last k history ids, 0 when
+   *  there is none (rows are below 2^32 − 2, so 1 + row fits). */
+  readonly rows = new Uint32Array(ORDER_MAX + 1);
+  /** The order of the n-gram that answered the last `step` (0 before the first). */
+  order = 0;
+
+  /** The last min(N − 1, i) token ids, oldest first. */
+  get history(): number[] {
+    return Array.from(this.ids.subarray(0, this.length));
+  }
+}
+
 /** Result of `advance`: the word's lookup and the state after it. */
 export interface AdvanceResult extends PackedLookup {
   state: ModelState;
@@ -108,21 +135,23 @@ export interface SentenceScore {
   oov: number;
 }
 
-type IdArray = Uint16Array | Uint32Array;
 type ValueArray = Float32Array | Float64Array | Uint8Array | Uint16Array;
 
 /** The arrays of one order. */
 interface Level {
   rows: number;
-  /** Last word id of each row; null at order 1 (row = id). */
-  words: IdArray | null;
+  /** Last word id of each row, bit-packed; null at order 1 (row = id). */
+  words: Uint32Array | null;
   prob: ValueArray;
   probCodebook: Float64Array | null;
   /** Null at the highest order. */
   backOff: ValueArray | null;
   backOffCodebook: Float64Array | null;
-  /** rows + 1 entries; null at the highest order. */
-  children: Uint32Array | null;
+  /** Children start of every 64th row; null at the highest order. */
+  childBases: Uint32Array | null;
+  /** Offset of each of the rows + 1 entries from its block's base, `childBits` wide; null at the highest order. */
+  childOffsets: Uint32Array | null;
+  childBits: number;
 }
 
 /** Options of `openModel`. */
@@ -194,11 +223,13 @@ interface Header {
   eosId: number;
   unkId: number;
   encoding: ValueEncoding;
-  wordIdBytes: 2 | 4;
+  wordIdBits: number;
   log10UnseenContextWeight: number;
-  sectionCount: number;
-  sectionTableCrc: number;
   rows: number[];
+}
+
+function versionMessage(major: number, minor: number): string {
+  return `format version ${major}.${minor}; this reader reads version ${MODEL_VERSION_MAJOR}.x (${major > MODEL_VERSION_MAJOR ? 'a newer Quern wrote it' : 'an older Quern wrote it; repack the model'})`;
 }
 
 function parseHeader(file: string, header: Buffer, fileBytes: number): Header {
@@ -209,16 +240,14 @@ function parseHeader(file: string, header: Buffer, fileBytes: number): Header {
   if (fileBytes < H.versionMinor + 2) throw corrupt(file, where, `the file is ${fileBytes} bytes, shorter than the ${HEADER_BYTES}-byte header`);
   const major = header.readUInt16LE(H.versionMajor);
   const minor = header.readUInt16LE(H.versionMinor);
-  if (major !== MODEL_VERSION_MAJOR) {
-    throw corrupt(file, where, `format version ${major}.${minor}; this reader reads version ${MODEL_VERSION_MAJOR}.x (${major > MODEL_VERSION_MAJOR ? 'a newer Quern wrote it' : 'an older Quern wrote it; repack the model'})`);
-  }
+  if (major !== MODEL_VERSION_MAJOR) throw corrupt(file, where, versionMessage(major, minor));
   if (fileBytes < HEADER_BYTES) throw corrupt(file, where, `the file is ${fileBytes} bytes, shorter than the ${HEADER_BYTES}-byte header`);
   const crc = crc32(header.subarray(0, H.headerCrc));
   if (crc !== header.readUInt32LE(H.headerCrc)) throw corrupt(file, where, `checksum mismatch (stored 0x${hex(header.readUInt32LE(H.headerCrc))}, computed 0x${hex(crc)})`);
   if (header.readUInt32LE(H.headerBytes) !== HEADER_BYTES) throw corrupt(file, where, `header size ${header.readUInt32LE(H.headerBytes)}, expected ${HEADER_BYTES}`);
-  const storedBytes = u64(header, H.fileBytes);
-  if (storedBytes !== fileBytes) throw corrupt(file, where, `the file is ${fileBytes} bytes but its header says ${storedBytes}: it was ${fileBytes < storedBytes ? 'truncated' : 'extended'}`);
-  if (header.readUInt16LE(H.reserved46) !== 0 || header.readUInt32LE(H.reserved120) !== 0) throw corrupt(file, where, 'reserved bytes are not zero');
+  if (header.readBigUInt64LE(H.reserved16) !== 0n || header.readUInt16LE(H.reserved46) !== 0 || header.readBigUInt64LE(H.reserved56) !== 0n || header.readUInt32LE(H.reserved120) !== 0) {
+    throw corrupt(file, where, 'reserved bytes are not zero');
+  }
   const flags = header.readUInt32LE(H.flags);
   if ((flags & ~FLAGS_KNOWN) !== 0) throw corrupt(file, where, `unknown flags 0x${hex(flags)}`);
   const order = header.readUInt32LE(H.order);
@@ -230,12 +259,10 @@ function parseHeader(file: string, header: Buffer, fileBytes: number): Header {
   if (eosId < 1 || eosId > size || unkId < 1 || unkId > size || eosId === unkId) throw corrupt(file, where, `</s> id ${eosId} and <unk> id ${unkId} must be distinct ids in [1, ${size}]`);
   const encoding = header.readUInt8(H.valueEncoding);
   if (ENCODING_NAMES[encoding] === undefined) throw corrupt(file, where, `unknown value encoding ${encoding}`);
-  const wordIdBytes = header.readUInt8(H.wordIdBytes);
-  if (!(wordIdBytes === 4 || (wordIdBytes === 2 && size <= 0xffff))) throw corrupt(file, where, `word ids of ${wordIdBytes} bytes cannot hold a vocabulary of ${size}`);
+  const wordIdBits = header.readUInt8(H.wordIdBits);
+  if (wordIdBits !== bitsFor(size)) throw corrupt(file, where, `word ids of ${wordIdBits} bits; a vocabulary of ${size} takes ${bitsFor(size)}`);
   const log10UnseenContextWeight = header.readDoubleLE(H.log10UnseenContextWeight);
   if (!Number.isFinite(log10UnseenContextWeight)) throw corrupt(file, where, `the unseen-context weight ${log10UnseenContextWeight} is not finite`);
-  const sectionCount = header.readUInt32LE(H.sectionCount);
-  if (sectionCount < 1 || sectionCount > PACK_SECTIONS_MAX) throw corrupt(file, where, `section count ${sectionCount} outside [1, ${PACK_SECTIONS_MAX}]`);
   const rows: number[] = [];
   for (let n = 1; n <= ORDER_MAX; n++) {
     const count = u64(header, H.ngramCounts + 8 * (n - 1));
@@ -255,19 +282,44 @@ function parseHeader(file: string, header: Buffer, fileBytes: number): Header {
     eosId,
     unkId,
     encoding: encoding as ValueEncoding,
-    wordIdBytes,
+    wordIdBits,
     log10UnseenContextWeight,
-    sectionCount,
-    sectionTableCrc: header.readUInt32LE(H.sectionTableCrc),
     rows,
   };
+}
+
+/** The footer: where the section table is, how many entries it has, and its checksum. */
+interface Footer {
+  tableOffset: number;
+  sectionCount: number;
+  tableCrc: number;
+}
+
+function parseFooter(file: string, footer: Buffer, fileBytes: number): Footer {
+  const where = 'footer';
+  const crc = crc32(footer.subarray(0, F.footerCrc));
+  if (crc !== footer.readUInt32LE(F.footerCrc)) {
+    throw corrupt(file, where, `checksum mismatch (stored 0x${hex(footer.readUInt32LE(F.footerCrc))}, computed 0x${hex(crc)}): the file was truncated, extended or damaged at its end`);
+  }
+  const storedBytes = u64(footer, F.fileBytes);
+  if (storedBytes !== fileBytes) throw corrupt(file, where, `the file is ${fileBytes} bytes but its footer says ${storedBytes}: it was ${fileBytes < storedBytes ? 'truncated' : 'extended'}`);
+  if (footer.readUInt32LE(F.reserved24) !== 0) throw corrupt(file, where, 'reserved bytes are not zero');
+  const sectionCount = footer.readUInt32LE(F.sectionCount);
+  if (sectionCount < 1 || sectionCount > PACK_SECTIONS_MAX) throw corrupt(file, where, `section count ${sectionCount} outside [1, ${PACK_SECTIONS_MAX}]`);
+  const tableOffset = u64(footer, F.tableOffset);
+  const expected = fileBytes - FOOTER_BYTES - sectionCount * SECTION_ENTRY_BYTES;
+  if (tableOffset !== expected || expected < HEADER_BYTES) {
+    throw corrupt(file, where, `the section table of ${sectionCount} entries is at byte ${tableOffset}; it must end where the footer starts, at byte ${expected}, after the ${HEADER_BYTES}-byte header`);
+  }
+  return { tableOffset, sectionCount, tableCrc: footer.readUInt32LE(F.tableCrc) };
 }
 
 function hex(value: number): string {
   return value.toString(16).padStart(8, '0');
 }
 
-/** The length a known section must have, given the header; null when any length in [min, max] will do. */
+/** The length a known section must have, given the header: a number, or a range when it depends on
+ *  the section's own content (a children section's width is checked once it is read). */
 function expectedLength(header: Header, kind: number, order: number): number | { min: number; max: number } {
   const values = valueBytes(header.encoding);
   const rows = header.rows[order - 1];
@@ -277,10 +329,10 @@ function expectedLength(header: Header, kind: number, order: number): number | {
     case SectionKind.VocabularyWords: return { min: 0, max: PACK_SECTION_BYTES_MAX };
     case SectionKind.VocabularyOffsets: return 4 * (header.size + 2);
     case SectionKind.VocabularyHash: return 4 * hashSlotsFor(header.size + 1);
-    case SectionKind.Words: return header.wordIdBytes * rows;
+    case SectionKind.Words: return packedBytes(rows, header.wordIdBits);
     case SectionKind.Probabilities:
     case SectionKind.BackOffs: return values * rows;
-    case SectionKind.Children: return 4 * (rows + 1);
+    case SectionKind.Children: return { min: childOffsetsStart(rows), max: Math.min(PACK_SECTION_BYTES_MAX, childOffsetsStart(rows) + packedBytes(rows + 1, 32)) };
     default: return { min: 8, max: 8 * 2 ** codeBits(header.encoding) };
   }
 }
@@ -308,17 +360,19 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
   await readAt(handle, file, 'header', headerBytes.subarray(0, Math.min(HEADER_BYTES, fileBytes)), 0);
   const header = parseHeader(file, headerBytes, fileBytes);
 
-  // Section table.
-  const tableBytes = header.sectionCount * SECTION_ENTRY_BYTES;
-  if (HEADER_BYTES + tableBytes > fileBytes) throw corrupt(file, 'section table', `${header.sectionCount} entries at byte ${HEADER_BYTES} run past the end of the ${fileBytes}-byte file`);
-  const table = Buffer.alloc(tableBytes);
-  await readAt(handle, file, 'section table', table, HEADER_BYTES);
+  // Footer, then the section table it points at.
+  if (fileBytes < HEADER_BYTES + FOOTER_BYTES) throw corrupt(file, 'footer', `the file is ${fileBytes} bytes, shorter than the ${HEADER_BYTES}-byte header and the ${FOOTER_BYTES}-byte footer`);
+  const footerBytes = Buffer.alloc(FOOTER_BYTES);
+  await readAt(handle, file, 'footer', footerBytes, fileBytes - FOOTER_BYTES);
+  const footer = parseFooter(file, footerBytes, fileBytes);
+  const table = Buffer.alloc(footer.sectionCount * SECTION_ENTRY_BYTES);
+  await readAt(handle, file, 'section table', table, footer.tableOffset);
   const tableCrc = crc32(table);
-  if (tableCrc !== header.sectionTableCrc) throw corrupt(file, 'section table', `checksum mismatch (header says 0x${hex(header.sectionTableCrc)}, computed 0x${hex(tableCrc)})`);
+  if (tableCrc !== footer.tableCrc) throw corrupt(file, 'section table', `checksum mismatch (footer says 0x${hex(footer.tableCrc)}, computed 0x${hex(tableCrc)})`);
   const sections: SectionInfo[] = [];
   const known = new Map<string, SectionInfo>();
-  let position = HEADER_BYTES + tableBytes;
-  for (let index = 0; index < header.sectionCount; index++) {
+  let position = HEADER_BYTES;
+  for (let index = 0; index < footer.sectionCount; index++) {
     const entry = index * SECTION_ENTRY_BYTES;
     const kind = table.readUInt32LE(entry);
     const order = table.readUInt32LE(entry + 4);
@@ -331,7 +385,7 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
     if (isKnown && (isPerOrderKind(kind) ? order < 1 || order > header.order : order !== 0)) throw corrupt(file, where, `order ${order} is not valid for this section in a model of order ${header.order}`);
     if (table.readUInt32LE(entry + 28) !== 0) throw corrupt(file, where, 'reserved bytes of the table entry are not zero');
     if (offset !== position) throw corrupt(file, where, `starts at byte ${offset}; sections follow each other, each at the next multiple of 8, so it must start at byte ${position}`);
-    if (bytes > PACK_SECTION_BYTES_MAX || offset + bytes > fileBytes) throw corrupt(file, where, `${bytes} bytes at byte ${offset} run past the end of the ${fileBytes}-byte file`);
+    if (bytes > PACK_SECTION_BYTES_MAX || offset + bytes > footer.tableOffset) throw corrupt(file, where, `${bytes} bytes at byte ${offset} run past the start of the section table at byte ${footer.tableOffset}`);
     const info: SectionInfo = { kind, order, name, offset, bytes, crc32: table.readUInt32LE(entry + 24) };
     if (isKnown) {
       const key = `${kind}:${order}`;
@@ -345,7 +399,7 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
     sections.push(info);
     position = alignUp(offset + bytes);
   }
-  if (position !== fileBytes) throw corrupt(file, 'section table', `the sections end at byte ${position} but the file is ${fileBytes} bytes`);
+  if (position !== footer.tableOffset) throw corrupt(file, 'section table', `the sections end at byte ${position} but the section table starts at byte ${footer.tableOffset}`);
   const quantised = codeBits(header.encoding) > 0;
   for (const [kind, order] of requiredSections(header)) {
     if (!known.has(`${kind}:${order}`)) throw corrupt(file, 'section table', `the ${sectionName(kind, order)} section is missing`);
@@ -356,25 +410,31 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
     }
   }
 
-  // Sections: read each into a buffer of its own, check padding and checksum.
+  // Sections: read each into a buffer of its own, in pieces, each checksummed as it arrives (while
+  // it is in the cache); then the padding.
   const data = new Map<string, Buffer>();
   for (let index = 0; index < sections.length; index++) {
     const info = sections[index];
     const where = `section ${index} (${info.name}) at byte ${info.offset}`;
     const padded = alignUp(info.bytes);
     const buffer = Buffer.allocUnsafeSlow(padded);
-    await readAt(handle, file, where, buffer, info.offset);
+    let crc = 0;
+    for (let done = 0; done < padded; done += PACK_READ_BYTES_MAX) {
+      const piece = buffer.subarray(done, Math.min(padded, done + PACK_READ_BYTES_MAX));
+      await readAt(handle, file, where, piece, info.offset + done);
+      const checked = Math.min(piece.length, info.bytes - done);
+      if (checked > 0) crc = crc32(piece.subarray(0, checked), crc); // (crc32 of an empty array may return 0, not crc)
+    }
     for (let i = info.bytes; i < padded; i++) if (buffer[i] !== 0) throw corrupt(file, where, `padding byte ${info.offset + i} is not zero`);
-    const body = buffer.subarray(0, info.bytes);
-    const crc = crc32(body);
     if (crc !== info.crc32) throw corrupt(file, where, `checksum mismatch (stored 0x${hex(info.crc32)}, computed 0x${hex(crc)})`);
+    const body = buffer.subarray(0, info.bytes);
     if (info.kind >= 1 && info.kind <= SECTION_KIND_MAX) data.set(`${info.kind}:${info.order}`, body);
   }
   return new PackedModel(file, fileBytes, header, sections, data, checkStructure);
 }
 
-function view<T>(make: new (buffer: ArrayBufferLike, byteOffset: number, length: number) => T, buffer: Buffer, elementBytes: number): T {
-  return new make(buffer.buffer, buffer.byteOffset, buffer.length / elementBytes);
+function view<T>(make: new (buffer: ArrayBufferLike, byteOffset: number, length: number) => T, buffer: Buffer, elementBytes: number, start = 0, end = buffer.length): T {
+  return new make(buffer.buffer, buffer.byteOffset + start, (end - start) / elementBytes);
 }
 
 function valueView(encoding: ValueEncoding, buffer: Buffer): ValueArray {
@@ -387,13 +447,61 @@ function valueView(encoding: ValueEncoding, buffer: Buffer): ValueArray {
 }
 
 /**
- * First row in [low, high) of `words` equal to `word`, −1 when none (the range ascends). Galloping
- * from the low end (probes at low, low+1, low+3, low+7, …, then a binary search within the last
- * step): word ids rank words by frequency and text asks for frequent words most, so the word is
- * usually near the start of its context's children; a row at distance d costs about 2·log2(d)
- * probes instead of log2 of the whole range.
+ * First row in [low, high) of the packed word ids `words` (`bits` wide, 1..31, `mask` =
+ * maskFor(bits)) equal to `word`, −1 when none (the range ascends). Word ids rank words by frequency
+ * and text asks for frequent words most, so the word is usually near the start of its context's
+ * children: the first SCAN_ROWS rows are scanned in order, decoded incrementally (no multiplication
+ * per row); then galloping (probes at 1, 3, 7, … rows further, then a binary search within the last
+ * step), so a row at distance d costs about 2·log2(d) probes instead of log2 of the whole range.
  */
-function searchWord(words: IdArray, low: number, high: number, word: number): number {
+function searchWord(words: Uint32Array, bits: number, mask: number, low: number, high: number, word: number): number {
+  const scanEnd = Math.min(high, low + SCAN_ROWS);
+  const rest = (low & 31) * bits;
+  let at = (low >>> 5) * bits + (rest >>> 5);
+  let shift = rest & 31;
+  for (let row = low; row < scanEnd; row++) {
+    const found = ((words[at] >>> shift) | ((words[at + 1] << 1) << (31 - shift))) & mask;
+    if (found >= word) return found === word ? row : -1;
+    shift += bits;
+    if (shift >= 32) {
+      shift -= 32;
+      at++;
+    }
+  }
+  if (scanEnd === high) return -1;
+  low = scanEnd;
+  let bound = low;
+  let step = 1;
+  while (bound < high) {
+    const found = unpack(words, bound, bits, mask);
+    if (found === word) return bound;
+    if (found > word) {
+      high = bound;
+      break;
+    }
+    low = bound + 1;
+    bound += step;
+    step += step;
+  }
+  while (low < high) {
+    const middle = low + ((high - low) >>> 1);
+    const found = unpack(words, middle, bits, mask);
+    if (found < word) low = middle + 1;
+    else if (found > word) high = middle;
+    else return middle;
+  }
+  return -1;
+}
+
+/** searchWord for word ids of exactly 16 or 32 bits, which a typed array of that width reads as they are. */
+function searchWordAligned(words: Uint16Array | Uint32Array, low: number, high: number, word: number): number {
+  const scanEnd = Math.min(high, low + SCAN_ROWS);
+  for (let row = low; row < scanEnd; row++) {
+    const found = words[row];
+    if (found >= word) return found === word ? row : -1;
+  }
+  if (scanEnd === high) return -1;
+  low = scanEnd;
   let bound = low;
   let step = 1;
   while (bound < high) {
@@ -408,13 +516,27 @@ function searchWord(words: IdArray, low: number, high: number, word: number): nu
     step += step;
   }
   while (low < high) {
-    const middle = (low + high) >>> 1;
+    const middle = low + ((high - low) >>> 1);
     const found = words[middle];
     if (found < word) low = middle + 1;
     else if (found > word) high = middle;
     else return middle;
   }
   return -1;
+}
+
+/** Rows a search scans in order before it gallops: the children of a context are often few, and
+ *  the frequent words, which text asks for most, come first. */
+const SCAN_ROWS = 8;
+
+/** Bits after the `count` values of a packed array (its padding) must be zero. */
+function packedPaddingIsZero(words: Uint32Array, count: number, bits: number): boolean {
+  const used = count * bits;
+  const firstWord = Math.floor(used / 32);
+  const shift = used % 32;
+  if (shift > 0 && firstWord < words.length && words[firstWord] >>> shift !== 0) return false;
+  for (let word = firstWord + (shift > 0 ? 1 : 0); word < words.length; word++) if (words[word] !== 0) return false;
+  return true;
 }
 
 const utf8 = new TextDecoder('utf-8');
@@ -459,13 +581,26 @@ export class PackedModel {
   readonly sections: SectionInfo[];
 
   private readonly levels: Level[];
-  /** childrenOf[n], wordsOf[n]: the level's arrays by order (index 0 unused), for the hot path. */
-  private readonly childrenOf: Array<Uint32Array | null>;
-  private readonly wordsOf: Array<IdArray | null>;
+  // The levels' arrays by order (index 0 unused), for the hot path.
+  private readonly wordsOf: Uint32Array[];
+  private readonly wordBits: number;
+  private readonly wordMask: number;
+  /** The word ids as 16- or 32-bit typed arrays when they are exactly that wide (else empty). */
+  private readonly alignedWordsOf: Array<Uint16Array | Uint32Array>;
+  private readonly wordsAligned: boolean;
+  private readonly basesOf: Uint32Array[];
+  private readonly offsetsOf: Uint32Array[];
+  private readonly childBitsOf: number[];
+  private readonly childMaskOf: number[];
+  private readonly probOf: ValueArray[];
+  private readonly probBookOf: Array<Float64Array | null>;
+  private readonly backOffOf: ValueArray[];
+  private readonly backOffBookOf: Array<Float64Array | null>;
   private readonly vocabularyWords: Buffer;
   private readonly vocabularyOffsets: Uint32Array;
   private readonly vocabularyHash: Uint32Array;
   private scratch = new Uint8Array(256);
+  private readonly scratchState = new DecoderState();
   private readonly sectionWhere: (kind: number, order?: number) => string;
   private structureChecked = false;
 
@@ -506,21 +641,59 @@ export class PackedModel {
     this.checkVocabulary(file, sectionWhere);
 
     const quantised = codeBits(header.encoding) > 0;
+    this.wordBits = header.wordIdBits;
+    this.wordMask = maskFor(header.wordIdBits);
     this.levels = [];
     for (let n = 1; n <= header.order; n++) {
       const highest = n === header.order;
+      const rows = header.rows[n - 1];
+      let words: Uint32Array | null = null;
+      if (n >= 2) {
+        words = view(Uint32Array, get(SectionKind.Words, n), 4);
+        if (!packedPaddingIsZero(words, rows, header.wordIdBits)) throw corrupt(file, sectionWhere(SectionKind.Words, n), 'the bits after the last word id are not zero');
+      }
+      let childBases: Uint32Array | null = null;
+      let childOffsets: Uint32Array | null = null;
+      let childBits = 0;
+      if (!highest) {
+        const children = get(SectionKind.Children, n);
+        const where = sectionWhere(SectionKind.Children, n);
+        childBits = children.readUInt32LE(0);
+        if (childBits > 32 || children.readUInt32LE(4) !== 0) throw corrupt(file, where, `offset width ${childBits} bits (at most 32) and reserved bytes ${children.readUInt32LE(4)} (must be 0)`);
+        const start = childOffsetsStart(rows);
+        const expected = start + packedBytes(rows + 1, childBits);
+        if (children.length !== expected) throw corrupt(file, where, `is ${children.length} bytes; ${rows + 1} offsets of ${childBits} bits require ${expected}`);
+        for (let i = 8 + 4 * childBlocks(rows); i < start; i++) if (children[i] !== 0) throw corrupt(file, where, `byte ${i} between the bases and the offsets is not zero`);
+        childBases = view(Uint32Array, children, 4, 8, 8 + 4 * childBlocks(rows));
+        childOffsets = view(Uint32Array, children, 4, start);
+        if (!packedPaddingIsZero(childOffsets, rows + 1, childBits)) throw corrupt(file, where, 'the bits after the last offset are not zero');
+      }
       this.levels.push({
-        rows: header.rows[n - 1],
-        words: n < 2 ? null : header.wordIdBytes === 2 ? view(Uint16Array, get(SectionKind.Words, n), 2) : view(Uint32Array, get(SectionKind.Words, n), 4),
+        rows,
+        words,
         prob: valueView(header.encoding, get(SectionKind.Probabilities, n)),
         probCodebook: quantised ? view(Float64Array, get(SectionKind.ProbabilityCodebook, n), 8) : null,
         backOff: highest ? null : valueView(header.encoding, get(SectionKind.BackOffs, n)),
         backOffCodebook: quantised && !highest ? view(Float64Array, get(SectionKind.BackOffCodebook, n), 8) : null,
-        children: highest ? null : view(Uint32Array, get(SectionKind.Children, n), 4),
+        childBases,
+        childOffsets,
+        childBits,
       });
     }
-    this.childrenOf = [null, ...this.levels.map((level) => level.children)];
-    this.wordsOf = [null, ...this.levels.map((level) => level.words)];
+    const empty32 = new Uint32Array(0);
+    // Placeholders of the same array types as the real ones, so that the hot path sees one kind.
+    const emptyValues = valueView(header.encoding, Buffer.alloc(0));
+    this.wordsOf = [empty32, ...this.levels.map((level) => level.words ?? empty32)];
+    this.wordsAligned = this.wordBits === 16 || this.wordBits === 32;
+    this.alignedWordsOf = this.wordsOf.map((words) => (this.wordBits === 16 ? new Uint16Array(words.buffer, words.byteOffset, words.length * 2) : words));
+    this.basesOf = [empty32, ...this.levels.map((level) => level.childBases ?? empty32)];
+    this.offsetsOf = [empty32, ...this.levels.map((level) => level.childOffsets ?? empty32)];
+    this.childBitsOf = [0, ...this.levels.map((level) => level.childBits)];
+    this.childMaskOf = this.childBitsOf.map(maskFor);
+    this.probOf = [emptyValues, ...this.levels.map((level) => level.prob)];
+    this.probBookOf = [null, ...this.levels.map((level) => level.probCodebook)];
+    this.backOffOf = [emptyValues, ...this.levels.map((level) => level.backOff ?? emptyValues)];
+    this.backOffBookOf = [null, ...this.levels.map((level) => level.backOffCodebook)];
     this.sectionWhere = sectionWhere;
     if (checkStructure) this.checkStructure(file, sectionWhere);
   }
@@ -572,20 +745,13 @@ export class PackedModel {
       const level = this.levels[n - 1];
       checkCodes(file, sectionWhere(SectionKind.Probabilities, n), level.prob, level.probCodebook);
       if (level.backOff !== null) checkCodes(file, sectionWhere(SectionKind.BackOffs, n), level.backOff, level.backOffCodebook);
-      if (level.children === null) continue;
-      const children = level.children;
+      if (level.childOffsets === null) continue;
       const next = this.levels[n];
-      const nextWords = next.words as IdArray;
-      const where = sectionWhere(SectionKind.Children, n);
-      if (children[0] !== 0 || children[level.rows] !== next.rows) throw corrupt(file, where, `children must run from row 0 to the ${next.rows} rows of order ${n + 1}`);
-      // Ranges first (ascending, inside the next order), so the pass over the words stays in bounds.
-      for (let row = 0; row < level.rows; row++) {
-        if (children[row + 1] < children[row]) throw corrupt(file, where, `the children of row ${row + 1} start before those of row ${row}`);
-      }
-      const child = checkWords(nextWords, children, level.rows, size);
-      if (child >= 0) {
-        const word = nextWords[child];
-        throw corrupt(file, sectionWhere(SectionKind.Words, n + 1), `row ${child}: word id ${word} ${word > size ? `above V = ${size}` : 'does not ascend within its context (or is <s>)'}`);
+      const child = checkChildren(level.childBases as Uint32Array, level.childOffsets, level.childBits, level.rows, next.words as Uint32Array, this.wordBits, next.rows, size);
+      if (child.row >= 0) throw corrupt(file, sectionWhere(SectionKind.Children, n), child.problem);
+      if (child.child >= 0) {
+        const word = unpack(next.words as Uint32Array, child.child, this.wordBits, this.wordMask);
+        throw corrupt(file, sectionWhere(SectionKind.Words, n + 1), `row ${child.child}: word id ${word} ${word > size ? `above V = ${size}` : 'does not ascend within its context (or is <s>)'}`);
       }
     }
     this.structureChecked = true;
@@ -624,25 +790,58 @@ export class PackedModel {
 
   /** log10 probability of row `row` of order n. */
   private prob(n: number, row: number): number {
-    const level = this.levels[n - 1];
-    const codebook = level.probCodebook;
-    return codebook === null ? level.prob[row] : codebook[level.prob[row]];
+    const codebook = this.probBookOf[n];
+    const values = this.probOf[n];
+    return codebook === null ? values[row] : codebook[values[row]];
   }
 
   /** log10 back-off weight of row `row` of order n < N. */
   private backOff(n: number, row: number): number {
-    const level = this.levels[n - 1];
-    const codebook = level.backOffCodebook;
-    const values = level.backOff as ValueArray;
+    const codebook = this.backOffBookOf[n];
+    const values = this.backOffOf[n];
     return codebook === null ? values[row] : codebook[values[row]];
+  }
+
+  /** The first child (a row of order n+1) of row `row` (0..rows) of order n < N. */
+  private childStart(n: number, row: number): number {
+    return this.basesOf[n][row >>> CHILD_BLOCK_SHIFT] + unpack(this.offsetsOf[n], row, this.childBitsOf[n], this.childMaskOf[n]);
+  }
+
+  /** The end of the range that `childRange` returned last. */
+  private rangeEnd = 0;
+
+  /**
+   * The children of row `row` (0..rows − 1) of order n < N: returns their first row and leaves the
+   * end in `rangeEnd` (no allocation). The two offsets are adjacent: decoded in one go.
+   */
+  private childRange(n: number, row: number): number {
+    const offsets = this.offsetsOf[n];
+    const bases = this.basesOf[n];
+    const bits = this.childBitsOf[n];
+    const mask = this.childMaskOf[n];
+    const rest = (row & 31) * bits;
+    let at = (row >>> 5) * bits + (rest >>> 5);
+    let shift = rest & 31;
+    const start = bases[row >>> CHILD_BLOCK_SHIFT] + ((((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0);
+    shift += bits;
+    if (shift >= 32) {
+      shift -= 32;
+      at++;
+    }
+    this.rangeEnd = bases[(row + 1) >>> CHILD_BLOCK_SHIFT] + ((((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0);
+    return start;
   }
 
   /** The row of order n+1 that extends row `row` of order n (< N) with `word`, or −1. */
   private childOf(n: number, row: number, word: number): number {
-    const children = this.childrenOf[n] as Uint32Array;
-    const start = children[row];
-    const end = children[row + 1];
-    return start < end ? searchWord(this.wordsOf[n + 1] as IdArray, start, end, word) : -1;
+    const start = this.childRange(n, row);
+    const end = this.rangeEnd;
+    return start < end ? this.find(n + 1, start, end, word) : -1;
+  }
+
+  /** The row in [start, end) of order n whose word id is `word`, or −1. */
+  private find(n: number, start: number, end: number, word: number): number {
+    return this.wordsAligned ? searchWordAligned(this.alignedWordsOf[n], start, end, word) : searchWord(this.wordsOf[n], this.wordBits, this.wordMask, start, end, word);
   }
 
   private checkWord(word: number): void {
@@ -672,11 +871,10 @@ export class PackedModel {
       let row = history[length - k];
       for (let i = length - k + 1, n = 1; i < length && row >= 0; i++, n++) row = this.childOf(n, row, history[i]);
       if (row >= 0) {
-        const children = this.childrenOf[k] as Uint32Array;
-        const start = children[row];
-        const end = children[row + 1];
+        const start = this.childStart(k, row);
+        const end = this.childStart(k, row + 1);
         if (start < end) {
-          const found = searchWord(this.wordsOf[k + 1] as IdArray, start, end, word);
+          const found = this.find(k + 1, start, end, word);
           if (found >= 0) return { log10Prob: backOff + this.prob(k + 1, found), order: k + 1 };
           backOff += this.backOff(k, row);
           continue;
@@ -687,6 +885,80 @@ export class PackedModel {
     return { log10Prob: backOff + this.prob(1, word), order: 1 };
   }
 
+  /** A state at the start of a sentence, for `step`. */
+  newState(): DecoderState {
+    const state = new DecoderState();
+    this.resetState(state);
+    return state;
+  }
+
+  /** Puts `state` at the start of a sentence: right after `<s>` (N = 1: an empty history). */
+  resetState(state: DecoderState): void {
+    state.order = 0;
+    if (this.order === 1) {
+      state.length = 0;
+      return;
+    }
+    state.length = 1;
+    state.ids[0] = BOS_ID;
+    state.rows[1] = BOS_ID + 1;
+  }
+
+  /**
+   * Scores `word` (an id in [1, V]; an OOV word is `<unk>`'s id) after the history of `state`, and
+   * moves `state` past it, in place (no allocation): the log10 probability is returned and the
+   * order that answered is left in `state.order`. Equal to `logProb(state.history, word)`. Cost:
+   * one search (within one context's children) per order tried from the longest context down, plus
+   * one per shorter order to find the new state's rows.
+   */
+  step(state: DecoderState, word: number): number {
+    if (!(word >= 1 && word <= this.vocabularySize && Math.floor(word) === word)) this.checkWord(word);
+    const rows = state.rows;
+    const length = state.length;
+    const keep = length < this.order - 1 ? length + 1 : length;
+    // Rows are updated in place from the top down: rows[k + 1] (new) is written only after rows[k + 1]
+    // (old) has been read, and the new rows[j + 1] of a shorter suffix needs only the old rows[j].
+    let backOff = 0;
+    let log10Prob = 0;
+    let order = 1;
+    let k = length;
+    for (; k >= 1; k--) {
+      const stored = rows[k];
+      if (stored !== 0) {
+        const row = stored - 1;
+        const start = this.childRange(k, row);
+        const end = this.rangeEnd;
+        if (start < end) {
+          const found = this.find(k + 1, start, end, word);
+          if (found >= 0) {
+            log10Prob = backOff + this.prob(k + 1, found);
+            order = k + 1;
+            if (k < keep) rows[k + 1] = found + 1;
+            break;
+          }
+          backOff += this.backOff(k, row);
+        } else backOff += this.log10UnseenContextWeight;
+      } else backOff += this.log10UnseenContextWeight;
+      if (k < keep) rows[k + 1] = 0;
+    }
+    if (order === 1) log10Prob = backOff + this.prob(1, word);
+    // The rows of the shorter suffixes of the new history (below the n-gram that answered, they all
+    // exist when the model keeps the suffixes of its n-grams, as the estimators do; searched anyway).
+    for (let j = Math.min(k - 1, keep - 1); j >= 1; j--) {
+      const stored = rows[j];
+      rows[j + 1] = stored !== 0 ? this.childOf(j, stored - 1, word) + 1 : 0;
+    }
+    if (keep > 0) {
+      rows[1] = word + 1;
+      const ids = state.ids;
+      if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
+      ids[keep - 1] = word;
+    }
+    state.length = keep;
+    state.order = order;
+    return log10Prob;
+  }
+
   /** The state at the start of a sentence: right after `<s>` (N = 1: an empty history). */
   beginState(): ModelState {
     return this.order === 1 ? new ModelState(0, []) : new ModelState(1, [BOS_ID, BOS_ID]);
@@ -695,55 +967,26 @@ export class PackedModel {
   /**
    * Scores `word` (an id in [1, V]; an OOV word is `<unk>`'s id) after the history of `state`, and
    * returns the state after it, which keeps the last min(N − 1, i + 1) ids. Equal to
-   * `logProb(state.history, word)`. Cost: one search (within one context's children) per order
-   * tried from the longest context down, plus one per shorter order to find the new state's rows;
-   * `state` itself is not changed.
+   * `logProb(state.history, word)` and to `step`; `state` itself is not changed (a new state is
+   * allocated: a decoder's loop that needs no old states is faster with `step`).
    */
   advance(state: ModelState, word: number): AdvanceResult {
-    if (!(word >= 1 && word <= this.vocabularySize && Math.floor(word) === word)) this.checkWord(word);
-    const data = state.data;
+    const scratch = this.scratchState;
     const length = state.length;
-    const keep = length < this.order - 1 ? length + 1 : length;
-    // next: history ids [0, keep), rows [keep, 2·keep); rows of state: data[length + k − 1] for order k.
+    const data = state.data;
+    scratch.length = length;
+    for (let i = 0; i < length; i++) {
+      scratch.ids[i] = data[i];
+      scratch.rows[i + 1] = data[length + i] + 1;
+    }
+    const log10Prob = this.step(scratch, word);
+    const keep = scratch.length;
     const next = new Array<number>(2 * keep);
-    if (keep > 0) {
-      const drop = length + 1 - keep;
-      for (let i = 0; i < keep - 1; i++) next[i] = data[drop + i];
-      next[keep - 1] = word;
-      next[keep] = word;
+    for (let i = 0; i < keep; i++) {
+      next[i] = scratch.ids[i];
+      next[keep + i] = scratch.rows[i + 1] - 1;
     }
-    let backOff = 0;
-    let k = length;
-    let log10Prob = 0;
-    let order = 1;
-    for (; k >= 1; k--) {
-      // next row k (order k+1) is that of (last k history ids, word): h w itself.
-      const row = data[length + k - 1];
-      if (row >= 0) {
-        const children = this.childrenOf[k] as Uint32Array;
-        const start = children[row];
-        const end = children[row + 1];
-        if (start < end) {
-          const found = searchWord(this.wordsOf[k + 1] as IdArray, start, end, word);
-          if (found >= 0) {
-            log10Prob = backOff + this.prob(k + 1, found);
-            order = k + 1;
-            if (k < keep) next[keep + k] = found;
-            break;
-          }
-          backOff += this.backOff(k, row);
-        } else backOff += this.log10UnseenContextWeight;
-      } else backOff += this.log10UnseenContextWeight;
-      if (k < keep) next[keep + k] = -1;
-    }
-    if (order === 1) log10Prob = backOff + this.prob(1, word);
-    // The rows of the shorter suffixes of the new history (below the n-gram that answered, they all
-    // exist when the model keeps the suffixes of its n-grams, as the estimators do; searched anyway).
-    for (let j = Math.min(k - 1, keep - 1); j >= 1; j--) {
-      const row = data[length + j - 1];
-      next[keep + j] = row >= 0 ? this.childOf(j, row, word) : -1;
-    }
-    return { log10Prob, order, state: new ModelState(keep, next) };
+    return { log10Prob, order: scratch.order, state: new ModelState(keep, next) };
   }
 
   /**
@@ -754,7 +997,7 @@ export class PackedModel {
    */
   scoreSentence(words: readonly string[]): SentenceScore {
     const tokens: TokenScore[] = [];
-    let state = this.beginState();
+    const state = this.newState();
     let log10Prob = 0;
     let log10ProbWithUnk = 0;
     let oovCount = 0;
@@ -770,12 +1013,11 @@ export class PackedModel {
           oov = true;
         }
       }
-      const result = this.advance(state, id);
-      state = result.state;
-      tokens.push({ word, id, oov, log10Prob: result.log10Prob, order: result.order });
-      log10ProbWithUnk += result.log10Prob;
+      const value = this.step(state, id);
+      tokens.push({ word, id, oov, log10Prob: value, order: state.order });
+      log10ProbWithUnk += value;
       if (oov) oovCount++;
-      else log10Prob += result.log10Prob;
+      else log10Prob += value;
     }
     return { tokens, log10Prob, log10ProbWithUnk, oov: oovCount };
   }
@@ -799,12 +1041,12 @@ export class PackedModel {
       if (n === 1) for (let id = 0; id <= size; id++) ids[id] = id;
       else {
         const lower = orders[n - 2];
-        const children = this.levels[n - 2].children as Uint32Array;
-        const lastWords = level.words as IdArray;
+        const lastWords = level.words as Uint32Array;
         for (let parent = 0; parent < this.levels[n - 2].rows; parent++) {
-          for (let row = children[parent]; row < children[parent + 1]; row++) {
+          const end = this.childStart(n - 1, parent + 1);
+          for (let row = this.childStart(n - 1, parent); row < end; row++) {
             for (let i = 0; i < n - 1; i++) ids[row * n + i] = lower.ids[parent * (n - 1) + i];
-            ids[row * n + n - 1] = lastWords[row];
+            ids[row * n + n - 1] = unpack(lastWords, row, this.wordBits, this.wordMask);
             contextRow[row] = parent;
           }
         }
@@ -813,7 +1055,7 @@ export class PackedModel {
       const log10BackOff = new Float64Array(rows);
       for (let row = 0; row < rows; row++) {
         log10Prob[row] = this.prob(n, row);
-        if (level.children !== null && level.children[row + 1] > level.children[row]) log10BackOff[row] = this.backOff(n, row);
+        if (n < this.order && this.childStart(n, row + 1) > this.childStart(n, row)) log10BackOff[row] = this.backOff(n, row);
       }
       orders.push({ order: n, ids, log10Prob, log10BackOff, contextRow });
     }
@@ -831,21 +1073,55 @@ export class PackedModel {
 }
 
 /**
- * The first row of `words` (rows of order n+1) whose word id is above `size`, or not above the word
- * before it in the same context (the first of a context: not above 0, i.e. `<s>`); −1 when none.
- * `children` (rows + 1 ascending entries ending at words.length) marks the contexts.
+ * The children of an order n < N and the word ids of order n + 1, decoded in sequence in one pass:
+ * the children start at 0, ascend, end at the `nextRows` rows of order n + 1, and each block's
+ * first offset is 0 (`row`/`problem` name the first failure); within each context the word ids
+ * ascend and lie in 1..`size` (`child` names the first row of order n + 1 that fails). A context's
+ * words are read only once its range is known to lie inside order n + 1; when a word fails, the
+ * ranges are checked to the end first, so that damaged children are reported as such.
  */
-function checkWords(words: IdArray, children: Uint32Array, rows: number, size: number): number {
-  for (let parent = 0; parent < rows; parent++) {
-    let previous = 0;
-    const end = children[parent + 1];
-    for (let child = children[parent]; child < end; child++) {
-      const word = words[child];
-      if (word <= previous || word > size) return child;
-      previous = word;
+function checkChildren(bases: Uint32Array, offsets: Uint32Array, bits: number, rows: number, words: Uint32Array, wordBits: number, nextRows: number, size: number): { row: number; problem: string; child: number } {
+  const mask = maskFor(bits);
+  const wordMask = maskFor(wordBits);
+  let at = 0;
+  let shift = 0;
+  let wordAt = 0;
+  let wordShift = 0;
+  let previousStart = 0;
+  let failedChild = -1;
+  for (let row = 0; row <= rows; row++) {
+    const offset = (((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0;
+    shift += bits;
+    if (shift >= 32) {
+      shift -= 32;
+      at++;
     }
+    const start = bases[row >>> CHILD_BLOCK_SHIFT] + offset;
+    if ((row & (CHILD_BLOCK_ROWS - 1)) === 0 && offset !== 0) return { row, problem: `the offset of row ${row}, the first of its block, is ${offset}, not 0`, child: -1 };
+    if (row === 0 && start !== 0) return { row, problem: `the children of row 0 start at ${start}, not 0`, child: -1 };
+    if (start < previousStart) return { row, problem: `the children of row ${row} start before those of row ${row - 1}`, child: -1 };
+    if (start > nextRows) return { row, problem: `the children of row ${row} start at ${start}, past the ${nextRows} rows of the next order`, child: -1 };
+    if (row === rows && start !== nextRows) return { row, problem: `children must run from row 0 to the ${nextRows} rows of the next order (they end at ${start})`, child: -1 };
+    if (failedChild < 0) {
+      // The children of row − 1: [previousStart, start), read in sequence.
+      let previous = 0;
+      for (let child = previousStart; child < start; child++) {
+        const word = (((words[wordAt] >>> wordShift) | ((words[wordAt + 1] << 1) << (31 - wordShift))) & wordMask) >>> 0;
+        wordShift += wordBits;
+        if (wordShift >= 32) {
+          wordShift -= 32;
+          wordAt++;
+        }
+        if (word <= previous || word > size) {
+          failedChild = child;
+          break;
+        }
+        previous = word;
+      }
+    }
+    previousStart = start;
   }
-  return -1;
+  return { row: -1, problem: '', child: failedChild };
 }
 
 /** Codes of a quantised section must index their codebook. */

@@ -1,31 +1,42 @@
 /**
- * The model-file writer: a `LanguageModel` in back-off form → one file laid out as
- * docs/model-file.md specifies, written atomically (temporary file, fsync, rename, directory fsync).
+ * The model-file writer: a model in back-off form, read order by order through a `ModelSource`
+ * (src/estimate/model-source.ts) → one file laid out as docs/model-file.md specifies, written
+ * atomically (temporary file, fsync, rename, directory fsync).
  *
- * The in-memory model's order-n rows are already grouped by context (rows sort by their ids, so the
- * n-grams of one context are contiguous and contexts ascend), so the file keeps the rows as they
- * are: row r of order n in the file is row r of `model.orders[n − 1]`. What changes is how a row is
- * reached: instead of all n ids, the file stores each row's last word id, and each row of order
- * n < N records where its children (the rows of order n+1 it is the context of) start.
+ * The source's order-n rows are already grouped by context (rows sort by their ids, so the n-grams
+ * of one context are contiguous and contexts ascend), so the file keeps the rows as they are: row r
+ * of order n in the file is row r of the source's order n. What changes is how a row is reached:
+ * instead of all n ids, the file stores each row's last word id, and each row of order n < N records
+ * where its children (the rows of order n+1 it is the context of) start.
+ *
+ * Streaming: each section is written while it is built, batch by batch, so no order is ever held
+ * whole — only per order n < N a bit per row (is it a context?) and a u32 per 64 rows (children
+ * bases). A section is built in one pass over the rows it needs: word ids and probabilities read
+ * order n; back-off weights read order n and a bitmap of its contexts; children read orders n and
+ * n+1 side by side (child-counts.ts), once to size the offsets and once to write them. A codebook
+ * is fitted on a pass of its own before its codes are written (`sampleForFit`).
  *
  * The bytes depend on the model and the options only (no time, path or random salt), so the same
- * model always gives the same file. Each section is built as a buffer of its own; the whole file is
- * never one buffer.
+ * model always gives the same file.
  */
 import { crc32 } from 'node:zlib';
 import { assert, QuernError } from '../errors.ts';
 import { BOS, BOS_ID, EOS, UNK } from '../corpus/vocabulary.ts';
 import { vocabularySize } from '../estimate/counts.ts';
-import { checkModel, modelRowCount, type LanguageModel } from '../estimate/model.ts';
+import { checkModel, type LanguageModel } from '../estimate/model.ts';
+import { modelSource, type ModelHeader, type ModelSource } from '../estimate/model-source.ts';
 import { writeFileThrough, type StageFs } from '../job/fsio.ts';
-import { ORDER_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_DESCRIPTION_BYTES_MAX, PACK_SECTIONS_MAX } from '../limits.ts';
+import { ORDER_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_DESCRIPTION_BYTES_MAX, QUANT_FIT_VALUES_MAX } from '../limits.ts';
+import { BitPacker } from './bits.ts';
+import { childCounts } from './child-counts.ts';
+import { ModelFileWriter } from './file-writer.ts';
 import {
-  alignUp, FLAG_NORMALISED, fnv1a32, H, hashSlotsFor, HEADER_BYTES, MODEL_MAGIC, MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR,
-  requireLittleEndian, SECTION_ENTRY_BYTES, SectionKind, sectionName, ValueEncoding, wordIdBytesFor,
+  bitsFor, CHILD_BLOCK_ROWS, childBlocks, childOffsetsStart, FLAG_NORMALISED, fnv1a32, H, hashSlotsFor, HEADER_BYTES, MODEL_MAGIC, MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR,
+  requireLittleEndian, SectionKind, ValueEncoding,
 } from './format.ts';
-import { encodeValues, fitCodebook } from './quantise.ts';
+import { encodeValues, fitCodebook, type Codebook } from './quantise.ts';
 
-/** Options of `packModel`. */
+/** Options of `packModel` and `packModelSource`. */
 export interface PackOptions {
   /** Quantise log10 probabilities and back-off weights to 8 or 16 bits (a codebook per order and
    *  kind, fitted to the values); absent: store them as floats. */
@@ -38,7 +49,7 @@ export interface PackOptions {
   fingerprint: string;
 }
 
-/** What `packModel` wrote. */
+/** What `packModel` or `packModelSource` wrote. */
 export interface PackSummary {
   filePath: string;
   /** Size of the file. */
@@ -49,43 +60,70 @@ export interface PackSummary {
   sections: number;
 }
 
-/** One section to write. */
-interface Section {
-  kind: number;
-  order: number;
-  bytes: Uint8Array;
-}
-
 /**
- * Writes `model` to `filePath` as a model file (docs/model-file.md), atomically through `fs`.
+ * Writes `model` to `filePath` as a model file (docs/model-file.md), atomically through `fs`:
+ * `packModelSource(modelSource(model), …)` after checking the model's shape.
  * Throws QuernError 'config' for bad options, 'limit' when a section would exceed
  * PACK_SECTION_BYTES_MAX, 'io' when the file system fails (no file is left behind then).
  */
 export async function packModel(model: LanguageModel, options: PackOptions, fs: StageFs, filePath: string): Promise<PackSummary> {
+  checkOptions(options);
+  checkModel(model);
+  return packModelSource(modelSource(model), options, fs, filePath);
+}
+
+/**
+ * Writes the model that `source` streams to `filePath` as a model file (docs/model-file.md),
+ * atomically through `fs`, reading each order as often as its sections need (module comment) and
+ * never holding an order whole. The same rows and options give the same bytes.
+ * Throws QuernError 'config' for bad options, 'limit' when a count or a section exceeds the
+ * format's limits, 'io' when the file system fails (no file is left behind then). A source that
+ * breaks its contract (rows not ascending, a context missing, a NaN) is an assertion failure.
+ */
+export async function packModelSource(source: ModelSource, options: PackOptions, fs: StageFs, filePath: string): Promise<PackSummary> {
   requireLittleEndian();
+  const { encoding, fingerprint } = checkOptions(options);
+  const { header, rowCounts } = source;
+  const size = vocabularySize(header.vocabulary);
+  const { words, eosId, unkId } = header.vocabulary;
+  assert(header.order >= 1 && header.order <= ORDER_MAX, `model order in [1, ${ORDER_MAX}]`);
+  assert(rowCounts.length === header.order, 'one row count per order');
+  assert(rowCounts[0] === size + 1, 'order 1 holds every id 0..V');
+  assert(words[BOS_ID] === BOS && words[eosId] === EOS && words[unkId] === UNK, 'model vocabulary holds the markers at their ids');
+  assert(Number.isFinite(header.log10UnseenContextWeight), 'the unseen-context weight is finite');
+  rowCounts.forEach((rows, index) => {
+    assert(Number.isSafeInteger(rows) && rows >= 0, 'row counts are integers ≥ 0');
+    if (rows > PACK_ROWS_MAX) throw new QuernError('limit', `order ${index + 1} has ${rows} n-grams, over the model file's ${PACK_ROWS_MAX} per order`);
+  });
+  const description = Buffer.from(JSON.stringify({ parameters: header.parameters, cutoffs: header.cutoffs, vocabularyCap: header.vocabularyCap }), 'utf8');
+  if (description.length > PACK_DESCRIPTION_BYTES_MAX) throw new QuernError('limit', `the model description takes ${description.length} bytes, over ${PACK_DESCRIPTION_BYTES_MAX}`);
+  const vocabulary = vocabularySections(header);
+
+  let fileBytes = 0;
+  let sections = 0;
+  await writeFileThrough(fs, filePath, async (file) => {
+    const out = new ModelFileWriter(file);
+    await out.header(headerBytes(header, rowCounts, encoding));
+    await out.section(SectionKind.Description, 0, description);
+    await out.section(SectionKind.Fingerprint, 0, fingerprint);
+    await out.section(SectionKind.VocabularyWords, 0, vocabulary.words);
+    await out.section(SectionKind.VocabularyOffsets, 0, vocabulary.offsets);
+    await out.section(SectionKind.VocabularyHash, 0, vocabulary.hash);
+    for (let n = 1; n <= header.order; n++) await writeOrder(out, source, n, encoding);
+    fileBytes = await out.finish();
+    sections = out.sections.length;
+  });
+  return { filePath, bytes: fileBytes, ngrams: [...rowCounts], encoding, sections };
+}
+
+function checkOptions(options: PackOptions): { encoding: ValueEncoding; fingerprint: Buffer } {
   const encoding = encodingOf(options);
   if (typeof options.fingerprint !== 'string') throw new QuernError('config', 'fingerprint must be a string (it may be empty)');
   const fingerprint = Buffer.from(options.fingerprint, 'utf8');
   if (fingerprint.length > PACK_FINGERPRINT_BYTES_MAX) {
     throw new QuernError('config', `fingerprint must be at most ${PACK_FINGERPRINT_BYTES_MAX} bytes of UTF-8 (got ${fingerprint.length})`);
   }
-  const sections = buildSections(model, encoding, fingerprint);
-  const { header, table } = layOut(model, encoding, sections);
-
-  let fileBytes = 0;
-  await writeFileThrough(fs, filePath, async (file) => {
-    await file.write(header);
-    await file.write(table);
-    fileBytes = header.length + table.length;
-    for (const section of sections) {
-      await file.write(section.bytes);
-      fileBytes += section.bytes.length;
-      const padding = alignUp(fileBytes) - fileBytes;
-      if (padding > 0) await file.write(new Uint8Array(padding));
-      fileBytes += padding;
-    }
-  });
-  return { filePath, bytes: fileBytes, ngrams: model.orders.map(modelRowCount), encoding, sections: sections.length };
+  return { encoding, fingerprint };
 }
 
 function encodingOf(options: PackOptions): ValueEncoding {
@@ -98,107 +136,177 @@ function encodingOf(options: PackOptions): ValueEncoding {
   return floatBits === 64 ? ValueEncoding.Float64 : ValueEncoding.Float32;
 }
 
-/** The sections in file order (docs/model-file.md, "Section order"). */
-function buildSections(model: LanguageModel, encoding: ValueEncoding, fingerprint: Buffer): Section[] {
-  checkModel(model);
-  const size = vocabularySize(model.vocabulary);
-  const { words, eosId, unkId } = model.vocabulary;
-  assert(model.order >= 1 && model.order <= ORDER_MAX, `model order in [1, ${ORDER_MAX}]`);
-  assert(words[BOS_ID] === BOS && words[eosId] === EOS && words[unkId] === UNK, 'model vocabulary holds the markers at their ids');
-  assert(Number.isFinite(model.log10UnseenContextWeight), 'the unseen-context weight is finite');
-  const sections: Section[] = [];
-  const add = (kind: number, order: number, bytes: Uint8Array): void => {
-    if (bytes.length > PACK_SECTION_BYTES_MAX) {
-      throw new QuernError('limit', `the ${sectionName(kind, order)} would take ${bytes.length} bytes, over the ${PACK_SECTION_BYTES_MAX}-byte section limit of the model file`);
-    }
-    sections.push({ kind, order, bytes });
-  };
-
-  const description = Buffer.from(JSON.stringify({ parameters: model.parameters, cutoffs: model.cutoffs, vocabularyCap: model.vocabularyCap }), 'utf8');
-  if (description.length > PACK_DESCRIPTION_BYTES_MAX) throw new QuernError('limit', `the model description takes ${description.length} bytes, over ${PACK_DESCRIPTION_BYTES_MAX}`);
-  add(SectionKind.Description, 0, description);
-  add(SectionKind.Fingerprint, 0, fingerprint);
-
-  // Vocabulary: the words' UTF-8 bytes by id, their offsets, and the hash table for word → id.
-  const encoded = words.map((word) => Buffer.from(word, 'utf8'));
+/** The vocabulary sections: the words' UTF-8 bytes by id, their offsets, and the word → id hash table. */
+function vocabularySections(header: ModelHeader): { words: Uint8Array; offsets: Uint8Array; hash: Uint8Array } {
+  const size = vocabularySize(header.vocabulary);
+  const encoded = header.vocabulary.words.map((word) => Buffer.from(word, 'utf8'));
   let wordBytes = 0;
   for (const bytes of encoded) wordBytes += bytes.length;
   if (wordBytes > PACK_SECTION_BYTES_MAX) throw new QuernError('limit', `the vocabulary takes ${wordBytes} bytes of UTF-8, over the ${PACK_SECTION_BYTES_MAX}-byte section limit`);
-  const vocabularyWords = Buffer.allocUnsafeSlow(wordBytes);
+  const words = Buffer.allocUnsafeSlow(wordBytes);
   const offsets = new Uint32Array(size + 2);
   let offset = 0;
   encoded.forEach((bytes, id) => {
     offsets[id] = offset;
-    vocabularyWords.set(bytes, offset);
+    words.set(bytes, offset);
     offset += bytes.length;
   });
   offsets[size + 1] = offset;
   const slots = new Uint32Array(hashSlotsFor(size + 1));
   const mask = slots.length - 1;
   for (let id = 0; id <= size; id++) {
-    let slot = fnv1a32(vocabularyWords, offsets[id], offsets[id + 1]) & mask;
+    let slot = fnv1a32(words, offsets[id], offsets[id + 1]) & mask;
     while (slots[slot] !== 0) slot = (slot + 1) & mask;
     slots[slot] = id + 1;
   }
-  add(SectionKind.VocabularyWords, 0, vocabularyWords);
-  add(SectionKind.VocabularyOffsets, 0, bytesOf(offsets));
-  add(SectionKind.VocabularyHash, 0, bytesOf(slots));
+  return { words, offsets: bytesOf(offsets), hash: bytesOf(slots) };
+}
 
-  const wide = wordIdBytesFor(size) === 4;
+/** The sections of order n, in file order: word ids (n ≥ 2), probabilities (and codebook), back-off
+ *  weights (and codebook) and children (n < N). */
+async function writeOrder(out: ModelFileWriter, source: ModelSource, n: number, encoding: ValueEncoding): Promise<void> {
+  const order = source.header.order;
+  const rows = source.rowCounts[n - 1];
+  const size = vocabularySize(source.header.vocabulary);
   const quantBits = encoding === ValueEncoding.Quantised8 ? 8 : encoding === ValueEncoding.Quantised16 ? 16 : 0;
-  for (let n = 1; n <= model.order; n++) {
-    const table = model.orders[n - 1];
-    const rows = modelRowCount(table);
-    if (rows > PACK_ROWS_MAX) throw new QuernError('limit', `order ${n} has ${rows} n-grams, over the model file's ${PACK_ROWS_MAX} per order`);
-    if (n >= 2) {
-      const ids = wide ? new Uint32Array(rows) : new Uint16Array(rows);
-      for (let row = 0; row < rows; row++) {
-        const word = table.ids[row * n + n - 1];
-        if (!(word >= 1 && word <= size)) assert(false, `order ${n}: a predicted word is a vocabulary id other than <s> (got ${word})`);
-        ids[row] = word;
-      }
-      add(SectionKind.Words, n, bytesOf(ids));
-    }
-    checkValues(table.log10Prob, n, 'probability');
-    if (quantBits === 0) add(SectionKind.Probabilities, n, floatBytes(table.log10Prob, encoding));
-    else {
-      const codebook = fitCodebook(table.log10Prob, quantBits);
-      add(SectionKind.Probabilities, n, bytesOf(encodeValues(table.log10Prob, codebook, quantBits)));
-      add(SectionKind.ProbabilityCodebook, n, bytesOf(codebook));
-    }
-    if (n === model.order) continue;
 
-    // Children of each row: the rows of order n+1 whose context it is, [children[r], children[r+1]).
-    const higher = model.orders[n];
-    const higherRows = modelRowCount(higher);
-    const children = new Uint32Array(rows + 1);
-    let child = 0;
-    for (let row = 0; row < rows; row++) {
-      children[row] = child;
-      while (child < higherRows && higher.contextRow[child] === row) child++;
-    }
-    children[rows] = child;
-    assert(child === higherRows, `order ${n + 1}: context rows ascend (rows are grouped by context)`);
-    // Back-off weights of the rows that are contexts; the others are never read and are stored as 0.
-    const isContext = new Uint8Array(rows);
-    const backOffs = new Float64Array(rows);
-    for (let row = 0; row < rows; row++) {
-      if (children[row + 1] > children[row]) {
-        isContext[row] = 1;
-        backOffs[row] = table.log10BackOff[row];
+  // Word ids (and the checks of the rows: ascending, last ids in 1..V, order 1 complete).
+  if (n >= 2) {
+    out.begin(SectionKind.Words, n);
+    const packer = new BitPacker(bitsFor(size));
+    const previous = new Uint32Array(n);
+    let seen = 0;
+    for await (const batch of source.rows(n)) {
+      const ids = batch.ids;
+      for (let row = 0; row < batch.rows; row++) {
+        const at = row * n;
+        if (seen > 0) {
+          let i = 0;
+          while (i < n && ids[at + i] === previous[i]) i++;
+          if (!(i < n && ids[at + i] > previous[i])) assert(false, `order ${n}: rows ascend and are distinct`);
+        }
+        for (let i = 0; i < n; i++) previous[i] = ids[at + i];
+        const word = ids[at + n - 1];
+        if (!(word >= 1 && word <= size)) assert(false, `order ${n}: a predicted word is a vocabulary id other than <s> (got ${word})`);
+        packer.push(word);
+        seen++;
       }
+      await out.write(packer.take());
     }
-    checkValues(backOffs, n, 'back-off weight');
-    if (quantBits === 0) add(SectionKind.BackOffs, n, floatBytes(backOffs, encoding));
-    else {
-      const codebook = fitCodebook(backOffs, quantBits, isContext);
-      add(SectionKind.BackOffs, n, bytesOf(encodeValues(backOffs, codebook, quantBits, isContext)));
-      add(SectionKind.BackOffCodebook, n, bytesOf(codebook));
+    await out.write(packer.finish());
+    await out.end();
+    assert(seen === rows, `order ${n}: the rows read are the rows announced`);
+  } else {
+    let id = 0;
+    for await (const batch of source.rows(1)) {
+      for (let row = 0; row < batch.rows; row++, id++) if (batch.ids[row] !== id) assert(false, 'order 1: row = id');
     }
-    add(SectionKind.Children, n, bytesOf(children));
+    assert(id === rows, 'order 1: the rows read are the rows announced');
   }
-  assert(sections.length <= PACK_SECTIONS_MAX, 'the sections of a model of order ≤ ORDER_MAX fit the section table');
-  return sections;
+
+  // Probabilities.
+  const probCodebook = quantBits === 0 ? null : fitCodebook(await sampleForFit(source, n, 'log10Prob', rows, null), quantBits);
+  out.begin(SectionKind.Probabilities, n);
+  for await (const batch of source.rows(n)) {
+    checkValues(batch.log10Prob, n, 'probability');
+    await out.write(valueBytes(batch.log10Prob, encoding, probCodebook, quantBits, null, 0));
+  }
+  await out.end();
+  if (probCodebook !== null) await out.section(SectionKind.ProbabilityCodebook, n, bytesOf(probCodebook));
+  if (n === order) return;
+
+  // Contexts (rows with children) and the bases and width of the children offsets: one pass over
+  // orders n and n+1.
+  const isContext = new Uint8Array(Math.ceil(rows / 8));
+  const bases = new Uint32Array(childBlocks(rows));
+  let contexts = 0;
+  let start = 0;
+  let spanMax = 0;
+  let row = 0;
+  const noteRow = (): void => {
+    if (row % CHILD_BLOCK_ROWS === 0) bases[row / CHILD_BLOCK_ROWS] = start;
+    const span = start - bases[Math.floor(row / CHILD_BLOCK_ROWS)];
+    if (span > spanMax) spanMax = span;
+  };
+  for await (const counts of childCounts(source, n)) {
+    for (let i = 0; i < counts.length; i++, row++) {
+      noteRow();
+      if (counts[i] > 0) {
+        isContext[row >>> 3] |= 1 << (row & 7);
+        contexts++;
+      }
+      start += counts[i];
+    }
+  }
+  assert(row === rows && start === source.rowCounts[n], `order ${n}: children cover the rows of order ${n + 1}`);
+  noteRow(); // the entry after the last row: the end of its children
+  const childBits = bitsFor(spanMax);
+
+  // Back-off weights of the rows that are contexts; the others are never read and are stored as 0.
+  const backOffCodebook = quantBits === 0 ? null : fitCodebook(await sampleForFit(source, n, 'log10BackOff', contexts, isContext), quantBits);
+  out.begin(SectionKind.BackOffs, n);
+  let first = 0;
+  for await (const batch of source.rows(n)) {
+    const values = new Float64Array(batch.rows);
+    for (let i = 0; i < batch.rows; i++) {
+      const at = first + i;
+      if ((isContext[at >>> 3] & (1 << (at & 7))) !== 0) values[i] = batch.log10BackOff[i];
+    }
+    checkValues(values, n, 'back-off weight');
+    await out.write(valueBytes(values, encoding, backOffCodebook, quantBits, isContext, first));
+    first += batch.rows;
+  }
+  await out.end();
+  if (backOffCodebook !== null) await out.section(SectionKind.BackOffCodebook, n, bytesOf(backOffCodebook));
+
+  // Children: the width, the bases, then each entry's offset from its block's base.
+  out.begin(SectionKind.Children, n);
+  const prefix = new Uint8Array(childOffsetsStart(rows));
+  const prefixView = new DataView(prefix.buffer);
+  prefixView.setUint32(0, childBits, true);
+  prefix.set(bytesOf(bases), 8);
+  await out.write(prefix);
+  const packer = new BitPacker(childBits);
+  start = 0;
+  row = 0;
+  for await (const counts of childCounts(source, n)) {
+    for (let i = 0; i < counts.length; i++, row++) {
+      packer.push(start - bases[Math.floor(row / CHILD_BLOCK_ROWS)]);
+      start += counts[i];
+    }
+    await out.write(packer.take());
+  }
+  packer.push(start - bases[Math.floor(row / CHILD_BLOCK_ROWS)]);
+  await out.write(packer.finish());
+  await out.end();
+}
+
+/**
+ * The values a codebook is fitted on, from one pass over order n: every k-th of the `count`
+ * included values (all rows, or the contexts of `include`), k = ⌈count / QUANT_FIT_VALUES_MAX⌉, so at
+ * most QUANT_FIT_VALUES_MAX of them (below that, all: the fit is exact when the values are few); and
+ * −∞ once if any included value is −∞, so that it keeps a code of its own. Deterministic.
+ */
+async function sampleForFit(source: ModelSource, n: number, field: 'log10Prob' | 'log10BackOff', count: number, include: Uint8Array | null): Promise<Float64Array> {
+  const stride = Math.max(1, Math.ceil(count / QUANT_FIT_VALUES_MAX));
+  const sample = new Float64Array(Math.ceil(count / stride) + 1);
+  let taken = 0;
+  let index = 0;
+  let row = 0;
+  let negativeInfinity = false;
+  for await (const batch of source.rows(n)) {
+    const values = batch[field];
+    for (let i = 0; i < batch.rows; i++, row++) {
+      if (include !== null && (include[row >>> 3] & (1 << (row & 7))) === 0) continue;
+      const value = values[i];
+      if (value === -Infinity) negativeInfinity = true;
+      else if (index % stride === 0) sample[taken++] = value;
+      index++;
+    }
+  }
+  assert(index === count, `order ${n}: the values read are the values counted`);
+  if (negativeInfinity) sample[taken++] = -Infinity;
+  return sample.subarray(0, taken);
 }
 
 /** Asserts that log10 values are finite or −∞ (a NaN or +∞ in a model is a programmer error). */
@@ -209,8 +317,19 @@ function checkValues(values: Float64Array, order: number, what: string): void {
   }
 }
 
-function floatBytes(values: Float64Array, encoding: ValueEncoding): Uint8Array {
-  return bytesOf(encoding === ValueEncoding.Float64 ? values : Float32Array.from(values));
+/** One batch of values as stored: floats, or codes of `codebook` (rows outside `include`, which
+ *  starts at row `first`, get code 0). */
+function valueBytes(values: Float64Array, encoding: ValueEncoding, codebook: Codebook | null, bits: number, include: Uint8Array | null, first: number): Uint8Array {
+  if (codebook === null) return bytesOf(encoding === ValueEncoding.Float64 ? values : Float32Array.from(values));
+  let included: Uint8Array | undefined;
+  if (include !== null) {
+    included = new Uint8Array(values.length);
+    for (let i = 0; i < values.length; i++) {
+      const at = first + i;
+      included[i] = (include[at >>> 3] >>> (at & 7)) & 1;
+    }
+  }
+  return bytesOf(encodeValues(values, codebook, bits as 8 | 16, included));
 }
 
 /** The bytes of a typed array (little-endian on every machine this runs on: requireLittleEndian). */
@@ -218,38 +337,24 @@ function bytesOf(array: Uint8Array | Uint16Array | Uint32Array | Float32Array | 
   return new Uint8Array(array.buffer, array.byteOffset, array.byteLength);
 }
 
-/** Header and section table (docs/model-file.md, "Header", "Section table"). */
-function layOut(model: LanguageModel, encoding: ValueEncoding, sections: Section[]): { header: Buffer; table: Buffer } {
-  const table = Buffer.alloc(sections.length * SECTION_ENTRY_BYTES);
-  let offset = HEADER_BYTES + table.length;
-  sections.forEach((section, index) => {
-    const entry = index * SECTION_ENTRY_BYTES;
-    table.writeUInt32LE(section.kind, entry);
-    table.writeUInt32LE(section.order, entry + 4);
-    table.writeBigUInt64LE(BigInt(offset), entry + 8);
-    table.writeBigUInt64LE(BigInt(section.bytes.length), entry + 16);
-    table.writeUInt32LE(crc32(section.bytes), entry + 24);
-    offset = alignUp(offset + section.bytes.length);
-  });
-  const size = vocabularySize(model.vocabulary);
-  const header = Buffer.alloc(HEADER_BYTES);
-  MODEL_MAGIC.copy(header, H.magic);
-  header.writeUInt16LE(MODEL_VERSION_MAJOR, H.versionMajor);
-  header.writeUInt16LE(MODEL_VERSION_MINOR, H.versionMinor);
-  header.writeUInt32LE(HEADER_BYTES, H.headerBytes);
-  header.writeBigUInt64LE(BigInt(offset), H.fileBytes);
-  header.writeUInt32LE(model.normalised ? FLAG_NORMALISED : 0, H.flags);
-  header.writeUInt32LE(model.order, H.order);
-  header.writeUInt32LE(size, H.vocabularySize);
-  header.writeUInt32LE(model.vocabulary.eosId, H.eosId);
-  header.writeUInt32LE(model.vocabulary.unkId, H.unkId);
-  header.writeUInt8(encoding, H.valueEncoding);
-  header.writeUInt8(wordIdBytesFor(size), H.wordIdBytes);
+/** The header (docs/model-file.md, "Header"): everything in it is known before the first section. */
+function headerBytes(header: ModelHeader, rowCounts: number[], encoding: ValueEncoding): Buffer {
+  const size = vocabularySize(header.vocabulary);
+  const bytes = Buffer.alloc(HEADER_BYTES);
+  MODEL_MAGIC.copy(bytes, H.magic);
+  bytes.writeUInt16LE(MODEL_VERSION_MAJOR, H.versionMajor);
+  bytes.writeUInt16LE(MODEL_VERSION_MINOR, H.versionMinor);
+  bytes.writeUInt32LE(HEADER_BYTES, H.headerBytes);
+  bytes.writeUInt32LE(header.normalised ? FLAG_NORMALISED : 0, H.flags);
+  bytes.writeUInt32LE(header.order, H.order);
+  bytes.writeUInt32LE(size, H.vocabularySize);
+  bytes.writeUInt32LE(header.vocabulary.eosId, H.eosId);
+  bytes.writeUInt32LE(header.vocabulary.unkId, H.unkId);
+  bytes.writeUInt8(encoding, H.valueEncoding);
+  bytes.writeUInt8(bitsFor(size), H.wordIdBits);
   // +0 turns a −0 into 0, so that equal models give equal bytes.
-  header.writeDoubleLE(model.log10UnseenContextWeight + 0, H.log10UnseenContextWeight);
-  header.writeUInt32LE(sections.length, H.sectionCount);
-  header.writeUInt32LE(crc32(table), H.sectionTableCrc);
-  model.orders.forEach((table, index) => header.writeBigUInt64LE(BigInt(modelRowCount(table)), H.ngramCounts + 8 * index));
-  header.writeUInt32LE(crc32(header.subarray(0, H.headerCrc)), H.headerCrc);
-  return { header, table };
+  bytes.writeDoubleLE(header.log10UnseenContextWeight + 0, H.log10UnseenContextWeight);
+  rowCounts.forEach((rows, index) => bytes.writeBigUInt64LE(BigInt(rows), H.ngramCounts + 8 * index));
+  bytes.writeUInt32LE(crc32(bytes.subarray(0, H.headerCrc)), H.headerCrc);
+  return bytes;
 }

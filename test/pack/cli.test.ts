@@ -56,7 +56,7 @@ test('export a model file to ARPA, pack it back with 8-bit values, describe both
   expect(reopened.ngrams).toEqual(model.orders.map((table) => table.log10Prob.length));
 
   const info = await run(['info', packed]);
-  expect(info).toContain('Quern model file, format 1.0');
+  expect(info).toContain('Quern model file, format 2.0');
   expect(info).toMatch(/values +8-bit quantised/);
   expect(info).toMatch(/method +modified-kneser-ney\n +order 1: D1 = [\d.]+, D2 = [\d.]+, D3\+ = [\d.]+ \((counts|fallback)\)/);
   expect(info).toMatch(/fingerprint +corpus-1/);

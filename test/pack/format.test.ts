@@ -12,7 +12,7 @@ import { fnv1a32 } from '../../src/pack/format.ts';
 import { openModel } from '../../src/pack/reader.ts';
 import { packModel } from '../../src/pack/writer.ts';
 import { REPO } from '../support/cli.ts';
-import { expectClose, temporaryDirectory } from './support.ts';
+import { expectClose, readPacked, temporaryDirectory } from './support.ts';
 
 const { dir, remove } = temporaryDirectory('format');
 afterAll(remove);
@@ -37,8 +37,13 @@ test('the worked example of docs/model-file.md is what the writer writes, and re
   const path = join(dir, 'example.qm');
   await packModel(model, { fingerprint: 'example', floatBits: 32 }, nodeFs, path);
   const written = readFileSync(path);
-  expect(written.length).toBe(736);
+  expect(written.length).toBe(768);
   expect(written.toString('hex')).toBe(documentedBytes().toString('hex'));
+
+  // The packed integers read bit by bit as the spec words them: children offsets of order 1 after
+  // the 16 bytes of width, reserved field and base; word ids of order 2.
+  expect([0, 1, 2, 3, 4, 5].map((i) => readPacked(written, 0x170 + 16, i, 3))).toEqual([0, 2, 2, 3, 4, 4]);
+  expect([0, 1, 2, 3].map((i) => readPacked(written, 0x188, i, 3))).toEqual([2, 3, 1, 2]);
 
   const packed = await openModel(path);
   expect([0, 1, 2, 3, 4].map((id) => packed.word(id))).toEqual(['<s>', '</s>', 'b', 'a', '<unk>']);

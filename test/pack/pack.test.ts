@@ -10,7 +10,8 @@ import { countCorpus, sentenceIds, truncateCounts, wordIdMap } from '../../src/e
 import { logProb, sentenceLogProbs, type LanguageModel } from '../../src/estimate/model.ts';
 import { faultyFs, nodeFs } from '../../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../../src/pack/reader.ts';
-import { packModel, type PackOptions } from '../../src/pack/writer.ts';
+import { packModel, packModelSource, type PackOptions } from '../../src/pack/writer.ts';
+import { modelSource, type ModelRowBatch, type ModelSource } from '../../src/estimate/model-source.ts';
 import { seededRandom } from '../support/seeded.ts';
 import { estimateWith, histories, markovCorpus, NORMALISED_METHODS } from '../estimate/support.ts';
 import { compareAlongSentences, expectClose, temporaryDirectory } from './support.ts';
@@ -151,6 +152,84 @@ describe('vocabulary and sentences', () => {
   });
 });
 
+/**
+ * The model as a source that hands out its rows in batches of 1..`batchMax` rows (copies, seeded
+ * sizes), and records which orders are being read at the same moment.
+ */
+function rebatchedSource(model: LanguageModel, batchMax: number, seed: number): { source: ModelSource; ordersOpenMax: () => number; adjacent: () => boolean } {
+  const inner = modelSource(model);
+  const random = seededRandom(seed);
+  const open = new Map<number, number>();
+  let ordersOpenMax = 0;
+  let adjacent = true;
+  return {
+    ordersOpenMax: () => ordersOpenMax,
+    adjacent: () => adjacent,
+    source: {
+      header: inner.header,
+      rowCounts: inner.rowCounts,
+      async *rows(order: number): AsyncIterable<ModelRowBatch> {
+        open.set(order, (open.get(order) ?? 0) + 1);
+        const orders = [...open.keys()].filter((n) => (open.get(n) ?? 0) > 0);
+        ordersOpenMax = Math.max(ordersOpenMax, orders.length);
+        if (orders.length === 2 && Math.abs(orders[0] - orders[1]) !== 1) adjacent = false;
+        try {
+          for await (const batch of inner.rows(order)) {
+            for (let start = 0; start < batch.rows; ) {
+              const rows = Math.min(batch.rows - start, 1 + Math.floor(random() * batchMax));
+              yield {
+                rows,
+                ids: batch.ids.slice(start * order, (start + rows) * order),
+                log10Prob: batch.log10Prob.slice(start, start + rows),
+                log10BackOff: batch.log10BackOff.slice(start, start + rows),
+              };
+              start += rows;
+            }
+          }
+        } finally {
+          open.set(order, (open.get(order) ?? 1) - 1);
+        }
+      },
+    },
+  };
+}
+
+describe('the streaming writer', () => {
+  test('packModelSource with any batch sizes writes the bytes of packModel, reading at most two neighbouring orders at once', async () => {
+    for (const method of ['modified-kneser-ney', 'katz'] as const) {
+      const model = estimateWith(method, counts, heldOut, method === 'katz' ? [1, 2, 2, 3] : undefined);
+      for (const options of [{ floatBits: 32 }, { floatBits: 64 }, { quantBits: 8 }, { quantBits: 16 }] as const) {
+        const whole = join(dir, `whole-${fileIndex}.qm`);
+        const streamed = join(dir, `streamed-${fileIndex++}.qm`);
+        const expected = await packModel(model, { ...options, fingerprint: 's' }, nodeFs, whole);
+        const { source, ordersOpenMax, adjacent } = rebatchedSource(model, 1 + (fileIndex % 50), fileIndex);
+        const summary = await packModelSource(source, { ...options, fingerprint: 's' }, nodeFs, streamed);
+        expect(readFileSync(streamed).equals(readFileSync(whole))).toBe(true);
+        expect({ ...summary, filePath: '' }).toEqual({ ...expected, filePath: '' });
+        expect(ordersOpenMax()).toBe(2);
+        expect(adjacent()).toBe(true);
+      }
+    }
+  });
+
+  test('a source that breaks its contract (rows out of order, a context missing) is an assertion failure, and leaves no file', async () => {
+    const model = estimateWith('witten-bell', counts, heldOut);
+    const target = join(dir, 'broken.qm');
+    const swapped = { ...model, orders: model.orders.map((table) => ({ ...table, ids: table.ids.slice() })) };
+    const ids = swapped.orders[2].ids;
+    for (let i = 0; i < 3; i++) [ids[i], ids[3 + i]] = [ids[3 + i], ids[i]];
+    await expect(packModelSource(modelSource(swapped), { fingerprint: '' }, nodeFs, target)).rejects.toThrow(/order 3: rows ascend and are distinct/);
+    // The last trigram becomes (V, V, V): still the largest row, but its context (V, V) is no bigram.
+    const orphan = { ...model, orders: model.orders.map((table) => ({ ...table, ids: table.ids.slice() })) };
+    const size = counts.vocabulary.words.length - 1;
+    orphan.orders[2].ids.fill(size, orphan.orders[2].ids.length - 3);
+    expect(orphan.orders[1].ids.slice(-2)).not.toEqual(Uint32Array.from([size, size]));
+    await expect(packModelSource(modelSource(orphan), { fingerprint: '' }, nodeFs, target)).rejects.toThrow(/order 3: every n-gram's context is a row of order 2/);
+    expect(existsSync(target)).toBe(false);
+    expect(readdirSync(dir).filter((name) => name.endsWith('.tmp'))).toEqual([]);
+  });
+});
+
 describe('the file', () => {
   test('the same model gives the same bytes; so does the model read back from the file', async () => {
     for (const method of ['modified-kneser-ney', 'jelinek-mercer', 'stupid-backoff'] as const) {
@@ -181,7 +260,7 @@ describe('the file', () => {
     const model = estimateWith('katz', counts, heldOut, [1, 1, 2, 2]);
     const fingerprint = 'sha256:0123abcd — corpus ünïcode';
     const packed = await packAndOpen(model, { fingerprint, quantBits: 8 });
-    expect(packed.version).toEqual({ major: 1, minor: 0 });
+    expect(packed.version).toEqual({ major: 2, minor: 0 });
     expect(packed.order).toBe(4);
     expect(packed.vocabularySize).toBe(counts.vocabulary.words.length - 1);
     expect(packed.eosId).toBe(counts.vocabulary.eosId);
@@ -197,14 +276,14 @@ describe('the file', () => {
     expect(stupid.normalised).toBe(false);
     expect(stupid.log10UnseenContextWeight).toBeCloseTo(Math.log10(0.4), 15);
     expect(stupid.encodingName).toBe('float32');
-    // Sections: aligned, contiguous, the last ending at the end of the file.
-    let position = 128 + 32 * packed.sections.length;
+    // Sections: aligned, contiguous from the header on; then the section table and the footer end the file.
+    let position = 128;
     for (const section of packed.sections) {
       expect(section.offset).toBe(position);
       expect(section.offset % 8).toBe(0);
       position = Math.ceil((section.offset + section.bytes) / 8) * 8;
     }
-    expect(position).toBe(packed.fileBytes);
+    expect(position + 32 * packed.sections.length + 32).toBe(packed.fileBytes);
   });
 
   test('toLanguageModel gives back the model (float64)', async () => {
@@ -252,7 +331,9 @@ describe('the file', () => {
       expect(['old', 'new']).toContain(fingerprint);
       await packModel(old, { fingerprint: 'old' }, nodeFs, target);
     }
-    expect(failures).toBeGreaterThan(5);
+    // The writer gathers its output into large writes: a small model's file is one write call, so
+    // the faults hit the create, the write, the sync, the rename and the directory sync.
+    expect(failures).toBeGreaterThanOrEqual(5);
     expect((await openModel(target)).fingerprint).toBe('new');
   });
 });

@@ -23,10 +23,10 @@ import { ESTIMATE_TABLE_BYTES_PER_ROW, ESTIMATE_WINDOW_BYTES_PER_ROW, ESTIMATE_W
 import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
 import type { MergeProgress } from '../merge/merge-partition.ts';
 import { applyContextRule, contextLevel, gallop, log10BackOffOf } from './back-off-form.ts';
+import { ngramHash } from '../count/hash.ts';
 import type { KatzTallies } from './katz.ts';
 import { planMethod, type MethodPlan, type OrderCountOfCounts, type PlannedRequest } from './method-plan.ts';
 import { ResultWriter, type ResultKind } from './result-file.ts';
-import { prefixRange } from './rows.ts';
 
 /** Where the streaming estimate keeps its results, relative to the job directory. */
 export const ESTIMATE_DIR = 'estimate';
@@ -84,7 +84,7 @@ export function partitionNeedBytes(rows: number[], size: number): number {
   const orderMax = rows.length;
   let need = 0;
   for (let m = 2; m <= orderMax; m++) {
-    const previous = m > 2 ? tableBytes(m - 1, rows[m - 2]) : 0;
+    const previous = m > 2 ? tableBytes(m - 1, rows[m - 2]) + ContextIndex.bytesFor(rows[m - 2]) : 0;
     const current = m < orderMax ? tableBytes(m, rows[m - 1]) : 0;
     const window = Math.min(rows[m - 1], ESTIMATE_WINDOW_ROWS + size) * (4 * m + ESTIMATE_WINDOW_BYTES_PER_ROW);
     need = Math.max(need, previous + current + window);
@@ -218,6 +218,7 @@ async function estimateOrder(
   const window = new Window(m, ESTIMATE_WINDOW_ROWS);
   let lower = new Float64Array(0);
   let prob = new Float64Array(0);
+  const shorterIndex = previous === null ? null : new ContextIndex(previous);
 
   /** Applies the rule to the window's first `rows` rows (whole contexts). */
   const process = (rows: number): void => {
@@ -239,15 +240,19 @@ async function estimateOrder(
       if (m === 2) {
         for (let row = start; row < end; row++) if (kept[row] === 1) lower[row] = settings.unigramProb[ids[row * 2 + 1]];
       } else {
-        // The rows of h' (w2 … w(m−1)) in this partition's results of order m−1, then each word there.
+        // The rows of h' (w2 … w(m−1)) in this partition's results of order m−1, by the index of
+        // their contexts; within them the words ascend, as they do in h's rows: a galloping
+        // search forward from the last one finds each.
         const shorter = previous as Table;
-        const [first, last] = prefixRange(shorter.ids, m - 1, shorter.rows, ids, start * m + 1, m - 2);
-        let suffix = first;
+        const context = (shorterIndex as ContextIndex).find(ids, start * m + 1);
+        if (context < 0) assert(false, `the suffix context of a kept n-gram of order ${m} is in its partition`);
+        let suffix = shorterIndex!.starts[context];
+        const suffixEnd = shorterIndex!.starts[context + 1];
         for (let row = start; row < end; row++) {
           if (kept[row] === 0) continue;
           const word = ids[row * m + m - 1];
-          suffix = gallop(shorter.ids, m - 1, suffix, last, word);
-          if (!(suffix < last && shorter.ids[suffix * (m - 1) + m - 2] === word)) {
+          suffix = gallop(shorter.ids, m - 1, suffix, suffixEnd, word);
+          if (!(suffix < suffixEnd && shorter.ids[suffix * (m - 1) + m - 2] === word)) {
             assert(false, `the suffix of a kept n-gram of order ${m} is kept at order ${m - 1} in its partition`);
           }
           lower[row] = shorter.prob[suffix];
@@ -321,7 +326,7 @@ async function estimateOrder(
   }
 }
 
-function compareKey(a: Uint32Array, aOffset: number, b: Uint32Array, bOffset: number, order: number): number {
+export function compareKey(a: Uint32Array, aOffset: number, b: Uint32Array, bOffset: number, order: number): number {
   for (let j = 0; j < order; j++) {
     const x = a[aOffset + j];
     const y = b[bOffset + j];
@@ -332,4 +337,57 @@ function compareKey(a: Uint32Array, aOffset: number, b: Uint32Array, bOffset: nu
 
 function corruptContinuation(store: PartitionStore, order: number): QuernError {
   return new QuernError('corrupt', `count store ${store.dir}: a continuation count of order ${order} has no raw count; re-run quern count with --restart`);
+}
+
+/**
+ * The contexts of a table of results (runs of rows sharing their first order−1 ids), found by
+ * those ids: an open-addressing hash table of context numbers, and each context's first row.
+ */
+export class ContextIndex {
+  /** Context c spans rows [starts[c], starts[c+1]). */
+  readonly starts: Uint32Array;
+  private readonly slots: Int32Array;
+  private readonly mask: number;
+  private readonly length: number;
+
+  constructor(private readonly table: Table) {
+    const order = table.order;
+    const length = order - 1;
+    this.length = length;
+    const ids = table.ids;
+    let contexts = 0;
+    for (let row = 0; row < table.rows; row++) if (row === 0 || compareKey(ids, (row - 1) * order, ids, row * order, length) !== 0) contexts++;
+    this.starts = new Uint32Array(contexts + 1);
+    let slotCount = 16;
+    while (slotCount < 2 * contexts) slotCount *= 2;
+    this.slots = new Int32Array(slotCount).fill(-1);
+    this.mask = slotCount - 1;
+    let context = 0;
+    for (let row = 0; row < table.rows; row++) {
+      if (!(row === 0 || compareKey(ids, (row - 1) * order, ids, row * order, length) !== 0)) continue;
+      this.starts[context] = row;
+      let slot = ngramHash(ids, row * order, length) & this.mask;
+      while (this.slots[slot] !== -1) slot = (slot + 1) & this.mask;
+      this.slots[slot] = context++;
+    }
+    this.starts[contexts] = table.rows;
+  }
+
+  /** Bytes of an index over `rows` rows (at most one context per row). */
+  static bytesFor(rows: number): number {
+    return rows * 12 + 64;
+  }
+
+  /** The context whose ids are key[keyStart .. keyStart+order−1), or −1. */
+  find(key: Uint32Array, keyStart: number): number {
+    const { ids, order } = this.table;
+    const length = this.length;
+    let slot = ngramHash(key, keyStart, length) & this.mask;
+    for (;;) {
+      const context = this.slots[slot];
+      if (context === -1) return -1;
+      if (compareKey(ids, this.starts[context] * order, key, keyStart, length) === 0) return context;
+      slot = (slot + 1) & this.mask;
+    }
+  }
 }

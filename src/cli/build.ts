@@ -53,7 +53,12 @@ export const buildCommand: CommandModule = {
     if (!argv.quiet) printSummary(summary, process.stderr);
     const report = buildReport(await loadStatsInput(jobDir));
     for (const d of report.diagnostics) process.stderr.write(`${d.severity.toUpperCase()}: ${d.title}\n`);
-    const { line } = await estimateJob(path.resolve(jobDir), out, argv as never, memoryBytes);
+    const { line } = await estimateJob(path.resolve(jobDir), out, argv as never, {
+      memoryBytes,
+      workers: intInRange(argv.workers, '--workers', 1, 256),
+      progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
+      restart: false,
+    });
     process.stdout.write(line);
   },
 };

@@ -48,6 +48,8 @@ export interface StreamEstimateRequest {
   restart?: boolean;
   progress?: ProgressSink;
   fs?: StageFs;
+  /** Worker threads to use (e.g. shared by several estimates); by default the stage starts its own. */
+  pool?: WorkerPool;
   /** Install SIGINT/SIGTERM handlers that release the lock (the CLI does). */
   handleSignals?: boolean;
 }
@@ -244,12 +246,12 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
       `partition ${needPartition} of ${jobDir} needs about ${needMax + unigramBytes} bytes to estimate, more than --memory ${request.memoryBytes}. ` +
       `Raise --memory, or count the job again with more partitions (quern count --partitions ${partitionsThatFit(partitions, needMax, request.memoryBytes - unigramBytes)} --restart …), which shrinks each one.`);
   }
-  const workers = Math.max(1, Math.min(request.workers, todo.length, Math.floor(request.memoryBytes / Math.max(1, needMax + unigramBytes))));
+  const workers = Math.max(1, Math.min(request.workers, request.pool?.size ?? Infinity, todo.length, Math.floor(request.memoryBytes / Math.max(1, needMax + unigramBytes))));
   if (todo.length > 0 && orderMax > 1) {
     stage.status = 'running';
     await save();
     const settings: PartitionEstimateSettings = { request: request.request, orders, size, cutoffs, unigramProb };
-    const pool = new WorkerPool(workers);
+    const pool = request.pool ?? new WorkerPool(workers);
     progress.start(`estimating ${todo.length} partitions`, todo.length, 'tasks');
     try {
       await pool.run<number, EstimateDone, unknown>({ ...baseInit(job, jobDir, 'estimate'), estimate: settings }, todo, {
@@ -260,10 +262,10 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
           stage.partitionsDone.push({ partition: result.partition, files: result.files, katz: result.katz });
           return save();
         },
-      });
+      }, workers);
     } finally {
       progress.stop();
-      await pool.close();
+      if (request.pool === undefined) await pool.close();
     }
   }
   stage.partitionsDone.sort((a, b) => a.partition - b.partition);

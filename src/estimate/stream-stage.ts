@@ -139,6 +139,21 @@ async function loadUnigrams(jobDir: string, partitions: number, withContinuation
   }
 }
 
+/**
+ * Removes the files under estimate/ that job.json does not record: results of partitions an
+ * interrupted run had not finished, and temporary files of atomic writes cut short.
+ */
+async function removeUnrecorded(jobDir: string, fs: StageFs, stage: EstimateStage): Promise<void> {
+  const recorded = new Set<string>(stage.partitionsDone.flatMap((p) => p.files.map((f) => f.file)));
+  if (stage.unigrams !== undefined) recorded.add(stage.unigrams.file);
+  const root = path.join(jobDir, ESTIMATE_DIR);
+  for (const entry of await fsp.readdir(root, { recursive: true, withFileTypes: true }).catch(() => [])) {
+    if (!entry.isFile()) continue;
+    const file = path.relative(jobDir, path.join(entry.parentPath, entry.name));
+    if (!recorded.has(file)) await fs.unlink(path.join(jobDir, file));
+  }
+}
+
 /** How many partitions would keep every partition's working set within `memoryBytes`. */
 function partitionsThatFit(partitions: number, needMax: number, memoryBytes: number): number {
   // The working set shrinks about in proportion to the partitions; a quarter more for uneven ones.
@@ -200,6 +215,7 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
     await save();
     await fsp.rm(path.join(jobDir, ESTIMATE_DIR), { recursive: true, force: true });
   }
+  await removeUnrecorded(jobDir, fs, stage);
   const partitionsBefore = stage.partitionsDone.length;
 
   // ---- the unigram level (V rows, shared by every partition) ----

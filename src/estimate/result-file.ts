@@ -210,6 +210,7 @@ export class ResultReader {
       if (!head.subarray(0, 6).equals(HEADER_MAGIC)) throw corrupt(filePath, 'bad magic: not an estimate result file');
       if (head.readUInt16LE(6) !== RESULT_FORMAT_VERSION) throw corrupt(filePath, `format version ${head.readUInt16LE(6)} is not ${RESULT_FORMAT_VERSION}`);
       if (crc32(head.subarray(0, 60)) !== head.readUInt32LE(60)) throw corrupt(filePath, 'header checksum mismatch');
+      if (head.subarray(9, 12).some((b) => b !== 0) || head.subarray(20, 60).some((b) => b !== 0)) throw corrupt(filePath, 'reserved header bytes are not zero');
       const found = { kind: head[8], order: head.readUInt32LE(12), partition: head.readUInt32LE(16) };
       if (found.kind !== KIND_CODE[meta.kind] || found.order !== meta.order || found.partition !== meta.partition) {
         throw corrupt(filePath, `holds kind ${found.kind}, order ${found.order}, partition ${found.partition}; expected ${meta.kind} of order ${meta.order}, partition ${meta.partition}`);

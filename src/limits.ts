@@ -173,10 +173,6 @@ export const ESTIMATE_WINDOW_ROWS = 1 << 16;
  *  continuation count, Kneser-Ney count, lower probability, probability (8 each) and the kept flag. */
 export const ESTIMATE_WINDOW_BYTES_PER_ROW = 41;
 
-/** Bytes per row of a partition's table of results of one order, besides the ids (4 per id): the
- *  probability (8), kept for the next order's lookups. */
-export const ESTIMATE_TABLE_BYTES_PER_ROW = 8;
-
 /** Rows per batch a job's model source yields: 64 Ki rows (~2 MiB at order 5), as modelSource. */
 export const ESTIMATE_SOURCE_BATCH_ROWS = 1 << 16;
 

@@ -19,10 +19,10 @@
 import * as path from 'node:path';
 import { assert, QuernError } from '../errors.ts';
 import { writeFileThrough, type StageFs } from '../job/fsio.ts';
-import { ESTIMATE_TABLE_BYTES_PER_ROW, ESTIMATE_WINDOW_BYTES_PER_ROW, ESTIMATE_WINDOW_ROWS } from '../limits.ts';
+import { ESTIMATE_WINDOW_BYTES_PER_ROW, ESTIMATE_WINDOW_ROWS } from '../limits.ts';
 import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
 import type { MergeProgress } from '../merge/merge-partition.ts';
-import { applyContextRule, contextLevel, gallop, log10BackOffOf } from './back-off-form.ts';
+import { applyContextRule, contextLevel, log10BackOffOf } from './back-off-form.ts';
 import { ngramHash } from '../count/hash.ts';
 import type { KatzTallies } from './katz.ts';
 import { planMethod, type MethodPlan, type OrderCountOfCounts, type PlannedRequest } from './method-plan.ts';
@@ -76,7 +76,7 @@ export function partitionRowCounts(store: PartitionStore): number[] {
 
 /** Bytes of a table of results of one order. */
 function tableBytes(order: number, rows: number): number {
-  return rows * (4 * order + ESTIMATE_TABLE_BYTES_PER_ROW);
+  return rows * 4 * Table.strideOf(order);
 }
 
 /** Bytes a partition's task holds at most, from its rows per order (module comment). */
@@ -92,12 +92,40 @@ export function partitionNeedBytes(rows: number[], size: number): number {
   return need;
 }
 
-/** Kept rows of one order of the partition, with their probabilities (linear). */
-interface Table {
-  order: number;
-  rows: number;
-  ids: Uint32Array;
-  prob: Float64Array;
+/**
+ * Kept rows of one order of the partition with their probabilities (linear), row by row in one
+ * buffer — the ids padded to 8 bytes, then the probability — so a lookup touches one cache line.
+ */
+class Table {
+  /** u32 elements per row (even). */
+  readonly stride: number;
+  readonly ids: Uint32Array;
+  private readonly values: Float64Array;
+  rows = 0;
+
+  constructor(readonly order: number, readonly capacity: number) {
+    this.stride = Table.strideOf(order);
+    const buffer = new ArrayBuffer(capacity * this.stride * 4);
+    this.ids = new Uint32Array(buffer);
+    this.values = new Float64Array(buffer);
+  }
+
+  static strideOf(order: number): number {
+    return 2 * Math.ceil(order / 2) + 2;
+  }
+
+  /** Appends the row src[offset .. offset+order) with probability p. */
+  push(src: Uint32Array, offset: number, p: number): void {
+    assert(this.rows < this.capacity, 'a partition table holds at most the rows its store records');
+    const base = this.rows * this.stride;
+    for (let j = 0; j < this.order; j++) this.ids[base + j] = src[offset + j];
+    this.values[(base + this.stride - 2) >> 1] = p;
+    this.rows++;
+  }
+
+  prob(row: number): number {
+    return this.values[(row * this.stride + this.stride - 2) >> 1];
+  }
 }
 
 /** A growable window of rows of one order (whole contexts, plus the start of the next one). */
@@ -171,7 +199,7 @@ export async function estimatePartition(
     let previous: Table | null = null;
     for (let m = 2; m <= orderMax; m++) {
       const highest = m === orderMax;
-      const current: Table | null = highest ? null : { order: m, rows: 0, ids: new Uint32Array(partitionRows[m - 1] * m), prob: new Float64Array(partitionRows[m - 1]) };
+      const current: Table | null = highest ? null : new Table(m, partitionRows[m - 1]);
       const probFile = resultFilePath(partition, 'probabilities', m);
       const bowFile = resultFilePath(partition, 'back-off', m - 1);
       await writeFileThrough(fs, path.join(jobDir, probFile), async (probOut) => {
@@ -244,18 +272,38 @@ async function estimateOrder(
         // their contexts; within them the words ascend, as they do in h's rows: a galloping
         // search forward from the last one finds each.
         const shorter = previous as Table;
-        const context = (shorterIndex as ContextIndex).find(ids, start * m + 1);
-        if (context < 0) assert(false, `the suffix context of a kept n-gram of order ${m} is in its partition`);
-        let suffix = shorterIndex!.starts[context];
-        const suffixEnd = shorterIndex!.starts[context + 1];
+        const stride = shorter.stride;
+        const slot = (shorterIndex as ContextIndex).find(ids, start * m + 1);
+        if (slot < 0) assert(false, `the suffix context of a kept n-gram of order ${m} is in its partition`);
+        let suffix = shorterIndex!.slots[slot];
+        const suffixEnd = shorterIndex!.slots[slot + 1];
+        const shorterIds = shorter.ids;
+        const last = m - 2;
         for (let row = start; row < end; row++) {
           if (kept[row] === 0) continue;
           const word = ids[row * m + m - 1];
-          suffix = gallop(shorter.ids, m - 1, suffix, suffixEnd, word);
-          if (!(suffix < suffixEnd && shorter.ids[suffix * (m - 1) + m - 2] === word)) {
+          // Galloping search forward for the word among the context's rows (their last ids ascend).
+          if (shorterIds[suffix * stride + last] < word) {
+            let low = suffix;
+            let step = 1;
+            let high = suffix + 1;
+            while (high < suffixEnd && shorterIds[high * stride + last] < word) {
+              low = high;
+              step *= 2;
+              high = suffix + step;
+            }
+            if (high > suffixEnd) high = suffixEnd;
+            while (high - low > 1) {
+              const middle = (low + high) >>> 1;
+              if (shorterIds[middle * stride + last] < word) low = middle;
+              else high = middle;
+            }
+            suffix = high;
+          }
+          if (!(suffix < suffixEnd && shorterIds[suffix * stride + last] === word)) {
             assert(false, `the suffix of a kept n-gram of order ${m} is kept at order ${m - 1} in its partition`);
           }
-          lower[row] = shorter.prob[suffix];
+          lower[row] = shorter.prob(suffix);
         }
       }
       const weight = applyContextRule(level, rule, start, end, lower, prob, normalised);
@@ -263,11 +311,7 @@ async function estimateOrder(
       for (let row = start; row < end; row++) {
         if (kept[row] === 0) continue;
         probWriter.add(ids, row * m, Math.log10(prob[row]));
-        if (current !== null) {
-          const target = current.rows++;
-          for (let j = 0; j < m; j++) current.ids[target * m + j] = ids[row * m + j];
-          current.prob[target] = prob[row];
-        }
+        if (current !== null) current.push(ids, row * m, prob[row]);
       }
     }
     onRows(rows);
@@ -341,52 +385,54 @@ function corruptContinuation(store: PartitionStore, order: number): QuernError {
 
 /**
  * The contexts of a table of results (runs of rows sharing their first order−1 ids), found by
- * those ids: an open-addressing hash table of context numbers, and each context's first row.
+ * those ids: an open-addressing hash table whose slots hold each context's [first row, end) side
+ * by side, so a lookup touches the slot's cache line and the first row's.
  */
 export class ContextIndex {
-  /** Context c spans rows [starts[c], starts[c+1]). */
-  readonly starts: Uint32Array;
-  private readonly slots: Int32Array;
+  /** Slot s: slots[s] = first row (−1: empty), slots[s + 1] = end row; s even. */
+  readonly slots: Int32Array;
   private readonly mask: number;
   private readonly length: number;
 
   constructor(private readonly table: Table) {
-    const order = table.order;
-    const length = order - 1;
+    const stride = table.stride;
+    const length = table.order - 1;
     this.length = length;
     const ids = table.ids;
+    const differs = (row: number): boolean => row === 0 || compareKey(ids, (row - 1) * stride, ids, row * stride, length) !== 0;
     let contexts = 0;
-    for (let row = 0; row < table.rows; row++) if (row === 0 || compareKey(ids, (row - 1) * order, ids, row * order, length) !== 0) contexts++;
-    this.starts = new Uint32Array(contexts + 1);
+    for (let row = 0; row < table.rows; row++) if (differs(row)) contexts++;
     let slotCount = 16;
     while (slotCount < 2 * contexts) slotCount *= 2;
-    this.slots = new Int32Array(slotCount).fill(-1);
+    this.slots = new Int32Array(2 * slotCount).fill(-1);
     this.mask = slotCount - 1;
-    let context = 0;
-    for (let row = 0; row < table.rows; row++) {
-      if (!(row === 0 || compareKey(ids, (row - 1) * order, ids, row * order, length) !== 0)) continue;
-      this.starts[context] = row;
-      let slot = ngramHash(ids, row * order, length) & this.mask;
-      while (this.slots[slot] !== -1) slot = (slot + 1) & this.mask;
-      this.slots[slot] = context++;
+    let open = -1;
+    for (let row = 0; row <= table.rows; row++) {
+      if (row < table.rows && !differs(row)) continue;
+      if (open >= 0) this.slots[open + 1] = row;
+      if (row === table.rows) break;
+      let slot = ngramHash(ids, row * stride, length) & this.mask;
+      while (this.slots[2 * slot] !== -1) slot = (slot + 1) & this.mask;
+      this.slots[2 * slot] = row;
+      open = 2 * slot;
     }
-    this.starts[contexts] = table.rows;
   }
 
-  /** Bytes of an index over `rows` rows (at most one context per row). */
+  /** Bytes of an index over `rows` rows (at most one context per row, ≤ 4 slots of 8 bytes each). */
   static bytesFor(rows: number): number {
-    return rows * 12 + 64;
+    return rows * 32 + 128;
   }
 
-  /** The context whose ids are key[keyStart .. keyStart+order−1), or −1. */
+  /** The slot (even index into `slots`) of the context whose ids are key[keyStart .. keyStart+order−1), or −1. */
   find(key: Uint32Array, keyStart: number): number {
-    const { ids, order } = this.table;
+    const { ids, stride } = this.table;
     const length = this.length;
+    const slots = this.slots;
     let slot = ngramHash(key, keyStart, length) & this.mask;
     for (;;) {
-      const context = this.slots[slot];
-      if (context === -1) return -1;
-      if (compareKey(ids, this.starts[context] * order, key, keyStart, length) === 0) return context;
+      const first = slots[2 * slot];
+      if (first === -1) return -1;
+      if (compareKey(ids, first * stride, key, keyStart, length) === 0) return 2 * slot;
       slot = (slot + 1) & this.mask;
     }
   }

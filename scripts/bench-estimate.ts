@@ -15,6 +15,9 @@
  * --workers   worker threads (default 2)
  * --baseline  run the in-memory path for modified Kneser-Ney: auto (default) when the count tables
  *             fit --memory, yes, or no
+ * --recount   also count the job's inputs again (same order, partitions, --memory, --workers) into a
+ *             scratch job, measured in this run: a count time taken under the same load as the
+ *             estimates, beside the one job.json recorded when the job was counted
  *
  * Every run is a child process under GNU time (scripts/lib/rss.ts): wall time and peak RSS. The
  * n-grams/s are the job's distinct n-grams of all orders over the wall time. The load average is
@@ -23,7 +26,7 @@
  */
 import bytesIec from 'bytes-iec';
 import { spawnSync } from 'node:child_process';
-import { existsSync, mkdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import { join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -54,6 +57,7 @@ function parseOptions() {
       memory: { type: 'string', default: '2GiB' },
       workers: { type: 'string', default: '2' },
       baseline: { type: 'string', default: 'auto' },
+      recount: { type: 'boolean', default: false },
     },
   });
   const memoryBytes = bytesIec.parse(values.memory);
@@ -133,6 +137,13 @@ async function main(): Promise<void> {
   const rows: Row[] = [];
   const args = (method: string, path: string) => ['--import', 'tsx', ONCE, job, method, path, String(options.memoryBytes), String(options.workers)];
   for (const method of options.methods) rows.push(await measure('streaming', method, process.execPath, args(method, 'streaming'), ngrams));
+  if (options.recount) {
+    const scratch = join(BENCH_OUT, 'work', `recount-${process.pid}`);
+    rmSync(scratch, { recursive: true, force: true });
+    rows.push(await measure('quern count (same run)', '-', process.execPath, [QUERN_BIN, 'count', ...manifest.inputs.map((f) => f.path), '--job', scratch,
+      '--order', String(manifest.config.order), '--partitions', String(manifest.config.partitions), '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet'], ngrams));
+    rmSync(scratch, { recursive: true, force: true });
+  }
   const tablesBytes = countTablesBytes(distinct);
   const baseline = options.baseline === 'yes' || (options.baseline === 'auto' && tablesBytes <= options.memoryBytes);
   if (baseline) rows.push(await measure('in memory (baseline)', 'modified-kneser-ney', process.execPath, args('modified-kneser-ney', 'in-memory'), ngrams));
@@ -146,6 +157,10 @@ async function main(): Promise<void> {
   for (const r of rows) {
     lines.push([r.what, r.method, (r.wallMs / 1000).toFixed(1), rate(r.ngramsPerSecond), mib(r.rssBytesMax),
       `${(r.wallMs / countStageMs).toFixed(2)}×`, `${(r.wallMs / Math.max(1, countPhaseMs)).toFixed(2)}×`, r.loadAverage1m.toFixed(1)].join('\t'));
+  }
+  const recount = rows.find((r) => r.what.startsWith('quern count'));
+  if (recount) {
+    for (const r of rows.filter((x) => x.what === 'streaming')) lines.push(`${r.method}: ${(r.wallMs / recount.wallMs).toFixed(2)}× the time of quern count measured in this run`);
   }
   if (memoryRow) {
     const streamed = rows.find((r) => r.what === 'streaming' && r.method === 'modified-kneser-ney');

@@ -58,6 +58,7 @@ export const buildCommand: CommandModule = {
       workers: intInRange(argv.workers, '--workers', 1, 256),
       progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
       restart: false,
+      notice: argv.quiet ? undefined : (line) => process.stderr.write(line),
     });
     process.stdout.write(line);
   },

@@ -59,6 +59,8 @@ export interface EstimateRun {
   workers: number;
   progress: ProgressSink;
   restart: boolean;
+  /** Hears notes for the user (stderr on the command line). */
+  notice?: (line: string) => void;
 }
 
 /** Estimates the model of a finished job and packs it; returns the summary line. */
@@ -83,6 +85,7 @@ export async function estimateJob(jobDir: string, out: string, argv: EstimateArg
     model = await materialiseModel(source);
   } else {
     if (argv.heldout === undefined) throw new QuernError('config', 'jelinek-mercer fits its weights on held-out text: give --heldout FILE');
+    run.notice?.('quern: jelinek-mercer is estimated in memory, not partition by partition: fitting its weights by EM looks n-grams up across the whole model. Jobs whose counts exceed --memory are refused; the other methods are not limited so.\n');
     const counts = await loadCountTables(jobDir, run.memoryBytes);
     const tokenize = makeTokenizer(job.config.normalize);
     const ids = new Map(counts.vocabulary.words.map((w, id) => [w, id]));
@@ -120,6 +123,7 @@ export const estimateCommand: CommandModule = {
       workers: intInRange(argv.workers, '--workers', 1, 256),
       progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
       restart: Boolean(argv.restart),
+      notice: argv.quiet ? undefined : (line) => process.stderr.write(line),
     });
     process.stdout.write(line);
   },

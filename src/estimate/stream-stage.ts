@@ -268,7 +268,7 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
     await save();
     const settings: PartitionEstimateSettings = { request: request.request, orders, size, cutoffs, unigramProb };
     const pool = request.pool ?? new WorkerPool(workers);
-    progress.start(`estimating ${todo.length} partitions`, todo.length, 'tasks');
+    progress.start(`estimating ${todo.length} partitions`, todo.length, 'tasks', 'n-grams');
     try {
       await pool.run<number, EstimateDone, unknown>({ ...baseInit(job, jobDir, 'estimate'), estimate: settings }, todo, {
         message: (partition) => ({ type: 'estimate', partition }),

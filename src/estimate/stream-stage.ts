@@ -241,13 +241,15 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
 
   // ---- the partitions ----
   const done = new Set(stage.partitionsDone.map((p) => p.partition));
-  const todo = Array.from({ length: partitions }, (_, p) => p).filter((p) => !done.has(p));
   let needMax = 0;
   let needPartition = -1;
+  const rowsOf = new Array<number>(partitions).fill(0);
   for (let p = 0; p < partitions && orderMax > 1; p++) {
     const store = PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read');
     try {
-      const need = partitionNeedBytes(partitionRowCounts(store), size);
+      const rows = partitionRowCounts(store);
+      rowsOf[p] = rows.reduce((a, b) => a + b, 0);
+      const need = partitionNeedBytes(rows, size);
       if (need > needMax) {
         needMax = need;
         needPartition = p;
@@ -256,6 +258,8 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
       await store.close();
     }
   }
+  // Largest partitions first, so that no large one is left running alone at the end.
+  const todo = Array.from({ length: partitions }, (_, p) => p).filter((p) => !done.has(p)).sort((a, b) => rowsOf[b] - rowsOf[a] || a - b);
   const unigramBytes = 8 * (size + 1);
   if (needMax + unigramBytes > request.memoryBytes) {
     throw new QuernError('limit',

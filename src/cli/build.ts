@@ -1,7 +1,7 @@
 /**
- * `quern build`: the whole job in one command — count (resumable), report's diagnostics, estimate,
- * pack. Re-running continues an interrupted count; the estimate and pack run again (they are short
- * next to counting) and the model file is replaced atomically.
+ * `quern build`: the whole job in one command — count (resumable), report's diagnostics, estimate
+ * (resumable, partition by partition), pack. Re-running continues an interrupted count or estimate
+ * (finished partitions are kept); the pack runs again and the model file is replaced atomically.
  */
 import * as os from 'node:os';
 import * as path from 'node:path';

@@ -261,7 +261,7 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
   // Largest partitions first, so that no large one is left running alone at the end.
   const todo = Array.from({ length: partitions }, (_, p) => p).filter((p) => !done.has(p)).sort((a, b) => rowsOf[b] - rowsOf[a] || a - b);
   const unigramBytes = 8 * (size + 1);
-  if (needMax + unigramBytes > request.memoryBytes) {
+  if (todo.length > 0 && needMax + unigramBytes > request.memoryBytes) {
     throw new QuernError('limit',
       `partition ${needPartition} of ${jobDir} needs about ${needMax + unigramBytes} bytes to estimate, more than --memory ${request.memoryBytes}. ` +
       `Raise --memory, or count the job again with more partitions (quern count --partitions ${partitionsThatFit(partitions, needMax, request.memoryBytes - unigramBytes)} --restart …), which shrinks each one.`);

@@ -274,7 +274,7 @@ async function estimateOrder(
         const shorter = previous as Table;
         const stride = shorter.stride;
         const slot = (shorterIndex as ContextIndex).find(ids, start * m + 1);
-        if (slot < 0) assert(false, `the suffix context of a kept n-gram of order ${m} is in its partition`);
+        if (slot < 0) throw suffixMissing(store, m, ids, start * m);
         let suffix = shorterIndex!.slots[slot];
         const suffixEnd = shorterIndex!.slots[slot + 1];
         const shorterIds = shorter.ids;
@@ -301,7 +301,7 @@ async function estimateOrder(
             suffix = high;
           }
           if (!(suffix < suffixEnd && shorterIds[suffix * stride + last] === word)) {
-            assert(false, `the suffix of a kept n-gram of order ${m} is kept at order ${m - 1} in its partition`);
+            throw suffixMissing(store, m, ids, row * m);
           }
           lower[row] = shorter.prob(suffix);
         }
@@ -377,6 +377,16 @@ export function compareKey(a: Uint32Array, aOffset: number, b: Uint32Array, bOff
     if (x !== y) return x < y ? -1 : 1;
   }
   return 0;
+}
+
+/**
+ * A kept n-gram whose suffix is not among the partition's kept n-grams of the order below: with
+ * cutoffs that do not decrease (checked) this only happens when the store was partitioned another
+ * way (a job counted before n-grams were partitioned by their context's last word) or is damaged.
+ */
+function suffixMissing(store: PartitionStore, order: number, ids: Uint32Array, offset: number): QuernError {
+  const ngram = Array.from(ids.subarray(offset, offset + order)).join(' ');
+  return new QuernError('corrupt', `count store ${store.dir}: the suffix of the n-gram [${ngram}] (word ids) is not in the same partition; the job was counted with another partitioning or its store is damaged: count it again with quern count --restart`);
 }
 
 function corruptContinuation(store: PartitionStore, order: number): QuernError {

@@ -161,6 +161,24 @@ export const STORE_TXN_BLOCKS = 1024;
  *  needed). 1 TiB per partition leaves room for any corpus this machine can count. */
 export const STORE_MAP_BYTES = 2 ** 40;
 
+// ---- Estimate (streaming, partition by partition) ---------------------------------------------
+
+/** Rows per block of an estimate result file (docs/estimate-files.md): like a run-file block, a
+ *  reader needs one block in memory (≤ 8,192 × (1 + 5·order + 8) bytes ≈ 360 KiB at order 7). */
+export const RESULT_BLOCK_ROWS = 8192;
+
+/** Rows of whole contexts the streaming estimator gathers before it applies the rule to them: large
+ *  enough that a rule's setup (a closure, a few arrays) is amortised, small enough to stay in the
+ *  caches. A context larger than this (at most V rows: its words are distinct) is taken whole. */
+export const ESTIMATE_WINDOW_ROWS = 1 << 16;
+
+/** Bytes per window row the streaming estimator holds besides the ids (4 per id): raw count,
+ *  continuation count, Kneser-Ney count, lower probability, probability (8 each) and the kept flag. */
+export const ESTIMATE_WINDOW_BYTES_PER_ROW = 41;
+
+/** Rows per batch a job's model source yields: 64 Ki rows (~2 MiB at order 5), as modelSource. */
+export const ESTIMATE_SOURCE_BATCH_ROWS = 1 << 16;
+
 // ---- Listing -------------------------------------------------------------------------------
 
 /** N-grams `quern ngrams --by-count` sorts in memory when no --limit is given (≈ 40 B each). */

@@ -1,7 +1,7 @@
 /**
- * `quern build`: the whole job in one command — count (resumable), report's diagnostics, estimate,
- * pack. Re-running continues an interrupted count; the estimate and pack run again (they are short
- * next to counting) and the model file is replaced atomically.
+ * `quern build`: the whole job in one command — count (resumable), report's diagnostics, estimate
+ * (resumable, partition by partition), pack. Re-running continues an interrupted count or estimate
+ * (finished partitions are kept); the pack runs again and the model file is replaced atomically.
  */
 import * as os from 'node:os';
 import * as path from 'node:path';
@@ -53,7 +53,13 @@ export const buildCommand: CommandModule = {
     if (!argv.quiet) printSummary(summary, process.stderr);
     const report = buildReport(await loadStatsInput(jobDir));
     for (const d of report.diagnostics) process.stderr.write(`${d.severity.toUpperCase()}: ${d.title}\n`);
-    const { line } = await estimateJob(path.resolve(jobDir), out, argv as never, memoryBytes);
+    const { line } = await estimateJob(path.resolve(jobDir), out, argv as never, {
+      memoryBytes,
+      workers: intInRange(argv.workers, '--workers', 1, 256),
+      progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
+      restart: false,
+      notice: argv.quiet ? undefined : (line) => process.stderr.write(line),
+    });
     process.stdout.write(line);
   },
 };

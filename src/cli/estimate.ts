@@ -1,7 +1,8 @@
 /**
  * `quern estimate`: a counted job → a smoothed model, packed into one model file.
- * The counts are read from the job's store into memory (refused beyond --memory): estimating
- * partition by partition, for jobs larger than memory, is not available yet.
+ * Every method but Jelinek-Mercer is estimated partition by partition in worker threads, with
+ * bounded memory and resumably (src/estimate/stream-stage.ts); Jelinek-Mercer fits its weights by
+ * EM with lookups into the whole model, so it reads the counts into memory (refused beyond --memory).
  */
 import { readFileSync } from 'node:fs';
 import * as path from 'node:path';
@@ -11,10 +12,17 @@ import { ORDER_MAX } from '../limits.ts';
 import { stageFs } from '../job/fsio.ts';
 import { readManifest } from '../job/manifest.ts';
 import { makeTokenizer } from '../corpus/tokenize.ts';
+import * as os from 'node:os';
 import { loadCountTables } from '../estimate/from-store.ts';
+import { isPlanned } from '../estimate/method-plan.ts';
+import { estimateJobStreaming } from '../estimate/stream-stage.ts';
+import type { ProgressSink } from '../job/context.ts';
+import { makeProgress } from './progress.ts';
+import { intInRange } from './options.ts';
 import { estimate, type EstimateRequest } from '../estimate/estimate.ts';
 import type { LanguageModel } from '../estimate/model.ts';
-import { packModel, type PackOptions } from '../pack/writer.ts';
+import { packModelSource, type PackOptions } from '../pack/writer.ts';
+import { modelSource, type ModelSource } from '../estimate/model-source.ts';
 import { formatPackSummary } from './pack.ts';
 import { defaultMemoryBytes } from './count.ts';
 import { parseSize } from './options.ts';
@@ -45,11 +53,20 @@ interface EstimateArgs {
   quant?: number;
 }
 
+/** How `estimateJob` runs: memory, threads, progress, and whether to discard earlier results. */
+export interface EstimateRun {
+  memoryBytes: number;
+  workers: number;
+  progress: ProgressSink;
+  restart: boolean;
+  /** Hears notes for the user (stderr on the command line). */
+  notice?: (line: string) => void;
+}
+
 /** Estimates the model of a finished job and packs it; returns the summary line. */
-export async function estimateJob(jobDir: string, out: string, argv: EstimateArgs, memoryBytes: number): Promise<{ line: string; model: LanguageModel }> {
+export async function estimateJob(jobDir: string, out: string, argv: EstimateArgs, run: EstimateRun): Promise<{ line: string }> {
   const job = await readManifest(jobDir);
   if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
-  const counts = await loadCountTables(jobDir, memoryBytes);
   const request: Record<string, unknown> = { method: argv.method, fallback: argv.fallback };
   if (argv.cutoffs !== undefined) {
     const cutoffs = argv.cutoffs.split(',').map(Number);
@@ -60,8 +77,15 @@ export async function estimateJob(jobDir: string, out: string, argv: EstimateArg
   }
   if (argv.method === 'katz') request.k = argv['katz-k'];
   if (argv.method === 'stupid-backoff') request.alpha = argv.alpha;
-  if (argv.method === 'jelinek-mercer') {
+  let source: ModelSource;
+  const planned = request as EstimateRequest;
+  if (isPlanned(planned)) {
+    // The partitions' results, read order by order: the model is never gathered in memory.
+    ({ source } = await estimateJobStreaming({ jobDir, request: planned, memoryBytes: run.memoryBytes, workers: run.workers, progress: run.progress, restart: run.restart, handleSignals: true }));
+  } else {
     if (argv.heldout === undefined) throw new QuernError('config', 'jelinek-mercer fits its weights on held-out text: give --heldout FILE');
+    run.notice?.('quern: jelinek-mercer is estimated in memory, not partition by partition: fitting its weights by EM looks n-grams up across the whole model. Jobs whose counts exceed --memory are refused; the other methods are not limited so.\n');
+    const counts = await loadCountTables(jobDir, run.memoryBytes);
     const tokenize = makeTokenizer(job.config.normalize);
     const ids = new Map(counts.vocabulary.words.map((w, id) => [w, id]));
     const tokens: string[] = [];
@@ -70,12 +94,12 @@ export async function estimateJob(jobDir: string, out: string, argv: EstimateArg
       return Uint32Array.from(tokens.slice(0, n), (w) => ids.get(w) ?? counts.vocabulary.unkId);
     });
     request.bucketed = argv.bucketed;
+    source = modelSource(estimate(counts, request as EstimateRequest));
   }
-  const model = estimate(counts, request as EstimateRequest);
   const options: PackOptions = { fingerprint: job.inputs.map((f) => f.fingerprint).join(',') };
   if (argv.quant !== undefined) options.quantBits = argv.quant as 8 | 16;
-  const summary = await packModel(model, options, stageFs(), out);
-  return { line: formatPackSummary(summary), model };
+  const summary = await packModelSource(source, options, stageFs(), out);
+  return { line: formatPackSummary(summary) };
 }
 
 export const estimateCommand: CommandModule = {
@@ -84,13 +108,22 @@ export const estimateCommand: CommandModule = {
   builder: (yargs) => estimateOptions(yargs
     .positional('job', { type: 'string', describe: 'Job directory of a finished count' })
     .option('out', { type: 'string', describe: 'Model file to write (default: JOB/model.qm)' })
-    .option('memory', { type: 'string', describe: 'Memory for the count tables (default: a quarter of RAM, at least 1 GiB)' }))
+    .option('memory', { type: 'string', describe: 'Memory for the partitions estimated at once (Jelinek-Mercer: for all count tables); default a quarter of RAM, at least 1 GiB' })
+    .option('workers', { type: 'number', default: os.availableParallelism(), describe: 'Worker threads (partitions estimated at once)' })
+    .option('restart', { type: 'boolean', default: false, describe: 'Discard the results of an interrupted estimate and start over' })
+    .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' }))
     .example('$0 estimate job --method katz --out katz.qm', 'A Katz back-off model'),
   handler: async (argv) => {
     const jobDir = argv.job as string;
     const out = (argv.out as string | undefined) ?? path.join(jobDir, 'model.qm');
     const memoryBytes = argv.memory === undefined ? defaultMemoryBytes() : parseSize(argv.memory as string, '--memory');
-    const { line } = await estimateJob(jobDir, out, argv as unknown as EstimateArgs, memoryBytes);
+    const { line } = await estimateJob(jobDir, out, argv as unknown as EstimateArgs, {
+      memoryBytes,
+      workers: intInRange(argv.workers, '--workers', 1, 256),
+      progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
+      restart: Boolean(argv.restart),
+      notice: argv.quiet ? undefined : (line) => process.stderr.write(line),
+    });
     process.stdout.write(line);
   },
 };

@@ -21,14 +21,15 @@ export function makeProgress(mode: 'auto' | 'quiet', stream: NodeJS.WriteStream 
   let tokens = 0;
   let started = 0;
   let unit: 'bytes' | 'tasks' = 'bytes';
+  let items = 'tokens';
   const amount = (n: number): string => (unit === 'bytes' ? formatBytes(n) : String(n));
   if (!stream.isTTY) {
     return {
-      start(l, t, u = 'bytes') { label = l; total = t; unit = u; done = 0; tokens = 0; started = Date.now(); },
+      start(l, t, u = 'bytes', i = 'tokens') { label = l; total = t; unit = u; items = i; done = 0; tokens = 0; started = Date.now(); },
       update(d, k) { done += d; tokens += k; },
       stop() {
         const seconds = Math.max((Date.now() - started) / 1000, 1e-3);
-        const rate = tokens > 0 ? `, ${formatRate(tokens)} tokens (${formatRate(tokens / seconds)} tokens/s)` : '';
+        const rate = tokens > 0 ? `, ${formatRate(tokens)} ${items} (${formatRate(tokens / seconds)} ${items}/s)` : '';
         stream.write(`quern: ${label}: ${amount(done)} of ${amount(total)}${rate} in ${seconds.toFixed(1)} s\n`);
       },
     };
@@ -39,11 +40,11 @@ export function makeProgress(mode: 'auto' | 'quiet', stream: NodeJS.WriteStream 
     return { done: amount(done), all: amount(total), rate: formatRate(tokens / seconds), rss: formatBytes(process.memoryUsage.rss()) };
   };
   return {
-    start(l, t, u = 'bytes') {
-      label = l; total = t; unit = u; done = 0; tokens = 0; started = Date.now();
+    start(l, t, u = 'bytes', i = 'tokens') {
+      label = l; total = t; unit = u; items = i; done = 0; tokens = 0; started = Date.now();
       bar = new cliProgress.SingleBar({
         stream,
-        format: `${label} [{bar}] {percentage}% | {done} of {all} | {rate} tokens/s | {duration_formatted}, ETA {eta_formatted} | {rss} in use`,
+        format: `${label} [{bar}] {percentage}% | {done} of {all} | {rate} ${items}/s | {duration_formatted}, ETA {eta_formatted} | {rss} in use`,
         hideCursor: true,
         etaBuffer: 50,
         fps: 5,

@@ -3,8 +3,9 @@ import type { Chunk, InputFile, NormalizeOptions, ReadStats } from '../corpus/ty
 import type { RunRecord } from '../job/manifest.ts';
 import type { PartitionMergeTask } from '../merge/merge-partition.ts';
 import type { OrderTally } from '../merge/tally.ts';
+import type { PartitionEstimateResult, PartitionEstimateSettings } from '../estimate/partition-estimate.ts';
 
-export type Phase = 'vocab' | 'count' | 'remap' | 'merge' | 'continuation-emit' | 'continuation-merge';
+export type Phase = 'vocab' | 'count' | 'remap' | 'merge' | 'continuation-emit' | 'continuation-merge' | 'estimate';
 
 export interface WorkerInit {
   phase: Phase;
@@ -27,6 +28,8 @@ export interface WorkerInit {
   /** remap phase: idMap[oldId] = newId, and the first spill number of the new runs. */
   idMap?: Uint32Array;
   spillBase?: number;
+  /** estimate phase: the method, its global parameters and the unigram results. */
+  estimate?: PartitionEstimateSettings;
 }
 
 export type ToWorker =
@@ -35,6 +38,7 @@ export type ToWorker =
   | { type: 'partition'; task: PartitionMergeTask }
   | { type: 'emit'; partition: number; localOrders: number[] }
   | { type: 'remap'; chunk: number; files: string[] }
+  | { type: 'estimate'; partition: number }
   | { type: 'finish' };
 
 export interface RemapDone {
@@ -54,6 +58,8 @@ export interface MergeDone {
   partition: number;
   tallies: OrderTally[];
 }
+
+export type EstimateDone = { type: 'done' } & PartitionEstimateResult;
 
 export interface VocabChunkDone {
   type: 'done';
@@ -99,4 +105,4 @@ export interface WorkerFailure {
   stack?: string;
 }
 
-export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | EmitDone | RemapDone | VocabFinished | CountFinished | Progress | WorkerFailure;
+export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | EmitDone | RemapDone | EstimateDone | VocabFinished | CountFinished | Progress | WorkerFailure;

@@ -21,6 +21,7 @@ import { mergePartition, type PartitionMergeTask } from '../merge/merge-partitio
 import { partitionStoreDir } from '../merge/store.ts';
 import { emitContinuations } from '../merge/continuation.ts';
 import { remapChunkRuns } from './remap.ts';
+import { estimatePartition } from '../estimate/partition-estimate.ts';
 import { runFilePath } from './run-layout.ts';
 import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 
@@ -309,6 +310,17 @@ async function emitTask(partition: number, localOrders: number[]): Promise<void>
   post({ type: 'done', partition, runs });
 }
 
+// ---- estimate phase ------------------------------------------------------------------------
+
+async function estimateTask(partition: number): Promise<void> {
+  const result = await estimatePartition(fs, init.jobDir, partition, init.estimate!, (rows) => {
+    progressTokens += rows;
+    flushProgress(false);
+  });
+  flushProgress(true);
+  post({ type: 'done', ...result });
+}
+
 /** Starts a phase: its settings, and a fresh state for it. */
 function startPhase(next: WorkerInit): void {
   init = next;
@@ -337,6 +349,7 @@ async function handle(message: ToWorker): Promise<void> {
   if (message.type === 'partition') await mergeTask(message.task);
   else if (message.type === 'emit') await emitTask(message.partition, message.localOrders);
   else if (message.type === 'remap') await remapTask(message.chunk, message.files);
+  else if (message.type === 'estimate') await estimateTask(message.partition);
   else if (init.phase === 'vocab') await vocabChunk(message.chunk);
   else await countChunk(message.chunk);
 }

@@ -11,27 +11,15 @@
  * unigram level interpolates with the uniform distribution over the vocabulary, as Kneser-Ney does,
  * so that the two methods differ only in their counts.
  */
-import { buildBackOffModel, discountedRule, prepareCounts } from './back-off-form.ts';
 import type { CountTables } from './counts.ts';
-import { checkDiscountOrders, chooseDiscounts, singleDiscountRule } from './discount-choice.ts';
-import { singleDiscountFormula, type KneserNeyOptions } from './kneser-ney.ts';
-import type { LanguageModel, OrderDiscounts } from './model.ts';
+import type { KneserNeyOptions } from './kneser-ney.ts';
+import { estimatePlanned } from './method-plan.ts';
+import type { LanguageModel } from './model.ts';
 
 /** Options of absolute discounting: cutoffs; one discount per order given, or fallback allowed. */
 export type AbsoluteDiscountingOptions = KneserNeyOptions;
 
 /** Estimates interpolated absolute discounting (module comment). */
 export function estimateAbsoluteDiscounting(counts: CountTables, options: AbsoluteDiscountingOptions = {}): LanguageModel {
-  const prepared = prepareCounts(counts, options);
-  checkDiscountOrders(options, prepared.order);
-  const rule = singleDiscountRule('absolute discounting');
-  const discounts: OrderDiscounts[] = prepared.levels.map((level) => chooseDiscounts(rule, singleDiscountFormula(level, level.counts, 'raw'), options));
-  return buildBackOffModel(
-    prepared,
-    (level) => {
-      const discount = discounts[level.order - 1].values[0];
-      return discountedRule(level, level.counts, () => discount);
-    },
-    { parameters: { method: 'absolute-discounting', discounts }, normalised: true, log10UnseenContextWeight: 0 },
-  );
+  return estimatePlanned(counts, { ...options, method: 'absolute-discounting' });
 }

@@ -85,6 +85,36 @@ export function checkCutoffs(cutoffs: readonly number[] | undefined, order: numb
   return [...cutoffs];
 }
 
+/**
+ * The order-1 level from the unigram rows (`ids` ascending, `counts` and `continuation` aligned, the
+ * latter null when absent): dense over every id 0..V, one context [1, V+1), `<s>` not kept.
+ */
+export function unigramLevel(ids: Uint32Array, counts: Float64Array, continuation: Float64Array | null, size: number, highest: boolean): Level {
+  const all = new Uint32Array(size + 1);
+  for (let id = 0; id <= size; id++) all[id] = id;
+  const dense = new Float64Array(size + 1);
+  const denseContinuation = continuation === null ? null : new Float64Array(size + 1);
+  for (let row = 0; row < counts.length; row++) {
+    dense[ids[row]] = counts[row];
+    if (denseContinuation !== null) denseContinuation[ids[row]] = (continuation as Float64Array)[row];
+  }
+  const kept = new Uint8Array(size + 1).fill(1);
+  kept[BOS_ID] = 0;
+  return { order: 1, rows: size + 1, ids: all, counts: dense, continuation: denseContinuation, kept, contextStarts: Uint32Array.of(1, size + 1), highest };
+}
+
+/**
+ * A level of order ≥ 2 over `rows` rows that hold whole contexts (all n-grams of each context, as
+ * the whole table does, or a window of consecutive contexts as the streaming driver reads them):
+ * rows kept by `cutoff`, contexts found.
+ */
+export function contextLevel(order: number, rows: number, ids: Uint32Array, counts: Float64Array, continuation: Float64Array | null, cutoff: number, highest: boolean): Level {
+  assert(order >= 2 && ids.length >= rows * order && counts.length >= rows, 'a context level holds rows of its order');
+  const kept = new Uint8Array(rows);
+  for (let row = 0; row < rows; row++) kept[row] = counts[row] >= cutoff ? 1 : 0;
+  return { order, rows, ids, counts, continuation, kept, contextStarts: contextStarts(ids, order, rows), highest };
+}
+
 /** Checks the tables, applies the cutoffs and finds the contexts of every order. */
 export function prepareCounts(counts: CountTables, options: CutoffOptions = {}): PreparedCounts {
   checkCountTables(counts);
@@ -93,23 +123,9 @@ export function prepareCounts(counts: CountTables, options: CutoffOptions = {}):
   const levels: Level[] = counts.tables.map((table, index) => {
     const order = index + 1;
     const highest = order === counts.order;
-    if (order === 1) {
-      const ids = new Uint32Array(size + 1);
-      for (let id = 0; id <= size; id++) ids[id] = id;
-      const dense = new Float64Array(size + 1);
-      const continuation = table.continuation === null ? null : new Float64Array(size + 1);
-      for (let row = 0; row < rowCount(table); row++) {
-        dense[table.ids[row]] = table.counts[row];
-        if (continuation !== null) continuation[table.ids[row]] = (table.continuation as Float64Array)[row];
-      }
-      const kept = new Uint8Array(size + 1).fill(1);
-      kept[BOS_ID] = 0;
-      return { order, rows: size + 1, ids, counts: dense, continuation, kept, contextStarts: Uint32Array.of(1, size + 1), highest };
-    }
+    if (order === 1) return unigramLevel(table.ids, table.counts, table.continuation, size, highest);
     const rows = rowCount(table);
-    const kept = new Uint8Array(rows);
-    for (let row = 0; row < rows; row++) kept[row] = table.counts[row] >= cutoffs[index] ? 1 : 0;
-    return { order, rows, ids: table.ids, counts: table.counts, continuation: table.continuation, kept, contextStarts: contextStarts(table.ids, order, rows), highest };
+    return contextLevel(order, rows, table.ids, table.counts, table.continuation, cutoffs[index], highest);
   });
   let total = 0;
   for (let id = 1; id <= size; id++) total += levels[0].counts[id];
@@ -134,6 +150,45 @@ export interface ModelHeader {
 /** Slack for rounding when checking that probabilities lie in [0, 1]. */
 const PROBABILITY_SLACK = 1e-9;
 
+/** Largest probability a method may give, with slack for rounding. */
+export function probabilityMaxOf(normalised: boolean): number {
+  return normalised ? 1 + PROBABILITY_SLACK : Infinity;
+}
+
+/**
+ * The order-1 pass, shared by both drivers: the rule over every vocabulary word with p(w | h') = 1/V;
+ * returns p(w) by id (0 for `<s>`), each checked.
+ */
+export function estimateUnigrams(level: Level, rule: ContextRule, size: number, normalised: boolean): Float64Array {
+  assert(level.order === 1 && level.rows === size + 1, 'the unigram level holds every id 0..V');
+  const prob = new Float64Array(size + 1);
+  const lower = new Float64Array(size + 1).fill(1 / size);
+  rule(1, size + 1, lower, prob);
+  prob[BOS_ID] = 0;
+  for (let id = 1; id <= size; id++) checkProbability(prob[id], normalised, 1);
+  return prob;
+}
+
+/**
+ * One context of order ≥ 2 through its rule, shared by both drivers: fills prob[row] for the kept
+ * rows of [start, end) from lower[row], checks them, and returns the context's back-off weight.
+ */
+export function applyContextRule(level: Level, rule: ContextRule, start: number, end: number, lower: Float64Array, prob: Float64Array, normalised: boolean): number {
+  const weight = rule(start, end, lower, prob);
+  if (!(Number.isFinite(weight) && weight >= 0)) assert(false, `a back-off weight is finite and ≥ 0 (got ${weight})`);
+  const probabilityMax = probabilityMaxOf(normalised);
+  for (let row = start; row < end; row++) {
+    const p = prob[row];
+    if (level.kept[row] === 1 && !(p >= 0 && p <= probabilityMax)) checkProbability(p, normalised, level.order);
+  }
+  return weight;
+}
+
+/** log10 of a back-off weight as the model stores it: exactly 0 for a weight of 1. */
+export function log10BackOffOf(weight: number): number {
+  return weight === 1 ? 0 : Math.log10(weight);
+}
+
 /**
  * Builds the back-off form: order by order, every context through `ruleFor(level)`, then the
  * kept rows of each order into the model's table with log10 probabilities and back-off weights.
@@ -156,19 +211,15 @@ export function buildBackOffModel(prepared: PreparedCounts, ruleFor: (level: Lev
     backOffs.push(new Float64Array(level.rows).fill(1));
   }
 
-  const probabilityMax = header.normalised ? 1 + PROBABILITY_SLACK : Infinity;
   for (const level of levels) {
     const n = level.order;
     const rule = ruleFor(level);
     const prob = probabilities[n - 1];
-    const lower = new Float64Array(level.rows);
     if (n === 1) {
-      lower.fill(1 / size);
-      rule(1, size + 1, lower, prob);
-      prob[BOS_ID] = 0;
-      for (let id = 1; id <= size; id++) checkProbability(prob[id], header.normalised, n);
+      prob.set(estimateUnigrams(level, rule, size, header.normalised));
       continue;
     }
+    const lower = new Float64Array(level.rows);
     const shorter = levels[n - 2];
     const shorterProb = probabilities[n - 2];
     const shorterBackOff = backOffs[n - 2];
@@ -218,13 +269,7 @@ export function buildBackOffModel(prepared: PreparedCounts, ruleFor: (level: Lev
         contextRows[row] = contextRow;
         suffixRows[row] = suffix;
       }
-      const weight = rule(start, end, lower, prob);
-      if (!(Number.isFinite(weight) && weight >= 0)) assert(false, `a back-off weight is finite and ≥ 0 (got ${weight})`);
-      shorterBackOff[contextRow] = weight;
-      for (let row = start; row < end; row++) {
-        const p = prob[row];
-        if (level.kept[row] === 1 && !(p >= 0 && p <= probabilityMax)) checkProbability(p, header.normalised, n);
-      }
+      shorterBackOff[contextRow] = applyContextRule(level, rule, start, end, lower, prob, header.normalised);
     }
   }
 
@@ -244,8 +289,7 @@ export function buildBackOffModel(prepared: PreparedCounts, ruleFor: (level: Lev
       if (target < 0) continue;
       for (let i = 0; i < n; i++) ids[target * n + i] = level.ids[row * n + i];
       log10Prob[target] = Math.log10(probabilities[n - 1][row]);
-      const weight = backOffs[n - 1][row];
-      log10BackOff[target] = weight === 1 ? 0 : Math.log10(weight);
+      log10BackOff[target] = log10BackOffOf(backOffs[n - 1][row]);
       if (n > 1) contextRow[target] = (previousIndex as Int32Array)[contextRowsOf[n - 2][row]];
     }
     orders.push({ order: n, ids, log10Prob, log10BackOff, contextRow });
@@ -269,7 +313,7 @@ export function buildBackOffModel(prepared: PreparedCounts, ruleFor: (level: Lev
  * [from, end) share their first order−1 ids (so their last ids ascend): exponential steps forward,
  * then a binary search.
  */
-function gallop(ids: Uint32Array, order: number, from: number, end: number, word: number): number {
+export function gallop(ids: Uint32Array, order: number, from: number, end: number, word: number): number {
   const last = order - 1;
   if (from >= end || ids[from * order + last] >= word) return from;
   let low = from; // ids at low < word

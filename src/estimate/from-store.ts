@@ -3,8 +3,9 @@
  * order (merged across partitions), raw counts, and the continuation counts of the lower orders.
  *
  * This holds all n-grams in memory (about 8 + 4·order bytes each, plus 8 for a continuation
- * count), so it refuses a job whose tables would not fit the memory budget; estimating such jobs
- * partition by partition is the streaming driver's work (not yet available).
+ * count), so it refuses a job whose tables would not fit the memory budget. It is the path of
+ * Jelinek-Mercer and of the library's in-memory estimators; every other method is estimated
+ * partition by partition with bounded memory (stream-stage.ts).
  */
 import * as path from 'node:path';
 import { QuernError } from '../errors.ts';
@@ -43,7 +44,7 @@ export async function loadCountTables(jobDir: string, memoryBytes: number): Prom
   const distinct = job.stages.merge.distinct!;
   const bytes = countTablesBytes(distinct);
   if (bytes > memoryBytes) {
-    throw new QuernError('limit', `estimating this job in memory needs about ${bytes} bytes, more than --memory ${memoryBytes}; raise --memory (estimation partition by partition is not available yet)`);
+    throw new QuernError('limit', `estimating this job in memory needs about ${bytes} bytes, more than --memory ${memoryBytes}; raise --memory (every method but jelinek-mercer is estimated partition by partition, within any budget a partition fits)`);
   }
   const vocab = await readJobVocabulary(jobDir, job);
   const stores = Array.from({ length: job.config.partitions }, (_, p) => PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read'));

@@ -37,13 +37,14 @@
  *    choices — give d_1..d_k for that order, or allow the fallback d_r = (r − 1/2)/r
  *    (discount-choice.ts) — and the model records which was used.
  */
-import { QuernError } from '../errors.ts';
-import { KATZ_K, katzDiscounts } from '../stats/discounts.ts';
-import { buildBackOffModel, prepareCounts, type ContextRule, type CutoffOptions, type Level } from './back-off-form.ts';
+import { katzDiscounts } from '../stats/discounts.ts';
+import type { CountOfCounts } from '../stats/types.ts';
+import type { ContextRule, CutoffOptions, Level } from './back-off-form.ts';
 import type { CountTables } from './counts.ts';
-import { checkDiscountOrders, chooseDiscounts, katzRule, type DiscountOptions, type FormulaDiscounts } from './discount-choice.ts';
-import { countOfCountsRecord, levelCountOfCounts, ngramsOf } from './kneser-ney.ts';
-import type { LanguageModel, OrderDiscounts } from './model.ts';
+import type { DiscountOptions, FormulaDiscounts } from './discount-choice.ts';
+import { countOfCountsRecord } from './kneser-ney.ts';
+import { estimatePlanned } from './method-plan.ts';
+import type { LanguageModel } from './model.ts';
 
 /** Options of Katz back-off: cutoffs; k; d_1..d_k given per order, or fallback allowed. */
 export interface KatzOptions extends CutoffOptions, DiscountOptions {
@@ -54,102 +55,95 @@ export interface KatzOptions extends CutoffOptions, DiscountOptions {
 /** A denominator 1 − Σ p(w | h') below this has no room left for the unseen words (rounding of the sum). */
 export const KATZ_DENOMINATOR_MIN = 1e-12;
 
-/** Katz's d_r of a level's raw counts. */
-export function katzFormula(level: Level, k: number): FormulaDiscounts {
-  const countOfCounts = levelCountOfCounts(level.counts);
+/** Katz's d_r of the raw count-of-counts of an order. */
+export function katzFormula(order: number, countOfCounts: CountOfCounts, k: number, ngrams: number): FormulaDiscounts {
   const result = katzDiscounts(countOfCounts, k);
   return {
-    order: level.order,
+    order,
     values: result.discounts.map((d) => d.ratio),
     undefinedReasons: result.discounts.filter((d) => d.ratio === null).map((d) => `d${d.r} is undefined: ${d.note}`),
     counts: 'raw',
     countOfCounts: countOfCountsRecord(countOfCounts, k + 1),
-    ngrams: ngramsOf(level.counts),
+    ngrams,
+  };
+}
+
+/** What the Katz rule records as it goes (the model's parameters; see the module comment). */
+export interface KatzTallies {
+  unigramLevel: 'unseen-words' | 'renormalised';
+  contextsDiscountedAboveK: Array<{ order: number; contexts: number }>;
+  contextsWithoutMass: Array<{ order: number; contexts: number }>;
+}
+
+/**
+ * Katz's rule for the contexts of a level (module comment), with discount ratios d_1..d_k of its
+ * order and V = `size`; counts the special contexts into `tallies`.
+ */
+export function katzContextRule(level: Level, ratios: number[], k: number, size: number, tallies: KatzTallies): ContextRule {
+  const counts = level.counts;
+  return (start, end, lower, prob) => {
+    let total = 0;
+    for (let row = start; row < end; row++) total += counts[row];
+    // β(h) summed from what each n-gram gives up, so that it is exactly 0 when nothing is given up.
+    let left = 0;
+    let seenMass = 0;
+    let lowerSeen = 0;
+    let unseen = 0;
+    for (let row = start; row < end; row++) {
+      const count = counts[row];
+      if (count === 0 || level.kept[row] === 0) {
+        left += count;
+        unseen++;
+        continue;
+      }
+      const kept = count <= k ? ratios[count - 1] * count : count;
+      prob[row] = kept / total;
+      left += count - kept;
+      seenMass += prob[row];
+      lowerSeen += lower[row];
+    }
+    // Words with nothing of their own here: order 1, those never seen; above, all but the kept rows.
+    const wordsLeft = level.order === 1 ? unseen : size - (end - start - unseen);
+    if (left === 0 && wordsLeft > 0) {
+      const amount = (1 - ratios[k - 1]) * k;
+      if (amount > 0) {
+        tallies.contextsDiscountedAboveK[level.order - 1].contexts++;
+        seenMass = 0;
+        for (let row = start; row < end; row++) {
+          if (level.kept[row] === 0) continue;
+          if (counts[row] > k) {
+            prob[row] = (counts[row] - amount) / total;
+            left += amount;
+          }
+          seenMass += prob[row];
+        }
+      }
+    }
+    const beta = left / total;
+    if (level.order === 1) {
+      // Unseen words of the vocabulary share β(•) equally; with none, renormalise.
+      if (unseen > 0) {
+        for (let row = start; row < end; row++) if (counts[row] === 0) prob[row] = beta / unseen;
+      } else {
+        tallies.unigramLevel = 'renormalised';
+        for (let row = start; row < end; row++) prob[row] /= seenMass;
+      }
+      return 1;
+    }
+    if (beta === 0) {
+      tallies.contextsWithoutMass[level.order - 2].contexts++;
+      return 0;
+    }
+    const denominator = 1 - lowerSeen;
+    if (denominator < KATZ_DENOMINATOR_MIN) {
+      for (let row = start; row < end; row++) if (level.kept[row] === 1) prob[row] /= seenMass;
+      return 0;
+    }
+    return beta / denominator;
   };
 }
 
 /** Estimates Katz back-off (module comment). */
 export function estimateKatz(counts: CountTables, options: KatzOptions = {}): LanguageModel {
-  const k = options.k ?? KATZ_K;
-  if (!Number.isInteger(k) || k < 1) throw new QuernError('config', `k must be an integer ≥ 1 (got ${k})`);
-  const prepared = prepareCounts(counts, options);
-  checkDiscountOrders(options, prepared.order);
-  const rule = katzRule(k);
-  const discounts: OrderDiscounts[] = prepared.levels.map((level) => chooseDiscounts(rule, katzFormula(level, k), options));
-  let unigramLevel: 'unseen-words' | 'renormalised' = 'unseen-words';
-  const contextsWithoutMass = prepared.levels.slice(1).map((level) => ({ order: level.order, contexts: 0 }));
-  const contextsDiscountedAboveK = prepared.levels.map((level) => ({ order: level.order, contexts: 0 }));
-
-  const ruleFor = (level: Level): ContextRule => {
-    const ratios = discounts[level.order - 1].values;
-    const counts = level.counts;
-    return (start, end, lower, prob) => {
-      let total = 0;
-      for (let row = start; row < end; row++) total += counts[row];
-      // β(h) summed from what each n-gram gives up, so that it is exactly 0 when nothing is given up.
-      let left = 0;
-      let seenMass = 0;
-      let lowerSeen = 0;
-      let unseen = 0;
-      for (let row = start; row < end; row++) {
-        const count = counts[row];
-        if (count === 0 || level.kept[row] === 0) {
-          left += count;
-          unseen++;
-          continue;
-        }
-        const kept = count <= k ? ratios[count - 1] * count : count;
-        prob[row] = kept / total;
-        left += count - kept;
-        seenMass += prob[row];
-        lowerSeen += lower[row];
-      }
-      // Words with nothing of their own here: order 1, those never seen; above, all but the kept rows.
-      const wordsLeft = level.order === 1 ? unseen : prepared.size - (end - start - unseen);
-      if (left === 0 && wordsLeft > 0) {
-        const amount = (1 - ratios[k - 1]) * k;
-        if (amount > 0) {
-          contextsDiscountedAboveK[level.order - 1].contexts++;
-          seenMass = 0;
-          for (let row = start; row < end; row++) {
-            if (level.kept[row] === 0) continue;
-            if (counts[row] > k) {
-              prob[row] = (counts[row] - amount) / total;
-              left += amount;
-            }
-            seenMass += prob[row];
-          }
-        }
-      }
-      const beta = left / total;
-      if (level.order === 1) {
-        // Unseen words of the vocabulary share β(•) equally; with none, renormalise.
-        if (unseen > 0) {
-          for (let row = start; row < end; row++) if (counts[row] === 0) prob[row] = beta / unseen;
-        } else {
-          unigramLevel = 'renormalised';
-          for (let row = start; row < end; row++) prob[row] /= seenMass;
-        }
-        return 1;
-      }
-      if (beta === 0) {
-        contextsWithoutMass[level.order - 2].contexts++;
-        return 0;
-      }
-      const denominator = 1 - lowerSeen;
-      if (denominator < KATZ_DENOMINATOR_MIN) {
-        for (let row = start; row < end; row++) if (level.kept[row] === 1) prob[row] /= seenMass;
-        return 0;
-      }
-      return beta / denominator;
-    };
-  };
-
-  const model = buildBackOffModel(prepared, ruleFor, {
-    parameters: { method: 'katz', k, discounts, unigramLevel, contextsDiscountedAboveK, contextsWithoutMass },
-    normalised: true,
-    log10UnseenContextWeight: 0,
-  });
-  if (model.parameters.method === 'katz') model.parameters.unigramLevel = unigramLevel;
-  return model;
+  return estimatePlanned(counts, { ...options, method: 'katz' });
 }

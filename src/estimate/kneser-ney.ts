@@ -18,10 +18,11 @@ import { assert } from '../errors.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { absoluteDiscount } from '../stats/discounts.ts';
 import type { CountOfCounts } from '../stats/types.ts';
-import { buildBackOffModel, discountedRule, prepareCounts, type CutoffOptions, type Level } from './back-off-form.ts';
-import { withContinuationCounts, type CountTables } from './counts.ts';
-import { checkDiscountOrders, chooseDiscounts, singleDiscountRule, type DiscountOptions, type FormulaDiscounts } from './discount-choice.ts';
-import type { LanguageModel, OrderDiscounts } from './model.ts';
+import type { CutoffOptions, Level } from './back-off-form.ts';
+import type { CountTables } from './counts.ts';
+import type { DiscountOptions, FormulaDiscounts } from './discount-choice.ts';
+import { estimatePlanned } from './method-plan.ts';
+import type { LanguageModel } from './model.ts';
 
 /** Options of interpolated Kneser-Ney: cutoffs, and discounts given or fallback allowed. */
 export interface KneserNeyOptions extends CutoffOptions, DiscountOptions {}
@@ -61,35 +62,20 @@ export function ngramsOf(counts: Float64Array): number {
   return ngrams;
 }
 
-/** The one-discount formula D = n1/(n1 + 2·n2) on the counts of a level. */
-export function singleDiscountFormula(level: Level, counts: Float64Array, source: 'raw' | 'continuation'): FormulaDiscounts {
-  const countOfCounts = levelCountOfCounts(counts);
+/** The one-discount formula D = n1/(n1 + 2·n2) on the count-of-counts of the counts of an order. */
+export function singleDiscountFormula(order: number, countOfCounts: CountOfCounts, source: 'raw' | 'continuation'): FormulaDiscounts {
   const result = absoluteDiscount(countOfCounts);
   return {
-    order: level.order,
+    order,
     values: [result.discount],
     undefinedReasons: result.note === null ? [] : [`D is undefined: ${result.note}`],
     counts: source,
     countOfCounts: countOfCountsRecord(countOfCounts, 2),
-    ngrams: ngramsOf(counts),
+    ngrams: countOfCounts.reduce((sum, [, n]) => sum + n, 0),
   };
 }
 
 /** Estimates interpolated Kneser-Ney with one discount per order (module comment). */
 export function estimateKneserNey(counts: CountTables, options: KneserNeyOptions = {}): LanguageModel {
-  const prepared = prepareCounts(withContinuationCounts(counts), options);
-  checkDiscountOrders(options, prepared.order);
-  const rule = singleDiscountRule('Kneser-Ney');
-  const levelCounts = prepared.levels.map(kneserNeyCounts);
-  const discounts: OrderDiscounts[] = prepared.levels.map((level, index) =>
-    chooseDiscounts(rule, singleDiscountFormula(level, levelCounts[index], level.highest ? 'raw' : 'continuation'), options),
-  );
-  return buildBackOffModel(
-    prepared,
-    (level) => {
-      const discount = discounts[level.order - 1].values[0];
-      return discountedRule(level, levelCounts[level.order - 1], () => discount);
-    },
-    { parameters: { method: 'kneser-ney', discounts }, normalised: true, log10UnseenContextWeight: 0 },
-  );
+  return estimatePlanned(counts, { ...options, method: 'kneser-ney' });
 }

@@ -16,43 +16,30 @@
  * ranges 0 < D1 < 1, 0 < D2 < 2, 0 < D3+ < 3; discount-choice.ts says what happens outside them.
  */
 import { modifiedKneserNeyDiscounts } from '../stats/discounts.ts';
-import { buildBackOffModel, discountedRule, prepareCounts, type Level } from './back-off-form.ts';
-import { withContinuationCounts, type CountTables } from './counts.ts';
-import { checkDiscountOrders, chooseDiscounts, MODIFIED_KNESER_NEY_RULE, type FormulaDiscounts } from './discount-choice.ts';
-import { countOfCountsRecord, kneserNeyCounts, levelCountOfCounts, ngramsOf, type KneserNeyOptions } from './kneser-ney.ts';
-import type { LanguageModel, OrderDiscounts } from './model.ts';
+import type { CountOfCounts } from '../stats/types.ts';
+import type { CountTables } from './counts.ts';
+import type { FormulaDiscounts } from './discount-choice.ts';
+import { countOfCountsRecord, type KneserNeyOptions } from './kneser-ney.ts';
+import { estimatePlanned } from './method-plan.ts';
+import type { LanguageModel } from './model.ts';
 
 /** Options of modified Kneser-Ney: cutoffs; discounts [D1, D2, D3+] given per order, or fallback allowed. */
 export type ModifiedKneserNeyOptions = KneserNeyOptions;
 
-/** The three discounts of Chen & Goodman on the counts of a level. */
-export function modifiedKneserNeyFormula(level: Level, counts: Float64Array): FormulaDiscounts {
-  const countOfCounts = levelCountOfCounts(counts);
+/** The three discounts of Chen & Goodman on the count-of-counts of the counts of an order. */
+export function modifiedKneserNeyFormula(order: number, highest: boolean, countOfCounts: CountOfCounts): FormulaDiscounts {
   const result = modifiedKneserNeyDiscounts(countOfCounts);
   return {
-    order: level.order,
+    order,
     values: [result.d1, result.d2, result.d3Plus],
     undefinedReasons: result.notes,
-    counts: level.highest ? 'raw' : 'continuation',
+    counts: highest ? 'raw' : 'continuation',
     countOfCounts: countOfCountsRecord(countOfCounts, 4),
-    ngrams: ngramsOf(counts),
+    ngrams: countOfCounts.reduce((sum, [, n]) => sum + n, 0),
   };
 }
 
 /** Estimates interpolated modified Kneser-Ney (module comment). */
 export function estimateModifiedKneserNey(counts: CountTables, options: ModifiedKneserNeyOptions = {}): LanguageModel {
-  const prepared = prepareCounts(withContinuationCounts(counts), options);
-  checkDiscountOrders(options, prepared.order);
-  const levelCounts = prepared.levels.map(kneserNeyCounts);
-  const discounts: OrderDiscounts[] = prepared.levels.map((level, index) =>
-    chooseDiscounts(MODIFIED_KNESER_NEY_RULE, modifiedKneserNeyFormula(level, levelCounts[index]), options),
-  );
-  return buildBackOffModel(
-    prepared,
-    (level) => {
-      const [d1, d2, d3Plus] = discounts[level.order - 1].values;
-      return discountedRule(level, levelCounts[level.order - 1], (count) => (count === 1 ? d1 : count === 2 ? d2 : d3Plus));
-    },
-    { parameters: { method: 'modified-kneser-ney', discounts }, normalised: true, log10UnseenContextWeight: 0 },
-  );
+  return estimatePlanned(counts, { ...options, method: 'modified-kneser-ney' });
 }

@@ -12,8 +12,8 @@
  * (`log10UnseenContextWeight` = log10 α), so the score of h w does not depend on which contexts of h
  * the training text happened to contain.
  */
-import { QuernError } from '../errors.ts';
-import { buildBackOffModel, prepareCounts, type ContextRule, type CutoffOptions, type Level } from './back-off-form.ts';
+import type { CutoffOptions } from './back-off-form.ts';
+import { estimatePlanned } from './method-plan.ts';
 import type { CountTables } from './counts.ts';
 import type { LanguageModel } from './model.ts';
 
@@ -26,19 +26,7 @@ export interface StupidBackoffOptions extends CutoffOptions {
   alpha?: number;
 }
 
-/** Estimates stupid-backoff scores (module comment). */
+/** Estimates stupid-backoff scores (module comment); the rule is in method-plan.ts. */
 export function estimateStupidBackoff(counts: CountTables, options: StupidBackoffOptions = {}): LanguageModel {
-  const alpha = options.alpha ?? STUPID_BACKOFF_ALPHA;
-  if (!(alpha > 0 && alpha <= 1)) throw new QuernError('config', `alpha must lie in (0, 1] (got ${alpha})`);
-  const ruleFor = (level: Level): ContextRule => (start, end, _lower, prob) => {
-    let total = 0;
-    for (let row = start; row < end; row++) total += level.counts[row];
-    for (let row = start; row < end; row++) if (level.kept[row] === 1) prob[row] = level.counts[row] / total;
-    return alpha;
-  };
-  return buildBackOffModel(prepareCounts(counts, options), ruleFor, {
-    parameters: { method: 'stupid-backoff', alpha },
-    normalised: false,
-    log10UnseenContextWeight: Math.log10(alpha),
-  });
+  return estimatePlanned(counts, { ...options, method: 'stupid-backoff' });
 }

@@ -14,14 +14,16 @@
  *   γ(h)     = (N1+(h •) + Σ_dropped c(h w)) / (c(h) + N1+(h •)).
  */
 import { assert } from '../errors.ts';
-import { buildBackOffModel, prepareCounts, type ContextRule, type CutoffOptions, type Level } from './back-off-form.ts';
+import type { ContextRule, CutoffOptions, Level } from './back-off-form.ts';
+import { estimatePlanned } from './method-plan.ts';
 import type { CountTables } from './counts.ts';
 import type { LanguageModel } from './model.ts';
 
 /** Options of Witten-Bell: cutoffs. */
 export type WittenBellOptions = CutoffOptions;
 
-function wittenBellRule(level: Level): ContextRule {
+/** The Witten-Bell rule of a level (module comment). */
+export function wittenBellRule(level: Level): ContextRule {
   const counts = level.counts;
   return (start, end, lower, prob) => {
     let total = 0;
@@ -45,9 +47,5 @@ function wittenBellRule(level: Level): ContextRule {
 
 /** Estimates interpolated Witten-Bell (module comment). */
 export function estimateWittenBell(counts: CountTables, options: WittenBellOptions = {}): LanguageModel {
-  return buildBackOffModel(prepareCounts(counts, options), wittenBellRule, {
-    parameters: { method: 'witten-bell' },
-    normalised: true,
-    log10UnseenContextWeight: 0,
-  });
+  return estimatePlanned(counts, { ...options, method: 'witten-bell' });
 }

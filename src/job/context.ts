@@ -6,7 +6,8 @@ import { writeManifest, type JobManifest } from './manifest.ts';
 
 /** Receives progress of long work; the CLI draws it, tests ignore it. */
 export interface ProgressSink {
-  start(label: string, total: number, unit?: 'bytes' | 'tasks'): void;
+  /** `items`: what the second count of `update` counts (default 'tokens'). */
+  start(label: string, total: number, unit?: 'bytes' | 'tasks', items?: string): void;
   update(doneDelta: number, tokensDelta: number): void;
   stop(): void;
 }

@@ -9,6 +9,8 @@ import { QuernError } from '../errors.ts';
 import type { Chunk, InputFile, NormalizeOptions, ReadStats } from '../corpus/types.ts';
 import type { VocabCap } from '../corpus/vocabulary.ts';
 import { writeFileAtomic, type StageFs } from './fsio.ts';
+import type { ModelHeader } from '../estimate/model-source.ts';
+import type { ResultFileRecord } from '../estimate/partition-estimate.ts';
 
 export const MANIFEST_FILE = 'job.json';
 export const MANIFEST_VERSION = 1;
@@ -100,6 +102,21 @@ export interface ContinuationStage {
   elapsedMs?: number;
 }
 
+/** The streaming estimate (src/estimate/stream-stage.ts): result files per partition, resumable. */
+export interface EstimateStage {
+  status: StageStatus;
+  /** What the results were estimated from and with: method, options and the sha256 of stats.json.
+   *  Another key makes the results stale: they are removed and estimated again. */
+  key: string;
+  /** The order-1 results (probabilities of every id 0..V), once written. */
+  unigrams?: ResultFileRecord;
+  /** Partitions whose result files are durable, with those files and what their rule counted. */
+  partitionsDone: Array<{ partition: number; files: ResultFileRecord[]; katz: unknown }>;
+  /** Everything of the model but its rows and vocabulary, once done. */
+  header?: Omit<ModelHeader, 'vocabulary'>;
+  elapsedMs?: number;
+}
+
 export interface JobManifest {
   format: 'quern-job';
   version: number;
@@ -107,7 +124,7 @@ export interface JobManifest {
   config: JobConfig;
   inputs: InputFile[];
   chunks: Chunk[];
-  stages: { vocab: VocabStage; remap?: RemapStage; count: CountStage; merge: MergeStage; continuation: ContinuationStage };
+  stages: { vocab: VocabStage; remap?: RemapStage; count: CountStage; merge: MergeStage; continuation: ContinuationStage; estimate?: EstimateStage };
 }
 
 export function manifestPath(jobDir: string): string {

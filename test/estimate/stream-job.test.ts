@@ -1,0 +1,142 @@
+/**
+ * The streaming estimate as a job stage: an interrupted estimate (I/O fault, SIGKILL) resumes
+ * without redoing finished partitions and gives the same model; other options make the results
+ * stale; a partition that does not fit --memory is refused with the partitions that would fit; a
+ * damaged result file is reported by name.
+ */
+import { spawn } from 'node:child_process';
+import { cpSync, readFileSync, statSync, writeFileSync } from 'node:fs';
+import * as path from 'node:path';
+import { beforeAll, describe, expect, test } from 'vitest';
+import { QuernError } from '../../src/errors.ts';
+import { estimate } from '../../src/estimate/estimate.ts';
+import { loadCountTables } from '../../src/estimate/from-store.ts';
+import { materialiseModel, openJobModelSource } from '../../src/estimate/job-model-source.ts';
+import { estimateJobStreaming } from '../../src/estimate/stream-stage.ts';
+import { readManifest, type EstimateStage } from '../../src/job/manifest.ts';
+import { FAULT_ENV } from '../../src/job/fsio.ts';
+import { REPO, runQuern, tempDir } from '../support/cli.ts';
+import { countJob, expectSameModel } from './stream-support.ts';
+
+let counted = '';
+beforeAll(async () => {
+  counted = path.join(tempDir(), 'job');
+  await countJob(counted, [path.join(REPO, 'sample-data/logbook')], 4, { partitions: 16 });
+}, 60_000);
+
+/** A fresh copy of the counted job. */
+function copyJob(): string {
+  const job = path.join(tempDir(), 'job');
+  cpSync(counted, job, { recursive: true });
+  return job;
+}
+
+async function stageOf(job: string): Promise<EstimateStage | undefined> {
+  return (await readManifest(job))!.stages.estimate;
+}
+
+/** Expects the job's finished estimate to be the in-memory modified Kneser-Ney model. */
+async function expectInMemoryModel(job: string): Promise<void> {
+  const streamed = await materialiseModel(await openJobModelSource(job));
+  expectSameModel(streamed, estimate(await loadCountTables(job, 1 << 30), { fallback: true }));
+}
+
+/** mtime of every recorded result file of the partitions done. */
+function resultTimes(job: string, stage: EstimateStage): Map<string, number> {
+  return new Map(stage.partitionsDone.flatMap((p) => p.files.map((f) => [f.file, statSync(path.join(job, f.file)).mtimeMs] as [string, number])));
+}
+
+const ESTIMATE_ARGS = ['--fallback', '--quiet', '--workers', '1', '--memory', '256MiB'];
+
+describe('resuming an interrupted estimate', () => {
+  test.each([40, 120, 400])('an I/O fault after %i operations per thread stops it; the re-run finishes the remaining partitions only', async (operations) => {
+    const job = copyJob();
+    const out = path.join(job, 'model.qm');
+    const failed = await runQuern(['estimate', job, '--out', out, ...ESTIMATE_ARGS], { env: { [FAULT_ENV]: JSON.stringify({ failAfterOperations: operations, mode: 'always', errno: 'EIO' }) } });
+    expect(failed.status).not.toBe(0);
+    expect(failed.stderr).toMatch(/EIO/);
+    const before = await stageOf(job);
+    expect(before?.status).not.toBe('done');
+    const times = before === undefined ? new Map() : resultTimes(job, before);
+    const resumed = await runQuern(['estimate', job, '--out', out, ...ESTIMATE_ARGS]);
+    expect(resumed.stderr).toBe('');
+    expect(resumed.status).toBe(0);
+    const after = (await stageOf(job))!;
+    expect(after.status).toBe('done');
+    expect(after.partitionsDone.map((p) => p.partition)).toEqual(Array.from({ length: 16 }, (_, p) => p));
+    // Partitions finished before the fault were not estimated again: same files, untouched.
+    for (const [file, mtime] of times) expect(statSync(path.join(job, file)).mtimeMs).toBe(mtime);
+    await expectInMemoryModel(job);
+  }, 60_000);
+
+  test('SIGKILL in the middle; the re-run gives the same model', async () => {
+    const job = copyJob();
+    const out = path.join(job, 'model.qm');
+    const child = spawn(process.execPath, [path.join(REPO, 'bin/quern.js'), 'estimate', job, '--out', out, ...ESTIMATE_ARGS], { stdio: 'ignore' });
+    const exited = new Promise<void>((resolve) => child.on('exit', () => resolve()));
+    let partitionsSeen = 0;
+    for (let i = 0; i < 3000 && partitionsSeen < 2; i++) {
+      await new Promise((resolve) => setTimeout(resolve, 5));
+      try {
+        const stage = JSON.parse(readFileSync(path.join(job, 'job.json'), 'utf8')).stages.estimate as EstimateStage | undefined;
+        partitionsSeen = stage?.partitionsDone.length ?? 0;
+      } catch {
+        // job.json is replaced by rename: a read never sees half of it, but may race the first write.
+      }
+    }
+    child.kill('SIGKILL');
+    await exited;
+    const before = (await stageOf(job))!;
+    expect(before.status).not.toBe('done');
+    expect(before.partitionsDone.length).toBeGreaterThanOrEqual(2);
+    const times = resultTimes(job, before);
+    const resumed = await runQuern(['estimate', job, '--out', out, ...ESTIMATE_ARGS]);
+    expect(resumed.status).toBe(0);
+    for (const [file, mtime] of times) expect(statSync(path.join(job, file)).mtimeMs).toBe(mtime);
+    await expectInMemoryModel(job);
+  }, 60_000);
+});
+
+describe('the estimate stage', () => {
+  test('another method makes the earlier results stale: they are removed, and the model is the new method\'s', async () => {
+    const job = copyJob();
+    await estimateJobStreaming({ jobDir: job, request: { method: 'witten-bell' }, memoryBytes: 256 << 20, workers: 2 });
+    const first = (await stageOf(job))!;
+    const { source } = await estimateJobStreaming({ jobDir: job, request: { method: 'katz', fallback: true }, memoryBytes: 256 << 20, workers: 2 });
+    const second = (await stageOf(job))!;
+    expect(second.key).not.toBe(first.key);
+    expect(JSON.parse(second.key).method).toBe('katz');
+    expectSameModel(await materialiseModel(source), estimate(await loadCountTables(job, 1 << 30), { method: 'katz', fallback: true }));
+  }, 60_000);
+
+  test('a partition that does not fit --memory is refused, naming the partitions that would fit', async () => {
+    const job = copyJob();
+    const error = await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 200_000, workers: 2 }).catch((e: unknown) => e);
+    expect(error).toBeInstanceOf(QuernError);
+    expect((error as QuernError).code).toBe('limit');
+    expect((error as QuernError).message).toMatch(/partition \d+ of .* needs about \d+ bytes to estimate, more than --memory 200000.*--partitions (\d+)/);
+    const suggested = Number(/--partitions (\d+)/.exec((error as QuernError).message)![1]);
+    expect(suggested).toBeGreaterThan(16);
+    const cli = await runQuern(['estimate', job, '--memory', '200000', '--quiet', '--fallback']);
+    expect(cli.status).not.toBe(0);
+    expect(cli.stderr).toMatch(/--partitions/);
+  }, 60_000);
+
+  test('a damaged result file is reported with its name, and --restart estimates again', async () => {
+    const job = copyJob();
+    await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 256 << 20, workers: 2 });
+    const stage = (await stageOf(job))!;
+    const record = stage.partitionsDone[3].files.find((f) => f.kind === 'probabilities' && f.order === 3)!;
+    const file = path.join(job, record.file);
+    const bytes = readFileSync(file);
+    bytes[200] ^= 0x40;
+    writeFileSync(file, bytes);
+    const error = await materialiseModel(await openJobModelSource(job)).catch((e: unknown) => e);
+    expect(error).toBeInstanceOf(QuernError);
+    expect((error as QuernError).code).toBe('corrupt');
+    expect((error as QuernError).message).toContain(file);
+    const restarted = await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 256 << 20, workers: 2, restart: true });
+    expect(restarted.partitionsEstimated).toBe(16);
+    await expectInMemoryModel(job);
+  }, 60_000);
+});

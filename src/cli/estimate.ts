@@ -20,7 +20,6 @@ import type { ProgressSink } from '../job/context.ts';
 import { makeProgress } from './progress.ts';
 import { intInRange } from './options.ts';
 import { estimate, type EstimateRequest } from '../estimate/estimate.ts';
-import type { LanguageModel } from '../estimate/model.ts';
 import { packModelSource, type PackOptions } from '../pack/writer.ts';
 import { modelSource, type ModelSource } from '../estimate/model-source.ts';
 import { formatPackSummary } from './pack.ts';

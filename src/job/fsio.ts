@@ -96,14 +96,9 @@ export async function writeFileThrough(fs: StageFs, filePath: string, write: (fi
     await fs.unlink(tmpPath).catch(() => undefined);
     throw error;
   }
-  try {
-    await fs.syncDir(path.dirname(filePath));
-  } catch (error) {
-    // The rename may not survive a crash: report the failure with nothing at the final path (best
-    // effort: a file system failing for good may keep the complete file there).
-    await fs.unlink(filePath).catch(() => undefined);
-    throw error;
-  }
+  // A failure here leaves the complete new file in place (the previous one is gone already): the
+  // caller hears of it and does not record the file as durable.
+  await fs.syncDir(path.dirname(filePath));
 }
 
 /** Writes `data` to `filePath` atomically (writeFileThrough). */

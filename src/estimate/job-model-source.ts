@@ -4,8 +4,8 @@
  *
  * Order 1 is the whole-job unigram file joined with the back-off weights of the contexts of one
  * word, which the partitions wrote (V rows: gathered densely). Order m ≥ 2 is a k-way merge of the
- * partitions' sorted probability files into global ascending order, joined with a k-way merge of
- * their back-off files of order m (every back-off row is a row of the model; a row without one has
+ * partitions' sorted probability files into global ascending order (the count store's loser-tree
+ * merge, batch by batch), joined with a k-way merge of their back-off files of order m (every back-off row is a row of the model; a row without one has
  * weight 1, log10 0). Memory: one block per file and one output batch.
  */
 import * as path from 'node:path';
@@ -18,99 +18,21 @@ import { vocabularySize } from './counts.ts';
 import { checkModel, type LanguageModel, type ModelOrder } from './model.ts';
 import type { ModelRowBatch, ModelSource } from './model-source.ts';
 import { resultFilePath, type ResultFileRecord } from './partition-estimate.ts';
-import { RESULT_WHOLE_JOB, ResultReader, type ResultBatch, type ResultKind } from './result-file.ts';
+import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
+import type { RunBatch } from '../count/run-file.ts';
+import { RESULT_WHOLE_JOB, ResultReader, type ResultKind } from './result-file.ts';
 
-/** Merges sorted result files of one order into ascending order (their rows are disjoint). */
-class ResultMerger {
-  private readonly batches: Array<ResultBatch | null>;
-  private readonly indexes: Int32Array;
-  /** Binary heap of source indexes, smallest current row first. */
-  private readonly heap: Int32Array;
-  private heapSize = 0;
-
-  private constructor(private readonly readers: ResultReader[], readonly order: number) {
-    this.batches = new Array<ResultBatch | null>(readers.length).fill(null);
-    this.indexes = new Int32Array(readers.length);
-    this.heap = new Int32Array(readers.length);
-  }
-
-  static async open(readers: ResultReader[], order: number): Promise<ResultMerger> {
-    const merger = new ResultMerger(readers, order);
-    for (let s = 0; s < readers.length; s++) {
-      merger.batches[s] = await readers[s].nextBatch();
-      if (merger.batches[s] !== null) merger.push(s);
-    }
-    return merger;
-  }
-
-  private less(a: number, b: number): boolean {
-    const order = this.order;
-    const x = this.batches[a]!.ids;
-    const y = this.batches[b]!.ids;
-    const xa = this.indexes[a] * order;
-    const yb = this.indexes[b] * order;
-    for (let j = 0; j < order; j++) {
-      if (x[xa + j] !== y[yb + j]) return x[xa + j] < y[yb + j];
-    }
-    assert(false, `the partitions' rows of order ${order} are disjoint`);
-  }
-
-  private push(s: number): void {
-    const heap = this.heap;
-    let i = this.heapSize++;
-    heap[i] = s;
-    while (i > 0) {
-      const parent = (i - 1) >> 1;
-      if (!this.less(heap[i], heap[parent])) break;
-      [heap[i], heap[parent]] = [heap[parent], heap[i]];
-      i = parent;
-    }
-  }
-
-  private siftDown(): void {
-    const heap = this.heap;
-    const size = this.heapSize;
-    let i = 0;
-    for (;;) {
-      const left = 2 * i + 1;
-      if (left >= size) break;
-      let child = left;
-      if (left + 1 < size && this.less(heap[left + 1], heap[left])) child = left + 1;
-      if (!this.less(heap[child], heap[i])) break;
-      [heap[i], heap[child]] = [heap[child], heap[i]];
-      i = child;
-    }
-  }
-
-  /** True when rows are left. */
-  get more(): boolean {
-    return this.heapSize > 0;
-  }
-
-  /** The smallest current row: its batch and row index (valid until `advance`). */
-  peek(): { batch: ResultBatch; row: number } {
-    const s = this.heap[0];
-    return { batch: this.batches[s]!, row: this.indexes[s] };
-  }
-
-  /** Moves past the smallest current row. */
-  async advance(): Promise<void> {
-    const s = this.heap[0];
-    if (++this.indexes[s] === this.batches[s]!.rows) {
-      this.batches[s] = await this.readers[s].nextBatch();
-      this.indexes[s] = 0;
-      if (this.batches[s] === null) {
-        this.heap[0] = this.heap[--this.heapSize];
-        if (this.heapSize > 0) this.siftDown();
-        return;
-      }
-    }
-    this.siftDown();
-  }
-
-  async close(): Promise<void> {
-    await Promise.all(this.readers.map((r) => r.close()));
-  }
+/** A result file as a source of the batch merge (count/run-merge.ts): its values ride as "counts". */
+function resultSource(reader: ResultReader, order: number): BatchSource {
+  return {
+    name: reader.filePath,
+    order,
+    async nextBatch(): Promise<RunBatch | null> {
+      const batch = await reader.nextBatch();
+      return batch === null ? null : { keys: batch.ids, counts: batch.values, recordCount: batch.rows };
+    },
+    close: () => reader.close(),
+  };
 }
 
 function compareAt(a: Uint32Array, aOffset: number, b: Uint32Array, bOffset: number, order: number): number {
@@ -164,43 +86,51 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
     }
   }
 
+  /**
+   * Order m ≥ 2: the partitions' probability files merged into ascending order by the loser-tree
+   * merge of the count store (batch by batch, no per-row await), joined with their merged back-off
+   * files. The partitions' rows are disjoint, so the merge never adds two values; the row total is
+   * checked against the files' records all the same.
+   */
   async function* orderRows(order: number): AsyncIterable<ModelRowBatch> {
-    const probs = await ResultMerger.open(await Promise.all(byOrder('probabilities', order).map(open)), order);
-    const backOffs = await ResultMerger.open(await Promise.all(byOrder('back-off', order).map(open)), order);
+    const corrupt = (what: string): QuernError => new QuernError('corrupt', `${jobDir}: ${what}; re-run quern estimate with --restart`);
+    const probFiles = byOrder('probabilities', order);
+    const backOffFiles = byOrder('back-off', order);
+    const probs = mergeRuns((await Promise.all(probFiles.map(open))).map((r) => resultSource(r, order)), order);
+    const backOffs = mergeRuns((await Promise.all(backOffFiles.map(open))).map((r) => resultSource(r, order)), order);
+    let backOff: RunBatch | null = null;
+    let b = 0;
+    let rowsOut = 0;
+    let backOffRows = 0;
     try {
-      let ids = new Uint32Array(ESTIMATE_SOURCE_BATCH_ROWS * order);
-      let log10Prob = new Float64Array(ESTIMATE_SOURCE_BATCH_ROWS);
-      let log10BackOff = new Float64Array(ESTIMATE_SOURCE_BATCH_ROWS);
-      let rows = 0;
-      while (probs.more) {
-        const { batch, row } = probs.peek();
-        ids.set(batch.ids.subarray(row * order, (row + 1) * order), rows * order);
-        log10Prob[rows] = batch.values[row];
-        log10BackOff[rows] = 0;
-        if (backOffs.more) {
-          const head = backOffs.peek();
-          const c = compareAt(head.batch.ids, head.row * order, batch.ids, row * order, order);
-          if (c < 0) throw new QuernError('corrupt', `${jobDir}: a back-off weight of order ${order} belongs to no row of the model; re-run quern estimate with --restart`);
+      for await (const batch of probs) {
+        const { keys, counts, recordCount } = batch;
+        const log10BackOff = new Float64Array(recordCount);
+        for (let r = 0; r < recordCount; r++) {
+          if (backOff === null || b === backOff.recordCount) {
+            const next = await backOffs.next();
+            backOff = next.done ? null : next.value;
+            b = 0;
+          }
+          if (backOff === null) break;
+          const c = compareAt(backOff.keys, b * order, keys, r * order, order);
+          if (c < 0) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
           if (c === 0) {
-            log10BackOff[rows] = head.batch.values[head.row];
-            await backOffs.advance();
+            log10BackOff[r] = backOff.counts[b++];
+            backOffRows++;
           }
         }
-        rows++;
-        await probs.advance();
-        if (rows === ESTIMATE_SOURCE_BATCH_ROWS) {
-          yield { rows, ids, log10Prob, log10BackOff };
-          ids = new Uint32Array(ESTIMATE_SOURCE_BATCH_ROWS * order);
-          log10Prob = new Float64Array(ESTIMATE_SOURCE_BATCH_ROWS);
-          log10BackOff = new Float64Array(ESTIMATE_SOURCE_BATCH_ROWS);
-          rows = 0;
-        }
+        rowsOut += recordCount;
+        yield { rows: recordCount, ids: keys.subarray(0, recordCount * order), log10Prob: counts.subarray(0, recordCount), log10BackOff };
       }
-      if (backOffs.more) throw new QuernError('corrupt', `${jobDir}: a back-off weight of order ${order} belongs to no row of the model; re-run quern estimate with --restart`);
-      if (rows > 0) yield { rows, ids: ids.subarray(0, rows * order), log10Prob: log10Prob.subarray(0, rows), log10BackOff: log10BackOff.subarray(0, rows) };
+      if (backOff !== null && b < backOff.recordCount) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
+      if (!(await backOffs.next()).done) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
+      const probRows = probFiles.reduce((sum, f) => sum + f.rows, 0);
+      const weightRows = backOffFiles.reduce((sum, f) => sum + f.rows, 0);
+      if (rowsOut !== probRows || backOffRows !== weightRows) throw corrupt(`order ${order}: the partitions' results overlap (${rowsOut} of ${probRows} rows, ${backOffRows} of ${weightRows} back-off weights distinct)`);
     } finally {
-      await probs.close();
-      await backOffs.close();
+      await probs.return(undefined);
+      await backOffs.return(undefined);
     }
   }
 

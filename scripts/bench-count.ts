@@ -43,7 +43,7 @@ import bytesIec from 'bytes-iec';
 import { spawnSync } from 'node:child_process';
 import { createReadStream, existsSync, mkdirSync, readFileSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
-import { join, relative, resolve } from 'node:path';
+import { basename, join, relative, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
 import { rssBoundBytes } from '../src/count/stage.ts';
@@ -263,7 +263,8 @@ function checkMeasured(what: string, measured: Measurement): void {
 }
 
 async function runQuern(corpus: Corpus, order: number, options: Options): Promise<QuernResult> {
-  const jobDir = join(WORK_DIR, `${corpus.shape}-order${order}-quern-job`);
+  // Named by the corpus directory too, so that a kept job of one corpus size survives a run on another.
+  const jobDir = join(WORK_DIR, `${basename(corpus.dir)}-order${order}-quern-job`);
   rmSync(jobDir, { recursive: true, force: true }); // a fresh job every time
   const args = [
     QUERN_BIN, 'count', ...corpus.files, '--job', jobDir, '--order', String(order),
@@ -322,7 +323,7 @@ function mergeFigures(summary: { distinct: number[]; storeBytes?: number; stageM
 }
 
 async function runPipeline(corpus: Corpus, order: number, options: Options): Promise<ToolResult> {
-  const outPath = join(WORK_DIR, `${corpus.shape}-order${order}-pipeline.uniq-c.txt`);
+  const outPath = join(WORK_DIR, `${basename(corpus.dir)}-order${order}-pipeline.uniq-c.txt`);
   const sortTmp = join(WORK_DIR, 'sort-tmp');
   rmSync(outPath, { force: true });
   rmSync(sortTmp, { recursive: true, force: true });

@@ -20,16 +20,7 @@ import { readManifest } from '../src/job/manifest.ts';
 import { suffixCountsBySort } from '../src/merge/local-continuation.ts';
 import { PartitionStore, partitionStoreDir } from '../src/merge/store.ts';
 import type { MergeProgress } from '../src/merge/merge-partition.ts';
-
-function compareSuffix(keys: Uint32Array, base: number, table: Uint32Array, t: number, order: number): number {
-  const tb = t * order;
-  for (let k = 0; k < order; k++) {
-    const a = keys[base + k];
-    const b = table[tb + k];
-    if (a !== b) return a < b ? -1 : 1;
-  }
-  return 0;
-}
+import { compareRows } from '../src/count/block-codec.ts';
 
 /** The baseline: binary search within the rows sharing the suffix's first word. */
 function countByBinarySearch(table: Uint32Array, rows: number, order: number, higher: Iterable<{ keys: Uint32Array; recordCount: number }>): Uint32Array {
@@ -52,10 +43,10 @@ function countByBinarySearch(table: Uint32Array, rows: number, order: number, hi
       if (keys[base] === previousFirst && previousRow >= lo) lo = previousRow + 1;
       while (lo < hi) {
         const mid = (lo + hi) >>> 1;
-        if (compareSuffix(keys, base + 1, table, mid, order) > 0) lo = mid + 1;
+        if (compareRows(keys, base + 1, table, mid * order, order) > 0) lo = mid + 1;
         else hi = mid;
       }
-      if (lo === rows || compareSuffix(keys, base + 1, table, lo, order) !== 0) throw new Error('suffix not found');
+      if (lo === rows || compareRows(keys, base + 1, table, lo * order, order) !== 0) throw new Error('suffix not found');
       counts[lo]++;
       previousFirst = keys[base];
       previousRow = lo;

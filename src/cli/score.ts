@@ -12,26 +12,15 @@ import { makeTokenizer } from '../corpus/tokenize.ts';
 import type { NormalizeOptions } from '../corpus/types.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
 import { corpusOptions } from './count.ts';
+import { withPerplexities, type PerplexityResult } from '../score/perplexity.ts';
 
-interface Totals {
+/** One file's (or the total's) sums and perplexities. */
+interface Totals extends PerplexityResult {
   file: string;
-  sentences: number;
-  tokens: number;
-  oov: number;
-  log10Prob: number;
-  log10ProbWithUnk: number;
-  perplexity: number;
-  perplexityWithUnk: number;
 }
 
 function totals(file: string): Totals {
   return { file, sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0, perplexity: NaN, perplexityWithUnk: NaN };
-}
-
-function finish(t: Totals): Totals {
-  t.perplexity = 10 ** (-t.log10Prob / (t.tokens - t.oov));
-  t.perplexityWithUnk = 10 ** (-t.log10ProbWithUnk / t.tokens);
-  return t;
 }
 
 /** Scores every sentence of the inputs; `onLine` receives per-sentence records when asked. */
@@ -66,9 +55,9 @@ export async function scoreInputs(
       });
     });
     for (const k of ['sentences', 'tokens', 'oov', 'log10Prob', 'log10ProbWithUnk'] as const) total[k] += t[k];
-    files.push(finish(t));
+    files.push(withPerplexities(t));
   }
-  return { files, total: finish(total) };
+  return { files, total: withPerplexities(total) };
 }
 
 export const scoreCommand: CommandModule = {

@@ -9,6 +9,7 @@ import pLimit from 'p-limit';
 import { glob, isDynamicPattern } from 'tinyglobby';
 import { ioError, QuernError } from '../errors.ts';
 import { DISCOVER_FILES_OPEN_MAX, FINGERPRINT_EDGE_BYTES } from '../limits.ts';
+import { readFullyAt } from '../job/file-read.ts';
 import type { InputFile, InputFormat } from './types.ts';
 
 export interface DiscoverOptions {
@@ -122,8 +123,14 @@ async function describeInput(filePath: string, format: InputFormat): Promise<Inp
     const stat = await handle.stat();
     const bytes = stat.size;
     const edgeBytes = Math.min(bytes, FINGERPRINT_EDGE_BYTES);
-    const head = await readExactly(handle, filePath, 0, edgeBytes);
-    const tail = bytes <= FINGERPRINT_EDGE_BYTES ? head : await readExactly(handle, filePath, bytes - edgeBytes, edgeBytes);
+    const shrank = (): QuernError => new QuernError('input', `${filePath} shrank while it was being read (expected ${bytes} bytes)`);
+    const head = Buffer.alloc(edgeBytes);
+    await readFullyAt(handle, filePath, head, 0, shrank);
+    let tail = head;
+    if (bytes > FINGERPRINT_EDGE_BYTES) {
+      tail = Buffer.alloc(edgeBytes);
+      await readFullyAt(handle, filePath, tail, bytes - edgeBytes, shrank);
+    }
     return {
       path: filePath,
       bytes,
@@ -149,15 +156,3 @@ export function fingerprintOf(bytes: number, head: Uint8Array, tail: Uint8Array)
   return createHash('sha256').update(size).update(head).update(tail).digest('hex');
 }
 
-async function readExactly(handle: fsp.FileHandle, filePath: string, position: number, length: number): Promise<Buffer> {
-  const buffer = Buffer.alloc(length);
-  let filled = 0;
-  while (filled < length) {
-    const { bytesRead } = await handle.read(buffer, filled, length - filled, position + filled);
-    if (bytesRead === 0) {
-      throw new QuernError('input', `${filePath} shrank while it was being read (expected ${length} bytes at offset ${position})`);
-    }
-    filled += bytesRead;
-  }
-  return buffer;
-}

@@ -16,6 +16,7 @@ import * as path from 'node:path';
 import { crc32 } from 'node:zlib';
 import { assert, ioError, QuernError } from '../errors.ts';
 import { writeFileThrough, type StageFs } from '../job/fsio.ts';
+import { openForReading, readFullyAt } from '../job/file-read.ts';
 import {
   BLOCK_HEADER_FIXED_BYTES, blockBytesMax, blockHeaderBytes, compareRows, DecodeFailure, decodeRecords,
   encodeBlock, RECORD_BYTES_MIN, recordBytesMax,
@@ -263,26 +264,9 @@ function corrupt(filePath: string, what: string): QuernError {
   return new QuernError('corrupt', `corrupt run file ${filePath}: ${what}`, { location: { file: filePath } });
 }
 
-/** Reads exactly `length` bytes at `position` into `buf[offset..]`, or fails as 'corrupt'. */
-async function readExactly(
-  handle: fsp.FileHandle,
-  filePath: string,
-  buf: Buffer,
-  offset: number,
-  length: number,
-  position: number,
-): Promise<void> {
-  let done = 0;
-  while (done < length) {
-    let bytesRead: number;
-    try {
-      ({ bytesRead } = await handle.read(buf, offset + done, length - done, position + done));
-    } catch (cause) {
-      throw ioError('read', filePath, cause);
-    }
-    if (bytesRead === 0) throw corrupt(filePath, `file ends at byte ${position + done}, expected ${length - done} more bytes (did it shrink?)`);
-    done += bytesRead;
-  }
+/** The error of a run file that ends before the bytes its structure promises. */
+function endsEarly(filePath: string): (endedAt: number, missing: number) => QuernError {
+  return (endedAt, missing) => corrupt(filePath, `file ends at byte ${endedAt}, expected ${missing} more bytes (did it shrink?)`);
 }
 
 /** Parses and validates a header; returns the info without filePath-independent checks on size. */
@@ -395,27 +379,16 @@ export class RunReader {
 
   /** Opens `filePath` and validates its header and trailer. Errors: 'io' (cannot open or read), 'corrupt'. */
   static async open(filePath: string): Promise<RunReader> {
-    let handle: fsp.FileHandle;
+    const { handle, bytes: fileBytes } = await openForReading(filePath);
     try {
-      handle = await fsp.open(filePath, 'r');
-    } catch (cause) {
-      throw ioError('open', filePath, cause);
-    }
-    try {
-      let fileBytes: number;
-      try {
-        fileBytes = (await handle.stat()).size;
-      } catch (cause) {
-        throw ioError('stat', filePath, cause);
-      }
       if (fileBytes < RUN_HEADER_BYTES + RUN_TRAILER_BYTES) {
         throw corrupt(filePath, `file is ${fileBytes} bytes, shorter than header and trailer (${RUN_HEADER_BYTES + RUN_TRAILER_BYTES} bytes)`);
       }
       const head = Buffer.alloc(RUN_HEADER_BYTES);
-      await readExactly(handle, filePath, head, 0, RUN_HEADER_BYTES, 0);
+      await readFullyAt(handle, filePath, head, 0, endsEarly(filePath));
       const info = parseHeader(filePath, head, fileBytes);
       const tail = Buffer.alloc(RUN_TRAILER_BYTES);
-      await readExactly(handle, filePath, tail, 0, RUN_TRAILER_BYTES, fileBytes - RUN_TRAILER_BYTES);
+      await readFullyAt(handle, filePath, tail, fileBytes - RUN_TRAILER_BYTES, endsEarly(filePath));
       checkTrailer(filePath, tail, info, head.readUInt32LE(H_CRC));
       return new RunReader(handle, info);
     } catch (error) {

@@ -21,6 +21,7 @@ import { resultFilePath, type ResultFileRecord } from './partition-estimate.ts';
 import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
 import type { RunBatch } from '../count/run-file.ts';
 import { RESULT_WHOLE_JOB, ResultReader, type ResultKind } from './result-file.ts';
+import { compareRows } from '../count/block-codec.ts';
 
 /** A result file as a source of the batch merge (count/run-merge.ts): its values ride as "counts". */
 function resultSource(reader: ResultReader, order: number): BatchSource {
@@ -33,13 +34,6 @@ function resultSource(reader: ResultReader, order: number): BatchSource {
     },
     close: () => reader.close(),
   };
-}
-
-function compareAt(a: Uint32Array, aOffset: number, b: Uint32Array, bOffset: number, order: number): number {
-  for (let j = 0; j < order; j++) {
-    if (a[aOffset + j] !== b[bOffset + j]) return a[aOffset + j] < b[bOffset + j] ? -1 : 1;
-  }
-  return 0;
 }
 
 function finishedStage(jobDir: string, stage: EstimateStage | undefined): Required<Pick<EstimateStage, 'header' | 'unigrams'>> & EstimateStage {
@@ -113,7 +107,7 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
             b = 0;
           }
           if (backOff === null) break;
-          const c = compareAt(backOff.keys, b * order, keys, r * order, order);
+          const c = compareRows(backOff.keys, b * order, keys, r * order, order);
           if (c < 0) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
           if (c === 0) {
             log10BackOff[r] = backOff.counts[b++];
@@ -171,8 +165,8 @@ export async function materialiseModel(source: ModelSource): Promise<LanguageMod
       const shorterRows = shorter.log10Prob.length;
       let context = 0;
       for (let row = 0; row < total; row++) {
-        while (context < shorterRows && compareAt(shorter.ids, context * (order - 1), ids, row * order, order - 1) < 0) context++;
-        if (!(context < shorterRows && compareAt(shorter.ids, context * (order - 1), ids, row * order, order - 1) === 0)) {
+        while (context < shorterRows && compareRows(shorter.ids, context * (order - 1), ids, row * order, order - 1) < 0) context++;
+        if (!(context < shorterRows && compareRows(shorter.ids, context * (order - 1), ids, row * order, order - 1) === 0)) {
           throw new QuernError('corrupt', `the context of a row of order ${order} is not a row of order ${order - 1}`);
         }
         contextRow[row] = context;

@@ -27,6 +27,7 @@ import { ngramHash } from '../count/hash.ts';
 import type { KatzTallies } from './katz.ts';
 import { planMethod, type MethodPlan, type OrderCountOfCounts, type PlannedRequest } from './method-plan.ts';
 import { ResultWriter, type ResultKind } from './result-file.ts';
+import { compareRows } from '../count/block-codec.ts';
 
 /** Where the streaming estimate keeps its results, relative to the job directory. */
 export const ESTIMATE_DIR = 'estimate';
@@ -337,7 +338,7 @@ async function estimateOrder(
         for (let j = 0; j < batch.recordCount; j++) {
           let value = 0;
           if (contBatch !== null) {
-            const c = compareKey(contBatch.keys, contIndex * m, batch.keys, j * m, m);
+            const c = compareRows(contBatch.keys, contIndex * m, batch.keys, j * m, m);
             if (c < 0) throw corruptContinuation(store, m);
             if (c === 0) {
               value = contBatch.counts[contIndex++];
@@ -370,15 +371,6 @@ async function estimateOrder(
   }
 }
 
-export function compareKey(a: Uint32Array, aOffset: number, b: Uint32Array, bOffset: number, order: number): number {
-  for (let j = 0; j < order; j++) {
-    const x = a[aOffset + j];
-    const y = b[bOffset + j];
-    if (x !== y) return x < y ? -1 : 1;
-  }
-  return 0;
-}
-
 /**
  * A kept n-gram whose suffix is not among the partition's kept n-grams of the order below: with
  * cutoffs that do not decrease (checked) this only happens when the store was partitioned another
@@ -409,7 +401,7 @@ export class ContextIndex {
     const length = table.order - 1;
     this.length = length;
     const ids = table.ids;
-    const differs = (row: number): boolean => row === 0 || compareKey(ids, (row - 1) * stride, ids, row * stride, length) !== 0;
+    const differs = (row: number): boolean => row === 0 || compareRows(ids, (row - 1) * stride, ids, row * stride, length) !== 0;
     let contexts = 0;
     for (let row = 0; row < table.rows; row++) if (differs(row)) contexts++;
     let slotCount = 16;
@@ -442,7 +434,7 @@ export class ContextIndex {
     for (;;) {
       const first = slots[2 * slot];
       if (first === -1) return -1;
-      if (compareKey(ids, first * stride, key, keyStart, length) === 0) return 2 * slot;
+      if (compareRows(ids, first * stride, key, keyStart, length) === 0) return 2 * slot;
       slot = (slot + 1) & this.mask;
     }
   }

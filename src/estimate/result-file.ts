@@ -15,8 +15,9 @@
  */
 import { promises as fsp } from 'node:fs';
 import { crc32 } from 'node:zlib';
-import { assert, ioError, QuernError } from '../errors.ts';
+import { assert, QuernError } from '../errors.ts';
 import type { WritableFile } from '../job/fsio.ts';
+import { openForReading, readFullyAt } from '../job/file-read.ts';
 import { ORDER_MAX, RESULT_BLOCK_ROWS } from '../limits.ts';
 import { putVarU32, readVarU32, DecodeFailure } from '../count/block-codec.ts';
 
@@ -194,19 +195,13 @@ export class ResultReader {
   }
 
   static async open(filePath: string, meta: ResultMeta, expected?: { rows: number; bytes: number }): Promise<ResultReader> {
-    let handle: fsp.FileHandle;
+    const { handle, bytes: size } = await openForReading(filePath);
     try {
-      handle = await fsp.open(filePath, 'r');
-    } catch (cause) {
-      throw ioError('open', filePath, cause);
-    }
-    try {
-      const size = (await handle.stat()).size;
       if (size < RESULT_HEADER_BYTES + RESULT_TRAILER_BYTES) throw corrupt(filePath, `${size} bytes is shorter than header and trailer`);
       const head = Buffer.alloc(RESULT_HEADER_BYTES);
       const tail = Buffer.alloc(RESULT_TRAILER_BYTES);
-      await readExactly(handle, filePath, head, 0);
-      await readExactly(handle, filePath, tail, size - RESULT_TRAILER_BYTES);
+      await readFullyAt(handle, filePath, head, 0, endsEarly(filePath));
+      await readFullyAt(handle, filePath, tail, size - RESULT_TRAILER_BYTES, endsEarly(filePath));
       if (!head.subarray(0, 6).equals(HEADER_MAGIC)) throw corrupt(filePath, 'bad magic: not an estimate result file');
       if (head.readUInt16LE(6) !== RESULT_FORMAT_VERSION) throw corrupt(filePath, `format version ${head.readUInt16LE(6)} is not ${RESULT_FORMAT_VERSION}`);
       if (crc32(head.subarray(0, 60)) !== head.readUInt32LE(60)) throw corrupt(filePath, 'header checksum mismatch');
@@ -246,7 +241,7 @@ export class ResultReader {
     const fixed = BLOCK_FIXED_BYTES + 4 * order;
     if (this.offset + fixed > this.payloadEnd) throw corrupt(this.filePath, `${where} runs into the trailer`);
     const head = Buffer.alloc(fixed);
-    await readExactly(handle, this.filePath, head, this.offset);
+    await readFullyAt(handle, this.filePath, head, this.offset, endsEarly(this.filePath));
     const rows = head.readUInt32LE(4);
     const idBytes = head.readUInt32LE(8);
     if (rows < 1 || rows > RESULT_BLOCK_ROWS || idBytes > (rows - 1) * (1 + 5 * order)) throw corrupt(this.filePath, `${where}: impossible sizes (${rows} rows, ${idBytes} id bytes)`);
@@ -254,7 +249,7 @@ export class ResultReader {
     if (this.offset + blockBytes > this.payloadEnd) throw corrupt(this.filePath, `${where}: ${blockBytes} bytes run into the trailer`);
     const block = Buffer.alloc(blockBytes);
     head.copy(block, 0);
-    await readExactly(handle, this.filePath, block.subarray(fixed), this.offset + fixed);
+    await readFullyAt(handle, this.filePath, block.subarray(fixed), this.offset + fixed, endsEarly(this.filePath));
     if (crc32(block.subarray(4)) !== block.readUInt32LE(0)) throw corrupt(this.filePath, `${where}: checksum mismatch`);
     const ids = new Uint32Array(rows * order);
     for (let j = 0; j < order; j++) ids[j] = block.readUInt32LE(BLOCK_FIXED_BYTES + 4 * j);
@@ -299,16 +294,7 @@ export class ResultReader {
   }
 }
 
-async function readExactly(handle: fsp.FileHandle, filePath: string, buf: Buffer, position: number): Promise<void> {
-  let done = 0;
-  while (done < buf.length) {
-    let bytesRead: number;
-    try {
-      ({ bytesRead } = await handle.read(buf, done, buf.length - done, position + done));
-    } catch (cause) {
-      throw ioError('read', filePath, cause);
-    }
-    if (bytesRead === 0) throw corrupt(filePath, `ends at byte ${position + done}, before the data its header describes`);
-    done += bytesRead;
-  }
+/** The error of a result file that ends before the data its header describes. */
+function endsEarly(filePath: string): (endedAt: number) => QuernError {
+  return (endedAt) => corrupt(filePath, `ends at byte ${endedAt}, before the data its header describes`);
 }

@@ -38,6 +38,7 @@ import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, modelRowCount, type LanguageModel, type MethodParameters, type ModelOrder } from '../estimate/model.ts';
 import { compareRow, searchRows } from '../estimate/rows.ts';
 import { writeFileThrough, type StageFs } from '../job/fsio.ts';
+import { openForReading } from '../job/file-read.ts';
 import { ARPA_LOG10_ZERO, ARPA_SIGNIFICANT_DIGITS, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
 
 /** What Quern records about a model beside its ARPA tables (the `quern-model` line). */
@@ -182,19 +183,8 @@ export interface ArpaReadOptions {
  * highest order, counts that disagree with `\data\`), 'io' when the file cannot be read.
  */
 export async function readArpa(filePath: string, options: ArpaReadOptions = {}): Promise<LanguageModel> {
-  let handle: fsp.FileHandle | undefined;
+  const { handle, bytes: fileBytes } = await openForReading(filePath);
   try {
-    try {
-      handle = await fsp.open(filePath, 'r');
-    } catch (cause) {
-      throw ioError('open', filePath, cause);
-    }
-    let fileBytes: number;
-    try {
-      fileBytes = (await handle.stat()).size;
-    } catch (cause) {
-      throw ioError('stat', filePath, cause);
-    }
     const parser = new ArpaParser(filePath, fileBytes);
     const decoder = new TextDecoder('utf-8', { fatal: true });
     const block = Buffer.allocUnsafe(READ_BLOCK_BYTES);
@@ -222,7 +212,7 @@ export async function readArpa(filePath: string, options: ArpaReadOptions = {}):
     if (carry.length > 0) parser.lines(decodeLines(decoder, carry, parser));
     return parser.finish(options.description);
   } finally {
-    await handle?.close().catch(() => undefined);
+    await handle.close().catch(() => undefined);
   }
 }
 

@@ -7,6 +7,7 @@
  */
 import { assert } from '../errors.ts';
 import type { ModelRowBatch, ModelSource } from '../estimate/model-source.ts';
+import { compareRows } from '../count/block-codec.ts';
 
 /** A position in the stream of rows of one order. */
 class RowCursor {
@@ -37,21 +38,6 @@ class RowCursor {
 }
 
 /**
- * −1, 0 or 1 as the first n ids of row `upperRow` of `upper` (rows of n + 1 ids) compare with row
- * `row` of `ids` (rows of n ids).
- */
-function comparePrefix(upper: Uint32Array, upperRow: number, ids: Uint32Array, row: number, n: number): number {
-  const a = upperRow * (n + 1);
-  const b = row * n;
-  for (let i = 0; i < n; i++) {
-    const x = upper[a + i];
-    const y = ids[b + i];
-    if (x !== y) return x < y ? -1 : 1;
-  }
-  return 0;
-}
-
-/**
  * For the rows of order n (< N) in order, batch by batch: how many rows of order n + 1 each one is
  * the context of. Asserts that every row of order n + 1 has its context among the rows of order n
  * (the estimators keep the prefixes of their n-grams) and that the counts sum to the rows of n + 1.
@@ -66,7 +52,7 @@ export async function* childCounts(source: ModelSource, n: number): AsyncGenerat
       for (;;) {
         if ((upper.batch === null || upper.index >= upper.batch.rows) && !(await upper.fill())) break;
         const current = upper.batch as ModelRowBatch;
-        const order = comparePrefix(current.ids, upper.index, batch.ids, row, n);
+        const order = compareRows(current.ids, upper.index * (n + 1), batch.ids, row * n, n);
         if (order > 0) break;
         if (order < 0) assert(false, `order ${n + 1}: an n-gram's context is a row of order ${n}, and rows ascend`);
         count++;

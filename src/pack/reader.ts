@@ -28,7 +28,8 @@
  */
 import { promises as fsp } from 'node:fs';
 import { crc32 } from 'node:zlib';
-import { QuernError, ioError } from '../errors.ts';
+import { QuernError } from '../errors.ts';
+import { openForReading, readFullyAt } from '../job/file-read.ts';
 import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
 import type { LanguageModel, MethodParameters, ModelOrder } from '../estimate/model.ts';
 import {
@@ -170,22 +171,11 @@ export interface OpenOptions {
  */
 export async function openModel(filePath: string, options: OpenOptions = {}): Promise<PackedModel> {
   requireLittleEndian();
-  let handle: fsp.FileHandle | undefined;
+  const { handle, bytes: fileBytes } = await openForReading(filePath);
   try {
-    try {
-      handle = await fsp.open(filePath, 'r');
-    } catch (cause) {
-      throw ioError('open', filePath, cause);
-    }
-    let fileBytes: number;
-    try {
-      fileBytes = (await handle.stat()).size;
-    } catch (cause) {
-      throw ioError('stat', filePath, cause);
-    }
     return await readModel(handle, filePath, fileBytes, options.checkStructure ?? true);
   } finally {
-    await handle?.close().catch(() => undefined);
+    await handle.close().catch(() => undefined);
   }
 }
 
@@ -196,17 +186,8 @@ function corrupt(file: string, where: string, what: string): QuernError {
 
 /** Reads exactly buffer.length bytes at `position` (in calls of at most PACK_READ_BYTES_MAX). */
 async function readAt(handle: fsp.FileHandle, file: string, where: string, buffer: Buffer, position: number): Promise<void> {
-  let done = 0;
-  while (done < buffer.length) {
-    let bytesRead: number;
-    try {
-      ({ bytesRead } = await handle.read(buffer, done, Math.min(buffer.length - done, PACK_READ_BYTES_MAX), position + done));
-    } catch (cause) {
-      throw ioError('read', file, cause);
-    }
-    if (bytesRead === 0) throw corrupt(file, where, `the file ends at byte ${position + done}, before the ${buffer.length} bytes at byte ${position} (did it change while being read?)`);
-    done += bytesRead;
-  }
+  await readFullyAt(handle, file, buffer, position, (endedAt) =>
+    corrupt(file, where, `the file ends at byte ${endedAt}, before the ${buffer.length} bytes at byte ${position} (did it change while being read?)`));
 }
 
 /** A u64 field that must be a safe integer. */

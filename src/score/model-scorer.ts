@@ -11,7 +11,7 @@
  */
 import { QuernError } from '../errors.ts';
 import type { PackedModel } from '../pack/reader.ts';
-import type { PerplexityResult } from './perplexity.ts';
+import { withPerplexities, type PerplexityResult } from './perplexity.ts';
 
 /** Perplexity of a packed model on `sentences`; refuses a model that is not normalised. */
 export function packedPerplexity(model: PackedModel, sentences: Iterable<readonly string[]>): PerplexityResult {
@@ -29,9 +29,5 @@ export function packedPerplexity(model: PackedModel, sentences: Iterable<readonl
     result.log10ProbWithUnk += score.log10ProbWithUnk;
   }
   if (result.sentences === 0) throw new QuernError('input', 'there is nothing to score: no sentence was given');
-  return {
-    ...result,
-    perplexity: 10 ** (-result.log10Prob / (result.tokens - result.oov)),
-    perplexityWithUnk: 10 ** (-result.log10ProbWithUnk / result.tokens),
-  };
+  return withPerplexities(result);
 }

@@ -32,6 +32,18 @@ export interface PerplexityResult {
   perplexityWithUnk: number;
 }
 
+/** The sums perplexity is computed from. */
+export type PerplexitySums = Omit<PerplexityResult, 'perplexity' | 'perplexityWithUnk'>;
+
+/** `sums` with both perplexities (DESIGN.md): without OOVs, and with them scored as `<unk>`. */
+export function withPerplexities<T extends PerplexitySums>(sums: T): T & Pick<PerplexityResult, 'perplexity' | 'perplexityWithUnk'> {
+  return {
+    ...sums,
+    perplexity: 10 ** (-sums.log10Prob / (sums.tokens - sums.oov)),
+    perplexityWithUnk: 10 ** (-sums.log10ProbWithUnk / sums.tokens),
+  };
+}
+
 /** Refuses a model whose numbers are not probabilities. */
 export function requireNormalised(model: LanguageModel, what: string): void {
   if (!model.normalised) {
@@ -65,9 +77,5 @@ export function perplexity(model: LanguageModel, sentences: Iterable<readonly st
     }
   }
   if (result.sentences === 0) throw new QuernError('input', 'there is nothing to score: no sentence was given');
-  return {
-    ...result,
-    perplexity: 10 ** (-result.log10Prob / (result.tokens - result.oov)),
-    perplexityWithUnk: 10 ** (-result.log10ProbWithUnk / result.tokens),
-  };
+  return withPerplexities(result);
 }

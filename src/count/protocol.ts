@@ -1,6 +1,6 @@
 /** Messages between the main thread and the count workers (structured-clone safe). */
 import type { Chunk, InputFile, NormalizeOptions, ReadStats } from '../corpus/types.ts';
-import type { RunRecord } from '../job/manifest.ts';
+import type { ChunkResult, RunRecord } from '../job/manifest.ts';
 import type { PartitionMergeTask } from '../merge/merge-partition.ts';
 import type { OrderTally } from '../merge/tally.ts';
 import type { PartitionEstimateResult, PartitionEstimateSettings } from '../estimate/partition-estimate.ts';
@@ -35,6 +35,8 @@ export interface WorkerInit {
 export type ToWorker =
   | { type: 'init'; init: WorkerInit }
   | { type: 'chunk'; chunk: Chunk }
+  /** Count phase: consecutive chunks counted as one unit of work (count/chunk-groups.ts). */
+  | { type: 'chunks'; chunks: Chunk[] }
   | { type: 'partition'; task: PartitionMergeTask }
   | { type: 'emit'; partition: number; localOrders: number[] }
   | { type: 'remap'; chunk: number; files: string[] }
@@ -68,15 +70,13 @@ export interface VocabChunkDone {
   tokens: number;
 }
 
-export interface CountChunkDone {
+/**
+ * A counted group of chunks: one result per chunk, in chunk order. The group's run files (and its
+ * budget spills) are recorded with its first chunk; the others have none of their own.
+ */
+export interface CountGroupDone {
   type: 'done';
-  chunk: number;
-  tokens: number;
-  /** Spills forced by the memory budget (the spill at the end of every chunk is not counted). */
-  spills: number;
-  /** N-gram occurrences counted per order (index 0 = order 1). */
-  occurrences: number[];
-  runs: RunRecord[];
+  results: ChunkResult[];
 }
 
 /** Sent once at 'finish' by a vocabulary worker: its word counts over all its chunks. */
@@ -105,4 +105,4 @@ export interface WorkerFailure {
   stack?: string;
 }
 
-export type FromWorker = VocabChunkDone | CountChunkDone | MergeDone | EmitDone | RemapDone | EstimateDone | VocabFinished | CountFinished | Progress | WorkerFailure;
+export type FromWorker = VocabChunkDone | CountGroupDone | MergeDone | EmitDone | RemapDone | EstimateDone | VocabFinished | CountFinished | Progress | WorkerFailure;

@@ -12,7 +12,8 @@ import { buildVocabulary, formatVocabulary, parseVocabulary, type Vocabulary } f
 import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
 import type { JobManifest } from '../job/manifest.ts';
-import type { CountChunkDone, VocabChunkDone, VocabFinished, WorkerInit } from './protocol.ts';
+import type { CountGroupDone, VocabChunkDone, VocabFinished, WorkerInit } from './protocol.ts';
+import { groupBytesTarget, groupChunks } from './chunk-groups.ts';
 import { RUNS_DIR } from './run-layout.ts';
 
 export const VOCAB_FILE = 'vocab.tsv';
@@ -133,7 +134,8 @@ export async function vocabStage(ctx: StageContext): Promise<void> {
   await ctx.saveManifest();
 }
 
-/** The n-gram pass: every chunk not yet done → sorted, partitioned run files. */
+/** The n-gram pass: every chunk not yet done → sorted, partitioned run files, a group of chunks
+ *  (chunk-groups.ts) at a time. */
 export async function countStage(ctx: StageContext, vocab: Vocabulary): Promise<void> {
   const { job, jobDir } = ctx;
   const count = job.stages.count;
@@ -153,12 +155,13 @@ export async function countStage(ctx: StageContext, vocab: Vocabulary): Promise<
     counterBytesMax: counterBudgetPerWorker(ctx.memoryBytes, workers, vocab.words.length),
   };
   count.status = 'running';
+  const groups = groupChunks(todo, groupBytesTarget(chunkBytes(todo), workers, job.config.chunkBytes));
   ctx.progress.start(`counting to order ${job.config.order}`, chunkBytes(todo));
-  await ctx.pool.run<Chunk, CountChunkDone, unknown>(init, todo, {
-    message: (chunk) => ({ type: 'chunk', chunk }),
+  await ctx.pool.run<Chunk[], CountGroupDone, unknown>(init, groups, {
+    message: (chunks) => ({ type: 'chunks', chunks }),
     onProgress: (bytes, tokens) => ctx.progress.update(bytes, tokens),
     onDone: (done) => {
-      count.chunks.push({ chunk: done.chunk, runs: done.runs, spills: done.spills, tokens: done.tokens, occurrences: done.occurrences });
+      count.chunks.push(...done.results);
       return ctx.saveManifest();
     },
   }).finally(() => ctx.progress.stop());

@@ -6,14 +6,14 @@
  * unit of work). Tokens come from corpus/read-tokens.ts, a read block at a time.
  */
 import { parentPort } from 'node:worker_threads';
-import { QuernError } from '../errors.ts';
+import { assert, QuernError } from '../errors.ts';
 import { COUNTER_BATCH_POSITIONS } from '../limits.ts';
 import { RESERVED_WORDS, reserveWords, type TokenBlock } from '../corpus/byte-tokenizer.ts';
 import { TokenReader } from '../corpus/read-tokens.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { WordTable } from '../corpus/word-table.ts';
 import { stageFs } from '../job/fsio.ts';
-import type { RunRecord } from '../job/manifest.ts';
+import type { ChunkResult, RunRecord } from '../job/manifest.ts';
 import type { Chunk, ReadOptions } from '../corpus/types.ts';
 import { CounterSet, type CounterNeed } from './counter-set.ts';
 import { spillCounterSet } from './spill.ts';
@@ -164,13 +164,13 @@ async function spillAll(chunk: number, spill: number, runs: RunRecord[]): Promis
   }));
 }
 
-/** Sizes the (empty) counters for `chunk` from what earlier chunks showed. */
-function presizeFor(chunk: Chunk, counters: CounterSet): void {
-  const bytes = chunk.byteEnd - chunk.byteStart;
-  const gzip = init.inputs[chunk.fileIndex].gzip;
+/** Sizes the (empty) counters for the chunks of a group from what earlier groups showed. */
+function presizeFor(group: readonly Chunk[], counters: CounterSet): void {
+  const bytes = groupBytes(group);
+  const gzip = group.some((chunk) => init.inputs[chunk.fileIndex].gzip);
   let needs: CounterNeed[];
   if (needsPerByte !== undefined && !gzip) {
-    // A little headroom: the next chunk may be a little richer.
+    // A little headroom: the next group may be a little richer.
     needs = needsPerByte.map((need) => ({ entries: Math.ceil(1.1 * need.entries * bytes), tableEntries: Math.ceil(1.1 * need.tableEntries * bytes) }));
   } else {
     const rate = ngramsPerByte[gzip ? 'gzip' : 'plain'];
@@ -184,6 +184,10 @@ function presizeFor(chunk: Chunk, counters: CounterSet): void {
     });
   }
   counters.presize(needs);
+}
+
+function groupBytes(group: readonly Chunk[]): number {
+  return group.reduce((sum, chunk) => sum + chunk.byteEnd - chunk.byteStart, 0);
 }
 
 /** The sentences of the current block wrapped as id sequences: sentence s is
@@ -247,43 +251,56 @@ function countSentences(first: number, sentences: number, counters: CounterSet):
   return sentences;
 }
 
-async function countChunk(chunk: Chunk): Promise<void> {
+/**
+ * Counts a group of consecutive chunks (count/chunk-groups.ts) as one unit of work: the counters
+ * spill when the budget is reached and once at the end of the group, so a finished group is wholly
+ * in durable run files. Run files are named after the group's first chunk and recorded with it.
+ */
+async function countGroup(group: readonly Chunk[]): Promise<void> {
   const state = countStateOf();
   const set = state.counters;
+  const first = group[0].index;
   const runs: RunRecord[] = [];
   let spillSeq = 0;
   let budgetSpills = 0;
-  let chunkTokens = 0;
-  const occurrences = new Array<number>(init.order).fill(0);
-  presizeFor(chunk, set);
-  // Tokens arrive a read block at a time; when the budget runs out in a block, the counters are
-  // spilled (async: it writes files) and counting goes on from the sentence that did not fit.
-  const onTokens = async (block: TokenBlock): Promise<void> => {
-    chunkTokens += block.tokens;
-    progressTokens += block.tokens;
-    wrapSentences(block, state, occurrences);
-    let next = countSentences(0, block.sentences, set);
-    while (next < block.sentences) {
-      await spillAll(chunk.index, spillSeq++, runs);
-      budgetSpills++;
-      const after = countSentences(next, block.sentences, set);
-      if (after === next) {
-        const length = wrappedStarts[next + 1] - wrappedStarts[next] - 2;
-        throw new QuernError('limit', `a sentence of ${length} tokens in ${init.inputs[chunk.fileIndex].path} does not fit the counting budget of ${set.bytesMax} bytes per worker; raise --memory`);
+  presizeFor(group, set);
+  const results: ChunkResult[] = [];
+  for (const chunk of group) {
+    let chunkTokens = 0;
+    const occurrences = new Array<number>(init.order).fill(0);
+    // Tokens arrive a read block at a time; when the budget runs out in a block, the counters are
+    // spilled (async: it writes files) and counting goes on from the sentence that did not fit.
+    const onTokens = async (block: TokenBlock): Promise<void> => {
+      chunkTokens += block.tokens;
+      progressTokens += block.tokens;
+      wrapSentences(block, state, occurrences);
+      let next = countSentences(0, block.sentences, set);
+      while (next < block.sentences) {
+        await spillAll(first, spillSeq++, runs);
+        budgetSpills++;
+        const after = countSentences(next, block.sentences, set);
+        if (after === next) {
+          const length = wrappedStarts[next + 1] - wrappedStarts[next] - 2;
+          throw new QuernError('limit', `a sentence of ${length} tokens in ${init.inputs[chunk.fileIndex].path} does not fit the counting budget of ${set.bytesMax} bytes per worker; raise --memory`);
+        }
+        next = after;
       }
-      next = after;
-    }
-  };
-  const reads = await state.reader.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), onTokens, progressReporter());
-  if (budgetSpills === 0) {
-    const bytes = chunk.byteEnd - chunk.byteStart;
-    if (bytes > 0 && !init.inputs[chunk.fileIndex].gzip) needsPerByte = set.counters.map((c) => ({ entries: c.size / bytes, tableEntries: c.tableSize / bytes }));
+    };
+    const reads = await state.reader.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), onTokens, progressReporter());
+    learnNgramsPerByte(chunk, chunkTokens + reads.sentences);
+    results.push({ chunk: chunk.index, runs: [], spills: 0, tokens: chunkTokens, occurrences });
   }
-  learnNgramsPerByte(chunk, chunkTokens + reads.sentences);
-  // The end of a chunk is a spill point: a finished chunk is then wholly in durable run files.
-  await spillAll(chunk.index, spillSeq++, runs);
+  if (budgetSpills === 0) {
+    const bytes = groupBytes(group);
+    const gzip = group.some((chunk) => init.inputs[chunk.fileIndex].gzip);
+    if (bytes > 0 && !gzip) needsPerByte = set.counters.map((c) => ({ entries: c.size / bytes, tableEntries: c.tableSize / bytes }));
+  }
+  // The end of a group is a spill point: a finished group is then wholly in durable run files.
+  await spillAll(first, spillSeq++, runs);
+  results[0].runs = runs;
+  results[0].spills = budgetSpills;
   flushProgress(true);
-  post({ type: 'done', chunk: chunk.index, tokens: chunkTokens, spills: budgetSpills, occurrences, runs });
+  post({ type: 'done', results });
 }
 
 // ---- merge phase ---------------------------------------------------------------------------
@@ -350,8 +367,9 @@ async function handle(message: ToWorker): Promise<void> {
   else if (message.type === 'emit') await emitTask(message.partition, message.localOrders);
   else if (message.type === 'remap') await remapTask(message.chunk, message.files);
   else if (message.type === 'estimate') await estimateTask(message.partition);
-  else if (init.phase === 'vocab') await vocabChunk(message.chunk);
-  else await countChunk(message.chunk);
+  else if (message.type === 'chunk') await vocabChunk(message.chunk);
+  else if (message.type === 'chunks') await countGroup(message.chunks);
+  else assert(false, `unexpected message for a ${init.phase} worker`);
 }
 
 port.on('message', (message: ToWorker) => {

@@ -88,11 +88,12 @@ export async function readPreviousVocabulary(jobDir: string, job: JobManifest): 
 /**
  * The vocabulary pass: word counts of every chunk not read yet → vocab.tsv. When inputs are being
  * added, the previous vocabulary's counts are the starting point (the job has no cap then, so they
- * are the exact word counts of the earlier chunks).
+ * are the exact word counts of the earlier chunks). Returns the vocabulary it wrote (the next
+ * stages need not read it back), or undefined when the pass was done already.
  */
-export async function vocabStage(ctx: StageContext): Promise<void> {
+export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefined> {
   const { job, jobDir } = ctx;
-  if (job.stages.vocab.status === 'done') return;
+  if (job.stages.vocab.status === 'done') return undefined;
   const started = Date.now();
   const reads: Array<ReadStats | null> = Array.from({ length: job.chunks.length }, (_, i) => job.stages.vocab.reads?.[i] ?? null);
   const wordCounts = new Map<string, number>();
@@ -132,6 +133,7 @@ export async function vocabStage(ctx: StageContext): Promise<void> {
     elapsedMs: (job.stages.vocab.elapsedMs ?? 0) + Date.now() - started,
   };
   await ctx.saveManifest();
+  return vocab;
 }
 
 /** The n-gram pass: every chunk not yet done → sorted, partitioned run files, a group of chunks

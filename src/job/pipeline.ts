@@ -145,8 +145,7 @@ export async function runCount(request: CountRequest): Promise<CountSummary> {
       jobDir, job, fs, progress: request.progress ?? silentProgress, workers: request.workers, memoryBytes: request.memoryBytes, pool,
     });
     if (added.length > 0) await beginAddition(ctx, added);
-    await vocabStage(ctx);
-    const vocab = await readJobVocabulary(jobDir, job);
+    const vocab = await vocabStage(ctx) ?? await readJobVocabulary(jobDir, job);
     await remapStage(ctx, vocab);
     await countStage(ctx, vocab);
     await mergeStage(ctx);

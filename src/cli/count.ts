@@ -57,6 +57,7 @@ export const countCommand: CommandModule = {
     .option('vocab-min-count', { type: 'number', describe: 'Keep word types seen at least C times; the rest count as <unk>' })
     .option('partitions', { type: 'number', default: PARTITIONS_DEFAULT, describe: 'Partitions of the n-gram space (independent merge tasks)' })
     .option('chunk-size', { type: 'string', default: String(CHUNK_BYTES_TARGET), describe: 'Split plain inputs into line-aligned chunks of about this size' })
+    .option('token-files', { type: 'boolean', default: true, describe: 'Keep the vocabulary pass\'s tokens on disk (about half the size of plain-text input, removed when the count is done) so the count pass need not read and split the text again; --no-token-files saves the disk space' })
     .option('restart', { type: 'boolean', default: false, describe: 'Discard an existing job in --job and start over' })
     .option('add', { type: 'boolean', default: false, describe: 'Add these inputs to the counted job in --job: only they are read; the store is rebuilt' })
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' })
@@ -91,6 +92,7 @@ export const countCommand: CommandModule = {
       memoryBytes,
       restart: Boolean(argv.restart),
       add: Boolean(argv.add),
+      tokenFiles: argv['token-files'] !== false,
       progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
     });
     if (argv.json) process.stdout.write(JSON.stringify(summary, null, 2) + '\n');

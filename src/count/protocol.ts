@@ -2,6 +2,7 @@
 import type { Chunk, InputFile, NormalizeOptions, ReadStats } from '../corpus/types.ts';
 import type { ChunkResult, RunRecord } from '../job/manifest.ts';
 import type { PartitionMergeTask } from '../merge/merge-partition.ts';
+import type { TokenFileRecord } from './token-file.ts';
 import type { OrderTally } from '../merge/tally.ts';
 import type { PartitionEstimateResult, PartitionEstimateSettings } from '../estimate/partition-estimate.ts';
 
@@ -17,6 +18,12 @@ export interface WorkerInit {
   normalize: NormalizeOptions;
   order: number;
   partitions: number;
+  /** vocab phase: keep each chunk's tokens in a token file for the count pass (token-file.ts). */
+  writeTokenFiles?: boolean;
+  /** count phase: the token file of each chunk (index = chunk), null where there is none, and the
+   *  entry → id map of each word table they use; a chunk without both is read from its text. */
+  tokenFiles?: Array<TokenFileRecord | null>;
+  tokenMaps?: Record<number, Uint32Array>;
   /** count phase: words by id (index 0 = `<s>`). */
   words?: string[];
   eosId?: number;
@@ -68,6 +75,8 @@ export interface VocabChunkDone {
   chunk: number;
   reads: ReadStats;
   tokens: number;
+  /** The chunk's token file, when the phase writes them. */
+  tokenFile?: TokenFileRecord;
 }
 
 /**
@@ -82,6 +91,8 @@ export interface CountGroupDone {
 /** Sent once at 'finish' by a vocabulary worker: its word counts over all its chunks. */
 export interface VocabFinished {
   type: 'finished';
+  /** This worker's word table, as token files name it; `words` are its entries from 3 on. */
+  table: number;
   words: string[];
   counts: number[];
   unkSeen: number;

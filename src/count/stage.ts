@@ -15,6 +15,8 @@ import type { JobManifest } from '../job/manifest.ts';
 import type { CountGroupDone, VocabChunkDone, VocabFinished, WorkerInit } from './protocol.ts';
 import { groupBytesTarget, groupChunks } from './chunk-groups.ts';
 import { RUNS_DIR } from './run-layout.ts';
+import { tokenMapPath, TOKENS_DIR, type TokenFileRecord } from './token-file.ts';
+import { RESERVED_WORDS } from '../corpus/byte-tokenizer.ts';
 
 export const VOCAB_FILE = 'vocab.tsv';
 
@@ -107,33 +109,80 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
     }
   }
   const todo = job.chunks.filter((c) => reads[c.index] === null);
+  // Token files of an earlier, interrupted pass belong to word tables that are gone.
+  await removeTokenFiles(jobDir);
+  if (ctx.tokenFiles) await ctx.fs.mkdir(path.join(jobDir, TOKENS_DIR));
+  const tokenFiles: Array<TokenFileRecord | null> = job.chunks.map(() => null);
+  const tables: Array<{ table: number; words: string[] }> = [];
   ctx.progress.start('vocabulary', chunkBytes(todo));
-  await ctx.pool.run<Chunk, VocabChunkDone, VocabFinished>(baseInit(job, jobDir, 'vocab'), todo, {
+  await ctx.pool.run<Chunk, VocabChunkDone, VocabFinished>({ ...baseInit(job, jobDir, 'vocab'), writeTokenFiles: ctx.tokenFiles }, todo, {
     message: (chunk) => ({ type: 'chunk', chunk }),
     onProgress: (bytes, tokens) => ctx.progress.update(bytes, tokens),
-    onDone: (done) => { reads[done.chunk] = done.reads; },
+    onDone: (done) => {
+      reads[done.chunk] = done.reads;
+      if (done.tokenFile) tokenFiles[done.chunk] = done.tokenFile;
+    },
     onFinished: (finished) => {
       for (let i = 0; i < finished.words.length; i++) {
         const word = finished.words[i];
         wordCounts.set(word, (wordCounts.get(word) ?? 0) + finished.counts[i]);
       }
       unkSeen += finished.unkSeen;
+      tables.push({ table: finished.table, words: finished.words });
     },
   }).finally(() => ctx.progress.stop());
   const sentences = reads.reduce((sum, r) => sum + r!.sentences, 0);
   const vocab = buildVocabulary(wordCounts, sentences, unkSeen, job.config.vocabCap);
   const text = formatVocabulary(vocab);
   await writeFileAtomic(ctx.fs, path.join(jobDir, VOCAB_FILE), text);
+  const tokens = ctx.tokenFiles ? { files: tokenFiles, maps: await writeTokenMaps(ctx, vocab, tables) } : undefined;
   job.stages.vocab = {
     ...(job.stages.vocab.previousSha !== undefined ? { previousSha: job.stages.vocab.previousSha } : {}),
     status: 'done',
     sha256: createHash('sha256').update(text, 'utf8').digest('hex'),
     types: vocab.words.length - 1,
     reads,
+    ...(tokens ? { tokens } : {}),
     elapsedMs: (job.stages.vocab.elapsedMs ?? 0) + Date.now() - started,
   };
   await ctx.saveManifest();
   return vocab;
+}
+
+/**
+ * Writes each vocabulary worker's entry → id map (token-file.ts): entries 0..2 are the reserved
+ * words, read as `<unk>` like any word the vocabulary cap left out. Returns the maps' sha256 by table.
+ */
+async function writeTokenMaps(ctx: StageContext, vocab: Vocabulary, tables: Array<{ table: number; words: string[] }>): Promise<Record<string, string>> {
+  const idOf = new Map<string, number>();
+  for (let id = 1; id < vocab.words.length; id++) if (id !== vocab.eosId && id !== vocab.unkId) idOf.set(vocab.words[id], id);
+  const maps: Record<string, string> = {};
+  for (const { table, words } of tables) {
+    const map = new Uint32Array(RESERVED_WORDS.length + words.length);
+    map.fill(vocab.unkId, 0, RESERVED_WORDS.length);
+    for (let i = 0; i < words.length; i++) map[RESERVED_WORDS.length + i] = idOf.get(words[i]) ?? vocab.unkId;
+    const bytes = new Uint8Array(map.buffer);
+    await writeFileAtomic(ctx.fs, path.join(ctx.jobDir, tokenMapPath(table)), bytes);
+    maps[String(table)] = createHash('sha256').update(bytes).digest('hex');
+  }
+  return maps;
+}
+
+/** The maps of the token files recorded for the count pass, each checked against its sha256; a
+ *  map that is missing or changed is left out (its chunks are read from their text). */
+async function readTokenMaps(jobDir: string, job: JobManifest): Promise<Record<number, Uint32Array>> {
+  const maps: Record<number, Uint32Array> = {};
+  for (const [table, sha256] of Object.entries(job.stages.vocab.tokens?.maps ?? {})) {
+    const bytes = await fsp.readFile(path.join(jobDir, tokenMapPath(Number(table)))).catch(() => undefined);
+    if (bytes === undefined || bytes.length % 4 !== 0 || createHash('sha256').update(bytes).digest('hex') !== sha256) continue;
+    maps[Number(table)] = new Uint32Array(bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.length));
+  }
+  return maps;
+}
+
+/** Removes the job's token files, if any. */
+async function removeTokenFiles(jobDir: string): Promise<void> {
+  await fsp.rm(path.join(jobDir, TOKENS_DIR), { recursive: true, force: true });
 }
 
 /** The n-gram pass: every chunk not yet done → sorted, partitioned run files, a group of chunks
@@ -155,6 +204,7 @@ export async function countStage(ctx: StageContext, vocab: Vocabulary): Promise<
     eosId: vocab.eosId,
     unkId: vocab.unkId,
     counterBytesMax: counterBudgetPerWorker(ctx.memoryBytes, workers, vocab.words.length),
+    ...(job.stages.vocab.tokens ? { tokenFiles: job.stages.vocab.tokens.files, tokenMaps: await readTokenMaps(jobDir, job) } : {}),
   };
   count.status = 'running';
   const groups = groupChunks(todo, groupBytesTarget(chunkBytes(todo), workers, job.config.chunkBytes));
@@ -170,7 +220,10 @@ export async function countStage(ctx: StageContext, vocab: Vocabulary): Promise<
   count.chunks.sort((a, b) => a.chunk - b.chunk);
   count.status = 'done';
   count.elapsedMs = (count.elapsedMs ?? 0) + Date.now() - started;
+  delete job.stages.vocab.tokens;
   await ctx.saveManifest();
+  // Only now: a count resumed before this point still finds them.
+  await removeTokenFiles(jobDir);
 }
 
 /** N-gram occurrences per order over every counted chunk. */

@@ -5,7 +5,7 @@
  * files when its budget is reached and at the end of every chunk (so a finished chunk is a durable
  * unit of work). Tokens come from corpus/read-tokens.ts, a read block at a time.
  */
-import { parentPort } from 'node:worker_threads';
+import { parentPort, threadId } from 'node:worker_threads';
 import { assert, QuernError } from '../errors.ts';
 import { COUNTER_BATCH_POSITIONS } from '../limits.ts';
 import { RESERVED_WORDS, reserveWords, type TokenBlock } from '../corpus/byte-tokenizer.ts';
@@ -23,6 +23,7 @@ import { emitContinuations } from '../merge/continuation.ts';
 import { remapChunkRuns } from './remap.ts';
 import { estimatePartition } from '../estimate/partition-estimate.ts';
 import { runFilePath } from './run-layout.ts';
+import { readTokenFile, tokenFileIntact, TokenFileWriter, type TokenFileBlock } from './token-file.ts';
 import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 
 const PROGRESS_INTERVAL_MS = 200;
@@ -91,21 +92,32 @@ async function vocabChunk(chunk: Chunk): Promise<void> {
   }
   const table = vocabTable;
   let chunkTokens = 0;
-  const reads = await vocabReader!.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), (block) => {
-    if (entryCounts.length < table.size) {
-      const counts = new Float64Array(Math.max(table.size, 2 * entryCounts.length));
-      counts.set(entryCounts);
-      entryCounts = counts;
-    }
-    const counts = entryCounts;
-    const entries = block.entries;
-    for (let i = 0; i < block.tokens; i++) counts[entries[i]]++;
-    chunkTokens += block.tokens;
-    progressTokens += block.tokens;
-  }, progressReporter());
+  // This worker's word table is named by its thread id in the token files (unique in the process
+  // that runs the whole pass: an interrupted pass starts over).
+  const writer = init.writeTokenFiles ? await TokenFileWriter.open(fs, init.jobDir, chunk.index, threadId) : undefined;
+  let reads;
+  try {
+    reads = await vocabReader!.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), (block) => {
+      if (entryCounts.length < table.size) {
+        const counts = new Float64Array(Math.max(table.size, 2 * entryCounts.length));
+        counts.set(entryCounts);
+        entryCounts = counts;
+      }
+      const counts = entryCounts;
+      const entries = block.entries;
+      for (let i = 0; i < block.tokens; i++) counts[entries[i]]++;
+      chunkTokens += block.tokens;
+      progressTokens += block.tokens;
+      return writer?.append(block);
+    }, progressReporter());
+  } catch (error) {
+    await writer?.abort();
+    throw error;
+  }
+  const tokenFile = await writer?.finish();
   learnNgramsPerByte(chunk, chunkTokens + reads.sentences);
   flushProgress(true);
-  post({ type: 'done', chunk: chunk.index, reads, tokens: chunkTokens });
+  post({ type: 'done', chunk: chunk.index, reads, tokens: chunkTokens, ...(tokenFile ? { tokenFile } : {}) });
 }
 
 function vocabFinished(): FromWorker {
@@ -120,7 +132,7 @@ function vocabFinished(): FromWorker {
       counts.push(entryCounts[entry]);
     }
   }
-  return { type: 'finished', words, counts, unkSeen };
+  return { type: 'finished', table: threadId, words, counts, unkSeen };
 }
 
 // ---- count phase ---------------------------------------------------------------------------
@@ -195,9 +207,9 @@ function groupBytes(group: readonly Chunk[]): number {
 let wrapped = new Uint32Array(1 << 16);
 let wrappedStarts = new Uint32Array(1 << 12);
 
-/** Turns the block's sentences into word ids, wrapped; adds their n-gram occurrences per order. */
-function wrapSentences(block: TokenBlock, state: CountState, occurrences: number[]): void {
-  const { idOfEntry } = state;
+/** Turns the block's sentences into word ids (`idOfEntry` of its entries), wrapped; adds their
+ *  n-gram occurrences per order. */
+function wrapSentences(block: TokenBlock | TokenFileBlock, idOfEntry: Uint32Array, occurrences: number[]): void {
   const entries = block.entries;
   const ends = block.sentenceEnds;
   const eosId = init.eosId!;
@@ -251,6 +263,16 @@ function countSentences(first: number, sentences: number, counters: CounterSet):
   return sentences;
 }
 
+/** Every entry of a token file's block is one its word table's map covers (the CRC vouches for the
+ *  bytes, this for the pairing of file and map). */
+function checkEntries(block: TokenFileBlock, entries: number): void {
+  const values = block.entries;
+  for (let i = 0; i < block.tokens; i++) {
+    const entry = values[i];
+    if (!(entry >= 0 && entry < entries)) assert(false, `token file entry ${entry} outside its word table of ${entries} entries`);
+  }
+}
+
 /**
  * Counts a group of consecutive chunks (count/chunk-groups.ts) as one unit of work: the counters
  * spill when the budget is reached and once at the end of the group, so a finished group is wholly
@@ -267,13 +289,20 @@ async function countGroup(group: readonly Chunk[]): Promise<void> {
   const results: ChunkResult[] = [];
   for (const chunk of group) {
     let chunkTokens = 0;
+    let chunkSentences = 0;
     const occurrences = new Array<number>(init.order).fill(0);
+    const tokenFile = init.tokenFiles?.[chunk.index] ?? null;
+    const tokenMap = tokenFile !== null ? init.tokenMaps?.[tokenFile.table] : undefined;
+    const fromTokenFile = tokenMap !== undefined && await tokenFileIntact(init.jobDir, chunk.index, tokenFile!);
+    const idOfEntry = fromTokenFile ? tokenMap : state.idOfEntry;
     // Tokens arrive a read block at a time; when the budget runs out in a block, the counters are
     // spilled (async: it writes files) and counting goes on from the sentence that did not fit.
-    const onTokens = async (block: TokenBlock): Promise<void> => {
+    const onTokens = async (block: TokenBlock | TokenFileBlock): Promise<void> => {
       chunkTokens += block.tokens;
+      chunkSentences += block.sentences;
       progressTokens += block.tokens;
-      wrapSentences(block, state, occurrences);
+      if (fromTokenFile) checkEntries(block, idOfEntry.length);
+      wrapSentences(block, idOfEntry, occurrences);
       let next = countSentences(0, block.sentences, set);
       while (next < block.sentences) {
         await spillAll(first, spillSeq++, runs);
@@ -286,9 +315,16 @@ async function countGroup(group: readonly Chunk[]): Promise<void> {
         next = after;
       }
     };
-    const reads = await state.reader.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), onTokens, progressReporter());
-    learnNgramsPerByte(chunk, chunkTokens + reads.sentences);
-    results.push({ chunk: chunk.index, runs: [], spills: 0, tokens: chunkTokens, occurrences });
+    if (fromTokenFile) {
+      // Progress in input bytes, in proportion to the token file read.
+      const report = progressReporter();
+      const bytes = chunk.byteEnd - chunk.byteStart;
+      await readTokenFile(init.jobDir, chunk.index, onTokens, (read, total) => report(Math.round(bytes * read / total)));
+    } else {
+      await state.reader.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), onTokens, progressReporter());
+    }
+    learnNgramsPerByte(chunk, chunkTokens + chunkSentences);
+    results.push({ chunk: chunk.index, runs: [], spills: 0, tokens: chunkTokens, occurrences, ...(fromTokenFile ? { fromTokenFile } : {}) });
   }
   if (budgetSpills === 0) {
     const bytes = groupBytes(group);

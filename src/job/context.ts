@@ -22,6 +22,8 @@ export interface StageContext {
   workers: number;
   /** Budget for all counting memory together, bytes. */
   memoryBytes: number;
+  /** Whether the vocabulary pass keeps its tokens on disk for the count pass (count/token-file.ts). */
+  tokenFiles: boolean;
   /** The job's worker threads (ctx.workers of them at most), shared by every phase. */
   pool: WorkerPool;
   /** Writes job.json atomically; concurrent calls are written one at a time, in call order. */

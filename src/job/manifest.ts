@@ -11,6 +11,7 @@ import type { VocabCap } from '../corpus/vocabulary.ts';
 import { writeFileAtomic, type StageFs } from './fsio.ts';
 import type { ModelHeader } from '../estimate/model-source.ts';
 import type { ResultFileRecord } from '../estimate/partition-estimate.ts';
+import type { TokenFileRecord } from '../count/token-file.ts';
 
 export const MANIFEST_FILE = 'job.json';
 export const MANIFEST_VERSION = 1;
@@ -38,6 +39,8 @@ export interface ChunkResult {
   tokens: number;
   /** N-gram occurrences counted per order (index 0 = order 1). */
   occurrences: number[];
+  /** True when the tokens came from the vocabulary pass's token file rather than the text. */
+  fromTokenFile?: boolean;
 }
 
 export interface RunRecord {
@@ -59,6 +62,10 @@ export interface VocabStage {
   /** Read statistics per chunk (index = chunk index), from the vocabulary pass; null for a chunk
    *  not read yet (inputs being added). */
   reads?: Array<ReadStats | null>;
+  /** The vocabulary pass's token files for the count pass (count/token-file.ts), until the count
+   *  is done: per chunk (index = chunk) its record or null, and the sha256 of each word table's
+   *  entry → id map. */
+  tokens?: { files: Array<TokenFileRecord | null>; maps: Record<string, string> };
   elapsedMs?: number;
 }
 

@@ -8,11 +8,15 @@
  * it came from, and the re-run recounts that chunk.
  *
  * Which operation N+1 is, in the 4-partition job of these tests:
- *   new job, main thread: 1 mkdir of the job directory; 2–6 job.json (create, write, sync, rename,
- *   sync of the directory); 7–11 vocab.tsv; 12–16 job.json recording the vocabulary. Then each
- *   count worker, counting from 1 in its own thread, writes run files (about 6 operations a file,
- *   16 files a spill) and reaches its operation N+1 long before the main thread writes again (after
- *   a whole chunk).
+ *   new job with --no-token-files, main thread: 1 mkdir of the job directory; 2–6 job.json (create,
+ *   write, sync, rename, sync of the directory); 7–11 vocab.tsv; 12–16 job.json recording the
+ *   vocabulary. Then each count worker, counting from 1 in its own thread, writes run files (about 6
+ *   operations a file, 16 files a spill) and reaches its operation N+1 long before the main thread
+ *   writes again (after a whole chunk).
+ *   new job with token files: main thread 1–6 as above, 7 mkdir of tokens/, then (after the
+ *   vocabulary pass) 8–12 vocab.tsv and 13–22 the two word tables' maps; meanwhile each vocabulary
+ *   worker writes a token file per chunk (create, header, 3 writes per block, rename: 6 operations
+ *   for a chunk of one block; 8 chunks), so one of them reaches operation 8..19 first.
  *   job whose count is done, main thread: 1 mkdir; 2–21 job.json recording each partition's merge;
  *   22–26 stats.json; 27–31 job.json recording the merge.
  * If a change of the pipeline moves these, the path check below says which file was hit instead.
@@ -90,11 +94,14 @@ interface FaultCase {
   operations: [number, number];
   /** The failed path, relative to the job directory. */
   path: RegExp;
+  /** Keep token files (the default of quern count); the other cases count without them. */
+  tokenFiles?: boolean;
 }
 
 const CASES: FaultCase[] = [
   { label: 'job.json of a new job', start: 'fresh', mode: 'once', errno: 'EIO', operations: [1, 5], path: /^job\.json/ },
   { label: 'vocab.tsv', start: 'fresh', mode: 'always', errno: 'ENOSPC', operations: [6, 10], path: /^vocab\.tsv/ },
+  { label: 'a token file', start: 'fresh', mode: 'once', errno: 'EIO', operations: [7, 18], path: /^tokens(\/c\d+\.tok(\.\d+\.tmp)?)?$/, tokenFiles: true },
   { label: 'a run file', start: 'fresh', mode: 'once', errno: 'EIO', operations: [16, 80], path: /^runs\/o\d\/p\d{4}(\/c\d{6}-s\d{3}\.run(\.\d+\.tmp)?)?$/ },
   { label: 'a run file', start: 'fresh', mode: 'always', errno: 'ENOSPC', operations: [16, 80], path: /^runs\/o\d\/p\d{4}(\/c\d{6}-s\d{3}\.run(\.\d+\.tmp)?)?$/ },
   { label: 'job.json recording a merged partition', start: 'counted', mode: 'once', errno: 'EIO', operations: [1, 20], path: /^job\.json/ },
@@ -108,7 +115,7 @@ describe('an I/O error stops the count with exit status 4; the re-run without it
     it(`${c.errno} ${c.mode} at ${c.label} (operation ${failAfterOperations + 1})`, async () => {
       const job = path.join(dir, `fault-${index}`);
       if (c.start === 'counted') cpSync(counted, job, { recursive: true });
-      const args = countArgs(corpus, job);
+      const args = [...countArgs(corpus, job), ...(c.tokenFiles ? [] : ['--no-token-files'])];
       const fault = JSON.stringify({ failAfterOperations, mode: c.mode, errno: c.errno });
       const failed = await runToEnd(args, { QUERN_TEST_FAULT: fault });
       expect(failed.status, failed.stderr).toBe(4);

@@ -6,19 +6,24 @@
  * are in P too; only the unigrams are shared (their probabilities come with the task). The task
  * goes through orders 2..N in key order, gathering windows of whole contexts, and applies the
  * method's per-context rule (method-plan.ts, back-off-form.ts) exactly as the in-memory driver does.
- * p(w | h') of a row is looked up in P's own results of order m−1, held as sorted typed arrays (the
- * rows of h' are contiguous there: one binary search for the context, a galloping search per word).
+ * p(w | h') of a row is looked up in P's own results of order m−1, held as a typed array of rows
+ * (Table) with a hash index over their ids (RowIndex): one lookup per row by the ids of its suffix,
+ * a window's lookups in batches so that their cache misses overlap.
+ *
+ * Files: each order's two result files are written while the order is estimated (writes run ahead
+ * of the estimate, result-file.ts); their fsync and rename go on while the next order is estimated,
+ * and the task ends once every file is durable.
  *
  * Output per order m (docs/estimate-files.md): the kept rows of order m with log10 p(w | h)
  * (`o{m}.prob`), and the back-off weights of the contexts of order m−1 whose n-grams are in P
  * (`o{m−1}.bow`) — rows of other partitions, joined when the model is read (job-model-source.ts).
  *
- * Memory: P's results of orders m−1 and m (rows × (4·order + 8) bytes), and a window of at most
- * ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's row counts.
+ * Memory: P's results of orders m−1 and m (rows × (4·order + 8) bytes), the index of those of order
+ * m−1, and a window of at most ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's row counts.
  */
 import * as path from 'node:path';
 import { assert, QuernError } from '../errors.ts';
-import { writeFileThrough, type StageFs } from '../job/fsio.ts';
+import { writeFileThrough, type StageFs, type WritableFile } from '../job/fsio.ts';
 import { ESTIMATE_WINDOW_BYTES_PER_ROW, ESTIMATE_WINDOW_ROWS } from '../limits.ts';
 import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
 import type { MergeProgress } from '../merge/merge-partition.ts';
@@ -85,7 +90,7 @@ export function partitionNeedBytes(rows: number[], size: number): number {
   const orderMax = rows.length;
   let need = 0;
   for (let m = 2; m <= orderMax; m++) {
-    const previous = m > 2 ? tableBytes(m - 1, rows[m - 2]) + ContextIndex.bytesFor(rows[m - 2]) : 0;
+    const previous = m > 2 ? tableBytes(m - 1, rows[m - 2]) + RowIndex.bytesFor(rows[m - 2]) : 0;
     const current = m < orderMax ? tableBytes(m, rows[m - 1]) : 0;
     const window = Math.min(rows[m - 1], ESTIMATE_WINDOW_ROWS + size) * (4 * m + ESTIMATE_WINDOW_BYTES_PER_ROW);
     need = Math.max(need, previous + current + window);
@@ -194,6 +199,8 @@ export async function estimatePartition(
   const plan = planMethod(settings.request, settings.orders, settings.size);
   const store = PartitionStore.open(path.join(jobDir, partitionStoreDir(partition)), 'read');
   const files: ResultFileRecord[] = [];
+  /** Files written whose fsync and rename are under way while the next order is estimated. */
+  const syncing: Array<Promise<void>> = [];
   try {
     const partitionRows = partitionRowCounts(store);
     await fs.mkdir(path.dirname(path.join(jobDir, resultFilePath(partition, 'probabilities', 2))));
@@ -203,18 +210,34 @@ export async function estimatePartition(
       const current: Table | null = highest ? null : new Table(m, partitionRows[m - 1]);
       const probFile = resultFilePath(partition, 'probabilities', m);
       const bowFile = resultFilePath(partition, 'back-off', m - 1);
-      await writeFileThrough(fs, path.join(jobDir, probFile), async (probOut) => {
-        const probWriter = new ResultWriter(probOut, { kind: 'probabilities', order: m, partition });
-        await writeFileThrough(fs, path.join(jobDir, bowFile), async (bowOut) => {
-          const bowWriter = new ResultWriter(bowOut, { kind: 'back-off', order: m - 1, partition });
-          await estimateOrder(store, m, highest, plan, settings, previous, current, probWriter, bowWriter, onRows);
-          files.push({ file: bowFile, kind: 'back-off', order: m - 1, ...(await bowWriter.finish()) });
-        });
+      const prob = await openThrough(fs, path.join(jobDir, probFile));
+      syncing.push(prob.done);
+      let bow: ThroughFile;
+      try {
+        bow = await openThrough(fs, path.join(jobDir, bowFile));
+      } catch (error) {
+        prob.end(error);
+        throw error;
+      }
+      syncing.push(bow.done);
+      try {
+        const probWriter = new ResultWriter(prob.file, { kind: 'probabilities', order: m, partition });
+        const bowWriter = new ResultWriter(bow.file, { kind: 'back-off', order: m - 1, partition });
+        await estimateOrder(store, m, highest, plan, settings, previous, current, probWriter, bowWriter, onRows);
+        files.push({ file: bowFile, kind: 'back-off', order: m - 1, ...(await bowWriter.finish()) });
         files.push({ file: probFile, kind: 'probabilities', order: m, ...(await probWriter.finish()) });
-      });
+      } catch (error) {
+        bow.end(error);
+        prob.end(error);
+        throw error;
+      }
+      bow.end();
+      prob.end();
       previous = current;
     }
+    await Promise.all(syncing);
   } finally {
+    await Promise.allSettled(syncing);
     await store.close();
   }
   const parameters = plan.header.parameters;
@@ -223,6 +246,34 @@ export async function estimatePartition(
     files,
     katz: parameters.method === 'katz' ? { contextsDiscountedAboveK: parameters.contextsDiscountedAboveK, contextsWithoutMass: parameters.contextsWithoutMass } : null,
   };
+}
+
+/**
+ * A file written through writeFileThrough (temporary name, fsync, rename) whose end the caller
+ * decides: `end()` once everything is written lets the fsync and rename go on in the background,
+ * `end(error)` removes the temporary file instead; `done` settles when either has happened (and
+ * rejects with what failed).
+ */
+interface ThroughFile {
+  file: WritableFile;
+  end(failure?: unknown): void;
+  done: Promise<void>;
+}
+
+/** Creates `filePath`'s temporary file and returns it as a ThroughFile. */
+function openThrough(fs: StageFs, filePath: string): Promise<ThroughFile> {
+  return new Promise<ThroughFile>((resolveOpened, rejectOpened) => {
+    let end: (failure?: unknown) => void = () => undefined;
+    const ended = new Promise<void>((resolve, reject) => {
+      end = (failure) => (failure === undefined ? resolve() : reject(failure));
+    });
+    let done: Promise<void> | undefined;
+    done = writeFileThrough(fs, filePath, (file) => {
+      resolveOpened({ file, end, done: done as Promise<void> });
+      return ended;
+    });
+    done.catch(rejectOpened); // fails the open when creating the file fails; handled later otherwise
+  });
 }
 
 /** Bytes of encoded results a writer may hold before they are written. */
@@ -247,7 +298,7 @@ async function estimateOrder(
   const window = new Window(m, ESTIMATE_WINDOW_ROWS);
   let lower = new Float64Array(0);
   let prob = new Float64Array(0);
-  const shorterIndex = previous === null ? null : new ContextIndex(previous);
+  const shorterIndex = previous === null ? null : new RowIndex(previous);
 
   /** Applies the rule to the window's first `rows` rows (whole contexts). */
   const process = (rows: number): void => {
@@ -260,53 +311,20 @@ async function estimateOrder(
     const ids = level.ids;
     const kept = level.kept;
     const starts = level.contextStarts;
+    // p(w | h') of every kept row: at order 2 the unigram of w; above, the probability of the
+    // suffix h' w, a row of this partition's results of order m−1 (found by its ids).
+    if (m === 2) {
+      const unigramProb = settings.unigramProb;
+      for (let row = 0; row < rows; row++) if (kept[row] === 1) lower[row] = unigramProb[ids[row * 2 + 1]];
+    } else {
+      (shorterIndex as RowIndex).suffixProbabilities(ids, m, rows, kept, lower, store);
+    }
     for (let context = 0; context + 1 < starts.length; context++) {
       const start = starts[context];
       const end = starts[context + 1];
       let keptRows = 0;
       for (let row = start; row < end; row++) keptRows += kept[row];
       if (keptRows === 0) continue; // backs off entirely (back-off-form.ts)
-      if (m === 2) {
-        for (let row = start; row < end; row++) if (kept[row] === 1) lower[row] = settings.unigramProb[ids[row * 2 + 1]];
-      } else {
-        // The rows of h' (w2 … w(m−1)) in this partition's results of order m−1, by the index of
-        // their contexts; within them the words ascend, as they do in h's rows: a galloping
-        // search forward from the last one finds each.
-        const shorter = previous as Table;
-        const stride = shorter.stride;
-        const slot = (shorterIndex as ContextIndex).find(ids, start * m + 1);
-        if (slot < 0) throw suffixMissing(store, m, ids, start * m);
-        let suffix = shorterIndex!.slots[slot];
-        const suffixEnd = shorterIndex!.slots[slot + 1];
-        const shorterIds = shorter.ids;
-        const last = m - 2;
-        for (let row = start; row < end; row++) {
-          if (kept[row] === 0) continue;
-          const word = ids[row * m + m - 1];
-          // Galloping search forward for the word among the context's rows (their last ids ascend).
-          if (shorterIds[suffix * stride + last] < word) {
-            let low = suffix;
-            let step = 1;
-            let high = suffix + 1;
-            while (high < suffixEnd && shorterIds[high * stride + last] < word) {
-              low = high;
-              step *= 2;
-              high = suffix + step;
-            }
-            if (high > suffixEnd) high = suffixEnd;
-            while (high - low > 1) {
-              const middle = (low + high) >>> 1;
-              if (shorterIds[middle * stride + last] < word) low = middle;
-              else high = middle;
-            }
-            suffix = high;
-          }
-          if (!(suffix < suffixEnd && shorterIds[suffix * stride + last] === word)) {
-            throw suffixMissing(store, m, ids, row * m);
-          }
-          lower[row] = shorter.prob(suffix);
-        }
-      }
       const weight = applyContextRule(level, rule, start, end, lower, prob, normalised);
       bowWriter.add(ids, start * m, log10BackOffOf(weight));
       for (let row = start; row < end; row++) {
@@ -385,57 +403,100 @@ function corruptContinuation(store: PartitionStore, order: number): QuernError {
   return new QuernError('corrupt', `count store ${store.dir}: a continuation count of order ${order} has no raw count; re-run quern count with --restart`);
 }
 
+/** Rows whose suffixes are looked up together (their hashes and slots stay in the caches between
+ *  the passes of RowIndex.suffixProbabilities). */
+const SUFFIX_BATCH_ROWS = 4096;
+
 /**
- * The contexts of a table of results (runs of rows sharing their first order−1 ids), found by
- * those ids: an open-addressing hash table whose slots hold each context's [first row, end) side
- * by side, so a lookup touches the slot's cache line and the first row's.
+ * The rows of a table of results (order n), found by their ids: an open-addressing hash table whose
+ * slots hold a row (plus one; 0: empty) and the full hash of its ids side by side, so a probe reads
+ * the table's row only when the hashes agree. At most half the slots are in use.
  */
-export class ContextIndex {
-  /** Slot s: slots[s] = first row (−1: empty), slots[s + 1] = end row; s even. */
+export class RowIndex {
+  /** Slot s: slots[2s] = row + 1 (0: empty), slots[2s + 1] = the row's hash. */
   readonly slots: Int32Array;
   private readonly mask: number;
-  private readonly length: number;
+  /** Scratch of one batch: the hashes of its keys, then the rows found. */
+  private readonly batchHashes = new Int32Array(SUFFIX_BATCH_ROWS);
+  private readonly batchRows = new Int32Array(SUFFIX_BATCH_ROWS);
 
   constructor(private readonly table: Table) {
-    const stride = table.stride;
-    const length = table.order - 1;
-    this.length = length;
-    const ids = table.ids;
-    const differs = (row: number): boolean => row === 0 || compareRows(ids, (row - 1) * stride, ids, row * stride, length) !== 0;
-    let contexts = 0;
-    for (let row = 0; row < table.rows; row++) if (differs(row)) contexts++;
+    const { ids, stride, order, rows } = table;
     let slotCount = 16;
-    while (slotCount < 2 * contexts) slotCount *= 2;
-    this.slots = new Int32Array(2 * slotCount).fill(-1);
-    this.mask = slotCount - 1;
-    let open = -1;
-    for (let row = 0; row <= table.rows; row++) {
-      if (row < table.rows && !differs(row)) continue;
-      if (open >= 0) this.slots[open + 1] = row;
-      if (row === table.rows) break;
-      let slot = ngramHash(ids, row * stride, length) & this.mask;
-      while (this.slots[2 * slot] !== -1) slot = (slot + 1) & this.mask;
-      this.slots[2 * slot] = row;
-      open = 2 * slot;
+    while (slotCount < 2 * rows) slotCount *= 2;
+    const slots = new Int32Array(2 * slotCount);
+    const mask = slotCount - 1;
+    this.slots = slots;
+    this.mask = mask;
+    // In batches: the hashes first (arithmetic), then the insertions, whose far-apart accesses do
+    // not depend on one another and so overlap in the processor.
+    const hashes = this.batchHashes;
+    for (let from = 0; from < rows; from += SUFFIX_BATCH_ROWS) {
+      const to = Math.min(rows, from + SUFFIX_BATCH_ROWS);
+      for (let row = from; row < to; row++) hashes[row - from] = ngramHash(ids, row * stride, order) | 0;
+      for (let row = from; row < to; row++) {
+        const hash = hashes[row - from];
+        let slot = hash & mask;
+        while (slots[2 * slot] !== 0) slot = (slot + 1) & mask;
+        slots[2 * slot] = row + 1;
+        slots[2 * slot + 1] = hash;
+      }
     }
   }
 
-  /** Bytes of an index over `rows` rows (at most one context per row, ≤ 4 slots of 8 bytes each). */
+  /** Bytes of an index over `rows` rows (at most 4 slots of 8 bytes per row). */
   static bytesFor(rows: number): number {
-    return rows * 32 + 128;
+    return rows * 32 + 128 + 8 * SUFFIX_BATCH_ROWS;
   }
 
-  /** The slot (even index into `slots`) of the context whose ids are key[keyStart .. keyStart+order−1), or −1. */
-  find(key: Uint32Array, keyStart: number): number {
-    const { ids, stride } = this.table;
-    const length = this.length;
+  /** The row whose ids are key[keyStart .. keyStart+order) and whose hash is `hash`, or −1. */
+  private find(key: Uint32Array, keyStart: number, hash: number): number {
+    const { ids, stride, order } = this.table;
     const slots = this.slots;
-    let slot = ngramHash(key, keyStart, length) & this.mask;
-    for (;;) {
-      const first = slots[2 * slot];
-      if (first === -1) return -1;
-      if (compareRows(ids, first * stride, key, keyStart, length) === 0) return 2 * slot;
-      slot = (slot + 1) & this.mask;
+    for (let slot = hash & this.mask; ; slot = (slot + 1) & this.mask) {
+      const row = slots[2 * slot] - 1;
+      if (row < 0) return -1;
+      if (slots[2 * slot + 1] === hash && compareRows(ids, row * stride, key, keyStart, order) === 0) return row;
+    }
+  }
+
+  /**
+   * lower[row] = the probability of the suffix w2 … wm of each kept row w1 … wm of `ids` (rows of
+   * order m = the table's order + 1); throws `suffixMissing` for a kept row whose suffix is not in
+   * the table. In batches of passes — all hashes, then all slots, then all rows — so that the
+   * lookups, each one or two accesses far apart in memory and independent of the others, are under
+   * way many at once instead of one after another.
+   */
+  suffixProbabilities(ids: Uint32Array, m: number, rows: number, kept: Uint8Array, lower: Float64Array, store: PartitionStore): void {
+    const table = this.table;
+    assert(table.order === m - 1, 'the suffixes of order m are rows of order m − 1');
+    const { ids: tableIds, stride } = table;
+    const length = m - 1;
+    const slots = this.slots;
+    const mask = this.mask;
+    const hashes = this.batchHashes;
+    const found = this.batchRows;
+    for (let from = 0; from < rows; from += SUFFIX_BATCH_ROWS) {
+      const to = Math.min(rows, from + SUFFIX_BATCH_ROWS);
+      for (let row = from; row < to; row++) hashes[row - from] = kept[row] === 1 ? ngramHash(ids, row * m + 1, length) | 0 : 0;
+      // The first slot of each key's probe sequence whose hash agrees (or the empty slot ending it).
+      for (let row = from; row < to; row++) {
+        if (kept[row] === 0) continue;
+        const hash = hashes[row - from];
+        let slot = hash & mask;
+        while (slots[2 * slot] !== 0 && slots[2 * slot + 1] !== hash) slot = (slot + 1) & mask;
+        found[row - from] = slots[2 * slot] - 1;
+      }
+      // That row, when it holds the key (nearly always): its probability; else the probe goes on.
+      for (let row = from; row < to; row++) {
+        if (kept[row] === 0) continue;
+        let suffix = found[row - from];
+        if (suffix < 0 || compareRows(tableIds, suffix * stride, ids, row * m + 1, length) !== 0) {
+          suffix = this.find(ids, row * m + 1, hashes[row - from]);
+          if (suffix < 0) throw suffixMissing(store, m, ids, row * m);
+        }
+        lower[row] = table.prob(suffix);
+      }
     }
   }
 }

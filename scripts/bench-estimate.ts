@@ -41,7 +41,7 @@ import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
 import { countTablesBytes } from '../src/estimate/from-store.ts';
 import type { JobManifest } from '../src/job/manifest.ts';
-import { measureCommand, type Measurement } from './lib/rss.ts';
+import { GNU_TIME_PATH, measureCommand, type Measurement } from './lib/rss.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
 const BENCH_OUT = join(REPO, 'bench-out');
@@ -120,6 +120,9 @@ interface Row {
   what: string;
   method: string;
   wallMs: number;
+  /** User + system CPU time of the command (all its threads): steadier than the wall time on a
+   *  machine shared with other work. */
+  cpuMs: number;
   rssBytesMax: number;
   ngramsPerSecond: number;
   loadAverage1m: number;
@@ -127,10 +130,15 @@ interface Row {
 
 async function measure(what: string, method: string, command: string, args: string[], ngrams: number): Promise<Row> {
   const loadAverage1m = os.loadavg()[0];
-  const measured: Measurement = await measureCommand(command, args, { cwd: REPO, stdout: 'pipe', stderr: 'pipe' });
+  // An inner GNU time reports the command's CPU time; the outer one (measureCommand) wall and RSS.
+  const cpuReport = join(os.tmpdir(), `bench-estimate-cpu-${process.pid}.txt`);
+  const measured: Measurement = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', '-o', cpuReport, command, ...args], { cwd: REPO, stdout: 'pipe', stderr: 'pipe' });
   if (measured.exitCode !== 0) fail(`${what} ${method} failed (${measured.exitCode ?? measured.signal}): ${measured.stderr.trim()}`);
-  const row = { what, method, wallMs: measured.elapsedMs, rssBytesMax: measured.rssBytesMax, ngramsPerSecond: (ngrams / measured.elapsedMs) * 1000, loadAverage1m };
-  log(`${what.padEnd(26)} ${method.padEnd(22)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  ${rate(row.ngramsPerSecond).padStart(8)} n-grams/s  peak RSS ${mib(row.rssBytesMax).padStart(9)}  load ${loadAverage1m.toFixed(1)}`);
+  const [user, system] = readFileSync(cpuReport, 'utf8').trim().split(/\s+/).slice(-2).map(Number);
+  rmSync(cpuReport, { force: true });
+  const cpuMs = Math.round((user + system) * 1000);
+  const row = { what, method, wallMs: measured.elapsedMs, cpuMs, rssBytesMax: measured.rssBytesMax, ngramsPerSecond: (ngrams / measured.elapsedMs) * 1000, loadAverage1m };
+  log(`${what.padEnd(26)} ${method.padEnd(22)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  CPU ${(cpuMs / 1000).toFixed(1).padStart(7)} s  ${rate(row.ngramsPerSecond).padStart(8)} n-grams/s  peak RSS ${mib(row.rssBytesMax).padStart(9)}  load ${loadAverage1m.toFixed(1)}`);
   return row;
 }
 
@@ -262,25 +270,27 @@ async function main(): Promise<void> {
   const lines: string[] = [];
   lines.push(`job: ${job} (order ${manifest.config.order}, ${manifest.config.partitions} partitions, ${ngrams} n-grams); --memory ${mib(options.memoryBytes)}, ${options.workers} workers; ${os.cpus().length} CPUs`);
   lines.push(`count stage (job.json): ${(countStageMs / 1000).toFixed(1)} s in all, count phase ${(countPhaseMs / 1000).toFixed(1)} s`);
-  lines.push(['path', 'method', 'wall s', 'n-grams/s', 'peak RSS', 'vs count stage', 'vs count phase', 'load'].join('\t'));
+  lines.push(['path', 'method', 'wall s', 'CPU s', 'n-grams/s', 'peak RSS', 'vs count stage', 'vs count phase', 'load'].join('\t'));
   const memoryRow = rows.find((r) => r.what.startsWith('in memory'));
   for (const r of rows) {
-    lines.push([r.what, r.method, (r.wallMs / 1000).toFixed(1), rate(r.ngramsPerSecond), mib(r.rssBytesMax),
+    lines.push([r.what, r.method, (r.wallMs / 1000).toFixed(1), (r.cpuMs / 1000).toFixed(1), rate(r.ngramsPerSecond), mib(r.rssBytesMax),
       `${(r.wallMs / countStageMs).toFixed(2)}×`, `${(r.wallMs / Math.max(1, countPhaseMs)).toFixed(2)}×`, r.loadAverage1m.toFixed(1)].join('\t'));
   }
   const recount = rows.find((r) => r.what.startsWith('quern count'));
   if (recount) {
     for (const r of rows.filter((x) => x.what.startsWith('streaming'))) {
       lines.push(`${r.what} ${r.method}: ${(r.wallMs / recount.wallMs).toFixed(2)}× the time of quern count measured in this run` +
-        (recountPhaseMs === null ? '' : `, ${(r.wallMs / recountPhaseMs).toFixed(2)}× its count stage (stageMs.count ${(recountPhaseMs / 1000).toFixed(1)} s)`));
+        (recountPhaseMs === null ? '' : `, ${(r.wallMs / recountPhaseMs).toFixed(2)}× its count stage (stageMs.count ${(recountPhaseMs / 1000).toFixed(1)} s)`) +
+        `; CPU ${(r.cpuMs / recount.cpuMs).toFixed(2)}× that of the whole quern count`);
     }
   }
   if (against !== null) {
     for (const method of options.methods) {
-      const mine = rows.filter((r) => r.what === 'streaming' && r.method === method).map((r) => r.wallMs);
-      const theirs = rows.filter((r) => r.what === `streaming ${options.against}` && r.method === method).map((r) => r.wallMs);
+      const mine = rows.filter((r) => r.what === 'streaming' && r.method === method);
+      const theirs = rows.filter((r) => r.what === `streaming ${options.against}` && r.method === method);
       const median = (xs: number[]) => [...xs].sort((x, y) => x - y)[Math.floor(xs.length / 2)];
-      if (mine.length > 0 && theirs.length > 0) lines.push(`${method}: this checkout ${(median(mine) / median(theirs)).toFixed(2)}× the time of ${options.against} (medians of ${mine.length} runs each, alternating)`);
+      const ratio = (key: 'wallMs' | 'cpuMs') => (median(mine.map((r) => r[key])) / median(theirs.map((r) => r[key]))).toFixed(2);
+      if (mine.length > 0 && theirs.length > 0) lines.push(`${method}: this checkout ${ratio('wallMs')}× the wall time, ${ratio('cpuMs')}× the CPU time of ${options.against} (medians of ${mine.length} runs each, alternating)`);
     }
     for (const { method, differences } of identical) lines.push(`${method}: results ${differences.length === 0 ? 'byte-identical' : 'DIFFER: ' + differences.join('; ')}`);
   }

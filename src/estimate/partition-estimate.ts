@@ -6,9 +6,9 @@
  * are in P too; only the unigrams are shared (their probabilities come with the task). The task
  * goes through orders 2..N in key order, gathering windows of whole contexts, and applies the
  * method's per-context rule (method-plan.ts, back-off-form.ts) exactly as the in-memory driver does.
- * p(w | h') of a row is looked up in P's own results of order m−1, held as a typed array of rows
- * (Table) with a hash index over their ids (RowIndex): one lookup per row by the ids of its suffix,
- * a window's lookups in batches so that their cache misses overlap.
+ * p(w | h') of a row is looked up in P's own results of order m−1, held in a hash table of their
+ * ids and probabilities (ProbabilityTable): one lookup per row by the ids of its suffix, a window's
+ * lookups in batches so that their cache misses overlap.
  *
  * Files: each order's two result files are written while the order is estimated (writes run ahead
  * of the estimate, result-file.ts); their fsync and rename go on while the next order is estimated,
@@ -18,8 +18,8 @@
  * (`o{m}.prob`), and the back-off weights of the contexts of order m−1 whose n-grams are in P
  * (`o{m−1}.bow`) — rows of other partitions, joined when the model is read (job-model-source.ts).
  *
- * Memory: P's results of orders m−1 and m (rows × (4·order + 8) bytes), the index of those of order
- * m−1, and a window of at most ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's row counts.
+ * Memory: P's results of orders m−1 and m (1.5 slots of 4·order + 8 bytes, order rounded up to
+ * even, per row of the order), and a window of at most ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's row counts.
  */
 import * as path from 'node:path';
 import { assert, QuernError } from '../errors.ts';
@@ -80,57 +80,141 @@ export function partitionRowCounts(store: PartitionStore): number[] {
   return progress.tallies.map((t) => t.distinct);
 }
 
-/** Bytes of a table of results of one order. */
-function tableBytes(order: number, rows: number): number {
-  return rows * 4 * Table.strideOf(order);
-}
-
 /** Bytes a partition's task holds at most, from its rows per order (module comment). */
 export function partitionNeedBytes(rows: number[], size: number): number {
   const orderMax = rows.length;
   let need = 0;
   for (let m = 2; m <= orderMax; m++) {
-    const previous = m > 2 ? tableBytes(m - 1, rows[m - 2]) + RowIndex.bytesFor(rows[m - 2]) : 0;
-    const current = m < orderMax ? tableBytes(m, rows[m - 1]) : 0;
+    const previous = m > 2 ? ProbabilityTable.bytesFor(m - 1, rows[m - 2]) : 0;
+    const current = m < orderMax ? ProbabilityTable.bytesFor(m, rows[m - 1]) : 0;
     const window = Math.min(rows[m - 1], ESTIMATE_WINDOW_ROWS + size) * (4 * m + ESTIMATE_WINDOW_BYTES_PER_ROW);
     need = Math.max(need, previous + current + window);
   }
   return need;
 }
 
+/** Rows a ProbabilityTable inserts, or looks up, together. */
+const TABLE_BATCH_ROWS = 4096;
+
+/** Slots of a ProbabilityTable per row it may hold: at most two thirds of the slots are used. */
+const TABLE_SLOTS_PER_ROW = 1.5;
+
 /**
- * Kept rows of one order of the partition with their probabilities (linear), row by row in one
- * buffer — the ids padded to 8 bytes, then the probability — so a lookup touches one cache line.
+ * Kept rows of one order of the partition with their probabilities (linear), found by their ids:
+ * an open-addressing hash table (linear probing) whose slots hold a row's ids, padded to 8 bytes,
+ * and its probability side by side, so that a lookup mostly reads one cache line. An empty slot
+ * holds NaN as its probability (a probability never is: applyContextRule checks them).
+ *
+ * Rows are staged by `push` and inserted a batch at a time, and lookups go a batch at a time too
+ * (`suffixProbabilities`): first the hashes of the batch (arithmetic), then the slots. The accesses
+ * to the slots are far apart in memory and independent of one another, so the processor has many
+ * under way at once rather than waiting for each in turn.
  */
-class Table {
-  /** u32 elements per row (even). */
+class ProbabilityTable {
+  /** u32 elements per slot (even). */
   readonly stride: number;
-  readonly ids: Uint32Array;
+  private readonly slotCount: number;
+  private readonly ids: Uint32Array;
   private readonly values: Float64Array;
+  /** Rows inserted. */
   rows = 0;
+  private readonly stagedIds: Uint32Array;
+  private readonly stagedValues: Float64Array;
+  private staged = 0;
+  /** Scratch of a batch: its hashes. */
+  private readonly hashes = new Int32Array(TABLE_BATCH_ROWS);
 
   constructor(readonly order: number, readonly capacity: number) {
-    this.stride = Table.strideOf(order);
-    const buffer = new ArrayBuffer(capacity * this.stride * 4);
+    this.stride = ProbabilityTable.strideOf(order);
+    this.slotCount = ProbabilityTable.slotsFor(capacity);
+    const buffer = new ArrayBuffer(this.slotCount * this.stride * 4);
     this.ids = new Uint32Array(buffer);
     this.values = new Float64Array(buffer);
+    for (let slot = 0; slot < this.slotCount; slot++) this.values[this.valueIndex(slot)] = NaN;
+    this.stagedIds = new Uint32Array(TABLE_BATCH_ROWS * order);
+    this.stagedValues = new Float64Array(TABLE_BATCH_ROWS);
   }
 
   static strideOf(order: number): number {
     return 2 * Math.ceil(order / 2) + 2;
   }
 
-  /** Appends the row src[offset .. offset+order) with probability p. */
-  push(src: Uint32Array, offset: number, p: number): void {
-    assert(this.rows < this.capacity, 'a partition table holds at most the rows its store records');
-    const base = this.rows * this.stride;
-    for (let j = 0; j < this.order; j++) this.ids[base + j] = src[offset + j];
-    this.values[(base + this.stride - 2) >> 1] = p;
-    this.rows++;
+  private static slotsFor(capacity: number): number {
+    return Math.max(16, Math.ceil(capacity * TABLE_SLOTS_PER_ROW));
   }
 
-  prob(row: number): number {
-    return this.values[(row * this.stride + this.stride - 2) >> 1];
+  /** Bytes of a table of `order` for `rows` rows at most, staging included. */
+  static bytesFor(order: number, rows: number): number {
+    return ProbabilityTable.slotsFor(rows) * 4 * ProbabilityTable.strideOf(order) + TABLE_BATCH_ROWS * (4 * order + 12);
+  }
+
+  /** Index into `values` of a slot's probability. */
+  private valueIndex(slot: number): number {
+    return (slot * this.stride + this.stride - 2) >> 1;
+  }
+
+  /** The first slot to probe for a hash: the hash scaled to the slot count. */
+  private home(hash: number): number {
+    return Math.floor(((hash >>> 0) / 4294967296) * this.slotCount);
+  }
+
+  /** Adds the row src[offset .. offset+order) with probability p (inserted by the next flush at the latest). */
+  push(src: Uint32Array, offset: number, p: number): void {
+    assert(this.rows + this.staged < this.capacity, 'a partition table holds at most the rows its store records');
+    const order = this.order;
+    const base = this.staged * order;
+    for (let j = 0; j < order; j++) this.stagedIds[base + j] = src[offset + j];
+    this.stagedValues[this.staged++] = p;
+    if (this.staged === TABLE_BATCH_ROWS) this.flush();
+  }
+
+  /** Inserts the staged rows (rows are distinct: each goes to a free slot). */
+  flush(): void {
+    const { order, stride, ids, values, hashes, stagedIds, stagedValues, slotCount } = this;
+    const staged = this.staged;
+    for (let r = 0; r < staged; r++) hashes[r] = ngramHash(stagedIds, r * order, order) | 0;
+    for (let r = 0; r < staged; r++) {
+      let slot = this.home(hashes[r]);
+      for (;;) {
+        const value = values[(slot * stride + stride - 2) >> 1];
+        if (value !== value) break; // NaN: free
+        slot = slot + 1 === slotCount ? 0 : slot + 1;
+      }
+      const base = slot * stride;
+      for (let j = 0; j < order; j++) ids[base + j] = stagedIds[r * order + j];
+      values[(base + stride - 2) >> 1] = stagedValues[r];
+    }
+    this.rows += staged;
+    this.staged = 0;
+  }
+
+  /**
+   * lower[row] = the probability of the suffix w2 … wm of each kept row w1 … wm of `ids` (rows of
+   * order m = this table's order + 1); throws `suffixMissing` for a kept row whose suffix is not in
+   * the table. The staged rows must have been flushed.
+   */
+  suffixProbabilities(ids: Uint32Array, m: number, rows: number, kept: Uint8Array, lower: Float64Array, store: PartitionStore): void {
+    assert(this.order === m - 1 && this.staged === 0, 'the suffixes of order m are the inserted rows of order m − 1');
+    const { order, stride, ids: tableIds, values, hashes, slotCount } = this;
+    for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
+      const to = Math.min(rows, from + TABLE_BATCH_ROWS);
+      for (let row = from; row < to; row++) hashes[row - from] = kept[row] === 1 ? ngramHash(ids, row * m + 1, order) | 0 : 0;
+      for (let row = from; row < to; row++) {
+        if (kept[row] === 0) continue;
+        const key = row * m + 1;
+        let slot = this.home(hashes[row - from]);
+        for (;;) {
+          const base = slot * stride;
+          const value = values[(base + stride - 2) >> 1];
+          if (value !== value) throw suffixMissing(store, m, ids, row * m);
+          if (compareRows(tableIds, base, ids, key, order) === 0) {
+            lower[row] = value;
+            break;
+          }
+          slot = slot + 1 === slotCount ? 0 : slot + 1;
+        }
+      }
+    }
   }
 }
 
@@ -204,10 +288,10 @@ export async function estimatePartition(
   try {
     const partitionRows = partitionRowCounts(store);
     await fs.mkdir(path.dirname(path.join(jobDir, resultFilePath(partition, 'probabilities', 2))));
-    let previous: Table | null = null;
+    let previous: ProbabilityTable | null = null;
     for (let m = 2; m <= orderMax; m++) {
       const highest = m === orderMax;
-      const current: Table | null = highest ? null : new Table(m, partitionRows[m - 1]);
+      const current: ProbabilityTable | null = highest ? null : new ProbabilityTable(m, partitionRows[m - 1]);
       const probFile = resultFilePath(partition, 'probabilities', m);
       const bowFile = resultFilePath(partition, 'back-off', m - 1);
       const prob = await openThrough(fs, path.join(jobDir, probFile));
@@ -286,8 +370,8 @@ async function estimateOrder(
   highest: boolean,
   plan: MethodPlan,
   settings: PartitionEstimateSettings,
-  previous: Table | null,
-  current: Table | null,
+  previous: ProbabilityTable | null,
+  current: ProbabilityTable | null,
   probWriter: ResultWriter,
   bowWriter: ResultWriter,
   onRows: (rows: number) => void,
@@ -298,7 +382,6 @@ async function estimateOrder(
   const window = new Window(m, ESTIMATE_WINDOW_ROWS);
   let lower = new Float64Array(0);
   let prob = new Float64Array(0);
-  const shorterIndex = previous === null ? null : new RowIndex(previous);
 
   /** Applies the rule to the window's first `rows` rows (whole contexts). */
   const process = (rows: number): void => {
@@ -317,7 +400,7 @@ async function estimateOrder(
       const unigramProb = settings.unigramProb;
       for (let row = 0; row < rows; row++) if (kept[row] === 1) lower[row] = unigramProb[ids[row * 2 + 1]];
     } else {
-      (shorterIndex as RowIndex).suffixProbabilities(ids, m, rows, kept, lower, store);
+      (previous as ProbabilityTable).suffixProbabilities(ids, m, rows, kept, lower, store);
     }
     for (let context = 0; context + 1 < starts.length; context++) {
       const start = starts[context];
@@ -381,6 +464,7 @@ async function estimateOrder(
     }
     if (contBatch !== null) throw corruptContinuation(store, m);
     if (window.rows > 0) process(window.rows);
+    current?.flush();
     await probWriter.drain();
     await bowWriter.drain();
   } finally {
@@ -401,102 +485,4 @@ function suffixMissing(store: PartitionStore, order: number, ids: Uint32Array, o
 
 function corruptContinuation(store: PartitionStore, order: number): QuernError {
   return new QuernError('corrupt', `count store ${store.dir}: a continuation count of order ${order} has no raw count; re-run quern count with --restart`);
-}
-
-/** Rows whose suffixes are looked up together (their hashes and slots stay in the caches between
- *  the passes of RowIndex.suffixProbabilities). */
-const SUFFIX_BATCH_ROWS = 4096;
-
-/**
- * The rows of a table of results (order n), found by their ids: an open-addressing hash table whose
- * slots hold a row (plus one; 0: empty) and the full hash of its ids side by side, so a probe reads
- * the table's row only when the hashes agree. At most half the slots are in use.
- */
-export class RowIndex {
-  /** Slot s: slots[2s] = row + 1 (0: empty), slots[2s + 1] = the row's hash. */
-  readonly slots: Int32Array;
-  private readonly mask: number;
-  /** Scratch of one batch: the hashes of its keys, then the rows found. */
-  private readonly batchHashes = new Int32Array(SUFFIX_BATCH_ROWS);
-  private readonly batchRows = new Int32Array(SUFFIX_BATCH_ROWS);
-
-  constructor(private readonly table: Table) {
-    const { ids, stride, order, rows } = table;
-    let slotCount = 16;
-    while (slotCount < 2 * rows) slotCount *= 2;
-    const slots = new Int32Array(2 * slotCount);
-    const mask = slotCount - 1;
-    this.slots = slots;
-    this.mask = mask;
-    // In batches: the hashes first (arithmetic), then the insertions, whose far-apart accesses do
-    // not depend on one another and so overlap in the processor.
-    const hashes = this.batchHashes;
-    for (let from = 0; from < rows; from += SUFFIX_BATCH_ROWS) {
-      const to = Math.min(rows, from + SUFFIX_BATCH_ROWS);
-      for (let row = from; row < to; row++) hashes[row - from] = ngramHash(ids, row * stride, order) | 0;
-      for (let row = from; row < to; row++) {
-        const hash = hashes[row - from];
-        let slot = hash & mask;
-        while (slots[2 * slot] !== 0) slot = (slot + 1) & mask;
-        slots[2 * slot] = row + 1;
-        slots[2 * slot + 1] = hash;
-      }
-    }
-  }
-
-  /** Bytes of an index over `rows` rows (at most 4 slots of 8 bytes per row). */
-  static bytesFor(rows: number): number {
-    return rows * 32 + 128 + 8 * SUFFIX_BATCH_ROWS;
-  }
-
-  /** The row whose ids are key[keyStart .. keyStart+order) and whose hash is `hash`, or −1. */
-  private find(key: Uint32Array, keyStart: number, hash: number): number {
-    const { ids, stride, order } = this.table;
-    const slots = this.slots;
-    for (let slot = hash & this.mask; ; slot = (slot + 1) & this.mask) {
-      const row = slots[2 * slot] - 1;
-      if (row < 0) return -1;
-      if (slots[2 * slot + 1] === hash && compareRows(ids, row * stride, key, keyStart, order) === 0) return row;
-    }
-  }
-
-  /**
-   * lower[row] = the probability of the suffix w2 … wm of each kept row w1 … wm of `ids` (rows of
-   * order m = the table's order + 1); throws `suffixMissing` for a kept row whose suffix is not in
-   * the table. In batches of passes — all hashes, then all slots, then all rows — so that the
-   * lookups, each one or two accesses far apart in memory and independent of the others, are under
-   * way many at once instead of one after another.
-   */
-  suffixProbabilities(ids: Uint32Array, m: number, rows: number, kept: Uint8Array, lower: Float64Array, store: PartitionStore): void {
-    const table = this.table;
-    assert(table.order === m - 1, 'the suffixes of order m are rows of order m − 1');
-    const { ids: tableIds, stride } = table;
-    const length = m - 1;
-    const slots = this.slots;
-    const mask = this.mask;
-    const hashes = this.batchHashes;
-    const found = this.batchRows;
-    for (let from = 0; from < rows; from += SUFFIX_BATCH_ROWS) {
-      const to = Math.min(rows, from + SUFFIX_BATCH_ROWS);
-      for (let row = from; row < to; row++) hashes[row - from] = kept[row] === 1 ? ngramHash(ids, row * m + 1, length) | 0 : 0;
-      // The first slot of each key's probe sequence whose hash agrees (or the empty slot ending it).
-      for (let row = from; row < to; row++) {
-        if (kept[row] === 0) continue;
-        const hash = hashes[row - from];
-        let slot = hash & mask;
-        while (slots[2 * slot] !== 0 && slots[2 * slot + 1] !== hash) slot = (slot + 1) & mask;
-        found[row - from] = slots[2 * slot] - 1;
-      }
-      // That row, when it holds the key (nearly always): its probability; else the probe goes on.
-      for (let row = from; row < to; row++) {
-        if (kept[row] === 0) continue;
-        let suffix = found[row - from];
-        if (suffix < 0 || compareRows(tableIds, suffix * stride, ids, row * m + 1, length) !== 0) {
-          suffix = this.find(ids, row * m + 1, hashes[row - from]);
-          if (suffix < 0) throw suffixMissing(store, m, ids, row * m);
-        }
-        lower[row] = table.prob(suffix);
-      }
-    }
-  }
 }

@@ -7,7 +7,7 @@ import * as os from 'node:os';
 import * as path from 'node:path';
 import type { CommandModule } from 'yargs';
 import { QuernError } from '../errors.ts';
-import { CHUNK_BYTES_TARGET, ORDER_MAX, PARTITIONS_DEFAULT } from '../limits.ts';
+import { CHUNK_BYTES_TARGET, ORDER_MAX, PARTITIONS_DEFAULT, PARTITIONS_MAX } from '../limits.ts';
 import { runCount } from '../job/pipeline.ts';
 import type { JobConfig } from '../job/manifest.ts';
 import { loadStatsInput } from '../stats/job-stats.ts';
@@ -26,6 +26,7 @@ export const buildCommand: CommandModule = {
     .option('job', { type: 'string', describe: 'Job directory (default: OUT.job)' })
     .option('order', { type: 'number', default: 3, describe: `Highest n-gram order, 1 to ${ORDER_MAX}` })
     .option('workers', { type: 'number', default: os.availableParallelism(), describe: 'Worker threads' })
+    .option('partitions', { type: 'number', default: PARTITIONS_DEFAULT, describe: 'Partitions of the n-gram space: more make each estimate task smaller (less memory)' })
     .option('memory', { type: 'string', describe: 'Budget for counting memory, e.g. 2GiB (default: a quarter of RAM, at least 1 GiB)' })
     .option('vocab-min-count', { type: 'number', describe: 'Keep word types seen at least C times; the rest count as <unk>' })
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' })))
@@ -37,7 +38,7 @@ export const buildCommand: CommandModule = {
     const minCount = argv['vocab-min-count'] === undefined ? undefined : intInRange(argv['vocab-min-count'], '--vocab-min-count', 1, Number.MAX_SAFE_INTEGER);
     const config: JobConfig = {
       order: intInRange(argv.order, '--order', 1, ORDER_MAX),
-      partitions: PARTITIONS_DEFAULT,
+      partitions: intInRange(argv.partitions, '--partitions', 1, PARTITIONS_MAX),
       normalize: { lowercase: Boolean(argv.lowercase), unicode: argv.unicode as 'none', split: argv.split as 'space' },
       format: argv.format as 'auto',
       textField: typeof argv['text-field'] === 'string' ? argv['text-field'] : null,

@@ -6,19 +6,24 @@
  * are in P too; only the unigrams are shared (their probabilities come with the task). The task
  * goes through orders 2..N in key order, gathering windows of whole contexts, and applies the
  * method's per-context rule (method-plan.ts, back-off-form.ts) exactly as the in-memory driver does.
- * p(w | h') of a row is looked up in P's own results of order m−1, held as sorted typed arrays (the
- * rows of h' are contiguous there: one binary search for the context, a galloping search per word).
+ * p(w | h') of a row is looked up in P's own results of order m−1, held in a hash table of their
+ * ids and probabilities (ProbabilityTable): one lookup per row by the ids of its suffix, a window's
+ * lookups in batches so that their cache misses overlap.
+ *
+ * Files: each order's two result files are written while the order is estimated (writes run ahead
+ * of the estimate, result-file.ts); their fsync and rename go on while the next order is estimated,
+ * and the task ends once every file is durable.
  *
  * Output per order m (docs/estimate-files.md): the kept rows of order m with log10 p(w | h)
  * (`o{m}.prob`), and the back-off weights of the contexts of order m−1 whose n-grams are in P
  * (`o{m−1}.bow`) — rows of other partitions, joined when the model is read (job-model-source.ts).
  *
- * Memory: P's results of orders m−1 and m (rows × (4·order + 8) bytes), and a window of at most
- * ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's row counts.
+ * Memory: P's results of orders m−1 and m (1.5 slots of 4·order + 8 bytes, order rounded up to
+ * even, per row of the order), and a window of at most ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's row counts.
  */
 import * as path from 'node:path';
 import { assert, QuernError } from '../errors.ts';
-import { writeFileThrough, type StageFs } from '../job/fsio.ts';
+import { writeFileThrough, type StageFs, type WritableFile } from '../job/fsio.ts';
 import { ESTIMATE_WINDOW_BYTES_PER_ROW, ESTIMATE_WINDOW_ROWS } from '../limits.ts';
 import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
 import type { MergeProgress } from '../merge/merge-partition.ts';
@@ -75,57 +80,141 @@ export function partitionRowCounts(store: PartitionStore): number[] {
   return progress.tallies.map((t) => t.distinct);
 }
 
-/** Bytes of a table of results of one order. */
-function tableBytes(order: number, rows: number): number {
-  return rows * 4 * Table.strideOf(order);
-}
-
 /** Bytes a partition's task holds at most, from its rows per order (module comment). */
 export function partitionNeedBytes(rows: number[], size: number): number {
   const orderMax = rows.length;
   let need = 0;
   for (let m = 2; m <= orderMax; m++) {
-    const previous = m > 2 ? tableBytes(m - 1, rows[m - 2]) + ContextIndex.bytesFor(rows[m - 2]) : 0;
-    const current = m < orderMax ? tableBytes(m, rows[m - 1]) : 0;
+    const previous = m > 2 ? ProbabilityTable.bytesFor(m - 1, rows[m - 2]) : 0;
+    const current = m < orderMax ? ProbabilityTable.bytesFor(m, rows[m - 1]) : 0;
     const window = Math.min(rows[m - 1], ESTIMATE_WINDOW_ROWS + size) * (4 * m + ESTIMATE_WINDOW_BYTES_PER_ROW);
     need = Math.max(need, previous + current + window);
   }
   return need;
 }
 
+/** Rows a ProbabilityTable inserts, or looks up, together. */
+const TABLE_BATCH_ROWS = 4096;
+
+/** Slots of a ProbabilityTable per row it may hold: at most two thirds of the slots are used. */
+const TABLE_SLOTS_PER_ROW = 1.5;
+
 /**
- * Kept rows of one order of the partition with their probabilities (linear), row by row in one
- * buffer — the ids padded to 8 bytes, then the probability — so a lookup touches one cache line.
+ * Kept rows of one order of the partition with their probabilities (linear), found by their ids:
+ * an open-addressing hash table (linear probing) whose slots hold a row's ids, padded to 8 bytes,
+ * and its probability side by side, so that a lookup mostly reads one cache line. An empty slot
+ * holds NaN as its probability (a probability never is: applyContextRule checks them).
+ *
+ * Rows are staged by `push` and inserted a batch at a time, and lookups go a batch at a time too
+ * (`suffixProbabilities`): first the hashes of the batch (arithmetic), then the slots. The accesses
+ * to the slots are far apart in memory and independent of one another, so the processor has many
+ * under way at once rather than waiting for each in turn.
  */
-class Table {
-  /** u32 elements per row (even). */
+class ProbabilityTable {
+  /** u32 elements per slot (even). */
   readonly stride: number;
-  readonly ids: Uint32Array;
+  private readonly slotCount: number;
+  private readonly ids: Uint32Array;
   private readonly values: Float64Array;
+  /** Rows inserted. */
   rows = 0;
+  private readonly stagedIds: Uint32Array;
+  private readonly stagedValues: Float64Array;
+  private staged = 0;
+  /** Scratch of a batch: its hashes. */
+  private readonly hashes = new Int32Array(TABLE_BATCH_ROWS);
 
   constructor(readonly order: number, readonly capacity: number) {
-    this.stride = Table.strideOf(order);
-    const buffer = new ArrayBuffer(capacity * this.stride * 4);
+    this.stride = ProbabilityTable.strideOf(order);
+    this.slotCount = ProbabilityTable.slotsFor(capacity);
+    const buffer = new ArrayBuffer(this.slotCount * this.stride * 4);
     this.ids = new Uint32Array(buffer);
     this.values = new Float64Array(buffer);
+    for (let slot = 0; slot < this.slotCount; slot++) this.values[this.valueIndex(slot)] = NaN;
+    this.stagedIds = new Uint32Array(TABLE_BATCH_ROWS * order);
+    this.stagedValues = new Float64Array(TABLE_BATCH_ROWS);
   }
 
   static strideOf(order: number): number {
     return 2 * Math.ceil(order / 2) + 2;
   }
 
-  /** Appends the row src[offset .. offset+order) with probability p. */
-  push(src: Uint32Array, offset: number, p: number): void {
-    assert(this.rows < this.capacity, 'a partition table holds at most the rows its store records');
-    const base = this.rows * this.stride;
-    for (let j = 0; j < this.order; j++) this.ids[base + j] = src[offset + j];
-    this.values[(base + this.stride - 2) >> 1] = p;
-    this.rows++;
+  private static slotsFor(capacity: number): number {
+    return Math.max(16, Math.ceil(capacity * TABLE_SLOTS_PER_ROW));
   }
 
-  prob(row: number): number {
-    return this.values[(row * this.stride + this.stride - 2) >> 1];
+  /** Bytes of a table of `order` for `rows` rows at most, staging included. */
+  static bytesFor(order: number, rows: number): number {
+    return ProbabilityTable.slotsFor(rows) * 4 * ProbabilityTable.strideOf(order) + TABLE_BATCH_ROWS * (4 * order + 12);
+  }
+
+  /** Index into `values` of a slot's probability. */
+  private valueIndex(slot: number): number {
+    return (slot * this.stride + this.stride - 2) >> 1;
+  }
+
+  /** The first slot to probe for a hash: the hash scaled to the slot count. */
+  private home(hash: number): number {
+    return Math.floor(((hash >>> 0) / 4294967296) * this.slotCount);
+  }
+
+  /** Adds the row src[offset .. offset+order) with probability p (inserted by the next flush at the latest). */
+  push(src: Uint32Array, offset: number, p: number): void {
+    assert(this.rows + this.staged < this.capacity, 'a partition table holds at most the rows its store records');
+    const order = this.order;
+    const base = this.staged * order;
+    for (let j = 0; j < order; j++) this.stagedIds[base + j] = src[offset + j];
+    this.stagedValues[this.staged++] = p;
+    if (this.staged === TABLE_BATCH_ROWS) this.flush();
+  }
+
+  /** Inserts the staged rows (rows are distinct: each goes to a free slot). */
+  flush(): void {
+    const { order, stride, ids, values, hashes, stagedIds, stagedValues, slotCount } = this;
+    const staged = this.staged;
+    for (let r = 0; r < staged; r++) hashes[r] = ngramHash(stagedIds, r * order, order) | 0;
+    for (let r = 0; r < staged; r++) {
+      let slot = this.home(hashes[r]);
+      for (;;) {
+        const value = values[(slot * stride + stride - 2) >> 1];
+        if (value !== value) break; // NaN: free
+        slot = slot + 1 === slotCount ? 0 : slot + 1;
+      }
+      const base = slot * stride;
+      for (let j = 0; j < order; j++) ids[base + j] = stagedIds[r * order + j];
+      values[(base + stride - 2) >> 1] = stagedValues[r];
+    }
+    this.rows += staged;
+    this.staged = 0;
+  }
+
+  /**
+   * lower[row] = the probability of the suffix w2 … wm of each kept row w1 … wm of `ids` (rows of
+   * order m = this table's order + 1); throws `suffixMissing` for a kept row whose suffix is not in
+   * the table. The staged rows must have been flushed.
+   */
+  suffixProbabilities(ids: Uint32Array, m: number, rows: number, kept: Uint8Array, lower: Float64Array, store: PartitionStore): void {
+    assert(this.order === m - 1 && this.staged === 0, 'the suffixes of order m are the inserted rows of order m − 1');
+    const { order, stride, ids: tableIds, values, hashes, slotCount } = this;
+    for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
+      const to = Math.min(rows, from + TABLE_BATCH_ROWS);
+      for (let row = from; row < to; row++) hashes[row - from] = kept[row] === 1 ? ngramHash(ids, row * m + 1, order) | 0 : 0;
+      for (let row = from; row < to; row++) {
+        if (kept[row] === 0) continue;
+        const key = row * m + 1;
+        let slot = this.home(hashes[row - from]);
+        for (;;) {
+          const base = slot * stride;
+          const value = values[(base + stride - 2) >> 1];
+          if (value !== value) throw suffixMissing(store, m, ids, row * m);
+          if (compareRows(tableIds, base, ids, key, order) === 0) {
+            lower[row] = value;
+            break;
+          }
+          slot = slot + 1 === slotCount ? 0 : slot + 1;
+        }
+      }
+    }
   }
 }
 
@@ -194,27 +283,45 @@ export async function estimatePartition(
   const plan = planMethod(settings.request, settings.orders, settings.size);
   const store = PartitionStore.open(path.join(jobDir, partitionStoreDir(partition)), 'read');
   const files: ResultFileRecord[] = [];
+  /** Files written whose fsync and rename are under way while the next order is estimated. */
+  const syncing: Array<Promise<void>> = [];
   try {
     const partitionRows = partitionRowCounts(store);
     await fs.mkdir(path.dirname(path.join(jobDir, resultFilePath(partition, 'probabilities', 2))));
-    let previous: Table | null = null;
+    let previous: ProbabilityTable | null = null;
     for (let m = 2; m <= orderMax; m++) {
       const highest = m === orderMax;
-      const current: Table | null = highest ? null : new Table(m, partitionRows[m - 1]);
+      const current: ProbabilityTable | null = highest ? null : new ProbabilityTable(m, partitionRows[m - 1]);
       const probFile = resultFilePath(partition, 'probabilities', m);
       const bowFile = resultFilePath(partition, 'back-off', m - 1);
-      await writeFileThrough(fs, path.join(jobDir, probFile), async (probOut) => {
-        const probWriter = new ResultWriter(probOut, { kind: 'probabilities', order: m, partition });
-        await writeFileThrough(fs, path.join(jobDir, bowFile), async (bowOut) => {
-          const bowWriter = new ResultWriter(bowOut, { kind: 'back-off', order: m - 1, partition });
-          await estimateOrder(store, m, highest, plan, settings, previous, current, probWriter, bowWriter, onRows);
-          files.push({ file: bowFile, kind: 'back-off', order: m - 1, ...(await bowWriter.finish()) });
-        });
+      const prob = await openThrough(fs, path.join(jobDir, probFile));
+      syncing.push(prob.done);
+      let bow: ThroughFile;
+      try {
+        bow = await openThrough(fs, path.join(jobDir, bowFile));
+      } catch (error) {
+        prob.end(error);
+        throw error;
+      }
+      syncing.push(bow.done);
+      try {
+        const probWriter = new ResultWriter(prob.file, { kind: 'probabilities', order: m, partition });
+        const bowWriter = new ResultWriter(bow.file, { kind: 'back-off', order: m - 1, partition });
+        await estimateOrder(store, m, highest, plan, settings, previous, current, probWriter, bowWriter, onRows);
+        files.push({ file: bowFile, kind: 'back-off', order: m - 1, ...(await bowWriter.finish()) });
         files.push({ file: probFile, kind: 'probabilities', order: m, ...(await probWriter.finish()) });
-      });
+      } catch (error) {
+        bow.end(error);
+        prob.end(error);
+        throw error;
+      }
+      bow.end();
+      prob.end();
       previous = current;
     }
+    await Promise.all(syncing);
   } finally {
+    await Promise.allSettled(syncing);
     await store.close();
   }
   const parameters = plan.header.parameters;
@@ -223,6 +330,34 @@ export async function estimatePartition(
     files,
     katz: parameters.method === 'katz' ? { contextsDiscountedAboveK: parameters.contextsDiscountedAboveK, contextsWithoutMass: parameters.contextsWithoutMass } : null,
   };
+}
+
+/**
+ * A file written through writeFileThrough (temporary name, fsync, rename) whose end the caller
+ * decides: `end()` once everything is written lets the fsync and rename go on in the background,
+ * `end(error)` removes the temporary file instead; `done` settles when either has happened (and
+ * rejects with what failed).
+ */
+interface ThroughFile {
+  file: WritableFile;
+  end(failure?: unknown): void;
+  done: Promise<void>;
+}
+
+/** Creates `filePath`'s temporary file and returns it as a ThroughFile. */
+function openThrough(fs: StageFs, filePath: string): Promise<ThroughFile> {
+  return new Promise<ThroughFile>((resolveOpened, rejectOpened) => {
+    let end: (failure?: unknown) => void = () => undefined;
+    const ended = new Promise<void>((resolve, reject) => {
+      end = (failure) => (failure === undefined ? resolve() : reject(failure));
+    });
+    let done: Promise<void> | undefined;
+    done = writeFileThrough(fs, filePath, (file) => {
+      resolveOpened({ file, end, done: done as Promise<void> });
+      return ended;
+    });
+    done.catch(rejectOpened); // fails the open when creating the file fails; handled later otherwise
+  });
 }
 
 /** Bytes of encoded results a writer may hold before they are written. */
@@ -235,8 +370,8 @@ async function estimateOrder(
   highest: boolean,
   plan: MethodPlan,
   settings: PartitionEstimateSettings,
-  previous: Table | null,
-  current: Table | null,
+  previous: ProbabilityTable | null,
+  current: ProbabilityTable | null,
   probWriter: ResultWriter,
   bowWriter: ResultWriter,
   onRows: (rows: number) => void,
@@ -247,7 +382,6 @@ async function estimateOrder(
   const window = new Window(m, ESTIMATE_WINDOW_ROWS);
   let lower = new Float64Array(0);
   let prob = new Float64Array(0);
-  const shorterIndex = previous === null ? null : new ContextIndex(previous);
 
   /** Applies the rule to the window's first `rows` rows (whole contexts). */
   const process = (rows: number): void => {
@@ -260,53 +394,20 @@ async function estimateOrder(
     const ids = level.ids;
     const kept = level.kept;
     const starts = level.contextStarts;
+    // p(w | h') of every kept row: at order 2 the unigram of w; above, the probability of the
+    // suffix h' w, a row of this partition's results of order m−1 (found by its ids).
+    if (m === 2) {
+      const unigramProb = settings.unigramProb;
+      for (let row = 0; row < rows; row++) if (kept[row] === 1) lower[row] = unigramProb[ids[row * 2 + 1]];
+    } else {
+      (previous as ProbabilityTable).suffixProbabilities(ids, m, rows, kept, lower, store);
+    }
     for (let context = 0; context + 1 < starts.length; context++) {
       const start = starts[context];
       const end = starts[context + 1];
       let keptRows = 0;
       for (let row = start; row < end; row++) keptRows += kept[row];
       if (keptRows === 0) continue; // backs off entirely (back-off-form.ts)
-      if (m === 2) {
-        for (let row = start; row < end; row++) if (kept[row] === 1) lower[row] = settings.unigramProb[ids[row * 2 + 1]];
-      } else {
-        // The rows of h' (w2 … w(m−1)) in this partition's results of order m−1, by the index of
-        // their contexts; within them the words ascend, as they do in h's rows: a galloping
-        // search forward from the last one finds each.
-        const shorter = previous as Table;
-        const stride = shorter.stride;
-        const slot = (shorterIndex as ContextIndex).find(ids, start * m + 1);
-        if (slot < 0) throw suffixMissing(store, m, ids, start * m);
-        let suffix = shorterIndex!.slots[slot];
-        const suffixEnd = shorterIndex!.slots[slot + 1];
-        const shorterIds = shorter.ids;
-        const last = m - 2;
-        for (let row = start; row < end; row++) {
-          if (kept[row] === 0) continue;
-          const word = ids[row * m + m - 1];
-          // Galloping search forward for the word among the context's rows (their last ids ascend).
-          if (shorterIds[suffix * stride + last] < word) {
-            let low = suffix;
-            let step = 1;
-            let high = suffix + 1;
-            while (high < suffixEnd && shorterIds[high * stride + last] < word) {
-              low = high;
-              step *= 2;
-              high = suffix + step;
-            }
-            if (high > suffixEnd) high = suffixEnd;
-            while (high - low > 1) {
-              const middle = (low + high) >>> 1;
-              if (shorterIds[middle * stride + last] < word) low = middle;
-              else high = middle;
-            }
-            suffix = high;
-          }
-          if (!(suffix < suffixEnd && shorterIds[suffix * stride + last] === word)) {
-            throw suffixMissing(store, m, ids, row * m);
-          }
-          lower[row] = shorter.prob(suffix);
-        }
-      }
       const weight = applyContextRule(level, rule, start, end, lower, prob, normalised);
       bowWriter.add(ids, start * m, log10BackOffOf(weight));
       for (let row = start; row < end; row++) {
@@ -363,6 +464,7 @@ async function estimateOrder(
     }
     if (contBatch !== null) throw corruptContinuation(store, m);
     if (window.rows > 0) process(window.rows);
+    current?.flush();
     await probWriter.drain();
     await bowWriter.drain();
   } finally {
@@ -383,59 +485,4 @@ function suffixMissing(store: PartitionStore, order: number, ids: Uint32Array, o
 
 function corruptContinuation(store: PartitionStore, order: number): QuernError {
   return new QuernError('corrupt', `count store ${store.dir}: a continuation count of order ${order} has no raw count; re-run quern count with --restart`);
-}
-
-/**
- * The contexts of a table of results (runs of rows sharing their first order−1 ids), found by
- * those ids: an open-addressing hash table whose slots hold each context's [first row, end) side
- * by side, so a lookup touches the slot's cache line and the first row's.
- */
-export class ContextIndex {
-  /** Slot s: slots[s] = first row (−1: empty), slots[s + 1] = end row; s even. */
-  readonly slots: Int32Array;
-  private readonly mask: number;
-  private readonly length: number;
-
-  constructor(private readonly table: Table) {
-    const stride = table.stride;
-    const length = table.order - 1;
-    this.length = length;
-    const ids = table.ids;
-    const differs = (row: number): boolean => row === 0 || compareRows(ids, (row - 1) * stride, ids, row * stride, length) !== 0;
-    let contexts = 0;
-    for (let row = 0; row < table.rows; row++) if (differs(row)) contexts++;
-    let slotCount = 16;
-    while (slotCount < 2 * contexts) slotCount *= 2;
-    this.slots = new Int32Array(2 * slotCount).fill(-1);
-    this.mask = slotCount - 1;
-    let open = -1;
-    for (let row = 0; row <= table.rows; row++) {
-      if (row < table.rows && !differs(row)) continue;
-      if (open >= 0) this.slots[open + 1] = row;
-      if (row === table.rows) break;
-      let slot = ngramHash(ids, row * stride, length) & this.mask;
-      while (this.slots[2 * slot] !== -1) slot = (slot + 1) & this.mask;
-      this.slots[2 * slot] = row;
-      open = 2 * slot;
-    }
-  }
-
-  /** Bytes of an index over `rows` rows (at most one context per row, ≤ 4 slots of 8 bytes each). */
-  static bytesFor(rows: number): number {
-    return rows * 32 + 128;
-  }
-
-  /** The slot (even index into `slots`) of the context whose ids are key[keyStart .. keyStart+order−1), or −1. */
-  find(key: Uint32Array, keyStart: number): number {
-    const { ids, stride } = this.table;
-    const length = this.length;
-    const slots = this.slots;
-    let slot = ngramHash(key, keyStart, length) & this.mask;
-    for (;;) {
-      const first = slots[2 * slot];
-      if (first === -1) return -1;
-      if (compareRows(ids, first * stride, key, keyStart, length) === 0) return 2 * slot;
-      slot = (slot + 1) & this.mask;
-    }
-  }
 }

@@ -9,7 +9,8 @@
  * truncated or extended file is caught when it is opened.
  *
  * The writer appends block by block to a WritableFile that the caller opened through
- * writeFileThrough (temporary name, fsync, rename); the reader streams block by block, verifies
+ * writeFileThrough (temporary name, fsync, rename), keeping up to RESULT_WRITE_AHEAD_BYTES of writes
+ * under way while its caller computes the next rows; the reader streams block by block, verifies
  * every checksum before it decodes what it covers and reports damage as QuernError 'corrupt'
  * naming the file.
  */
@@ -65,9 +66,15 @@ function encodeHeader(meta: ResultMeta): Buffer {
   return head;
 }
 
+/** Bytes a ResultWriter may have handed to the file system and not yet seen written. */
+export const RESULT_WRITE_AHEAD_BYTES = 8 << 20;
+
 /**
  * Writes a result file's contents to `file`, a block at a time: `add` rows in strictly increasing
- * order (asserted), `drain` now and then to write what is encoded, `finish` once at the end.
+ * order (asserted), `drain` now and then to start writing what is encoded, `finish` once at the end.
+ * Writes go one after another in the order they were started; `drain` waits for them only when more
+ * than RESULT_WRITE_AHEAD_BYTES are under way, `finish` for all. A failed write fails the next
+ * `drain` or `finish`.
  */
 export class ResultWriter {
   private readonly ids: Uint32Array;
@@ -77,6 +84,9 @@ export class ResultWriter {
   private pendingBytes = 0;
   private readonly headerCrc: number;
   private bytes = 0;
+  /** The writes started, chained; and the bytes they hold that are not yet written. */
+  private writing: Promise<void> = Promise.resolve();
+  private writingBytes = 0;
   rows = 0;
   private readonly last: Uint32Array;
   private finished = false;
@@ -146,14 +156,21 @@ export class ResultWriter {
     this.staged = 0;
   }
 
-  /** Writes the encoded blocks. */
+  /** Starts writing the encoded blocks; waits while more than RESULT_WRITE_AHEAD_BYTES are under way. */
   async drain(): Promise<void> {
-    if (this.pending.length === 0) return;
-    const data = this.pending.length === 1 ? this.pending[0] : Buffer.concat(this.pending, this.pendingBytes);
-    this.pending = [];
-    this.bytes += this.pendingBytes;
-    this.pendingBytes = 0;
-    await this.file.write(data);
+    if (this.pending.length > 0) {
+      const data = this.pending.length === 1 ? this.pending[0] : Buffer.concat(this.pending, this.pendingBytes);
+      this.pending = [];
+      this.bytes += this.pendingBytes;
+      this.writingBytes += this.pendingBytes;
+      this.pendingBytes = 0;
+      this.writing = this.writing.then(async () => {
+        await this.file.write(data);
+        this.writingBytes -= data.length;
+      });
+      this.writing.catch(() => undefined); // awaited (and so reported) by the next drain or finish
+    }
+    if (this.writingBytes > RESULT_WRITE_AHEAD_BYTES) await this.writing;
   }
 
   /** Encodes the last block and the trailer and writes everything; returns rows and file bytes. */
@@ -172,6 +189,7 @@ export class ResultWriter {
     trailer.writeUInt32LE(crc32(trailer.subarray(0, 28)), 28);
     this.push(trailer);
     await this.drain();
+    await this.writing;
     assert(this.bytes === bytes, 'result file bytes add up');
     return { rows: this.rows, bytes };
   }

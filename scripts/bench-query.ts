@@ -65,10 +65,9 @@ const syntheticBytes = bytes.parse(args['synthetic-bytes']) as number;
 // A measuring process works in its parent's directory.
 const dir = args.measure ?? mkdtempSync(path.join(os.tmpdir(), 'quern-bench-query-'));
 const REPO = path.resolve(path.dirname(fileURLToPath(import.meta.url)), '..');
-const AGAINST_FILES = ['format', 'quantise', 'writer', 'reader'];
 
 /**
- * --against REF: the model-file code of git revision REF (src/pack/{format,quantise,writer,reader}.ts),
+ * --against REF: the model-file code of git revision REF (every file of its src/pack),
  * copied into the run's directory with its imports of the rest of src/ pointed at this checkout, so
  * that the file format and reader of REF are measured side by side with this one, on the same
  * model, machine and moment. Returns the directory, or null without --against.
@@ -78,9 +77,11 @@ function againstDirectory(): string | null {
   const target = path.join(dir, 'against');
   mkdirSync(target, { recursive: true });
   writeFileSync(path.join(target, 'package.json'), '{"type":"module"}\n');
-  for (const name of AGAINST_FILES) {
-    const source = execFileSync('git', ['show', `${args.against}:src/pack/${name}.ts`], { cwd: REPO, encoding: 'utf8' });
-    writeFileSync(path.join(target, `${name}.ts`), source.replaceAll("from '../", `from '${REPO}/src/`));
+  // Every file of REF's src/pack (the reader and writer import their neighbours: bits, file-writer, …).
+  const names = execFileSync('git', ['ls-tree', '--name-only', `${args.against}:src/pack`], { cwd: REPO, encoding: 'utf8' }).split('\n').filter((name) => name.endsWith('.ts'));
+  for (const name of names) {
+    const source = execFileSync('git', ['show', `${args.against}:src/pack/${name}`], { cwd: REPO, encoding: 'utf8' });
+    writeFileSync(path.join(target, name), source.replaceAll("from '../", `from '${REPO}/src/`));
   }
   return target;
 }

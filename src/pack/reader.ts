@@ -97,6 +97,10 @@ export class DecoderState {
   /** @internal rows[k] (k = 1..length): the row at order k of the last k history ids, −1 when there
    *  is none (rows of an order are below 2^31: every order's values fit a 2 GiB section). */
   readonly rows = new Int32Array(ORDER_MAX + 1);
+  /** @internal For each k with rows[k] ≥ 0: the children of that row, rows [starts[k], ends[k]) of
+   *  order k + 1, decoded when the row was found (the next word's search needs them first). */
+  readonly starts = new Int32Array(ORDER_MAX + 1);
+  readonly ends = new Int32Array(ORDER_MAX + 1);
   /** The order of the n-gram that answered the last `step` (0 before the first). */
   order = 0;
 
@@ -1006,6 +1010,8 @@ export class PackedModel {
     state.length = 1;
     state.ids[0] = BOS_ID;
     state.rows[1] = BOS_ID;
+    state.starts[1] = childrenStart(this.hot[1], BOS_ID);
+    state.ends[1] = childrenEnd(this.hot[1], BOS_ID);
   }
 
   /**
@@ -1030,22 +1036,31 @@ export class PackedModel {
     let log10Prob = 0;
     let order = 1;
     let k = length;
+    const starts = state.starts;
+    const ends = state.ends;
     for (; k >= 1; k--) {
       const row = rows[k];
       if (row >= 0) {
         const level = hot[k];
-        const start = childrenStart(level, row);
-        const end = childrenEnd(level, row);
+        const start = starts[k];
+        const end = ends[k];
         if (start < end) {
+          // Read before the search, so that the memory access runs while the search does.
+          const rowBackOff = valueOf(level.backOff, level.backOffBook, row);
           const next = hot[k + 1];
           const found = words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
           if (found >= 0) {
             log10Prob = backOff + valueOf(next.prob, next.probBook, found);
             order = k + 1;
-            if (k < keep) rows[k + 1] = found;
+            if (k < keep) {
+              rows[k + 1] = found;
+              // The next word searches these children first: decoded now, while this one finishes.
+              starts[k + 1] = childrenStart(next, found);
+              ends[k + 1] = childrenEnd(next, found);
+            }
             break;
           }
-          backOff += valueOf(level.backOff, level.backOffBook, row);
+          backOff += rowBackOff;
         } else backOff += this.log10UnseenContextWeight;
       } else backOff += this.log10UnseenContextWeight;
       if (k < keep) rows[k + 1] = -1;
@@ -1057,18 +1072,23 @@ export class PackedModel {
       const row = rows[j];
       let found = -1;
       if (row >= 0) {
-        const level = hot[j];
-        const start = childrenStart(level, row);
-        const end = childrenEnd(level, row);
+        const start = starts[j];
+        const end = ends[j];
         if (start < end) {
           const next = hot[j + 1];
           found = words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
+          if (found >= 0) {
+            starts[j + 1] = childrenStart(next, found);
+            ends[j + 1] = childrenEnd(next, found);
+          }
         }
       }
       rows[j + 1] = found;
     }
     if (keep > 0) {
       rows[1] = word;
+      starts[1] = childrenStart(hot[1], word);
+      ends[1] = childrenEnd(hot[1], word);
       const ids = state.ids;
       if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
       ids[keep - 1] = word;
@@ -1096,7 +1116,12 @@ export class PackedModel {
     scratch.length = length;
     for (let i = 0; i < length; i++) {
       scratch.ids[i] = data[i];
-      scratch.rows[i + 1] = data[length + i];
+      const row = data[length + i];
+      scratch.rows[i + 1] = row;
+      if (row >= 0) {
+        scratch.starts[i + 1] = childrenStart(this.hot[i + 1], row);
+        scratch.ends[i + 1] = childrenEnd(this.hot[i + 1], row);
+      }
     }
     const log10Prob = this.step(scratch, word);
     const keep = scratch.length;

@@ -29,7 +29,16 @@
  * With --against REF (a git revision), the float32 file and reader of REF's src/pack are measured
  * beside this checkout's, on the same model (lookups with REF's state API, loads, size).
  *
+ * With --model FILE --heldout TEXT, a model file made elsewhere (e.g. `quern estimate JOB --out FILE`
+ * of a job counted from a large corpus, too large to count in memory here) is measured instead: in
+ * one fresh process, its first load and the median of two more (every check), its state-carried
+ * lookups (`step`) over TEXT (one sentence per line, words separated by whitespace, looked up with
+ * `wordId`, OOVs as `<unk>`; --heldout-lines caps the lines read), and its bytes per n-gram.
+ * --heldout corpus:DIR takes a corpus directory of scripts/gen-corpus.ts instead, and writes 2 MB of
+ * held-out text from its generator (its seed and vocabulary, the shard after its last).
+ *
  *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF]
+ *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT [--heldout-lines 100000] [--seconds 1]
  */
 import { execFileSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';
@@ -57,6 +66,9 @@ const { values: args } = parseArgs({
     measure: { type: 'string' },
     part: { type: 'string' },
     against: { type: 'string' },
+    model: { type: 'string' },
+    heldout: { type: 'string' },
+    'heldout-lines': { type: 'string', default: '100000' },
   },
 });
 const orders = args.orders.split(',').map(Number);
@@ -373,8 +385,66 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
   console.log(rows[rows.length - 1]);
 }
 
+/** --model: one model file made elsewhere, in this (fresh) process: loads, lookups, size. */
+async function measureModelFile(file: string, heldOut: string, lines: number): Promise<void> {
+  const fileBytes = statSync(file).size;
+  const loads: number[] = [];
+  let packed: PackedModel | null = null;
+  for (let i = 0; i < 3; i++) {
+    packed = null; // the previous model's buffers may go before the next load
+    const started = performance.now();
+    packed = await openModel(file);
+    loads.push(performance.now() - started);
+  }
+  const model = packed as PackedModel;
+  let text: string;
+  if (heldOut.startsWith('corpus:')) {
+    // A held-out shard of the corpus's own generator: the shard after its last.
+    const corpus = heldOut.slice('corpus:'.length);
+    const options = JSON.parse(readFileSync(path.join(corpus, '.gen-corpus.json'), 'utf8')) as { seed: number; vocabularyTypes: number; shardCount: number };
+    const shard = path.join(dir, 'heldout.txt');
+    writeShardFile(new SyntheticModel({ seed: options.seed, vocabularyTypes: options.vocabularyTypes }), options.shardCount, 2 << 20, shard);
+    text = readFileSync(shard, 'utf8');
+  } else text = readFileSync(heldOut, 'utf8');
+  const stream: number[][] = [];
+  for (const line of text.split('\n').slice(0, lines)) {
+    const words = line.split(/\s+/).filter((word) => word.length > 0);
+    if (words.length === 0) continue;
+    stream.push([...words.map((word) => { const id = model.wordId(word); return id > BOS_ID ? id : model.unkId; }), model.eosId]);
+  }
+  const tokens = stream.reduce((sum, sentence) => sum + sentence.length, 0);
+  const orders = new Array<number>(model.order + 1).fill(0);
+  const state = model.newState();
+  for (const sentence of stream) {
+    model.resetState(state);
+    for (const id of sentence) {
+      model.step(state, id);
+      orders[state.order]++;
+    }
+  }
+  const lookups = measure(tokens, () => stepPass(model, stream));
+  const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
+  const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
+  console.log(
+    `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
+      `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
+      `  load      first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))} (checksums and structure verified)\n` +
+      `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
+      orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', '),
+  );
+}
+
 if (args.measure !== undefined) {
   process.stdout.write(JSON.stringify(await measurePart(args.measure, args.part as Part)));
+  process.exit(0);
+}
+if (args.model !== undefined) {
+  if (args.heldout === undefined) throw new Error('--model needs --heldout TEXT (one sentence per line)');
+  try {
+    await measureModelFile(args.model, args.heldout, Number(args['heldout-lines']));
+  } finally {
+    rmSync(dir, { recursive: true, force: true });
+  }
   process.exit(0);
 }
 

@@ -2,8 +2,9 @@
  * The model-file reader and query library (docs/model-file.md).
  *
  * `openModel` reads the file section by section, each into a buffer of its own (DESIGN.md: a
- * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB), and checks
- * before it uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC,
+ * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB) in pieces that
+ * the thread pool reads ahead while this thread checksums those that arrived and checks the
+ * structure of each order whose sections are all verified, and checks before it uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC,
  * every offset and length inside the file, sections contiguous and aligned, lengths as the header's
  * counts require), each section's CRC and zero padding, and then the structure the queries rely on
  * (children ranges ascending and inside the next order, word ids in range and ascending within a
@@ -24,7 +25,9 @@
  * search per word, each within one context's children), then searches w among h's children; the
  * incremental state (`newState`/`step` without allocation, or `beginState`/`advance` with immutable
  * states) keeps the rows of every suffix of the history, so a decoder's lookup is one search per
- * order it backs off through, plus one per shorter order to keep the state's rows.
+ * order it backs off through, plus one per shorter order to keep the state's rows. `step`'s state
+ * also keeps each row's children range, decoded when the row is found: the next word's searches
+ * start at once, and the range's memory access overlaps the rest of the lookup that found the row.
  */
 import { promises as fsp } from 'node:fs';
 import { crc32 } from 'node:zlib';

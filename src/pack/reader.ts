@@ -1276,7 +1276,8 @@ function childrenProblem(row: number, offset: number, start: number, previousSta
 
 /** Codes of a quantised section must index their codebook. */
 function checkCodes(file: string, where: string, codes: ValueArray, codebook: Float64Array | null): void {
-  if (codebook === null) return;
+  // Floats have no codebook; a codebook of 2^8 (2^16) values takes every 8-bit (16-bit) code.
+  if (codebook === null || codebook.length >= 2 ** (8 * codes.BYTES_PER_ELEMENT)) return;
   let highest = 0;
   for (let i = 0; i < codes.length; i++) if (codes[i] > highest) highest = codes[i];
   if (codes.length > 0 && highest >= codebook.length) throw corrupt(file, where, `code ${highest} is outside its codebook of ${codebook.length} values`);

@@ -33,12 +33,13 @@
  * of a job counted from a large corpus, too large to count in memory here) is measured instead: in
  * one fresh process, its first load and the median of two more (every check), its state-carried
  * lookups (`step`) over TEXT (one sentence per line, words separated by whitespace, looked up with
- * `wordId`, OOVs as `<unk>`; --heldout-lines caps the lines read), and its bytes per n-gram.
+ * `wordId`, OOVs as `<unk>`; --heldout-lines caps the lines read), and its bytes per n-gram; with
+ * --against REF, REF's reader on the same file beside it (loads, and lookups in turn).
  * --heldout corpus:DIR takes a corpus directory of scripts/gen-corpus.ts instead, and writes 2 MB of
  * held-out text from its generator (its seed and vocabulary, the shard after its last).
  *
  *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF]
- *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT [--heldout-lines 100000] [--seconds 1]
+ *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF]
  */
 import { execFileSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';
@@ -400,6 +401,7 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
 /** --model: one model file made elsewhere, in this (fresh) process: loads, lookups, size. */
 async function measureModelFile(file: string, heldOut: string, lines: number): Promise<void> {
   const fileBytes = statSync(file).size;
+  const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
   const loads: number[] = [];
   let packed: PackedModel | null = null;
   for (let i = 0; i < 3; i++) {
@@ -434,15 +436,34 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
       orders[state.order]++;
     }
   }
-  const lookups = measure(tokens, () => stepPass(model, stream));
+  let lookups: { perSecond: number; sum: number };
+  let againstLine = '';
+  const againstDir = againstDirectory();
+  if (againstDir !== null) {
+    // The --against revision's reader on the same file (its format must be the same), in turn.
+    const reader = (await import(path.join(againstDir, 'reader.ts'))) as AgainstReader;
+    const againstLoads: number[] = [];
+    let old: AgainstModel | null = null;
+    for (let i = 0; i < 3; i++) {
+      old = null;
+      const started = performance.now();
+      old = await reader.openModel(file);
+      againstLoads.push(performance.now() - started);
+    }
+    const [mine, theirs] = measureTogether(tokens, [() => stepPass(model, stream), () => againstPass(old as AgainstModel, stream)]);
+    lookups = mine;
+    againstLine = `\n  against   ${args.against} on the same file: load median of 3 ${perGigabyte(median(againstLoads))}; lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s ` +
+      `(this revision, in turn with it: ×${(mine.perSecond / theirs.perSecond).toFixed(2)})`;
+    if (Math.abs(theirs.sum - mine.sum) > 1e-6 * Math.abs(mine.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${mine.sum}`);
+  } else lookups = measure(tokens, () => stepPass(model, stream));
   const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
-  const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
   console.log(
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
       `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
       `  load      first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))} (checksums and structure verified)\n` +
       `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
-      orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', '),
+      orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
+      againstLine,
   );
 }
 

@@ -29,7 +29,17 @@
  * With --against REF (a git revision), the float32 file and reader of REF's src/pack are measured
  * beside this checkout's, on the same model (lookups with REF's state API, loads, size).
  *
+ * With --model FILE --heldout TEXT, a model file made elsewhere (e.g. `quern estimate JOB --out FILE`
+ * of a job counted from a large corpus, too large to count in memory here) is measured instead: in
+ * one fresh process, its first load and the median of two more (every check), its state-carried
+ * lookups (`step`) over TEXT (one sentence per line, words separated by whitespace, looked up with
+ * `wordId`, OOVs as `<unk>`; --heldout-lines caps the lines read), and its bytes per n-gram; with
+ * --against REF, REF's reader on the same file beside it (loads, and lookups in turn).
+ * --heldout corpus:DIR takes a corpus directory of scripts/gen-corpus.ts instead, and writes 2 MB of
+ * held-out text from its generator (its seed and vocabulary, the shard after its last).
+ *
  *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF]
+ *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF]
  */
 import { execFileSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';
@@ -57,6 +67,9 @@ const { values: args } = parseArgs({
     measure: { type: 'string' },
     part: { type: 'string' },
     against: { type: 'string' },
+    model: { type: 'string' },
+    heldout: { type: 'string' },
+    'heldout-lines': { type: 'string', default: '100000' },
   },
 });
 const orders = args.orders.split(',').map(Number);
@@ -65,10 +78,9 @@ const syntheticBytes = bytes.parse(args['synthetic-bytes']) as number;
 // A measuring process works in its parent's directory.
 const dir = args.measure ?? mkdtempSync(path.join(os.tmpdir(), 'quern-bench-query-'));
 const REPO = path.resolve(path.dirname(fileURLToPath(import.meta.url)), '..');
-const AGAINST_FILES = ['format', 'quantise', 'writer', 'reader'];
 
 /**
- * --against REF: the model-file code of git revision REF (src/pack/{format,quantise,writer,reader}.ts),
+ * --against REF: the model-file code of git revision REF (every file of its src/pack),
  * copied into the run's directory with its imports of the rest of src/ pointed at this checkout, so
  * that the file format and reader of REF are measured side by side with this one, on the same
  * model, machine and moment. Returns the directory, or null without --against.
@@ -78,9 +90,11 @@ function againstDirectory(): string | null {
   const target = path.join(dir, 'against');
   mkdirSync(target, { recursive: true });
   writeFileSync(path.join(target, 'package.json'), '{"type":"module"}\n');
-  for (const name of AGAINST_FILES) {
-    const source = execFileSync('git', ['show', `${args.against}:src/pack/${name}.ts`], { cwd: REPO, encoding: 'utf8' });
-    writeFileSync(path.join(target, `${name}.ts`), source.replaceAll("from '../", `from '${REPO}/src/`));
+  // Every file of REF's src/pack (the reader and writer import their neighbours: bits, file-writer, …).
+  const names = execFileSync('git', ['ls-tree', '--name-only', `${args.against}:src/pack`], { cwd: REPO, encoding: 'utf8' }).split('\n').filter((name) => name.endsWith('.ts'));
+  for (const name of names) {
+    const source = execFileSync('git', ['show', `${args.against}:src/pack/${name}`], { cwd: REPO, encoding: 'utf8' });
+    writeFileSync(path.join(target, name), source.replaceAll("from '../", `from '${REPO}/src/`));
   }
   return target;
 }
@@ -156,9 +170,18 @@ function measureTogether(tokens: number, passes: Array<() => number>): Array<{ p
   return passes.map((_, index) => ({ perSecond: median(rates[index]), sum: sums[index] }));
 }
 
-/** A pass with the --against revision's state API (`advance`, a new state per word). */
+/** A pass with the --against revision's state API: `step` with a state changed in place when it has
+ *  one (as this revision's figure), else `advance` (a new state per word). */
 function againstPass(model: AgainstModel, stream: number[][]): number {
   let sum = 0;
+  if (model.newState !== undefined && model.resetState !== undefined && model.step !== undefined) {
+    const state = model.newState();
+    for (const sentence of stream) {
+      model.resetState(state);
+      for (let i = 0; i < sentence.length; i++) sum += model.step(state, sentence[i]);
+    }
+    return sum;
+  }
   for (const sentence of stream) {
     let state = model.beginState();
     for (let i = 0; i < sentence.length; i++) {
@@ -230,6 +253,9 @@ interface Measured {
 interface AgainstModel {
   beginState(): unknown;
   advance(state: unknown, word: number): { log10Prob: number; state: unknown };
+  newState?(): unknown;
+  resetState?(state: unknown): void;
+  step?(state: unknown, word: number): number;
 }
 interface AgainstReader {
   openModel(filePath: string, options?: { checkStructure?: boolean }): Promise<AgainstModel>;
@@ -365,15 +391,93 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
       (result.againstState === undefined
         ? ''
         : `\n  against   ${args.against}, float32 file of ${bytes.format(sizes.against, { decimalPlaces: 1 })} (${(sizes.against / ngrams).toFixed(2)} B/n-gram): ` +
-          `lookups with its state API ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}); ` +
+          `lookups with its state API (step if it has one) ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}); ` +
           `load ${perGigabyte(result.againstLoadMs as number)} verified, ${perGigabyte(result.againstLoadUncheckedMs as number)} checksums only ` +
           `(this revision: ×${((result.againstLoadMs as number) / result.loadMs).toFixed(2)} and ×${((result.againstLoadUncheckedMs as number) / result.loadUncheckedMs).toFixed(2)} faster)`),
   );
   console.log(rows[rows.length - 1]);
 }
 
+/** --model: one model file made elsewhere, in this (fresh) process: loads, lookups, size. */
+async function measureModelFile(file: string, heldOut: string, lines: number): Promise<void> {
+  const fileBytes = statSync(file).size;
+  const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
+  const loads: number[] = [];
+  let packed: PackedModel | null = null;
+  for (let i = 0; i < 3; i++) {
+    packed = null; // the previous model's buffers may go before the next load
+    const started = performance.now();
+    packed = await openModel(file);
+    loads.push(performance.now() - started);
+  }
+  const model = packed as PackedModel;
+  let text: string;
+  if (heldOut.startsWith('corpus:')) {
+    // A held-out shard of the corpus's own generator: the shard after its last.
+    const corpus = heldOut.slice('corpus:'.length);
+    const options = JSON.parse(readFileSync(path.join(corpus, '.gen-corpus.json'), 'utf8')) as { seed: number; vocabularyTypes: number; shardCount: number };
+    const shard = path.join(dir, 'heldout.txt');
+    writeShardFile(new SyntheticModel({ seed: options.seed, vocabularyTypes: options.vocabularyTypes }), options.shardCount, 2 << 20, shard);
+    text = readFileSync(shard, 'utf8');
+  } else text = readFileSync(heldOut, 'utf8');
+  const stream: number[][] = [];
+  for (const line of text.split('\n').slice(0, lines)) {
+    const words = line.split(/\s+/).filter((word) => word.length > 0);
+    if (words.length === 0) continue;
+    stream.push([...words.map((word) => { const id = model.wordId(word); return id > BOS_ID ? id : model.unkId; }), model.eosId]);
+  }
+  const tokens = stream.reduce((sum, sentence) => sum + sentence.length, 0);
+  const orders = new Array<number>(model.order + 1).fill(0);
+  const state = model.newState();
+  for (const sentence of stream) {
+    model.resetState(state);
+    for (const id of sentence) {
+      model.step(state, id);
+      orders[state.order]++;
+    }
+  }
+  let lookups: { perSecond: number; sum: number };
+  let againstLine = '';
+  const againstDir = againstDirectory();
+  if (againstDir !== null) {
+    // The --against revision's reader on the same file (its format must be the same), in turn.
+    const reader = (await import(path.join(againstDir, 'reader.ts'))) as AgainstReader;
+    const againstLoads: number[] = [];
+    let old: AgainstModel | null = null;
+    for (let i = 0; i < 3; i++) {
+      old = null;
+      const started = performance.now();
+      old = await reader.openModel(file);
+      againstLoads.push(performance.now() - started);
+    }
+    const [mine, theirs] = measureTogether(tokens, [() => stepPass(model, stream), () => againstPass(old as AgainstModel, stream)]);
+    lookups = mine;
+    againstLine = `\n  against   ${args.against} on the same file: load median of 3 ${perGigabyte(median(againstLoads))}; lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s ` +
+      `(this revision, in turn with it: ×${(mine.perSecond / theirs.perSecond).toFixed(2)})`;
+    if (Math.abs(theirs.sum - mine.sum) > 1e-6 * Math.abs(mine.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${mine.sum}`);
+  } else lookups = measure(tokens, () => stepPass(model, stream));
+  const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
+  console.log(
+    `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
+      `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
+      `  load      first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))} (checksums and structure verified)\n` +
+      `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
+      orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
+      againstLine,
+  );
+}
+
 if (args.measure !== undefined) {
   process.stdout.write(JSON.stringify(await measurePart(args.measure, args.part as Part)));
+  process.exit(0);
+}
+if (args.model !== undefined) {
+  if (args.heldout === undefined) throw new Error('--model needs --heldout TEXT (one sentence per line)');
+  try {
+    await measureModelFile(args.model, args.heldout, Number(args['heldout-lines']));
+  } finally {
+    rmSync(dir, { recursive: true, force: true });
+  }
   process.exit(0);
 }
 

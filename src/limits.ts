@@ -202,8 +202,10 @@ assert(LINE_BYTES_MAX >= READ_BLOCK_BYTES, 'a line may span read blocks');
  *  536 M n-grams, with 8-bit codes 2 G. */
 export const PACK_SECTION_BYTES_MAX = 2 ** 31;
 
-/** Rows of one order at most: row numbers are u32 and a children table holds rows + 1 of them. */
-export const PACK_ROWS_MAX = 2 ** 32 - 2;
+/** Rows of one order at most: the reader keeps rows and children starts (up to the next order's
+ *  rows) in signed 32-bit integers. No bound in practice: an order's values fit one section of
+ *  PACK_SECTION_BYTES_MAX, so 2^31 one-byte codes at most anyway. */
+export const PACK_ROWS_MAX = 2 ** 31 - 1;
 
 /** Sections of a model file at most: 5 file-wide plus at most 6 per order (47 at order 7); the
  *  rest is room for kinds a later minor version may add. Bounds the section table a reader reads

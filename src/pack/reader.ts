@@ -2,8 +2,9 @@
  * The model-file reader and query library (docs/model-file.md).
  *
  * `openModel` reads the file section by section, each into a buffer of its own (DESIGN.md: a
- * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB), and checks
- * before it uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC,
+ * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB) in pieces that
+ * the thread pool reads ahead while this thread checksums those that arrived and checks the
+ * structure of each order whose sections are all verified, and checks before it uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC,
  * every offset and length inside the file, sections contiguous and aligned, lengths as the header's
  * counts require), each section's CRC and zero padding, and then the structure the queries rely on
  * (children ranges ascending and inside the next order, word ids in range and ascending within a
@@ -24,7 +25,9 @@
  * search per word, each within one context's children), then searches w among h's children; the
  * incremental state (`newState`/`step` without allocation, or `beginState`/`advance` with immutable
  * states) keeps the rows of every suffix of the history, so a decoder's lookup is one search per
- * order it backs off through, plus one per shorter order to keep the state's rows.
+ * order it backs off through, plus one per shorter order to keep the state's rows. `step`'s state
+ * also keeps each row's children range, decoded when the row is found: the next word's searches
+ * start at once, and the range's memory access overlaps the rest of the lookup that found the row.
  */
 import { promises as fsp } from 'node:fs';
 import { crc32 } from 'node:zlib';
@@ -93,10 +96,14 @@ export class DecoderState {
   /** @internal The number of history ids, min(N − 1, i). */
   length = 0;
   /** @internal History ids, oldest first. */
-  readonly ids = new Float64Array(ORDER_MAX);
-  /** @internal rows[k] (k = 1..length): 1 + the row at order k of the last k history ids, 0 when
-   *  there is none (rows are below 2^32 − 2, so 1 + row fits). */
-  readonly rows = new Uint32Array(ORDER_MAX + 1);
+  readonly ids = new Int32Array(ORDER_MAX);
+  /** @internal rows[k] (k = 1..length): the row at order k of the last k history ids, −1 when there
+   *  is none (rows of an order are below 2^31: every order's values fit a 2 GiB section). */
+  readonly rows = new Int32Array(ORDER_MAX + 1);
+  /** @internal For each k with rows[k] ≥ 0: the children of that row, rows [starts[k], ends[k]) of
+   *  order k + 1, decoded when the row was found (the next word's search needs them first). */
+  readonly starts = new Int32Array(ORDER_MAX + 1);
+  readonly ends = new Int32Array(ORDER_MAX + 1);
   /** The order of the n-gram that answered the last `step` (0 before the first). */
   order = 0;
 
@@ -391,27 +398,190 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
     }
   }
 
-  // Sections: read each into a buffer of its own, in pieces, each checksummed as it arrives (while
-  // it is in the cache); then the padding.
+  // Sections: each into a buffer of its own, read in pieces by the thread pool, several at once and
+  // ahead of this thread, which checksums each piece as it arrives (in order) and checks the
+  // structure of an order as soon as its sections are verified, while later sections are still
+  // being read.
   const data = new Map<string, Buffer>();
-  for (let index = 0; index < sections.length; index++) {
-    const info = sections[index];
-    const where = `section ${index} (${info.name}) at byte ${info.offset}`;
-    const padded = alignUp(info.bytes);
-    const buffer = Buffer.allocUnsafeSlow(padded);
-    let crc = 0;
-    for (let done = 0; done < padded; done += PACK_READ_BYTES_MAX) {
-      const piece = buffer.subarray(done, Math.min(padded, done + PACK_READ_BYTES_MAX));
-      await readAt(handle, file, where, piece, info.offset + done);
-      const checked = Math.min(piece.length, info.bytes - done);
-      if (checked > 0) crc = crc32(piece.subarray(0, checked), crc); // (crc32 of an empty array may return 0, not crc)
+  const reads = new SectionReads(handle, file, sections);
+  const structure = checkStructure ? new StructureCheck(file, header, sections, data) : null;
+  try {
+    for (let index = 0; index < sections.length; index++) {
+      const info = sections[index];
+      const where = `section ${index} (${info.name}) at byte ${info.offset}`;
+      const padded = alignUp(info.bytes);
+      let crc = 0;
+      let buffer: Buffer | null = null;
+      for (let done = 0; done < padded; done += PACK_READ_BYTES_MAX) {
+        const piece = await reads.next();
+        buffer = piece.buffer;
+        const checked = Math.min(piece.bytes, info.bytes - done);
+        if (checked > 0) crc = crc32(buffer.subarray(done, done + checked), crc); // (crc32 of an empty array may return 0, not crc)
+      }
+      buffer ??= Buffer.alloc(0);
+      for (let i = info.bytes; i < padded; i++) if (buffer[i] !== 0) throw corrupt(file, where, `padding byte ${info.offset + i} is not zero`);
+      if (crc !== info.crc32) throw corrupt(file, where, `checksum mismatch (stored 0x${hex(info.crc32)}, computed 0x${hex(crc)})`);
+      const body = buffer.subarray(0, info.bytes);
+      if (info.kind >= 1 && info.kind <= SECTION_KIND_MAX) data.set(`${info.kind}:${info.order}`, body);
+      structure?.run();
     }
-    for (let i = info.bytes; i < padded; i++) if (buffer[i] !== 0) throw corrupt(file, where, `padding byte ${info.offset + i} is not zero`);
-    if (crc !== info.crc32) throw corrupt(file, where, `checksum mismatch (stored 0x${hex(info.crc32)}, computed 0x${hex(crc)})`);
-    const body = buffer.subarray(0, info.bytes);
-    if (info.kind >= 1 && info.kind <= SECTION_KIND_MAX) data.set(`${info.kind}:${info.order}`, body);
+  } finally {
+    await reads.stop();
   }
   return new PackedModel(file, fileBytes, header, sections, data, checkStructure);
+}
+
+/** Pieces of a file read ahead (at most READ_AHEAD_PIECES at once): the thread pool reads them in
+ *  parallel while this thread checks what has arrived. */
+const READ_AHEAD_PIECES = 32;
+
+/**
+ * The sections of a file read in pieces of at most PACK_READ_BYTES_MAX bytes, in file order, into a
+ * buffer per section (each allocated when its first piece is asked for; padding included). `next`
+ * returns the pieces in order; up to READ_AHEAD_PIECES reads are in flight. `stop` stops issuing
+ * reads and waits for those in flight, so that the file can be closed.
+ */
+class SectionReads {
+  private readonly pieces: Array<{ section: number; start: number; bytes: number }> = [];
+  private readonly buffers: Buffer[] = [];
+  private readonly pending: Array<Promise<void>> = [];
+  private issued = 0;
+  private taken = 0;
+  private stopped = false;
+
+  constructor(private readonly handle: fsp.FileHandle, private readonly file: string, private readonly sections: SectionInfo[]) {
+    sections.forEach((info, section) => {
+      const padded = alignUp(info.bytes);
+      for (let start = 0; start < padded; start += PACK_READ_BYTES_MAX) this.pieces.push({ section, start, bytes: Math.min(PACK_READ_BYTES_MAX, padded - start) });
+    });
+    this.issue();
+  }
+
+  private issue(): void {
+    while (!this.stopped && this.issued < this.pieces.length && this.issued - this.taken < READ_AHEAD_PIECES) {
+      const { section, start, bytes } = this.pieces[this.issued];
+      const info = this.sections[section];
+      if (start === 0) this.buffers[section] = Buffer.allocUnsafeSlow(alignUp(info.bytes));
+      const where = `section ${section} (${info.name}) at byte ${info.offset}`;
+      const read = readAt(this.handle, this.file, where, this.buffers[section].subarray(start, start + bytes), info.offset + start);
+      read.catch(() => undefined); // awaited by `next` (or dropped after `stop`)
+      this.pending[this.issued++] = read;
+    }
+  }
+
+  /** The next piece: the buffer of its section (read up to the piece's end) and the piece's bytes. */
+  async next(): Promise<{ buffer: Buffer; bytes: number }> {
+    const index = this.taken;
+    const { section, bytes } = this.pieces[index];
+    await this.pending[index];
+    delete this.pending[index];
+    this.taken++;
+    this.issue();
+    return { buffer: this.buffers[section], bytes };
+  }
+
+  async stop(): Promise<void> {
+    this.stopped = true;
+    await Promise.allSettled(this.pending.slice(this.taken, this.issued));
+  }
+}
+
+/**
+ * The structure checks (docs/model-file.md, "What a reader checks", 7), run order by order as soon
+ * as the sections an order's check reads are verified (`run` after each section): its codes, and
+ * the children of order n with the word ids of order n + 1.
+ */
+class StructureCheck {
+  private next = 1;
+  private readonly where: (kind: number, order?: number) => string;
+
+  constructor(private readonly file: string, private readonly header: Header, sections: SectionInfo[], private readonly data: Map<string, Buffer>) {
+    this.where = (kind, order = 0) => sectionWhereIn(sections, kind, order);
+  }
+
+  run(): void {
+    const { header, data, file } = this;
+    const quantised = codeBits(header.encoding) > 0;
+    const has = (kind: number, order: number): boolean => data.has(`${kind}:${order}`);
+    const get = (kind: number, order: number): Buffer => data.get(`${kind}:${order}`) as Buffer;
+    while (this.next <= header.order) {
+      const n = this.next;
+      const highest = n === header.order;
+      const needs: Array<[number, number]> = [[SectionKind.Probabilities, n]];
+      if (quantised) needs.push([SectionKind.ProbabilityCodebook, n]);
+      if (!highest) {
+        needs.push([SectionKind.BackOffs, n], [SectionKind.Children, n], [SectionKind.Words, n + 1]);
+        if (quantised) needs.push([SectionKind.BackOffCodebook, n]);
+      }
+      if (!needs.every(([kind, order]) => has(kind, order))) return;
+      const level = parseLevel(file, header, n, get, this.where);
+      checkCodes(file, this.where(SectionKind.Probabilities, n), level.prob, level.probCodebook);
+      if (level.backOff !== null) checkCodes(file, this.where(SectionKind.BackOffs, n), level.backOff, level.backOffCodebook);
+      if (!highest) {
+        const words = parseWords(file, header, n + 1, get, this.where);
+        checkOrder(file, this.where, n, level, words, header.rows[n], header.wordIdBits, header.size);
+      }
+      this.next++;
+    }
+  }
+}
+
+/** `section i (name)` of the first section of this kind and order. */
+function sectionWhereIn(sections: SectionInfo[], kind: number, order: number): string {
+  const index = sections.findIndex((info) => info.kind === kind && info.order === order);
+  return `section ${index} (${sectionName(kind, order)})`;
+}
+
+/** The packed word ids of order n ≥ 2, with the bits after the last one checked to be zero. */
+function parseWords(file: string, header: Header, n: number, get: (kind: number, order: number) => Buffer, where: (kind: number, order?: number) => string): Uint32Array {
+  const words = view(Uint32Array, get(SectionKind.Words, n), 4);
+  if (!packedPaddingIsZero(words, header.rows[n - 1], header.wordIdBits)) throw corrupt(file, where(SectionKind.Words, n), 'the bits after the last word id are not zero');
+  return words;
+}
+
+/** The arrays of order n (words included for n ≥ 2), with the children section's own checks. */
+function parseLevel(file: string, header: Header, n: number, get: (kind: number, order: number) => Buffer, where: (kind: number, order?: number) => string): Level {
+  const highest = n === header.order;
+  const rows = header.rows[n - 1];
+  const quantised = codeBits(header.encoding) > 0;
+  const words = n >= 2 ? parseWords(file, header, n, get, where) : null;
+  let childBases: Uint32Array | null = null;
+  let childOffsets: Uint32Array | null = null;
+  let childBits = 0;
+  if (!highest) {
+    const children = get(SectionKind.Children, n);
+    const at = where(SectionKind.Children, n);
+    childBits = children.readUInt32LE(0);
+    if (childBits > 32 || children.readUInt32LE(4) !== 0) throw corrupt(file, at, `offset width ${childBits} bits (at most 32) and reserved bytes ${children.readUInt32LE(4)} (must be 0)`);
+    const start = childOffsetsStart(rows);
+    const expected = start + packedBytes(rows + 1, childBits);
+    if (children.length !== expected) throw corrupt(file, at, `is ${children.length} bytes; ${rows + 1} offsets of ${childBits} bits require ${expected}`);
+    for (let i = 8 + 4 * childBlocks(rows); i < start; i++) if (children[i] !== 0) throw corrupt(file, at, `byte ${i} between the bases and the offsets is not zero`);
+    childBases = view(Uint32Array, children, 4, 8, 8 + 4 * childBlocks(rows));
+    childOffsets = view(Uint32Array, children, 4, start);
+    if (!packedPaddingIsZero(childOffsets, rows + 1, childBits)) throw corrupt(file, at, 'the bits after the last offset are not zero');
+  }
+  return {
+    rows,
+    words,
+    prob: valueView(header.encoding, get(SectionKind.Probabilities, n)),
+    probCodebook: quantised ? view(Float64Array, get(SectionKind.ProbabilityCodebook, n), 8) : null,
+    backOff: highest ? null : valueView(header.encoding, get(SectionKind.BackOffs, n)),
+    backOffCodebook: quantised && !highest ? view(Float64Array, get(SectionKind.BackOffCodebook, n), 8) : null,
+    childBases,
+    childOffsets,
+    childBits,
+  };
+}
+
+/** The children of order n < N against the word ids of order n + 1 (`checkChildren`), as errors. */
+function checkOrder(file: string, where: (kind: number, order?: number) => string, n: number, level: Level, nextWords: Uint32Array, nextRows: number, wordBits: number, size: number): void {
+  const child = checkChildren(level.childBases as Uint32Array, level.childOffsets as Uint32Array, level.childBits, level.rows, nextWords, wordBits, nextRows, size);
+  if (child.row >= 0) throw corrupt(file, where(SectionKind.Children, n), child.problem);
+  if (child.child >= 0) {
+    const word = unpack(nextWords, child.child, wordBits, maskFor(wordBits));
+    throw corrupt(file, where(SectionKind.Words, n + 1), `row ${child.child}: word id ${word} ${word > size ? `above V = ${size}` : 'does not ascend within its context (or is <s>)'}`);
+  }
 }
 
 function view<T>(make: new (buffer: ArrayBufferLike, byteOffset: number, length: number) => T, buffer: Buffer, elementBytes: number, start = 0, end = buffer.length): T {
@@ -474,8 +644,8 @@ function searchWord(words: Uint32Array, bits: number, mask: number, low: number,
   return -1;
 }
 
-/** searchWord for word ids of exactly 16 or 32 bits, which a typed array of that width reads as they are. */
-function searchWordAligned(words: Uint16Array | Uint32Array, low: number, high: number, word: number): number {
+/** searchWord for word ids of exactly 16 bits, which a Uint16Array reads as they are. */
+function searchWord16(words: Uint16Array, low: number, high: number, word: number): number {
   const scanEnd = Math.min(high, low + SCAN_ROWS);
   for (let row = low; row < scanEnd; row++) {
     const found = words[row];
@@ -504,6 +674,45 @@ function searchWordAligned(words: Uint16Array | Uint32Array, low: number, high: 
     else return middle;
   }
   return -1;
+}
+
+/** What a lookup reads of one order n (fixed shape: the hot path loads each array once). */
+class HotLevel {
+  constructor(
+    /** The packed word ids of order n (empty at order 1). */
+    readonly words: Uint32Array,
+    /** The same bytes as 16-bit ids when W = 16 (else empty). */
+    readonly words16: Uint16Array,
+    /** Children of order n < N: the start of every 64th row, and each row's packed offset from it. */
+    readonly bases: Uint32Array,
+    readonly offsets: Uint32Array,
+    readonly childBits: number,
+    readonly childMask: number,
+    readonly prob: ValueArray,
+    readonly probBook: Float64Array | null,
+    readonly backOff: ValueArray,
+    readonly backOffBook: Float64Array | null,
+  ) {}
+}
+
+/** A stored value: the float, or the codebook entry of the code. */
+function valueOf(values: ValueArray, codebook: Float64Array | null, row: number): number {
+  return codebook === null ? values[row] : codebook[values[row]];
+}
+
+/** The first child of row `row` of an order < N (offsets below 2^31: no sign to strip). */
+function childrenStart(level: HotLevel, row: number): number {
+  const bits = level.childBits;
+  const offsets = level.offsets;
+  const rest = (row & 31) * bits;
+  const at = (row >>> 5) * bits + (rest >>> 5);
+  const shift = rest & 31;
+  return level.bases[row >>> CHILD_BLOCK_SHIFT] + (((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & level.childMask);
+}
+
+/** The end of the children of row `row` (the first child of row + 1). */
+function childrenEnd(level: HotLevel, row: number): number {
+  return childrenStart(level, row + 1);
 }
 
 /** Rows a search scans in order before it gallops: the children of a context are often few, and
@@ -562,21 +771,12 @@ export class PackedModel {
   readonly sections: SectionInfo[];
 
   private readonly levels: Level[];
-  // The levels' arrays by order (index 0 unused), for the hot path.
-  private readonly wordsOf: Uint32Array[];
+  /** What the lookups read, by order (index 0 unused): one fixed-shape object per order. */
+  private readonly hot: HotLevel[];
   private readonly wordBits: number;
   private readonly wordMask: number;
-  /** The word ids as 16- or 32-bit typed arrays when they are exactly that wide (else empty). */
-  private readonly alignedWordsOf: Array<Uint16Array | Uint32Array>;
-  private readonly wordsAligned: boolean;
-  private readonly basesOf: Uint32Array[];
-  private readonly offsetsOf: Uint32Array[];
-  private readonly childBitsOf: number[];
-  private readonly childMaskOf: number[];
-  private readonly probOf: ValueArray[];
-  private readonly probBookOf: Array<Float64Array | null>;
-  private readonly backOffOf: ValueArray[];
-  private readonly backOffBookOf: Array<Float64Array | null>;
+  /** Word ids of exactly 16 bits, read as a Uint16Array (HotLevel.words16). */
+  private readonly words16: boolean;
   private readonly vocabularyWords: Buffer;
   private readonly vocabularyOffsets: Uint32Array;
   private readonly vocabularyHash: Uint32Array;
@@ -586,7 +786,7 @@ export class PackedModel {
   private structureChecked = false;
 
   /** @internal Use `openModel`. */
-  constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, checkStructure: boolean) {
+  constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, structureChecked: boolean) {
     const get = (kind: number, order = 0): Buffer => data.get(`${kind}:${order}`) as Buffer;
     this.filePath = file;
     this.fileBytes = fileBytes;
@@ -601,10 +801,7 @@ export class PackedModel {
     this.encoding = header.encoding;
     this.encodingName = ENCODING_NAMES[header.encoding];
     this.sections = sections;
-    const sectionWhere = (kind: number, order = 0): string => {
-      const index = sections.findIndex((info) => info.kind === kind && info.order === order);
-      return `section ${index} (${sectionName(kind, order)})`;
-    };
+    const sectionWhere = (kind: number, order = 0): string => sectionWhereIn(sections, kind, order);
 
     const description = parseDescription(file, sectionWhere(SectionKind.Description), get(SectionKind.Description), header.order);
     this.parameters = description.parameters;
@@ -621,62 +818,25 @@ export class PackedModel {
     this.vocabularyHash = view(Uint32Array, get(SectionKind.VocabularyHash), 4);
     this.checkVocabulary(file, sectionWhere);
 
-    const quantised = codeBits(header.encoding) > 0;
     this.wordBits = header.wordIdBits;
     this.wordMask = maskFor(header.wordIdBits);
     this.levels = [];
-    for (let n = 1; n <= header.order; n++) {
-      const highest = n === header.order;
-      const rows = header.rows[n - 1];
-      let words: Uint32Array | null = null;
-      if (n >= 2) {
-        words = view(Uint32Array, get(SectionKind.Words, n), 4);
-        if (!packedPaddingIsZero(words, rows, header.wordIdBits)) throw corrupt(file, sectionWhere(SectionKind.Words, n), 'the bits after the last word id are not zero');
-      }
-      let childBases: Uint32Array | null = null;
-      let childOffsets: Uint32Array | null = null;
-      let childBits = 0;
-      if (!highest) {
-        const children = get(SectionKind.Children, n);
-        const where = sectionWhere(SectionKind.Children, n);
-        childBits = children.readUInt32LE(0);
-        if (childBits > 32 || children.readUInt32LE(4) !== 0) throw corrupt(file, where, `offset width ${childBits} bits (at most 32) and reserved bytes ${children.readUInt32LE(4)} (must be 0)`);
-        const start = childOffsetsStart(rows);
-        const expected = start + packedBytes(rows + 1, childBits);
-        if (children.length !== expected) throw corrupt(file, where, `is ${children.length} bytes; ${rows + 1} offsets of ${childBits} bits require ${expected}`);
-        for (let i = 8 + 4 * childBlocks(rows); i < start; i++) if (children[i] !== 0) throw corrupt(file, where, `byte ${i} between the bases and the offsets is not zero`);
-        childBases = view(Uint32Array, children, 4, 8, 8 + 4 * childBlocks(rows));
-        childOffsets = view(Uint32Array, children, 4, start);
-        if (!packedPaddingIsZero(childOffsets, rows + 1, childBits)) throw corrupt(file, where, 'the bits after the last offset are not zero');
-      }
-      this.levels.push({
-        rows,
-        words,
-        prob: valueView(header.encoding, get(SectionKind.Probabilities, n)),
-        probCodebook: quantised ? view(Float64Array, get(SectionKind.ProbabilityCodebook, n), 8) : null,
-        backOff: highest ? null : valueView(header.encoding, get(SectionKind.BackOffs, n)),
-        backOffCodebook: quantised && !highest ? view(Float64Array, get(SectionKind.BackOffCodebook, n), 8) : null,
-        childBases,
-        childOffsets,
-        childBits,
-      });
-    }
-    const empty32 = new Uint32Array(0);
+    for (let n = 1; n <= header.order; n++) this.levels.push(parseLevel(file, header, n, get, sectionWhere));
     // Placeholders of the same array types as the real ones, so that the hot path sees one kind.
+    const empty32 = new Uint32Array(0);
     const emptyValues = valueView(header.encoding, Buffer.alloc(0));
-    this.wordsOf = [empty32, ...this.levels.map((level) => level.words ?? empty32)];
-    this.wordsAligned = this.wordBits === 16 || this.wordBits === 32;
-    this.alignedWordsOf = this.wordsOf.map((words) => (this.wordBits === 16 ? new Uint16Array(words.buffer, words.byteOffset, words.length * 2) : words));
-    this.basesOf = [empty32, ...this.levels.map((level) => level.childBases ?? empty32)];
-    this.offsetsOf = [empty32, ...this.levels.map((level) => level.childOffsets ?? empty32)];
-    this.childBitsOf = [0, ...this.levels.map((level) => level.childBits)];
-    this.childMaskOf = this.childBitsOf.map(maskFor);
-    this.probOf = [emptyValues, ...this.levels.map((level) => level.prob)];
-    this.probBookOf = [null, ...this.levels.map((level) => level.probCodebook)];
-    this.backOffOf = [emptyValues, ...this.levels.map((level) => level.backOff ?? emptyValues)];
-    this.backOffBookOf = [null, ...this.levels.map((level) => level.backOffCodebook)];
+    this.words16 = this.wordBits === 16;
+    const hotLevel = (level: Level): HotLevel => {
+      const words = level.words ?? empty32;
+      return new HotLevel(
+        words, new Uint16Array(words.buffer, words.byteOffset, this.words16 ? words.length * 2 : 0), level.childBases ?? empty32, level.childOffsets ?? empty32, level.childBits,
+        maskFor(level.childBits), level.prob, level.probCodebook, level.backOff ?? emptyValues, level.backOffCodebook,
+      );
+    };
+    this.hot = [hotLevel({ rows: 0, words: null, prob: emptyValues, probCodebook: null, backOff: null, backOffCodebook: null, childBases: null, childOffsets: null, childBits: 0 }), ...this.levels.map(hotLevel)];
     this.sectionWhere = sectionWhere;
-    if (checkStructure) this.checkStructure(file, sectionWhere);
+    // openModel checked the structure while reading (StructureCheck) when asked to.
+    this.structureChecked = structureChecked;
   }
 
   /** Vocabulary checks that every lookup relies on (cheap: one pass over V + 1 words). */
@@ -721,19 +881,11 @@ export class PackedModel {
 
   /** Structure checks the queries rely on: one pass over the children, word and code arrays. */
   private checkStructure(file: string, sectionWhere: (kind: number, order?: number) => string): void {
-    const size = this.vocabularySize;
     for (let n = 1; n <= this.order; n++) {
       const level = this.levels[n - 1];
       checkCodes(file, sectionWhere(SectionKind.Probabilities, n), level.prob, level.probCodebook);
       if (level.backOff !== null) checkCodes(file, sectionWhere(SectionKind.BackOffs, n), level.backOff, level.backOffCodebook);
-      if (level.childOffsets === null) continue;
-      const next = this.levels[n];
-      const child = checkChildren(level.childBases as Uint32Array, level.childOffsets, level.childBits, level.rows, next.words as Uint32Array, this.wordBits, next.rows, size);
-      if (child.row >= 0) throw corrupt(file, sectionWhere(SectionKind.Children, n), child.problem);
-      if (child.child >= 0) {
-        const word = unpack(next.words as Uint32Array, child.child, this.wordBits, this.wordMask);
-        throw corrupt(file, sectionWhere(SectionKind.Words, n + 1), `row ${child.child}: word id ${word} ${word > size ? `above V = ${size}` : 'does not ascend within its context (or is <s>)'}`);
-      }
+      if (level.childOffsets !== null) checkOrder(file, sectionWhere, n, level, this.levels[n].words as Uint32Array, this.levels[n].rows, this.wordBits, this.vocabularySize);
     }
     this.structureChecked = true;
   }
@@ -771,58 +923,36 @@ export class PackedModel {
 
   /** log10 probability of row `row` of order n. */
   private prob(n: number, row: number): number {
-    const codebook = this.probBookOf[n];
-    const values = this.probOf[n];
-    return codebook === null ? values[row] : codebook[values[row]];
+    const level = this.hot[n];
+    return valueOf(level.prob, level.probBook, row);
   }
 
   /** log10 back-off weight of row `row` of order n < N. */
   private backOff(n: number, row: number): number {
-    const codebook = this.backOffBookOf[n];
-    const values = this.backOffOf[n];
-    return codebook === null ? values[row] : codebook[values[row]];
+    const level = this.hot[n];
+    return valueOf(level.backOff, level.backOffBook, row);
   }
 
   /** The first child (a row of order n+1) of row `row` (0..rows) of order n < N. */
   private childStart(n: number, row: number): number {
-    return this.basesOf[n][row >>> CHILD_BLOCK_SHIFT] + unpack(this.offsetsOf[n], row, this.childBitsOf[n], this.childMaskOf[n]);
-  }
-
-  /** The end of the range that `childRange` returned last. */
-  private rangeEnd = 0;
-
-  /**
-   * The children of row `row` (0..rows − 1) of order n < N: returns their first row and leaves the
-   * end in `rangeEnd` (no allocation). The two offsets are adjacent: decoded in one go.
-   */
-  private childRange(n: number, row: number): number {
-    const offsets = this.offsetsOf[n];
-    const bases = this.basesOf[n];
-    const bits = this.childBitsOf[n];
-    const mask = this.childMaskOf[n];
-    const rest = (row & 31) * bits;
-    let at = (row >>> 5) * bits + (rest >>> 5);
-    let shift = rest & 31;
-    const start = bases[row >>> CHILD_BLOCK_SHIFT] + ((((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0);
-    shift += bits;
-    if (shift >= 32) {
-      shift -= 32;
-      at++;
-    }
-    this.rangeEnd = bases[(row + 1) >>> CHILD_BLOCK_SHIFT] + ((((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0);
-    return start;
+    const level = this.hot[n];
+    return level.bases[row >>> CHILD_BLOCK_SHIFT] + unpack(level.offsets, row, level.childBits, level.childMask);
   }
 
   /** The row of order n+1 that extends row `row` of order n (< N) with `word`, or −1. */
   private childOf(n: number, row: number, word: number): number {
-    const start = this.childRange(n, row);
-    const end = this.rangeEnd;
-    return start < end ? this.find(n + 1, start, end, word) : -1;
+    const level = this.hot[n];
+    const start = childrenStart(level, row);
+    const end = childrenEnd(level, row);
+    if (start >= end) return -1;
+    const next = this.hot[n + 1];
+    return this.words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, this.wordBits, this.wordMask, start, end, word);
   }
 
   /** The row in [start, end) of order n whose word id is `word`, or −1. */
   private find(n: number, start: number, end: number, word: number): number {
-    return this.wordsAligned ? searchWordAligned(this.alignedWordsOf[n], start, end, word) : searchWord(this.wordsOf[n], this.wordBits, this.wordMask, start, end, word);
+    const level = this.hot[n];
+    return this.words16 ? searchWord16(level.words16, start, end, word) : searchWord(level.words, this.wordBits, this.wordMask, start, end, word);
   }
 
   private checkWord(word: number): void {
@@ -882,7 +1012,9 @@ export class PackedModel {
     }
     state.length = 1;
     state.ids[0] = BOS_ID;
-    state.rows[1] = BOS_ID + 1;
+    state.rows[1] = BOS_ID;
+    state.starts[1] = childrenStart(this.hot[1], BOS_ID);
+    state.ends[1] = childrenEnd(this.hot[1], BOS_ID);
   }
 
   /**
@@ -897,40 +1029,69 @@ export class PackedModel {
     const rows = state.rows;
     const length = state.length;
     const keep = length < this.order - 1 ? length + 1 : length;
+    const hot = this.hot;
+    const words16 = this.words16;
+    const wordBits = this.wordBits;
+    const wordMask = this.wordMask;
     // Rows are updated in place from the top down: rows[k + 1] (new) is written only after rows[k + 1]
     // (old) has been read, and the new rows[j + 1] of a shorter suffix needs only the old rows[j].
     let backOff = 0;
     let log10Prob = 0;
     let order = 1;
     let k = length;
+    const starts = state.starts;
+    const ends = state.ends;
     for (; k >= 1; k--) {
-      const stored = rows[k];
-      if (stored !== 0) {
-        const row = stored - 1;
-        const start = this.childRange(k, row);
-        const end = this.rangeEnd;
+      const row = rows[k];
+      if (row >= 0) {
+        const level = hot[k];
+        const start = starts[k];
+        const end = ends[k];
         if (start < end) {
-          const found = this.find(k + 1, start, end, word);
+          // Read before the search, so that the memory access runs while the search does.
+          const rowBackOff = valueOf(level.backOff, level.backOffBook, row);
+          const next = hot[k + 1];
+          const found = words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
           if (found >= 0) {
-            log10Prob = backOff + this.prob(k + 1, found);
+            log10Prob = backOff + valueOf(next.prob, next.probBook, found);
             order = k + 1;
-            if (k < keep) rows[k + 1] = found + 1;
+            if (k < keep) {
+              rows[k + 1] = found;
+              // The next word searches these children first: decoded now, while this one finishes.
+              starts[k + 1] = childrenStart(next, found);
+              ends[k + 1] = childrenEnd(next, found);
+            }
             break;
           }
-          backOff += this.backOff(k, row);
+          backOff += rowBackOff;
         } else backOff += this.log10UnseenContextWeight;
       } else backOff += this.log10UnseenContextWeight;
-      if (k < keep) rows[k + 1] = 0;
+      if (k < keep) rows[k + 1] = -1;
     }
-    if (order === 1) log10Prob = backOff + this.prob(1, word);
+    if (order === 1) log10Prob = backOff + valueOf(hot[1].prob, hot[1].probBook, word);
     // The rows of the shorter suffixes of the new history (below the n-gram that answered, they all
     // exist when the model keeps the suffixes of its n-grams, as the estimators do; searched anyway).
     for (let j = Math.min(k - 1, keep - 1); j >= 1; j--) {
-      const stored = rows[j];
-      rows[j + 1] = stored !== 0 ? this.childOf(j, stored - 1, word) + 1 : 0;
+      const row = rows[j];
+      let found = -1;
+      if (row >= 0) {
+        const start = starts[j];
+        const end = ends[j];
+        if (start < end) {
+          const next = hot[j + 1];
+          found = words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
+          if (found >= 0) {
+            starts[j + 1] = childrenStart(next, found);
+            ends[j + 1] = childrenEnd(next, found);
+          }
+        }
+      }
+      rows[j + 1] = found;
     }
     if (keep > 0) {
-      rows[1] = word + 1;
+      rows[1] = word;
+      starts[1] = childrenStart(hot[1], word);
+      ends[1] = childrenEnd(hot[1], word);
       const ids = state.ids;
       if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
       ids[keep - 1] = word;
@@ -958,14 +1119,19 @@ export class PackedModel {
     scratch.length = length;
     for (let i = 0; i < length; i++) {
       scratch.ids[i] = data[i];
-      scratch.rows[i + 1] = data[length + i] + 1;
+      const row = data[length + i];
+      scratch.rows[i + 1] = row;
+      if (row >= 0) {
+        scratch.starts[i + 1] = childrenStart(this.hot[i + 1], row);
+        scratch.ends[i + 1] = childrenEnd(this.hot[i + 1], row);
+      }
     }
     const log10Prob = this.step(scratch, word);
     const keep = scratch.length;
     const next = new Array<number>(2 * keep);
     for (let i = 0; i < keep; i++) {
       next[i] = scratch.ids[i];
-      next[keep + i] = scratch.rows[i + 1] - 1;
+      next[keep + i] = scratch.rows[i + 1];
     }
     return { log10Prob, order: scratch.order, state: new ModelState(keep, next) };
   }
@@ -1073,26 +1239,20 @@ function checkChildren(bases: Uint32Array, offsets: Uint32Array, bits: number, r
   for (let row = 0; row <= rows; row++) {
     const offset = (((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & mask) >>> 0;
     shift += bits;
-    if (shift >= 32) {
-      shift -= 32;
-      at++;
-    }
+    at += shift >>> 5;
+    shift &= 31;
     const start = bases[row >>> CHILD_BLOCK_SHIFT] + offset;
-    if ((row & (CHILD_BLOCK_ROWS - 1)) === 0 && offset !== 0) return { row, problem: `the offset of row ${row}, the first of its block, is ${offset}, not 0`, child: -1 };
-    if (row === 0 && start !== 0) return { row, problem: `the children of row 0 start at ${start}, not 0`, child: -1 };
-    if (start < previousStart) return { row, problem: `the children of row ${row} start before those of row ${row - 1}`, child: -1 };
-    if (start > nextRows) return { row, problem: `the children of row ${row} start at ${start}, past the ${nextRows} rows of the next order`, child: -1 };
-    if (row === rows && start !== nextRows) return { row, problem: `children must run from row 0 to the ${nextRows} rows of the next order (they end at ${start})`, child: -1 };
+    if (start < previousStart || start > nextRows || ((row & (CHILD_BLOCK_ROWS - 1)) === 0 && (offset !== 0 || (row === 0 && start !== 0))) || (row === rows && start !== nextRows)) {
+      return { row, problem: childrenProblem(row, offset, start, previousStart, rows, nextRows), child: -1 };
+    }
     if (failedChild < 0) {
-      // The children of row − 1: [previousStart, start), read in sequence.
+      // The children of row − 1: [previousStart, start), read in sequence; ascending, in 1..size.
       let previous = 0;
       for (let child = previousStart; child < start; child++) {
-        const word = (((words[wordAt] >>> wordShift) | ((words[wordAt + 1] << 1) << (31 - wordShift))) & wordMask) >>> 0;
+        const word = ((words[wordAt] >>> wordShift) | ((words[wordAt + 1] << 1) << (31 - wordShift))) & wordMask;
         wordShift += wordBits;
-        if (wordShift >= 32) {
-          wordShift -= 32;
-          wordAt++;
-        }
+        wordAt += wordShift >>> 5;
+        wordShift &= 31;
         if (word <= previous || word > size) {
           failedChild = child;
           break;
@@ -1105,9 +1265,19 @@ function checkChildren(bases: Uint32Array, offsets: Uint32Array, bits: number, r
   return { row: -1, problem: '', child: failedChild };
 }
 
+/** What is wrong with the children entry of `row` (checkChildren found something). */
+function childrenProblem(row: number, offset: number, start: number, previousStart: number, rows: number, nextRows: number): string {
+  if ((row & (CHILD_BLOCK_ROWS - 1)) === 0 && offset !== 0) return `the offset of row ${row}, the first of its block, is ${offset}, not 0`;
+  if (row === 0 && start !== 0) return `the children of row 0 start at ${start}, not 0`;
+  if (start < previousStart) return `the children of row ${row} start before those of row ${row - 1}`;
+  if (start > nextRows) return `the children of row ${row} start at ${start}, past the ${nextRows} rows of the next order`;
+  return `children must run from row 0 to the ${nextRows} rows of the next order (they end at ${start})`;
+}
+
 /** Codes of a quantised section must index their codebook. */
 function checkCodes(file: string, where: string, codes: ValueArray, codebook: Float64Array | null): void {
-  if (codebook === null) return;
+  // Floats have no codebook; a codebook of 2^8 (2^16) values takes every 8-bit (16-bit) code.
+  if (codebook === null || codebook.length >= 2 ** (8 * codes.BYTES_PER_ELEMENT)) return;
   let highest = 0;
   for (let i = 0; i < codes.length; i++) if (codes[i] > highest) highest = codes[i];
   if (codes.length > 0 && highest >= codebook.length) throw corrupt(file, where, `code ${highest} is outside its codebook of ${codebook.length} values`);

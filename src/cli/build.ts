@@ -12,7 +12,7 @@ import { runCount } from '../job/pipeline.ts';
 import type { JobConfig } from '../job/manifest.ts';
 import { loadStatsInput } from '../stats/job-stats.ts';
 import { buildReport } from '../stats/report.ts';
-import { corpusOptions, defaultMemoryBytes, printSummary } from './count.ts';
+import { corpusOptions, defaultMemoryBytes, printSummary, TOKEN_FILES_OPTION } from './count.ts';
 import { estimateJob, estimateOptions } from './estimate.ts';
 import { intInRange, parseSize } from './options.ts';
 import { makeProgress } from './progress.ts';
@@ -29,6 +29,7 @@ export const buildCommand: CommandModule = {
     .option('partitions', { type: 'number', default: PARTITIONS_DEFAULT, describe: 'Partitions of the n-gram space: more make each estimate task smaller (less memory)' })
     .option('memory', { type: 'string', describe: 'Budget for counting memory, e.g. 2GiB (default: a quarter of RAM, at least 1 GiB)' })
     .option('vocab-min-count', { type: 'number', describe: 'Keep word types seen at least C times; the rest count as <unk>' })
+    .option('token-files', TOKEN_FILES_OPTION)
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' })))
     .example('$0 build corpus/ --order 4 --out model.qm', 'A modified Kneser-Ney model of order 4'),
   handler: async (argv) => {
@@ -49,7 +50,7 @@ export const buildCommand: CommandModule = {
     const memoryBytes = argv.memory === undefined ? defaultMemoryBytes() : parseSize(argv.memory as string, '--memory');
     const summary = await runCount({
       jobDir, inputSpecs: argv.inputs as string[], config, workers: intInRange(argv.workers, '--workers', 1, 256),
-      memoryBytes, restart: false, progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
+      memoryBytes, restart: false, tokenFiles: argv['token-files'] !== false, progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
     });
     if (!argv.quiet) printSummary(summary, process.stderr);
     const report = buildReport(await loadStatsInput(jobDir));

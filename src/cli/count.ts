@@ -23,6 +23,13 @@ export function corpusOptions<T>(yargs: Argv<T>) {
     .option('skip-bad', { type: 'boolean', default: false, describe: 'Skip bad lines and records (counted and reported) instead of stopping' });
 }
 
+/** `--token-files` of the commands that count (count, build). */
+export const TOKEN_FILES_OPTION = {
+  type: 'boolean',
+  default: true,
+  describe: 'Keep the vocabulary pass\'s tokens on disk (about half the size of plain-text input, removed when the count is done) so the count pass need not read and split the text again; --no-token-files saves the disk space',
+} as const;
+
 export function printSummary(summary: CountSummary, out: NodeJS.WriteStream = process.stdout): void {
   const rows: Array<[string, string]> = [
     ['job', summary.jobDir],
@@ -57,7 +64,7 @@ export const countCommand: CommandModule = {
     .option('vocab-min-count', { type: 'number', describe: 'Keep word types seen at least C times; the rest count as <unk>' })
     .option('partitions', { type: 'number', default: PARTITIONS_DEFAULT, describe: 'Partitions of the n-gram space (independent merge tasks)' })
     .option('chunk-size', { type: 'string', default: String(CHUNK_BYTES_TARGET), describe: 'Split plain inputs into line-aligned chunks of about this size' })
-    .option('token-files', { type: 'boolean', default: true, describe: 'Keep the vocabulary pass\'s tokens on disk (about half the size of plain-text input, removed when the count is done) so the count pass need not read and split the text again; --no-token-files saves the disk space' })
+    .option('token-files', TOKEN_FILES_OPTION)
     .option('restart', { type: 'boolean', default: false, describe: 'Discard an existing job in --job and start over' })
     .option('add', { type: 'boolean', default: false, describe: 'Add these inputs to the counted job in --job: only they are read; the store is rebuilt' })
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' })

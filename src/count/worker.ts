@@ -179,7 +179,7 @@ async function spillAll(chunk: number, spill: number, runs: RunRecord[]): Promis
 /** Sizes the (empty) counters for the chunks of a group from what earlier groups showed. */
 function presizeFor(group: readonly Chunk[], counters: CounterSet): void {
   const bytes = groupBytes(group);
-  const gzip = group.some((chunk) => init.inputs[chunk.fileIndex].gzip);
+  const gzip = groupHasGzip(group);
   let needs: CounterNeed[];
   if (needsPerByte !== undefined && !gzip) {
     // A little headroom: the next group may be a little richer.
@@ -202,13 +202,19 @@ function groupBytes(group: readonly Chunk[]): number {
   return group.reduce((sum, chunk) => sum + chunk.byteEnd - chunk.byteStart, 0);
 }
 
+/** Gzip bytes hold several times more text than plain ones: a group with any is sized by rate. */
+function groupHasGzip(group: readonly Chunk[]): boolean {
+  return group.some((chunk) => init.inputs[chunk.fileIndex].gzip);
+}
+
 /** The sentences of the current block wrapped as id sequences: sentence s is
  *  wrapped[wrappedStarts[s] .. wrappedStarts[s+1]), `<s>` first and `</s>` last. */
 let wrapped = new Uint32Array(1 << 16);
 let wrappedStarts = new Uint32Array(1 << 12);
 
-/** Turns the block's sentences into word ids (`idOfEntry` of its entries), wrapped; adds their
- *  n-gram occurrences per order. */
+/** Turns the block's sentences into word ids (`idOfEntry` of its entries, every one of which it
+ *  must cover: for a token file the CRC vouches for the bytes, this for the pairing of file and
+ *  map), wrapped; adds their n-gram occurrences per order. */
 function wrapSentences(block: TokenBlock | TokenFileBlock, idOfEntry: Uint32Array, occurrences: number[]): void {
   const entries = block.entries;
   const ends = block.sentenceEnds;
@@ -227,6 +233,7 @@ function wrapSentences(block: TokenBlock | TokenFileBlock, idOfEntry: Uint32Arra
     out[at++] = BOS_ID;
     for (let i = tokenStart; i < tokenEnd; i++) {
       const entry = entries[i];
+      if (entry >= idOfEntry.length) assert(false, `word-table entry ${entry} outside its map of ${idOfEntry.length} entries`);
       out[at++] = entry < 0 ? unkId : idOfEntry[entry];
     }
     out[at++] = eosId;
@@ -263,16 +270,6 @@ function countSentences(first: number, sentences: number, counters: CounterSet):
   return sentences;
 }
 
-/** Every entry of a token file's block is one its word table's map covers (the CRC vouches for the
- *  bytes, this for the pairing of file and map). */
-function checkEntries(block: TokenFileBlock, entries: number): void {
-  const values = block.entries;
-  for (let i = 0; i < block.tokens; i++) {
-    const entry = values[i];
-    if (!(entry >= 0 && entry < entries)) assert(false, `token file entry ${entry} outside its word table of ${entries} entries`);
-  }
-}
-
 /**
  * Counts a group of consecutive chunks (count/chunk-groups.ts) as one unit of work: the counters
  * spill when the budget is reached and once at the end of the group, so a finished group is wholly
@@ -301,7 +298,6 @@ async function countGroup(group: readonly Chunk[]): Promise<void> {
       chunkTokens += block.tokens;
       chunkSentences += block.sentences;
       progressTokens += block.tokens;
-      if (fromTokenFile) checkEntries(block, idOfEntry.length);
       wrapSentences(block, idOfEntry, occurrences);
       let next = countSentences(0, block.sentences, set);
       while (next < block.sentences) {
@@ -328,8 +324,7 @@ async function countGroup(group: readonly Chunk[]): Promise<void> {
   }
   if (budgetSpills === 0) {
     const bytes = groupBytes(group);
-    const gzip = group.some((chunk) => init.inputs[chunk.fileIndex].gzip);
-    if (bytes > 0 && !gzip) needsPerByte = set.counters.map((c) => ({ entries: c.size / bytes, tableEntries: c.tableSize / bytes }));
+    if (bytes > 0 && !groupHasGzip(group)) needsPerByte = set.counters.map((c) => ({ entries: c.size / bytes, tableEntries: c.tableSize / bytes }));
   }
   // The end of a group is a spill point: a finished group is then wholly in durable run files.
   await spillAll(first, spillSeq++, runs);

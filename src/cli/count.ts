@@ -13,11 +13,16 @@ export function defaultMemoryBytes(): number {
 }
 
 /** Options shared by commands that read a corpus (count now; build and score later). */
-export function corpusOptions<T>(yargs: Argv<T>) {
+/**
+ * The input options of the commands that read text. `normalizeDefaults` false (score): the
+ * normalisation options stay undefined when not given, so the model file's record applies.
+ */
+export function corpusOptions<T>(yargs: Argv<T>, normalizeDefaults = true) {
+  const recorded = normalizeDefaults ? '' : ' (default: as the model file records it)';
   return yargs
-    .option('lowercase', { type: 'boolean', default: false, describe: 'Lower-case every token (locale-independent)' })
-    .option('unicode', { choices: ['none', 'nfc', 'nfkc'] as const, default: 'none' as const, describe: 'Unicode normalisation before splitting: NFC composes accents; NFKC also folds compatibility forms (ligatures, full-width letters)' })
-    .option('split', { choices: ['space', 'chars'] as const, default: 'space' as const, describe: 'space: tokens are separated by white space; chars: every non-space character is a token (scripts written without spaces)' })
+    .option('lowercase', { type: 'boolean', default: normalizeDefaults ? false : undefined, describe: `Lower-case every token (locale-independent)${recorded}` })
+    .option('unicode', { choices: ['none', 'nfc', 'nfkc'] as const, default: normalizeDefaults ? 'none' as const : undefined, describe: `Unicode normalisation before splitting: NFC composes accents; NFKC also folds compatibility forms (ligatures, full-width letters)${recorded}` })
+    .option('split', { choices: ['space', 'chars'] as const, default: normalizeDefaults ? 'space' as const : undefined, describe: `space: tokens are separated by white space; chars: every non-space character is a token (scripts written without spaces)${recorded}` })
     .option('format', { choices: ['auto', 'text', 'jsonl'] as const, default: 'auto' as const, describe: 'Input format; auto: .jsonl/.ndjson (optionally .gz) is JSON Lines, anything else plain text' })
     .option('text-field', { type: 'string', describe: 'JSON Lines: dotted path of the text field, e.g. body.text' })
     .option('skip-bad', { type: 'boolean', default: false, describe: 'Skip bad lines and records (counted and reported) instead of stopping' });

@@ -95,7 +95,7 @@ export async function estimateJob(jobDir: string, out: string, argv: EstimateArg
     request.bucketed = argv.bucketed;
     source = modelSource(estimate(counts, request as EstimateRequest));
   }
-  const options: PackOptions = { fingerprint: job.inputs.map((f) => f.fingerprint).join(',') };
+  const options: PackOptions = { fingerprint: job.inputs.map((f) => f.fingerprint).join(','), normalize: job.config.normalize };
   if (argv.quant !== undefined) options.quantBits = argv.quant as 8 | 16;
   const summary = await packModelSource(source, options, stageFs(), out);
   return { line: formatPackSummary(summary) };

@@ -2,6 +2,7 @@
 import type { CommandModule } from 'yargs';
 import type { MethodParameters, OrderDiscounts } from '../estimate/model.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
+import { describeNormalize } from '../score/normalization.ts';
 
 /** The method's parameters in a few words per order. */
 export function describeParameters(parameters: MethodParameters): string[] {
@@ -37,6 +38,7 @@ export function formatModelInfo(model: PackedModel): string {
     ...describeParameters(model.parameters).map((line) => `             ${line}`),
     `cutoffs      ${model.cutoffs.join(' ')}`,
     `cap          ${model.vocabularyCap === null ? 'none' : JSON.stringify(model.vocabularyCap)}`,
+    `text         ${model.normalize === null ? 'normalisation not recorded' : `normalised as ${describeNormalize(model.normalize)}`}`,
     `fingerprint  ${model.fingerprint === '' ? '(none)' : model.fingerprint}`,
     'sections',
     ...model.sections.map((section) => `  ${section.name.padEnd(32)} ${section.offset.toString().padStart(12)}  ${section.bytes.toLocaleString('en-US').padStart(15)} bytes  crc32 ${section.crc32.toString(16).padStart(8, '0')}`),
@@ -57,7 +59,7 @@ export const infoCommand: CommandModule = {
       process.stdout.write(formatModelInfo(model));
       return;
     }
-    const { filePath, version, fileBytes, order, vocabularySize, ngrams, encodingName, normalised, parameters, cutoffs, vocabularyCap, fingerprint, log10UnseenContextWeight, sections } = model;
-    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, fingerprint, log10UnseenContextWeight, sections }, null, 2) + '\n');
+    const { filePath, version, fileBytes, order, vocabularySize, ngrams, encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections } = model;
+    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections }, null, 2) + '\n');
   },
 };

@@ -12,6 +12,7 @@ import { makeTokenizer } from '../corpus/tokenize.ts';
 import type { NormalizeOptions } from '../corpus/types.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
 import { corpusOptions } from './count.ts';
+import { describeNormalize, resolveNormalize } from '../score/normalization.ts';
 import { withPerplexities, type PerplexityResult } from '../score/perplexity.ts';
 
 /** One file's (or the total's) sums and perplexities. */
@@ -67,19 +68,21 @@ export const scoreCommand: CommandModule = {
     .positional('model', { type: 'string', describe: 'A model file written by quern estimate, build or pack' })
     .positional('inputs', { type: 'string', array: true, describe: 'Files, directories or glob patterns' })
     .option('per-line', { type: 'boolean', default: false, describe: 'Print one JSON record per sentence (per line, or per line of a JSON Lines text field)' })
-    .option('json', { type: 'boolean', default: false, describe: 'Print the totals as one JSON object' }))
-    .example('$0 score job/model.qm heldout/ --lowercase', 'Perplexity on held-out text, normalised as at count time'),
+    .option('json', { type: 'boolean', default: false, describe: 'Print the totals as one JSON object' }), false)
+    .example('$0 score job/model.qm heldout/', 'Perplexity on held-out text, normalised as the model file records it'),
   handler: async (argv) => {
     const model = await openModel(argv.model as string);
-    const normalize: NormalizeOptions = { lowercase: Boolean(argv.lowercase), unicode: argv.unicode as 'none', split: argv.split as 'space' };
+    const given = { lowercase: argv.lowercase as boolean | undefined, unicode: argv.unicode as NormalizeOptions['unicode'] | undefined, split: argv.split as NormalizeOptions['split'] | undefined };
+    const { normalize, source } = resolveNormalize(model.normalize, given);
     const out = process.stdout;
     const { files, total } = await scoreInputs(model, argv.inputs as string[], normalize, argv['text-field'] as string | undefined, Boolean(argv['skip-bad']),
       argv['per-line'] ? (record) => out.write(JSON.stringify(record) + '\n') : undefined);
     if (argv['per-line']) return;
     if (argv.json) {
-      out.write(JSON.stringify({ files, total }, null, 2) + '\n');
+      out.write(JSON.stringify({ normalize, normalizeSource: source, files, total }, null, 2) + '\n');
       return;
     }
+    out.write(`normalisation: ${describeNormalize(normalize)} (${source === 'model' ? 'as the model file records it' : 'the model file records none: as given'})\n`);
     for (const t of [...files, total]) {
       out.write(`${t.file}\n  ${t.sentences} sentences, ${t.tokens} tokens (${t.oov} OOV), log10 p ${t.log10Prob.toFixed(2)}, ` +
         `perplexity ${t.perplexity.toFixed(2)} without OOVs, ${t.perplexityWithUnk.toFixed(2)} with OOVs as <unk>\n`);

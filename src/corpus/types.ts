@@ -42,6 +42,13 @@ export interface NormalizeOptions {
   split: SplitMode;
 }
 
+/** Whether `value` is a NormalizeOptions, as a file read back (a model file, an ARPA file) must hold it. */
+export function isNormalizeOptions(value: unknown): value is NormalizeOptions {
+  if (typeof value !== 'object' || value === null) return false;
+  const v = value as Record<string, unknown>;
+  return typeof v.lowercase === 'boolean' && (v.unicode === 'none' || v.unicode === 'nfc' || v.unicode === 'nfkc') && (v.split === 'space' || v.split === 'chars');
+}
+
 export interface ReadOptions {
   format: InputFormat;
   /** For JSONL: the path of the text field, e.g. ['body', 'text'] for `--text-field body.text`. */

@@ -26,6 +26,7 @@
  */
 import { assert } from '../errors.ts';
 import type { VocabCap } from '../corpus/vocabulary.ts';
+import type { NormalizeOptions } from '../corpus/types.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { vocabularySize, type ModelVocabulary } from './counts.ts';
 import { compareRow, searchRows } from './rows.ts';
@@ -140,6 +141,9 @@ export interface LanguageModel {
   cutoffs: number[];
   /** The vocabulary cap applied at count time; null when none. */
   vocabularyCap: VocabCap | null;
+  /** How the training text was normalised into tokens (the count's --lowercase, --unicode,
+   *  --split), so text to score can be normalised the same way; absent when unknown. */
+  normalize?: NormalizeOptions;
   /** log10 weight of backing off from a context never seen in training: 0 (DESIGN.md: backs off
    *  entirely) except stupid backoff (log10 α). */
   log10UnseenContextWeight: number;

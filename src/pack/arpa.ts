@@ -24,8 +24,8 @@
  * reading, −99 and anything below it (and `-inf`) is taken as −∞.
  *
  * What the format cannot say — the method and its parameters, whether the numbers are probabilities
- * (stupid backoff's are not), the weight of backing off from an unseen context, the cutoffs and the
- * vocabulary cap — Quern writes before `\data\` on one line `quern-model {JSON}`; ARPA readers ignore
+ * (stupid backoff's are not), the weight of backing off from an unseen context, the cutoffs, the
+ * vocabulary cap and the text normalisation — Quern writes before `\data\` on one line `quern-model {JSON}`; ARPA readers ignore
  * text before `\data\`, and `readArpa` restores the model from it. The unigrams are written in id
  * order (`<s>` first), so a model read back has the same ids.
  */
@@ -34,6 +34,7 @@ import { promises as fsp } from 'node:fs';
 import { Writable } from 'node:stream';
 import { assert, ioError, QuernError } from '../errors.ts';
 import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
+import { isNormalizeOptions, type NormalizeOptions } from '../corpus/types.ts';
 import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, modelRowCount, type LanguageModel, type MethodParameters, type ModelOrder } from '../estimate/model.ts';
 import { compareRow, searchRows } from '../estimate/rows.ts';
@@ -48,6 +49,8 @@ export interface ArpaModelDescription {
   parameters: MethodParameters;
   cutoffs: number[];
   vocabularyCap: VocabCap | null;
+  /** How the training text was normalised into tokens, when known. */
+  normalize?: NormalizeOptions;
 }
 
 /** Prefix of the description line before `\data\`. */
@@ -95,6 +98,7 @@ export async function writeArpa(model: LanguageModel, out: NodeJS.WritableStream
     parameters: model.parameters,
     cutoffs: model.cutoffs,
     vocabularyCap: model.vocabularyCap,
+    ...(model.normalize === undefined ? {} : { normalize: model.normalize }),
   };
   let text = 'Written by Quern. ARPA readers skip the text before \\data\\; the next line tells Quern how the model was estimated.\n';
   text += `${DESCRIPTION_PREFIX}${JSON.stringify(description)}\n\n\\data\\\n`;
@@ -344,8 +348,9 @@ class ArpaParser {
       typeof json.log10UnseenContextWeight === 'number' && Number.isFinite(json.log10UnseenContextWeight) &&
       typeof json.parameters === 'object' && json.parameters !== null && typeof (json.parameters as { method?: unknown }).method === 'string' &&
       Array.isArray(json.cutoffs) && json.cutoffs.every((cutoff) => Number.isSafeInteger(cutoff) && cutoff >= 1) &&
-      (json.vocabularyCap === null || (typeof json.vocabularyCap === 'object' && !Array.isArray(json.vocabularyCap)));
-    if (!valid) throw this.error('the quern-model line lacks normalised, log10UnseenContextWeight, parameters, cutoffs or vocabularyCap');
+      (json.vocabularyCap === null || (typeof json.vocabularyCap === 'object' && !Array.isArray(json.vocabularyCap))) &&
+      (json.normalize === undefined || isNormalizeOptions(json.normalize));
+    if (!valid) throw this.error('the quern-model line lacks normalised, log10UnseenContextWeight, parameters, cutoffs or vocabularyCap, or its normalize is not { lowercase, unicode, split }');
     return json as ArpaModelDescription;
   }
 
@@ -476,6 +481,7 @@ class ArpaParser {
       parameters: description.parameters,
       cutoffs: [...description.cutoffs],
       vocabularyCap: description.vocabularyCap,
+      ...(description.normalize === undefined ? {} : { normalize: { ...description.normalize } }),
       log10UnseenContextWeight: description.log10UnseenContextWeight,
       orders,
     };

@@ -34,6 +34,7 @@ import { crc32 } from 'node:zlib';
 import { QuernError } from '../errors.ts';
 import { openForReading, readFullyAt } from '../job/file-read.ts';
 import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
+import { isNormalizeOptions, type NormalizeOptions } from '../corpus/types.ts';
 import type { LanguageModel, MethodParameters, ModelOrder } from '../estimate/model.ts';
 import {
   ORDER_MAX, PACK_DESCRIPTION_BYTES_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_READ_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_SECTIONS_MAX, VOCAB_TYPES_MAX,
@@ -758,6 +759,9 @@ export class PackedModel {
   /** Minimum raw count per order (index order − 1). */
   readonly cutoffs: number[];
   readonly vocabularyCap: VocabCap | null;
+  /** How the training text was normalised into tokens; null when the file does not say (a model
+   *  packed from an ARPA file Quern did not write, or by Quern before 2026-12). */
+  readonly normalize: NormalizeOptions | null;
   /** log10 weight of backing off from a context the model has never seen (0 except stupid backoff). */
   readonly log10UnseenContextWeight: number;
   /** The corpus fingerprint given when the model was packed (may be empty). */
@@ -807,6 +811,7 @@ export class PackedModel {
     this.parameters = description.parameters;
     this.cutoffs = description.cutoffs;
     this.vocabularyCap = description.vocabularyCap;
+    this.normalize = description.normalize;
     try {
       this.fingerprint = utf8Strict.decode(get(SectionKind.Fingerprint));
     } catch {
@@ -1213,6 +1218,7 @@ export class PackedModel {
       parameters: this.parameters,
       cutoffs: [...this.cutoffs],
       vocabularyCap: this.vocabularyCap,
+      ...(this.normalize === null ? {} : { normalize: { ...this.normalize } }),
       log10UnseenContextWeight: this.log10UnseenContextWeight,
       orders,
     };
@@ -1283,15 +1289,15 @@ function checkCodes(file: string, where: string, codes: ValueArray, codebook: Fl
   if (codes.length > 0 && highest >= codebook.length) throw corrupt(file, where, `code ${highest} is outside its codebook of ${codebook.length} values`);
 }
 
-/** The description section: JSON of { parameters, cutoffs, vocabularyCap }. */
-function parseDescription(file: string, where: string, bytes: Buffer, order: number): { parameters: MethodParameters; cutoffs: number[]; vocabularyCap: VocabCap | null } {
+/** The description section: JSON of { parameters, cutoffs, vocabularyCap, normalize? }. */
+function parseDescription(file: string, where: string, bytes: Buffer, order: number): { parameters: MethodParameters; cutoffs: number[]; vocabularyCap: VocabCap | null; normalize: NormalizeOptions | null } {
   let json: unknown;
   try {
     json = JSON.parse(utf8Strict.decode(bytes));
   } catch {
     throw corrupt(file, where, 'not valid UTF-8 JSON');
   }
-  const description = json as { parameters?: { method?: unknown }; cutoffs?: unknown; vocabularyCap?: unknown };
+  const description = json as { parameters?: { method?: unknown }; cutoffs?: unknown; vocabularyCap?: unknown; normalize?: unknown };
   if (typeof description !== 'object' || description === null || typeof description.parameters !== 'object' || description.parameters === null || typeof description.parameters.method !== 'string') {
     throw corrupt(file, where, 'the description names no method');
   }
@@ -1301,5 +1307,7 @@ function parseDescription(file: string, where: string, bytes: Buffer, order: num
   }
   const cap = description.vocabularyCap;
   if (!(cap === null || (typeof cap === 'object' && !Array.isArray(cap)))) throw corrupt(file, where, 'the vocabulary cap must be null or an object');
-  return { parameters: description.parameters as MethodParameters, cutoffs: cutoffs as number[], vocabularyCap: cap as VocabCap | null };
+  const normalize = description.normalize;
+  if (normalize !== undefined && !isNormalizeOptions(normalize)) throw corrupt(file, where, 'the normalisation must be { lowercase, unicode, split } as quern count takes them');
+  return { parameters: description.parameters as MethodParameters, cutoffs: cutoffs as number[], vocabularyCap: cap as VocabCap | null, normalize: normalize ?? null };
 }

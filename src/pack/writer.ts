@@ -22,6 +22,7 @@
 import { crc32 } from 'node:zlib';
 import { assert, QuernError } from '../errors.ts';
 import { BOS, BOS_ID, EOS, UNK } from '../corpus/vocabulary.ts';
+import type { NormalizeOptions } from '../corpus/types.ts';
 import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, type LanguageModel } from '../estimate/model.ts';
 import { modelSource, type ModelHeader, type ModelSource } from '../estimate/model-source.ts';
@@ -47,6 +48,9 @@ export interface PackOptions {
   /** The corpus fingerprint the caller records with the model (e.g. a hash of the job's inputs);
    *  at most PACK_FINGERPRINT_BYTES_MAX bytes of UTF-8; may be empty. */
   fingerprint: string;
+  /** How the training text was normalised into tokens, recorded so that `quern score` normalises
+   *  text the same way; absent: the source header's, if it has one. */
+  normalize?: NormalizeOptions;
 }
 
 /** What `packModel` or `packModelSource` wrote. */
@@ -95,7 +99,8 @@ export async function packModelSource(source: ModelSource, options: PackOptions,
     assert(Number.isSafeInteger(rows) && rows >= 0, 'row counts are integers ≥ 0');
     if (rows > PACK_ROWS_MAX) throw new QuernError('limit', `order ${index + 1} has ${rows} n-grams, over the model file's ${PACK_ROWS_MAX} per order`);
   });
-  const description = Buffer.from(JSON.stringify({ parameters: header.parameters, cutoffs: header.cutoffs, vocabularyCap: header.vocabularyCap }), 'utf8');
+  const normalize = options.normalize ?? header.normalize;
+  const description = Buffer.from(JSON.stringify({ parameters: header.parameters, cutoffs: header.cutoffs, vocabularyCap: header.vocabularyCap, ...(normalize === undefined ? {} : { normalize }) }), 'utf8');
   if (description.length > PACK_DESCRIPTION_BYTES_MAX) throw new QuernError('limit', `the model description takes ${description.length} bytes, over ${PACK_DESCRIPTION_BYTES_MAX}`);
   const vocabulary = vocabularySections(header);
 

@@ -15,9 +15,12 @@ describe('quern build and quern score', () => {
     expect(build.status).toBe(0);
     expect(build.stdout).toMatch(/^packed .*model\.qm: order 3/);
     const heldout = path.join(REPO, 'sample-data/heldout/harbour-heldout.txt');
-    const scored = await runQuern(['score', out, heldout, '--lowercase', '--json']);
+    // No --lowercase: build recorded the count's normalisation in the model file, and score uses it.
+    const scored = await runQuern(['score', out, heldout, '--json']);
     expect(scored.stderr).toBe('');
-    const { total } = JSON.parse(scored.stdout);
+    const { total, normalize, normalizeSource } = JSON.parse(scored.stdout);
+    expect(normalizeSource).toBe('model');
+    expect(normalize).toEqual({ lowercase: true, unicode: 'none', split: 'space' });
 
     const model = estimate(await loadCountTables(`${out}.job`, 1 << 30), { fallback: true });
     const sentences = readFileSync(heldout, 'utf8').split('\n').map((l) => l.toLowerCase().split(/\s+/).filter(Boolean)).filter((s) => s.length > 0);

@@ -16,7 +16,8 @@
  *   - in memory (baseline)    `logProb(model, history, id)` of src/estimate/model.ts, same history.
  * Each runs for at least --seconds (and 5 passes); the figure is the median pass. The sums of log10 p
  * are compared (float64 file: equal to 1e-6 relative).
- * Load: `openModel` of the float32 file, median of 7, with every check, and with the checksums only;
+ * Load: `openModel` of the float32 file, median of 15, as it opens by default (checksums, header,
+ * table, vocabulary, the lookups' bounds) and with the structure check (`checkStructure: true`);
  * beside it the cost of allocating and filling as much fresh memory, the floor of any load that
  * copies the file into memory (no mapping).
  * Lookups and loads are measured in fresh child processes (--measure DIR --part P), whose heaps hold
@@ -31,7 +32,8 @@
  *
  * With --model FILE --heldout TEXT, a model file made elsewhere (e.g. `quern estimate JOB --out FILE`
  * of a job counted from a large corpus, too large to count in memory here) is measured instead: in
- * one fresh process, its first load and the median of two more (every check), its state-carried
+ * one fresh process, its first load and the median of two more (the default open), one more with the
+ * structure check, its state-carried
  * lookups (`step`) over TEXT (one sentence per line, words separated by whitespace, looked up with
  * `wordId`, OOVs as `<unk>`; --heldout-lines caps the lines read), and its bytes per n-gram; with
  * --against REF, REF's reader on the same file beside it (loads, and lookups in turn).
@@ -232,8 +234,8 @@ const VARIANTS: Array<[string, PackOptions]> = [
 
 /** What the measuring processes report (each part from a process of its own). */
 interface Measured {
+  loadStructureMs: number;
   loadMs: number;
-  loadUncheckedMs: number;
   touchMs: number;
   baseline: number;
   baselineSum: number;
@@ -294,17 +296,17 @@ async function measurePart(from: string, part: Part): Promise<Partial<Measured>>
     // Loads, alternating with those of the --against file when there is one (the same moments).
     const fileBytes = statSync(filePath).size;
     const loads: number[] = [];
-    const loadsUnchecked: number[] = [];
+    const loadsDefault: number[] = [];
     const touches: number[] = [];
     const againstLoads: number[] = [];
     const againstLoadsUnchecked: number[] = [];
     for (let i = 0; i < LOADS; i++) {
       let started = performance.now();
-      await openModel(filePath);
+      await openModel(filePath, { checkStructure: true });
       loads.push(performance.now() - started);
       started = performance.now();
-      await openModel(filePath, { checkStructure: false });
-      loadsUnchecked.push(performance.now() - started);
+      await openModel(filePath);
+      loadsDefault.push(performance.now() - started);
       if (against !== null) {
         started = performance.now();
         await against.openModel(againstPath);
@@ -318,7 +320,7 @@ async function measurePart(from: string, part: Part): Promise<Partial<Measured>>
       Buffer.allocUnsafeSlow(fileBytes).fill(1);
       touches.push(performance.now() - started);
     }
-    Object.assign(result, { loadMs: median(loads), loadUncheckedMs: median(loadsUnchecked), touchMs: median(touches) });
+    Object.assign(result, { loadStructureMs: median(loads), loadMs: median(loadsDefault), touchMs: median(touches) });
     if (against !== null) Object.assign(result, { againstLoadMs: median(againstLoads), againstLoadUncheckedMs: median(againstLoadsUnchecked) });
   }
   const packed = await openModel(filePath);
@@ -386,14 +388,15 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
       `packed float32 advance (a new state per word) ${million(result.advance)} (${ratio(result.advance)}), stateless ${million(result.stateless)} (${ratio(result.stateless)})\n` +
       `  size      B/n-gram: float64 ${perNgram('float64')}, float32 ${perNgram('float32')}, 16-bit ${perNgram('16-bit')}, 8-bit ${perNgram('8-bit')} ` +
       `(files ${VARIANTS.map(([name]) => bytes.format(sizes[name], { decimalPlaces: 1 })).join(', ')})\n` +
-      `  load      float32 file of ${bytes.format(sizes.float32, { decimalPlaces: 1 })}: ${result.loadMs.toFixed(1)} ms = ${perGigabyte(result.loadMs)} (checksums and structure verified); ` +
-      `${perGigabyte(result.loadUncheckedMs)} with checksums only; allocating and filling as much fresh memory: ${perGigabyte(result.touchMs)}` +
+      `  load      float32 file of ${bytes.format(sizes.float32, { decimalPlaces: 1 })}: ${result.loadMs.toFixed(1)} ms = ${perGigabyte(result.loadMs)} as opened by default (checksums, bounds); ` +
+      `${perGigabyte(result.loadStructureMs)} with the structure check; allocating and filling as much fresh memory: ${perGigabyte(result.touchMs)}` +
       (result.againstState === undefined
         ? ''
         : `\n  against   ${args.against}, float32 file of ${bytes.format(sizes.against, { decimalPlaces: 1 })} (${(sizes.against / ngrams).toFixed(2)} B/n-gram): ` +
           `lookups with its state API (step if it has one) ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}); ` +
-          `load ${perGigabyte(result.againstLoadMs as number)} verified, ${perGigabyte(result.againstLoadUncheckedMs as number)} checksums only ` +
-          `(this revision: ×${((result.againstLoadMs as number) / result.loadMs).toFixed(2)} and ×${((result.againstLoadUncheckedMs as number) / result.loadUncheckedMs).toFixed(2)} faster)`),
+          `load as opened by default ${perGigabyte(result.againstLoadMs as number)}, with checkStructure: false ${perGigabyte(result.againstLoadUncheckedMs as number)} ` +
+          `(this revision's default open, in turn with them: ×${((result.againstLoadMs as number) / result.loadMs).toFixed(2)} and ×${((result.againstLoadUncheckedMs as number) / result.loadMs).toFixed(2)} faster; ` +
+          `its structure check ×${((result.againstLoadMs as number) / result.loadStructureMs).toFixed(2)} against ${args.against}'s default)`),
   );
   console.log(rows[rows.length - 1]);
 }
@@ -402,14 +405,32 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
 async function measureModelFile(file: string, heldOut: string, lines: number): Promise<void> {
   const fileBytes = statSync(file).size;
   const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
+  // Loads: three default opens, alternating with the --against revision's (the same moments), then
+  // one with the structure check (and one of the --against revision without it).
+  const againstDir = againstDirectory();
+  const reader = againstDir === null ? null : ((await import(path.join(againstDir, 'reader.ts'))) as AgainstReader);
   const loads: number[] = [];
+  const againstLoads: number[] = [];
   let packed: PackedModel | null = null;
+  let old: AgainstModel | null = null;
+  const timed = async <T>(open: () => Promise<T>, into: number[]): Promise<T> => {
+    const started = performance.now();
+    const opened = await open();
+    into.push(performance.now() - started);
+    return opened;
+  };
   for (let i = 0; i < 3; i++) {
     packed = null; // the previous model's buffers may go before the next load
-    const started = performance.now();
-    packed = await openModel(file);
-    loads.push(performance.now() - started);
+    packed = await timed(() => openModel(file), loads);
+    if (reader !== null) {
+      old = null;
+      old = await timed(() => reader.openModel(file), againstLoads);
+    }
   }
+  const structureLoads: number[] = [];
+  const againstUncheckedLoads: number[] = [];
+  await timed(() => openModel(file, { checkStructure: true }), structureLoads);
+  if (reader !== null) await timed(() => reader.openModel(file, { checkStructure: false }), againstUncheckedLoads);
   const model = packed as PackedModel;
   let text: string;
   if (heldOut.startsWith('corpus:')) {
@@ -438,29 +459,20 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
   }
   let lookups: { perSecond: number; sum: number };
   let againstLine = '';
-  const againstDir = againstDirectory();
-  if (againstDir !== null) {
+  if (reader !== null) {
     // The --against revision's reader on the same file (its format must be the same), in turn.
-    const reader = (await import(path.join(againstDir, 'reader.ts'))) as AgainstReader;
-    const againstLoads: number[] = [];
-    let old: AgainstModel | null = null;
-    for (let i = 0; i < 3; i++) {
-      old = null;
-      const started = performance.now();
-      old = await reader.openModel(file);
-      againstLoads.push(performance.now() - started);
-    }
     const [mine, theirs] = measureTogether(tokens, [() => stepPass(model, stream), () => againstPass(old as AgainstModel, stream)]);
     lookups = mine;
-    againstLine = `\n  against   ${args.against} on the same file: load median of 3 ${perGigabyte(median(againstLoads))}; lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s ` +
-      `(this revision, in turn with it: ×${(mine.perSecond / theirs.perSecond).toFixed(2)})`;
+    againstLine = `\n  against   ${args.against} on the same file: load as it opens by default, median of 3 ${perGigabyte(median(againstLoads))} ` +
+      `(this revision's default open, in turn with it: ×${(median(againstLoads) / median(loads)).toFixed(2)} faster), with checkStructure: false ${perGigabyte(againstUncheckedLoads[0])}; ` +
+      `lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s (this revision, in turn with it: ×${(mine.perSecond / theirs.perSecond).toFixed(2)})`;
     if (Math.abs(theirs.sum - mine.sum) > 1e-6 * Math.abs(mine.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${mine.sum}`);
   } else lookups = measure(tokens, () => stepPass(model, stream));
   const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
   console.log(
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
       `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
-      `  load      first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))} (checksums and structure verified)\n` +
+      `  load      as opened by default (checksums, bounds): first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))}; with the structure check ${perGigabyte(structureLoads[0])}\n` +
       `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
       orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
       againstLine,

@@ -3,14 +3,16 @@
  *
  * `openModel` reads the file section by section, each into a buffer of its own (DESIGN.md: a
  * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB) in pieces that
- * the thread pool reads ahead while this thread checksums those that arrived and checks the
- * structure of each order whose sections are all verified, and checks before it uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC,
- * every offset and length inside the file, sections contiguous and aligned, lengths as the header's
- * counts require), each section's CRC and zero padding, and then the structure the queries rely on
+ * the thread pool reads ahead while this thread checksums those that arrived, and checks before it
+ * uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC, every
+ * offset and length inside the file, sections contiguous and aligned, lengths as the header's counts
+ * require), each section's CRC and zero padding, the vocabulary and its hash table. Lookups stay
+ * inside their arrays whatever the sections hold (children ranges clamped to the next order, codebooks
+ * extended to every code), so a crafted file with valid checksums gives at worst wrong numbers. With
+ * `checkStructure`, it also checks the structure of each order as soon as its sections are verified
  * (children ranges ascending and inside the next order, word ids in range and ascending within a
- * context, codes inside their codebook, the vocabulary hash table complete). A file that fails any
- * check is a QuernError 'corrupt' naming the file and the section; nothing is allocated beyond the
- * file's own size.
+ * context, codes inside their codebook). A file that fails any check is a QuernError 'corrupt'
+ * naming the file and the section; nothing is allocated beyond the file's own size.
  *
  * Queries then read typed-array views of those buffers, decoding only the entries they touch:
  *
@@ -164,15 +166,19 @@ interface Level {
 
 /** Options of `openModel`. */
 export interface OpenOptions {
-  /** Check the structure the queries rely on after the checksums (default true). Turning it off
-   *  saves a pass over the children and word ids on open (the checksums are always verified): a
-   *  file from Quern's writer is unaffected, but lookups in a crafted file whose checksums match
-   *  its damage may then return wrong numbers (never crash or hang); `toLanguageModel` checks first. */
+  /** Also check the structure of every order (default false): children ranges ascending and inside
+   *  the next order, word ids ascending within each context and in 1..V, codes inside their
+   *  codebook — a pass over every n-gram, about as long as reading the file. Without it, `openModel`
+   *  verifies every checksum, the header, the section table, the vocabulary and what lookups need to
+   *  stay bounded, so a crafted file whose checksums match its damage gives at worst wrong numbers
+   *  (never a crash, a hang, a read outside its arrays or a huge allocation); `toLanguageModel`
+   *  (export) runs the check first when it has not run. `quern info MODEL --check` runs it. */
   checkStructure?: boolean;
 }
 
 /**
- * Opens a model file (docs/model-file.md), reading and verifying every section. Throws QuernError
+ * Opens a model file (docs/model-file.md), reading every section and verifying its checksum (and,
+ * with `checkStructure`, the structure of every order). Throws QuernError
  * 'io' when the file cannot be read and 'corrupt' (naming the file and the section) when it is not
  * a valid model file of a version this reader reads.
  */
@@ -180,7 +186,7 @@ export async function openModel(filePath: string, options: OpenOptions = {}): Pr
   requireLittleEndian();
   const { handle, bytes: fileBytes } = await openForReading(filePath);
   try {
-    return await readModel(handle, filePath, fileBytes, options.checkStructure ?? true);
+    return await readModel(handle, filePath, fileBytes, options.checkStructure ?? false);
   } finally {
     await handle.close().catch(() => undefined);
   }
@@ -692,7 +698,22 @@ class HotLevel {
     readonly probBook: Float64Array | null,
     readonly backOff: ValueArray,
     readonly backOffBook: Float64Array | null,
+    /** The rows of order n + 1 (0 at the highest order): every children range is clamped to
+     *  [0, childLimit], so a lookup never reads past the next order's arrays, whatever the file. */
+    readonly childLimit: number,
   ) {}
+}
+
+/**
+ * A codebook as the lookups read it: extended to all 2^bits codes with copies of its last value, so
+ * that a code the file's structure check would refuse (≥ the codebook's length) still reads a value
+ * of the codebook (a wrong number at worst, never undefined). At most 2^16 f64 = 512 KiB per codebook.
+ */
+function lookupCodebook(codebook: Float64Array | null, codeBits: number): Float64Array | null {
+  if (codebook === null || codebook.length >= 2 ** codeBits) return codebook;
+  const extended = new Float64Array(2 ** codeBits).fill(codebook[codebook.length - 1]);
+  extended.set(codebook);
+  return extended;
 }
 
 /** A stored value: the float, or the codebook entry of the code. */
@@ -700,14 +721,20 @@ function valueOf(values: ValueArray, codebook: Float64Array | null, row: number)
   return codebook === null ? values[row] : codebook[values[row]];
 }
 
-/** The first child of row `row` of an order < N (offsets below 2^31: no sign to strip). */
+/**
+ * The first child of row `row` (0..rows) of an order < N, clamped to the next order's rows: without
+ * the structure check (`checkStructure`), a crafted file's children may point anywhere, and the
+ * clamp keeps every search, value and children read of a lookup inside its arrays (one compare; a
+ * valid file's starts are never clamped).
+ */
 function childrenStart(level: HotLevel, row: number): number {
   const bits = level.childBits;
   const offsets = level.offsets;
   const rest = (row & 31) * bits;
   const at = (row >>> 5) * bits + (rest >>> 5);
   const shift = rest & 31;
-  return level.bases[row >>> CHILD_BLOCK_SHIFT] + (((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & level.childMask);
+  // (>>> 0: a 32-bit offset of a crafted file is not negative either.)
+  return Math.min(level.childLimit, level.bases[row >>> CHILD_BLOCK_SHIFT] + ((((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & level.childMask) >>> 0));
 }
 
 /** The end of the children of row `row` (the first child of row + 1). */
@@ -783,7 +810,13 @@ export class PackedModel {
   private scratch = new Uint8Array(256);
   private readonly scratchState = new DecoderState();
   private readonly sectionWhere: (kind: number, order?: number) => string;
-  private structureChecked = false;
+  private checked = false;
+
+  /** True once the structure of every order was checked (`openModel`'s `checkStructure`, or
+   *  `toLanguageModel`): then every children range and word id is known to be as the format says. */
+  get structureChecked(): boolean {
+    return this.checked;
+  }
 
   /** @internal Use `openModel`. */
   constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, structureChecked: boolean) {
@@ -826,17 +859,22 @@ export class PackedModel {
     const empty32 = new Uint32Array(0);
     const emptyValues = valueView(header.encoding, Buffer.alloc(0));
     this.words16 = this.wordBits === 16;
-    const hotLevel = (level: Level): HotLevel => {
+    const bits = codeBits(header.encoding);
+    const hotLevel = (level: Level, index: number): HotLevel => {
       const words = level.words ?? empty32;
       return new HotLevel(
         words, new Uint16Array(words.buffer, words.byteOffset, this.words16 ? words.length * 2 : 0), level.childBases ?? empty32, level.childOffsets ?? empty32, level.childBits,
-        maskFor(level.childBits), level.prob, level.probCodebook, level.backOff ?? emptyValues, level.backOffCodebook,
+        maskFor(level.childBits), level.prob, lookupCodebook(level.probCodebook, bits), level.backOff ?? emptyValues, lookupCodebook(level.backOffCodebook, bits),
+        index < header.order ? header.rows[index] : 0,
       );
     };
-    this.hot = [hotLevel({ rows: 0, words: null, prob: emptyValues, probCodebook: null, backOff: null, backOffCodebook: null, childBases: null, childOffsets: null, childBits: 0 }), ...this.levels.map(hotLevel)];
+    this.hot = [
+      hotLevel({ rows: 0, words: null, prob: emptyValues, probCodebook: null, backOff: null, backOffCodebook: null, childBases: null, childOffsets: null, childBits: 0 }, header.order),
+      ...this.levels.map((level, index) => hotLevel(level, index + 1)),
+    ];
     this.sectionWhere = sectionWhere;
     // openModel checked the structure while reading (StructureCheck) when asked to.
-    this.structureChecked = structureChecked;
+    this.checked = structureChecked;
   }
 
   /** Vocabulary checks that every lookup relies on (cheap: one pass over V + 1 words). */
@@ -887,7 +925,7 @@ export class PackedModel {
       if (level.backOff !== null) checkCodes(file, sectionWhere(SectionKind.BackOffs, n), level.backOff, level.backOffCodebook);
       if (level.childOffsets !== null) checkOrder(file, sectionWhere, n, level, this.levels[n].words as Uint32Array, this.levels[n].rows, this.wordBits, this.vocabularySize);
     }
-    this.structureChecked = true;
+    this.checked = true;
   }
 
   /** The word of an id (0..V). */
@@ -933,10 +971,9 @@ export class PackedModel {
     return valueOf(level.backOff, level.backOffBook, row);
   }
 
-  /** The first child (a row of order n+1) of row `row` (0..rows) of order n < N. */
+  /** The first child (a row of order n+1) of row `row` (0..rows) of order n < N, clamped (childrenStart). */
   private childStart(n: number, row: number): number {
-    const level = this.hot[n];
-    return level.bases[row >>> CHILD_BLOCK_SHIFT] + unpack(level.offsets, row, level.childBits, level.childMask);
+    return childrenStart(this.hot[n], row);
   }
 
   /** The row of order n+1 that extends row `row` of order n (< N) with `word`, or −1. */

@@ -57,6 +57,8 @@ import { logProb, type LanguageModel } from '../src/estimate/model.ts';
 import { nodeFs } from '../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../src/pack/writer.ts';
+import { SCORE_LANES } from '../src/limits.ts';
+import { scoreIdSentences } from '../src/score/batch.ts';
 import { brownFiles, readBrown } from '../test/pack/support.ts';
 import { SyntheticModel, writeShardFile } from './lib/synthetic.ts';
 
@@ -72,8 +74,12 @@ const { values: args } = parseArgs({
     model: { type: 'string' },
     heldout: { type: 'string' },
     'heldout-lines': { type: 'string', default: '100000' },
+    lanes: { type: 'string', default: String(SCORE_LANES) },
   },
 });
+/** Lanes of the batched lookups (`stepBatch` through scoreIdSentences): the first is the figure
+ *  reported beside `step`; more values (--lanes 1,16,64,256) are measured too, in turn. */
+const laneCounts = args.lanes.split(',').map(Number);
 const orders = args.orders.split(',').map(Number);
 const seconds = Number(args.seconds);
 const syntheticBytes = bytes.parse(args['synthetic-bytes']) as number;
@@ -195,6 +201,16 @@ function againstPass(model: AgainstModel, stream: number[][]): number {
   return sum;
 }
 
+/** The stream scored in lanes, `lanes` sentences at a time (`stepBatch`): one lookup per token, as
+ *  in stepPass; Σ log10 p equal to stepPass's up to the order of the additions. */
+function batchPass(model: PackedModel, stream: number[][], lanes: number): number {
+  let sum = 0;
+  scoreIdSentences(model, stream, (_sentence, _position, log10Prob) => {
+    sum += log10Prob;
+  }, lanes);
+  return sum;
+}
+
 function stepPass(model: PackedModel, stream: number[][]): number {
   let sum = 0;
   const state = model.newState();
@@ -243,6 +259,8 @@ interface Measured {
   stateSum: Record<string, number>;
   advance: number;
   stateless: number;
+  /** float32: [lanes, lookups/s] of the batched lookups at each --lanes. */
+  batch?: Array<[number, number]>;
   /** --against: the float32 file of that revision (lookups with its state API, loads), measured in
    *  the float32 process, in turn with this revision's. */
   againstState?: number;
@@ -324,17 +342,25 @@ async function measurePart(from: string, part: Part): Promise<Partial<Measured>>
     if (against !== null) Object.assign(result, { againstLoadMs: median(againstLoads), againstLoadUncheckedMs: median(againstLoadsUnchecked) });
   }
   const packed = await openModel(filePath);
+  // step, the batched lookups (float32: at each --lanes) and the --against revision's step, in turn.
+  const lanes = part === 'float32' ? laneCounts : [];
+  const passes: Array<() => number> = [() => stepPass(packed, stream), ...lanes.map((count) => () => batchPass(packed, stream, count))];
   if (against !== null) {
-    // This revision's step and the --against revision's advance, pass for pass.
     const old = await against.openModel(againstPath);
-    const [state, previous] = measureTogether(tokens, [() => stepPass(packed, stream), () => againstPass(old, stream)]);
-    result.state = { [part]: state.perSecond };
-    result.stateSum = { [part]: state.sum };
+    passes.push(() => againstPass(old, stream));
+  }
+  const measured = measureTogether(tokens, passes);
+  const [state] = measured;
+  result.state = { [part]: state.perSecond };
+  result.stateSum = { [part]: state.sum };
+  for (const [index, count] of lanes.entries()) {
+    const batch = measured[1 + index];
+    if (Math.abs(batch.sum - state.sum) > 1e-9 * Math.abs(state.sum)) throw new Error(`stepBatch (${count} lanes): Σ log10 p ${batch.sum} differs from step's ${state.sum}`);
+  }
+  if (lanes.length > 0) result.batch = lanes.map((count, index) => [count, measured[1 + index].perSecond]);
+  if (against !== null) {
+    const previous = measured[measured.length - 1];
     Object.assign(result, { againstState: previous.perSecond, againstSum: previous.sum });
-  } else {
-    const state = measure(tokens, () => stepPass(packed, stream));
-    result.state = { [part]: state.perSecond };
-    result.stateSum = { [part]: state.sum };
   }
   if (part === 'float32') {
     result.advance = measure(tokens, () => statePass(packed, stream)).perSecond;
@@ -362,7 +388,7 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
   writeFileSync(path.join(dir, 'stream.json'), JSON.stringify(stream));
   const result = { state: {}, stateSum: {} } as Measured;
   for (const part of PARTS) {
-    const output = execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--measure', dir, '--part', part, '--seconds', String(seconds)], { encoding: 'utf8', maxBuffer: 1 << 20 });
+    const output = execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--measure', dir, '--part', part, '--seconds', String(seconds), '--lanes', args.lanes], { encoding: 'utf8', maxBuffer: 1 << 20 });
     const measured = JSON.parse(output) as Partial<Measured>;
     Object.assign(result.state, measured.state ?? {});
     Object.assign(result.stateSum, measured.stateSum ?? {});
@@ -385,7 +411,8 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
       `${tokens.toLocaleString('en-US')} held-out tokens per pass; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
       `  lookups   in memory logProb ${million(result.baseline)} (baseline) | packed, state carried (step): float64 ${million(result.state.float64)} (${ratio(result.state.float64)}), ` +
       `float32 ${million(result.state.float32)} (${ratio(result.state.float32)}), 8-bit ${million(result.state['8-bit'])} (${ratio(result.state['8-bit'])}) | ` +
-      `packed float32 advance (a new state per word) ${million(result.advance)} (${ratio(result.advance)}), stateless ${million(result.stateless)} (${ratio(result.stateless)})\n` +
+      `packed float32 advance (a new state per word) ${million(result.advance)} (${ratio(result.advance)}), stateless ${million(result.stateless)} (${ratio(result.stateless)}) | ` +
+      `float32 stepBatch, sentences in lanes: ${(result.batch ?? []).map(([count, perSecond]) => `${count} lanes ${million(perSecond)} (×${(perSecond / result.state.float32).toFixed(2)} step)`).join(', ')}\n` +
       `  size      B/n-gram: float64 ${perNgram('float64')}, float32 ${perNgram('float32')}, 16-bit ${perNgram('16-bit')}, 8-bit ${perNgram('8-bit')} ` +
       `(files ${VARIANTS.map(([name]) => bytes.format(sizes[name], { decimalPlaces: 1 })).join(', ')})\n` +
       `  load      float32 file of ${bytes.format(sizes.float32, { decimalPlaces: 1 })}: ${result.loadMs.toFixed(1)} ms = ${perGigabyte(result.loadMs)} as opened by default (checksums, bounds); ` +
@@ -393,7 +420,8 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
       (result.againstState === undefined
         ? ''
         : `\n  against   ${args.against}, float32 file of ${bytes.format(sizes.against, { decimalPlaces: 1 })} (${(sizes.against / ngrams).toFixed(2)} B/n-gram): ` +
-          `lookups with its state API (step if it has one) ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}); ` +
+          `lookups with its state API (step if it has one) ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}; ` +
+          `best stepBatch ×${(Math.max(...(result.batch ?? []).map(([, perSecond]) => perSecond)) / result.againstState).toFixed(2)}); ` +
           `load as opened by default ${perGigabyte(result.againstLoadMs as number)}, with checkStructure: false ${perGigabyte(result.againstLoadUncheckedMs as number)} ` +
           `(this revision's default open, in turn with them: ×${((result.againstLoadMs as number) / result.loadMs).toFixed(2)} and ×${((result.againstLoadUncheckedMs as number) / result.loadMs).toFixed(2)} faster; ` +
           `its structure check ×${((result.againstLoadMs as number) / result.loadStructureMs).toFixed(2)} against ${args.against}'s default)`),
@@ -457,17 +485,28 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
       orders[state.order]++;
     }
   }
-  let lookups: { perSecond: number; sum: number };
+  // Lookups: step, the batched lookups at each --lanes, and the --against revision's, in turn.
+  const passes: Array<() => number> = [() => stepPass(model, stream), ...laneCounts.map((lanes) => () => batchPass(model, stream, lanes))];
+  if (reader !== null) passes.push(() => againstPass(old as AgainstModel, stream));
+  const measured = measureTogether(tokens, passes);
+  const lookups = measured[0];
+  const batched = measured.slice(1, 1 + laneCounts.length);
+  for (const [index, result] of batched.entries()) {
+    if (Math.abs(result.sum - lookups.sum) > 1e-9 * Math.abs(lookups.sum)) throw new Error(`stepBatch (${laneCounts[index]} lanes): Σ log10 p ${result.sum} differs from step's ${lookups.sum}`);
+  }
+  const batchLine = `\n  batched   stepBatch, sentences in lanes (one lookup per token): ` +
+    batched.map((result, index) => `${laneCounts[index]} lanes ${(result.perSecond / 1e6).toFixed(2)} M/s (×${(result.perSecond / lookups.perSecond).toFixed(2)} step)`).join(', ');
   let againstLine = '';
   if (reader !== null) {
     // The --against revision's reader on the same file (its format must be the same), in turn.
-    const [mine, theirs] = measureTogether(tokens, [() => stepPass(model, stream), () => againstPass(old as AgainstModel, stream)]);
-    lookups = mine;
+    const theirs = measured[measured.length - 1];
+    const best = Math.max(...batched.map((result) => result.perSecond));
     againstLine = `\n  against   ${args.against} on the same file: load as it opens by default, median of 3 ${perGigabyte(median(againstLoads))} ` +
       `(this revision's default open, in turn with it: ×${(median(againstLoads) / median(loads)).toFixed(2)} faster), with checkStructure: false ${perGigabyte(againstUncheckedLoads[0])}; ` +
-      `lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s (this revision, in turn with it: ×${(mine.perSecond / theirs.perSecond).toFixed(2)})`;
-    if (Math.abs(theirs.sum - mine.sum) > 1e-6 * Math.abs(mine.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${mine.sum}`);
-  } else lookups = measure(tokens, () => stepPass(model, stream));
+      `lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s (this revision, in turn with it: step ×${(lookups.perSecond / theirs.perSecond).toFixed(2)}, ` +
+      `best stepBatch ×${(best / theirs.perSecond).toFixed(2)})`;
+    if (Math.abs(theirs.sum - lookups.sum) > 1e-6 * Math.abs(lookups.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${lookups.sum}`);
+  }
   const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
   console.log(
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
@@ -475,7 +514,7 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
       `  load      as opened by default (checksums, bounds): first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))}; with the structure check ${perGigabyte(structureLoads[0])}\n` +
       `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
       orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
-      againstLine,
+      batchLine + againstLine,
   );
 }
 

@@ -223,6 +223,12 @@ export const PACK_FINGERPRINT_BYTES_MAX = 4096;
  *  it is still in the CPU's cache (2 MiB of L2 per core here): 1 MiB pieces. Well under fs's 2 GiB. */
 export const PACK_READ_BYTES_MAX = 1 << 20;
 
+/** Sentences (or decoder states) a packed model scores together by default (`stepBatch`,
+ *  src/score/batch.ts): each call overlaps the memory accesses of this many lookups. Measured by
+ *  `npm run bench:query` (lanes 1..256 on the 1 GB benchmark model): the gain levels off from 16 to
+ *  64; 64 states take about 13 KB. */
+export const SCORE_LANES = 64;
+
 /** Bytes the model-file writer gathers before one write call: sections are built in batches of
  *  rows, often smaller; 1 MiB writes keep the calls few. */
 export const PACK_WRITE_BUFFER_BYTES = 1 << 20;

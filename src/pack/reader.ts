@@ -108,6 +108,12 @@ export class DecoderState {
   readonly ends = new Int32Array(ORDER_MAX + 1);
   /** The order of the n-gram that answered the last `step` (0 before the first). */
   order = 0;
+  /** @internal `stepBatch`'s scratch: found[k] = the row of order k + 1 extending rows[k] with the
+   *  word being scored, −1 when none; `answer` = the highest such k (0: none, order 1 answers). */
+  readonly found = new Int32Array(ORDER_MAX + 1);
+  answer = 0;
+  /** @internal The `stepBatch` call that last took this state (a state twice in one call is refused). */
+  batch = 0;
 
   /** The last min(N − 1, i) token ids, oldest first. */
   get history(): number[] {
@@ -682,6 +688,48 @@ function searchWord16(words: Uint16Array, low: number, high: number, word: numbe
   return -1;
 }
 
+/** `scanWord`'s answer when the word may lie past the rows it scanned. */
+const PENDING = -2;
+
+/** The first SCAN_ROWS rows of [low, high) of the packed word ids searched in order (as in
+ *  `searchWord`): the row holding `word`, −1 when it is not in the range, or PENDING when the range
+ *  goes on past the scanned rows and the word is above every one of them. */
+function scanWord(words: Uint32Array, bits: number, mask: number, low: number, high: number, word: number): number {
+  const scanEnd = Math.min(high, low + SCAN_ROWS);
+  const rest = (low & 31) * bits;
+  let at = (low >>> 5) * bits + (rest >>> 5);
+  let shift = rest & 31;
+  for (let row = low; row < scanEnd; row++) {
+    const found = ((words[at] >>> shift) | ((words[at + 1] << 1) << (31 - shift))) & mask;
+    if (found >= word) return found === word ? row : -1;
+    shift += bits;
+    if (shift >= 32) {
+      shift -= 32;
+      at++;
+    }
+  }
+  return scanEnd === high ? -1 : PENDING;
+}
+
+/** scanWord for word ids of exactly 16 bits. */
+function scanWord16(words: Uint16Array, low: number, high: number, word: number): number {
+  const scanEnd = Math.min(high, low + SCAN_ROWS);
+  for (let row = low; row < scanEnd; row++) {
+    const found = words[row];
+    if (found >= word) return found === word ? row : -1;
+  }
+  return scanEnd === high ? -1 : PENDING;
+}
+
+/** Word id `index` of packed ids of `bits` (1..31) bits: `unpack` without the final `>>> 0`
+ *  (ids are below 2^31), so that the id stays a small integer for the arithmetic of the search. */
+function unpackId(words: Uint32Array, index: number, bits: number, mask: number): number {
+  const rest = (index & 31) * bits;
+  const at = (index >>> 5) * bits + (rest >>> 5);
+  const shift = rest & 31;
+  return ((words[at] >>> shift) | ((words[at + 1] << 1) << (31 - shift))) & mask;
+}
+
 /** What a lookup reads of one order n (fixed shape: the hot path loads each array once). */
 class HotLevel {
   constructor(
@@ -811,6 +859,23 @@ export class PackedModel {
   private readonly scratchState = new DecoderState();
   private readonly sectionWhere: (kind: number, order?: number) => string;
   private checked = false;
+  /** `stepBatch` calls so far (each state records the last that took it). */
+  private batchCount = 0;
+  /** `stepBatch`'s queue of searches past SCAN_ROWS: state index, order k, and the rows left to
+   *  search, [base, base + length), of order k + 1 (grown to the largest batch × ORDER_MAX); and its
+   *  gathered addresses, by order: `touchStride` entries per order (the largest batch so far). */
+  private pendingLane = new Int32Array(0);
+  private pendingOrder = new Int32Array(0);
+  private pendingBase = new Int32Array(0);
+  private pendingLength = new Int32Array(0);
+  private pendingCount = 0;
+  private touchWordAt = new Int32Array(0);
+  private touchRowAt = new Int32Array(0);
+  private readonly touchFilled = new Int32Array(ORDER_MAX + 1);
+  private readonly touchOffsetsFilled = new Int32Array(ORDER_MAX + 1);
+  private touchStride = 0;
+  /** The sum of the values `stepBatch` touched, kept so that the loads stay. */
+  private touched = 0;
 
   /** True once the structure of every order was checked (`openModel`'s `checkStructure`, or
    *  `toLanguageModel`): then every children range and word id is known to be as the format says. */
@@ -1135,6 +1200,264 @@ export class PackedModel {
     }
     state.length = keep;
     state.order = order;
+    return log10Prob;
+  }
+
+  /**
+   * Advances many independent states at once: `states[i]` past `words[i]` (an id in [1, V]; an OOV
+   * word is `<unk>`'s id) for i < `count`, as `step(states[i], words[i])` would, one after another:
+   * `log10Probs[i]` gets the log10 probability and `states[i].order` the order that answered. The
+   * states must be distinct (a decoder's beam, or sentences scored together, one state each).
+   *
+   * Why: on a model far larger than the CPU's caches, a lookup waits on one memory access after
+   * another (a children range, a search, a value), and one state's accesses depend on each other.
+   * Those of different states do not, so this runs each lookup in four phases, each over every
+   * state before the next: touch what the states already locate (the first children of each of
+   * their contexts, their back-off weights), search the word among those children at every order,
+   * touch what the searches found (the value that answers, the new rows' children ranges), and
+   * finish. The memory accesses of one phase overlap across the states instead of following one
+   * another; the numbers are those of `step`, bit for bit.
+   */
+  stepBatch(states: readonly DecoderState[], words: ArrayLike<number>, log10Probs: Float64Array, count = states.length): void {
+    if (!(Number.isInteger(count) && count >= 0 && count <= states.length && count <= words.length && count <= log10Probs.length)) {
+      throw new RangeError(`count must be an integer in [0, ${Math.min(states.length, words.length, log10Probs.length)}] (states, words and results available; got ${count})`);
+    }
+    const batch = ++this.batchCount;
+    for (let i = 0; i < count; i++) {
+      const word = words[i];
+      if (!(word >= 1 && word <= this.vocabularySize && Math.floor(word) === word)) this.checkWord(word);
+      const state = states[i];
+      if (state.batch === batch) throw new RangeError(`states[${i}] appears twice in one stepBatch call; each state must be advanced once per call`);
+      state.batch = batch;
+    }
+    if (this.touchStride < count) {
+      const capacity = count * ORDER_MAX;
+      this.pendingLane = new Int32Array(capacity);
+      this.pendingOrder = new Int32Array(capacity);
+      this.pendingBase = new Int32Array(capacity);
+      this.pendingLength = new Int32Array(capacity);
+      this.touchStride = count;
+      this.touchWordAt = new Int32Array(count * (ORDER_MAX + 1));
+      this.touchRowAt = new Int32Array(count * (ORDER_MAX + 1));
+    }
+    let sink = this.touchContexts(states, count);
+    for (let i = 0; i < count; i++) this.scanAll(states[i], i, words[i]);
+    this.searchPending(states, words);
+    sink += this.touchFound(states, count);
+    for (let i = 0; i < count; i++) log10Probs[i] = this.finishStep(states[i], words[i]);
+    // The touched values are kept so that the compiler keeps the loads that read them.
+    this.touched = sink;
+  }
+
+  /**
+   * Phase 1 of `stepBatch`: reads, for their memory access only, what the states already locate —
+   * the word ids that start the children of each of their contexts, and those contexts' back-off
+   * weights. The addresses are gathered first, by order, and each order's then read in one tight
+   * loop: the fewer instructions between two loads, the more of them the CPU keeps in flight.
+   */
+  private touchContexts(states: readonly DecoderState[], count: number): number {
+    const hot = this.hot;
+    const bits = this.wordBits;
+    const words16 = this.words16;
+    const stride = this.touchStride;
+    const wordAt = this.touchWordAt;
+    const rowAt = this.touchRowAt;
+    const filled = this.touchFilled;
+    filled.fill(0);
+    for (let i = 0; i < count; i++) {
+      const state = states[i];
+      const rows = state.rows;
+      const starts = state.starts;
+      const ends = state.ends;
+      for (let k = state.length; k >= 1; k--) {
+        const row = rows[k];
+        const start = starts[k];
+        if (row >= 0 && start < ends[k]) {
+          const at = k * stride + filled[k]++;
+          // The u32 that holds the first child's id (16-bit ids: two to a u32).
+          wordAt[at] = words16 ? start >>> 1 : (start >>> 5) * bits + (((start & 31) * bits) >>> 5);
+          rowAt[at] = row;
+        }
+      }
+    }
+    let sink = 0;
+    for (let k = 1; k < this.order; k++) {
+      const words = hot[k + 1].words;
+      const backOff = hot[k].backOff;
+      const end = k * stride + filled[k];
+      for (let at = k * stride; at < end; at++) sink += words[wordAt[at]] + backOff[rowAt[at]];
+    }
+    return sink;
+  }
+
+  /** Phase 2 of `stepBatch`, first part: `word` looked for among the first SCAN_ROWS children of
+   *  every context of `state` (touched in phase 1): found[k] = the row, −1 when it is not there, or
+   *  PENDING with the rest of the range queued for the interleaved search (`searchPending`). */
+  private scanAll(state: DecoderState, lane: number, word: number): void {
+    const hot = this.hot;
+    const rows = state.rows;
+    const starts = state.starts;
+    const ends = state.ends;
+    const found = state.found;
+    const words16 = this.words16;
+    for (let k = state.length; k >= 1; k--) {
+      let row = -1;
+      if (rows[k] >= 0) {
+        const start = starts[k];
+        const end = ends[k];
+        if (start < end) {
+          const next = hot[k + 1];
+          row = words16 ? scanWord16(next.words16, start, end, word) : scanWord(next.words, this.wordBits, this.wordMask, start, end, word);
+          if (row === PENDING) {
+            const at = this.pendingCount++;
+            this.pendingLane[at] = lane;
+            this.pendingOrder[at] = k;
+            this.pendingBase[at] = start + SCAN_ROWS;
+            // Ids ascend from 1 within a context, so `word` is among its first `word` children.
+            this.pendingLength[at] = Math.min(end, start + word) - start - SCAN_ROWS;
+          }
+        }
+      }
+      found[k] = row;
+    }
+  }
+
+  /**
+   * Phase 2 of `stepBatch`, second part: the queued searches (ranges longer than SCAN_ROWS, the
+   * long children lists of the low orders) run together, one probe of each per round: a binary
+   * search for the last row whose id is ≤ the word, whose step depends on the probed id by arithmetic, not by a branch, so that the
+   * probes of one round (of different states and orders) are all in flight at once.
+   */
+  private searchPending(states: readonly DecoderState[], words: ArrayLike<number>): void {
+    const hot = this.hot;
+    const lanes = this.pendingLane;
+    const orders = this.pendingOrder;
+    const bases = this.pendingBase;
+    const lengths = this.pendingLength;
+    const bits = this.wordBits;
+    const mask = this.wordMask;
+    const words16 = this.words16;
+    let pending = this.pendingCount;
+    while (pending > 0) {
+      let kept = 0;
+      for (let i = 0; i < pending; i++) {
+        const lane = lanes[i];
+        const k = orders[i];
+        const word = words[lane];
+        const level = hot[k + 1];
+        let base = bases[i];
+        let length = lengths[i];
+        if (length > 1) {
+          const half = length >>> 1;
+          const probe = base + half;
+          const id = words16 ? level.words16[probe] : unpackId(level.words, probe, bits, mask);
+          base += half & ((id - word - 1) >> 31); // id ≤ word: the word, if there, is in the upper half
+          length -= half;
+        }
+        if (length > 1) {
+          lanes[kept] = lane;
+          orders[kept] = k;
+          bases[kept] = base;
+          lengths[kept] = length;
+          kept++;
+          continue;
+        }
+        // One row left: the last whose id is ≤ the word (or the first row, when none is): the word
+        // is there or nowhere, the ids ascending.
+        const id = words16 ? level.words16[base] : unpackId(level.words, base, bits, mask);
+        states[lane].found[k] = id === word ? base : -1;
+      }
+      pending = kept;
+    }
+    this.pendingCount = 0;
+  }
+
+  /**
+   * Phase 3 of `stepBatch`: each state's answering order (`answer`: the highest k with found[k] ≥ 0,
+   * 0 when none), then, gathered by order as in phase 1, the reads (for their memory access only)
+   * of the value that answers and of the children entries of the rows the new state keeps.
+   */
+  private touchFound(states: readonly DecoderState[], count: number): number {
+    const hot = this.hot;
+    const stride = this.touchStride;
+    const probAt = this.touchRowAt;
+    const offsetAt = this.touchWordAt;
+    const probs = this.touchFilled;
+    const offsets = this.touchOffsetsFilled;
+    probs.fill(0);
+    offsets.fill(0);
+    const order = this.order;
+    for (let i = 0; i < count; i++) {
+      const state = states[i];
+      const found = state.found;
+      const length = state.length;
+      const keep = length < order - 1 ? length + 1 : length;
+      let answer = length;
+      while (answer > 0 && found[answer] < 0) answer--;
+      state.answer = answer;
+      if (answer > 0) probAt[(answer + 1) * stride + probs[answer + 1]++] = found[answer];
+      for (let k = Math.min(answer, keep - 1); k >= 1; k--) {
+        const row = found[k];
+        if (row >= 0) {
+          const bits = hot[k + 1].childBits;
+          offsetAt[(k + 1) * stride + offsets[k + 1]++] = (row >>> 5) * bits + (((row & 31) * bits) >>> 5);
+        }
+      }
+    }
+    let sink = 0;
+    for (let n = 2; n <= order; n++) {
+      const level = hot[n];
+      const prob = level.prob;
+      let end = n * stride + probs[n];
+      for (let at = n * stride; at < end; at++) sink += prob[probAt[at]];
+      const childOffsets = level.offsets;
+      end = n * stride + offsets[n];
+      for (let at = n * stride; at < end; at++) sink += childOffsets[offsetAt[at]];
+    }
+    return sink;
+  }
+
+  /** Phase 4 of `stepBatch`: the log10 probability from the searches' results, and the new state
+   *  (the same arithmetic, in the same order, as `step`). */
+  private finishStep(state: DecoderState, word: number): number {
+    const hot = this.hot;
+    const rows = state.rows;
+    const starts = state.starts;
+    const ends = state.ends;
+    const found = state.found;
+    const length = state.length;
+    const keep = length < this.order - 1 ? length + 1 : length;
+    const answer = state.answer;
+    let backOff = 0;
+    for (let k = length; k > answer; k--) {
+      const row = rows[k];
+      backOff += row >= 0 && starts[k] < ends[k] ? valueOf(hot[k].backOff, hot[k].backOffBook, row) : this.log10UnseenContextWeight;
+    }
+    let log10Prob: number;
+    if (answer > 0) {
+      const next = hot[answer + 1];
+      log10Prob = backOff + valueOf(next.prob, next.probBook, found[answer]);
+    } else log10Prob = backOff + valueOf(hot[1].prob, hot[1].probBook, word);
+    // The new rows, from the top down: rows[k + 1] (new) is written after rows[k + 1] (old) was read.
+    for (let k = keep - 1; k >= 1; k--) {
+      const row = found[k]; // −1 above the answer (searched, not found)
+      rows[k + 1] = row;
+      if (row >= 0) {
+        const next = hot[k + 1];
+        starts[k + 1] = childrenStart(next, row);
+        ends[k + 1] = childrenEnd(next, row);
+      }
+    }
+    if (keep > 0) {
+      rows[1] = word;
+      starts[1] = childrenStart(hot[1], word);
+      ends[1] = childrenEnd(hot[1], word);
+      const ids = state.ids;
+      if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
+      ids[keep - 1] = word;
+    }
+    state.length = keep;
+    state.order = answer + 1;
     return log10Prob;
   }
 

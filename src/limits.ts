@@ -229,6 +229,10 @@ export const PACK_READ_BYTES_MAX = 1 << 20;
  *  64; 64 states take about 13 KB. */
 export const SCORE_LANES = 64;
 
+/** Tokens `quern score` gathers (whole sentences, `</s>` counted) before it scores them together:
+ *  enough to keep SCORE_LANES lanes busy for a thousand calls, a few MB of token strings at most. */
+export const SCORE_BATCH_TOKENS = 1 << 16;
+
 /** Bytes the model-file writer gathers before one write call: sections are built in batches of
  *  rows, often smaller; 1 MiB writes keep the calls few. */
 export const PACK_WRITE_BUFFER_BYTES = 1 << 20;

@@ -861,16 +861,18 @@ export class PackedModel {
   private checked = false;
   /** `stepBatch` calls so far (each state records the last that took it). */
   private batchCount = 0;
-  /** `stepBatch`'s queue of searches past SCAN_ROWS: state index, order k, and the rows left to
-   *  search, [base, base + length), of order k + 1 (grown to the largest batch × ORDER_MAX); and its
+  /** `stepBatch`'s queues of searches past SCAN_ROWS, one per order k (`touchStride` entries each,
+   *  `pendingCounts[k]` used): state index, word, and the rows left to search, [base, base +
+   *  length), of order k + 1; and its
    *  gathered addresses, by order: `touchStride` entries per order (the largest batch so far). */
   private pendingLane = new Int32Array(0);
-  private pendingOrder = new Int32Array(0);
+  private pendingWord = new Int32Array(0);
   private pendingBase = new Int32Array(0);
   private pendingLength = new Int32Array(0);
-  private pendingCount = 0;
+  private readonly pendingCounts = new Int32Array(ORDER_MAX + 1);
   private touchWordAt = new Int32Array(0);
   private touchRowAt = new Int32Array(0);
+  private touchBaseAt = new Int32Array(0);
   private readonly touchFilled = new Int32Array(ORDER_MAX + 1);
   private readonly touchOffsetsFilled = new Int32Array(ORDER_MAX + 1);
   private touchStride = 0;
@@ -1231,18 +1233,19 @@ export class PackedModel {
       state.batch = batch;
     }
     if (this.touchStride < count) {
-      const capacity = count * ORDER_MAX;
+      const capacity = count * (ORDER_MAX + 1);
       this.pendingLane = new Int32Array(capacity);
-      this.pendingOrder = new Int32Array(capacity);
+      this.pendingWord = new Int32Array(capacity);
       this.pendingBase = new Int32Array(capacity);
       this.pendingLength = new Int32Array(capacity);
       this.touchStride = count;
       this.touchWordAt = new Int32Array(count * (ORDER_MAX + 1));
       this.touchRowAt = new Int32Array(count * (ORDER_MAX + 1));
+      this.touchBaseAt = new Int32Array(count * (ORDER_MAX + 1));
     }
     let sink = this.touchContexts(states, count);
     for (let i = 0; i < count; i++) this.scanAll(states[i], i, words[i]);
-    this.searchPending(states, words);
+    this.searchPending(states);
     sink += this.touchFound(states, count);
     for (let i = 0; i < count; i++) log10Probs[i] = this.finishStep(states[i], words[i]);
     // The touched values are kept so that the compiler keeps the loads that read them.
@@ -1309,9 +1312,9 @@ export class PackedModel {
           const next = hot[k + 1];
           row = words16 ? scanWord16(next.words16, start, end, word) : scanWord(next.words, this.wordBits, this.wordMask, start, end, word);
           if (row === PENDING) {
-            const at = this.pendingCount++;
+            const at = k * this.touchStride + this.pendingCounts[k]++;
             this.pendingLane[at] = lane;
-            this.pendingOrder[at] = k;
+            this.pendingWord[at] = word;
             this.pendingBase[at] = start + SCAN_ROWS;
             // Ids ascend from 1 within a context, so `word` is among its first `word` children.
             this.pendingLength[at] = Math.min(end, start + word) - start - SCAN_ROWS;
@@ -1324,64 +1327,72 @@ export class PackedModel {
 
   /**
    * Phase 2 of `stepBatch`, second part: the queued searches (ranges longer than SCAN_ROWS, the
-   * long children lists of the low orders) run together, one probe of each per round: a binary
-   * search for the last row whose id is ≤ the word, whose step depends on the probed id by arithmetic, not by a branch, so that the
-   * probes of one round (of different states and orders) are all in flight at once.
+   * long children lists of the low orders) run together, order by order, one probe of each per
+   * round: a binary search for the last row whose id is ≤ the word, whose step depends on the
+   * probed id by arithmetic, not by a branch, so that the probes of one round (of different states)
+   * are all in flight at once.
    */
-  private searchPending(states: readonly DecoderState[], words: ArrayLike<number>): void {
+  private searchPending(states: readonly DecoderState[]): void {
     const hot = this.hot;
+    const stride = this.touchStride;
     const lanes = this.pendingLane;
-    const orders = this.pendingOrder;
+    const sought = this.pendingWord;
     const bases = this.pendingBase;
     const lengths = this.pendingLength;
+    const counts = this.pendingCounts;
     const bits = this.wordBits;
     const mask = this.wordMask;
     const words16 = this.words16;
-    let pending = this.pendingCount;
-    while (pending > 0) {
-      let kept = 0;
-      for (let i = 0; i < pending; i++) {
-        const lane = lanes[i];
-        const k = orders[i];
-        const word = words[lane];
-        const level = hot[k + 1];
-        let base = bases[i];
-        let length = lengths[i];
-        if (length > 1) {
-          const half = length >>> 1;
-          const probe = base + half;
-          const id = words16 ? level.words16[probe] : unpackId(level.words, probe, bits, mask);
-          base += half & ((id - word - 1) >> 31); // id ≤ word: the word, if there, is in the upper half
-          length -= half;
+    for (let k = 1; k < this.order; k++) {
+      const level = hot[k + 1];
+      const packed = level.words;
+      const ids16 = level.words16;
+      const first = k * stride;
+      let pending = counts[k];
+      while (pending > 0) {
+        let kept = 0;
+        for (let i = first; i < first + pending; i++) {
+          const word = sought[i];
+          let base = bases[i];
+          let length = lengths[i];
+          if (length > 1) {
+            const half = length >>> 1;
+            const probe = base + half;
+            const id = words16 ? ids16[probe] : unpackId(packed, probe, bits, mask);
+            base += half & ((id - word - 1) >> 31); // id ≤ word: the word, if there, is in the upper half
+            length -= half;
+          }
+          if (length > 1) {
+            const at = first + kept++;
+            lanes[at] = lanes[i];
+            sought[at] = word;
+            bases[at] = base;
+            lengths[at] = length;
+            continue;
+          }
+          // One row left: the last whose id is ≤ the word (or the first row, when none is): the word
+          // is there or nowhere, the ids ascending.
+          const id = words16 ? ids16[base] : unpackId(packed, base, bits, mask);
+          states[lanes[i]].found[k] = id === word ? base : -1;
         }
-        if (length > 1) {
-          lanes[kept] = lane;
-          orders[kept] = k;
-          bases[kept] = base;
-          lengths[kept] = length;
-          kept++;
-          continue;
-        }
-        // One row left: the last whose id is ≤ the word (or the first row, when none is): the word
-        // is there or nowhere, the ids ascending.
-        const id = words16 ? level.words16[base] : unpackId(level.words, base, bits, mask);
-        states[lane].found[k] = id === word ? base : -1;
+        pending = kept;
       }
-      pending = kept;
+      counts[k] = 0;
     }
-    this.pendingCount = 0;
   }
 
   /**
    * Phase 3 of `stepBatch`: each state's answering order (`answer`: the highest k with found[k] ≥ 0,
    * 0 when none), then, gathered by order as in phase 1, the reads (for their memory access only)
-   * of the value that answers and of the children entries of the rows the new state keeps.
+   * of the value that answers and of the children entries (offset and base) of the rows the new
+   * state keeps.
    */
   private touchFound(states: readonly DecoderState[], count: number): number {
     const hot = this.hot;
     const stride = this.touchStride;
     const probAt = this.touchRowAt;
     const offsetAt = this.touchWordAt;
+    const baseAt = this.touchBaseAt;
     const probs = this.touchFilled;
     const offsets = this.touchOffsetsFilled;
     probs.fill(0);
@@ -1400,7 +1411,9 @@ export class PackedModel {
         const row = found[k];
         if (row >= 0) {
           const bits = hot[k + 1].childBits;
-          offsetAt[(k + 1) * stride + offsets[k + 1]++] = (row >>> 5) * bits + (((row & 31) * bits) >>> 5);
+          const at = (k + 1) * stride + offsets[k + 1]++;
+          offsetAt[at] = (row >>> 5) * bits + (((row & 31) * bits) >>> 5);
+          baseAt[at] = row >>> CHILD_BLOCK_SHIFT;
         }
       }
     }
@@ -1411,8 +1424,9 @@ export class PackedModel {
       let end = n * stride + probs[n];
       for (let at = n * stride; at < end; at++) sink += prob[probAt[at]];
       const childOffsets = level.offsets;
+      const childBases = level.bases;
       end = n * stride + offsets[n];
-      for (let at = n * stride; at < end; at++) sink += childOffsets[offsetAt[at]];
+      for (let at = n * stride; at < end; at++) sink += childOffsets[offsetAt[at]] + childBases[baseAt[at]];
     }
     return sink;
   }

@@ -8,7 +8,7 @@
 import { EOS, UNK } from '../corpus/vocabulary.ts';
 import { assert } from '../errors.ts';
 import type { DecoderState, PackedModel, SentenceScore, TokenScore } from '../pack/reader.ts';
-import { SCORE_LANES } from '../limits.ts';
+import { SCORE_BATCH_TOKENS, SCORE_LANES } from '../limits.ts';
 
 /**
  * Scores `sentences` of word ids (ids in [1, V], `</s>`'s last: every id is a token to predict,
@@ -120,4 +120,29 @@ export function scoreSentences(model: PackedModel, sentences: readonly (readonly
     result.log10ProbWithUnk = log10ProbWithUnk;
   }
   return results;
+}
+
+/**
+ * Sentences given one at a time, scored in groups of up to SCORE_BATCH_TOKENS tokens with
+ * `scoreSentences`: `onScore` receives each sentence's score in the order the sentences came.
+ * `flush` scores what is gathered (call it at the end).
+ */
+export class BatchScorer {
+  private group: Array<readonly string[]> = [];
+  private groupTokens = 0;
+
+  constructor(private readonly model: PackedModel, private readonly onScore: (score: SentenceScore) => void) {}
+
+  add(words: readonly string[]): void {
+    this.group.push(words);
+    this.groupTokens += words.length + 1;
+    if (this.groupTokens >= SCORE_BATCH_TOKENS) this.flush();
+  }
+
+  flush(): void {
+    const group = this.group;
+    this.group = [];
+    this.groupTokens = 0;
+    for (const score of scoreSentences(this.model, group)) this.onScore(score);
+  }
 }

@@ -10,7 +10,8 @@ import { countCorpus, truncateCounts } from '../../src/estimate/counts.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../../src/pack/writer.ts';
-import { scoreIdSentences, scoreSentences } from '../../src/score/batch.ts';
+import { BatchScorer, scoreIdSentences, scoreSentences } from '../../src/score/batch.ts';
+import { SCORE_BATCH_TOKENS } from '../../src/limits.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { temporaryDirectory } from '../pack/support.ts';
 
@@ -108,4 +109,21 @@ test('stepBatch checks its arguments: word ids, a state given twice, the count',
   model.stepBatch([a, b], [1, 2], out);
   const check = model.newState();
   expect(out[1]).toBe(model.step(check, 2));
+});
+
+test('BatchScorer hands back every sentence in order across groups of SCORE_BATCH_TOKENS tokens, each as scoreSentence scores it', async () => {
+  const model = await packed(3, 'modified-kneser-ney', { floatBits: 32 });
+  const sentences = markovCorpus(63, 20_000, 48, 14);
+  const tokens = sentences.reduce((sum, words) => sum + words.length + 1, 0);
+  expect(tokens, 'more than two groups').toBeGreaterThan(2 * SCORE_BATCH_TOKENS);
+  const scores: ReturnType<PackedModel['scoreSentence']>[] = [];
+  const scorer = new BatchScorer(model, (score) => scores.push(score));
+  for (const words of sentences) scorer.add(words);
+  expect(scores.length, 'whole groups are scored as they fill').toBeGreaterThan(0);
+  scorer.flush();
+  expect(scores.length).toBe(sentences.length);
+  for (let i = 0; i < sentences.length; i++) {
+    const expected = model.scoreSentence(sentences[i]);
+    if (scores[i].log10ProbWithUnk !== expected.log10ProbWithUnk || scores[i].tokens.length !== expected.tokens.length) expect(scores[i], `sentence ${i}`).toEqual(expected);
+  }
 });

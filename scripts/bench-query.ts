@@ -433,33 +433,32 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
 async function measureModelFile(file: string, heldOut: string, lines: number): Promise<void> {
   const fileBytes = statSync(file).size;
   const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
-  // Loads: three default opens, alternating with the --against revision's (the same moments), then
-  // one with the structure check (and one of the --against revision without it).
+  // Loads, in rounds, each kind once per round so that all see the same moments of a shared
+  // machine: this revision's default open (checksums, bounds), and with --against, that revision's
+  // default open and its open with checkStructure: false (the same work as this default); each
+  // model dropped at once, so that one load's memory does not weigh on the next. Then one load
+  // with the structure check, and the two models the lookups use.
   const againstDir = againstDirectory();
   const reader = againstDir === null ? null : ((await import(path.join(againstDir, 'reader.ts'))) as AgainstReader);
   const loads: number[] = [];
   const againstLoads: number[] = [];
-  let packed: PackedModel | null = null;
-  let old: AgainstModel | null = null;
-  const timed = async <T>(open: () => Promise<T>, into: number[]): Promise<T> => {
+  const againstUncheckedLoads: number[] = [];
+  const timed = async (open: () => Promise<unknown>, into: number[]): Promise<void> => {
     const started = performance.now();
-    const opened = await open();
+    await open();
     into.push(performance.now() - started);
-    return opened;
   };
   for (let i = 0; i < 3; i++) {
-    packed = null; // the previous model's buffers may go before the next load
-    packed = await timed(() => openModel(file), loads);
+    await timed(() => openModel(file), loads);
     if (reader !== null) {
-      old = null;
-      old = await timed(() => reader.openModel(file), againstLoads);
+      await timed(() => reader.openModel(file), againstLoads);
+      await timed(() => reader.openModel(file, { checkStructure: false }), againstUncheckedLoads);
     }
   }
   const structureLoads: number[] = [];
-  const againstUncheckedLoads: number[] = [];
   await timed(() => openModel(file, { checkStructure: true }), structureLoads);
-  if (reader !== null) await timed(() => reader.openModel(file, { checkStructure: false }), againstUncheckedLoads);
-  const model = packed as PackedModel;
+  const model = await openModel(file);
+  const old = reader === null ? null : await reader.openModel(file);
   let text: string;
   if (heldOut.startsWith('corpus:')) {
     // A held-out shard of the corpus's own generator: the shard after its last.
@@ -487,7 +486,7 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
   }
   // Lookups: step, the batched lookups at each --lanes, and the --against revision's, in turn.
   const passes: Array<() => number> = [() => stepPass(model, stream), ...laneCounts.map((lanes) => () => batchPass(model, stream, lanes))];
-  if (reader !== null) passes.push(() => againstPass(old as AgainstModel, stream));
+  if (old !== null) passes.push(() => againstPass(old, stream));
   const measured = measureTogether(tokens, passes);
   const lookups = measured[0];
   const batched = measured.slice(1, 1 + laneCounts.length);
@@ -501,8 +500,9 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
     // The --against revision's reader on the same file (its format must be the same), in turn.
     const theirs = measured[measured.length - 1];
     const best = Math.max(...batched.map((result) => result.perSecond));
-    againstLine = `\n  against   ${args.against} on the same file: load as it opens by default, median of 3 ${perGigabyte(median(againstLoads))} ` +
-      `(this revision's default open, in turn with it: ×${(median(againstLoads) / median(loads)).toFixed(2)} faster), with checkStructure: false ${perGigabyte(againstUncheckedLoads[0])}; ` +
+    againstLine = `\n  against   ${args.against} on the same file: load median of 3 as it opens by default ${perGigabyte(median(againstLoads))}, ` +
+      `with checkStructure: false ${perGigabyte(median(againstUncheckedLoads))} (this revision's default open, in turn with them: ` +
+      `×${(median(againstLoads) / median(loads)).toFixed(2)} and ×${(median(againstUncheckedLoads) / median(loads)).toFixed(2)} faster); ` +
       `lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s (this revision, in turn with it: step ×${(lookups.perSecond / theirs.perSecond).toFixed(2)}, ` +
       `best stepBatch ×${(best / theirs.perSecond).toFixed(2)})`;
     if (Math.abs(theirs.sum - lookups.sum) > 1e-6 * Math.abs(lookups.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${lookups.sum}`);
@@ -511,7 +511,7 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
   console.log(
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
       `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
-      `  load      as opened by default (checksums, bounds): first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))}; with the structure check ${perGigabyte(structureLoads[0])}\n` +
+      `  load      as opened by default (checksums, bounds): ${loads.map(perGigabyte).join(', ')} (median ${perGigabyte(median(loads))}); with the structure check ${perGigabyte(structureLoads[0])}\n` +
       `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
       orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
       batchLine + againstLine,

@@ -7,6 +7,7 @@
 import { join } from 'node:path';
 import { afterAll, expect, test } from 'vitest';
 import { countCorpus, truncateCounts } from '../../src/estimate/counts.ts';
+import { logProb } from '../../src/estimate/model.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../../src/pack/writer.ts';
@@ -126,4 +127,42 @@ test('BatchScorer hands back every sentence in order across groups of SCORE_BATC
     const expected = model.scoreSentence(sentences[i]);
     if (scores[i].log10ProbWithUnk !== expected.log10ProbWithUnk || scores[i].tokens.length !== expected.tokens.length) expect(scores[i], `sentence ${i}`).toEqual(expected);
   }
+});
+
+test('a vocabulary whose frequent words have thousands of successors (their children sampled every 64 rows): stepBatch and step equal the in-memory model', async () => {
+  // 4,000 word types, Zipf-like: the frequent words are followed by hundreds to thousands of others.
+  const wide = markovCorpus(64, 6_000, 4_000, 16);
+  const wideCounts = countCorpus(wide, 3);
+  const model = estimateWith('modified-kneser-ney', wideCounts, []);
+  const successors = new Map<number, number>();
+  for (const context of model.orders[1].contextRow) successors.set(context, (successors.get(context) ?? 0) + 1);
+  const long = [...successors.values()].filter((count) => count >= 256).length;
+  expect(long, 'contexts with at least 256 children (SAMPLED_CHILDREN_MIN)').toBeGreaterThan(5);
+  expect(Math.max(...successors.values())).toBeGreaterThan(1000);
+  const path = join(dir, `m${fileIndex++}.qm`);
+  await packModel(model, { fingerprint: '', floatBits: 64 }, nodeFs, path);
+  const file = await openModel(path);
+  const sentences = idsOf(file, markovCorpus(65, 400, 4_200, 16));
+  // step against the in-memory model (src/estimate/model.ts) to 1e-9, along every sentence.
+  let compared = 0;
+  const state = file.newState();
+  for (const sentence of sentences) {
+    file.resetState(state);
+    const history = [0];
+    for (const id of sentence) {
+      const expected = logProb(model, history, id);
+      const value = file.step(state, id);
+      if (!(Math.abs(value - expected.log10Prob) <= 1e-9 * Math.max(1, Math.abs(expected.log10Prob))) || state.order !== expected.order) {
+        expect([value, state.order], `after [${history.join(' ')}]`).toEqual([expected.log10Prob, expected.order]);
+      }
+      history.push(id);
+      compared++;
+    }
+  }
+  expect(compared).toBeGreaterThan(3000);
+  // stepBatch against step, bit for bit.
+  const expected = stepped(file, sentences);
+  scoreIdSentences(file, sentences, (sentence, position, log10Prob, order) => {
+    if (!Object.is(log10Prob, expected[sentence][position][0]) || order !== expected[sentence][position][1]) expect([log10Prob, order]).toEqual(expected[sentence][position]);
+  }, 64);
 });

@@ -32,16 +32,20 @@
  *
  * With --model FILE --heldout TEXT, a model file made elsewhere (e.g. `quern estimate JOB --out FILE`
  * of a job counted from a large corpus, too large to count in memory here) is measured instead: in
- * one fresh process, its first load and the median of two more (the default open), one more with the
- * structure check, its state-carried
+ * one fresh process, three loads as it opens by default (with --against, each in turn with that
+ * revision's default open and its open without the structure check), one with the structure check,
+ * its state-carried
  * lookups (`step`) over TEXT (one sentence per line, words separated by whitespace, looked up with
  * `wordId`, OOVs as `<unk>`; --heldout-lines caps the lines read), and its bytes per n-gram; with
  * --against REF, REF's reader on the same file beside it (loads, and lookups in turn).
  * --heldout corpus:DIR takes a corpus directory of scripts/gen-corpus.ts instead, and writes 2 MB of
  * held-out text from its generator (its seed and vocabulary, the shard after its last).
  *
- *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF]
- *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF]
+ * Batched lookups: `stepBatch` through src/score/batch.ts's lanes (--lanes, default SCORE_LANES;
+ * a list measures each), in turn with `step`, Σ log10 p compared.
+ *
+ *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF] [--lanes 64]
+ *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF] [--lanes 64,16,256]
  */
 import { execFileSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';

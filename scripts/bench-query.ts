@@ -79,6 +79,8 @@ const { values: args } = parseArgs({
     heldout: { type: 'string' },
     'heldout-lines': { type: 'string', default: '100000' },
     lanes: { type: 'string', default: String(SCORE_LANES) },
+    load: { type: 'string' },
+    kind: { type: 'string' },
   },
 });
 /** Lanes of the batched lookups (`stepBatch` through scoreIdSentences): the first is the figure
@@ -438,29 +440,24 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
   const fileBytes = statSync(file).size;
   const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
   // Loads, in rounds, each kind once per round so that all see the same moments of a shared
-  // machine: this revision's default open (checksums, bounds), and with --against, that revision's
-  // default open and its open with checkStructure: false (the same work as this default); each
-  // model dropped at once, so that one load's memory does not weigh on the next. Then one load
-  // with the structure check, and the two models the lookups use.
+  // machine, each in a fresh process (as a program opening a model; and no earlier model's memory,
+  // not yet collected, weighs on it): this revision's default open (checksums, bounds), and with
+  // --against, that revision's default open and its open with checkStructure: false (the same work
+  // as this default). Then one load with the structure check.
   const againstDir = againstDirectory();
   const reader = againstDir === null ? null : ((await import(path.join(againstDir, 'reader.ts'))) as AgainstReader);
+  const loadOnce = (kind: LoadKind): number => Number(execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--load', file, '--kind', kind, '--measure', dir], { encoding: 'utf8' }));
   const loads: number[] = [];
   const againstLoads: number[] = [];
   const againstUncheckedLoads: number[] = [];
-  const timed = async (open: () => Promise<unknown>, into: number[]): Promise<void> => {
-    const started = performance.now();
-    await open();
-    into.push(performance.now() - started);
-  };
   for (let i = 0; i < 3; i++) {
-    await timed(() => openModel(file), loads);
+    loads.push(loadOnce('default'));
     if (reader !== null) {
-      await timed(() => reader.openModel(file), againstLoads);
-      await timed(() => reader.openModel(file, { checkStructure: false }), againstUncheckedLoads);
+      againstLoads.push(loadOnce('against'));
+      againstUncheckedLoads.push(loadOnce('against-unchecked'));
     }
   }
-  const structureLoads: number[] = [];
-  await timed(() => openModel(file, { checkStructure: true }), structureLoads);
+  const structureLoads = [loadOnce('structure')];
   const model = await openModel(file);
   const old = reader === null ? null : await reader.openModel(file);
   let text: string;
@@ -504,7 +501,7 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
     // The --against revision's reader on the same file (its format must be the same), in turn.
     const theirs = measured[measured.length - 1];
     const best = Math.max(...batched.map((result) => result.perSecond));
-    againstLine = `\n  against   ${args.against} on the same file: load median of 3 as it opens by default ${perGigabyte(median(againstLoads))}, ` +
+    againstLine = `\n  against   ${args.against} on the same file: load median of 3 as it opens by default ${perGigabyte(median(againstLoads))} (${againstLoads.map(perGigabyte).join(', ')}), ` +
       `with checkStructure: false ${perGigabyte(median(againstUncheckedLoads))} (this revision's default open, in turn with them: ` +
       `×${(median(againstLoads) / median(loads)).toFixed(2)} and ×${(median(againstUncheckedLoads) / median(loads)).toFixed(2)} faster); ` +
       `lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s (this revision, in turn with it: step ×${(lookups.perSecond / theirs.perSecond).toFixed(2)}, ` +
@@ -515,13 +512,26 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
   console.log(
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
       `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
-      `  load      as opened by default (checksums, bounds): ${loads.map(perGigabyte).join(', ')} (median ${perGigabyte(median(loads))}); with the structure check ${perGigabyte(structureLoads[0])}\n` +
+      `  load      in a fresh process each, as opened by default (checksums, bounds): ${loads.map(perGigabyte).join(', ')} (median ${perGigabyte(median(loads))}); with the structure check ${perGigabyte(structureLoads[0])}\n` +
       `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
       orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
       batchLine + againstLine,
   );
 }
 
+/** What one --load process opens: this revision's reader by default or with the structure check,
+ *  or the --against revision's (copied into the --measure directory) by default or without it. */
+type LoadKind = 'default' | 'structure' | 'against' | 'against-unchecked';
+
+if (args.load !== undefined) {
+  const kind = args.kind as LoadKind;
+  const reader = kind.startsWith('against') ? ((await import(path.join(dir, 'against', 'reader.ts'))) as AgainstReader) : { openModel };
+  const options = kind === 'structure' ? { checkStructure: true } : kind === 'against-unchecked' ? { checkStructure: false } : {};
+  const started = performance.now();
+  await reader.openModel(args.load, options);
+  process.stdout.write(String(performance.now() - started));
+  process.exit(0);
+}
 if (args.measure !== undefined) {
   process.stdout.write(JSON.stringify(await measurePart(args.measure, args.part as Part)));
   process.exit(0);

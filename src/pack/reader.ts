@@ -796,9 +796,11 @@ const SCAN_ROWS = 8;
 
 /** The children of a word (order 2) are sampled every SAMPLE_STEP rows when there are at least
  *  SAMPLED_CHILDREN_MIN of them: the samples of all such words take 4 bytes per SAMPLE_STEP
- *  bigrams (1/18 of their packed ids at 18 bits), small enough to stay in the CPU's caches, and a
- *  lookup's search among thousands of children then reads one block of 64 packed ids (2 or 3
- *  cache lines) of the model instead of a dozen lines across the range. */
+ *  bigrams (1/18 of their packed ids at 18 bits), and `stepBatch`'s search among thousands of
+ *  children then reads one block of 64 packed ids (2 or 3 cache lines) of the model instead of a
+ *  dozen lines across the range: +13% lookups/s on the 1 GB benchmark model (load 8, A/B in one
+ *  process). Not in `step`: there the binary search over the samples (2.4 MB, not all in cache) is
+ *  one more chain of dependent reads, and it cost 12% (1 GB model) to 20% (a 10 MB one). */
 const SAMPLE_SHIFT = 6;
 const SAMPLE_STEP = 1 << SAMPLE_SHIFT;
 const SAMPLED_CHILDREN_MIN = 256;
@@ -1108,22 +1110,6 @@ export class PackedModel {
     return this.words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, this.wordBits, this.wordMask, start, end, word);
   }
 
-  /** The row of order 2 in [start, end), the children of word id `row`, whose word id is `word`, or
-   *  −1: searchWord, narrowed first by the samples of a long range (SAMPLE_STEP). */
-  private searchChildrenOfWord(row: number, start: number, end: number, word: number): number {
-    const next = this.hot[2];
-    const sampled = this.sampleAt[row];
-    if (sampled >= 0 && word > SCAN_ROWS) {
-      const block = lastSampleAtMost(this.samples, sampled, ((end - start - 1) >>> SAMPLE_SHIFT) + 1, word);
-      const blockStart = start + (block << SAMPLE_SHIFT);
-      if (this.samples[sampled + block] === word) return blockStart;
-      // Ids ascend from 1 within a context, so `word` is among its first `word` children.
-      end = Math.min(end, blockStart + SAMPLE_STEP, start + word);
-      start = blockStart;
-    }
-    return this.words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, this.wordBits, this.wordMask, start, end, word);
-  }
-
   /** The row in [start, end) of order n whose word id is `word`, or −1. */
   private find(n: number, start: number, end: number, word: number): number {
     const level = this.hot[n];
@@ -1226,7 +1212,7 @@ export class PackedModel {
           // Read before the search, so that the memory access runs while the search does.
           const rowBackOff = valueOf(level.backOff, level.backOffBook, row);
           const next = hot[k + 1];
-          const found = k === 1 ? this.searchChildrenOfWord(row, start, end, word) : words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
+          const found = words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
           if (found >= 0) {
             log10Prob = backOff + valueOf(next.prob, next.probBook, found);
             order = k + 1;
@@ -1254,7 +1240,7 @@ export class PackedModel {
         const end = ends[j];
         if (start < end) {
           const next = hot[j + 1];
-          found = j === 1 ? this.searchChildrenOfWord(row, start, end, word) : words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
+          found = words16 ? searchWord16(next.words16, start, end, word) : searchWord(next.words, wordBits, wordMask, start, end, word);
           if (found >= 0) {
             starts[j + 1] = childrenStart(next, found);
             ends[j + 1] = childrenEnd(next, found);

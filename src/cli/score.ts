@@ -40,8 +40,8 @@ export async function scoreInputs(
     const file = inputs[chunk.fileIndex];
     const t = totals(file.path);
     let line = 0;
-    // Sentences are scored in groups of up to SCORE_BATCH_TOKENS tokens, many at once
-    // (src/score/batch.ts), and reported in their order.
+    // Sentences are scored in groups of up to SCORE_BATCH_TOKENS tokens, many at once (a model
+    // file of SCORE_BATCH_MODEL_BYTES_MIN or more; src/score/batch.ts), and reported in order.
     const scorer = new BatchScorer(model, (score) => {
       line++;
       t.sentences++;

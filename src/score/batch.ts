@@ -8,7 +8,7 @@
 import { EOS, UNK } from '../corpus/vocabulary.ts';
 import { assert } from '../errors.ts';
 import type { DecoderState, PackedModel, SentenceScore, TokenScore } from '../pack/reader.ts';
-import { SCORE_BATCH_TOKENS, SCORE_LANES } from '../limits.ts';
+import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS, SCORE_LANES } from '../limits.ts';
 
 /**
  * Scores `sentences` of word ids (ids in [1, V], `</s>`'s last: every id is a token to predict,
@@ -125,15 +125,25 @@ export function scoreSentences(model: PackedModel, sentences: readonly (readonly
 /**
  * Sentences given one at a time, scored in groups of up to SCORE_BATCH_TOKENS tokens with
  * `scoreSentences`: `onScore` receives each sentence's score in the order the sentences came.
- * `flush` scores what is gathered (call it at the end).
+ * `flush` scores what is gathered (call it at the end). A model file smaller than
+ * SCORE_BATCH_MODEL_BYTES_MIN is scored one sentence at a time (`scoreSentence`, the same numbers):
+ * its lookups mostly hit the CPU's caches, and the batch's phases would only add work.
  */
 export class BatchScorer {
   private group: Array<readonly string[]> = [];
   private groupTokens = 0;
+  /** Whether sentences are scored together (`scoreSentences`) or one at a time. */
+  readonly batched: boolean;
 
-  constructor(private readonly model: PackedModel, private readonly onScore: (score: SentenceScore) => void) {}
+  constructor(private readonly model: PackedModel, private readonly onScore: (score: SentenceScore) => void, batched = model.fileBytes >= SCORE_BATCH_MODEL_BYTES_MIN) {
+    this.batched = batched;
+  }
 
   add(words: readonly string[]): void {
+    if (!this.batched) {
+      this.onScore(this.model.scoreSentence(words));
+      return;
+    }
     this.group.push(words);
     this.groupTokens += words.length + 1;
     if (this.groupTokens >= SCORE_BATCH_TOKENS) this.flush();

@@ -12,7 +12,7 @@ import { nodeFs } from '../../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../../src/pack/writer.ts';
 import { BatchScorer, scoreIdSentences, scoreSentences } from '../../src/score/batch.ts';
-import { SCORE_BATCH_TOKENS } from '../../src/limits.ts';
+import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS } from '../../src/limits.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { temporaryDirectory } from '../pack/support.ts';
 
@@ -118,7 +118,7 @@ test('BatchScorer hands back every sentence in order across groups of SCORE_BATC
   const tokens = sentences.reduce((sum, words) => sum + words.length + 1, 0);
   expect(tokens, 'more than two groups').toBeGreaterThan(2 * SCORE_BATCH_TOKENS);
   const scores: ReturnType<PackedModel['scoreSentence']>[] = [];
-  const scorer = new BatchScorer(model, (score) => scores.push(score));
+  const scorer = new BatchScorer(model, (score) => scores.push(score), true);
   for (const words of sentences) scorer.add(words);
   expect(scores.length, 'whole groups are scored as they fill').toBeGreaterThan(0);
   scorer.flush();
@@ -165,4 +165,16 @@ test('a vocabulary whose frequent words have thousands of successors (their chil
   scoreIdSentences(file, sentences, (sentence, position, log10Prob, order) => {
     if (!Object.is(log10Prob, expected[sentence][position][0]) || order !== expected[sentence][position][1]) expect([log10Prob, order]).toEqual(expected[sentence][position]);
   }, 64);
+});
+
+test('BatchScorer scores a model file under SCORE_BATCH_MODEL_BYTES_MIN one sentence at a time (the same numbers)', async () => {
+  const model = await packed(3, 'modified-kneser-ney', { floatBits: 32 });
+  expect(model.fileBytes).toBeLessThan(SCORE_BATCH_MODEL_BYTES_MIN);
+  const scores: ReturnType<PackedModel['scoreSentence']>[] = [];
+  const scorer = new BatchScorer(model, (score) => scores.push(score));
+  expect(scorer.batched).toBe(false);
+  for (const words of text) scorer.add(words);
+  expect(scores.length, 'scored as they come').toBe(text.length);
+  scorer.flush();
+  expect(scores).toEqual(text.map((words) => model.scoreSentence(words)));
 });

@@ -16,7 +16,8 @@
  *   - in memory (baseline)    `logProb(model, history, id)` of src/estimate/model.ts, same history.
  * Each runs for at least --seconds (and 5 passes); the figure is the median pass. The sums of log10 p
  * are compared (float64 file: equal to 1e-6 relative).
- * Load: `openModel` of the float32 file, median of 7, with every check, and with the checksums only;
+ * Load: `openModel` of the float32 file, median of 15, as it opens by default (checksums, header,
+ * table, vocabulary, the lookups' bounds) and with the structure check (`checkStructure: true`);
  * beside it the cost of allocating and filling as much fresh memory, the floor of any load that
  * copies the file into memory (no mapping).
  * Lookups and loads are measured in fresh child processes (--measure DIR --part P), whose heaps hold
@@ -31,15 +32,20 @@
  *
  * With --model FILE --heldout TEXT, a model file made elsewhere (e.g. `quern estimate JOB --out FILE`
  * of a job counted from a large corpus, too large to count in memory here) is measured instead: in
- * one fresh process, its first load and the median of two more (every check), its state-carried
+ * one fresh process, three loads as it opens by default (with --against, each in turn with that
+ * revision's default open and its open without the structure check), one with the structure check,
+ * its state-carried
  * lookups (`step`) over TEXT (one sentence per line, words separated by whitespace, looked up with
  * `wordId`, OOVs as `<unk>`; --heldout-lines caps the lines read), and its bytes per n-gram; with
  * --against REF, REF's reader on the same file beside it (loads, and lookups in turn).
  * --heldout corpus:DIR takes a corpus directory of scripts/gen-corpus.ts instead, and writes 2 MB of
  * held-out text from its generator (its seed and vocabulary, the shard after its last).
  *
- *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF]
- *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF]
+ * Batched lookups: `stepBatch` through src/score/batch.ts's lanes (--lanes, default SCORE_LANES;
+ * a list measures each), in turn with `step`, Σ log10 p compared.
+ *
+ *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF] [--lanes 64]
+ *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF] [--lanes 64,16,256]
  */
 import { execFileSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';
@@ -55,6 +61,8 @@ import { logProb, type LanguageModel } from '../src/estimate/model.ts';
 import { nodeFs } from '../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../src/pack/writer.ts';
+import { SCORE_LANES } from '../src/limits.ts';
+import { scoreIdSentences } from '../src/score/batch.ts';
 import { brownFiles, readBrown } from '../test/pack/support.ts';
 import { SyntheticModel, writeShardFile } from './lib/synthetic.ts';
 
@@ -70,8 +78,14 @@ const { values: args } = parseArgs({
     model: { type: 'string' },
     heldout: { type: 'string' },
     'heldout-lines': { type: 'string', default: '100000' },
+    lanes: { type: 'string', default: String(SCORE_LANES) },
+    load: { type: 'string' },
+    kind: { type: 'string' },
   },
 });
+/** Lanes of the batched lookups (`stepBatch` through scoreIdSentences): the first is the figure
+ *  reported beside `step`; more values (--lanes 1,16,64,256) are measured too, in turn. */
+const laneCounts = args.lanes.split(',').map(Number);
 const orders = args.orders.split(',').map(Number);
 const seconds = Number(args.seconds);
 const syntheticBytes = bytes.parse(args['synthetic-bytes']) as number;
@@ -193,6 +207,16 @@ function againstPass(model: AgainstModel, stream: number[][]): number {
   return sum;
 }
 
+/** The stream scored in lanes, `lanes` sentences at a time (`stepBatch`): one lookup per token, as
+ *  in stepPass; Σ log10 p equal to stepPass's up to the order of the additions. */
+function batchPass(model: PackedModel, stream: number[][], lanes: number): number {
+  let sum = 0;
+  scoreIdSentences(model, stream, (_sentence, _position, log10Prob) => {
+    sum += log10Prob;
+  }, lanes);
+  return sum;
+}
+
 function stepPass(model: PackedModel, stream: number[][]): number {
   let sum = 0;
   const state = model.newState();
@@ -232,8 +256,8 @@ const VARIANTS: Array<[string, PackOptions]> = [
 
 /** What the measuring processes report (each part from a process of its own). */
 interface Measured {
+  loadStructureMs: number;
   loadMs: number;
-  loadUncheckedMs: number;
   touchMs: number;
   baseline: number;
   baselineSum: number;
@@ -241,6 +265,8 @@ interface Measured {
   stateSum: Record<string, number>;
   advance: number;
   stateless: number;
+  /** float32: [lanes, lookups/s] of the batched lookups at each --lanes. */
+  batch?: Array<[number, number]>;
   /** --against: the float32 file of that revision (lookups with its state API, loads), measured in
    *  the float32 process, in turn with this revision's. */
   againstState?: number;
@@ -294,17 +320,17 @@ async function measurePart(from: string, part: Part): Promise<Partial<Measured>>
     // Loads, alternating with those of the --against file when there is one (the same moments).
     const fileBytes = statSync(filePath).size;
     const loads: number[] = [];
-    const loadsUnchecked: number[] = [];
+    const loadsDefault: number[] = [];
     const touches: number[] = [];
     const againstLoads: number[] = [];
     const againstLoadsUnchecked: number[] = [];
     for (let i = 0; i < LOADS; i++) {
       let started = performance.now();
-      await openModel(filePath);
+      await openModel(filePath, { checkStructure: true });
       loads.push(performance.now() - started);
       started = performance.now();
-      await openModel(filePath, { checkStructure: false });
-      loadsUnchecked.push(performance.now() - started);
+      await openModel(filePath);
+      loadsDefault.push(performance.now() - started);
       if (against !== null) {
         started = performance.now();
         await against.openModel(againstPath);
@@ -318,21 +344,29 @@ async function measurePart(from: string, part: Part): Promise<Partial<Measured>>
       Buffer.allocUnsafeSlow(fileBytes).fill(1);
       touches.push(performance.now() - started);
     }
-    Object.assign(result, { loadMs: median(loads), loadUncheckedMs: median(loadsUnchecked), touchMs: median(touches) });
+    Object.assign(result, { loadStructureMs: median(loads), loadMs: median(loadsDefault), touchMs: median(touches) });
     if (against !== null) Object.assign(result, { againstLoadMs: median(againstLoads), againstLoadUncheckedMs: median(againstLoadsUnchecked) });
   }
   const packed = await openModel(filePath);
+  // step, the batched lookups (float32: at each --lanes) and the --against revision's step, in turn.
+  const lanes = part === 'float32' ? laneCounts : [];
+  const passes: Array<() => number> = [() => stepPass(packed, stream), ...lanes.map((count) => () => batchPass(packed, stream, count))];
   if (against !== null) {
-    // This revision's step and the --against revision's advance, pass for pass.
     const old = await against.openModel(againstPath);
-    const [state, previous] = measureTogether(tokens, [() => stepPass(packed, stream), () => againstPass(old, stream)]);
-    result.state = { [part]: state.perSecond };
-    result.stateSum = { [part]: state.sum };
+    passes.push(() => againstPass(old, stream));
+  }
+  const measured = measureTogether(tokens, passes);
+  const [state] = measured;
+  result.state = { [part]: state.perSecond };
+  result.stateSum = { [part]: state.sum };
+  for (const [index, count] of lanes.entries()) {
+    const batch = measured[1 + index];
+    if (Math.abs(batch.sum - state.sum) > 1e-9 * Math.abs(state.sum)) throw new Error(`stepBatch (${count} lanes): Σ log10 p ${batch.sum} differs from step's ${state.sum}`);
+  }
+  if (lanes.length > 0) result.batch = lanes.map((count, index) => [count, measured[1 + index].perSecond]);
+  if (against !== null) {
+    const previous = measured[measured.length - 1];
     Object.assign(result, { againstState: previous.perSecond, againstSum: previous.sum });
-  } else {
-    const state = measure(tokens, () => stepPass(packed, stream));
-    result.state = { [part]: state.perSecond };
-    result.stateSum = { [part]: state.sum };
   }
   if (part === 'float32') {
     result.advance = measure(tokens, () => statePass(packed, stream)).perSecond;
@@ -360,7 +394,7 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
   writeFileSync(path.join(dir, 'stream.json'), JSON.stringify(stream));
   const result = { state: {}, stateSum: {} } as Measured;
   for (const part of PARTS) {
-    const output = execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--measure', dir, '--part', part, '--seconds', String(seconds)], { encoding: 'utf8', maxBuffer: 1 << 20 });
+    const output = execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--measure', dir, '--part', part, '--seconds', String(seconds), '--lanes', args.lanes], { encoding: 'utf8', maxBuffer: 1 << 20 });
     const measured = JSON.parse(output) as Partial<Measured>;
     Object.assign(result.state, measured.state ?? {});
     Object.assign(result.stateSum, measured.stateSum ?? {});
@@ -383,17 +417,20 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
       `${tokens.toLocaleString('en-US')} held-out tokens per pass; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
       `  lookups   in memory logProb ${million(result.baseline)} (baseline) | packed, state carried (step): float64 ${million(result.state.float64)} (${ratio(result.state.float64)}), ` +
       `float32 ${million(result.state.float32)} (${ratio(result.state.float32)}), 8-bit ${million(result.state['8-bit'])} (${ratio(result.state['8-bit'])}) | ` +
-      `packed float32 advance (a new state per word) ${million(result.advance)} (${ratio(result.advance)}), stateless ${million(result.stateless)} (${ratio(result.stateless)})\n` +
+      `packed float32 advance (a new state per word) ${million(result.advance)} (${ratio(result.advance)}), stateless ${million(result.stateless)} (${ratio(result.stateless)}) | ` +
+      `float32 stepBatch, sentences in lanes: ${(result.batch ?? []).map(([count, perSecond]) => `${count} lanes ${million(perSecond)} (×${(perSecond / result.state.float32).toFixed(2)} step)`).join(', ')}\n` +
       `  size      B/n-gram: float64 ${perNgram('float64')}, float32 ${perNgram('float32')}, 16-bit ${perNgram('16-bit')}, 8-bit ${perNgram('8-bit')} ` +
       `(files ${VARIANTS.map(([name]) => bytes.format(sizes[name], { decimalPlaces: 1 })).join(', ')})\n` +
-      `  load      float32 file of ${bytes.format(sizes.float32, { decimalPlaces: 1 })}: ${result.loadMs.toFixed(1)} ms = ${perGigabyte(result.loadMs)} (checksums and structure verified); ` +
-      `${perGigabyte(result.loadUncheckedMs)} with checksums only; allocating and filling as much fresh memory: ${perGigabyte(result.touchMs)}` +
+      `  load      float32 file of ${bytes.format(sizes.float32, { decimalPlaces: 1 })}: ${result.loadMs.toFixed(1)} ms = ${perGigabyte(result.loadMs)} as opened by default (checksums, bounds); ` +
+      `${perGigabyte(result.loadStructureMs)} with the structure check; allocating and filling as much fresh memory: ${perGigabyte(result.touchMs)}` +
       (result.againstState === undefined
         ? ''
         : `\n  against   ${args.against}, float32 file of ${bytes.format(sizes.against, { decimalPlaces: 1 })} (${(sizes.against / ngrams).toFixed(2)} B/n-gram): ` +
-          `lookups with its state API (step if it has one) ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}); ` +
-          `load ${perGigabyte(result.againstLoadMs as number)} verified, ${perGigabyte(result.againstLoadUncheckedMs as number)} checksums only ` +
-          `(this revision: ×${((result.againstLoadMs as number) / result.loadMs).toFixed(2)} and ×${((result.againstLoadUncheckedMs as number) / result.loadUncheckedMs).toFixed(2)} faster)`),
+          `lookups with its state API (step if it has one) ${million(result.againstState)} (this revision's step, in turn with it: ${million(result.state.float32)}, ×${(result.state.float32 / result.againstState).toFixed(2)}; ` +
+          `best stepBatch ×${(Math.max(...(result.batch ?? []).map(([, perSecond]) => perSecond)) / result.againstState).toFixed(2)}); ` +
+          `load as opened by default ${perGigabyte(result.againstLoadMs as number)}, with checkStructure: false ${perGigabyte(result.againstLoadUncheckedMs as number)} ` +
+          `(this revision's default open, in turn with them: ×${((result.againstLoadMs as number) / result.loadMs).toFixed(2)} and ×${((result.againstLoadUncheckedMs as number) / result.loadMs).toFixed(2)} faster; ` +
+          `its structure check ×${((result.againstLoadMs as number) / result.loadStructureMs).toFixed(2)} against ${args.against}'s default)`),
   );
   console.log(rows[rows.length - 1]);
 }
@@ -402,15 +439,27 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
 async function measureModelFile(file: string, heldOut: string, lines: number): Promise<void> {
   const fileBytes = statSync(file).size;
   const perGigabyte = (ms: number): string => `${(ms / 1000 / (fileBytes / 1e9)).toFixed(2)} s/GB`;
+  // Loads, in rounds, each kind once per round so that all see the same moments of a shared
+  // machine, each in a fresh process (as a program opening a model; and no earlier model's memory,
+  // not yet collected, weighs on it): this revision's default open (checksums, bounds), and with
+  // --against, that revision's default open and its open with checkStructure: false (the same work
+  // as this default). Then one load with the structure check.
+  const againstDir = againstDirectory();
+  const reader = againstDir === null ? null : ((await import(path.join(againstDir, 'reader.ts'))) as AgainstReader);
+  const loadOnce = (kind: LoadKind): number => Number(execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--load', file, '--kind', kind, '--measure', dir], { encoding: 'utf8' }));
   const loads: number[] = [];
-  let packed: PackedModel | null = null;
+  const againstLoads: number[] = [];
+  const againstUncheckedLoads: number[] = [];
   for (let i = 0; i < 3; i++) {
-    packed = null; // the previous model's buffers may go before the next load
-    const started = performance.now();
-    packed = await openModel(file);
-    loads.push(performance.now() - started);
+    loads.push(loadOnce('default'));
+    if (reader !== null) {
+      againstLoads.push(loadOnce('against'));
+      againstUncheckedLoads.push(loadOnce('against-unchecked'));
+    }
   }
-  const model = packed as PackedModel;
+  const structureLoads = [loadOnce('structure')];
+  const model = await openModel(file);
+  const old = reader === null ? null : await reader.openModel(file);
   let text: string;
   if (heldOut.startsWith('corpus:')) {
     // A held-out shard of the corpus's own generator: the shard after its last.
@@ -436,37 +485,53 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
       orders[state.order]++;
     }
   }
-  let lookups: { perSecond: number; sum: number };
+  // Lookups: step, the batched lookups at each --lanes, and the --against revision's, in turn.
+  const passes: Array<() => number> = [() => stepPass(model, stream), ...laneCounts.map((lanes) => () => batchPass(model, stream, lanes))];
+  if (old !== null) passes.push(() => againstPass(old, stream));
+  const measured = measureTogether(tokens, passes);
+  const lookups = measured[0];
+  const batched = measured.slice(1, 1 + laneCounts.length);
+  for (const [index, result] of batched.entries()) {
+    if (Math.abs(result.sum - lookups.sum) > 1e-9 * Math.abs(lookups.sum)) throw new Error(`stepBatch (${laneCounts[index]} lanes): Σ log10 p ${result.sum} differs from step's ${lookups.sum}`);
+  }
+  const batchLine = `\n  batched   stepBatch, sentences in lanes (one lookup per token): ` +
+    batched.map((result, index) => `${laneCounts[index]} lanes ${(result.perSecond / 1e6).toFixed(2)} M/s (×${(result.perSecond / lookups.perSecond).toFixed(2)} step)`).join(', ');
   let againstLine = '';
-  const againstDir = againstDirectory();
-  if (againstDir !== null) {
+  if (reader !== null) {
     // The --against revision's reader on the same file (its format must be the same), in turn.
-    const reader = (await import(path.join(againstDir, 'reader.ts'))) as AgainstReader;
-    const againstLoads: number[] = [];
-    let old: AgainstModel | null = null;
-    for (let i = 0; i < 3; i++) {
-      old = null;
-      const started = performance.now();
-      old = await reader.openModel(file);
-      againstLoads.push(performance.now() - started);
-    }
-    const [mine, theirs] = measureTogether(tokens, [() => stepPass(model, stream), () => againstPass(old as AgainstModel, stream)]);
-    lookups = mine;
-    againstLine = `\n  against   ${args.against} on the same file: load median of 3 ${perGigabyte(median(againstLoads))}; lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s ` +
-      `(this revision, in turn with it: ×${(mine.perSecond / theirs.perSecond).toFixed(2)})`;
-    if (Math.abs(theirs.sum - mine.sum) > 1e-6 * Math.abs(mine.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${mine.sum}`);
-  } else lookups = measure(tokens, () => stepPass(model, stream));
+    const theirs = measured[measured.length - 1];
+    const best = Math.max(...batched.map((result) => result.perSecond));
+    againstLine = `\n  against   ${args.against} on the same file: load median of 3 as it opens by default ${perGigabyte(median(againstLoads))} (${againstLoads.map(perGigabyte).join(', ')}), ` +
+      `with checkStructure: false ${perGigabyte(median(againstUncheckedLoads))} (this revision's default open, in turn with them: ` +
+      `×${(median(againstLoads) / median(loads)).toFixed(2)} and ×${(median(againstUncheckedLoads) / median(loads)).toFixed(2)} faster); ` +
+      `lookups (step if it has one) ${(theirs.perSecond / 1e6).toFixed(2)} M/s (this revision, in turn with it: step ×${(lookups.perSecond / theirs.perSecond).toFixed(2)}, ` +
+      `best stepBatch ×${(best / theirs.perSecond).toFixed(2)})`;
+    if (Math.abs(theirs.sum - lookups.sum) > 1e-6 * Math.abs(lookups.sum)) throw new Error(`--against ${args.against}: Σ log10 p ${theirs.sum} differs from this revision's ${lookups.sum}`);
+  }
   const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
   console.log(
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
       `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
-      `  load      first ${perGigabyte(loads[0])}, median of 3 ${perGigabyte(median(loads))} (checksums and structure verified)\n` +
+      `  load      in a fresh process each, as opened by default (checksums, bounds): ${loads.map(perGigabyte).join(', ')} (median ${perGigabyte(median(loads))}); with the structure check ${perGigabyte(structureLoads[0])}\n` +
       `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
       orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
-      againstLine,
+      batchLine + againstLine,
   );
 }
 
+/** What one --load process opens: this revision's reader by default or with the structure check,
+ *  or the --against revision's (copied into the --measure directory) by default or without it. */
+type LoadKind = 'default' | 'structure' | 'against' | 'against-unchecked';
+
+if (args.load !== undefined) {
+  const kind = args.kind as LoadKind;
+  const reader = kind.startsWith('against') ? ((await import(path.join(dir, 'against', 'reader.ts'))) as AgainstReader) : { openModel };
+  const options = kind === 'structure' ? { checkStructure: true } : kind === 'against-unchecked' ? { checkStructure: false } : {};
+  const started = performance.now();
+  await reader.openModel(args.load, options);
+  process.stdout.write(String(performance.now() - started));
+  process.exit(0);
+}
 if (args.measure !== undefined) {
   process.stdout.write(JSON.stringify(await measurePart(args.measure, args.part as Part)));
   process.exit(0);

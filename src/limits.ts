@@ -223,6 +223,22 @@ export const PACK_FINGERPRINT_BYTES_MAX = 4096;
  *  it is still in the CPU's cache (2 MiB of L2 per core here): 1 MiB pieces. Well under fs's 2 GiB. */
 export const PACK_READ_BYTES_MAX = 1 << 20;
 
+/** Sentences (or decoder states) a packed model scores together by default (`stepBatch`,
+ *  src/score/batch.ts): each call overlaps the memory accesses of this many lookups. Measured by
+ *  `npm run bench:query -- --model … --lanes 64,16,256` on the 1 GB benchmark model (load average
+ *  6): 64 lanes ×1.48 the lookups/s of `step`, 16 and 256 lanes ×1.41. 64 states take ~13 KB. */
+export const SCORE_LANES = 64;
+
+/** Bytes of a model file from which `quern score` scores sentences together (`stepBatch`) rather
+ *  than one at a time (`step`): `npm run bench:query -- --against fa2a9de` (load average 4-6) found
+ *  64 lanes at ×0.71-0.72 `step`'s lookups/s on the Brown models (11 and 31 MB files, mostly in the
+ *  32 MB L3 cache), ×0.92 on a 35 MB one, ×1.09 on a 95 MB one and ×1.48 on the 3.26 GB one. */
+export const SCORE_BATCH_MODEL_BYTES_MIN = 64 << 20;
+
+/** Tokens `quern score` gathers (whole sentences, `</s>` counted) before it scores them together:
+ *  enough to keep SCORE_LANES lanes busy for a thousand calls, a few MB of token strings at most. */
+export const SCORE_BATCH_TOKENS = 1 << 16;
+
 /** Bytes the model-file writer gathers before one write call: sections are built in batches of
  *  rows, often smaller; 1 MiB writes keep the calls few. */
 export const PACK_WRITE_BUFFER_BYTES = 1 << 20;

@@ -1,4 +1,5 @@
-/** `quern info`: what a model file holds, after verifying every checksum and its structure. */
+/** `quern info`: what a model file holds, after verifying every checksum (with --check, also the
+ *  structure of every order: a pass over every n-gram). */
 import type { CommandModule } from 'yargs';
 import type { MethodParameters, OrderDiscounts } from '../estimate/model.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
@@ -29,7 +30,8 @@ export function describeParameters(parameters: MethodParameters): string[] {
 export function formatModelInfo(model: PackedModel): string {
   const total = model.ngrams.reduce((sum, rows) => sum + rows, 0);
   const lines = [
-    `${model.filePath}: Quern model file, format ${model.version.major}.${model.version.minor}, ${model.fileBytes.toLocaleString('en-US')} bytes, every checksum verified`,
+    `${model.filePath}: Quern model file, format ${model.version.major}.${model.version.minor}, ${model.fileBytes.toLocaleString('en-US')} bytes, ` +
+      `every checksum verified${model.structureChecked ? ', structure checked' : ''}`,
     `order        ${model.order}`,
     `vocabulary   ${model.vocabularySize.toLocaleString('en-US')} words (</s> and <unk> included, <s> not)`,
     `n-grams      ${model.ngrams.map((rows, i) => `order ${i + 1}: ${rows.toLocaleString('en-US')}`).join(', ')}; ${total.toLocaleString('en-US')} in all, ${(model.fileBytes / total).toFixed(2)} bytes each`,
@@ -52,14 +54,16 @@ export const infoCommand: CommandModule = {
   builder: (yargs) => yargs
     .positional('model', { type: 'string', describe: 'Model file written by quern pack' })
     .option('json', { type: 'boolean', default: false, describe: 'Print the description as JSON' })
-    .example('$0 info model.qm', 'What the file holds; exit status 5 if it is damaged'),
+    .option('check', { type: 'boolean', default: false, describe: 'Also check the structure of every order (children ranges, word id order, codes): a pass over every n-gram' })
+    .example('$0 info model.qm', 'What the file holds; exit status 5 if it is damaged')
+    .example('$0 info model.qm --check', 'The same, after checking every n-gram of the file, not only its checksums'),
   handler: async (argv) => {
-    const model = await openModel(argv.model as string);
+    const model = await openModel(argv.model as string, { checkStructure: Boolean(argv.check) });
     if (!argv.json) {
       process.stdout.write(formatModelInfo(model));
       return;
     }
-    const { filePath, version, fileBytes, order, vocabularySize, ngrams, encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections } = model;
-    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections }, null, 2) + '\n');
+    const { filePath, version, fileBytes, order, vocabularySize, ngrams, encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked } = model;
+    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked }, null, 2) + '\n');
   },
 };

@@ -14,6 +14,7 @@ import { openModel, type PackedModel } from '../pack/reader.ts';
 import { corpusOptions } from './count.ts';
 import { describeNormalize, resolveNormalize } from '../score/normalization.ts';
 import { withPerplexities, type PerplexityResult } from '../score/perplexity.ts';
+import { BatchScorer } from '../score/batch.ts';
 
 /** One file's (or the total's) sums and perplexities. */
 interface Totals extends PerplexityResult {
@@ -40,10 +41,10 @@ export async function scoreInputs(
     const file = inputs[chunk.fileIndex];
     const t = totals(file.path);
     let line = 0;
-    await readChunk(file, chunk, { format: file.format, textField: textField?.split('.'), skipBad }, (sentence) => {
+    // Sentences are scored in groups of up to SCORE_BATCH_TOKENS tokens, many at once (a model
+    // file of SCORE_BATCH_MODEL_BYTES_MIN or more; src/score/batch.ts), and reported in order.
+    const scorer = new BatchScorer(model, (score) => {
       line++;
-      const n = tokenize(sentence, tokens);
-      const score = model.scoreSentence(tokens.slice(0, n));
       t.sentences++;
       t.tokens += score.tokens.length;
       t.oov += score.oov;
@@ -55,6 +56,11 @@ export async function scoreInputs(
         perplexityWithUnk: 10 ** (-score.log10ProbWithUnk / score.tokens.length),
       });
     });
+    await readChunk(file, chunk, { format: file.format, textField: textField?.split('.'), skipBad }, (sentence) => {
+      const n = tokenize(sentence, tokens);
+      scorer.add(tokens.slice(0, n));
+    });
+    scorer.flush();
     for (const k of ['sentences', 'tokens', 'oov', 'log10Prob', 'log10ProbWithUnk'] as const) total[k] += t[k];
     files.push(withPerplexities(t));
   }

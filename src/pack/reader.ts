@@ -3,14 +3,16 @@
  *
  * `openModel` reads the file section by section, each into a buffer of its own (DESIGN.md: a
  * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB) in pieces that
- * the thread pool reads ahead while this thread checksums those that arrived and checks the
- * structure of each order whose sections are all verified, and checks before it uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC,
- * every offset and length inside the file, sections contiguous and aligned, lengths as the header's
- * counts require), each section's CRC and zero padding, and then the structure the queries rely on
+ * the thread pool reads ahead while this thread checksums those that arrived, and checks before it
+ * uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC, every
+ * offset and length inside the file, sections contiguous and aligned, lengths as the header's counts
+ * require), each section's CRC and zero padding, the vocabulary and its hash table. Lookups stay
+ * inside their arrays whatever the sections hold (children ranges clamped to the next order, codebooks
+ * extended to every code), so a crafted file with valid checksums gives at worst wrong numbers. With
+ * `checkStructure`, it also checks the structure of each order as soon as its sections are verified
  * (children ranges ascending and inside the next order, word ids in range and ascending within a
- * context, codes inside their codebook, the vocabulary hash table complete). A file that fails any
- * check is a QuernError 'corrupt' naming the file and the section; nothing is allocated beyond the
- * file's own size.
+ * context, codes inside their codebook). A file that fails any check is a QuernError 'corrupt'
+ * naming the file and the section; nothing is allocated beyond the file's own size.
  *
  * Queries then read typed-array views of those buffers, decoding only the entries they touch:
  *
@@ -107,6 +109,12 @@ export class DecoderState {
   readonly ends = new Int32Array(ORDER_MAX + 1);
   /** The order of the n-gram that answered the last `step` (0 before the first). */
   order = 0;
+  /** @internal `stepBatch`'s scratch: found[k] = the row of order k + 1 extending rows[k] with the
+   *  word being scored, −1 when none; `answer` = the highest such k (0: none, order 1 answers). */
+  readonly found = new Int32Array(ORDER_MAX + 1);
+  answer = 0;
+  /** @internal The `stepBatch` call that last took this state (a state twice in one call is refused). */
+  batch = 0;
 
   /** The last min(N − 1, i) token ids, oldest first. */
   get history(): number[] {
@@ -165,15 +173,19 @@ interface Level {
 
 /** Options of `openModel`. */
 export interface OpenOptions {
-  /** Check the structure the queries rely on after the checksums (default true). Turning it off
-   *  saves a pass over the children and word ids on open (the checksums are always verified): a
-   *  file from Quern's writer is unaffected, but lookups in a crafted file whose checksums match
-   *  its damage may then return wrong numbers (never crash or hang); `toLanguageModel` checks first. */
+  /** Also check the structure of every order (default false): children ranges ascending and inside
+   *  the next order, word ids ascending within each context and in 1..V, codes inside their
+   *  codebook — a pass over every n-gram, about as long as reading the file. Without it, `openModel`
+   *  verifies every checksum, the header, the section table, the vocabulary and what lookups need to
+   *  stay bounded, so a crafted file whose checksums match its damage gives at worst wrong numbers
+   *  (never a crash, a hang, a read outside its arrays or a huge allocation); `toLanguageModel`
+   *  (export) runs the check first when it has not run. `quern info MODEL --check` runs it. */
   checkStructure?: boolean;
 }
 
 /**
- * Opens a model file (docs/model-file.md), reading and verifying every section. Throws QuernError
+ * Opens a model file (docs/model-file.md), reading every section and verifying its checksum (and,
+ * with `checkStructure`, the structure of every order). Throws QuernError
  * 'io' when the file cannot be read and 'corrupt' (naming the file and the section) when it is not
  * a valid model file of a version this reader reads.
  */
@@ -181,7 +193,7 @@ export async function openModel(filePath: string, options: OpenOptions = {}): Pr
   requireLittleEndian();
   const { handle, bytes: fileBytes } = await openForReading(filePath);
   try {
-    return await readModel(handle, filePath, fileBytes, options.checkStructure ?? true);
+    return await readModel(handle, filePath, fileBytes, options.checkStructure ?? false);
   } finally {
     await handle.close().catch(() => undefined);
   }
@@ -677,6 +689,48 @@ function searchWord16(words: Uint16Array, low: number, high: number, word: numbe
   return -1;
 }
 
+/** `scanWord`'s answer when the word may lie past the rows it scanned. */
+const PENDING = -2;
+
+/** The first SCAN_ROWS rows of [low, high) of the packed word ids searched in order (as in
+ *  `searchWord`): the row holding `word`, −1 when it is not in the range, or PENDING when the range
+ *  goes on past the scanned rows and the word is above every one of them. */
+function scanWord(words: Uint32Array, bits: number, mask: number, low: number, high: number, word: number): number {
+  const scanEnd = Math.min(high, low + SCAN_ROWS);
+  const rest = (low & 31) * bits;
+  let at = (low >>> 5) * bits + (rest >>> 5);
+  let shift = rest & 31;
+  for (let row = low; row < scanEnd; row++) {
+    const found = ((words[at] >>> shift) | ((words[at + 1] << 1) << (31 - shift))) & mask;
+    if (found >= word) return found === word ? row : -1;
+    shift += bits;
+    if (shift >= 32) {
+      shift -= 32;
+      at++;
+    }
+  }
+  return scanEnd === high ? -1 : PENDING;
+}
+
+/** scanWord for word ids of exactly 16 bits. */
+function scanWord16(words: Uint16Array, low: number, high: number, word: number): number {
+  const scanEnd = Math.min(high, low + SCAN_ROWS);
+  for (let row = low; row < scanEnd; row++) {
+    const found = words[row];
+    if (found >= word) return found === word ? row : -1;
+  }
+  return scanEnd === high ? -1 : PENDING;
+}
+
+/** Word id `index` of packed ids of `bits` (1..31) bits: `unpack` without the final `>>> 0`
+ *  (ids are below 2^31), so that the id stays a small integer for the arithmetic of the search. */
+function unpackId(words: Uint32Array, index: number, bits: number, mask: number): number {
+  const rest = (index & 31) * bits;
+  const at = (index >>> 5) * bits + (rest >>> 5);
+  const shift = rest & 31;
+  return ((words[at] >>> shift) | ((words[at + 1] << 1) << (31 - shift))) & mask;
+}
+
 /** What a lookup reads of one order n (fixed shape: the hot path loads each array once). */
 class HotLevel {
   constructor(
@@ -693,7 +747,22 @@ class HotLevel {
     readonly probBook: Float64Array | null,
     readonly backOff: ValueArray,
     readonly backOffBook: Float64Array | null,
+    /** The rows of order n + 1 (0 at the highest order): every children range is clamped to
+     *  [0, childLimit], so a lookup never reads past the next order's arrays, whatever the file. */
+    readonly childLimit: number,
   ) {}
+}
+
+/**
+ * A codebook as the lookups read it: extended to all 2^bits codes with copies of its last value, so
+ * that a code the file's structure check would refuse (≥ the codebook's length) still reads a value
+ * of the codebook (a wrong number at worst, never undefined). At most 2^16 f64 = 512 KiB per codebook.
+ */
+function lookupCodebook(codebook: Float64Array | null, codeBits: number): Float64Array | null {
+  if (codebook === null || codebook.length >= 2 ** codeBits) return codebook;
+  const extended = new Float64Array(2 ** codeBits).fill(codebook[codebook.length - 1]);
+  extended.set(codebook);
+  return extended;
 }
 
 /** A stored value: the float, or the codebook entry of the code. */
@@ -701,14 +770,20 @@ function valueOf(values: ValueArray, codebook: Float64Array | null, row: number)
   return codebook === null ? values[row] : codebook[values[row]];
 }
 
-/** The first child of row `row` of an order < N (offsets below 2^31: no sign to strip). */
+/**
+ * The first child of row `row` (0..rows) of an order < N, clamped to the next order's rows: without
+ * the structure check (`checkStructure`), a crafted file's children may point anywhere, and the
+ * clamp keeps every search, value and children read of a lookup inside its arrays (one compare; a
+ * valid file's starts are never clamped).
+ */
 function childrenStart(level: HotLevel, row: number): number {
   const bits = level.childBits;
   const offsets = level.offsets;
   const rest = (row & 31) * bits;
   const at = (row >>> 5) * bits + (rest >>> 5);
   const shift = rest & 31;
-  return level.bases[row >>> CHILD_BLOCK_SHIFT] + (((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & level.childMask);
+  // (>>> 0: a 32-bit offset of a crafted file is not negative either.)
+  return Math.min(level.childLimit, level.bases[row >>> CHILD_BLOCK_SHIFT] + ((((offsets[at] >>> shift) | ((offsets[at + 1] << 1) << (31 - shift))) & level.childMask) >>> 0));
 }
 
 /** The end of the children of row `row` (the first child of row + 1). */
@@ -719,6 +794,57 @@ function childrenEnd(level: HotLevel, row: number): number {
 /** Rows a search scans in order before it gallops: the children of a context are often few, and
  *  the frequent words, which text asks for most, come first. */
 const SCAN_ROWS = 8;
+
+/** The children of a word (order 2) are sampled every SAMPLE_STEP rows when there are at least
+ *  SAMPLED_CHILDREN_MIN of them: the samples of all such words take 4 bytes per SAMPLE_STEP
+ *  bigrams (1/18 of their packed ids at 18 bits), and `stepBatch`'s search among thousands of
+ *  children then reads one block of 64 packed ids (2 or 3 cache lines) of the model instead of a
+ *  dozen lines across the range: +13% lookups/s on the 1 GB benchmark model (load 8, A/B in one
+ *  process). Not in `step`: there the binary search over the samples (2.4 MB, not all in cache) is
+ *  one more chain of dependent reads, and it cost 12% (1 GB model) to 20% (a 10 MB one). */
+const SAMPLE_SHIFT = 6;
+const SAMPLE_STEP = 1 << SAMPLE_SHIFT;
+const SAMPLED_CHILDREN_MIN = 256;
+
+/**
+ * The samples of the long children ranges of order 1 (see SAMPLE_STEP): for each row r of order 1
+ * with ≥ SAMPLED_CHILDREN_MIN children, at[r] = where its samples start, and samples[at[r] + j] =
+ * the word id of child first(r) + j·SAMPLE_STEP. Built when a model is opened: one pass over the
+ * V + 1 children entries of order 1 and a strided read of the sampled ids (on the 1 GB benchmark
+ * model, 200,004 rows and 37.8 M bigrams: ~0.6 M samples).
+ */
+function sampleLongChildren(first: HotLevel, second: HotLevel, rows: number, bits: number, mask: number): [Int32Array, Int32Array] {
+  const at = new Int32Array(rows).fill(-1);
+  let total = 0;
+  for (let row = 0; row < rows; row++) {
+    const count = childrenEnd(first, row) - childrenStart(first, row);
+    if (count >= SAMPLED_CHILDREN_MIN) {
+      at[row] = total;
+      total += ((count - 1) >>> SAMPLE_SHIFT) + 1;
+    }
+  }
+  const samples = new Int32Array(total);
+  for (let row = 0; row < rows; row++) {
+    if (at[row] < 0) continue;
+    const start = childrenStart(first, row);
+    const end = childrenEnd(first, row);
+    for (let child = start, j = at[row]; child < end; child += SAMPLE_STEP, j++) samples[j] = unpackId(second.words, child, bits, mask);
+  }
+  return [at, samples];
+}
+
+/** The last j in [0, count) with samples[first + j] ≤ word, or 0 when none is (the samples of one
+ *  context ascend; in a crafted file they may not, and the answer is then some j in range). */
+function lastSampleAtMost(samples: Int32Array, first: number, count: number, word: number): number {
+  let low = 0;
+  let high = count; // samples[first + high] (past the end) counts as above the word
+  while (high - low > 1) {
+    const middle = (low + high) >>> 1;
+    if (samples[first + middle] <= word) low = middle;
+    else high = middle;
+  }
+  return low;
+}
 
 /** Bits after the `count` values of a packed array (its padding) must be zero. */
 function packedPaddingIsZero(words: Uint32Array, count: number, bits: number): boolean {
@@ -787,7 +913,37 @@ export class PackedModel {
   private scratch = new Uint8Array(256);
   private readonly scratchState = new DecoderState();
   private readonly sectionWhere: (kind: number, order?: number) => string;
-  private structureChecked = false;
+  private checked = false;
+  /** `stepBatch` calls so far (each state records the last that took it). */
+  private batchCount = 0;
+  /** `stepBatch`'s queues of searches past SCAN_ROWS, one per order k (`touchStride` entries each,
+   *  `pendingCounts[k]` used): state index, word, and the rows left to search, [base, base +
+   *  length), of order k + 1; and its
+   *  gathered addresses, by order: `touchStride` entries per order (the largest batch so far). */
+  private pendingLane = new Int32Array(0);
+  private pendingWord = new Int32Array(0);
+  private pendingBase = new Int32Array(0);
+  private pendingLength = new Int32Array(0);
+  private readonly pendingCounts = new Int32Array(ORDER_MAX + 1);
+  private touchWordAt = new Int32Array(0);
+  private touchRowAt = new Int32Array(0);
+  private touchBaseAt = new Int32Array(0);
+  private readonly touchFilled = new Int32Array(ORDER_MAX + 1);
+  private readonly touchOffsetsFilled = new Int32Array(ORDER_MAX + 1);
+  /** For each word id (a row of order 1) with at least SAMPLED_CHILDREN_MIN children: where its
+   *  samples start in `samples`, else −1. `samples` holds the id of every SAMPLE_STEP-th child of
+   *  those words (`sampleLongChildren`). */
+  private readonly sampleAt: Int32Array;
+  private readonly samples: Int32Array;
+  private touchStride = 0;
+  /** The sum of the values `stepBatch` touched, kept so that the loads stay. */
+  private touched = 0;
+
+  /** True once the structure of every order was checked (`openModel`'s `checkStructure`, or
+   *  `toLanguageModel`): then every children range and word id is known to be as the format says. */
+  get structureChecked(): boolean {
+    return this.checked;
+  }
 
   /** @internal Use `openModel`. */
   constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, structureChecked: boolean) {
@@ -831,17 +987,23 @@ export class PackedModel {
     const empty32 = new Uint32Array(0);
     const emptyValues = valueView(header.encoding, Buffer.alloc(0));
     this.words16 = this.wordBits === 16;
-    const hotLevel = (level: Level): HotLevel => {
+    const bits = codeBits(header.encoding);
+    const hotLevel = (level: Level, index: number): HotLevel => {
       const words = level.words ?? empty32;
       return new HotLevel(
         words, new Uint16Array(words.buffer, words.byteOffset, this.words16 ? words.length * 2 : 0), level.childBases ?? empty32, level.childOffsets ?? empty32, level.childBits,
-        maskFor(level.childBits), level.prob, level.probCodebook, level.backOff ?? emptyValues, level.backOffCodebook,
+        maskFor(level.childBits), level.prob, lookupCodebook(level.probCodebook, bits), level.backOff ?? emptyValues, lookupCodebook(level.backOffCodebook, bits),
+        index < header.order ? header.rows[index] : 0,
       );
     };
-    this.hot = [hotLevel({ rows: 0, words: null, prob: emptyValues, probCodebook: null, backOff: null, backOffCodebook: null, childBases: null, childOffsets: null, childBits: 0 }), ...this.levels.map(hotLevel)];
+    this.hot = [
+      hotLevel({ rows: 0, words: null, prob: emptyValues, probCodebook: null, backOff: null, backOffCodebook: null, childBases: null, childOffsets: null, childBits: 0 }, header.order),
+      ...this.levels.map((level, index) => hotLevel(level, index + 1)),
+    ];
     this.sectionWhere = sectionWhere;
     // openModel checked the structure while reading (StructureCheck) when asked to.
-    this.structureChecked = structureChecked;
+    this.checked = structureChecked;
+    [this.sampleAt, this.samples] = this.order > 1 ? sampleLongChildren(this.hot[1], this.hot[2], this.vocabularySize + 1, this.wordBits, this.wordMask) : [new Int32Array(0), new Int32Array(0)];
   }
 
   /** Vocabulary checks that every lookup relies on (cheap: one pass over V + 1 words). */
@@ -892,7 +1054,7 @@ export class PackedModel {
       if (level.backOff !== null) checkCodes(file, sectionWhere(SectionKind.BackOffs, n), level.backOff, level.backOffCodebook);
       if (level.childOffsets !== null) checkOrder(file, sectionWhere, n, level, this.levels[n].words as Uint32Array, this.levels[n].rows, this.wordBits, this.vocabularySize);
     }
-    this.structureChecked = true;
+    this.checked = true;
   }
 
   /** The word of an id (0..V). */
@@ -938,10 +1100,9 @@ export class PackedModel {
     return valueOf(level.backOff, level.backOffBook, row);
   }
 
-  /** The first child (a row of order n+1) of row `row` (0..rows) of order n < N. */
+  /** The first child (a row of order n+1) of row `row` (0..rows) of order n < N, clamped (childrenStart). */
   private childStart(n: number, row: number): number {
-    const level = this.hot[n];
-    return level.bases[row >>> CHILD_BLOCK_SHIFT] + unpack(level.offsets, row, level.childBits, level.childMask);
+    return childrenStart(this.hot[n], row);
   }
 
   /** The row of order n+1 that extends row `row` of order n (< N) with `word`, or −1. */
@@ -1103,6 +1264,293 @@ export class PackedModel {
     }
     state.length = keep;
     state.order = order;
+    return log10Prob;
+  }
+
+  /**
+   * Advances many independent states at once: `states[i]` past `words[i]` (an id in [1, V]; an OOV
+   * word is `<unk>`'s id) for i < `count`, as `step(states[i], words[i])` would, one after another:
+   * `log10Probs[i]` gets the log10 probability and `states[i].order` the order that answered. The
+   * states must be distinct (a decoder's beam, or sentences scored together, one state each).
+   *
+   * Why: on a model far larger than the CPU's caches, a lookup waits on one memory access after
+   * another (a children range, a search, a value), and one state's accesses depend on each other.
+   * Those of different states do not, so this runs each lookup in four phases, each over every
+   * state before the next: touch what the states already locate (the first children of each of
+   * their contexts, their back-off weights), search the word among those children at every order,
+   * touch what the searches found (the value that answers, the new rows' children ranges), and
+   * finish. The memory accesses of one phase overlap across the states instead of following one
+   * another; the numbers are those of `step`, bit for bit.
+   */
+  stepBatch(states: readonly DecoderState[], words: ArrayLike<number>, log10Probs: Float64Array, count = states.length): void {
+    if (!(Number.isInteger(count) && count >= 0 && count <= states.length && count <= words.length && count <= log10Probs.length)) {
+      throw new RangeError(`count must be an integer in [0, ${Math.min(states.length, words.length, log10Probs.length)}] (states, words and results available; got ${count})`);
+    }
+    const batch = ++this.batchCount;
+    for (let i = 0; i < count; i++) {
+      const word = words[i];
+      if (!(word >= 1 && word <= this.vocabularySize && Math.floor(word) === word)) this.checkWord(word);
+      const state = states[i];
+      if (state.batch === batch) throw new RangeError(`states[${i}] appears twice in one stepBatch call; each state must be advanced once per call`);
+      state.batch = batch;
+    }
+    if (this.touchStride < count) {
+      const capacity = count * (ORDER_MAX + 1);
+      this.pendingLane = new Int32Array(capacity);
+      this.pendingWord = new Int32Array(capacity);
+      this.pendingBase = new Int32Array(capacity);
+      this.pendingLength = new Int32Array(capacity);
+      this.touchStride = count;
+      this.touchWordAt = new Int32Array(count * (ORDER_MAX + 1));
+      this.touchRowAt = new Int32Array(count * (ORDER_MAX + 1));
+      this.touchBaseAt = new Int32Array(count * (ORDER_MAX + 1));
+    }
+    let sink = this.touchContexts(states, count);
+    for (let i = 0; i < count; i++) this.scanAll(states[i], i, words[i]);
+    this.searchPending(states);
+    sink += this.touchFound(states, count);
+    for (let i = 0; i < count; i++) log10Probs[i] = this.finishStep(states[i], words[i]);
+    // The touched values are kept so that the compiler keeps the loads that read them.
+    this.touched = sink;
+  }
+
+  /**
+   * Phase 1 of `stepBatch`: reads, for their memory access only, what the states already locate —
+   * the word ids that start the children of each of their contexts, and those contexts' back-off
+   * weights. The addresses are gathered first, by order, and each order's then read in one tight
+   * loop: the fewer instructions between two loads, the more of them the CPU keeps in flight.
+   */
+  private touchContexts(states: readonly DecoderState[], count: number): number {
+    const hot = this.hot;
+    const bits = this.wordBits;
+    const words16 = this.words16;
+    const stride = this.touchStride;
+    const wordAt = this.touchWordAt;
+    const rowAt = this.touchRowAt;
+    const filled = this.touchFilled;
+    filled.fill(0);
+    for (let i = 0; i < count; i++) {
+      const state = states[i];
+      const rows = state.rows;
+      const starts = state.starts;
+      const ends = state.ends;
+      for (let k = state.length; k >= 1; k--) {
+        const row = rows[k];
+        const start = starts[k];
+        if (row >= 0 && start < ends[k]) {
+          const at = k * stride + filled[k]++;
+          // The u32 that holds the first child's id (16-bit ids: two to a u32).
+          wordAt[at] = words16 ? start >>> 1 : (start >>> 5) * bits + (((start & 31) * bits) >>> 5);
+          rowAt[at] = row;
+        }
+      }
+    }
+    let sink = 0;
+    for (let k = 1; k < this.order; k++) {
+      const words = hot[k + 1].words;
+      const backOff = hot[k].backOff;
+      const end = k * stride + filled[k];
+      for (let at = k * stride; at < end; at++) sink += words[wordAt[at]] + backOff[rowAt[at]];
+    }
+    return sink;
+  }
+
+  /** Phase 2 of `stepBatch`, first part: `word` looked for among the first SCAN_ROWS children of
+   *  every context of `state` (touched in phase 1): found[k] = the row, −1 when it is not there, or
+   *  PENDING with the rest of the range queued for the interleaved search (`searchPending`). */
+  private scanAll(state: DecoderState, lane: number, word: number): void {
+    const hot = this.hot;
+    const rows = state.rows;
+    const starts = state.starts;
+    const ends = state.ends;
+    const found = state.found;
+    const words16 = this.words16;
+    for (let k = state.length; k >= 1; k--) {
+      let row = -1;
+      if (rows[k] >= 0) {
+        const start = starts[k];
+        const end = ends[k];
+        if (start < end) {
+          const next = hot[k + 1];
+          row = words16 ? scanWord16(next.words16, start, end, word) : scanWord(next.words, this.wordBits, this.wordMask, start, end, word);
+          if (row === PENDING) {
+            // Ids ascend from 1 within a context, so `word` is among its first `word` children.
+            let low = start + SCAN_ROWS;
+            let high = Math.min(end, start + word);
+            const sampled = k === 1 ? this.sampleAt[rows[1]] : -1;
+            if (sampled >= 0) {
+              // The samples (in the CPU's cache) narrow the search to one SAMPLE_STEP-row block.
+              const block = lastSampleAtMost(this.samples, sampled, ((end - start - 1) >>> SAMPLE_SHIFT) + 1, word);
+              const blockStart = start + (block << SAMPLE_SHIFT);
+              if (this.samples[sampled + block] === word) {
+                found[k] = blockStart;
+                continue;
+              }
+              low = Math.max(low, blockStart);
+              high = Math.min(high, blockStart + SAMPLE_STEP);
+            }
+            if (low >= high) row = -1;
+            else {
+              const at = k * this.touchStride + this.pendingCounts[k]++;
+              this.pendingLane[at] = lane;
+              this.pendingWord[at] = word;
+              this.pendingBase[at] = low;
+              this.pendingLength[at] = high - low;
+            }
+          }
+        }
+      }
+      found[k] = row;
+    }
+  }
+
+  /**
+   * Phase 2 of `stepBatch`, second part: the queued searches (ranges longer than SCAN_ROWS, the
+   * long children lists of the low orders) run together, order by order, one probe of each per
+   * round: a binary search for the last row whose id is ≤ the word, whose step depends on the
+   * probed id by arithmetic, not by a branch, so that the probes of one round (of different states)
+   * are all in flight at once.
+   */
+  private searchPending(states: readonly DecoderState[]): void {
+    const hot = this.hot;
+    const stride = this.touchStride;
+    const lanes = this.pendingLane;
+    const sought = this.pendingWord;
+    const bases = this.pendingBase;
+    const lengths = this.pendingLength;
+    const counts = this.pendingCounts;
+    const bits = this.wordBits;
+    const mask = this.wordMask;
+    const words16 = this.words16;
+    for (let k = 1; k < this.order; k++) {
+      const level = hot[k + 1];
+      const packed = level.words;
+      const ids16 = level.words16;
+      const first = k * stride;
+      let pending = counts[k];
+      while (pending > 0) {
+        let kept = 0;
+        for (let i = first; i < first + pending; i++) {
+          const word = sought[i];
+          let base = bases[i];
+          let length = lengths[i];
+          if (length > 1) {
+            const half = length >>> 1;
+            const probe = base + half;
+            const id = words16 ? ids16[probe] : unpackId(packed, probe, bits, mask);
+            base += half & ((id - word - 1) >> 31); // id ≤ word: the word, if there, is in the upper half
+            length -= half;
+          }
+          if (length > 1) {
+            const at = first + kept++;
+            lanes[at] = lanes[i];
+            sought[at] = word;
+            bases[at] = base;
+            lengths[at] = length;
+            continue;
+          }
+          // One row left: the last whose id is ≤ the word (or the first row, when none is): the word
+          // is there or nowhere, the ids ascending.
+          const id = words16 ? ids16[base] : unpackId(packed, base, bits, mask);
+          states[lanes[i]].found[k] = id === word ? base : -1;
+        }
+        pending = kept;
+      }
+      counts[k] = 0;
+    }
+  }
+
+  /**
+   * Phase 3 of `stepBatch`: each state's answering order (`answer`: the highest k with found[k] ≥ 0,
+   * 0 when none), then, gathered by order as in phase 1, the reads (for their memory access only)
+   * of the value that answers and of the children entries (offset and base) of the rows the new
+   * state keeps.
+   */
+  private touchFound(states: readonly DecoderState[], count: number): number {
+    const hot = this.hot;
+    const stride = this.touchStride;
+    const probAt = this.touchRowAt;
+    const offsetAt = this.touchWordAt;
+    const baseAt = this.touchBaseAt;
+    const probs = this.touchFilled;
+    const offsets = this.touchOffsetsFilled;
+    probs.fill(0);
+    offsets.fill(0);
+    const order = this.order;
+    for (let i = 0; i < count; i++) {
+      const state = states[i];
+      const found = state.found;
+      const length = state.length;
+      const keep = length < order - 1 ? length + 1 : length;
+      let answer = length;
+      while (answer > 0 && found[answer] < 0) answer--;
+      state.answer = answer;
+      if (answer > 0) probAt[(answer + 1) * stride + probs[answer + 1]++] = found[answer];
+      for (let k = Math.min(answer, keep - 1); k >= 1; k--) {
+        const row = found[k];
+        if (row >= 0) {
+          const bits = hot[k + 1].childBits;
+          const at = (k + 1) * stride + offsets[k + 1]++;
+          offsetAt[at] = (row >>> 5) * bits + (((row & 31) * bits) >>> 5);
+          baseAt[at] = row >>> CHILD_BLOCK_SHIFT;
+        }
+      }
+    }
+    let sink = 0;
+    for (let n = 2; n <= order; n++) {
+      const level = hot[n];
+      const prob = level.prob;
+      let end = n * stride + probs[n];
+      for (let at = n * stride; at < end; at++) sink += prob[probAt[at]];
+      const childOffsets = level.offsets;
+      const childBases = level.bases;
+      end = n * stride + offsets[n];
+      for (let at = n * stride; at < end; at++) sink += childOffsets[offsetAt[at]] + childBases[baseAt[at]];
+    }
+    return sink;
+  }
+
+  /** Phase 4 of `stepBatch`: the log10 probability from the searches' results, and the new state
+   *  (the same arithmetic, in the same order, as `step`). */
+  private finishStep(state: DecoderState, word: number): number {
+    const hot = this.hot;
+    const rows = state.rows;
+    const starts = state.starts;
+    const ends = state.ends;
+    const found = state.found;
+    const length = state.length;
+    const keep = length < this.order - 1 ? length + 1 : length;
+    const answer = state.answer;
+    let backOff = 0;
+    for (let k = length; k > answer; k--) {
+      const row = rows[k];
+      backOff += row >= 0 && starts[k] < ends[k] ? valueOf(hot[k].backOff, hot[k].backOffBook, row) : this.log10UnseenContextWeight;
+    }
+    let log10Prob: number;
+    if (answer > 0) {
+      const next = hot[answer + 1];
+      log10Prob = backOff + valueOf(next.prob, next.probBook, found[answer]);
+    } else log10Prob = backOff + valueOf(hot[1].prob, hot[1].probBook, word);
+    // The new rows, from the top down: rows[k + 1] (new) is written after rows[k + 1] (old) was read.
+    for (let k = keep - 1; k >= 1; k--) {
+      const row = found[k]; // −1 above the answer (searched, not found)
+      rows[k + 1] = row;
+      if (row >= 0) {
+        const next = hot[k + 1];
+        starts[k + 1] = childrenStart(next, row);
+        ends[k + 1] = childrenEnd(next, row);
+      }
+    }
+    if (keep > 0) {
+      rows[1] = word;
+      starts[1] = childrenStart(hot[1], word);
+      ends[1] = childrenEnd(hot[1], word);
+      const ids = state.ids;
+      if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
+      ids[keep - 1] = word;
+    }
+    state.length = keep;
+    state.order = answer + 1;
     return log10Prob;
   }
 

@@ -6,11 +6,13 @@
  * tokens before it; a token outside the vocabulary (and a literal `<s>`, `</s>` or `<unk>`) is an OOV,
  * scored as `<unk>` and kept in the history as `<unk>`.
  *
- * The scoring walks each sentence with the model's incremental state (`beginState`, `advance`),
- * so each token costs one binary search per order tried.
+ * The sentences of a model file of SCORE_BATCH_MODEL_BYTES_MIN or more are scored together, many at
+ * once (`BatchScorer`, src/score/batch.ts: the same numbers as `scoreSentence`, token for token), so
+ * that their lookups' memory accesses overlap; those of a smaller one, one at a time.
  */
 import { QuernError } from '../errors.ts';
 import type { PackedModel } from '../pack/reader.ts';
+import { BatchScorer } from './batch.ts';
 import { withPerplexities, type PerplexityResult } from './perplexity.ts';
 
 /** Perplexity of a packed model on `sentences`; refuses a model that is not normalised. */
@@ -19,15 +21,15 @@ export function packedPerplexity(model: PackedModel, sentences: Iterable<readonl
     throw new QuernError('config', `perplexity needs a normalised model; this ${model.parameters.method} model gives scores, not probabilities`);
   }
   const result = { sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0 };
-  for (const words of sentences) {
-    if (words.length === 0) continue;
+  const scorer = new BatchScorer(model, (score) => {
     result.sentences++;
-    const score = model.scoreSentence(words);
     result.tokens += score.tokens.length;
     result.oov += score.oov;
     result.log10Prob += score.log10Prob;
     result.log10ProbWithUnk += score.log10ProbWithUnk;
-  }
+  });
+  for (const words of sentences) if (words.length > 0) scorer.add(words);
+  scorer.flush();
   if (result.sentences === 0) throw new QuernError('input', 'there is nothing to score: no sentence was given');
   return withPerplexities(result);
 }

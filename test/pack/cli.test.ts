@@ -2,7 +2,7 @@
  * The command modules `quern pack`, `quern info` and `quern export`, run in-process through yargs
  * (they are not registered in src/cli/main.ts yet): export → ARPA, pack it back, describe it.
  */
-import { readFileSync } from 'node:fs';
+import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, afterEach, expect, test, vi } from 'vitest';
 import yargs from 'yargs';
@@ -15,7 +15,7 @@ import { nodeFs } from '../../src/job/fsio.ts';
 import { openModel } from '../../src/pack/reader.ts';
 import { packModel } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
-import { temporaryDirectory } from './support.ts';
+import { buildFile, childrenLayout, parseFile, readPacked, temporaryDirectory, writePacked } from './support.ts';
 
 const { dir, remove } = temporaryDirectory('cli');
 afterAll(remove);
@@ -70,4 +70,22 @@ test('export a model file to ARPA, pack it back with 8-bit values, describe both
   await nodeFs.create(damaged).then(async (file) => { await file.write(bytes); await file.close(); });
   await expect(run(['info', damaged])).rejects.toSatisfy((error: unknown) => error instanceof QuernError && error.code === 'corrupt');
   await expect(run(['pack', arpa, '--out', join(dir, 'x.qm'), '--quant', '8', '--float', '32'])).rejects.toThrow(/mutually exclusive/);
+});
+
+test('info checks checksums; info --check also the structure, which a file rewritten with fresh checksums can break', async () => {
+  const model = estimateWith('witten-bell', countCorpus(markovCorpus(52, 80, 20, 8), 3), []);
+  const original = join(dir, 'structure.qm');
+  await packModel(model, { fingerprint: '' }, nodeFs, original);
+  expect(await run(['info', original, '--check'])).toMatch(/bytes, every checksum verified, structure checked\n/);
+  expect(await run(['info', original])).toMatch(/bytes, every checksum verified\n/);
+  // Children of row 2 of order 1 moved past those of row 3: valid checksums, broken structure.
+  const file = parseFile(readFileSync(original));
+  const children = file.sections.find((section) => section.kind === 9 && section.order === 1)!;
+  const layout = childrenLayout(children.bytes, model.orders[0].log10Prob.length);
+  writePacked(children.bytes, layout.offsets, 2, layout.bits, readPacked(children.bytes, layout.offsets, 3, layout.bits) + 1);
+  const crafted = join(dir, 'crafted.qm');
+  writeFileSync(crafted, buildFile(file));
+  expect(JSON.parse(await run(['info', crafted, '--json']))).toMatchObject({ structureChecked: false });
+  await expect(run(['info', crafted, '--check'])).rejects.toSatisfy((error: unknown) =>
+    error instanceof QuernError && error.code === 'corrupt' && /children of order 1\): the children of row 3 start before those of row 2/.test(error.message));
 });

@@ -2,7 +2,10 @@
  * Damaged model files: truncated, wrong magic or version, flipped bytes, offsets and lengths past
  * the end, structure that checksums cannot vouch for. Each must be a QuernError 'corrupt' naming the
  * file and the section — never a crash, a hang or a huge allocation — and a seeded fuzz test checks
- * that every changed file is refused while every unchanged one opens and answers as before.
+ * that every changed file is refused while every unchanged one opens and answers as before. Damage
+ * behind valid checksums is refused with the structure check (`checkStructure: true`, `quern info
+ * --check`); without it (the default) such a file may open, and its lookups must stay bounded:
+ * finite numbers (wrong perhaps), no crash, no hang (docs/model-file.md, "What a reader checks").
  */
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
@@ -35,19 +38,19 @@ beforeAll(async () => {
 
 let caseIndex = 0;
 /** Writes `bytes` to a fresh file and opens it; returns the model or the error. */
-async function tryOpen(bytes: Uint8Array): Promise<{ path: string; model?: PackedModel; error?: unknown }> {
+async function tryOpen(bytes: Uint8Array, checkStructure = false): Promise<{ path: string; model?: PackedModel; error?: unknown }> {
   const path = join(dir, `case-${caseIndex++}.qm`);
   writeFileSync(path, bytes);
   try {
-    return { path, model: await openModel(path) };
+    return { path, model: await openModel(path, { checkStructure }) };
   } catch (error) {
     return { path, error };
   }
 }
 
 /** Opens `bytes` and expects a corrupt-file error whose message names the file and matches `pattern`. */
-async function expectCorrupt(bytes: Uint8Array, pattern: RegExp): Promise<string> {
-  const { path, model, error } = await tryOpen(bytes);
+async function expectCorrupt(bytes: Uint8Array, pattern: RegExp, checkStructure = false): Promise<string> {
+  const { path, model, error } = await tryOpen(bytes, checkStructure);
   expect(model, 'the damaged file must not open').toBeUndefined();
   expect(error).toBeInstanceOf(QuernError);
   expect((error as QuernError).code).toBe('corrupt');
@@ -59,6 +62,15 @@ async function expectCorrupt(bytes: Uint8Array, pattern: RegExp): Promise<string
 
 function scores(model: PackedModel): number[] {
   return probe.map((words) => model.scoreSentence(words).log10ProbWithUnk);
+}
+
+/** Every lookup of the probe text answers a finite number (or −∞, a stored probability 0): bounded. */
+function expectBoundedLookups(model: PackedModel): void {
+  for (const words of probe) {
+    for (const token of model.scoreSentence(words).tokens) {
+      if (!(Number.isFinite(token.log10Prob) || token.log10Prob === -Infinity)) throw new Error(`lookup of ${token.word} gave ${token.log10Prob}`);
+    }
+  }
 }
 
 describe('damaged files are refused with a corrupt-file error naming the file and the section', () => {
@@ -163,19 +175,19 @@ describe('damaged files are refused with a corrupt-file error naming the file an
       writePacked(b, layout.offsets, index, layout.bits, change(readPacked(b, layout.offsets, index, layout.bits), next));
     };
     // Children: a block's first offset not 0, not ascending, not ending at the next order's rows, too wide.
-    await expectCorrupt(rewrite(floatFile, 9, 2, offset(2, 0, () => 1)), /children of order 2\): the offset of row 0, the first of its block, is 1, not 0/);
-    await expectCorrupt(rewrite(floatFile, 9, 1, offset(1, 2, (_, next) => next + 1)), /children of order 1\): the children of row 3 start before those of row 2/);
-    await expectCorrupt(rewrite(floatFile, 9, 2, offset(2, rows(2), (old) => old - 1)), /children of order 2\): children must run from row 0 to the \d+ rows of the next order/);
+    await expectCorrupt(rewrite(floatFile, 9, 2, offset(2, 0, () => 1)), /children of order 2\): the offset of row 0, the first of its block, is 1, not 0/, true);
+    await expectCorrupt(rewrite(floatFile, 9, 1, offset(1, 2, (_, next) => next + 1)), /children of order 1\): the children of row 3 start before those of row 2/, true);
+    await expectCorrupt(rewrite(floatFile, 9, 2, offset(2, rows(2), (old) => old - 1)), /children of order 2\): children must run from row 0 to the \d+ rows of the next order/, true);
     await expectCorrupt(rewrite(floatFile, 9, 2, (b) => b.writeUInt32LE(33, 0)), /children of order 2\): offset width 33 bits/);
     await expectCorrupt(rewrite(floatFile, 9, 2, (b) => (b[b.length - 1] = 1)), /children of order 2\): the bits after the last offset are not zero/);
     // Word ids: above V, not ascending within a context, <s>; padding bits.
     expect(2 ** wordBits - 1).toBeGreaterThan(size);
-    await expectCorrupt(rewrite(floatFile, 6, 3, (b) => writePacked(b, 0, 0, wordBits, size + 1)), new RegExp(`word ids of order 3\\): row 0: word id ${size + 1} above V`));
-    await expectCorrupt(rewrite(floatFile, 6, 2, (b) => writePacked(b, 0, 0, wordBits, 0)), /word ids of order 2\): row 0: word id 0 does not ascend within its context \(or is <s>\)/);
-    await expectCorrupt(rewrite(floatFile, 6, 2, (b) => writePacked(b, 0, 1, wordBits, readPacked(b, 0, 0, wordBits))), /word ids of order 2\): row 1: word id \d+ does not ascend/);
+    await expectCorrupt(rewrite(floatFile, 6, 3, (b) => writePacked(b, 0, 0, wordBits, size + 1)), new RegExp(`word ids of order 3\\): row 0: word id ${size + 1} above V`), true);
+    await expectCorrupt(rewrite(floatFile, 6, 2, (b) => writePacked(b, 0, 0, wordBits, 0)), /word ids of order 2\): row 0: word id 0 does not ascend within its context \(or is <s>\)/, true);
+    await expectCorrupt(rewrite(floatFile, 6, 2, (b) => writePacked(b, 0, 1, wordBits, readPacked(b, 0, 0, wordBits))), /word ids of order 2\): row 1: word id \d+ does not ascend/, true);
     await expectCorrupt(rewrite(floatFile, 6, 2, (b) => (b[b.length - 1] = 0x80)), /word ids of order 2\): the bits after the last word id are not zero/);
     // Codes outside the codebook.
-    await expectCorrupt(rewrite(quantisedFile, 7, 2, (b) => (b[3] = 255)), /log10 probabilities of order 2\): code 255 is outside its codebook/);
+    await expectCorrupt(rewrite(quantisedFile, 7, 2, (b) => (b[3] = 255)), /log10 probabilities of order 2\): code 255 is outside its codebook/, true);
     // Vocabulary: markers, offsets, hash table.
     await expectCorrupt(rewrite(floatFile, 3, 0, (b) => b.write('<S>', 0)), /vocabulary words\): ids 0, \d+ and \d+ must be <s>, <\/s> and <unk>/);
     await expectCorrupt(rewrite(floatFile, 4, 0, (b) => b.writeUInt32LE(1, 0)), /vocabulary offsets\): offsets must run from 0/);
@@ -193,17 +205,50 @@ describe('damaged files are refused with a corrupt-file error naming the file an
     await expectCorrupt(buildFile(file), /description\): the cutoffs must be 3 integers ≥ 1/);
   });
 
-  test('with the structure check turned off, a crafted file opens and lookups stay bounded; toLanguageModel checks first', async () => {
+  test('without the structure check (the default), a crafted file opens and lookups stay bounded; toLanguageModel checks first', async () => {
     const file = parseFile(floatFile);
     const children = file.sections.find((s) => s.kind === 9 && s.order === 1)!;
     const layout = childrenLayout(children.bytes, floatFile.readUInt32LE(32) + 1);
     writePacked(children.bytes, layout.offsets, 2, layout.bits, readPacked(children.bytes, layout.offsets, 3, layout.bits) + 1);
+    // And a context of order 2 whose children run far past the rows of order 3 (the clamp's case).
+    const second = file.sections.find((s) => s.kind === 9 && s.order === 2)!;
+    const rows2 = Number(floatFile.readBigUInt64LE(64 + 8));
+    expect(rows2).toBeGreaterThan(64);
+    second.bytes.writeUInt32LE(0xffffff00, childrenLayout(second.bytes, rows2).bases + 4); // base of block 1: rows 64.. start far past the end
     const path = join(dir, 'crafted.qm');
     writeFileSync(path, buildFile(file));
-    await expect(openModel(path)).rejects.toThrow(/children of order 1\): the children of row 3 start before those of row 2/);
-    const model = await openModel(path, { checkStructure: false });
-    for (const words of probe) model.scoreSentence(words); // wrong numbers perhaps, but no crash or hang
+    await expect(openModel(path, { checkStructure: true })).rejects.toThrow(/children of order 1\): the children of row 3 start before those of row 2/);
+    const model = await openModel(path);
+    expect(model.structureChecked).toBe(false);
+    expectBoundedLookups(model); // wrong numbers perhaps, but no crash, hang or read outside an array
+    // The searches stay inside the next order's rows: every children range a state keeps is clamped.
+    const state = model.newState();
+    let clamped = 0;
+    for (const words of probe) {
+      model.resetState(state);
+      for (const word of [...words, '</s>']) {
+        const id = model.wordId(word);
+        model.step(state, id > 0 ? id : model.unkId);
+        for (let k = 1; k <= state.length; k++) {
+          if (state.rows[k] < 0) continue;
+          expect(state.starts[k]).toBeGreaterThanOrEqual(0);
+          expect(state.ends[k]).toBeLessThanOrEqual(model.ngrams[k]);
+          if (state.ends[k] === model.ngrams[k] && state.starts[k] === model.ngrams[k]) clamped++;
+        }
+      }
+    }
+    expect(clamped, 'the probe reaches a context whose children were moved past the end').toBeGreaterThan(0);
     expect(() => model.toLanguageModel()).toThrow(/children of order 1\): the children of row 3 start before those of row 2/);
+  });
+
+  test('codes outside their codebook, behind valid checksums: refused with the structure check, bounded without it', async () => {
+    const file = parseFile(quantisedFile);
+    for (const section of file.sections) if (section.kind === 7 || section.kind === 8) section.bytes.fill(255);
+    const crafted = buildFile(file);
+    await expectCorrupt(crafted, /code 255 is outside its codebook/, true);
+    const { model, error } = await tryOpen(crafted);
+    expect(error).toBeUndefined();
+    expectBoundedLookups(model as PackedModel);
   });
 
   test('a file that does not exist is an io error', async () => {
@@ -293,19 +338,23 @@ describe('fuzz', () => {
   });
 });
 
-describe('fuzz of the bit-packed structure', () => {
-  test('1,000 seeded changes inside the word ids and children sections, rewritten with fresh checksums: each is refused as corrupt, or opens and answers every lookup without a crash or a hang', async () => {
-    const random = seededRandom(2026);
+describe('fuzz of the bit-packed structure and the values, behind fresh checksums', () => {
+  /**
+   * Seeded changes inside the word ids and children sections (and the codes of the 8-bit file),
+   * each file rewritten with fresh checksums, opened with or without the structure check. Returns
+   * how many were refused and how many opened; every open must succeed or fail as documented, and
+   * every model that opens must answer every lookup of the probe text, bounded.
+   */
+  async function fuzz(seed: number, trials: number, checkStructure: boolean): Promise<{ refused: number; opened: number }> {
+    const random = seededRandom(seed);
     const pick = (n: number): number => Math.floor(random() * n);
-    const base = parseFile(floatFile);
-    const targets = base.sections.map((section, index) => ({ section, index })).filter(({ section }) => section.kind === 6 || section.kind === 9);
-    expect(targets.length).toBeGreaterThanOrEqual(4);
     let refused = 0;
     let opened = 0;
-    for (let trial = 0; trial < 1000; trial++) {
-      const file = parseFile(floatFile);
-      const { index } = targets[pick(targets.length)];
-      const bytes = file.sections[index].bytes;
+    for (let trial = 0; trial < trials; trial++) {
+      const quantised = trial % 4 === 3;
+      const file = parseFile(quantised ? quantisedFile : floatFile);
+      const targets = file.sections.filter((section) => section.kind === 6 || section.kind === 9 || (quantised && (section.kind === 7 || section.kind === 8)));
+      const bytes = targets[pick(targets.length)].bytes;
       const changes = 1 + pick(3);
       for (let i = 0; i < changes; i++) {
         const at = pick(bytes.length);
@@ -313,11 +362,9 @@ describe('fuzz of the bit-packed structure', () => {
         else bytes[at] = pick(256);
       }
       const started = performance.now();
-      const { path, model, error } = await tryOpen(buildFile(file));
+      const { path, model, error } = await tryOpen(buildFile(file), checkStructure);
       if (model !== undefined) {
-        // Still a valid model (e.g. a word id changed to another that keeps its context ascending):
-        // every lookup must answer, bounded.
-        for (const words of probe) expect(Number.isNaN(model.scoreSentence(words).log10ProbWithUnk)).toBe(false);
+        expectBoundedLookups(model);
         opened++;
       } else {
         if (!(error instanceof QuernError && error.code === 'corrupt' && error.message.startsWith(`${path}: `))) throw error;
@@ -325,8 +372,20 @@ describe('fuzz of the bit-packed structure', () => {
       }
       expect(performance.now() - started, 'no hang').toBeLessThan(2000);
     }
+    return { refused, opened };
+  }
+
+  test('1,000 seeded changes with the structure check: most are refused as corrupt, the rest (e.g. a word id changed to another that keeps its context ascending) answer every lookup, bounded', async () => {
+    const { refused, opened } = await fuzz(2026, 1000, true);
     expect(refused + opened).toBe(1000);
     expect(refused).toBeGreaterThan(700);
+  });
+
+  test('1,000 seeded changes without it (the default open): each is refused as corrupt (padding bits, widths) or opens, and then answers every lookup, bounded', async () => {
+    const { refused, opened } = await fuzz(2027, 1000, false);
+    expect(refused + opened).toBe(1000);
+    // The checksums match, so most open: the lookups' bounds, not the check, keep them safe.
+    expect(opened).toBeGreaterThan(500);
   });
 });
 

@@ -24,6 +24,7 @@ export { modelSource, type ModelSource, type ModelRowBatch } from './estimate/mo
 export { countCorpus, type CountTables } from './estimate/counts.ts';
 export { logProb, type LanguageModel } from './estimate/model.ts';
 export { perplexity } from './score/perplexity.ts';
+export { BatchScorer, scoreSentences } from './score/batch.ts';
 export { packModel, packModelSource, type PackOptions, type PackSummary } from './pack/writer.ts';
 export { DecoderState, openModel, type PackedModel } from './pack/reader.ts';
 export { readArpa, writeArpa } from './pack/arpa.ts';

@@ -5,7 +5,6 @@
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, afterEach, expect, test, vi } from 'vitest';
-import yargs from 'yargs';
 import { exportCommand } from '../../src/cli/export.ts';
 import { infoCommand } from '../../src/cli/info.ts';
 import { packCommand } from '../../src/cli/pack.ts';
@@ -16,26 +15,14 @@ import { openModel } from '../../src/pack/reader.ts';
 import { packModel } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { buildFile, childrenLayout, parseFile, readPacked, temporaryDirectory, writePacked } from './support.ts';
+import { runCommandsInProcess } from '../support/in-process.ts';
 
 const { dir, remove } = temporaryDirectory('cli');
 afterAll(remove);
 afterEach(() => vi.restoreAllMocks());
 
 /** Runs the commands in-process and returns what they printed. */
-async function run(args: string[]): Promise<string> {
-  let printed = '';
-  vi.spyOn(process.stdout, 'write').mockImplementation((chunk: string | Uint8Array) => {
-    printed += typeof chunk === 'string' ? chunk : Buffer.from(chunk).toString('utf8');
-    return true;
-  });
-  try {
-    await yargs(args).command(packCommand).command(infoCommand).command(exportCommand).strict()
-      .fail((message, error) => { throw error ?? new Error(message); }).parseAsync();
-  } finally {
-    vi.restoreAllMocks();
-  }
-  return printed;
-}
+const run = (args: string[]): Promise<string> => runCommandsInProcess([packCommand, infoCommand, exportCommand], args);
 
 test('export a model file to ARPA, pack it back with 8-bit values, describe both', async () => {
   const train = markovCorpus(51, 150, 25, 10);

@@ -7,7 +7,6 @@
 import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, afterEach, describe, expect, test, vi } from 'vitest';
-import yargs from 'yargs';
 import { scoreCommand } from '../../src/cli/score.ts';
 import type { NormalizeOptions } from '../../src/corpus/types.ts';
 import { QuernError } from '../../src/errors.ts';
@@ -19,6 +18,7 @@ import { packModel } from '../../src/pack/writer.ts';
 import { resolveNormalize } from '../../src/score/normalization.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { temporaryDirectory } from '../pack/support.ts';
+import { runCommandsInProcess } from '../support/in-process.ts';
 
 const { dir, remove } = temporaryDirectory('normalize');
 afterAll(remove);
@@ -46,20 +46,7 @@ describe('resolveNormalize', () => {
 });
 
 /** Runs `quern score` in-process and returns what it printed. */
-async function score(args: string[]): Promise<string> {
-  let printed = '';
-  vi.spyOn(process.stdout, 'write').mockImplementation((chunk: string | Uint8Array) => {
-    printed += typeof chunk === 'string' ? chunk : Buffer.from(chunk).toString('utf8');
-    return true;
-  });
-  try {
-    await yargs(['score', ...args]).command(scoreCommand).strict()
-      .fail((message, error) => { throw error ?? new Error(message); }).parseAsync();
-  } finally {
-    vi.restoreAllMocks();
-  }
-  return printed;
-}
+const score = (args: string[]): Promise<string> => runCommandsInProcess([scoreCommand], ['score', ...args]);
 
 describe('the model file carries the normalisation to score', () => {
   const train = markovCorpus(7, 200, 30, 9);

@@ -70,21 +70,11 @@ function encodeHeader(meta: ResultMeta): Buffer {
 export const RESULT_WRITE_AHEAD_BYTES = 8 << 20;
 
 /**
- * Bytes written after which a ResultWriter has them flushed to disk in the background (while its
- * caller computes on), so that the fsync that makes the finished file durable has at most this much
- * left to write instead of the whole file (a partition's last files are ~100 MB on the 1 GB
- * benchmark job, written at ~170 MB/s here, and its task waits for them before taking the next).
- */
-export const RESULT_SYNC_BYTES = 32 << 20;
-
-/**
  * Writes a result file's contents to `file`, a block at a time: `add` rows in strictly increasing
  * order (asserted), `drain` now and then to start writing what is encoded, `finish` once at the end.
  * Writes go one after another in the order they were started; `drain` waits for them only when more
  * than RESULT_WRITE_AHEAD_BYTES are under way, `finish` for all. A failed write fails the next
- * `drain` or `finish`. Every RESULT_SYNC_BYTES written, a flush to disk starts beside the writes (one
- * at a time); `finish` waits for it too, and a failed one fails `finish`. The file is durable only
- * once its owner has synced it after `finish` (writeFileThrough does).
+ * `drain` or `finish`.
  */
 export class ResultWriter {
   private readonly ids: Uint32Array;
@@ -97,10 +87,6 @@ export class ResultWriter {
   /** The writes started, chained; and the bytes they hold that are not yet written. */
   private writing: Promise<void> = Promise.resolve();
   private writingBytes = 0;
-  /** Bytes written since the last background flush started; that flush (rejects if it failed). */
-  private unsyncedBytes = 0;
-  private syncing: Promise<void> | null = null;
-  private lastSync: Promise<void> = Promise.resolve();
   rows = 0;
   private readonly last: Uint32Array;
   private finished = false;
@@ -181,24 +167,10 @@ export class ResultWriter {
       this.writing = this.writing.then(async () => {
         await this.file.write(data);
         this.writingBytes -= data.length;
-        this.unsyncedBytes += data.length;
-        if (this.unsyncedBytes >= RESULT_SYNC_BYTES && this.syncing === null) this.startSync();
       });
       this.writing.catch(() => undefined); // awaited (and so reported) by the next drain or finish
     }
     if (this.writingBytes > RESULT_WRITE_AHEAD_BYTES) await this.writing;
-  }
-
-  /** Starts flushing what is written to disk, beside the next writes. */
-  private startSync(): void {
-    this.unsyncedBytes = 0;
-    const sync = this.file.sync().finally(() => {
-      this.syncing = null;
-    });
-    sync.catch(() => undefined); // awaited (and so reported) by finish
-    this.syncing = sync;
-    this.lastSync = this.lastSync.then(() => sync);
-    this.lastSync.catch(() => undefined);
   }
 
   /** Encodes the last block and the trailer and writes everything; returns rows and file bytes. */
@@ -218,7 +190,6 @@ export class ResultWriter {
     this.push(trailer);
     await this.drain();
     await this.writing;
-    await this.lastSync;
     assert(this.bytes === bytes, 'result file bytes add up');
     return { rows: this.rows, bytes };
   }

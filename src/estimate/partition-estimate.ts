@@ -19,7 +19,9 @@
  * (`o{m−1}.bow`) — rows of other partitions, joined when the model is read (job-model-source.ts).
  *
  * Memory: P's results of orders m−1 and m (1.5 slots of 4·order + 8 bytes, order rounded up to
- * even, per row of the order), and a window of at most ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's row counts.
+ * even, per row of the order), each in a buffer of the largest such table's size that the thread
+ * keeps for the next order and partition, and a window of at most ESTIMATE_WINDOW_ROWS + V rows;
+ * `partitionNeedBytes` states it from P's row counts.
  */
 import * as path from 'node:path';
 import { assert, QuernError } from '../errors.ts';
@@ -80,21 +82,44 @@ export function partitionRowCounts(store: PartitionStore): number[] {
   return progress.tallies.map((t) => t.distinct);
 }
 
+/** Bytes of each of a partition's table buffers: the slots of its largest table (orders 2..N−1). */
+function tableBufferBytes(rows: number[]): number {
+  let bytes = 0;
+  for (let m = 2; m < rows.length; m++) bytes = Math.max(bytes, ProbabilityTable.slotBytesFor(m, rows[m - 1]));
+  return bytes;
+}
+
 /** Bytes a partition's task holds at most, from its rows per order (module comment). */
 export function partitionNeedBytes(rows: number[], size: number): number {
   const orderMax = rows.length;
-  let need = 0;
-  for (let m = 2; m <= orderMax; m++) {
-    const previous = m > 2 ? ProbabilityTable.bytesFor(m - 1, rows[m - 2]) : 0;
-    const current = m < orderMax ? ProbabilityTable.bytesFor(m, rows[m - 1]) : 0;
-    const window = Math.min(rows[m - 1], ESTIMATE_WINDOW_ROWS + size) * (4 * m + ESTIMATE_WINDOW_BYTES_PER_ROW);
-    need = Math.max(need, previous + current + window);
-  }
-  return need;
+  // Tables of orders m−1 and m at once (one when N = 3, none when N = 2), each in a buffer of the largest's size.
+  const tables = Math.max(0, Math.min(2, orderMax - 2));
+  let window = 0;
+  for (let m = 2; m <= orderMax; m++) window = Math.max(window, Math.min(rows[m - 1], ESTIMATE_WINDOW_ROWS + size) * (4 * m + ESTIMATE_WINDOW_BYTES_PER_ROW));
+  return tables * (tableBufferBytes(rows) + ProbabilityTable.stagingBytesFor(orderMax - 1)) + window;
+}
+
+/**
+ * Table buffers this thread keeps between the orders and the partitions it estimates (at most the
+ * two a partition uses at once), so that a table is written into memory that is mapped already:
+ * fresh memory costs the kernel a page fault and a page of zeros per 4 KiB. The stage runs the
+ * largest partitions first, so later ones fit in the buffers of the first.
+ */
+const spareTableBuffers: ArrayBuffer[] = [];
+
+function takeTableBuffer(bytes: number): ArrayBuffer {
+  const index = spareTableBuffers.findIndex((buffer) => buffer.byteLength >= bytes);
+  if (index >= 0) return spareTableBuffers.splice(index, 1)[0];
+  spareTableBuffers.length = 0; // too small for this partition: let them go before a larger one is allocated
+  return new ArrayBuffer(bytes);
+}
+
+function giveTableBuffer(buffer: ArrayBuffer): void {
+  if (spareTableBuffers.length < 2) spareTableBuffers.push(buffer);
 }
 
 /** Rows a ProbabilityTable inserts, or looks up, together. */
-const TABLE_BATCH_ROWS = 4096;
+const TABLE_BATCH_ROWS = 1024;
 
 /** Slots of a ProbabilityTable per row it may hold: at most two thirds of the slots are used. */
 const TABLE_SLOTS_PER_ROW = 1.5;
@@ -106,9 +131,11 @@ const TABLE_SLOTS_PER_ROW = 1.5;
  * holds NaN as its probability (a probability never is: applyContextRule checks them).
  *
  * Rows are staged by `push` and inserted a batch at a time, and lookups go a batch at a time too
- * (`suffixProbabilities`): first the hashes of the batch (arithmetic), then the slots. The accesses
- * to the slots are far apart in memory and independent of one another, so the processor has many
- * under way at once rather than waiting for each in turn.
+ * (`suffixProbabilities`), in three passes: the home slots of the batch (arithmetic); a read of
+ * each home slot's first and last word that only brings them into the cache (a loop without
+ * branches on what it reads, so the processor has many of these misses under way at once); then
+ * the probes proper, whose branches on the slots' contents now cost a cache hit when mispredicted
+ * instead of a wait for memory. The probe compares all ids of a slot before it branches.
  */
 class ProbabilityTable {
   /** u32 elements per slot (even). */
@@ -121,15 +148,21 @@ class ProbabilityTable {
   private readonly stagedIds: Uint32Array;
   private readonly stagedValues: Float64Array;
   private staged = 0;
-  /** Scratch of a batch: its hashes. */
+  /** Scratch of a batch: its home slots. */
   private readonly hashes = new Int32Array(TABLE_BATCH_ROWS);
+  /** What the cache-warming passes read (kept, so that the compiler cannot drop them). */
+  private sink = 0;
 
-  constructor(readonly order: number, readonly capacity: number) {
+  /**
+   * A table of `order` for `capacity` rows in `buffer` (at least `slotBytesFor(order, capacity)`
+   * bytes; whatever it held before is overwritten).
+   */
+  constructor(readonly order: number, readonly capacity: number, readonly buffer: ArrayBuffer) {
     this.stride = ProbabilityTable.strideOf(order);
     this.slotCount = ProbabilityTable.slotsFor(capacity);
-    const buffer = new ArrayBuffer(this.slotCount * this.stride * 4);
-    this.ids = new Uint32Array(buffer);
-    this.values = new Float64Array(buffer);
+    assert(buffer.byteLength >= this.slotCount * this.stride * 4, 'a table buffer holds every slot of the table');
+    this.ids = new Uint32Array(buffer, 0, this.slotCount * this.stride);
+    this.values = new Float64Array(buffer, 0, (this.slotCount * this.stride) >> 1);
     for (let slot = 0; slot < this.slotCount; slot++) this.values[this.valueIndex(slot)] = NaN;
     this.stagedIds = new Uint32Array(TABLE_BATCH_ROWS * order);
     this.stagedValues = new Float64Array(TABLE_BATCH_ROWS);
@@ -143,9 +176,14 @@ class ProbabilityTable {
     return Math.max(16, Math.ceil(capacity * TABLE_SLOTS_PER_ROW));
   }
 
-  /** Bytes of a table of `order` for `rows` rows at most, staging included. */
-  static bytesFor(order: number, rows: number): number {
-    return ProbabilityTable.slotsFor(rows) * 4 * ProbabilityTable.strideOf(order) + TABLE_BATCH_ROWS * (4 * order + 12);
+  /** Bytes of the slots of a table of `order` for `rows` rows at most. */
+  static slotBytesFor(order: number, rows: number): number {
+    return ProbabilityTable.slotsFor(rows) * 4 * ProbabilityTable.strideOf(order);
+  }
+
+  /** Bytes of a table's staging and scratch arrays (beside its buffer). */
+  static stagingBytesFor(order: number): number {
+    return TABLE_BATCH_ROWS * (4 * order + 12);
   }
 
   /** Index into `values` of a slot's probability. */
@@ -172,9 +210,15 @@ class ProbabilityTable {
   flush(): void {
     const { order, stride, ids, values, hashes, stagedIds, stagedValues, slotCount } = this;
     const staged = this.staged;
-    for (let r = 0; r < staged; r++) hashes[r] = ngramHash(stagedIds, r * order, order) | 0;
+    for (let r = 0; r < staged; r++) hashes[r] = this.home(ngramHash(stagedIds, r * order, order) | 0);
+    let sink = 0;
     for (let r = 0; r < staged; r++) {
-      let slot = this.home(hashes[r]);
+      const base = hashes[r] * stride;
+      sink |= ids[base] ^ ids[base + stride - 1];
+    }
+    this.sink |= sink;
+    for (let r = 0; r < staged; r++) {
+      let slot = hashes[r];
       for (;;) {
         const value = values[(slot * stride + stride - 2) >> 1];
         if (value !== value) break; // NaN: free
@@ -198,19 +242,27 @@ class ProbabilityTable {
     const { order, stride, ids: tableIds, values, hashes, slotCount } = this;
     for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
       const to = Math.min(rows, from + TABLE_BATCH_ROWS);
-      for (let row = from; row < to; row++) hashes[row - from] = kept[row] === 1 ? ngramHash(ids, row * m + 1, order) | 0 : 0;
+      for (let row = from; row < to; row++) hashes[row - from] = kept[row] === 1 ? this.home(ngramHash(ids, row * m + 1, order) | 0) : 0;
+      let sink = 0;
+      for (let row = from; row < to; row++) {
+        const base = hashes[row - from] * stride;
+        sink |= tableIds[base] ^ tableIds[base + stride - 1];
+      }
+      this.sink |= sink;
       for (let row = from; row < to; row++) {
         if (kept[row] === 0) continue;
         const key = row * m + 1;
-        let slot = this.home(hashes[row - from]);
+        let slot = hashes[row - from];
         for (;;) {
           const base = slot * stride;
+          let difference = 0;
+          for (let j = 0; j < order; j++) difference |= tableIds[base + j] ^ ids[key + j];
           const value = values[(base + stride - 2) >> 1];
-          if (value !== value) throw suffixMissing(store, m, ids, row * m);
-          if (compareRows(tableIds, base, ids, key, order) === 0) {
+          if (difference === 0 && value === value) {
             lower[row] = value;
             break;
           }
+          if (value !== value) throw suffixMissing(store, m, ids, row * m);
           slot = slot + 1 === slotCount ? 0 : slot + 1;
         }
       }
@@ -288,10 +340,11 @@ export async function estimatePartition(
   try {
     const partitionRows = partitionRowCounts(store);
     await fs.mkdir(path.dirname(path.join(jobDir, resultFilePath(partition, 'probabilities', 2))));
+    const bufferBytes = tableBufferBytes(partitionRows);
     let previous: ProbabilityTable | null = null;
     for (let m = 2; m <= orderMax; m++) {
       const highest = m === orderMax;
-      const current: ProbabilityTable | null = highest ? null : new ProbabilityTable(m, partitionRows[m - 1]);
+      const current: ProbabilityTable | null = highest ? null : new ProbabilityTable(m, partitionRows[m - 1], takeTableBuffer(bufferBytes));
       const probFile = resultFilePath(partition, 'probabilities', m);
       const bowFile = resultFilePath(partition, 'back-off', m - 1);
       const prob = await openThrough(fs, path.join(jobDir, probFile));
@@ -317,8 +370,10 @@ export async function estimatePartition(
       }
       bow.end();
       prob.end();
+      if (previous !== null) giveTableBuffer(previous.buffer);
       previous = current;
     }
+    if (previous !== null) giveTableBuffer(previous.buffer);
     await Promise.all(syncing);
   } finally {
     await Promise.allSettled(syncing);

@@ -226,10 +226,19 @@ export function encodeBlockValue(keys: Uint32Array, counts: ArrayLike<number>, f
 }
 
 /**
- * Decodes a self-contained block (all of `src`), verifying its checksum and lengths first.
+ * Decodes a self-contained block (all of `src`), verifying its checksum and lengths first; into
+ * `into`'s arrays when given (the result's arrays are then views of them, valid until the next
+ * decoding into the same buffers), else into new ones.
  * Throws DecodeFailure (record index −1 for block-level damage) on any inconsistency.
  */
-export function decodeBlockValue(src: Uint8Array, order: number, recordsMax: number): DecodedBlock {
+/** Arrays a reader lends `decodeBlockValue` to decode into, reused from one block to the next
+ *  (grown when a block needs more). */
+export interface BlockBuffers {
+  keys: Uint32Array;
+  counts: Float64Array;
+}
+
+export function decodeBlockValue(src: Uint8Array, order: number, recordsMax: number, into?: BlockBuffers): DecodedBlock {
   const headerBytes = blockHeaderBytes(order);
   if (src.length < headerBytes + 1) throw new DecodeFailure(-1, `block of ${src.length} bytes is shorter than its header`);
   const view = new DataView(src.buffer, src.byteOffset, src.byteLength);
@@ -240,8 +249,17 @@ export function decodeBlockValue(src: Uint8Array, order: number, recordsMax: num
   if (headerBytes + recordBytes !== src.length) throw new DecodeFailure(-1, `record bytes ${recordBytes} disagree with the block size ${src.length}`);
   const computedCrc = crc32(src.subarray(4));
   if (computedCrc !== storedCrc) throw new DecodeFailure(-1, `checksum mismatch (stored ${storedCrc.toString(16)}, computed ${computedCrc.toString(16)})`);
-  const keys = new Uint32Array(recordCount * order);
-  const counts = new Float64Array(recordCount);
+  let keys: Uint32Array;
+  let counts: Float64Array;
+  if (into === undefined) {
+    keys = new Uint32Array(recordCount * order);
+    counts = new Float64Array(recordCount);
+  } else {
+    if (into.keys.length < recordCount * order) into.keys = new Uint32Array(recordsMax * order);
+    if (into.counts.length < recordCount) into.counts = new Float64Array(recordsMax);
+    keys = into.keys.subarray(0, recordCount * order);
+    counts = into.counts.subarray(0, recordCount);
+  }
   for (let j = 0; j < order; j++) keys[j] = view.getUint32(BLOCK_HEADER_FIXED_BYTES + 4 * j, true);
   const countSum = decodeRecords(src, headerBytes, src.length, order, recordCount, keys, counts);
   return { keys, counts, recordCount, countSum };

@@ -479,8 +479,10 @@ async function estimateOrder(
     if (bowWriter.pendingByteCount >= DRAIN_BYTES) await bowWriter.drain();
   };
 
-  const raw = new StoreSource(store, m, undefined, 'raw');
-  const continuation = withContinuation ? new StoreSource(store, m, undefined, 'continuation') : null;
+  // Both sources decode into reused arrays: a raw batch is copied into the window at once, and a
+  // continuation batch (its own source, so its own arrays) is held only while it is walked.
+  const raw = new StoreSource(store, m, undefined, 'raw', true);
+  const continuation = withContinuation ? new StoreSource(store, m, undefined, 'continuation', true) : null;
   let contBatch: { keys: Uint32Array; counts: Float64Array; recordCount: number } | null = null;
   let contIndex = 0;
   try {

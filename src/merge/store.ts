@@ -12,7 +12,7 @@ import * as path from 'node:path';
 import { open, type RootDatabase } from 'lmdb';
 import { assert, QuernError } from '../errors.ts';
 import { STORE_BLOCK_RECORDS, STORE_MAP_BYTES } from '../limits.ts';
-import { compareRows, DecodeFailure, decodeBlockValue, type DecodedBlock } from '../count/block-codec.ts';
+import { compareRows, DecodeFailure, decodeBlockValue, type BlockBuffers, type DecodedBlock } from '../count/block-codec.ts';
 
 export const STORE_DIR = 'counts.lmdb';
 const META = 0x00;
@@ -101,10 +101,10 @@ export class PartitionStore {
   }
 
   /** Decodes the block stored under `key`, naming the store in errors. */
-  private decode(key: Uint8Array, value: Uint8Array): DecodedBlock {
+  private decode(key: Uint8Array, value: Uint8Array, into?: BlockBuffers): DecodedBlock {
     const { order, ids } = parseNgramKey(key);
     try {
-      const block = decodeBlockValue(value, order, STORE_BLOCK_RECORDS);
+      const block = decodeBlockValue(value, order, STORE_BLOCK_RECORDS, into);
       if (compareRows(block.keys, 0, ids, 0, order) !== 0) throw new DecodeFailure(0, 'first n-gram differs from its key');
       return block;
     } catch (failure) {
@@ -136,8 +136,11 @@ export class PartitionStore {
   /**
    * The blocks of one order, in key order, starting with the block that may hold `from` (an n-gram
    * prefix, possibly shorter than the order) — all blocks of the order when `from` is absent.
+   * With `reuse`, every block is decoded into the same arrays (no allocation per block): a block is
+   * valid only until the next one is asked for.
    */
-  *blocks(order: number, from?: ArrayLike<number>, space: KeySpace = 'raw'): Generator<DecodedBlock> {
+  *blocks(order: number, from?: ArrayLike<number>, space: KeySpace = 'raw', reuse = false): Generator<DecodedBlock> {
+    const into: BlockBuffers | undefined = reuse ? { keys: new Uint32Array(0), counts: new Float64Array(0) } : undefined;
     const first = KEY_SPACE[space] + order;
     let start = Buffer.from([first]);
     if (from !== undefined && from.length > 0) {
@@ -148,7 +151,7 @@ export class PartitionStore {
     const end = Buffer.from([first + 1]);
     for (const { key, value } of this.db.getRange({ start, end })) {
       assert(key[0] === first, 'range stays within the order');
-      yield this.decode(key, value);
+      yield this.decode(key, value, into);
     }
   }
 
@@ -165,8 +168,10 @@ export class StoreSource {
   private readonly iterator: Generator<DecodedBlock>;
   private ended = false;
 
-  constructor(private readonly store: PartitionStore, readonly order: number, private readonly prefix?: Uint32Array, space: KeySpace = 'raw') {
-    this.iterator = store.blocks(order, prefix, space);
+  /** `reuseBatches`: each batch is decoded into the same arrays, valid until the next `nextBatch`
+   *  (for readers that copy a batch out before asking for the next, as the estimate does). */
+  constructor(private readonly store: PartitionStore, readonly order: number, private readonly prefix?: Uint32Array, space: KeySpace = 'raw', reuseBatches = false) {
+    this.iterator = store.blocks(order, prefix, space, reuseBatches);
   }
 
   get name(): string {

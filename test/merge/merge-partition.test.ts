@@ -76,3 +76,31 @@ describe('mergePartition', () => {
     expect(await contents(reference, 'resumed')).toBe(expected);
   });
 });
+
+describe('StoreSource with reused batches', () => {
+  test('gives the same rows as fresh batches, every batch decoded into the same arrays', async () => {
+    const dir = mkdtempSync(path.join(os.tmpdir(), 'quern-reuse-'));
+    const task = await writeRuns(dir, 3, 5000);
+    await mergePartition(dir, 'store', task, 'raw');
+    const store = PartitionStore.open(path.join(dir, 'store'), 'read');
+    const read = async (reuse: boolean): Promise<{ rows: string[]; buffers: Set<ArrayBufferLike> }> => {
+      const source = new StoreSource(store, 2, undefined, 'raw', reuse);
+      const rows: string[] = [];
+      const buffers = new Set<ArrayBufferLike>();
+      for (let batch = await source.nextBatch(); batch !== null; batch = await source.nextBatch()) {
+        expect(batch.keys.length).toBe(2 * batch.recordCount);
+        expect(batch.counts.length).toBe(batch.recordCount);
+        buffers.add(batch.keys.buffer);
+        for (let j = 0; j < batch.recordCount; j++) rows.push(`${batch.keys[2 * j]} ${batch.keys[2 * j + 1]} ${batch.counts[j]}`);
+      }
+      await source.close();
+      return { rows, buffers };
+    };
+    const fresh = await read(false);
+    const reused = await read(true);
+    await store.close();
+    expect(fresh.buffers.size).toBeGreaterThan(3); // several blocks, one new array each
+    expect(reused.buffers.size).toBe(1);
+    expect(reused.rows).toEqual(fresh.rows);
+  });
+});

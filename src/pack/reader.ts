@@ -619,21 +619,9 @@ function valueView(encoding: ValueEncoding, buffer: Buffer): ValueArray {
  * step), so a row at distance d costs about 2·log2(d) probes instead of log2 of the whole range.
  */
 function searchWord(words: Uint32Array, bits: number, mask: number, low: number, high: number, word: number): number {
-  const scanEnd = Math.min(high, low + SCAN_ROWS);
-  const rest = (low & 31) * bits;
-  let at = (low >>> 5) * bits + (rest >>> 5);
-  let shift = rest & 31;
-  for (let row = low; row < scanEnd; row++) {
-    const found = ((words[at] >>> shift) | ((words[at + 1] << 1) << (31 - shift))) & mask;
-    if (found >= word) return found === word ? row : -1;
-    shift += bits;
-    if (shift >= 32) {
-      shift -= 32;
-      at++;
-    }
-  }
-  if (scanEnd === high) return -1;
-  low = scanEnd;
+  const scanned = scanWord(words, bits, mask, low, high, word);
+  if (scanned !== PENDING) return scanned;
+  low += SCAN_ROWS;
   let bound = low;
   let step = 1;
   while (bound < high) {
@@ -659,13 +647,9 @@ function searchWord(words: Uint32Array, bits: number, mask: number, low: number,
 
 /** searchWord for word ids of exactly 16 bits, which a Uint16Array reads as they are. */
 function searchWord16(words: Uint16Array, low: number, high: number, word: number): number {
-  const scanEnd = Math.min(high, low + SCAN_ROWS);
-  for (let row = low; row < scanEnd; row++) {
-    const found = words[row];
-    if (found >= word) return found === word ? row : -1;
-  }
-  if (scanEnd === high) return -1;
-  low = scanEnd;
+  const scanned = scanWord16(words, low, high, word);
+  if (scanned !== PENDING) return scanned;
+  low += SCAN_ROWS;
   let bound = low;
   let step = 1;
   while (bound < high) {

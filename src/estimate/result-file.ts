@@ -206,6 +206,8 @@ function corrupt(filePath: string, what: string): QuernError {
 export class ResultReader {
   private offset = RESULT_HEADER_BYTES;
   private rowsRead = 0;
+  /** The error a damaged block raised: the file is closed and every later nextBatch throws it. */
+  private failure: unknown = undefined;
   private readonly last: Uint32Array;
 
   private constructor(private handle: fsp.FileHandle | undefined, readonly filePath: string, readonly meta: ResultMeta, readonly rows: number, private readonly payloadEnd: number) {
@@ -245,8 +247,20 @@ export class ResultReader {
     }
   }
 
-  /** The next block, or null at the end (the file is then closed, after the totals are checked). */
+  /** The next block, or null at the end (the file is then closed, after the totals are checked).
+   *  A damaged block closes the file too, and every later call throws the same error. */
   async nextBatch(): Promise<ResultBatch | null> {
+    if (this.failure !== undefined) throw this.failure;
+    try {
+      return await this.readBatch();
+    } catch (error) {
+      this.failure = error;
+      await this.close().catch(() => undefined);
+      throw error;
+    }
+  }
+
+  private async readBatch(): Promise<ResultBatch | null> {
     const handle = this.handle;
     if (handle === undefined) return null;
     const order = this.meta.order;

@@ -115,6 +115,27 @@ describe('estimate result files', () => {
     const wrongMeta = await readAll(file, { ...meta, partition: 2 }).catch((e: unknown) => e);
     expect((wrongMeta as QuernError).code).toBe('corrupt');
   }, 30_000);
+
+  test('a damaged block closes the reader, and every later call throws the same error', async () => {
+    const file = path.join(tempDir(), 'o.prob');
+    const meta: ResultMeta = { kind: 'probabilities', order: 2, partition: 0 };
+    const { ids, values } = randomRows(11, 5000, 2);
+    await writeRows(file, meta, ids, values);
+    const bytes = readFileSync(file);
+    bytes[bytes.length >> 1] ^= 0x10; // inside a block past the first
+    writeFileSync(file, bytes);
+    const reader = await ResultReader.open(file, meta);
+    let first: unknown;
+    try {
+      for (let batch = await reader.nextBatch(); batch !== null; batch = await reader.nextBatch());
+    } catch (error) {
+      first = error;
+    }
+    expect(first).toBeInstanceOf(QuernError);
+    expect((first as QuernError).code).toBe('corrupt');
+    await expect(reader.nextBatch()).rejects.toBe(first);
+    await reader.close(); // closing again is harmless
+  });
 });
 
 test('materialiseModel reads an in-memory model\'s source back into the same model', async () => {

@@ -71,12 +71,16 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
     }
     const unigrams = await ResultReader.open(path.join(jobDir, stage.unigrams.file), { kind: 'probabilities', order: 1, partition: RESULT_WHOLE_JOB }, stage.unigrams);
     let id = 0;
-    for (let batch = await unigrams.nextBatch(); batch !== null; batch = await unigrams.nextBatch()) {
-      for (let r = 0; r < batch.rows; r++) {
-        if (batch.ids[r] !== id + r) throw new QuernError('corrupt', `${unigrams.filePath}: row ${id + r} holds id ${batch.ids[r]}`);
+    try {
+      for (let batch = await unigrams.nextBatch(); batch !== null; batch = await unigrams.nextBatch()) {
+        for (let r = 0; r < batch.rows; r++) {
+          if (batch.ids[r] !== id + r) throw new QuernError('corrupt', `${unigrams.filePath}: row ${id + r} holds id ${batch.ids[r]}`);
+        }
+        yield { rows: batch.rows, ids: batch.ids, log10Prob: batch.values, log10BackOff: backOff.slice(id, id + batch.rows) };
+        id += batch.rows;
       }
-      yield { rows: batch.rows, ids: batch.ids, log10Prob: batch.values, log10BackOff: backOff.slice(id, id + batch.rows) };
-      id += batch.rows;
+    } finally {
+      await unigrams.close(); // read to its end it is closed already; a consumer that stops early leaves it open
     }
   }
 
@@ -90,13 +94,27 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
     const corrupt = (what: string): QuernError => new QuernError('corrupt', `${jobDir}: ${what}; re-run quern estimate with --restart`);
     const probFiles = byOrder('probabilities', order);
     const backOffFiles = byOrder('back-off', order);
-    const probs = mergeRuns((await Promise.all(probFiles.map(open))).map((r) => resultSource(r, order)), order);
-    const backOffs = mergeRuns((await Promise.all(backOffFiles.map(open))).map((r) => resultSource(r, order)), order);
+    // Every reader opened is closed in the end, whatever fails: a merge that was never started
+    // (the back-off weights', when the first probability batch is damaged) closes nothing itself.
+    const readers: ResultReader[] = [];
+    const openAll = async (records: ResultFileRecord[]): Promise<ResultReader[]> => {
+      const opened: ResultReader[] = [];
+      for (const record of records) {
+        const reader = await open(record);
+        readers.push(reader);
+        opened.push(reader);
+      }
+      return opened;
+    };
+    let probs: AsyncGenerator<RunBatch> | undefined;
+    let backOffs: AsyncGenerator<RunBatch> | undefined;
     let backOff: RunBatch | null = null;
     let b = 0;
     let rowsOut = 0;
     let backOffRows = 0;
     try {
+      probs = mergeRuns((await openAll(probFiles)).map((r) => resultSource(r, order)), order);
+      backOffs = mergeRuns((await openAll(backOffFiles)).map((r) => resultSource(r, order)), order);
       for await (const batch of probs) {
         const { keys, counts, recordCount } = batch;
         const log10BackOff = new Float64Array(recordCount);
@@ -123,8 +141,9 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
       const weightRows = backOffFiles.reduce((sum, f) => sum + f.rows, 0);
       if (rowsOut !== probRows || backOffRows !== weightRows) throw corrupt(`order ${order}: the partitions' results overlap (${rowsOut} of ${probRows} rows, ${backOffRows} of ${weightRows} back-off weights distinct)`);
     } finally {
-      await probs.return(undefined);
-      await backOffs.return(undefined);
+      await probs?.return(undefined);
+      await backOffs?.return(undefined);
+      await Promise.all(readers.map((reader) => reader.close().catch(() => undefined)));
     }
   }
 

@@ -228,6 +228,8 @@ export const PACK_READ_BYTES_MAX = 1 << 20;
  *  `npm run bench:query -- --model … --lanes 64,16,256` on the 1 GB benchmark model (load average
  *  6): 64 lanes ×1.48 the lookups/s of `step`, 16 and 256 lanes ×1.41. 64 states take ~13 KB. */
 export const SCORE_LANES = 64;
+/** Lanes at most of one batched scoring (each a DecoderState and a slot in a few typed arrays). */
+export const SCORE_LANES_MAX = 1 << 16;
 
 /** Bytes of a model file from which `quern score` scores sentences together (`stepBatch`) rather
  *  than one at a time (`step`): `npm run bench:query -- --against fa2a9de` (load average 4-6) found

@@ -1047,6 +1047,13 @@ export class PackedModel {
     return utf8.decode(this.vocabularyWords.subarray(this.vocabularyOffsets[id], this.vocabularyOffsets[id + 1]));
   }
 
+  /** The id a word of text is scored as: its id, or −1 when it is out of the vocabulary — then
+   *  scored as `<unk>` — which `<s>`, `</s>` and `<unk>` written in the text are too. */
+  textWordId(word: string): number {
+    const id = word === EOS || word === UNK ? -1 : this.wordId(word);
+    return id <= BOS_ID ? -1 : id;
+  }
+
   /** The id of a word (`<s>` is 0), or −1 when the word is not in the vocabulary. */
   wordId(word: string): number {
     if (this.scratch.length < word.length * 3) this.scratch = new Uint8Array(word.length * 3);
@@ -1591,8 +1598,8 @@ export class PackedModel {
       let oov = false;
       if (i === words.length) id = this.eosId;
       else {
-        id = word === EOS || word === UNK ? -1 : this.wordId(word);
-        if (id <= BOS_ID) {
+        id = this.textWordId(word);
+        if (id < 0) {
           id = this.unkId;
           oov = true;
         }

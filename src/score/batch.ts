@@ -5,10 +5,10 @@
  * lane whose sentence ends takes the next one. The numbers are those of scoring the sentences one at
  * a time with `step` (`scoreSentence`), token for token.
  */
-import { EOS, UNK } from '../corpus/vocabulary.ts';
+import { EOS } from '../corpus/vocabulary.ts';
 import { assert } from '../errors.ts';
 import type { DecoderState, PackedModel, SentenceScore, TokenScore } from '../pack/reader.ts';
-import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS, SCORE_LANES } from '../limits.ts';
+import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS, SCORE_LANES, SCORE_LANES_MAX } from '../limits.ts';
 
 /**
  * Scores `sentences` of word ids (ids in [1, V], `</s>`'s last: every id is a token to predict,
@@ -71,9 +71,6 @@ export function scoreIdSentences(
   }
 }
 
-/** Lanes at most (each a DecoderState of about 200 bytes and a few typed-array slots). */
-const SCORE_LANES_MAX = 1 << 16;
-
 /**
  * Scores tokenised sentences as `model.scoreSentence` does, one result each (the same tokens,
  * values and sums), but `lanes` sentences at a time (`scoreIdSentences`). An empty sentence scores
@@ -88,8 +85,8 @@ export function scoreSentences(model: PackedModel, sentences: readonly (readonly
     let oov = 0;
     for (let i = 0; i < words.length; i++) {
       const word = words[i];
-      let id = word === EOS || word === UNK ? -1 : model.wordId(word);
-      const unknown = id <= model.bosId;
+      let id = model.textWordId(word);
+      const unknown = id < 0;
       if (unknown) {
         id = model.unkId;
         oov++;

@@ -5,7 +5,8 @@
  *
  *   npm run bench:estimate -- [--job DIR | --bytes 200MB --order 5] [--methods m1,m2,…]
  *                             [--memory 2GiB] [--workers 2] [--baseline auto|yes|no]
- *                             [--against REV] [--repeat N] [--recount]
+ *                             [--against REV] [--repeat N] [--recount] [--huge-pages on|off|both]
+ *                             [--partition P]
  *
  * --job       a counted job directory to estimate. It is only read: every estimate runs in a shadow
  *             job under bench-out/work (copies of job.json, stats.json and the vocabulary, and a
@@ -26,6 +27,15 @@
  * --recount   also count the job's inputs again (same order, partitions, --memory, --workers) into a
  *             scratch job, measured in this run: a count time taken under the same load as the
  *             estimates, beside the one job.json recorded when the job was counted
+ * --huge-pages the environment of every command: `on` (default) as `quern` runs when started as a
+ *             program (bin/quern.js adds glibc's transparent-huge-page tunable, scripts/lib/quern-env.ts),
+ *             `off` without it, `both` each estimate (and recount) with and then without, alternating,
+ *             and the ratio of their medians
+ * --partition one partition P of the job estimated alone on the main thread of a process
+ *             (scripts/lib/estimate-partition-once.ts), its task timed by the process itself (wall and
+ *             CPU, the settings it reads first not included): the estimate's code measured without
+ *             the pool and the second core, which compares revisions (--against, --repeat) far more
+ *             steadily on a busy machine. No recount and no in-memory baseline in this mode.
  *
  * Every run is a child process under GNU time (scripts/lib/rss.ts): wall time and peak RSS. The
  * n-grams/s are the job's distinct n-grams of all orders over the wall time. The load average is
@@ -41,6 +51,7 @@ import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
 import { countTablesBytes } from '../src/estimate/from-store.ts';
 import type { JobManifest } from '../src/job/manifest.ts';
+import { hugePagesEnv } from './lib/quern-env.ts';
 import { GNU_TIME_PATH, measureCommand, type Measurement } from './lib/rss.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
@@ -68,6 +79,8 @@ function parseOptions() {
       recount: { type: 'boolean', default: false },
       against: { type: 'string' },
       repeat: { type: 'string', default: '1' },
+      'huge-pages': { type: 'string', default: 'on' },
+      partition: { type: 'string' },
     },
   });
   const memoryBytes = bytesIec.parse(values.memory);
@@ -75,9 +88,14 @@ function parseOptions() {
   const methods = values.methods.split(',');
   for (const m of methods) if (!METHODS.includes(m)) fail(`--methods: ${m} does not stream (choose among ${METHODS.join(', ')})`);
   if (!['auto', 'yes', 'no'].includes(values.baseline)) fail('--baseline: auto, yes or no');
+  const hugePages = values['huge-pages'];
+  if (!(hugePages === 'on' || hugePages === 'off' || hugePages === 'both')) fail('--huge-pages: on, off or both');
+  const hugePageModes: Array<'on' | 'off'> = hugePages === 'both' ? ['on', 'off'] : [hugePages];
   const repeat = Number(values.repeat);
   if (!(Number.isInteger(repeat) && repeat >= 1)) fail(`--repeat: a whole number ≥ 1 (got ${values.repeat})`);
-  return { ...values, memoryBytes, methods, repeat, workers: Number(values.workers), order: Number(values.order) };
+  const partition = values.partition === undefined ? null : Number(values.partition);
+  if (partition !== null && !(Number.isInteger(partition) && partition >= 0)) fail(`--partition: a partition number ≥ 0 (got ${values.partition})`);
+  return { ...values, memoryBytes, methods, repeat, hugePageModes, partition, workers: Number(values.workers), order: Number(values.order) };
 }
 type Options = ReturnType<typeof parseOptions>;
 
@@ -128,17 +146,39 @@ interface Row {
   loadAverage1m: number;
 }
 
-async function measure(what: string, method: string, command: string, args: string[], ngrams: number): Promise<Row> {
+/** A row's label suffix for a huge-page mode when both are measured. */
+function modeLabel(mode: 'on' | 'off', modes: ReadonlyArray<'on' | 'off'>): string {
+  return modes.length > 1 && mode === 'off' ? ', no huge pages' : '';
+}
+
+async function measure(what: string, method: string, command: string, args: string[], ngrams: number, env: NodeJS.ProcessEnv = hugePagesEnv('on')): Promise<Row> {
   const loadAverage1m = os.loadavg()[0];
   // An inner GNU time reports the command's CPU time; the outer one (measureCommand) wall and RSS.
   const cpuReport = join(os.tmpdir(), `bench-estimate-cpu-${process.pid}.txt`);
-  const measured: Measurement = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', '-o', cpuReport, command, ...args], { cwd: REPO, stdout: 'pipe', stderr: 'pipe' });
+  const measured: Measurement = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', '-o', cpuReport, command, ...args], { cwd: REPO, stdout: 'pipe', stderr: 'pipe', env });
   if (measured.exitCode !== 0) fail(`${what} ${method} failed (${measured.exitCode ?? measured.signal}): ${measured.stderr.trim()}`);
   const [user, system] = readFileSync(cpuReport, 'utf8').trim().split(/\s+/).slice(-2).map(Number);
   rmSync(cpuReport, { force: true });
   const cpuMs = Math.round((user + system) * 1000);
   const row = { what, method, wallMs: measured.elapsedMs, cpuMs, rssBytesMax: measured.rssBytesMax, ngramsPerSecond: (ngrams / measured.elapsedMs) * 1000, loadAverage1m };
-  log(`${what.padEnd(26)} ${method.padEnd(22)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  CPU ${(cpuMs / 1000).toFixed(1).padStart(7)} s  ${rate(row.ngramsPerSecond).padStart(8)} n-grams/s  peak RSS ${mib(row.rssBytesMax).padStart(9)}  load ${loadAverage1m.toFixed(1)}`);
+  log(`${what.padEnd(40)} ${method.padEnd(22)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  CPU ${(cpuMs / 1000).toFixed(1).padStart(7)} s  ${rate(row.ngramsPerSecond).padStart(8)} n-grams/s  peak RSS ${mib(row.rssBytesMax).padStart(9)}  load ${loadAverage1m.toFixed(1)}`);
+  return row;
+}
+
+/**
+ * --partition: one run of scripts/lib/estimate-partition-once.ts (from `tree`) on `shadow`, timed by
+ * the script itself; GNU time gives the peak RSS.
+ */
+async function measurePartition(what: string, method: string, tree: string, shadow: string, partition: number, env: NodeJS.ProcessEnv): Promise<Row> {
+  const loadAverage1m = os.loadavg()[0];
+  const script = join(tree, 'scripts/lib/estimate-partition-once.ts');
+  if (!existsSync(script)) fail(`${script} is missing: --partition needs a revision that has it (and stageInputs in src/estimate/stream-stage.ts)`);
+  const measured = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', process.execPath, '--import', 'tsx', script, shadow, method, String(partition)], { cwd: REPO, stdout: 'pipe', stderr: 'pipe', env });
+  if (measured.exitCode !== 0) fail(`${what} ${method} failed (${measured.exitCode ?? measured.signal}): ${measured.stderr.trim()}`);
+  const result = JSON.parse(measured.stdout.trim().split('\n').pop() as string) as { elapsedMs: number; cpuMs: number; files: Array<{ kind: string; rows: number }> };
+  const rowsDone = result.files.filter((f) => f.kind === 'probabilities').reduce((a, f) => a + f.rows, 0);
+  const row = { what, method, wallMs: result.elapsedMs, cpuMs: result.cpuMs, rssBytesMax: measured.rssBytesMax, ngramsPerSecond: (rowsDone / result.elapsedMs) * 1000, loadAverage1m };
+  log(`${what.padEnd(40)} ${method.padEnd(22)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  CPU ${(row.cpuMs / 1000).toFixed(1).padStart(7)} s  ${rate(row.ngramsPerSecond).padStart(8)} n-grams/s  peak RSS ${mib(row.rssBytesMax).padStart(9)}  load ${loadAverage1m.toFixed(1)}`);
   return row;
 }
 
@@ -230,9 +270,18 @@ async function main(): Promise<void> {
       const shadowAgainst = against === null ? null : makeShadow(job, 'against');
       if (shadowAgainst !== null) shadows.push(shadowAgainst);
       for (let run = 0; run < options.repeat; run++) {
-        rows.push(await measure('streaming', method, process.execPath, args(ONCE, shadow, method, 'streaming'), ngrams));
-        if (against !== null && shadowAgainst !== null) {
-          rows.push(await measure(`streaming ${options.against}`, method, process.execPath, args(once(against), shadowAgainst, method, 'streaming'), ngrams));
+        for (const mode of options.hugePageModes) {
+          const env = hugePagesEnv(mode);
+          const label = modeLabel(mode, options.hugePageModes);
+          if (options.partition !== null) {
+            rows.push(await measurePartition(`streaming${label}`, method, REPO, shadow, options.partition, env));
+            if (against !== null && shadowAgainst !== null) rows.push(await measurePartition(`streaming ${options.against}${label}`, method, against, shadowAgainst, options.partition, env));
+            continue;
+          }
+          rows.push(await measure(`streaming${label}`, method, process.execPath, args(ONCE, shadow, method, 'streaming'), ngrams, env));
+          if (against !== null && shadowAgainst !== null) {
+            rows.push(await measure(`streaming ${options.against}${label}`, method, process.execPath, args(once(against), shadowAgainst, method, 'streaming'), ngrams, env));
+          }
         }
       }
       if (shadowAgainst !== null) {
@@ -247,17 +296,24 @@ async function main(): Promise<void> {
     if (against !== null) rmSync(against, { recursive: true, force: true });
   }
   let recountPhaseMs: number | null = null;
-  if (options.recount) {
-    const scratch = join(BENCH_OUT, 'work', `recount-${process.pid}`);
-    rmSync(scratch, { recursive: true, force: true });
-    rows.push(await measure('quern count (same run)', '-', process.execPath, [QUERN_BIN, 'count', ...manifest.inputs.map((f) => f.path), '--job', scratch,
-      '--order', String(manifest.config.order), '--partitions', String(manifest.config.partitions), '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet'], ngrams));
-    recountPhaseMs = (JSON.parse(readFileSync(join(scratch, 'job.json'), 'utf8')) as JobManifest).stages.count.elapsedMs ?? null;
-    log(`quern count (same run): count stage (stageMs.count) ${((recountPhaseMs ?? 0) / 1000).toFixed(1)} s`);
-    rmSync(scratch, { recursive: true, force: true });
+  const recountPhases: Array<{ mode: 'on' | 'off'; countPhaseMs: number | null }> = [];
+  if (options.partition !== null) log(`--partition ${options.partition}: the rows are that partition's task alone, on one thread`);
+  if (options.recount && options.partition === null) {
+    for (const mode of options.hugePageModes) {
+      const scratch = join(BENCH_OUT, 'work', `recount-${process.pid}`);
+      rmSync(scratch, { recursive: true, force: true });
+      const label = modeLabel(mode, options.hugePageModes);
+      rows.push(await measure(`quern count (same run)${label}`, '-', process.execPath, [QUERN_BIN, 'count', ...manifest.inputs.map((f) => f.path), '--job', scratch,
+        '--order', String(manifest.config.order), '--partitions', String(manifest.config.partitions), '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet'], ngrams, hugePagesEnv(mode)));
+      const phaseMs = (JSON.parse(readFileSync(join(scratch, 'job.json'), 'utf8')) as JobManifest).stages.count.elapsedMs ?? null;
+      recountPhases.push({ mode, countPhaseMs: phaseMs });
+      if (recountPhaseMs === null) recountPhaseMs = phaseMs;
+      log(`quern count (same run)${label}: count stage (stageMs.count) ${((phaseMs ?? 0) / 1000).toFixed(1)} s`);
+      rmSync(scratch, { recursive: true, force: true });
+    }
   }
   const tablesBytes = countTablesBytes(distinct);
-  const baseline = options.baseline === 'yes' || (options.baseline === 'auto' && tablesBytes <= options.memoryBytes);
+  const baseline = options.partition === null && (options.baseline === 'yes' || (options.baseline === 'auto' && tablesBytes <= options.memoryBytes));
   if (baseline) {
     const shadow = makeShadow(job, 'in-memory');
     try {
@@ -276,9 +332,9 @@ async function main(): Promise<void> {
     lines.push([r.what, r.method, (r.wallMs / 1000).toFixed(1), (r.cpuMs / 1000).toFixed(1), rate(r.ngramsPerSecond), mib(r.rssBytesMax),
       `${(r.wallMs / countStageMs).toFixed(2)}×`, `${(r.wallMs / Math.max(1, countPhaseMs)).toFixed(2)}×`, r.loadAverage1m.toFixed(1)].join('\t'));
   }
-  const recount = rows.find((r) => r.what.startsWith('quern count'));
+  const recount = rows.find((r) => r.what === 'quern count (same run)');
   if (recount) {
-    for (const r of rows.filter((x) => x.what.startsWith('streaming'))) {
+    for (const r of rows.filter((x) => x.what.startsWith('streaming') && !x.what.endsWith(modeLabel('off', ['on', 'off'])))) {
       lines.push(`${r.what} ${r.method}: ${(r.wallMs / recount.wallMs).toFixed(2)}× the time of quern count measured in this run` +
         (recountPhaseMs === null ? '' : `, ${(r.wallMs / recountPhaseMs).toFixed(2)}× its count stage (stageMs.count ${(recountPhaseMs / 1000).toFixed(1)} s)`) +
         `; CPU ${(r.cpuMs / recount.cpuMs).toFixed(2)}× that of the whole quern count`);
@@ -294,6 +350,20 @@ async function main(): Promise<void> {
     }
     for (const { method, differences } of identical) lines.push(`${method}: results ${differences.length === 0 ? 'byte-identical' : 'DIFFER: ' + differences.join('; ')}`);
   }
+  if (options.hugePageModes.length > 1) {
+    const median = (xs: number[]) => [...xs].sort((x, y) => x - y)[Math.floor(xs.length / 2)];
+    const off = modeLabel('off', options.hugePageModes);
+    const pairs: Array<[string, string]> = [...options.methods.map((m): [string, string] => ['streaming', m]), ['quern count (same run)', '-']];
+    for (const [what, method] of pairs) {
+      const on = rows.filter((r) => r.what === what && r.method === method);
+      const without = rows.filter((r) => r.what === `${what}${off}` && r.method === method);
+      if (on.length === 0 || without.length === 0) continue;
+      const ratio = (key: 'wallMs' | 'cpuMs') => (median(on.map((r) => r[key])) / median(without.map((r) => r[key]))).toFixed(2);
+      lines.push(`${what} ${method}: with huge pages ${ratio('wallMs')}× the wall time, ${ratio('cpuMs')}× the CPU time without (medians of ${on.length} runs each, alternating)`);
+    }
+    const phases = recountPhases.map((r) => `${r.mode} ${((r.countPhaseMs ?? 0) / 1000).toFixed(1)} s`).join(', ');
+    if (recountPhases.length > 1) lines.push(`quern count (same run): count stage (stageMs.count) with huge pages ${phases}`);
+  }
   if (memoryRow) {
     const streamed = rows.find((r) => r.what === 'streaming' && r.method === 'modified-kneser-ney');
     if (streamed) lines.push(`modified Kneser-Ney, streaming vs in memory: ${(streamed.wallMs / memoryRow.wallMs).toFixed(2)}× the time, ${(streamed.rssBytesMax / memoryRow.rssBytesMax).toFixed(2)}× the peak RSS`);
@@ -301,7 +371,7 @@ async function main(): Promise<void> {
   process.stdout.write(lines.join('\n') + '\n');
   mkdirSync(BENCH_OUT, { recursive: true });
   const file = join(BENCH_OUT, `bench-estimate-${new Date().toISOString().replace(/[:.]/g, '-')}.json`);
-  writeFileSync(file, JSON.stringify({ benchmark: 'scripts/bench-estimate.ts', options, job, ngrams, distinct, countStageMs, countPhaseMs, recountPhaseMs, rows, identical }, null, 2) + '\n');
+  writeFileSync(file, JSON.stringify({ benchmark: 'scripts/bench-estimate.ts', options, job, ngrams, distinct, countStageMs, countPhaseMs, recountPhaseMs, recountPhases, rows, identical }, null, 2) + '\n');
   log(`results in ${file}`);
   if (identical.some((x) => x.differences.length > 0)) process.exit(1);
 }

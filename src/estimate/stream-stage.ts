@@ -32,7 +32,7 @@ import { checkCutoffs, estimateUnigrams, unigramLevel } from './back-off-form.ts
 import { vocabularySize } from './counts.ts';
 import type { KatzTallies } from './katz.ts';
 import { openJobModelSource } from './job-model-source.ts';
-import { planMethod, type OrderCountOfCounts, type PlannedRequest } from './method-plan.ts';
+import { planMethod, type MethodPlan, type OrderCountOfCounts, type PlannedRequest } from './method-plan.ts';
 import type { ModelSource } from './model-source.ts';
 import { ESTIMATE_DIR, partitionNeedBytes, partitionRowCounts, resultFilePath, type PartitionEstimateSettings } from './partition-estimate.ts';
 import { RESULT_WHOLE_JOB, ResultWriter } from './result-file.ts';
@@ -185,9 +185,21 @@ export async function estimateJobStreaming(request: StreamEstimateRequest): Prom
   }
 }
 
-async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
+/** What every partition's task needs, read from a counted job, and what the stage keys its results by. */
+export interface StageInputs {
+  settings: PartitionEstimateSettings;
+  plan: MethodPlan;
+  /** The estimate's key in job.json: method, options and the sha256 of stats.json. */
+  key: string;
+}
+
+/**
+ * Reads stats.json and the vocabulary of the counted job `jobDir`, plans the method and estimates
+ * the unigram level (from every partition's order-1 rows): the settings each partition's task gets.
+ * Exported for benchmarks that estimate one partition alone (scripts/lib/estimate-partition-once.ts).
+ */
+export async function stageInputs(job: JobManifest, jobDir: string, request: PlannedRequest): Promise<StageInputs> {
   const orderMax = job.config.order;
-  const partitions = job.config.partitions;
   const statsPath = path.join(jobDir, STATS_FILE);
   const statsText = await fsp.readFile(statsPath, 'utf8').catch((cause: unknown) => {
     throw new QuernError('io', `cannot read ${statsPath}: ${(cause as Error).message}`, { cause });
@@ -200,10 +212,21 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
   }
   const vocab = await readJobVocabulary(jobDir, job);
   const size = vocabularySize(vocab);
-  const cutoffs = checkCutoffs(request.request.cutoffs, orderMax);
+  const cutoffs = checkCutoffs(request.cutoffs, orderMax);
   const orders = statsCountOfCounts(stats);
-  const plan = planMethod(request.request, orders, size);
-  const key = estimateKey(request.request, cutoffs, createHash('sha256').update(statsText).digest('hex'));
+  const plan = planMethod(request, orders, size);
+  const key = estimateKey(request, cutoffs, createHash('sha256').update(statsText).digest('hex'));
+  const unigrams = await loadUnigrams(jobDir, job.config.partitions, plan.usesContinuation && orderMax > 1);
+  const level = unigramLevel(unigrams.ids, unigrams.counts, unigrams.continuation, size, orderMax === 1);
+  const unigramProb = estimateUnigrams(level, plan.ruleFor(level), size, plan.header.normalised);
+  return { settings: { request, orders, size, cutoffs, unigramProb }, plan, key };
+}
+
+async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
+  const orderMax = job.config.order;
+  const partitions = job.config.partitions;
+  const { settings, plan, key } = await stageInputs(job, jobDir, request.request);
+  const { size, unigramProb } = settings;
   const serial = pLimit(1); // job.json is written one write at a time
   const save = (): Promise<void> => serial(() => writeManifest(fs, jobDir, job));
 
@@ -218,10 +241,7 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
   await removeUnrecorded(jobDir, fs, stage);
   const partitionsBefore = stage.partitionsDone.length;
 
-  // ---- the unigram level (V rows, shared by every partition) ----
-  const unigrams = await loadUnigrams(jobDir, partitions, plan.usesContinuation && orderMax > 1);
-  const level = unigramLevel(unigrams.ids, unigrams.counts, unigrams.continuation, size, orderMax === 1);
-  const unigramProb = estimateUnigrams(level, plan.ruleFor(level), size, plan.header.normalised);
+  // ---- the unigram level (V rows, shared by every partition: estimated by stageInputs) ----
   if (stage.unigrams === undefined) {
     const file = resultFilePath('all', 'probabilities', 1);
     await fs.mkdir(path.dirname(path.join(jobDir, file)));
@@ -270,7 +290,6 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
   if (todo.length > 0 && orderMax > 1) {
     stage.status = 'running';
     await save();
-    const settings: PartitionEstimateSettings = { request: request.request, orders, size, cutoffs, unigramProb };
     const pool = request.pool ?? new WorkerPool(workers);
     progress.start(`estimating ${todo.length} partitions`, todo.length, 'tasks', 'n-grams');
     try {
@@ -303,7 +322,7 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
     parameters,
     normalised: plan.header.normalised,
     log10UnseenContextWeight: plan.header.log10UnseenContextWeight,
-    cutoffs,
+    cutoffs: settings.cutoffs,
     vocabularyCap: job.config.vocabCap.top === undefined && job.config.vocabCap.minCount === undefined ? null : job.config.vocabCap,
     order: orderMax,
   };

@@ -167,6 +167,14 @@ export const STORE_MAP_BYTES = 2 ** 40;
  *  reader needs one block in memory (≤ 8,192 × (1 + 5·order + 8) bytes ≈ 360 KiB at order 7). */
 export const RESULT_BLOCK_ROWS = 8192;
 
+/** Bytes of each buffer a result writer encodes its blocks into, written whole and then reused for
+ *  later blocks (a fresh buffer per block cost an allocation, page faults and a copy into one write
+ *  each): room for about three of the largest blocks, so that little of a buffer goes unused. */
+export const RESULT_ARENA_BYTES = 1 << 20;
+
+/** Result buffers a writer keeps for reuse once written (more in flight are let go). */
+export const RESULT_SPARE_ARENAS = 4;
+
 /** Rows of whole contexts the streaming estimator gathers before it applies the rule to them: large
  *  enough that a rule's setup (a closure, a few arrays) is amortised, small enough to stay in the
  *  caches. A context larger than this (at most V rows: its words are distinct) is taken whole. */

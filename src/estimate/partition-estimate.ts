@@ -30,7 +30,7 @@ import { ESTIMATE_WINDOW_BYTES_PER_ROW, ESTIMATE_WINDOW_ROWS } from '../limits.t
 import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
 import type { MergeProgress } from '../merge/merge-partition.ts';
 import { applyContextRule, contextLevel, log10BackOffOf } from './back-off-form.ts';
-import { ngramHash } from '../count/hash.ts';
+import { mix32 } from '../count/hash.ts';
 import type { KatzTallies } from './katz.ts';
 import { planMethod, type MethodPlan, type OrderCountOfCounts, type PlannedRequest } from './method-plan.ts';
 import { ResultWriter, type ResultKind } from './result-file.ts';
@@ -96,7 +96,7 @@ export function partitionNeedBytes(rows: number[], size: number): number {
   const tables = Math.max(0, Math.min(2, orderMax - 2));
   let window = 0;
   for (let m = 2; m <= orderMax; m++) window = Math.max(window, Math.min(rows[m - 1], ESTIMATE_WINDOW_ROWS + size) * (4 * m + ESTIMATE_WINDOW_BYTES_PER_ROW));
-  return tables * (tableBufferBytes(rows) + ProbabilityTable.stagingBytesFor(orderMax - 1)) + window;
+  return tables * (tableBufferBytes(rows) + ProbabilityTable.scratchBytesFor()) + window;
 }
 
 /**
@@ -118,6 +118,18 @@ function giveTableBuffer(buffer: ArrayBuffer): void {
   if (spareTableBuffers.length < 2) spareTableBuffers.push(buffer);
 }
 
+/**
+ * A ProbabilityTable's hash of the row ids[offset .. offset+order): the ids multiplied in one after
+ * another, then murmur3's finaliser — one multiplication per id, where the counters' ngramHash
+ * (count/hash.ts) mixes after every id to be extendable leftwards, which a table never needs. The
+ * slots a row lands in do not change what the table answers, only how fast.
+ */
+function tableHash(ids: Uint32Array, offset: number, order: number): number {
+  let h = 0x3c6ef372;
+  for (let j = 0; j < order; j++) h = Math.imul(h ^ ids[offset + j], 0x9e3779b1);
+  return mix32(h);
+}
+
 /** Rows a ProbabilityTable inserts, or looks up, together. */
 const TABLE_BATCH_ROWS = 1024;
 
@@ -130,8 +142,8 @@ const TABLE_SLOTS_PER_ROW = 1.5;
  * and its probability side by side, so that a lookup mostly reads one cache line. An empty slot
  * holds NaN as its probability (a probability never is: applyContextRule checks them).
  *
- * Rows are staged by `push` and inserted a batch at a time, and lookups go a batch at a time too
- * (`suffixProbabilities`), in three passes: the home slots of the batch (arithmetic); a read of
+ * A window's kept rows are inserted straight from the window (`insertKept`), and a window's lookups
+ * made (`suffixProbabilities`), a batch of TABLE_BATCH_ROWS rows at a time in three passes: the home slots of the batch (arithmetic); a read of
  * each home slot's first and last word that only brings them into the cache (a loop without
  * branches on what it reads, so the processor has many of these misses under way at once); then
  * the probes proper, whose branches on the slots' contents now cost a cache hit when mispredicted
@@ -145,11 +157,8 @@ class ProbabilityTable {
   private readonly values: Float64Array;
   /** Rows inserted. */
   rows = 0;
-  private readonly stagedIds: Uint32Array;
-  private readonly stagedValues: Float64Array;
-  private staged = 0;
   /** Scratch of a batch: its home slots. */
-  private readonly hashes = new Int32Array(TABLE_BATCH_ROWS);
+  private readonly homes = new Int32Array(TABLE_BATCH_ROWS);
   /** What the cache-warming passes read (kept, so that the compiler cannot drop them). */
   private sink = 0;
 
@@ -164,8 +173,6 @@ class ProbabilityTable {
     this.ids = new Uint32Array(buffer, 0, this.slotCount * this.stride);
     this.values = new Float64Array(buffer, 0, (this.slotCount * this.stride) >> 1);
     for (let slot = 0; slot < this.slotCount; slot++) this.values[this.valueIndex(slot)] = NaN;
-    this.stagedIds = new Uint32Array(TABLE_BATCH_ROWS * order);
-    this.stagedValues = new Float64Array(TABLE_BATCH_ROWS);
   }
 
   static strideOf(order: number): number {
@@ -181,9 +188,9 @@ class ProbabilityTable {
     return ProbabilityTable.slotsFor(rows) * 4 * ProbabilityTable.strideOf(order);
   }
 
-  /** Bytes of a table's staging and scratch arrays (beside its buffer). */
-  static stagingBytesFor(order: number): number {
-    return TABLE_BATCH_ROWS * (4 * order + 12);
+  /** Bytes of a table's scratch array (its batch's home slots, beside its buffer). */
+  static scratchBytesFor(): number {
+    return TABLE_BATCH_ROWS * 4;
   }
 
   /** Index into `values` of a slot's probability. */
@@ -196,63 +203,62 @@ class ProbabilityTable {
     return Math.floor(((hash >>> 0) / 4294967296) * this.slotCount);
   }
 
-  /** Adds the row src[offset .. offset+order) with probability p (inserted by the next flush at the latest). */
-  push(src: Uint32Array, offset: number, p: number): void {
-    assert(this.rows + this.staged < this.capacity, 'a partition table holds at most the rows its store records');
-    const order = this.order;
-    const base = this.staged * order;
-    for (let j = 0; j < order; j++) this.stagedIds[base + j] = src[offset + j];
-    this.stagedValues[this.staged++] = p;
-    if (this.staged === TABLE_BATCH_ROWS) this.flush();
-  }
-
-  /** Inserts the staged rows (rows are distinct: each goes to a free slot). */
-  flush(): void {
-    const { order, stride, ids, values, hashes, stagedIds, stagedValues, slotCount } = this;
-    const staged = this.staged;
-    for (let r = 0; r < staged; r++) hashes[r] = this.home(ngramHash(stagedIds, r * order, order) | 0);
-    let sink = 0;
-    for (let r = 0; r < staged; r++) {
-      const base = hashes[r] * stride;
-      sink |= ids[base] ^ ids[base + stride - 1];
-    }
-    this.sink |= sink;
-    for (let r = 0; r < staged; r++) {
-      let slot = hashes[r];
-      for (;;) {
-        const value = values[(slot * stride + stride - 2) >> 1];
-        if (value !== value) break; // NaN: free
-        slot = slot + 1 === slotCount ? 0 : slot + 1;
+  /**
+   * Inserts the kept rows (kept[row] = 1) among rows [0, rows) of `src` (rows of this table's order,
+   * as a window holds them) with their probabilities `values[row]`, a batch at a time (module
+   * comment). Rows are distinct, so each goes to a free slot.
+   */
+  insertKept(src: Uint32Array, rows: number, kept: Uint8Array, values: Float64Array): void {
+    const { order, stride, ids, values: slotValues, homes, slotCount } = this;
+    let keptRows = 0;
+    for (let row = 0; row < rows; row++) keptRows += kept[row];
+    assert(this.rows + keptRows <= this.capacity, 'a partition table holds at most the rows its store records');
+    for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
+      const to = Math.min(rows, from + TABLE_BATCH_ROWS);
+      for (let row = from; row < to; row++) homes[row - from] = kept[row] === 1 ? this.home(tableHash(src, row * order, order)) : 0;
+      let sink = 0;
+      for (let row = from; row < to; row++) {
+        const base = homes[row - from] * stride;
+        sink |= ids[base] ^ ids[base + stride - 1];
       }
-      const base = slot * stride;
-      for (let j = 0; j < order; j++) ids[base + j] = stagedIds[r * order + j];
-      values[(base + stride - 2) >> 1] = stagedValues[r];
+      this.sink |= sink;
+      for (let row = from; row < to; row++) {
+        if (kept[row] === 0) continue;
+        let slot = homes[row - from];
+        for (;;) {
+          const value = slotValues[(slot * stride + stride - 2) >> 1];
+          if (value !== value) break; // NaN: free
+          slot = slot + 1 === slotCount ? 0 : slot + 1;
+        }
+        const base = slot * stride;
+        for (let j = 0; j < order; j++) ids[base + j] = src[row * order + j];
+        slotValues[(base + stride - 2) >> 1] = values[row];
+      }
     }
-    this.rows += staged;
-    this.staged = 0;
+    this.rows += keptRows;
   }
 
   /**
    * lower[row] = the probability of the suffix w2 … wm of each kept row w1 … wm of `ids` (rows of
    * order m = this table's order + 1); throws `suffixMissing` for a kept row whose suffix is not in
-   * the table. The staged rows must have been flushed.
+   * the table.
    */
   suffixProbabilities(ids: Uint32Array, m: number, rows: number, kept: Uint8Array, lower: Float64Array, store: PartitionStore): void {
-    assert(this.order === m - 1 && this.staged === 0, 'the suffixes of order m are the inserted rows of order m − 1');
-    const { order, stride, ids: tableIds, values, hashes, slotCount } = this;
+    assert(this.order === m - 1, 'the suffixes of order m are the inserted rows of order m − 1');
+    const { order, stride, ids: tableIds, values, homes, slotCount } = this;
     for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
       const to = Math.min(rows, from + TABLE_BATCH_ROWS);
-      for (let row = from; row < to; row++) hashes[row - from] = kept[row] === 1 ? this.home(ngramHash(ids, row * m + 1, order) | 0) : 0;
+      for (let row = from; row < to; row++) homes[row - from] = kept[row] === 1 ? this.home(tableHash(ids, row * m + 1, order)) : 0;
       let sink = 0;
       for (let row = from; row < to; row++) {
-        const base = hashes[row - from] * stride;
+        const base = homes[row - from] * stride;
         sink |= tableIds[base] ^ tableIds[base + stride - 1];
       }
       this.sink |= sink;
       for (let row = from; row < to; row++) {
         if (kept[row] === 0) continue;
         const key = row * m + 1;
-        let slot = hashes[row - from];
+        let slot = homes[row - from];
         for (;;) {
           const base = slot * stride;
           let difference = 0;
@@ -468,9 +474,9 @@ async function estimateOrder(
       for (let row = start; row < end; row++) {
         if (kept[row] === 0) continue;
         probWriter.add(ids, row * m, Math.log10(prob[row]));
-        if (current !== null) current.push(ids, row * m, prob[row]);
       }
     }
+    if (current !== null) current.insertKept(ids, rows, kept, prob);
     onRows(rows);
   };
 
@@ -521,7 +527,6 @@ async function estimateOrder(
     }
     if (contBatch !== null) throw corruptContinuation(store, m);
     if (window.rows > 0) process(window.rows);
-    current?.flush();
     await probWriter.drain();
     await bowWriter.drain();
   } finally {

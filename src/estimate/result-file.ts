@@ -19,7 +19,7 @@ import { crc32 } from 'node:zlib';
 import { assert, QuernError } from '../errors.ts';
 import type { WritableFile } from '../job/fsio.ts';
 import { openForReading, readFullyAt } from '../job/file-read.ts';
-import { ORDER_MAX, RESULT_BLOCK_ROWS } from '../limits.ts';
+import { ORDER_MAX, RESULT_ARENA_BYTES, RESULT_BLOCK_ROWS, RESULT_SPARE_ARENAS } from '../limits.ts';
 import { putVarU32, readVarU32, DecodeFailure } from '../count/block-codec.ts';
 
 export const RESULT_FORMAT_VERSION = 1;
@@ -54,6 +54,13 @@ export interface ResultBatch {
 function blockBytesMax(order: number, rows: number): number {
   return BLOCK_FIXED_BYTES + 4 * order + rows * (1 + 5 * order) + 8 * rows;
 }
+assert(blockBytesMax(ORDER_MAX, RESULT_BLOCK_ROWS) <= RESULT_ARENA_BYTES, 'a result buffer holds the largest block');
+
+/** Bytes to write, in order; `arena` is the buffer they lie in when it may be reused once written. */
+interface PendingWrite {
+  data: Buffer;
+  arena: Buffer | null;
+}
 
 function encodeHeader(meta: ResultMeta): Buffer {
   const head = Buffer.alloc(RESULT_HEADER_BYTES);
@@ -80,8 +87,13 @@ export class ResultWriter {
   private readonly ids: Uint32Array;
   private readonly values: Float64Array;
   private staged = 0;
-  private pending: Buffer[] = [];
+  private pending: PendingWrite[] = [];
   private pendingBytes = 0;
+  /** The buffer blocks are encoded into (bytes [0, arenaUsed) of it not yet pending), and buffers
+   *  written already, for reuse. */
+  private arena: Buffer | null = null;
+  private arenaUsed = 0;
+  private readonly spareArenas: Buffer[] = [];
   private readonly headerCrc: number;
   private bytes = 0;
   /** The writes started, chained; and the bytes they hold that are not yet written. */
@@ -102,8 +114,28 @@ export class ResultWriter {
   }
 
   private push(bytes: Buffer): void {
-    this.pending.push(bytes);
+    this.sealArena();
+    this.pending.push({ data: bytes, arena: null });
     this.pendingBytes += bytes.length;
+  }
+
+  /** Bytes of the arena for a block of up to `bytesMax` bytes (a fresh or spare arena when full). */
+  private arenaFor(bytesMax: number): Buffer {
+    if (this.arena !== null && this.arenaUsed + bytesMax > this.arena.length) this.sealArena();
+    if (this.arena === null) {
+      this.arena = this.spareArenas.pop() ?? Buffer.allocUnsafeSlow(RESULT_ARENA_BYTES);
+      this.arenaUsed = 0;
+    }
+    return this.arena.subarray(this.arenaUsed, this.arenaUsed + bytesMax);
+  }
+
+  /** Queues the encoded part of the arena for writing; the next block takes another arena. */
+  private sealArena(): void {
+    if (this.arena === null) return;
+    if (this.arenaUsed > 0) this.pending.push({ data: this.arena.subarray(0, this.arenaUsed), arena: this.arena });
+    else this.spareArenas.push(this.arena);
+    this.arena = null;
+    this.arenaUsed = 0;
   }
 
   /** Bytes encoded but not yet written. */
@@ -111,18 +143,14 @@ export class ResultWriter {
     return this.pendingBytes;
   }
 
-  /** Adds the row ids[offset .. offset+order) with `value`. */
+  /**
+   * Adds the row ids[offset .. offset+order) with `value`. That rows strictly increase is asserted
+   * when their block is encoded (the delta coding compares each row with the one before anyway).
+   */
   add(ids: Uint32Array, offset: number, value: number): void {
     const order = this.meta.order;
-    if (this.rows > 0) {
-      let j = 0;
-      while (j < order && ids[offset + j] === this.last[j]) j++;
-      if (j === order || ids[offset + j] < this.last[j]) assert(false, `result rows of order ${order} strictly increase`);
-    }
-    for (let j = 0; j < order; j++) {
-      this.last[j] = ids[offset + j];
-      this.ids[this.staged * order + j] = ids[offset + j];
-    }
+    const base = this.staged * order;
+    for (let j = 0; j < order; j++) this.ids[base + j] = ids[offset + j];
     this.values[this.staged++] = value;
     this.rows++;
     if (this.staged === RESULT_BLOCK_ROWS) this.encodeStaged();
@@ -133,7 +161,14 @@ export class ResultWriter {
     if (rows === 0) return;
     const order = this.meta.order;
     const ids = this.ids;
-    const buf = Buffer.allocUnsafe(blockBytesMax(order, rows));
+    const last = this.last;
+    if (this.rows > rows) {
+      // The block's first row against the previous block's last.
+      let j = 0;
+      while (j < order && ids[j] === last[j]) j++;
+      if (j === order || ids[j] < last[j]) assert(false, `result rows of order ${order} strictly increase`);
+    }
+    const buf = this.arenaFor(blockBytesMax(order, rows));
     buf.writeUInt32LE(rows, 4);
     for (let j = 0; j < order; j++) buf.writeUInt32LE(ids[j], BLOCK_FIXED_BYTES + 4 * j);
     const idStart = BLOCK_FIXED_BYTES + 4 * order;
@@ -142,7 +177,8 @@ export class ResultWriter {
       const base = r * order;
       const prev = base - order;
       let shared = 0;
-      while (ids[base + shared] === ids[prev + shared]) shared++;
+      while (shared < order && ids[base + shared] === ids[prev + shared]) shared++;
+      if (shared === order || ids[base + shared] < ids[prev + shared]) assert(false, `result rows of order ${order} strictly increase`);
       buf[p++] = shared;
       p = putVarU32(buf, p, ids[base + shared] - ids[prev + shared]);
       for (let j = shared + 1; j < order; j++) p = putVarU32(buf, p, ids[base + j]);
@@ -152,24 +188,27 @@ export class ResultWriter {
     buf.set(valueBytes, p);
     p += rows * 8;
     buf.writeUInt32LE(crc32(buf.subarray(4, p)), 0);
-    this.push(buf.subarray(0, p));
+    this.arenaUsed += p;
+    this.pendingBytes += p;
+    for (let j = 0; j < order; j++) last[j] = ids[(rows - 1) * order + j];
     this.staged = 0;
   }
 
   /** Starts writing the encoded blocks; waits while more than RESULT_WRITE_AHEAD_BYTES are under way. */
   async drain(): Promise<void> {
-    if (this.pending.length > 0) {
-      const data = this.pending.length === 1 ? this.pending[0] : Buffer.concat(this.pending, this.pendingBytes);
-      this.pending = [];
-      this.bytes += this.pendingBytes;
-      this.writingBytes += this.pendingBytes;
-      this.pendingBytes = 0;
+    this.sealArena();
+    for (const { data, arena } of this.pending) {
       this.writing = this.writing.then(async () => {
         await this.file.write(data);
         this.writingBytes -= data.length;
+        if (arena !== null && this.spareArenas.length < RESULT_SPARE_ARENAS) this.spareArenas.push(arena);
       });
       this.writing.catch(() => undefined); // awaited (and so reported) by the next drain or finish
     }
+    this.pending = [];
+    this.bytes += this.pendingBytes;
+    this.writingBytes += this.pendingBytes;
+    this.pendingBytes = 0;
     if (this.writingBytes > RESULT_WRITE_AHEAD_BYTES) await this.writing;
   }
 

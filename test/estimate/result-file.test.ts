@@ -79,12 +79,19 @@ describe('estimate result files', () => {
     expect((await readAll(file, meta, written)).values).toEqual([]);
   });
 
-  test('the writer refuses rows out of order (an assertion: a programmer error)', async () => {
+  test('the writer refuses rows out of order, within a block and across blocks, when it encodes them (an assertion: a programmer error)', async () => {
     const file = path.join(tempDir(), 'o.prob');
     await expect(writeFileThrough(nodeFs, file, async (out) => {
       const writer = new ResultWriter(out, { kind: 'probabilities', order: 2, partition: 0 });
       writer.add(Uint32Array.of(1, 5), 0, -1);
       writer.add(Uint32Array.of(1, 5), 0, -1);
+      await writer.finish();
+    })).rejects.toThrow(/strictly increase/);
+    await expect(writeFileThrough(nodeFs, file, async (out) => {
+      const writer = new ResultWriter(out, { kind: 'probabilities', order: 2, partition: 0 });
+      for (let i = 0; i < RESULT_BLOCK_ROWS; i++) writer.add(Uint32Array.of(1, i + 1), 0, -1);
+      writer.add(Uint32Array.of(0, 9), 0, -1); // below the previous block's last row
+      await writer.finish();
     })).rejects.toThrow(/strictly increase/);
   });
 

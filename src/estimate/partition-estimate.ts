@@ -204,6 +204,22 @@ class ProbabilityTable {
   }
 
   /**
+   * The first two passes over a batch (module comment): homes[row − from] = the home slot of the
+   * ids src[row·rowLength + offset ..][0 .. order) of each kept row in [from, to); then a read of
+   * each home slot that only brings it into the cache.
+   */
+  private locateBatch(src: Uint32Array, rowLength: number, offset: number, from: number, to: number, kept: Uint8Array): void {
+    const { order, stride, ids, homes } = this;
+    for (let row = from; row < to; row++) homes[row - from] = kept[row] === 1 ? this.home(tableHash(src, row * rowLength + offset, order)) : 0;
+    let sink = 0;
+    for (let row = from; row < to; row++) {
+      const base = homes[row - from] * stride;
+      sink |= ids[base] ^ ids[base + stride - 1];
+    }
+    this.sink |= sink;
+  }
+
+  /**
    * Inserts the kept rows (kept[row] = 1) among rows [0, rows) of `src` (rows of this table's order,
    * as a window holds them) with their probabilities `values[row]`, a batch at a time (module
    * comment). Rows are distinct, so each goes to a free slot.
@@ -215,13 +231,7 @@ class ProbabilityTable {
     assert(this.rows + keptRows <= this.capacity, 'a partition table holds at most the rows its store records');
     for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
       const to = Math.min(rows, from + TABLE_BATCH_ROWS);
-      for (let row = from; row < to; row++) homes[row - from] = kept[row] === 1 ? this.home(tableHash(src, row * order, order)) : 0;
-      let sink = 0;
-      for (let row = from; row < to; row++) {
-        const base = homes[row - from] * stride;
-        sink |= ids[base] ^ ids[base + stride - 1];
-      }
-      this.sink |= sink;
+      this.locateBatch(src, order, 0, from, to, kept);
       for (let row = from; row < to; row++) {
         if (kept[row] === 0) continue;
         let slot = homes[row - from];
@@ -248,13 +258,7 @@ class ProbabilityTable {
     const { order, stride, ids: tableIds, values, homes, slotCount } = this;
     for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
       const to = Math.min(rows, from + TABLE_BATCH_ROWS);
-      for (let row = from; row < to; row++) homes[row - from] = kept[row] === 1 ? this.home(tableHash(ids, row * m + 1, order)) : 0;
-      let sink = 0;
-      for (let row = from; row < to; row++) {
-        const base = homes[row - from] * stride;
-        sink |= tableIds[base] ^ tableIds[base + stride - 1];
-      }
-      this.sink |= sink;
+      this.locateBatch(ids, m, 1, from, to, kept);
       for (let row = from; row < to; row++) {
         if (kept[row] === 0) continue;
         const key = row * m + 1;

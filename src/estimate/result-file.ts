@@ -180,8 +180,15 @@ export class ResultWriter {
       while (shared < order && ids[base + shared] === ids[prev + shared]) shared++;
       if (shared === order || ids[base + shared] < ids[prev + shared]) assert(false, `result rows of order ${order} strictly increase`);
       buf[p++] = shared;
-      p = putVarU32(buf, p, ids[base + shared] - ids[prev + shared]);
-      for (let j = shared + 1; j < order; j++) p = putVarU32(buf, p, ids[base + j]);
+      // One-byte varints (most deltas, and the ids of frequent words) written here; longer ones by putVarU32.
+      const delta = ids[base + shared] - ids[prev + shared];
+      if (delta < 0x80) buf[p++] = delta;
+      else p = putVarU32(buf, p, delta);
+      for (let j = shared + 1; j < order; j++) {
+        const id = ids[base + j];
+        if (id < 0x80) buf[p++] = id;
+        else p = putVarU32(buf, p, id);
+      }
     }
     buf.writeUInt32LE(p - idStart, 8);
     const valueBytes = new Uint8Array(this.values.buffer, 0, rows * 8);

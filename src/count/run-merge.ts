@@ -8,7 +8,7 @@
  * generator only when the output batch is full or a run needs its next block.
  */
 import { assert } from '../errors.ts';
-import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX } from '../limits.ts';
+import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX, VOCAB_TYPES_MAX } from '../limits.ts';
 import type { RunBatch } from './run-file.ts';
 
 /** Anything that yields sorted batches of one order: a run file, or a partition of the store. */
@@ -20,6 +20,10 @@ export interface BatchSource {
   nextBatch(): Promise<RunBatch | null>;
   close(): Promise<void>;
 }
+
+/** The head of a used-up source in every word: above every word id (VOCAB_TYPES_MAX). */
+const EXHAUSTED_ID = 0xffff_ffff;
+assert(VOCAB_TYPES_MAX < EXHAUSTED_ID, 'a used-up source sorts above every row');
 
 /** `fill` stopped because every run is used up. */
 const FILL_DONE = -1;
@@ -33,7 +37,8 @@ class LoserTreeMerger {
   /** Current row of each source, row-major: source s at heads[s*order ..]. */
   readonly heads: Uint32Array;
   readonly headCounts: Float64Array;
-  /** 1 when a source has no rows left: it sorts above every row. */
+  /** 1 when a source has no rows left: its head is then EXHAUSTED_ID in every word, which sorts
+   *  above every row (word ids are below VOCAB_TYPES_MAX), so comparisons need no check for it. */
   readonly exhausted: Uint8Array;
   /** tree[0] is the winner (smallest head); tree[1..k) hold the losers at the internal nodes. */
   readonly tree: Int32Array;
@@ -67,6 +72,7 @@ class LoserTreeMerger {
     this.rowIndexes[s] = 0;
     if (batch === null) {
       this.exhausted[s] = 1;
+      this.heads.fill(EXHAUSTED_ID, s * this.order, (s + 1) * this.order);
       return;
     }
     this.heads.set(batch.keys.subarray(0, this.order), s * this.order);
@@ -75,9 +81,6 @@ class LoserTreeMerger {
 
   /** True when source a's head sorts before source b's (ties by source index, for determinism). */
   less(a: number, b: number): boolean {
-    const exhausted = this.exhausted;
-    if (exhausted[a] !== 0) return false;
-    if (exhausted[b] !== 0) return true;
     const heads = this.heads;
     let i = a * this.order;
     let j = b * this.order;
@@ -134,6 +137,8 @@ class LoserTreeMerger {
     for (;;) {
       const w = this.tree[0];
       if (this.sourceCount === 0 || this.exhausted[w] !== 0) {
+        // The winner sorts above every row only when every source is used up.
+        for (let s = 0; s < this.sourceCount; s++) if (this.exhausted[s] === 0) assert(false, `${this.sourceNames[s]} holds a row of ids ${EXHAUSTED_ID}, above every word id`);
         this.outSize = outSize;
         return FILL_DONE;
       }

@@ -17,6 +17,7 @@
  */
 import { assert } from '../errors.ts';
 import { partitionOf } from './hash.ts';
+import { scatterRows } from './radix.ts';
 import type { NgramCounter } from './counter.ts';
 
 /** Widest radix digit: 2^11 histogram buckets stay in the first-level cache. */
@@ -210,10 +211,7 @@ function radixPass(
     histogram[b] = offset;
     offset += n;
   }
-  for (let from = begin * stride, last = end * stride; from < last; from += stride) {
-    const to = histogram[(source[from + word] >>> shift) & mask]++ * stride;
-    for (let w = 0; w < stride; w++) target[to + w] = source[from + w];
-  }
+  scatterRows(source, target, begin, end, stride, word, shift, mask, histogram);
   return true;
 }
 

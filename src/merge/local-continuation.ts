@@ -15,6 +15,7 @@
  */
 import { assert } from '../errors.ts';
 import type { BatchSource } from '../count/run-merge.ts';
+import { scatterRows } from '../count/radix.ts';
 import type { RunBatch } from '../count/run-file.ts';
 import type { PartitionStore } from './store.ts';
 
@@ -102,11 +103,7 @@ export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, wid
         sum += c;
       }
       if (skip) continue;
-      for (let r = 0; r < n; r++) {
-        const from = r * width;
-        const to = histograms[at + ((src[from + k] >>> shift) & mask)]++ * width;
-        for (let j = 0; j < width; j++) dst[to + j] = src[from + j];
-      }
+      scatterRows(src, dst, 0, n, width, k, shift, mask, histograms.subarray(at, at + buckets));
       const t = src;
       src = dst;
       dst = t;

@@ -207,6 +207,10 @@ export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGe
     for (const reader of readers) {
       assert(reader.order === order, `source ${reader.name} has order ${reader.order}, merge expects ${order}`);
     }
+    if (readers.length === 1) {
+      yield* passThrough(readers[0], order);
+      return;
+    }
     const merger = new LoserTreeMerger(readers.map((reader) => reader.name), order);
     const nextBatch = async (s: number): Promise<RunBatch | null> => {
       let batch: RunBatch | null;
@@ -229,5 +233,40 @@ export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGe
     if (merger.outSize > 0) yield merger.takeOutput();
   } finally {
     await Promise.all(readers.map((reader) => reader.close().catch(() => {})));
+  }
+}
+
+/**
+ * The merge of a single source: its rows, checked to increase strictly (every source's rows do: a
+ * run file's, a store's, the local continuation counts'; equal rows within one source are out of
+ * order), copied out in batches of at most MERGE_BATCH_RECORDS — the loser tree's per-row work
+ * without the tree. The continuation counts of orders ≥ 2 come from one source per partition
+ * (local-continuation.ts).
+ */
+async function* passThrough(source: BatchSource, order: number): AsyncGenerator<RunBatch> {
+  const last = new Uint32Array(order);
+  let rows = 0;
+  for (;;) {
+    const batch = await source.nextBatch();
+    if (batch === null) return;
+    const { keys, counts, recordCount } = batch;
+    if (recordCount === 0) continue;
+    // Each row against the row before it: the previous batch's last row for the first.
+    let j = 0;
+    if (rows > 0) {
+      while (j < order && keys[j] === last[j]) j++;
+      if (j === order || keys[j] < last[j]) assert(false, `merge input out of order: a row of ${source.name} is not above the row before it`);
+    }
+    for (let at = order, end = recordCount * order; at < end; at += order) {
+      j = 0;
+      while (j < order && keys[at + j] === keys[at - order + j]) j++;
+      if (j === order || keys[at + j] < keys[at - order + j]) assert(false, `merge input out of order: a row of ${source.name} is not above the row before it`);
+    }
+    for (let first = 0; first < recordCount; first += MERGE_BATCH_RECORDS) {
+      const end = Math.min(recordCount, first + MERGE_BATCH_RECORDS);
+      yield { keys: keys.slice(first * order, end * order), counts: counts.slice(first, end), recordCount: end - first };
+    }
+    last.set(keys.subarray((recordCount - 1) * order, recordCount * order));
+    rows += recordCount;
   }
 }

@@ -77,12 +77,6 @@ export const RUN_WRITE_BUFFER_BYTES = 1 << 20;
 /** Largest count (and sum of counts) in a run file: counts are JS numbers, exact up to 2^53 − 1. */
 export const RUN_COUNT_MAX = Number.MAX_SAFE_INTEGER;
 
-/** Largest group of chunks the count pass makes a unit of work (count/chunk-groups.ts): a worker
- *  spills at the end of each group, so fewer, larger groups mean fewer runs per partition to merge
- *  and fewer copies of the frequent n-grams in them; 128 MiB bounds the work a crash can lose to
- *  about half a minute of counting here. */
-export const COUNT_GROUP_BYTES_MAX = 128 << 20;
-
 /** Distinct n-grams per batch yielded by the k-way merge of runs: one block's worth, so a merge
  *  batch is ~160 KiB at order 3 and downstream writers get large, regular units. */
 export const MERGE_BATCH_RECORDS = 8192;

@@ -5,25 +5,23 @@
  * of 1 MB: 9,600 files at order 3) and the merge read them all. Consecutive chunks are grouped up to
  * a byte target instead; a chunk larger than the target is a group of its own.
  *
- * The target is each worker's share of the input (one group per worker: every group ends with a
- * spill, and each spill is one more run per order and partition for the merge, holding one more copy
- * of every frequent n-gram), at most COUNT_GROUP_BYTES_MAX. Grouping changes which run files hold an n-gram, never its count: the merged store is the same
- * whatever the groups.
+ * The target is the planner's chunk size, but small enough that every worker gets several groups
+ * (the last groups to finish decide the stage's end). Grouping changes which run files hold an
+ * n-gram, never its count: the merged store is the same whatever the groups.
  */
 import { assert } from '../errors.ts';
-import { COUNT_GROUP_BYTES_MAX } from '../limits.ts';
 import type { Chunk } from '../corpus/types.ts';
 
-/** Groups per worker the target aims at. */
-export const GROUPS_PER_WORKER_MIN = 1;
+/** Groups per worker the target aims at, so that no worker idles long at the end of the pass. */
+export const GROUPS_PER_WORKER_MIN = 4;
 
-/** The byte target of a group: each worker's share of the input, at most COUNT_GROUP_BYTES_MAX
- *  (a chunk larger than that is a group of its own). `chunkBytes` is checked, not used. */
+/** The byte target of a group: the chunk size, or less when that leaves a worker few groups. */
 export function groupBytesTarget(totalBytes: number, workers: number, chunkBytes: number): number {
   assert(Number.isInteger(workers) && workers >= 1, `workers ${workers} must be a positive integer`);
   assert(chunkBytes >= 1, `chunk bytes ${chunkBytes} must be positive`);
-  return Math.max(1, Math.min(COUNT_GROUP_BYTES_MAX, Math.ceil(totalBytes / (GROUPS_PER_WORKER_MIN * workers))));
+  return Math.max(1, Math.min(chunkBytes, Math.ceil(totalBytes / (GROUPS_PER_WORKER_MIN * workers))));
 }
+
 /** Splits `chunks` (in plan order) into runs of consecutive chunks of at most `targetBytes` bytes
  *  together, or of one chunk larger than that. */
 export function groupChunks(chunks: readonly Chunk[], targetBytes: number): Chunk[][] {

@@ -1,7 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import { GROUPS_PER_WORKER_MIN, groupBytesTarget, groupChunks } from '../../src/count/chunk-groups.ts';
 import type { Chunk } from '../../src/corpus/types.ts';
-import { COUNT_GROUP_BYTES_MAX } from '../../src/limits.ts';
 
 /** Chunks of the given sizes, one per file, in plan order. */
 function chunksOf(sizes: number[]): Chunk[] {
@@ -33,10 +32,9 @@ describe('groupChunks', () => {
 });
 
 describe('groupBytesTarget', () => {
-  it('is each worker\'s share of the input, at most COUNT_GROUP_BYTES_MAX', () => {
-    expect(groupBytesTarget(10 * 2 ** 30, 2, 32 << 20)).toBe(COUNT_GROUP_BYTES_MAX);
-    expect(groupBytesTarget(200_000_000, 2, 32 << 20)).toBe(100_000_000);
-    expect(groupBytesTarget(80, 2, 32 << 20)).toBe(40);
+  it('is the chunk size for a large input, less when the workers would get few groups', () => {
+    expect(groupBytesTarget(10 * 2 ** 30, 2, 32 << 20)).toBe(32 << 20);
+    expect(groupBytesTarget(80, 2, 32 << 20)).toBe(10);
     expect(groupBytesTarget(0, 2, 32 << 20)).toBe(1);
   });
 });

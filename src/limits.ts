@@ -116,11 +116,6 @@ export const COUNTER_LOG_ROWS_MIN = 1 << 12;
  *  small for a batch's room is still used sentence by sentence. */
 export const COUNTER_BATCH_POSITIONS = 1 << 14;
 
-/** N-grams of one order whose filter words and table home slots a counter reads ahead, branch-free,
- *  before it counts them (NgramCounter.addBatch): 1,024 touch at most 2,048 cache lines (128 KiB),
- *  which stay in the second-level cache until they are counted. */
-export const COUNTER_WARM_NGRAMS = 1 << 10;
-
 /** Seen-filter bits per log row of a counter of order ≥ 2, at least (rounded up to a power of two:
  *  4 to 8). With b bits per n-gram a filter with one hash function sends about 1 − e^(−1/b) of new
  *  n-grams (22 % at 4 bits, 12 % at 8) to the table instead of the log — a cost, never an error.

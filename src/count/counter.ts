@@ -24,7 +24,7 @@
  * grows the structures within its budget, and otherwise spills and clears the counter.
  */
 import { assert } from '../errors.ts';
-import { COUNTER_FILTER_BITS_PER_ENTRY, COUNTER_LOAD_MAX, COUNTER_LOG_ROWS_MIN, COUNTER_SLOTS_MIN, COUNTER_WARM_NGRAMS } from '../limits.ts';
+import { COUNTER_FILTER_BITS_PER_ENTRY, COUNTER_LOAD_MAX, COUNTER_LOG_ROWS_MIN, COUNTER_SLOTS_MIN } from '../limits.ts';
 
 /** Hash of the n-gram `keys[start .. start+order)` as the counters place it (`ngramHash`). */
 export type NgramHasher = (keys: Uint32Array, start: number, order: number) => number;
@@ -56,9 +56,6 @@ export class NgramCounter {
   logCount = 0;
   /** Where addBatch's warming read leaves its result, so that the read is not optimised away. */
   warmSink = 0;
-  /** addBatch's scratch: the batch's n-grams as offsets of their first id, and their hashes. */
-  private batchStarts = new Int32Array(0);
-  private batchHashes = new Int32Array(0);
   /** The seen-filter: bit h >>> filterShift. Empty when not logged. */
   private filter: Uint32Array;
   private filterShift: number;
@@ -238,41 +235,21 @@ export class NgramCounter {
     const log = this.log;
     const stride = this.stride;
     const logCapacity = log.length / stride;
-    const table = this.table;
-    const tableMask = this.mask;
     let logCount = this.logCount;
-    // The batch's n-grams in order, as (first id's offset, hash), without the sentences' gaps.
+    // First a branch-free read of every filter word the batch tests (and of a few unused slots'),
+    // so that their cache misses overlap instead of waiting one by one behind mispredicted branches.
     const positions = starts[last] - starts[first] - (last - first);
-    if (this.batchStarts.length < positions) {
-      this.batchStarts = new Int32Array(2 * positions);
-      this.batchHashes = new Int32Array(2 * positions);
-    }
-    const ats = this.batchStarts;
-    const hs = this.batchHashes;
-    let ngrams = 0;
+    let warm = 0;
+    for (let i = 0; i < positions; i++) warm ^= filter[(hashes[i] >>> filterShift) >>> 5];
+    this.warmSink = warm;
     let k = 0;
     for (let s = first; s < last; s++) {
       const start = starts[s];
       const length = starts[s + 1] - start;
       k += Math.min(order - 2, length - 1);
       for (let position = order - 1; position < length; position++) {
-        ats[ngrams] = start + position - order + 1;
-        hs[ngrams++] = hashes[k++];
-      }
-    }
-    for (let from = 0; from < ngrams; from += COUNTER_WARM_NGRAMS) {
-      const to = Math.min(ngrams, from + COUNTER_WARM_NGRAMS);
-      // First a branch-free read of the filter word and the table's home slot of each n-gram, so
-      // that their cache misses overlap instead of waiting one by one behind mispredicted branches.
-      let warm = 0;
-      for (let i = from; i < to; i++) {
-        const hash = hs[i];
-        warm ^= filter[(hash >>> filterShift) >>> 5] ^ table[(hash & tableMask) * stride];
-      }
-      this.warmSink = warm;
-      for (let i = from; i < to; i++) {
-        const at = ats[i];
-        const hash = hs[i];
+        const at = start + position - order + 1;
+        const hash = hashes[k++];
         const bit = hash >>> filterShift;
         const word = bit >>> 5;
         const mask = 1 << (bit & 31);

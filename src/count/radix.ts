@@ -2,9 +2,10 @@
  * The move step of an LSD radix pass over rows of `stride` 32-bit words, shared by the spill sort
  * (spill-sort.ts) and the local continuation sort (merge/local-continuation.ts).
  *
- * Rows are copied word by word; for the usual strides the copy is written out (a loop over a
- * stride known only at run time cost about 1.6× the time of the written-out copy in a micro
- * benchmark of 600,000 rows of 6 words). The result is the same either way.
+ * Rows are copied word by word; for the usual strides the copy is written out, since V8 does not
+ * unroll a loop over a stride known only at run time. The result is the same either way; what it
+ * gains is measured only together with the other count-speed changes (bench:count --against, see
+ * DEVELOPERS.md, Benchmarks).
  */
 
 /**

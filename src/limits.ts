@@ -85,9 +85,10 @@ export const COUNT_GROUP_BYTES_MAX = 128 << 20;
 
 /** Headroom on the counter memory a group of chunks is expected to need (chunk-groups.ts): the
  *  estimate counts the logs, filters and sort scratch, not the tables of repeated n-grams. A group
- *  is made only as large as fits a worker's budget with it: measured at order 5 on the 200 MB
- *  benchmark corpus, a group that overflowed the budget made the count stage 1.3-1.7× slower than
- *  groups that fit (the counters grow by doubling up to the budget, then spill mid-group). */
+ *  is made only as large as fits a worker's budget with it: one that overflows grows its counters
+ *  by doublings up to the budget and then spills mid-group, and one group per worker regardless of
+ *  the budget made the count stage slower at order 5 on the 200 MB benchmark corpus (a scratch
+ *  comparison, alternating, not a repo benchmark; DEVELOPERS.md, Benchmarks). */
 export const COUNT_GROUP_MEMORY_HEADROOM = 1.3;
 
 /** Distinct n-grams per batch yielded by the k-way merge of runs: one block's worth, so a merge

@@ -77,20 +77,6 @@ export const RUN_WRITE_BUFFER_BYTES = 1 << 20;
 /** Largest count (and sum of counts) in a run file: counts are JS numbers, exact up to 2^53 − 1. */
 export const RUN_COUNT_MAX = Number.MAX_SAFE_INTEGER;
 
-/** Largest group of chunks the count pass makes a unit of work (count/chunk-groups.ts): a worker
- *  spills at the end of each group, so fewer, larger groups mean fewer runs per partition to merge
- *  and fewer copies of the frequent n-grams in them; 128 MiB bounds the work a crash can lose to
- *  about half a minute of counting here. */
-export const COUNT_GROUP_BYTES_MAX = 128 << 20;
-
-/** Headroom on the counter memory a group of chunks is expected to need (chunk-groups.ts): the
- *  estimate counts the logs, filters and sort scratch, not the tables of repeated n-grams. A group
- *  is made only as large as fits a worker's budget with it: one that overflows grows its counters
- *  by doublings up to the budget and then spills mid-group, and one group per worker regardless of
- *  the budget made the count stage slower at order 5 on the 200 MB benchmark corpus (a scratch
- *  comparison, alternating, not a repo benchmark; DEVELOPERS.md, Benchmarks). */
-export const COUNT_GROUP_MEMORY_HEADROOM = 1.3;
-
 /** Distinct n-grams per batch yielded by the k-way merge of runs: one block's worth, so a merge
  *  batch is ~160 KiB at order 3 and downstream writers get large, regular units. */
 export const MERGE_BATCH_RECORDS = 8192;

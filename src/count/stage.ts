@@ -207,11 +207,7 @@ export async function countStage(ctx: StageContext, vocab: Vocabulary): Promise<
     ...(job.stages.vocab.tokens ? { tokenFiles: job.stages.vocab.tokens.files, tokenMaps: await readTokenMaps(jobDir, job) } : {}),
   };
   count.status = 'running';
-  // Predicted positions (tokens and sentence ends: every id's count but `<s>`'s) per input byte.
-  const positions = vocab.counts.reduce((sum, count, id) => (id === 0 ? sum : sum + count), 0);
-  const inputBytes = chunkBytes(job.chunks);
-  const positionsPerByte = inputBytes > 0 ? positions / inputBytes : 0;
-  const groups = groupChunks(todo, groupBytesTarget(chunkBytes(todo), workers, job.config.order, init.counterBytesMax!, positionsPerByte));
+  const groups = groupChunks(todo, groupBytesTarget(chunkBytes(todo), workers, job.config.chunkBytes));
   ctx.progress.start(`counting to order ${job.config.order}`, chunkBytes(todo));
   await ctx.pool.run<Chunk[], CountGroupDone, unknown>(init, groups, {
     message: (chunks) => ({ type: 'chunks', chunks }),

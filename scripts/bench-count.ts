@@ -5,6 +5,7 @@
  *
  *   npm run bench:count -- [--bytes 200MB] [--shape few-large|many-small|both] [--orders 3,5]
  *                          [--memory 2GiB] [--workers 2] [--corpus-dir DIR] [--seed 1] [--keep] [--skip-pipeline]
+ *                          [--against REV] [--repeat N]
  *
  * --bytes       corpus size, all shards together (default 200MB; 1GB for the large variant)
  * --shape       few-large (2 shards), many-small (200 shards) or both (default), one after the other
@@ -17,6 +18,14 @@
  * --seed        corpus seed (default 1)
  * --skip-pipeline  time quern alone: the store, memory and stage figures without the throughput
  *               ratio (for the 1 GB store measurement once the pipeline's time at that size is known)
+ * --against     a git revision: its src/ and bin/ are extracted (git archive) to a scratch folder, and
+ *               its `quern count` runs beside this checkout's on the same corpus, alternately, under
+ *               the same options; both jobs' stores must hold the same counts (a digest of the raw and
+ *               the continuation key spaces, src/merge/digest.ts) and the same stats.json, or the
+ *               benchmark stops with exit status 1. Prints this checkout's time over REV's, per run
+ *               and per stage (the medians of --repeat runs each)
+ * --repeat      runs of each quern (and of the --against one) per shape and order, alternating
+ *               (default 1); the pipeline runs once
  * --keep        keep quern's job directories and the pipeline's `uniq -c` output under
  *               bench-out/work/ (by default each is removed once its counts are checked; the corpus
  *               is always kept, so the next run can reuse it)
@@ -40,8 +49,8 @@
  * Results go to stdout as a table and to bench-out/bench-count-<timestamp>.json.
  */
 import bytesIec from 'bytes-iec';
-import { spawnSync } from 'node:child_process';
-import { createReadStream, existsSync, mkdirSync, readFileSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
+import { execFileSync, spawnSync } from 'node:child_process';
+import { createReadStream, existsSync, mkdirSync, readFileSync, renameSync, rmSync, statSync, symlinkSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import { basename, join, relative, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -52,6 +61,10 @@ import { AWK_PROGRAM } from '../test/support/reference-count.ts';
 import { tallyUniqCounts, type OrderTally } from './lib/bench-uniq-tally.ts';
 import { measureCommand, type Measurement } from './lib/rss.ts';
 import { SHAPE_SHARDS, shardName, type CorpusShape } from './lib/synthetic.ts';
+import { storeDigest } from '../src/merge/digest.ts';
+import { PartitionStore, partitionStoreDir, StoreSource } from '../src/merge/store.ts';
+import { mergeRuns } from '../src/count/run-merge.ts';
+import { createHash } from 'node:crypto';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
 const BENCH_OUT = join(REPO, 'bench-out');
@@ -84,6 +97,10 @@ interface Options {
   keep: boolean;
   /** Time quern alone (the store and memory figures; no throughput ratio). */
   skipPipeline: boolean;
+  /** A git revision whose quern count runs beside this checkout's, or null. */
+  against: string | null;
+  /** Runs of each quern per shape and order, alternating. */
+  repeat: number;
 }
 
 interface CorpusManifest {
@@ -135,6 +152,8 @@ interface QuernResult extends ToolResult {
   storeBytesPerNgram: number | null;
   /** Wall time of `quern report --json` on the finished job. */
   reportWallMs: number;
+  /** Which quern: 'this' checkout or the --against revision. */
+  build: string;
 }
 
 interface PairResult {
@@ -148,6 +167,8 @@ interface PairResult {
   ratio: number | null;
   targetRatio: number | null;
   targetMet: boolean | null;
+  /** --against: the runs of each build, alternating (this checkout's first in each pair). */
+  runs?: { this: QuernResult[]; against: QuernResult[] };
 }
 
 function fail(message: string): never {
@@ -171,6 +192,8 @@ function parseOptions(argv: string[]): Options {
         seed: { type: 'string', default: '1' },
         keep: { type: 'boolean', default: false },
         'skip-pipeline': { type: 'boolean', default: false },
+        against: { type: 'string' },
+        repeat: { type: 'string', default: '1' },
       },
     });
   } catch (error) {
@@ -196,7 +219,12 @@ function parseOptions(argv: string[]): Options {
   if (!Number.isSafeInteger(seed)) fail(`--seed must be an integer, got ${v.seed}`);
   const corpusDir = v['corpus-dir'] === undefined ? null : resolve(v['corpus-dir']);
   if (corpusDir !== null && shapes.length > 1) fail('--corpus-dir needs a single --shape (each shape has its own corpus)');
-  return { bytes: Math.floor(bytes), shapes, orders, memoryBytes: Math.floor(memoryBytes), workers, corpusDir, seed, keep: v.keep === true, skipPipeline: v['skip-pipeline'] === true };
+  const repeat = Number(v.repeat);
+  if (!Number.isInteger(repeat) || repeat < 1 || repeat > 20) fail(`--repeat must be an integer in [1, 20], got ${v.repeat}`);
+  return {
+    bytes: Math.floor(bytes), shapes, orders, memoryBytes: Math.floor(memoryBytes), workers, corpusDir, seed, keep: v.keep === true,
+    skipPipeline: v['skip-pipeline'] === true, against: v.against ?? null, repeat,
+  };
 }
 
 // ---- Corpus ----------------------------------------------------------------------------------
@@ -262,26 +290,81 @@ function checkMeasured(what: string, measured: Measurement): void {
   throw new Error(`${what} failed (${how}): ${measured.stderr.trim().slice(-2000)}`);
 }
 
-async function runQuern(corpus: Corpus, order: number, options: Options): Promise<QuernResult> {
+/** A quern to run: this checkout's, or the --against revision's extracted tree. */
+interface QuernBuild {
+  name: string;
+  bin: string;
+  cwd: string;
+}
+
+const THIS_BUILD: QuernBuild = { name: 'this', bin: QUERN_BIN, cwd: REPO };
+
+/**
+ * --against REV: REV's src/ and bin/ (with package.json and tsconfig.json) extracted by git archive
+ * into a scratch folder beside this checkout's node_modules, so that its bin/quern.js runs REV's code.
+ */
+function againstBuild(revision: string): QuernBuild {
+  const hash = execFileSync('git', ['rev-parse', '--short', revision], { cwd: REPO, encoding: 'utf8' }).trim();
+  const tree = join(WORK_DIR, `count-against-${hash}-${process.pid}`);
+  rmSync(tree, { recursive: true, force: true });
+  mkdirSync(tree, { recursive: true });
+  const archive = spawnSync('git', ['archive', '--format=tar', hash, 'src', 'bin', 'package.json', 'tsconfig.json'], { cwd: REPO, maxBuffer: 1 << 30 });
+  if (archive.status !== 0) fail(`git archive ${hash} failed: ${archive.stderr.toString()}`);
+  const untar = spawnSync('tar', ['-x', '-C', tree], { input: archive.stdout });
+  if (untar.status !== 0) fail(`tar failed: ${untar.stderr.toString()}`);
+  symlinkSync(join(REPO, 'node_modules'), join(tree, 'node_modules'));
+  return { name: hash, bin: join(tree, 'bin/quern.js'), cwd: tree };
+}
+
+/** The job directory of a build's run on a corpus at an order. */
+function quernJobDir(corpus: Corpus, order: number, build: QuernBuild): string {
   // Named by the corpus directory too, so that a kept job of one corpus size survives a run on another.
-  const jobDir = join(WORK_DIR, `${basename(corpus.dir)}-order${order}-quern-job`);
+  return join(WORK_DIR, `${basename(corpus.dir)}-order${order}-quern-job${build === THIS_BUILD ? '' : `-${build.name}`}`);
+}
+
+/**
+ * A digest of a job's counts: the raw counts (storeDigest) and the continuation counts of every
+ * order below the highest, in key order, merged over the partitions.
+ */
+async function countsDigest(jobDir: string, order: number): Promise<string> {
+  const job = JSON.parse(readFileSync(join(jobDir, 'job.json'), 'utf8')) as { config: { partitions: number } };
+  const partitions = job.config.partitions;
+  const hash = createHash('sha256').update(await storeDigest(jobDir, order, partitions));
+  const stores = Array.from({ length: partitions }, (_, p) => PartitionStore.open(join(jobDir, partitionStoreDir(p)), 'read'));
+  try {
+    for (let m = 1; m < order; m++) {
+      hash.update(`continuation ${m}\n`);
+      for await (const batch of mergeRuns(stores.map((s) => new StoreSource(s, m, undefined, 'continuation')), m)) {
+        hash.update(new Uint8Array(batch.keys.buffer, batch.keys.byteOffset, batch.recordCount * m * 4));
+        hash.update(new Uint8Array(batch.counts.buffer, batch.counts.byteOffset, batch.recordCount * 8));
+      }
+    }
+  } finally {
+    await Promise.all(stores.map((s) => s.close()));
+  }
+  hash.update(readFileSync(join(jobDir, 'stats.json')));
+  return hash.digest('hex');
+}
+
+async function runQuern(corpus: Corpus, order: number, options: Options, build: QuernBuild = THIS_BUILD, keepJob = options.keep): Promise<QuernResult> {
+  const jobDir = quernJobDir(corpus, order, build);
   rmSync(jobDir, { recursive: true, force: true }); // a fresh job every time
   const args = [
-    QUERN_BIN, 'count', ...corpus.files, '--job', jobDir, '--order', String(order),
+    build.bin, 'count', ...corpus.files, '--job', jobDir, '--order', String(order),
     '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet', '--json',
   ];
   const loadAverage1m = os.loadavg()[0];
-  const measured = await measureCommand(process.execPath, args, { cwd: REPO });
-  checkMeasured(`quern count (${corpus.shape}, order ${order})`, measured);
+  const measured = await measureCommand(process.execPath, args, { cwd: build.cwd });
+  checkMeasured(`quern count ${build.name} (${corpus.shape}, order ${order})`, measured);
   const summary = JSON.parse(measured.stdout) as {
     tokens: number; distinct: number[]; occurrences: number[]; spills: number; runFiles: number; runBytes: number;
     elapsedMs: number; tokensPerSecond: number; memoryBytes: number; workers: number;
     storeBytes?: number; stageMs?: Record<string, number>;
   };
   // `quern report` on the finished job: answered from what the merge kept (issue target < 2 s).
-  const report = await measureCommand(process.execPath, [QUERN_BIN, 'report', jobDir, '--json'], { cwd: REPO });
-  checkMeasured(`quern report (${corpus.shape}, order ${order})`, report);
-  if (!options.keep) rmSync(jobDir, { recursive: true, force: true });
+  const report = await measureCommand(process.execPath, [build.bin, 'report', jobDir, '--json'], { cwd: build.cwd });
+  checkMeasured(`quern report ${build.name} (${corpus.shape}, order ${order})`, report);
+  if (!keepJob) rmSync(jobDir, { recursive: true, force: true });
   if (summary.tokens !== corpus.manifest.tokens) {
     throw new Error(`quern counted ${summary.tokens} tokens, the corpus manifest says ${corpus.manifest.tokens}`);
   }
@@ -308,6 +391,7 @@ async function runQuern(corpus: Corpus, order: number, options: Options): Promis
     overheadAboveMemoryBytes: measured.rssBytesMax - summary.memoryBytes,
     ...mergeFigures(summary),
     reportWallMs: report.elapsedMs,
+    build: build.name,
   };
 }
 
@@ -463,6 +547,40 @@ function writeJson(path: string, value: unknown): void {
   renameSync(`${path}.tmp`, path);
 }
 
+/** The run of median wall time (the lower middle one of an even number). */
+function medianRun(runs: readonly QuernResult[]): QuernResult {
+  const sorted = [...runs].sort((a, b) => a.wallMs - b.wallMs);
+  return sorted[Math.floor((sorted.length - 1) / 2)];
+}
+
+function median(values: readonly number[]): number {
+  const sorted = [...values].sort((a, b) => a - b);
+  const middle = sorted.length >> 1;
+  return sorted.length % 2 === 1 ? sorted[middle] : (sorted[middle - 1] + sorted[middle]) / 2;
+}
+
+/** --against: this checkout's times over REV's, whole command and per stage (medians), and each pair. */
+function printAgainst(results: readonly PairResult[], name: string): void {
+  const stages = ['vocabulary', 'count', 'merge', 'continuation'];
+  const rows: string[][] = [['shape', 'order', 'build', 'wall s (each run)', 'median', ...stages.map((s) => `${s} s`), 'peak RSS', 'load']];
+  const ratios: string[] = [];
+  for (const r of results) {
+    if (!r.runs) continue;
+    for (const [build, runs] of [['this', r.runs.this], [name, r.runs.against]] as const) {
+      rows.push([
+        r.shape, String(r.order), build, runs.map((q) => (q.wallMs / 1000).toFixed(2)).join(' '), (median(runs.map((q) => q.wallMs)) / 1000).toFixed(2),
+        ...stages.map((stage) => (median(runs.map((q) => q.stageMs?.[stage] ?? 0)) / 1000).toFixed(2)),
+        formatSize(Math.max(...runs.map((q) => q.rssBytesMax))), runs.map((q) => q.loadAverage1m.toFixed(1)).join(' '),
+      ]);
+    }
+    const ratio = (f: (q: QuernResult) => number): string => (median(r.runs!.this.map(f)) / median(r.runs!.against.map(f))).toFixed(2);
+    ratios.push(`${r.shape}, order ${r.order}: this checkout ${ratio((q) => q.wallMs)}× ${name}'s wall time; by stage ` +
+      stages.map((stage) => `${stage} ${ratio((q) => q.stageMs?.[stage] ?? 0)}×`).join(', ') + ` (medians of ${r.runs.this.length} runs each, alternating)`);
+  }
+  process.stdout.write(`\nquern count of this checkout beside ${name}'s, same corpus and options, alternately:\n${renderTable(rows, new Set([1, 4, 5, 6, 7, 8, 9]))}\n`);
+  for (const line of ratios) process.stdout.write(`${line}\n`);
+}
+
 // ---- Main ------------------------------------------------------------------------------------
 
 /** Runs every shape and order, appending to `corpora` and `results`; exits 1 if counts differ. */
@@ -472,19 +590,45 @@ async function measureAll(
   results: PairResult[],
   writeReport: (status: string, extra: Record<string, unknown>) => void,
   jsonPath: string,
+  against: QuernBuild | null,
 ): Promise<void> {
   for (const shape of options.shapes) {
     const corpus = prepareCorpus(options, shape);
     corpora.push({ shape, dir: corpus.dir, manifest: corpus.manifest, generated: corpus.generated, shards: corpus.files.length });
     await warmPageCache(corpus.files);
     for (const order of options.orders) {
-      log(`${shape}, order ${order}: quern …`);
-      const quern = await runQuern(corpus, order, options);
-      log(`  ${(quern.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(quern.rssBytesMax)}${options.skipPipeline ? '' : '; pipeline …'}`);
+      const runs = { this: [] as QuernResult[], against: [] as QuernResult[] };
+      for (let repeat = 0; repeat < options.repeat; repeat++) {
+        log(`${shape}, order ${order}: quern …`);
+        // The first pair's jobs are kept until their counts are compared.
+        const compare = against !== null && repeat === 0;
+        const mine = await runQuern(corpus, order, options, THIS_BUILD, options.keep || compare);
+        runs.this.push(mine);
+        log(`  ${(mine.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(mine.rssBytesMax)}, stages ${formatStages(mine.stageMs)}`);
+        if (against === null) continue;
+        log(`${shape}, order ${order}: quern ${against.name} …`);
+        const theirs = await runQuern(corpus, order, options, against, options.keep || compare);
+        runs.against.push(theirs);
+        log(`  ${(theirs.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(theirs.rssBytesMax)}, stages ${formatStages(theirs.stageMs)}`);
+        if (compare) {
+          const [a, b] = [quernJobDir(corpus, order, THIS_BUILD), quernJobDir(corpus, order, against)];
+          const [digestA, digestB] = [await countsDigest(a, order), await countsDigest(b, order)];
+          if (!options.keep) for (const dir of [a, b]) rmSync(dir, { recursive: true, force: true });
+          if (digestA !== digestB) {
+            writeReport('counts differ', { shape, order, against: against.name, digests: [digestA, digestB] });
+            process.stderr.write(`\nbench-count: THIS CHECKOUT AND ${against.name} STORED DIFFERENT COUNTS (${shape}, order ${order}); the timings mean nothing\n`);
+            process.exit(1);
+          }
+          log(`  counts identical to ${against.name}'s (digest ${digestA.slice(0, 16)})`);
+        }
+      }
+      const quern = medianRun(runs.this);
+      const pairRuns = against === null ? undefined : runs;
       if (options.skipPipeline) {
-        results.push({ shape, order, tokens: corpus.manifest.tokens, quern, pipeline: null, ratio: null, targetRatio: TARGET_RATIOS[order] ?? null, targetMet: null });
+        results.push({ shape, order, tokens: corpus.manifest.tokens, quern, pipeline: null, ratio: null, targetRatio: TARGET_RATIOS[order] ?? null, targetMet: null, runs: pairRuns });
         continue;
       }
+      log(`${shape}, order ${order}: pipeline …`);
       const pipeline = await runPipeline(corpus, order, options);
       log(`  ${(pipeline.wallMs / 1000).toFixed(2)} s, peak RSS ${formatSize(pipeline.rssBytesMax)}`);
       const differences = countDifferences(quern, pipeline, order, corpus);
@@ -497,7 +641,7 @@ async function measureAll(
       }
       const ratio = quern.tokensPerSecond / pipeline.tokensPerSecond;
       const targetRatio = TARGET_RATIOS[order] ?? null;
-      results.push({ shape, order, tokens: corpus.manifest.tokens, quern, pipeline, ratio, targetRatio, targetMet: targetRatio === null ? null : ratio >= targetRatio });
+      results.push({ shape, order, tokens: corpus.manifest.tokens, quern, pipeline, ratio, targetRatio, targetMet: targetRatio === null ? null : ratio >= targetRatio, runs: pairRuns });
     }
   }
 }
@@ -529,8 +673,9 @@ async function main(): Promise<void> {
     ...extra,
   });
 
+  const against = options.against === null ? null : againstBuild(options.against);
   try {
-    await measureAll(options, corpora, results, (status, extra) => writeJson(jsonPath, report(status, extra)), jsonPath);
+    await measureAll(options, corpora, results, (status, extra) => writeJson(jsonPath, report(status, extra)), jsonPath, against);
   } catch (error) {
     writeJson(jsonPath, report('failed', { error: (error as Error).message }));
     if (results.length > 0) printResults(results, options);
@@ -543,6 +688,10 @@ async function main(): Promise<void> {
       `--workers ${options.workers}, ${os.availableParallelism()} CPUs; counts agree for every run.\n`,
   );
   printResults(results, options);
+  if (against !== null) {
+    printAgainst(results, against.name);
+    rmSync(against.cwd, { recursive: true, force: true });
+  }
   const exceeded = results.filter((r) => !r.quern.withinBound);
   writeJson(jsonPath, report(exceeded.length > 0 ? 'rss bound exceeded' : 'ok'));
   process.stdout.write(`\nresults: ${relative(REPO, jsonPath)}\n`);

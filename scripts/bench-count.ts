@@ -33,6 +33,7 @@
  * For each shape and order, both tools run under GNU time (wall time and peak RSS, see
  * scripts/lib/rss.ts):
  *   quern     node bin/quern.js count SHARDS --job FRESH_DIR --order N --workers K --memory M --quiet --json
+ *             (in the environment bin/quern.js gives Node when run as a program: huge pages on)
  *   pipeline  LC_ALL=C awk '<emit n-grams>' SHARDS | LC_ALL=C sort -S M --parallel=K -T TMP | LC_ALL=C uniq -c > OUT
  * The awk program is the one of test/support/reference-count.ts, so the pipeline follows the
  * project's conventions exactly. The benchmark then checks that both counted the same thing — the
@@ -59,6 +60,7 @@ import { rssBoundBytes } from '../src/count/stage.ts';
 import { PROCESS_OVERHEAD_BYTES, WORKER_OVERHEAD_BYTES, ORDER_MAX } from '../src/limits.ts';
 import { AWK_PROGRAM } from '../test/support/reference-count.ts';
 import { tallyUniqCounts, type OrderTally } from './lib/bench-uniq-tally.ts';
+import { quernProgramEnv } from './lib/quern-env.ts';
 import { measureCommand, type Measurement } from './lib/rss.ts';
 import { SHAPE_SHARDS, shardName, type CorpusShape } from './lib/synthetic.ts';
 import { storeDigest } from '../src/merge/digest.ts';
@@ -354,7 +356,8 @@ async function runQuern(corpus: Corpus, order: number, options: Options, build: 
     '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet', '--json',
   ];
   const loadAverage1m = os.loadavg()[0];
-  const measured = await measureCommand(process.execPath, args, { cwd: build.cwd });
+  // As `quern` runs when started as a program: with the launcher's huge-page tunable (bin/quern.js).
+  const measured = await measureCommand(process.execPath, args, { cwd: build.cwd, env: quernProgramEnv() });
   checkMeasured(`quern count ${build.name} (${corpus.shape}, order ${order})`, measured);
   const summary = JSON.parse(measured.stdout) as {
     tokens: number; distinct: number[]; occurrences: number[]; spills: number; runFiles: number; runBytes: number;

@@ -50,8 +50,8 @@
  * Results go to stdout as a table and to bench-out/bench-count-<timestamp>.json.
  */
 import bytesIec from 'bytes-iec';
-import { execFileSync, spawnSync } from 'node:child_process';
-import { createReadStream, existsSync, mkdirSync, readFileSync, renameSync, rmSync, statSync, symlinkSync, writeFileSync } from 'node:fs';
+import { spawnSync } from 'node:child_process';
+import { createReadStream, existsSync, mkdirSync, readFileSync, renameSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import { basename, join, relative, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -61,6 +61,7 @@ import { PROCESS_OVERHEAD_BYTES, WORKER_OVERHEAD_BYTES, ORDER_MAX } from '../src
 import { AWK_PROGRAM } from '../test/support/reference-count.ts';
 import { tallyUniqCounts, type OrderTally } from './lib/bench-uniq-tally.ts';
 import { quernProgramEnv } from './lib/quern-env.ts';
+import { extractRevision } from './lib/revision-tree.ts';
 import { measureCommand, type Measurement } from './lib/rss.ts';
 import { SHAPE_SHARDS, shardName, type CorpusShape } from './lib/synthetic.ts';
 import { storeDigest } from '../src/merge/digest.ts';
@@ -306,15 +307,7 @@ const THIS_BUILD: QuernBuild = { name: 'this', bin: QUERN_BIN, cwd: REPO };
  * into a scratch folder beside this checkout's node_modules, so that its bin/quern.js runs REV's code.
  */
 function againstBuild(revision: string): QuernBuild {
-  const hash = execFileSync('git', ['rev-parse', '--short', revision], { cwd: REPO, encoding: 'utf8' }).trim();
-  const tree = join(WORK_DIR, `count-against-${hash}-${process.pid}`);
-  rmSync(tree, { recursive: true, force: true });
-  mkdirSync(tree, { recursive: true });
-  const archive = spawnSync('git', ['archive', '--format=tar', hash, 'src', 'bin', 'package.json', 'tsconfig.json'], { cwd: REPO, maxBuffer: 1 << 30 });
-  if (archive.status !== 0) fail(`git archive ${hash} failed: ${archive.stderr.toString()}`);
-  const untar = spawnSync('tar', ['-x', '-C', tree], { input: archive.stdout });
-  if (untar.status !== 0) fail(`tar failed: ${untar.stderr.toString()}`);
-  symlinkSync(join(REPO, 'node_modules'), join(tree, 'node_modules'));
+  const { hash, tree } = extractRevision(REPO, revision, ['src', 'bin', 'package.json', 'tsconfig.json'], (h) => join(WORK_DIR, `count-against-${h}-${process.pid}`));
   return { name: hash, bin: join(tree, 'bin/quern.js'), cwd: tree };
 }
 

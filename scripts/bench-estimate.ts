@@ -43,7 +43,7 @@
  * Results go to stdout and to bench-out/bench-estimate-<timestamp>.json.
  */
 import bytesIec from 'bytes-iec';
-import { execFileSync, spawnSync } from 'node:child_process';
+import { spawnSync } from 'node:child_process';
 import { copyFileSync, existsSync, mkdirSync, readdirSync, readFileSync, rmSync, symlinkSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import { join, relative, resolve } from 'node:path';
@@ -52,6 +52,7 @@ import { parseArgs } from 'node:util';
 import { countTablesBytes } from '../src/estimate/from-store.ts';
 import type { JobManifest } from '../src/job/manifest.ts';
 import { hugePagesEnv } from './lib/quern-env.ts';
+import { extractRevision } from './lib/revision-tree.ts';
 import { GNU_TIME_PATH, measureCommand, type Measurement } from './lib/rss.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
@@ -203,16 +204,7 @@ function makeShadow(job: string, label: string): string {
  * this checkout's node_modules, so that its estimate-once.ts runs REV's estimate code.
  */
 function againstTree(revision: string): string {
-  const hash = execFileSync('git', ['rev-parse', '--short', revision], { cwd: REPO, encoding: 'utf8' }).trim();
-  const tree = join(BENCH_OUT, 'work', `estimate-against-${hash}-${process.pid}`);
-  rmSync(tree, { recursive: true, force: true });
-  mkdirSync(tree, { recursive: true });
-  const archive = spawnSync('git', ['archive', '--format=tar', hash, 'src', 'scripts/lib', 'package.json', 'tsconfig.json'], { cwd: REPO, maxBuffer: 1 << 30 });
-  if (archive.status !== 0) fail(`git archive ${hash} failed: ${archive.stderr.toString()}`);
-  const untar = spawnSync('tar', ['-x', '-C', tree], { input: archive.stdout });
-  if (untar.status !== 0) fail(`tar failed: ${untar.stderr.toString()}`);
-  symlinkSync(join(REPO, 'node_modules'), join(tree, 'node_modules'));
-  return tree;
+  return extractRevision(REPO, revision, ['src', 'scripts/lib', 'package.json', 'tsconfig.json'], (h) => join(BENCH_OUT, 'work', `estimate-against-${h}-${process.pid}`)).tree;
 }
 
 /** Files under `dir`, relative to it, sorted. */

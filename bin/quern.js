@@ -2,8 +2,8 @@
 ':' //; case "${QUERN_HUGE_PAGES:-1}:${GLIBC_TUNABLES:-}" in 0:*|*glibc.malloc.hugetlb*) ;; *) GLIBC_TUNABLES="${GLIBC_TUNABLES:+$GLIBC_TUNABLES:}glibc.malloc.hugetlb=1"; export GLIBC_TUNABLES;; esac; exec node "$0" "$@"
 // The line above is for the shell: run as a program (`quern`, `./bin/quern.js`), this file first
 // starts Node with glibc's transparent-huge-page tunable, so that the large typed arrays of the
-// counters, the estimate's tables and the model's sections sit on 2 MiB pages (random access over
-// hundreds of MB then costs far fewer TLB misses; DEVELOPERS.md "Huge pages" has the figures).
+// counters, the estimate's tables and the model's sections sit on 2 MiB pages (one TLB entry then
+// covers 2 MiB instead of 4 KiB; DEVELOPERS.md "Huge pages" has what it measured to give).
 // QUERN_HUGE_PAGES=0, or a GLIBC_TUNABLES that already sets glibc.malloc.hugetlb, leaves it as it is;
 // elsewhere than glibc on Linux the variable means nothing. Node itself reads the line as a string
 // and a comment: `node bin/quern.js` runs without the tunable.

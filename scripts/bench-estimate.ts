@@ -147,9 +147,12 @@ interface Row {
   loadAverage1m: number;
 }
 
-/** A row's label suffix for a huge-page mode when both are measured. */
+/** What a row's label ends with when it was measured without huge pages beside runs with them. */
+const NO_HUGE_PAGES = ', no huge pages';
+
+/** A row's label suffix for a huge-page mode (only `off` beside `on` is marked). */
 function modeLabel(mode: 'on' | 'off', modes: ReadonlyArray<'on' | 'off'>): string {
-  return modes.length > 1 && mode === 'off' ? ', no huge pages' : '';
+  return modes.length > 1 && mode === 'off' ? NO_HUGE_PAGES : '';
 }
 
 async function measure(what: string, method: string, command: string, args: string[], ngrams: number, env: NodeJS.ProcessEnv = hugePagesEnv('on')): Promise<Row> {
@@ -326,7 +329,7 @@ async function main(): Promise<void> {
   }
   const recount = rows.find((r) => r.what === 'quern count (same run)');
   if (recount) {
-    for (const r of rows.filter((x) => x.what.startsWith('streaming') && !x.what.endsWith(modeLabel('off', ['on', 'off'])))) {
+    for (const r of rows.filter((x) => x.what.startsWith('streaming') && !x.what.endsWith(NO_HUGE_PAGES))) {
       lines.push(`${r.what} ${r.method}: ${(r.wallMs / recount.wallMs).toFixed(2)}× the time of quern count measured in this run` +
         (recountPhaseMs === null ? '' : `, ${(r.wallMs / recountPhaseMs).toFixed(2)}× its count stage (stageMs.count ${(recountPhaseMs / 1000).toFixed(1)} s)`) +
         `; CPU ${(r.cpuMs / recount.cpuMs).toFixed(2)}× that of the whole quern count`);
@@ -344,11 +347,10 @@ async function main(): Promise<void> {
   }
   if (options.hugePageModes.length > 1) {
     const median = (xs: number[]) => [...xs].sort((x, y) => x - y)[Math.floor(xs.length / 2)];
-    const off = modeLabel('off', options.hugePageModes);
     const pairs: Array<[string, string]> = [...options.methods.map((m): [string, string] => ['streaming', m]), ['quern count (same run)', '-']];
     for (const [what, method] of pairs) {
       const on = rows.filter((r) => r.what === what && r.method === method);
-      const without = rows.filter((r) => r.what === `${what}${off}` && r.method === method);
+      const without = rows.filter((r) => r.what === `${what}${NO_HUGE_PAGES}` && r.method === method);
       if (on.length === 0 || without.length === 0) continue;
       const ratio = (key: 'wallMs' | 'cpuMs') => (median(on.map((r) => r[key])) / median(without.map((r) => r[key]))).toFixed(2);
       lines.push(`${what} ${method}: with huge pages ${ratio('wallMs')}× the wall time, ${ratio('cpuMs')}× the CPU time without (medians of ${on.length} runs each, alternating)`);

@@ -20,7 +20,7 @@ import { assert, QuernError } from '../errors.ts';
 import type { WritableFile } from '../job/fsio.ts';
 import { openForReading, readFullyAt } from '../job/file-read.ts';
 import { ORDER_MAX, RESULT_ARENA_BYTES, RESULT_BLOCK_ROWS, RESULT_SPARE_ARENAS } from '../limits.ts';
-import { putVarU32, readVarU32, DecodeFailure } from '../count/block-codec.ts';
+import { compareRows, putVarU32, readVarU32, DecodeFailure } from '../count/block-codec.ts';
 
 export const RESULT_FORMAT_VERSION = 1;
 export const RESULT_HEADER_BYTES = 64;
@@ -162,12 +162,8 @@ export class ResultWriter {
     const order = this.meta.order;
     const ids = this.ids;
     const last = this.last;
-    if (this.rows > rows) {
-      // The block's first row against the previous block's last.
-      let j = 0;
-      while (j < order && ids[j] === last[j]) j++;
-      if (j === order || ids[j] < last[j]) assert(false, `result rows of order ${order} strictly increase`);
-    }
+    // The block's first row against the previous block's last.
+    if (this.rows > rows && compareRows(ids, 0, last, 0, order) <= 0) assert(false, `result rows of order ${order} strictly increase`);
     const buf = this.arenaFor(blockBytesMax(order, rows));
     buf.writeUInt32LE(rows, 4);
     for (let j = 0; j < order; j++) buf.writeUInt32LE(ids[j], BLOCK_FIXED_BYTES + 4 * j);

@@ -19,6 +19,7 @@ export type { NormalizeOptions, InputFile, Chunk } from './corpus/types.ts';
 export { estimate, type EstimateRequest } from './estimate/estimate.ts';
 export { loadCountTables } from './estimate/from-store.ts';
 export { estimateJobStreaming, type StreamEstimateRequest, type StreamEstimateSummary } from './estimate/stream-stage.ts';
+export { fitWeightsOnJob } from './estimate/heldout-store.ts';
 export { openJobModelSource, materialiseModel } from './estimate/job-model-source.ts';
 export { modelSource, type ModelSource, type ModelRowBatch } from './estimate/model-source.ts';
 export { countCorpus, type CountTables } from './estimate/counts.ts';

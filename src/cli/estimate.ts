@@ -1,27 +1,25 @@
 /**
  * `quern estimate`: a counted job → a smoothed model, packed into one model file.
- * Every method but Jelinek-Mercer is estimated partition by partition in worker threads, with
- * bounded memory and resumably (src/estimate/stream-stage.ts); Jelinek-Mercer fits its weights by
- * EM with lookups into the whole model, so it reads the counts into memory (refused beyond --memory).
+ * Every method is estimated partition by partition in worker threads, with bounded memory and
+ * resumably (src/estimate/stream-stage.ts); Jelinek-Mercer first fits its weights by EM on the
+ * held-out text, looking its n-grams up in the job's store (src/estimate/heldout-store.ts).
  */
-import { readFileSync } from 'node:fs';
 import * as path from 'node:path';
 import type { Argv, CommandModule } from 'yargs';
-import { QuernError } from '../errors.ts';
+import { assert, QuernError } from '../errors.ts';
 import { ORDER_MAX } from '../limits.ts';
 import { stageFs } from '../job/fsio.ts';
 import { readManifest } from '../job/manifest.ts';
-import { makeTokenizer } from '../corpus/tokenize.ts';
 import * as os from 'node:os';
-import { loadCountTables } from '../estimate/from-store.ts';
+import { fitWeightsOnJob, readHeldOutText } from '../estimate/heldout-store.ts';
+import { formatInterpolationWeights } from '../estimate/jelinek-mercer.ts';
 import { isPlanned } from '../estimate/method-plan.ts';
 import { estimateJobStreaming } from '../estimate/stream-stage.ts';
 import type { ProgressSink } from '../job/context.ts';
 import { makeProgress } from './progress.ts';
 import { intInRange } from './options.ts';
-import { estimate, type EstimateRequest } from '../estimate/estimate.ts';
+import type { EstimateRequest } from '../estimate/estimate.ts';
 import { packModelSource, type PackOptions } from '../pack/writer.ts';
-import { modelSource, type ModelSource } from '../estimate/model-source.ts';
 import { formatPackSummary } from './pack.ts';
 import { defaultMemoryBytes } from './count.ts';
 import { parseSize } from './options.ts';
@@ -76,25 +74,18 @@ export async function estimateJob(jobDir: string, out: string, argv: EstimateArg
   }
   if (argv.method === 'katz') request.k = argv['katz-k'];
   if (argv.method === 'stupid-backoff') request.alpha = argv.alpha;
-  let source: ModelSource;
-  const planned = request as EstimateRequest;
-  if (isPlanned(planned)) {
-    // The partitions' results, read order by order: the model is never gathered in memory.
-    ({ source } = await estimateJobStreaming({ jobDir, request: planned, memoryBytes: run.memoryBytes, workers: run.workers, progress: run.progress, restart: run.restart, handleSignals: true }));
-  } else {
+  if (argv.method === 'jelinek-mercer') {
     if (argv.heldout === undefined) throw new QuernError('config', 'jelinek-mercer fits its weights on held-out text: give --heldout FILE');
-    run.notice?.('quern: jelinek-mercer is estimated in memory, not partition by partition: fitting its weights by EM looks n-grams up across the whole model. Jobs whose counts exceed --memory are refused; the other methods are not limited so.\n');
-    const counts = await loadCountTables(jobDir, run.memoryBytes);
-    const tokenize = makeTokenizer(job.config.normalize);
-    const ids = new Map(counts.vocabulary.words.map((w, id) => [w, id]));
-    const tokens: string[] = [];
-    request.heldOut = readFileSync(argv.heldout, 'utf8').split('\n').filter((l) => l.trim() !== '').map((line) => {
-      const n = tokenize(line, tokens);
-      return Uint32Array.from(tokens.slice(0, n), (w) => ids.get(w) ?? counts.vocabulary.unkId);
-    });
-    request.bucketed = argv.bucketed;
-    source = modelSource(estimate(counts, request as EstimateRequest));
+    const heldOut = await readHeldOutText(argv.heldout, jobDir, job);
+    run.notice?.(`quern: fitting the Jelinek-Mercer weights on ${heldOut.length} held-out sentences from ${argv.heldout}\n`);
+    const weights = await fitWeightsOnJob(jobDir, heldOut, { bucketed: argv.bucketed, cutoffs: request.cutoffs as number[] | undefined });
+    for (const line of formatInterpolationWeights(weights)) run.notice?.(`quern: ${line}\n`);
+    request.weights = weights;
   }
+  const planned = request as EstimateRequest;
+  assert(isPlanned(planned), 'every method has a plan once Jelinek-Mercer\'s weights are fitted');
+  // The partitions' results, read order by order: the model is never gathered in memory.
+  const { source } = await estimateJobStreaming({ jobDir, request: planned, memoryBytes: run.memoryBytes, workers: run.workers, progress: run.progress, restart: run.restart, handleSignals: true });
   const options: PackOptions = { fingerprint: job.inputs.map((f) => f.fingerprint).join(','), normalize: job.config.normalize };
   if (argv.quant !== undefined) options.quantBits = argv.quant as 8 | 16;
   const summary = await packModelSource(source, options, stageFs(), out);
@@ -107,7 +98,7 @@ export const estimateCommand: CommandModule = {
   builder: (yargs) => estimateOptions(yargs
     .positional('job', { type: 'string', describe: 'Job directory of a finished count' })
     .option('out', { type: 'string', describe: 'Model file to write (default: JOB/model.qm)' })
-    .option('memory', { type: 'string', describe: 'Memory for the partitions estimated at once (Jelinek-Mercer: for all count tables); default a quarter of RAM, at least 1 GiB' })
+    .option('memory', { type: 'string', describe: 'Memory for the partitions estimated at once; default a quarter of RAM, at least 1 GiB' })
     .option('workers', { type: 'number', default: os.availableParallelism(), describe: 'Worker threads (partitions estimated at once)' })
     .option('restart', { type: 'boolean', default: false, describe: 'Discard the results of an interrupted estimate and start over' })
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' }))

@@ -12,13 +12,14 @@ import { QuernError } from '../errors.ts';
 import { KATZ_K } from '../stats/discounts.ts';
 import type { CountOfCounts } from '../stats/types.ts';
 import type { AbsoluteDiscountingOptions } from './absolute-discounting.ts';
-import { buildBackOffModel, discountedRule, prepareCounts, type ContextRule, type Level, type ModelHeader, type PreparedCounts } from './back-off-form.ts';
+import { buildBackOffModel, discountedRule, prepareCounts, type ContextRule, type CutoffOptions, type Level, type ModelHeader, type PreparedCounts } from './back-off-form.ts';
+import { checkWeights, jelinekMercerRule } from './jelinek-mercer.ts';
 import { withContinuationCounts, type CountTables } from './counts.ts';
 import { checkDiscountOrders, chooseDiscounts, katzRule, MODIFIED_KNESER_NEY_RULE, singleDiscountRule } from './discount-choice.ts';
 import type { EstimateRequest } from './estimate.ts';
 import { katzContextRule, katzFormula } from './katz.ts';
 import { kneserNeyCounts, levelCountOfCounts, singleDiscountFormula } from './kneser-ney.ts';
-import type { LanguageModel, OrderDiscounts } from './model.ts';
+import type { InterpolationWeights, LanguageModel, OrderDiscounts } from './model.ts';
 import { modifiedKneserNeyFormula } from './modified-kneser-ney.ts';
 import { STUPID_BACKOFF_ALPHA } from './stupid-backoff.ts';
 import { wittenBellRule } from './witten-bell.ts';
@@ -34,12 +35,15 @@ export interface OrderCountOfCounts {
   kneserNey: CountOfCounts;
 }
 
-/** Requests of the methods that have a plan (all but Jelinek-Mercer, whose weights need lookups). */
-export type PlannedRequest = Exclude<EstimateRequest, { method: 'jelinek-mercer' }>;
+/** Jelinek-Mercer with its weights fitted already (fitting them needs held-out lookups, not a plan). */
+export type FittedJelinekMercerRequest = { method: 'jelinek-mercer'; weights: InterpolationWeights } & CutoffOptions;
 
-/** True when `request` names a method with a plan. */
+/** Requests that have a plan: every method, Jelinek-Mercer once its weights are fitted. */
+export type PlannedRequest = Exclude<EstimateRequest, { method: 'jelinek-mercer' }> | FittedJelinekMercerRequest;
+
+/** True when `request` has a plan (Jelinek-Mercer: when it gives the weights, not held-out text). */
 export function isPlanned(request: EstimateRequest): request is PlannedRequest {
-  return request.method !== 'jelinek-mercer';
+  return request.method !== 'jelinek-mercer' || (request.weights !== undefined && request.heldOut === undefined);
 }
 
 /** A method ready to estimate (module comment). */
@@ -124,6 +128,13 @@ export function planMethod(request: PlannedRequest, orders: OrderCountOfCounts[]
     }
     case 'witten-bell':
       return { usesContinuation: false, header: { parameters: { method: 'witten-bell' }, normalised: true, log10UnseenContextWeight: 0 }, ruleFor: wittenBellRule };
+    case 'jelinek-mercer':
+      checkWeights(request.weights, order);
+      return {
+        usesContinuation: false,
+        header: { parameters: { method: 'jelinek-mercer', weights: request.weights }, normalised: true, log10UnseenContextWeight: 0 },
+        ruleFor: jelinekMercerRule(request.weights),
+      };
     case 'stupid-backoff': {
       const alpha = request.alpha ?? STUPID_BACKOFF_ALPHA;
       if (!(alpha > 0 && alpha <= 1)) throw new QuernError('config', `alpha must lie in (0, 1] (got ${alpha})`);

@@ -105,12 +105,13 @@ function estimateKey(request: PlannedRequest, cutoffs: number[], statsSha: strin
     fallback: r.fallback === true,
     k: r.k ?? null,
     alpha: r.alpha ?? null,
+    weights: r.weights ?? null,
     stats: statsSha,
   });
 }
 
 /** Loads the order-1 rows of every partition (raw, and continuation counts where wanted). */
-async function loadUnigrams(jobDir: string, partitions: number, withContinuation: boolean): Promise<{ ids: Uint32Array; counts: Float64Array; continuation: Float64Array | null }> {
+export async function loadUnigrams(jobDir: string, partitions: number, withContinuation: boolean): Promise<{ ids: Uint32Array; counts: Float64Array; continuation: Float64Array | null }> {
   const stores = Array.from({ length: partitions }, (_, p) => PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read'));
   try {
     const ids: number[] = [];

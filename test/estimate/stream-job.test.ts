@@ -2,10 +2,11 @@
  * The streaming estimate as a job stage: an interrupted estimate (I/O fault, SIGKILL) resumes
  * without redoing finished partitions and gives the same model; other options make the results
  * stale; a partition that does not fit --memory is refused with the partitions that would fit; a
- * damaged result file is reported by name.
+ * damaged result file is reported by name. Jelinek-Mercer on the command line: weights fitted on the
+ * store and printed, the model the in-memory path gives; bad held-out input refused.
  */
 import { spawn } from 'node:child_process';
-import { cpSync, readFileSync, statSync, writeFileSync } from 'node:fs';
+import { cpSync, existsSync, readFileSync, statSync, writeFileSync } from 'node:fs';
 import * as path from 'node:path';
 import { beforeAll, describe, expect, test } from 'vitest';
 import { QuernError } from '../../src/errors.ts';
@@ -17,6 +18,9 @@ import { readManifest, type EstimateStage } from '../../src/job/manifest.ts';
 import { FAULT_ENV } from '../../src/job/fsio.ts';
 import { REPO, runQuern, tempDir } from '../support/cli.ts';
 import { countJob, expectSameModel } from './stream-support.ts';
+import { makeTokenizer } from '../../src/corpus/tokenize.ts';
+import type { CountTables } from '../../src/estimate/counts.ts';
+import type { InterpolationWeights } from '../../src/estimate/model.ts';
 
 let counted = '';
 beforeAll(async () => {
@@ -138,5 +142,64 @@ describe('the estimate stage', () => {
     const restarted = await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 256 << 20, workers: 2, restart: true });
     expect(restarted.partitionsEstimated).toBe(16);
     await expectInMemoryModel(job);
+  }, 60_000);
+});
+
+describe('Jelinek-Mercer on the command line', () => {
+  const heldOutFile = path.join(REPO, 'sample-data/heldout/harbour-heldout.txt');
+
+  /** The held-out file as the job's ids (its lines lower-cased and split at spaces, as countJob counts). */
+  function heldOutIds(counts: CountTables): Uint32Array[] {
+    const ids = new Map(counts.vocabulary.words.map((w, id) => [w, id]));
+    const tokenize = makeTokenizer({ lowercase: true, unicode: 'none', split: 'space' });
+    const tokens: string[] = [];
+    return readFileSync(heldOutFile, 'utf8').split('\n').filter((line) => line.trim() !== '')
+      .map((line) => Uint32Array.from(tokens.slice(0, tokenize(line, tokens)), (w) => ids.get(w) ?? counts.vocabulary.unkId));
+  }
+
+  test('quern estimate --method jelinek-mercer fits the weights on the store, prints them, streams the partitions, and gives the in-memory model', async () => {
+    const job = copyJob();
+    const out = path.join(job, 'jm.qm');
+    const args = ['estimate', job, '--method', 'jelinek-mercer', '--heldout', heldOutFile, '--bucketed', '--out', out, '--quiet', '--workers', '2', '--memory', '256MiB'];
+    const run = await runQuern(args);
+    expect(run.stderr).toBe(''); // --quiet: no notices
+    expect(run.status).toBe(0);
+    const stage = (await stageOf(job))!;
+    expect(stage.status).toBe('done');
+    expect(stage.partitionsDone).toHaveLength(16);
+    const counts = await loadCountTables(job, 1 << 30);
+    const inMemory = estimate(counts, { method: 'jelinek-mercer', heldOut: heldOutIds(counts), bucketed: true });
+    expectSameModel(await materialiseModel(await openJobModelSource(job)), inMemory);
+    // The weights are printed (without --quiet) and stored in the model file.
+    const again = await runQuern(args.filter((a) => a !== '--quiet'));
+    expect(again.status).toBe(0);
+    expect(again.stderr).toMatch(/fitting the Jelinek-Mercer weights on \d+ held-out sentences/);
+    expect(again.stderr).toMatch(/order 2, contexts seen 1 time: λ = [01]\.\d{6}/);
+    expect(again.stderr).toMatch(/order 3, contexts seen 2–3 times: λ = [01]\.\d{6}/);
+    // Same held-out text, same weights, same key: the finished partitions are kept.
+    expect((await stageOf(job))!.key).toBe(stage.key);
+    const info = await runQuern(['info', out]);
+    expect(info.status).toBe(0);
+    expect(info.stdout).toMatch(/method\s+jelinek-mercer/);
+    const lambda = (inMemory.parameters as { weights: InterpolationWeights }).weights.orders[1].buckets[0].weight;
+    expect(info.stdout).toContain(`order 2: λ = ${lambda.toFixed(4)}`);
+  }, 60_000);
+
+  test('bad held-out input: no --heldout, a missing file, invalid UTF-8 — an error naming the cause, and no model file', async () => {
+    const job = copyJob();
+    const out = path.join(job, 'jm.qm');
+    const base = ['estimate', job, '--method', 'jelinek-mercer', '--out', out, '--quiet'];
+    const none = await runQuern(base);
+    expect(none.status).not.toBe(0);
+    expect(none.stderr).toMatch(/--heldout/);
+    const missing = await runQuern([...base, '--heldout', path.join(job, 'nowhere.txt')]);
+    expect(missing.status).not.toBe(0);
+    expect(missing.stderr).toMatch(/nowhere\.txt/);
+    const bad = path.join(job, 'bad-heldout.txt');
+    writeFileSync(bad, Buffer.concat([Buffer.from('the ferry came\nthe gulls '), Buffer.from([0xff, 0xfe]), Buffer.from(' left\n')]));
+    const invalid = await runQuern([...base, '--heldout', bad]);
+    expect(invalid.status).not.toBe(0);
+    expect(invalid.stderr).toMatch(/bad-heldout\.txt:2 \(byte \d+\): invalid UTF-8/); // file:line
+    expect(existsSync(out)).toBe(false);
   }, 60_000);
 });

@@ -78,7 +78,7 @@ export async function estimateJob(jobDir: string, out: string, argv: EstimateArg
     if (argv.heldout === undefined) throw new QuernError('config', 'jelinek-mercer fits its weights on held-out text: give --heldout FILE');
     const heldOut = await readHeldOutText(argv.heldout, jobDir, job);
     run.notice?.(`quern: fitting the Jelinek-Mercer weights on ${heldOut.length} held-out sentences from ${argv.heldout}\n`);
-    const weights = await fitWeightsOnJob(jobDir, heldOut, { bucketed: argv.bucketed, cutoffs: request.cutoffs as number[] | undefined });
+    const weights = await fitWeightsOnJob(jobDir, heldOut, { bucketed: argv.bucketed, cutoffs: request.cutoffs as number[] | undefined }, run.progress);
     for (const line of formatInterpolationWeights(weights)) run.notice?.(`quern: ${line}\n`);
     request.weights = weights;
   }

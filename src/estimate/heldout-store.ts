@@ -3,13 +3,14 @@
  * the counts in memory (the in-memory path looks them up in whole tables: jelinek-mercer.ts).
  *
  * EM needs, for every held-out token and order n, the context h's total c(h) = Σ_v c(h v), the total
- * of its kept n-grams, and c(h w) when h w is kept. The lookups are gathered first — one query per
- * distinct context and order, with the words asked about in it — and then answered partition by
+ * of its kept n-grams, and c(h w) when h w is kept. The lookups are gathered first — per order, the
+ * distinct held-out n-grams h w, sorted, so grouped by context — and then answered partition by
  * partition: all n-grams h v of a context lie in the partition of h's last word (count/hash.ts), in
- * one key range of its store, which is read once. Unigram figures come from the order-1 level.
+ * one key range of its store, read once, contexts in key order so that the store is read forwards
+ * and contexts that share a block share its decoding. Unigram figures come from the order-1 level.
  *
- * Memory: the queries, i.e. in proportion to the held-out text (which is held in memory anyway),
- * never to the counts. Time: one range read per distinct held-out context and order.
+ * Memory: the queries, flat typed arrays of about (4n + 8) bytes per held-out token and order, in
+ * proportion to the held-out text (which is held in memory anyway), never to the counts.
  *
  * The held-out text itself (`readHeldOutText`) is read by the corpus reader and tokenised as the
  * job's text was.
@@ -22,35 +23,114 @@ import { discoverInputs } from '../corpus/discover.ts';
 import { planChunks } from '../corpus/plan.ts';
 import { readChunk } from '../corpus/read.ts';
 import { makeTokenizer } from '../corpus/tokenize.ts';
+import { silentProgress, type ProgressSink } from '../job/context.ts';
 import { readManifest, type JobManifest } from '../job/manifest.ts';
-import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
+import { PartitionStore, partitionStoreDir } from '../merge/store.ts';
+import { compareRows, type DecodedBlock } from '../count/block-codec.ts';
+import { contextStarts, searchRows } from './rows.ts';
 import { checkCutoffs, unigramLevel, type CutoffOptions, type Level } from './back-off-form.ts';
 import { vocabularySize } from './counts.ts';
 import { fitWeights, forEachHeldOutToken, type FitOptions, type HeldOutEntry, type HeldOutLookup } from './jelinek-mercer.ts';
 import type { InterpolationWeights } from './model.ts';
 import { loadUnigrams } from './stream-stage.ts';
 
-/** One distinct context of one order that held-out tokens look up, and the words they ask about. */
-interface ContextQuery {
+/**
+ * The distinct n-grams h w of one order n ≥ 2 that held-out tokens look up, sorted (rows of n ids,
+ * as rows.ts keeps tables), grouped by context, with what the store says of them.
+ */
+interface OrderQueries {
   order: number;
-  /** The context's ids (order − 1 of them). */
-  context: Uint32Array;
-  /** c(h w) of each word asked about when h w is kept, else 0 (filled in when answered). */
-  words: Map<number, number>;
-  total: number;
-  keptTotal: number;
+  rows: number;
+  ids: Uint32Array;
+  /** Context j spans rows [contextStarts[j], contextStarts[j+1]). */
+  contextStarts: Uint32Array;
+  /** Per row: c(h w) when h w is kept, else 0. */
+  keptCount: Float64Array;
+  /** Per context: c(h) and the total of its kept n-grams (0 and 0: never seen). */
+  total: Float64Array;
+  keptTotal: Float64Array;
 }
 
-/** The query's key: order and context ids. */
-function queryKey(order: number, wrapped: ArrayLike<number>, from: number, to: number): string {
-  let key = String(order);
-  for (let k = from; k < to; k++) key += ',' + wrapped[k];
-  return key;
+/** The sorted distinct n-grams of order n (≥ 2) of the held-out tokens whose history allows order n. */
+function gatherOrder(n: number, heldOut: ReadonlyArray<ArrayLike<number>>, job: HeldOutJob): OrderQueries {
+  let tokens = 0;
+  forEachHeldOutToken(heldOut, job.order, job.size, job.eosId, (_wrapped, _i, top) => {
+    if (top >= n) tokens++;
+  });
+  const all = new Uint32Array(tokens * n);
+  let row = 0;
+  forEachHeldOutToken(heldOut, job.order, job.size, job.eosId, (wrapped, i, top) => {
+    if (top < n) return;
+    for (let k = 0; k < n; k++) all[row * n + k] = wrapped[i - n + 1 + k];
+    row++;
+  });
+  const order = Array.from({ length: tokens }, (_, r) => r).sort((a, b) => compareRows(all, a * n, all, b * n, n));
+  let distinct = 0;
+  const ids = new Uint32Array(tokens * n);
+  for (let r = 0; r < tokens; r++) {
+    const from = order[r] * n;
+    if (distinct > 0 && compareRows(ids, (distinct - 1) * n, all, from, n) === 0) continue;
+    ids.set(all.subarray(from, from + n), distinct * n);
+    distinct++;
+  }
+  const starts = contextStarts(ids, n, distinct);
+  const contexts = starts.length - 1;
+  return {
+    order: n, rows: distinct, ids: ids.slice(0, distinct * n), contextStarts: starts,
+    keptCount: new Float64Array(distinct), total: new Float64Array(contexts), keptTotal: new Float64Array(contexts),
+  };
 }
 
-function compareContexts(a: Uint32Array, b: Uint32Array): number {
-  for (let k = 0; k < a.length; k++) if (a[k] !== b[k]) return a[k] - b[k];
-  return 0;
+/**
+ * Reads one order of one partition's store forwards, for contexts asked in ascending order: a
+ * context whose rows begin in the block read last is answered from it without a new seek, so that
+ * the many held-out contexts that share a block cost one decode.
+ */
+class ForwardReader {
+  private blocks: Generator<DecodedBlock> | null = null;
+  private block: DecodedBlock | null = null;
+
+  constructor(private readonly store: PartitionStore, private readonly order: number) {}
+
+  /** Calls `visit(keys, counts, row)` for every stored n-gram that starts with `context` (order − 1 ids), in key order. Returns their number. */
+  rowsOf(context: Uint32Array, visit: (keys: Uint32Array, counts: Float64Array, row: number) => void): number {
+    const n = this.order;
+    const length = n - 1;
+    let block = this.block;
+    if (block === null || compareRows(block.keys, (block.recordCount - 1) * n, context, 0, length) < 0 || compareRows(block.keys, 0, context, 0, length) > 0) {
+      // Not in the block read last: seek the block that may hold the context's first n-gram.
+      this.blocks?.return(undefined);
+      this.blocks = this.store.blocks(n, context, 'raw', true);
+      block = this.next();
+    }
+    let rows = 0;
+    while (block !== null) {
+      // The first row ≥ the context (binary search), then the rows that start with it.
+      let low = 0;
+      let high = block.recordCount;
+      while (low < high) {
+        const middle = (low + high) >>> 1;
+        if (compareRows(block.keys, middle * n, context, 0, length) < 0) low = middle + 1;
+        else high = middle;
+      }
+      let row = low;
+      for (; row < block.recordCount && compareRows(block.keys, row * n, context, 0, length) === 0; row++, rows++) visit(block.keys, block.counts, row);
+      if (row < block.recordCount) break; // past the context
+      block = this.next(); // the context may go on in the next block
+      if (block !== null && compareRows(block.keys, 0, context, 0, length) !== 0) break;
+    }
+    return rows;
+  }
+
+  private next(): DecodedBlock | null {
+    const step = (this.blocks as Generator<DecodedBlock>).next();
+    this.block = step.done ? null : step.value;
+    return this.block;
+  }
+
+  close(): void {
+    this.blocks?.return(undefined);
+  }
 }
 
 /** What the lookups need of the job. */
@@ -70,40 +150,25 @@ export interface HeldOutJob {
 
 /**
  * Answers, from the job's store, every lookup EM will make for `heldOut` (ids as fitWeights takes
- * them) and returns them as a HeldOutLookup. `onContext` hears of each context read, for progress.
+ * them) and returns them as a HeldOutLookup. `progress` counts the contexts read.
  */
-export async function storeLookup(job: HeldOutJob, heldOut: ReadonlyArray<ArrayLike<number>>, onContext: (done: number, all: number) => void = () => undefined): Promise<HeldOutLookup> {
-  const { order, unigrams, cutoffs } = job;
-  const queries = new Map<string, ContextQuery>();
-  forEachHeldOutToken(heldOut, order, job.size, job.eosId, (wrapped, i, top) => {
-    for (let n = 2; n <= top; n++) {
-      const key = queryKey(n, wrapped, i - n + 1, i);
-      let query = queries.get(key);
-      if (query === undefined) {
-        query = { order: n, context: Uint32Array.from(wrapped.slice(i - n + 1, i)), words: new Map(), total: 0, keptTotal: 0 };
-        queries.set(key, query);
+export async function storeLookup(job: HeldOutJob, heldOut: ReadonlyArray<ArrayLike<number>>, progress: ProgressSink = silentProgress): Promise<HeldOutLookup> {
+  const { unigrams, cutoffs } = job;
+  const orders: OrderQueries[] = [];
+  for (let n = 2; n <= job.order; n++) orders.push(gatherOrder(n, heldOut, job));
+  const contexts = orders.reduce((sum, q) => sum + q.total.length, 0);
+  progress.start(`reading the ${contexts} contexts of the held-out text`, contexts, 'tasks', 'n-grams');
+  try {
+    for (let p = 0; p < job.partitions; p++) {
+      const store = PartitionStore.open(path.join(job.jobDir, partitionStoreDir(p)), 'read');
+      try {
+        for (const queries of orders) answerPartition(store, p, job.partitions, queries, cutoffs[queries.order - 1], progress);
+      } finally {
+        await store.close();
       }
-      query.words.set(wrapped[i], 0);
     }
-  });
-
-  // By partition, each partition's contexts in key order (order, then ids): its store is read forwards.
-  const byPartition: ContextQuery[][] = Array.from({ length: job.partitions }, () => []);
-  for (const query of queries.values()) byPartition[partitionOf(query.context, 0, query.order, job.partitions)].push(query);
-  let done = 0;
-  for (let p = 0; p < job.partitions; p++) {
-    const list = byPartition[p];
-    if (list.length === 0) continue;
-    list.sort((a, b) => a.order - b.order || compareContexts(a.context, b.context));
-    const store = PartitionStore.open(path.join(job.jobDir, partitionStoreDir(p)), 'read');
-    try {
-      for (const query of list) {
-        await answer(store, query, cutoffs[query.order - 1]);
-        onContext(++done, queries.size);
-      }
-    } finally {
-      await store.close();
-    }
+  } finally {
+    progress.stop();
   }
 
   let unigramTotal = 0;
@@ -116,29 +181,58 @@ export async function storeLookup(job: HeldOutJob, heldOut: ReadonlyArray<ArrayL
   return (n, wrapped, i) => {
     const word = wrapped[i];
     if (n === 1) return { total: unigramTotal, keptTotal: unigramKept, keptCount: unigrams.kept[word] === 1 ? unigrams.counts[word] : 0 };
-    const query = queries.get(queryKey(n, wrapped, i - n + 1, i));
-    assert(query !== undefined && query.words.has(word), 'every held-out lookup was gathered beforehand');
-    return query.total === 0 ? none : { total: query.total, keptTotal: query.keptTotal, keptCount: query.words.get(word) as number };
+    const queries = orders[n - 2];
+    const row = searchRows(queries.ids, n, queries.rows, wrapped, i - n + 1);
+    assert(row >= 0, 'every held-out lookup was gathered beforehand');
+    const context = contextOf(queries.contextStarts, row);
+    const total = queries.total[context];
+    return total === 0 ? none : { total, keptTotal: queries.keptTotal[context], keptCount: queries.keptCount[row] };
   };
 }
 
-/** Reads the n-grams of the query's context from `store`: its totals, and the counts of its words. */
-async function answer(store: PartitionStore, query: ContextQuery, cutoff: number): Promise<void> {
-  const n = query.order;
-  const source = new StoreSource(store, n, query.context, 'raw', true);
+/** Index of the context whose rows include `row`. */
+function contextOf(starts: Uint32Array, row: number): number {
+  let low = 0;
+  let high = starts.length - 2;
+  while (low < high) {
+    const middle = (low + high + 1) >>> 1;
+    if (starts[middle] <= row) low = middle;
+    else high = middle - 1;
+  }
+  return low;
+}
+
+/**
+ * Answers the contexts of `queries` that lie in partition `partition` from its store: each
+ * context's totals, and the counts of the words asked about in it (both sorted: merged).
+ */
+function answerPartition(store: PartitionStore, partition: number, partitions: number, queries: OrderQueries, cutoff: number, progress: ProgressSink): void {
+  const n = queries.order;
+  const reader = new ForwardReader(store, n);
   try {
-    for (let batch = await source.nextBatch(); batch !== null; batch = await source.nextBatch()) {
-      for (let row = 0; row < batch.recordCount; row++) {
-        const count = batch.counts[row];
-        query.total += count;
-        if (count < cutoff) continue;
-        query.keptTotal += count;
-        const word = batch.keys[row * n + n - 1];
-        if (query.words.has(word)) query.words.set(word, count);
-      }
+    const { ids, contextStarts: starts } = queries;
+    for (let j = 0; j + 1 < starts.length; j++) {
+      const first = starts[j];
+      if (partitionOf(ids, first * n, n, partitions) !== partition) continue;
+      const context = ids.subarray(first * n, first * n + n - 1);
+      let asked = first; // the next row asked about, by word
+      let total = 0;
+      let keptTotal = 0;
+      const rows = reader.rowsOf(context, (keys, counts, row) => {
+        const count = counts[row];
+        total += count;
+        if (count < cutoff) return;
+        keptTotal += count;
+        const word = keys[row * n + n - 1];
+        while (asked < starts[j + 1] && ids[asked * n + n - 1] < word) asked++;
+        if (asked < starts[j + 1] && ids[asked * n + n - 1] === word) queries.keptCount[asked] = count;
+      });
+      queries.total[j] = total;
+      queries.keptTotal[j] = keptTotal;
+      progress.update(1, rows);
     }
   } finally {
-    await source.close();
+    reader.close();
   }
 }
 
@@ -147,7 +241,7 @@ async function answer(store: PartitionStore, query: ContextQuery, cutoff: number
  * job, as fitWeights takes them), with lookups in its store; the weights then go to the streaming
  * estimate as a planned request (method-plan.ts).
  */
-export async function fitWeightsOnJob(jobDir: string, heldOut: ReadonlyArray<ArrayLike<number>>, options: FitOptions & CutoffOptions = {}, onContext?: (done: number, all: number) => void): Promise<InterpolationWeights> {
+export async function fitWeightsOnJob(jobDir: string, heldOut: ReadonlyArray<ArrayLike<number>>, options: FitOptions & CutoffOptions = {}, progress?: ProgressSink): Promise<InterpolationWeights> {
   const job = await readManifest(jobDir);
   if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
   if (job.stages.continuation?.status !== 'done') {
@@ -159,7 +253,7 @@ export async function fitWeightsOnJob(jobDir: string, heldOut: ReadonlyArray<Arr
   const cutoffs = checkCutoffs(options.cutoffs, order);
   const rows = await loadUnigrams(jobDir, job.config.partitions, false);
   const unigrams = unigramLevel(rows.ids, rows.counts, null, size, order === 1);
-  const lookup = await storeLookup({ jobDir, partitions: job.config.partitions, order, size, eosId: vocabulary.eosId, cutoffs, unigrams }, heldOut, onContext);
+  const lookup = await storeLookup({ jobDir, partitions: job.config.partitions, order, size, eosId: vocabulary.eosId, cutoffs, unigrams }, heldOut, progress);
   return fitWeights(order, size, vocabulary.eosId, heldOut, lookup, options);
 }
 

@@ -4,6 +4,7 @@
  * hook waits for the transaction's lock forever): that hung `quern count` on SIGINT/SIGTERM.
  */
 import { spawn } from 'node:child_process';
+import { rmSync } from 'node:fs';
 import * as path from 'node:path';
 import { Worker } from 'node:worker_threads';
 import { describe, expect, it } from 'vitest';
@@ -16,7 +17,8 @@ const BOOT = new URL('../../src/count/worker-boot.mjs', import.meta.url);
 describe('StopGate', () => {
   it('a worker told to stop while inside a store commit finishes that commit, then ends', async () => {
     // In a child process: without the gate the worker, and so the process, never end.
-    const dir = path.join(tempDir('quern-stop-gate-'), 'store');
+    const scratch = tempDir('quern-stop-gate-');
+    const dir = path.join(scratch, 'store');
     const insideMs = 500;
     const child = spawn(process.execPath, ['--import', 'tsx', path.join(REPO, 'test/support/stop-gate-child.ts'), dir, String(insideMs)], {
       cwd: REPO, stdio: ['ignore', 'pipe', 'pipe'],
@@ -32,6 +34,7 @@ describe('StopGate', () => {
       child.kill('SIGKILL');
       await ended;
     }
+    rmSync(scratch, { recursive: true, force: true });
     expect(outcome, `the stopped worker did not end (stuck inside its write transaction): ${stderr}`).toBe(0);
     const { closeMs, terminateMs, transactions } = JSON.parse(stdout) as { closeMs: number; terminateMs: number; transactions: number };
     // close() waited for the rest of the commit the worker was in, and no commit began after it.

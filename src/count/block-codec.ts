@@ -165,27 +165,52 @@ export function decodeRecords(
   keys: Uint32Array,
   counts: Float64Array,
 ): number {
+  // Varints of one byte (most deltas and counts) are read inline; longer ones, and a byte past the
+  // end of `src` (undefined, which fails the `< 0x80` test), go through readVarU32 / readVarCount.
   const cursor: Cursor = { p: start };
   let countSum = readVarCount(src, cursor, 0);
   counts[0] = countSum;
+  let p = cursor.p;
   for (let r = 1; r < recordCount; r++) {
-    if (cursor.p >= end) throw new DecodeFailure(r, 'records end before the block record count is reached');
+    if (p >= end) throw new DecodeFailure(r, 'records end before the block record count is reached');
     const base = r * order;
     const prev = base - order;
-    const shared = src[cursor.p++];
+    const shared = src[p++];
     if (shared >= order) throw new DecodeFailure(r, `shared prefix ${shared} is not below the order ${order}`);
     for (let j = 0; j < shared; j++) keys[base + j] = keys[prev + j];
-    const delta = readVarU32(src, cursor, r);
+    let delta = src[p];
+    if (delta < 0x80) p++;
+    else {
+      cursor.p = p;
+      delta = readVarU32(src, cursor, r);
+      p = cursor.p;
+    }
     const id = keys[prev + shared] + delta;
     if (!(delta >= 1 && id <= U32_MAX)) throw new DecodeFailure(r, `id delta ${delta} at position ${shared} is not in 1..${U32_MAX - keys[prev + shared]}`);
     keys[base + shared] = id;
-    for (let j = shared + 1; j < order; j++) keys[base + j] = readVarU32(src, cursor, r);
-    const count = readVarCount(src, cursor, r);
+    for (let j = shared + 1; j < order; j++) {
+      const b = src[p];
+      if (b < 0x80) {
+        keys[base + j] = b;
+        p++;
+      } else {
+        cursor.p = p;
+        keys[base + j] = readVarU32(src, cursor, r);
+        p = cursor.p;
+      }
+    }
+    let count = src[p];
+    if (count >= 1 && count < 0x80) p++;
+    else {
+      cursor.p = p;
+      count = readVarCount(src, cursor, r);
+      p = cursor.p;
+    }
     counts[r] = count;
     countSum += count;
-    if (cursor.p > end) throw new DecodeFailure(r, 'record runs past the end of the block');
+    if (p > end) throw new DecodeFailure(r, 'record runs past the end of the block');
   }
-  if (cursor.p !== end) throw new DecodeFailure(recordCount - 1, `records end at byte ${cursor.p - start} of ${end - start}`);
+  if (p !== end) throw new DecodeFailure(recordCount - 1, `records end at byte ${p - start} of ${end - start}`);
   return countSum;
 }
 

@@ -246,16 +246,7 @@ export class CounterSet {
           k++;
         }
       }
-      const counter = counters[n - 1];
-      k = 0;
-      for (let s = first; s < last; s++) {
-        const start = starts[s];
-        const length = starts[s + 1] - start;
-        if (n > 1) k += Math.min(n - 2, length - 1);
-        for (let position = Math.max(1, n - 1); position < length; position++) {
-          if (!counter.add(ids, start + position - n + 1, hashes[k++])) assert(false, 'reserve() left room for the batch');
-        }
-      }
+      counters[n - 1].addBatch(ids, starts, first, last, hashes);
     }
   }
 

@@ -54,6 +54,8 @@ export class NgramCounter {
   /** The log: logCapacity × stride words, rows 0 .. logCount − 1 in use. Empty when not logged. */
   log: Uint32Array;
   logCount = 0;
+  /** Where addBatch's warming read leaves its result, so that the read is not optimised away. */
+  warmSink = 0;
   /** The seen-filter: bit h >>> filterShift. Empty when not logged. */
   private filter: Uint32Array;
   private filterShift: number;
@@ -205,6 +207,67 @@ export class NgramCounter {
       if (this.logCount + this.tableSize >= this.logCapacity && !this.inTable(ids, start, hash)) return false;
     }
     return this.addToTable(ids, start, hash, increment);
+  }
+
+  /**
+   * Adds one occurrence of every n-gram of this order in the wrapped sentences `first .. last−1`
+   * (sentence s is `ids[starts[s] .. starts[s+1])`, as CounterSet.addSentences takes them), in
+   * position order; `hashes` holds their hashes in that order, with a slot left unused for each
+   * position below order − 1 (CounterSet.addSentences lays them out). Like `add` for each, with
+   * the log's and the filter's fields held in locals over the batch. There must be room for them
+   * all (CounterSet.reserve): running out is an assertion failure.
+   */
+  addBatch(ids: Uint32Array, starts: Uint32Array, first: number, last: number, hashes: Int32Array): void {
+    const order = this.order;
+    if (!this.logged) {
+      let k = 0;
+      for (let s = first; s < last; s++) {
+        const start = starts[s];
+        const length = starts[s + 1] - start;
+        for (let position = 1; position < length; position++) {
+          if (!this.add(ids, start + position, hashes[k++])) assert(false, 'reserve() left room for the batch');
+        }
+      }
+      return;
+    }
+    const filter = this.filter;
+    const filterShift = this.filterShift;
+    const log = this.log;
+    const stride = this.stride;
+    const logCapacity = log.length / stride;
+    let logCount = this.logCount;
+    // First a branch-free read of every filter word the batch tests (and of a few unused slots'),
+    // so that their cache misses overlap instead of waiting one by one behind mispredicted branches.
+    const positions = starts[last] - starts[first] - (last - first);
+    let warm = 0;
+    for (let i = 0; i < positions; i++) warm ^= filter[(hashes[i] >>> filterShift) >>> 5];
+    this.warmSink = warm;
+    let k = 0;
+    for (let s = first; s < last; s++) {
+      const start = starts[s];
+      const length = starts[s + 1] - start;
+      k += Math.min(order - 2, length - 1);
+      for (let position = order - 1; position < length; position++) {
+        const at = start + position - order + 1;
+        const hash = hashes[k++];
+        const bit = hash >>> filterShift;
+        const word = bit >>> 5;
+        const mask = 1 << (bit & 31);
+        const bits = filter[word];
+        if ((bits & mask) === 0) {
+          if (logCount + this.tableSize >= logCapacity) assert(false, 'reserve() left room for the batch');
+          filter[word] = bits | mask;
+          const base = logCount++ * stride;
+          log[base] = 1;
+          for (let j = 0; j < order; j++) log[base + 1 + j] = ids[at + j];
+          continue;
+        }
+        // A table entry takes log room too (the invariant).
+        if (logCount + this.tableSize >= logCapacity && !this.inTable(ids, at, hash)) assert(false, 'reserve() left room for the batch');
+        if (!this.addToTable(ids, at, hash, 1)) assert(false, 'reserve() left room for the batch');
+      }
+    }
+    this.logCount = logCount;
   }
 
   private addToTable(ids: Uint32Array, start: number, hash: number, increment: number): boolean {

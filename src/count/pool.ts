@@ -7,6 +7,7 @@
  */
 import { Worker } from 'node:worker_threads';
 import { assert, QuernError } from '../errors.ts';
+import { StopGate } from '../job/stop-gate.ts';
 import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 
 const BOOT_URL = new URL('./worker-boot.mjs', import.meta.url);
@@ -33,6 +34,8 @@ function toError(failure: Extract<FromWorker, { type: 'error' }>): Error {
 
 export class WorkerPool {
   private readonly workers: Worker[] = [];
+  /** Shared with the workers: closed before they are terminated (stop-gate.ts). */
+  private gate = new StopGate();
   private broken: unknown;
   private busy = false;
 
@@ -42,7 +45,9 @@ export class WorkerPool {
   }
 
   private worker(index: number): Worker {
-    while (this.workers.length <= index) this.workers.push(new Worker(BOOT_URL, { workerData: { module: WORKER_URL.href } }));
+    while (this.workers.length <= index) {
+      this.workers.push(new Worker(BOOT_URL, { workerData: { module: WORKER_URL.href, stopGate: this.gate.buffer } }));
+    }
     return this.workers[index];
   }
 
@@ -125,9 +130,23 @@ export class WorkerPool {
     });
   }
 
-  /** Stops every worker. */
+  /**
+   * Lets no worker start a section it must not be stopped in (a store's write transaction) and
+   * returns once none is in one, blocking the calling thread meanwhile: from then on the workers
+   * may be terminated, by `close` or by process.exit (the signal handlers call this first). The
+   * workers stay blocked at their next such section until then.
+   */
+  quiesce(): void {
+    this.gate.close();
+  }
+
+  /** Stops every worker, each between two sections it must not be stopped in. */
   async close(): Promise<void> {
     const workers = this.workers.splice(0);
+    if (workers.length === 0) return;
+    this.quiesce();
     await Promise.all(workers.map((w) => w.terminate()));
+    // Workers started later (a pool is closed after a failure) get an open gate.
+    this.gate = new StopGate();
   }
 }

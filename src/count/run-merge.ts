@@ -8,7 +8,7 @@
  * generator only when the output batch is full or a run needs its next block.
  */
 import { assert } from '../errors.ts';
-import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX } from '../limits.ts';
+import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX, VOCAB_TYPES_MAX } from '../limits.ts';
 import type { RunBatch } from './run-file.ts';
 
 /** Anything that yields sorted batches of one order: a run file, or a partition of the store. */
@@ -20,6 +20,10 @@ export interface BatchSource {
   nextBatch(): Promise<RunBatch | null>;
   close(): Promise<void>;
 }
+
+/** The head of a used-up source in every word: above every word id (VOCAB_TYPES_MAX). */
+const EXHAUSTED_ID = 0xffff_ffff;
+assert(VOCAB_TYPES_MAX < EXHAUSTED_ID, 'a used-up source sorts above every row');
 
 /** `fill` stopped because every run is used up. */
 const FILL_DONE = -1;
@@ -33,7 +37,8 @@ class LoserTreeMerger {
   /** Current row of each source, row-major: source s at heads[s*order ..]. */
   readonly heads: Uint32Array;
   readonly headCounts: Float64Array;
-  /** 1 when a source has no rows left: it sorts above every row. */
+  /** 1 when a source has no rows left: its head is then EXHAUSTED_ID in every word, which sorts
+   *  above every row (word ids are below VOCAB_TYPES_MAX), so comparisons need no check for it. */
   readonly exhausted: Uint8Array;
   /** tree[0] is the winner (smallest head); tree[1..k) hold the losers at the internal nodes. */
   readonly tree: Int32Array;
@@ -67,6 +72,7 @@ class LoserTreeMerger {
     this.rowIndexes[s] = 0;
     if (batch === null) {
       this.exhausted[s] = 1;
+      this.heads.fill(EXHAUSTED_ID, s * this.order, (s + 1) * this.order);
       return;
     }
     this.heads.set(batch.keys.subarray(0, this.order), s * this.order);
@@ -75,9 +81,6 @@ class LoserTreeMerger {
 
   /** True when source a's head sorts before source b's (ties by source index, for determinism). */
   less(a: number, b: number): boolean {
-    const exhausted = this.exhausted;
-    if (exhausted[a] !== 0) return false;
-    if (exhausted[b] !== 0) return true;
     const heads = this.heads;
     let i = a * this.order;
     let j = b * this.order;
@@ -134,6 +137,8 @@ class LoserTreeMerger {
     for (;;) {
       const w = this.tree[0];
       if (this.sourceCount === 0 || this.exhausted[w] !== 0) {
+        // The winner sorts above every row only when every source is used up.
+        for (let s = 0; s < this.sourceCount; s++) if (this.exhausted[s] === 0) assert(false, `${this.sourceNames[s]} holds a row of ids ${EXHAUSTED_ID}, above every word id`);
         this.outSize = outSize;
         return FILL_DONE;
       }
@@ -202,6 +207,10 @@ export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGe
     for (const reader of readers) {
       assert(reader.order === order, `source ${reader.name} has order ${reader.order}, merge expects ${order}`);
     }
+    if (readers.length === 1) {
+      yield* passThrough(readers[0], order);
+      return;
+    }
     const merger = new LoserTreeMerger(readers.map((reader) => reader.name), order);
     const nextBatch = async (s: number): Promise<RunBatch | null> => {
       let batch: RunBatch | null;
@@ -224,5 +233,40 @@ export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGe
     if (merger.outSize > 0) yield merger.takeOutput();
   } finally {
     await Promise.all(readers.map((reader) => reader.close().catch(() => {})));
+  }
+}
+
+/**
+ * The merge of a single source: its rows, checked to increase strictly (every source's rows do: a
+ * run file's, a store's, the local continuation counts'; equal rows within one source are out of
+ * order), copied out in batches of at most MERGE_BATCH_RECORDS — the loser tree's per-row work
+ * without the tree. The continuation counts of orders ≥ 2 come from one source per partition
+ * (local-continuation.ts).
+ */
+async function* passThrough(source: BatchSource, order: number): AsyncGenerator<RunBatch> {
+  const last = new Uint32Array(order);
+  let rows = 0;
+  for (;;) {
+    const batch = await source.nextBatch();
+    if (batch === null) return;
+    const { keys, counts, recordCount } = batch;
+    if (recordCount === 0) continue;
+    // Each row against the row before it: the previous batch's last row for the first.
+    let j = 0;
+    if (rows > 0) {
+      while (j < order && keys[j] === last[j]) j++;
+      if (j === order || keys[j] < last[j]) assert(false, `merge input out of order: a row of ${source.name} is not above the row before it`);
+    }
+    for (let at = order, end = recordCount * order; at < end; at += order) {
+      j = 0;
+      while (j < order && keys[at + j] === keys[at - order + j]) j++;
+      if (j === order || keys[at + j] < keys[at - order + j]) assert(false, `merge input out of order: a row of ${source.name} is not above the row before it`);
+    }
+    for (let first = 0; first < recordCount; first += MERGE_BATCH_RECORDS) {
+      const end = Math.min(recordCount, first + MERGE_BATCH_RECORDS);
+      yield { keys: keys.slice(first * order, end * order), counts: counts.slice(first, end), recordCount: end - first };
+    }
+    last.set(keys.subarray((recordCount - 1) * order, recordCount * order));
+    rows += recordCount;
   }
 }

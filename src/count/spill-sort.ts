@@ -8,7 +8,8 @@
  *  2. a counting pass by partition moves them into the scratch;
  *  3. each partition alone (a few MB: it stays in cache) goes through an LSD radix sort on its ids,
  *     last id first, as many passes per id as the largest id present needs, digits of at most
- *     RADIX_BITS_MAX bits; a pass whose digit is the same for every row is skipped;
+ *     RADIX_BITS_MAX bits; a pass whose digit is the same for every row is skipped. The histograms
+ *     of all the passes come from one read of the rows before the first pass;
  *  4. the sorted rows are split into the ids and the counts the run-file writer takes; an n-gram
  *     with a row in both the log and the table becomes one record with the sum of the counts.
  * The gathering array and the scratch take turns as source and target. The counter's contents are
@@ -16,6 +17,7 @@
  */
 import { assert } from '../errors.ts';
 import { partitionOf } from './hash.ts';
+import { scatterRows } from './radix.ts';
 import type { NgramCounter } from './counter.ts';
 
 /** Widest radix digit: 2^11 histogram buckets stay in the first-level cache. */
@@ -87,7 +89,9 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   const passesPerId = Math.ceil(idBits / RADIX_BITS_MAX);
   const digitBits = Math.ceil(idBits / passesPerId);
   const buckets = 1 << digitBits;
-  const histogram = new Uint32Array(buckets);
+  // One histogram per pass, all filled by one read of the partition's rows (digitHistograms): a
+  // pass then reads its rows once, to move them, instead of twice.
+  const histograms = new Uint32Array(order * passesPerId * buckets);
   const outputs: Uint32Array[] = [];
   const records = new Uint32Array(partitions);
   for (let p = 0; p < partitions; p++) {
@@ -95,9 +99,11 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
     const end = partitionStarts[p + 1];
     let source = scratch;
     let target = front;
+    digitHistograms(source, begin, end, stride, order, passesPerId, digitBits, histograms);
     for (let k = order; k >= 1; k--) {
-      for (let shift = 0; shift < idBits; shift += digitBits) {
-        if (radixPass(source, target, begin, end, stride, k, shift, buckets - 1, histogram)) [source, target] = [target, source];
+      for (let pass = 0; pass < passesPerId; pass++) {
+        const histogram = histograms.subarray(((k - 1) * passesPerId + pass) * buckets, ((k - 1) * passesPerId + pass + 1) * buckets);
+        if (radixPass(source, target, begin, end, stride, k, pass * digitBits, buckets - 1, histogram)) [source, target] = [target, source];
       }
     }
     records[p] = splitRows(source, target, begin, end, stride, order, counter.logged);
@@ -153,16 +159,50 @@ function denseOrder(counter: NgramCounter, partitions: number, scratch: Uint32Ar
 }
 
 /**
+ * The digit histograms of every radix pass over rows begin..end of `rows` (count, then `order`
+ * ids): for id k (1-based word of the row) and pass q, the counts of the digit
+ * (id >>> q·digitBits) & (2^digitBits − 1), at histograms[((k−1)·passesPerId + q) · 2^digitBits ..].
+ * A pass only permutes rows, so the histograms hold for every pass whatever the order before it.
+ */
+function digitHistograms(
+  rows: Uint32Array, begin: number, end: number, stride: number, order: number, passesPerId: number, digitBits: number, histograms: Uint32Array,
+): void {
+  histograms.fill(0);
+  const mask = (1 << digitBits) - 1;
+  const buckets = 1 << digitBits;
+  const last = end * stride;
+  if (passesPerId === 2) {
+    // The usual case (ids of 12 to 22 bits), unrolled.
+    for (let k = 1; k <= order; k++) {
+      const low = (k - 1) * 2 * buckets;
+      const high = low + buckets;
+      for (let j = begin * stride + k; j < last; j += stride) {
+        const id = rows[j];
+        histograms[low + (id & mask)]++;
+        histograms[high + ((id >>> digitBits) & mask)]++;
+      }
+    }
+    return;
+  }
+  for (let k = 1; k <= order; k++) {
+    for (let pass = 0; pass < passesPerId; pass++) {
+      const at = ((k - 1) * passesPerId + pass) * buckets;
+      const shift = pass * digitBits;
+      for (let j = begin * stride + k; j < last; j += stride) histograms[at + ((rows[j] >>> shift) & mask)]++;
+    }
+  }
+}
+
+/**
  * One stable counting pass over rows begin..end of `source` by the digit (row[word] >>> shift) &
- * mask, into the same rows of `target`. Returns false, moving nothing, when every row has the
- * same digit (the order would not change).
+ * mask, into the same rows of `target`, given the digit's histogram over those rows (which it
+ * turns into offsets). Returns false, moving nothing, when every row has the same digit (the order
+ * would not change).
  */
 function radixPass(
   source: Uint32Array, target: Uint32Array, begin: number, end: number, stride: number,
   word: number, shift: number, mask: number, histogram: Uint32Array,
 ): boolean {
-  histogram.fill(0);
-  for (let j = begin * stride + word, last = end * stride; j < last; j += stride) histogram[(source[j] >>> shift) & mask]++;
   const rows = end - begin;
   let offset = begin;
   for (let b = 0; b <= mask; b++) {
@@ -171,10 +211,7 @@ function radixPass(
     histogram[b] = offset;
     offset += n;
   }
-  for (let from = begin * stride, last = end * stride; from < last; from += stride) {
-    const to = histogram[(source[from + word] >>> shift) & mask]++ * stride;
-    for (let w = 0; w < stride; w++) target[to + w] = source[from + w];
-  }
+  scatterRows(source, target, begin, end, stride, word, shift, mask, histogram);
   return true;
 }
 

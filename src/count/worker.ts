@@ -5,7 +5,7 @@
  * files when its budget is reached and at the end of every chunk (so a finished chunk is a durable
  * unit of work). Tokens come from corpus/read-tokens.ts, a read block at a time.
  */
-import { parentPort, threadId } from 'node:worker_threads';
+import { parentPort, threadId, workerData } from 'node:worker_threads';
 import { assert, QuernError } from '../errors.ts';
 import { COUNTER_BATCH_POSITIONS } from '../limits.ts';
 import { RESERVED_WORDS, reserveWords, type TokenBlock } from '../corpus/byte-tokenizer.ts';
@@ -13,6 +13,7 @@ import { TokenReader } from '../corpus/read-tokens.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { WordTable } from '../corpus/word-table.ts';
 import { stageFs } from '../job/fsio.ts';
+import { installStopGate, StopGate } from '../job/stop-gate.ts';
 import type { ChunkResult, RunRecord } from '../job/manifest.ts';
 import type { Chunk, ReadOptions } from '../corpus/types.ts';
 import { CounterSet, type CounterNeed } from './counter-set.ts';
@@ -30,6 +31,8 @@ const PROGRESS_INTERVAL_MS = 200;
 
 const port = parentPort!;
 const fs = stageFs();
+// The pool's gate: this thread's store commits go through it, so the pool can stop it between them.
+installStopGate(new StopGate((workerData as { stopGate: SharedArrayBuffer }).stopGate));
 
 function readOptionsOf(chunk: Chunk): ReadOptions {
   return { format: init.inputs[chunk.fileIndex].format, textField: init.textField, skipBad: init.skipBad };

@@ -177,7 +177,11 @@ export async function estimateJobStreaming(request: StreamEstimateRequest): Prom
     throw new QuernError('config', `the count in ${jobDir} has not finished; re-run the same quern count command to complete it`);
   }
   const lock = await lockJob(jobDir);
-  const removeSignalHandlers = request.handleSignals ? stopCleanlyOnSignals(jobDir, lock.file, 're-run the same quern estimate command to continue it.') : () => undefined;
+  // Nothing to wait for before the exit: estimate workers only read the stores (no write
+  // transaction, stop-gate.ts) and write result files.
+  const removeSignalHandlers = request.handleSignals
+    ? stopCleanlyOnSignals(jobDir, lock.file, 're-run the same quern estimate command to continue it.', () => undefined)
+    : () => undefined;
   try {
     return await runStage(job, jobDir, fs, progress, request, started);
   } finally {

@@ -140,8 +140,8 @@ export async function runCount(request: CountRequest): Promise<CountSummary> {
   const jobDir = path.resolve(request.jobDir);
   await fs.mkdir(jobDir);
   const lock = await lockJob(jobDir);
-  const removeSignalHandlers = stopCleanlyOnSignals(jobDir, lock.file, 're-run the same command to continue it.');
   const pool = new WorkerPool(request.workers);
+  const removeSignalHandlers = stopCleanlyOnSignals(jobDir, lock.file, 're-run the same command to continue it.', () => pool.quiesce());
   try {
     await removeStaleTemporaries(jobDir);
     const { job, resumed, added } = await openJob({ ...request, jobDir }, fs);

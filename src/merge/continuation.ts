@@ -44,7 +44,9 @@ export interface EmitRequest {
 export async function emitContinuations(request: EmitRequest): Promise<RunRecord[]> {
   const { jobDir, partition, orderMax } = request;
   const store = PartitionStore.open(path.join(jobDir, partitionStoreDir(partition)), 'read');
-  const set = new CounterSet(orderMax - 1, request.counterBytesMax);
+  // Suffixes are word ids below idMax: unigram suffixes go to an array indexed by id when it fits
+  // (CounterSet's dense order 1), with no hashing or probing per bigram.
+  const set = new CounterSet(orderMax - 1, request.counterBytesMax, request.idMax);
   const runs: RunRecord[] = [];
   let spill = 0;
   const spillAll = async (): Promise<void> => {

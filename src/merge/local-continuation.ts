@@ -15,6 +15,7 @@
  */
 import { assert } from '../errors.ts';
 import type { BatchSource } from '../count/run-merge.ts';
+import { scatterRows } from '../count/radix.ts';
 import type { RunBatch } from '../count/run-file.ts';
 import type { PartitionStore } from './store.ts';
 
@@ -57,36 +58,52 @@ const SORT_DIGIT_BITS = 11;
 
 /**
  * Sorts `n` rows of `width` ids (row-major in `rows`) lexicographically by an LSD radix sort, last
- * id first, digits of at most SORT_DIGIT_BITS bits, skipping digits that are the same in every
- * row; `scratch` holds as many ids. Returns whichever of the two arrays holds the result. Every
- * pass reads and writes memory in order (one write stream per digit value), which keeps it fast
- * on tables far larger than the caches.
+ * id first; `scratch` holds as many ids. Returns whichever of the two arrays holds the result.
+ * Every pass reads and writes memory in order (one write stream per digit value), which keeps it
+ * fast on tables far larger than the caches. `idBitsAll`, the OR of every id (computed when not
+ * given), sets the digits: as few passes per id as ids of that many bits need, with digits of at
+ * most SORT_DIGIT_BITS bits, balanced; the histograms of all passes come from one read of the rows,
+ * and a pass whose digit is the same in every row is skipped.
  */
-export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, width: number): Uint32Array {
+export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, width: number, idBitsAll?: number): Uint32Array {
+  if (idBitsAll === undefined) {
+    idBitsAll = 0;
+    for (let j = 0; j < n * width; j++) idBitsAll |= rows[j];
+  }
+  const idBits = Math.max(1, 32 - Math.clz32(idBitsAll));
+  const passesPerId = Math.ceil(idBits / SORT_DIGIT_BITS);
+  const digitBits = Math.ceil(idBits / passesPerId);
+  const buckets = 1 << digitBits;
+  const mask = buckets - 1;
+  // histograms[((k · passesPerId) + q) · buckets + d]: rows whose id k has digit d in pass q.
+  const histograms = new Uint32Array(width * passesPerId * buckets);
+  const last = n * width;
+  for (let k = 0; k < width; k++) {
+    for (let q = 0; q < passesPerId; q++) {
+      const at = (k * passesPerId + q) * buckets;
+      const shift = q * digitBits;
+      for (let j = k; j < last; j += width) histograms[at + ((rows[j] >>> shift) & mask)]++;
+    }
+  }
   let src = rows;
   let dst = scratch;
-  const histogram = new Uint32Array(1 << SORT_DIGIT_BITS);
   for (let k = width - 1; k >= 0; k--) {
-    let bits = 0;
-    for (let r = 0; r < n; r++) bits |= src[r * width + k];
-    for (let shift = 0; shift < 32 && (bits >>> shift) !== 0; shift += SORT_DIGIT_BITS) {
-      const mask = (1 << SORT_DIGIT_BITS) - 1;
-      histogram.fill(0);
-      for (let r = 0; r < n; r++) histogram[(src[r * width + k] >>> shift) & mask]++;
-      let used = 0;
-      for (let d = 0; d <= mask; d++) if (histogram[d] !== 0) used++;
-      if (used <= 1) continue; // the same digit in every row: order unchanged
+    for (let q = 0; q < passesPerId; q++) {
+      const at = (k * passesPerId + q) * buckets;
+      const shift = q * digitBits;
       let sum = 0;
-      for (let d = 0; d <= mask; d++) {
-        const c = histogram[d];
-        histogram[d] = sum;
+      let skip = false;
+      for (let d = 0; d < buckets; d++) {
+        const c = histograms[at + d];
+        if (c === n) {
+          skip = true; // the same digit in every row: order unchanged
+          break;
+        }
+        histograms[at + d] = sum;
         sum += c;
       }
-      for (let r = 0; r < n; r++) {
-        const from = r * width;
-        const to = histogram[(src[from + k] >>> shift) & mask]++ * width;
-        for (let j = 0; j < width; j++) dst[to + j] = src[from + j];
-      }
+      if (skip) continue;
+      scatterRows(src, dst, 0, n, width, k, shift, mask, histograms.subarray(at, at + buckets));
       const t = src;
       src = dst;
       dst = t;
@@ -103,18 +120,23 @@ export function suffixCountsBySort(higher: Iterable<{ keys: Uint32Array; recordC
   const suffixes = new Uint32Array(n * order);
   const stride = order + 1;
   let filled = 0;
+  let idBitsAll = 0;
   for (const block of higher) {
     assert(filled + block.recordCount <= n, `at most ${n} rows of order ${stride}`);
     const keys = block.keys;
     for (let j = 0; j < block.recordCount; j++) {
       const from = j * stride + 1;
       const to = (filled + j) * order;
-      for (let k = 0; k < order; k++) suffixes[to + k] = keys[from + k];
+      for (let k = 0; k < order; k++) {
+        const id = keys[from + k];
+        idBitsAll |= id;
+        suffixes[to + k] = id;
+      }
     }
     filled += block.recordCount;
   }
   assert(filled === n, `${n} rows of order ${stride} expected, ${filled} read`);
-  const sorted = sortRows(suffixes, new Uint32Array(n * order), n, order);
+  const sorted = sortRows(suffixes, new Uint32Array(n * order), n, order, idBitsAll);
   // Equal suffixes are adjacent: compact them in place, with their multiplicity.
   const counts = new Uint32Array(n);
   let size = 0;

@@ -12,6 +12,7 @@ import * as path from 'node:path';
 import { open, type RootDatabase } from 'lmdb';
 import { assert, QuernError } from '../errors.ts';
 import { STORE_BLOCK_RECORDS, STORE_MAP_BYTES } from '../limits.ts';
+import { runUnstoppable } from '../job/stop-gate.ts';
 import { compareRows, DecodeFailure, decodeBlockValue, type BlockBuffers, type DecodedBlock } from '../count/block-codec.ts';
 
 export const STORE_DIR = 'counts.lmdb';
@@ -94,10 +95,11 @@ export class PartitionStore {
     // Blocks come in key order, and the continuation space (first byte 0x41..) is written after
     // the raw space (0x01..0x07) is complete, so every block key is above all stored n-gram keys:
     // LMDB's append mode applies (metadata keys start with 0x00, below every n-gram key).
-    this.db.transactionSync(() => {
+    // A worker must not be terminated inside the transaction (stop-gate.ts): it would never end.
+    runUnstoppable(() => this.db.transactionSync(() => {
       for (const [key, value] of blocks) this.db.putSync(key, value, { append: true });
       this.db.putSync(progressKey(space), progressValue);
-    });
+    }));
   }
 
   /** Decodes the block stored under `key`, naming the store in errors. */

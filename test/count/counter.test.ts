@@ -106,7 +106,8 @@ describe('NgramCounter', () => {
 describe('spillOrder', () => {
   test('orders entries by partition, then lexicographically by ids, with their counts', () => {
     const random = seededRandom(11);
-    for (const [order, idMax, filterBits] of [[1, 300_000, 32], [2, 40, 32], [2, 40, 1 << 16], [3, 300_000, 1 << 10], [5, 300_000, 1 << 16], [3, 2 ** 31, 1 << 12]] as const) {
+    for (const [order, idMax, filterBits] of [[1, 300_000, 32], [2, 40, 32], [2, 40, 1 << 16], [3, 300_000, 1 << 10], [4, 300_000, 1 << 12], [5, 300_000, 1 << 16], [6, 5_000, 1 << 12], [3, 2 ** 31, 1 << 12]] as const) {
+      // Orders 1..6: rows of 2..7 words, every case of the radix move (count/radix.ts) and its fallback.
       const counter = new NgramCounter(order, 1 << 8, 1 << 8, filterBits);
       const ids = new Uint32Array(order);
       const naive = new Map<string, number>();

@@ -164,6 +164,31 @@ describe('mergeRuns', () => {
     await expect(call).rejects.toThrow(/merge input out of order: a row of fake.run/);
   });
 
+  it('passes a single source through, larger than a batch, and asserts when its rows do not strictly increase', async () => {
+    const random = prng(10);
+    const big = randomRun(random, 2, 40_000, 400);
+    expect(big.recordCount).toBeGreaterThan(MERGE_BATCH_RECORDS + 100);
+    await expectMergeMatchesNaive([big], 2);
+    // Equal rows within one source are out of order (a run's rows strictly increase), within a batch
+    // and across two.
+    const batches = (list: number[][][]): BatchSource => {
+      let next = 0;
+      return {
+        order: 2,
+        name: 'single.run',
+        nextBatch: async () => {
+          const rows = list[next++];
+          return rows === undefined ? null : { keys: Uint32Array.from(rows.flat()), counts: Float64Array.from(rows, () => 1), recordCount: rows.length };
+        },
+        close: async () => {},
+      };
+    };
+    await expect(collect(mergeRuns([batches([[[1, 1], [1, 1]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
+    await expect(collect(mergeRuns([batches([[[1, 1], [2, 0]], [[2, 0]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
+    await expect(collect(mergeRuns([batches([[[1, 1], [2, 0]], [[1, 5]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
+    expect((await collect(mergeRuns([batches([[[1, 1], [2, 0]], [], [[2, 1]]])], 2), 2)).counts).toEqual([1, 1, 1]);
+  });
+
   it('asserts when a merged count exceeds 2^53 − 1', async () => {
     const run: Run = { map: new Map(), keys: Uint32Array.from([4]), counts: Float64Array.from([2 ** 52]), recordCount: 1 };
     const readers = await openRuns([run, run], 1);

@@ -24,7 +24,7 @@ const lexicographic = (a: number[], b: number[]): number => {
 };
 
 describe('sortRows', () => {
-  for (const [width, idBits] of [[1, 3], [2, 11], [3, 12], [4, 18], [5, 32], [2, 0]] as const) {
+  for (const [width, idBits] of [[1, 3], [2, 11], [3, 12], [4, 18], [5, 32], [6, 20], [7, 9], [2, 0]] as const) {
     it(`sorts rows of ${width} ids of ${idBits} bits like a comparison sort`, () => {
       const n = 5000;
       const rows = randomRows(width * 100 + idBits, n, width, idBits);

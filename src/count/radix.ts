@@ -1,0 +1,74 @@
+/**
+ * The move step of an LSD radix pass over rows of `stride` 32-bit words, shared by the spill sort
+ * (spill-sort.ts) and the local continuation sort (merge/local-continuation.ts).
+ *
+ * Rows are copied word by word; for the usual strides the copy is written out, since V8 does not
+ * unroll a loop over a stride known only at run time. The result is the same either way; what it
+ * gains is measured only together with the other count-speed changes (bench:count --against, see
+ * DEVELOPERS.md, Benchmarks).
+ */
+
+/**
+ * Moves rows begin..end of `source` into `target`, row r to row `offsets[digit(r)]++`, where
+ * digit(r) = (source[r·stride + word] >>> shift) & mask: one stable counting pass. `offsets` holds
+ * each digit's first target row (the prefix sums of the digit histogram) and is advanced in place.
+ */
+export function scatterRows(
+  source: Uint32Array, target: Uint32Array, begin: number, end: number, stride: number,
+  word: number, shift: number, mask: number, offsets: Uint32Array | Int32Array,
+): void {
+  const first = begin * stride;
+  const last = end * stride;
+  switch (stride) {
+    case 2:
+      for (let from = first; from < last; from += 2) {
+        const to = offsets[(source[from + word] >>> shift) & mask]++ * 2;
+        target[to] = source[from];
+        target[to + 1] = source[from + 1];
+      }
+      return;
+    case 3:
+      for (let from = first; from < last; from += 3) {
+        const to = offsets[(source[from + word] >>> shift) & mask]++ * 3;
+        target[to] = source[from];
+        target[to + 1] = source[from + 1];
+        target[to + 2] = source[from + 2];
+      }
+      return;
+    case 4:
+      for (let from = first; from < last; from += 4) {
+        const to = offsets[(source[from + word] >>> shift) & mask]++ * 4;
+        target[to] = source[from];
+        target[to + 1] = source[from + 1];
+        target[to + 2] = source[from + 2];
+        target[to + 3] = source[from + 3];
+      }
+      return;
+    case 5:
+      for (let from = first; from < last; from += 5) {
+        const to = offsets[(source[from + word] >>> shift) & mask]++ * 5;
+        target[to] = source[from];
+        target[to + 1] = source[from + 1];
+        target[to + 2] = source[from + 2];
+        target[to + 3] = source[from + 3];
+        target[to + 4] = source[from + 4];
+      }
+      return;
+    case 6:
+      for (let from = first; from < last; from += 6) {
+        const to = offsets[(source[from + word] >>> shift) & mask]++ * 6;
+        target[to] = source[from];
+        target[to + 1] = source[from + 1];
+        target[to + 2] = source[from + 2];
+        target[to + 3] = source[from + 3];
+        target[to + 4] = source[from + 4];
+        target[to + 5] = source[from + 5];
+      }
+      return;
+    default:
+      for (let from = first; from < last; from += stride) {
+        const to = offsets[(source[from + word] >>> shift) & mask]++ * stride;
+        for (let w = 0; w < stride; w++) target[to + w] = source[from + w];
+      }
+  }
+}

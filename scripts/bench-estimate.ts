@@ -185,7 +185,9 @@ async function measure(what: string, method: string, command: string, args: stri
   const cpuMs = Math.round((user + system) * 1000);
   const row = { what, method, wallMs: measured.elapsedMs, cpuMs, rssBytesMax: measured.rssBytesMax, ngramsPerSecond: (ngrams / measured.elapsedMs) * 1000, loadAverage1m };
   log(`${what.padEnd(40)} ${method.padEnd(22)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  CPU ${(cpuMs / 1000).toFixed(1).padStart(7)} s  ${rate(row.ngramsPerSecond).padStart(8)} n-grams/s  peak RSS ${mib(row.rssBytesMax).padStart(9)}  load ${loadAverage1m.toFixed(1)}`);
-  const report = JSON.parse(measured.stdout.trim().split('\n').pop() || '{}') as { fitMs?: number; heldOutSentences?: number };
+  // estimate-once.ts ends with a JSON line (Jelinek-Mercer's with the fit's time); quern count does not.
+  const last = measured.stdout.trim().split('\n').pop() ?? '';
+  const report = (last.startsWith('{') ? JSON.parse(last) : {}) as { fitMs?: number; heldOutSentences?: number };
   if (report.fitMs !== undefined) log(`${''.padEnd(40)} of which fitting the weights on ${report.heldOutSentences} held-out sentences: ${(report.fitMs / 1000).toFixed(1)} s`);
   return row;
 }

@@ -27,7 +27,7 @@ import { silentProgress, type ProgressSink } from '../job/context.ts';
 import { readManifest, type JobManifest } from '../job/manifest.ts';
 import { PartitionStore, partitionStoreDir } from '../merge/store.ts';
 import { compareRows, type DecodedBlock } from '../count/block-codec.ts';
-import { contextStarts, searchRows } from './rows.ts';
+import { contextIndexOf, contextStarts, searchRows } from './rows.ts';
 import { checkCutoffs, unigramLevel, type CutoffOptions, type Level } from './back-off-form.ts';
 import { vocabularySize } from './counts.ts';
 import { fitWeights, forEachHeldOutToken, type FitOptions, type HeldOutEntry, type HeldOutLookup } from './jelinek-mercer.ts';
@@ -184,22 +184,10 @@ export async function storeLookup(job: HeldOutJob, heldOut: ReadonlyArray<ArrayL
     const queries = orders[n - 2];
     const row = searchRows(queries.ids, n, queries.rows, wrapped, i - n + 1);
     assert(row >= 0, 'every held-out lookup was gathered beforehand');
-    const context = contextOf(queries.contextStarts, row);
+    const context = contextIndexOf(queries.contextStarts, row);
     const total = queries.total[context];
     return total === 0 ? none : { total, keptTotal: queries.keptTotal[context], keptCount: queries.keptCount[row] };
   };
-}
-
-/** Index of the context whose rows include `row`. */
-function contextOf(starts: Uint32Array, row: number): number {
-  let low = 0;
-  let high = starts.length - 2;
-  while (low < high) {
-    const middle = (low + high + 1) >>> 1;
-    if (starts[middle] <= row) low = middle;
-    else high = middle - 1;
-  }
-  return low;
 }
 
 /**

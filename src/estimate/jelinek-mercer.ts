@@ -33,7 +33,7 @@ import { BOS_ID } from '../corpus/vocabulary.ts';
 import { buildBackOffModel, prepareCounts, type ContextRule, type CutoffOptions, type Level, type PreparedCounts } from './back-off-form.ts';
 import type { CountTables } from './counts.ts';
 import type { InterpolationBucket, InterpolationWeights, LanguageModel } from './model.ts';
-import { prefixRange, searchRows } from './rows.ts';
+import { contextIndexOf, prefixRange, searchRows } from './rows.ts';
 
 /** Options of Jelinek-Mercer interpolation. */
 export interface JelinekMercerOptions extends CutoffOptions {
@@ -125,18 +125,6 @@ function contextTotals(level: Level): ContextTotals {
     }
   }
   return { total, kept };
-}
-
-/** Index of the context whose range starts at `row`. */
-function contextIndexOf(starts: Uint32Array, row: number): number {
-  let low = 0;
-  let high = starts.length - 2;
-  while (low < high) {
-    const middle = (low + high + 1) >>> 1;
-    if (starts[middle] <= row) low = middle;
-    else high = middle - 1;
-  }
-  return low;
 }
 
 /** The held-out lookups of prepared tables in memory (binary searches in each level). */

@@ -80,3 +80,15 @@ export function contextStarts(ids: Uint32Array, order: number, rows: number): Ui
   starts[contexts] = rows;
   return starts;
 }
+
+/** Index of the context (of `starts`, as contextStarts gives them) whose rows include `row`. */
+export function contextIndexOf(starts: Uint32Array, row: number): number {
+  let low = 0;
+  let high = starts.length - 2;
+  while (low < high) {
+    const middle = (low + high + 1) >>> 1;
+    if (starts[middle] <= row) low = middle;
+    else high = middle - 1;
+  }
+  return low;
+}

@@ -24,15 +24,15 @@ import { planChunks } from '../corpus/plan.ts';
 import { readChunk } from '../corpus/read.ts';
 import { makeTokenizer } from '../corpus/tokenize.ts';
 import { silentProgress, type ProgressSink } from '../job/context.ts';
-import { readManifest, type JobManifest } from '../job/manifest.ts';
+import type { JobManifest } from '../job/manifest.ts';
 import { PartitionStore, partitionStoreDir } from '../merge/store.ts';
 import { compareRows, type DecodedBlock } from '../count/block-codec.ts';
-import { contextIndexOf, contextStarts, searchRows } from './rows.ts';
+import { contextIndexOf, contextStarts, prefixRange, searchRows } from './rows.ts';
 import { checkCutoffs, unigramLevel, type CutoffOptions, type Level } from './back-off-form.ts';
 import { vocabularySize } from './counts.ts';
-import { fitWeights, forEachHeldOutToken, type FitOptions, type HeldOutEntry, type HeldOutLookup } from './jelinek-mercer.ts';
+import { contextTotals, fitWeights, forEachHeldOutToken, type FitOptions, type HeldOutEntry, type HeldOutLookup } from './jelinek-mercer.ts';
 import type { InterpolationWeights } from './model.ts';
-import { loadUnigrams } from './stream-stage.ts';
+import { loadUnigrams, readCountedJob } from './stream-stage.ts';
 
 /**
  * The distinct n-grams h w of one order n ≥ 2 that held-out tokens look up, sorted (rows of n ids,
@@ -53,16 +53,14 @@ interface OrderQueries {
 
 /** The sorted distinct n-grams of order n (≥ 2) of the held-out tokens whose history allows order n. */
 function gatherOrder(n: number, heldOut: ReadonlyArray<ArrayLike<number>>, job: HeldOutJob): OrderQueries {
+  let tokensMax = 0;
+  for (const sentence of heldOut) tokensMax += sentence.length + 1;
+  const all = new Uint32Array(tokensMax * n);
   let tokens = 0;
-  forEachHeldOutToken(heldOut, job.order, job.size, job.eosId, (_wrapped, _i, top) => {
-    if (top >= n) tokens++;
-  });
-  const all = new Uint32Array(tokens * n);
-  let row = 0;
   forEachHeldOutToken(heldOut, job.order, job.size, job.eosId, (wrapped, i, top) => {
     if (top < n) return;
-    for (let k = 0; k < n; k++) all[row * n + k] = wrapped[i - n + 1 + k];
-    row++;
+    for (let k = 0; k < n; k++) all[tokens * n + k] = wrapped[i - n + 1 + k];
+    tokens++;
   });
   const order = Array.from({ length: tokens }, (_, r) => r).sort((a, b) => compareRows(all, a * n, all, b * n, n));
   let distinct = 0;
@@ -105,17 +103,10 @@ class ForwardReader {
     }
     let rows = 0;
     while (block !== null) {
-      // The first row ≥ the context (binary search), then the rows that start with it.
-      let low = 0;
-      let high = block.recordCount;
-      while (low < high) {
-        const middle = (low + high) >>> 1;
-        if (compareRows(block.keys, middle * n, context, 0, length) < 0) low = middle + 1;
-        else high = middle;
-      }
-      let row = low;
-      for (; row < block.recordCount && compareRows(block.keys, row * n, context, 0, length) === 0; row++, rows++) visit(block.keys, block.counts, row);
-      if (row < block.recordCount) break; // past the context
+      const [start, end] = prefixRange(block.keys, n, block.recordCount, context, 0, length);
+      for (let row = start; row < end; row++) visit(block.keys, block.counts, row);
+      rows += end - start;
+      if (end < block.recordCount) break; // past the context
       block = this.next(); // the context may go on in the next block
       if (block !== null && compareRows(block.keys, 0, context, 0, length) !== 0) break;
     }
@@ -171,12 +162,9 @@ export async function storeLookup(job: HeldOutJob, heldOut: ReadonlyArray<ArrayL
     progress.stop();
   }
 
-  let unigramTotal = 0;
-  let unigramKept = 0;
-  for (let id = unigrams.contextStarts[0]; id < unigrams.contextStarts[1]; id++) {
-    unigramTotal += unigrams.counts[id];
-    if (unigrams.kept[id] === 1) unigramKept += unigrams.counts[id];
-  }
+  const unigramTotals = contextTotals(unigrams);
+  const unigramTotal = unigramTotals.total[0];
+  const unigramKept = unigramTotals.kept[0];
   const none: HeldOutEntry = { total: 0, keptTotal: 0, keptCount: 0 };
   return (n, wrapped, i) => {
     const word = wrapped[i];
@@ -230,11 +218,7 @@ function answerPartition(store: PartitionStore, partition: number, partitions: n
  * estimate as a planned request (method-plan.ts).
  */
 export async function fitWeightsOnJob(jobDir: string, heldOut: ReadonlyArray<ArrayLike<number>>, options: FitOptions & CutoffOptions = {}, progress?: ProgressSink): Promise<InterpolationWeights> {
-  const job = await readManifest(jobDir);
-  if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
-  if (job.stages.continuation?.status !== 'done') {
-    throw new QuernError('config', `the count in ${jobDir} has not finished; re-run the same quern count command to complete it`);
-  }
+  const job = await readCountedJob(jobDir);
   const order = job.config.order;
   const vocabulary = await readJobVocabulary(jobDir, job);
   const size = vocabularySize(vocabulary);

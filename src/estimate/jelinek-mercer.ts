@@ -108,12 +108,12 @@ export function forEachHeldOutToken(heldOut: ReadonlyArray<ArrayLike<number>>, o
 }
 
 /** Per level: total and kept count of each context, by context index. */
-interface ContextTotals {
+export interface ContextTotals {
   total: Float64Array;
   kept: Float64Array;
 }
 
-function contextTotals(level: Level): ContextTotals {
+export function contextTotals(level: Level): ContextTotals {
   const starts = level.contextStarts;
   const contexts = starts.length - 1;
   const total = new Float64Array(contexts);

@@ -161,6 +161,16 @@ function partitionsThatFit(partitions: number, needMax: number, memoryBytes: num
   return Math.ceil((partitions * needMax * 1.25) / memoryBytes);
 }
 
+/** The manifest of `jobDir`, whose count has finished ('config' errors otherwise). */
+export async function readCountedJob(jobDir: string): Promise<JobManifest> {
+  const job = await readManifest(jobDir);
+  if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
+  if (job.stages.continuation?.status !== 'done') {
+    throw new QuernError('config', `the count in ${jobDir} has not finished; re-run the same quern count command to complete it`);
+  }
+  return job;
+}
+
 /**
  * Runs (or continues) the streaming estimate of a counted job and returns its model source.
  * Errors: 'config' (no finished count, bad options, unusable discounts), 'limit' (a partition does
@@ -171,11 +181,7 @@ export async function estimateJobStreaming(request: StreamEstimateRequest): Prom
   const jobDir = path.resolve(request.jobDir);
   const fs = request.fs ?? stageFs();
   const progress = request.progress ?? silentProgress;
-  const job = await readManifest(jobDir);
-  if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json); run quern count first`);
-  if (job.stages.continuation?.status !== 'done') {
-    throw new QuernError('config', `the count in ${jobDir} has not finished; re-run the same quern count command to complete it`);
-  }
+  const job = await readCountedJob(jobDir);
   const lock = await lockJob(jobDir);
   // Nothing to wait for before the exit: estimate workers only read the stores (no write
   // transaction, stop-gate.ts) and write result files.

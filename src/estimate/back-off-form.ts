@@ -25,6 +25,7 @@
  */
 import { assert, QuernError } from '../errors.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
+import { mix32 } from '../count/hash.ts';
 import { checkCountTables, rowCount, vocabularySize, type CountTables, type ModelVocabulary } from './counts.ts';
 import type { LanguageModel, MethodParameters, ModelOrder } from './model.ts';
 import { compareRow, contextStarts } from './rows.ts';
@@ -108,11 +109,21 @@ export function unigramLevel(ids: Uint32Array, counts: Float64Array, continuatio
  * the whole table does, or a window of consecutive contexts as the streaming driver reads them):
  * rows kept by `cutoff`, contexts found.
  */
-export function contextLevel(order: number, rows: number, ids: Uint32Array, counts: Float64Array, continuation: Float64Array | null, cutoff: number, highest: boolean): Level {
+export function contextLevel(order: number, rows: number, ids: Uint32Array, counts: Float64Array, continuation: Float64Array | null, cutoff: number, highest: boolean, scratch?: LevelScratch): Level {
   assert(order >= 2 && ids.length >= rows * order && counts.length >= rows, 'a context level holds rows of its order');
-  const kept = new Uint8Array(rows);
+  const kept = scratch === undefined ? new Uint8Array(rows) : scratch.kept.subarray(0, rows);
   for (let row = 0; row < rows; row++) kept[row] = counts[row] >= cutoff ? 1 : 0;
-  return { order, rows, ids, counts, continuation, kept, contextStarts: contextStarts(ids, order, rows), highest };
+  return { order, rows, ids, counts, continuation, kept, contextStarts: contextStarts(ids, order, rows, scratch?.starts), highest };
+}
+
+/**
+ * Arrays a caller that builds one level after another (the streaming driver's windows) lends
+ * contextLevel instead of fresh ones per level: `kept` at least rows long, `starts` rows + 1. The
+ * level then lives only until the next one is built into them.
+ */
+export interface LevelScratch {
+  kept: Uint8Array;
+  starts: Uint32Array;
 }
 
 /** Checks the tables, applies the cutoffs and finds the contexts of every order. */
@@ -187,6 +198,33 @@ export function applyContextRule(level: Level, rule: ContextRule, start: number,
 /** log10 of a back-off weight as the model stores it: exactly 0 for a weight of 1. */
 export function log10BackOffOf(weight: number): number {
   return weight === 1 ? 0 : Math.log10(weight);
+}
+
+/** Entries of a BackOffLog10Memo (a power of two). */
+const BACK_OFF_MEMO_ENTRIES = 4096;
+
+/**
+ * log10BackOffOf with the answers for recent weights kept: a direct-mapped table indexed by a hash
+ * of the weight's bits. A context's weight is (Σ discounts + dropped counts) / c(h) of small counts
+ * mostly, so the same few thousand values come back for most of the millions of contexts, and
+ * Math.log10 (a call into V8's fdlibm port, ~7% of a partition's time when every context paid it)
+ * runs once per distinct value instead. The answer is the very number log10BackOffOf gives.
+ */
+export class BackOffLog10Memo {
+  private readonly weights = new Float64Array(BACK_OFF_MEMO_ENTRIES).fill(NaN);
+  private readonly logs = new Float64Array(BACK_OFF_MEMO_ENTRIES);
+  private readonly bits = new Float64Array(1);
+  private readonly words = new Uint32Array(this.bits.buffer);
+
+  log10(weight: number): number {
+    this.bits[0] = weight;
+    const slot = mix32(this.words[0] ^ Math.imul(this.words[1], 0x9e3779b1)) & (BACK_OFF_MEMO_ENTRIES - 1);
+    if (this.weights[slot] === weight) return this.logs[slot];
+    const log = log10BackOffOf(weight);
+    this.weights[slot] = weight;
+    this.logs[slot] = log;
+    return log;
+  }
 }
 
 /**

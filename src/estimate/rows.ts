@@ -6,6 +6,7 @@
  * that share a context (their first n−1 ids) are therefore contiguous, and one binary search finds
  * an n-gram, or tells where it would be.
  */
+import { assert } from '../errors.ts';
 
 /**
  * Compares row `row` of `ids` (rows of `order` ids) with `key[keyStart .. keyStart+length)` on
@@ -69,9 +70,18 @@ export function rowsSharePrefix(ids: Uint32Array, order: number, a: number, b: n
 
 /**
  * Start rows of the contexts of a table of order ≥ 2 (runs of rows sharing their first order−1
- * ids), followed by the row count: context j spans rows [starts[j], starts[j+1]).
+ * ids), followed by the row count: context j spans rows [starts[j], starts[j+1]). With `scratch`
+ * (at least rows + 1 long), one pass writes them into it and the answer is a view of it; without,
+ * a pass counts them first so that the array is no longer than needed (whole tables in memory).
  */
-export function contextStarts(ids: Uint32Array, order: number, rows: number): Uint32Array {
+export function contextStarts(ids: Uint32Array, order: number, rows: number, scratch?: Uint32Array): Uint32Array {
+  if (scratch !== undefined) {
+    assert(scratch.length >= rows + 1, 'a context-start scratch holds a start per row and the end');
+    let next = 0;
+    for (let row = 0; row < rows; row++) if (row === 0 || !rowsSharePrefix(ids, order, row - 1, row, order - 1)) scratch[next++] = row;
+    scratch[next] = rows;
+    return scratch.subarray(0, next + 1);
+  }
   let contexts = 0;
   for (let row = 0; row < rows; row++) if (row === 0 || !rowsSharePrefix(ids, order, row - 1, row, order - 1)) contexts++;
   const starts = new Uint32Array(contexts + 1);

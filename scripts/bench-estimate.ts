@@ -29,7 +29,9 @@
  * --repeat    runs of each streaming estimate (and of the --against one), alternating (default 1)
  * --recount   also count the job's inputs again (same order, partitions, --memory, --workers) into a
  *             scratch job, measured in this run: a count time taken under the same load as the
- *             estimates, beside the one job.json recorded when the job was counted
+ *             estimates, beside the one job.json recorded when the job was counted. Each run of the
+ *             first method's estimate is followed by one count, so with --repeat N they alternate
+ *             and the summary gives each estimate / the count stage of the count after it, and the median
  * --huge-pages the environment of every command: `on` (default) as `quern` runs when started as a
  *             program (bin/quern.js adds glibc's transparent-huge-page tunable, scripts/lib/quern-env.ts),
  *             `off` without it, `both` each estimate (and recount) with and then without, alternating,
@@ -276,6 +278,21 @@ async function main(): Promise<void> {
   log(`count stage from job.json: ${(countStageMs / 1000).toFixed(1)} s in all (vocabulary + count + merge + continuation), of which the count phase ${(countPhaseMs / 1000).toFixed(1)} s`);
 
   const rows: Row[] = [];
+  let recountPhaseMs: number | null = null;
+  const recountPhases: Array<{ mode: 'on' | 'off'; run: number; countPhaseMs: number | null }> = [];
+  /** quern count of the job's inputs into a scratch job: its whole time, and its count stage. */
+  const recountOnce = async (mode: 'on' | 'off', run: number): Promise<void> => {
+    const scratch = join(BENCH_OUT, 'work', `recount-${process.pid}`);
+    rmSync(scratch, { recursive: true, force: true });
+    const label = modeLabel(mode, options.hugePageModes);
+    rows.push(await measure(`quern count (same run)${label}`, '-', process.execPath, [QUERN_BIN, 'count', ...manifest.inputs.map((f) => f.path), '--job', scratch,
+      '--order', String(manifest.config.order), '--partitions', String(manifest.config.partitions), '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet'], ngrams, hugePagesEnv(mode)));
+    const phaseMs = (JSON.parse(readFileSync(join(scratch, 'job.json'), 'utf8')) as JobManifest).stages.count.elapsedMs ?? null;
+    recountPhases.push({ mode, run, countPhaseMs: phaseMs });
+    if (recountPhaseMs === null) recountPhaseMs = phaseMs;
+    log(`quern count (same run)${label}: count stage (stageMs.count) ${((phaseMs ?? 0) / 1000).toFixed(1)} s`);
+    rmSync(scratch, { recursive: true, force: true });
+  };
   const identical: Array<{ method: string; differences: string[] }> = [];
   const against = options.against === undefined ? null : againstTree(options.against);
   const shadows: string[] = [];
@@ -301,6 +318,9 @@ async function main(): Promise<void> {
           if (against !== null && shadowAgainst !== null) {
             rows.push(await measure(`streaming ${options.against}${label}`, method, process.execPath, args(once(against), shadowAgainst, method, 'streaming'), ngrams, env));
           }
+          // With --recount, each run of the first method is followed by a count of the same inputs,
+          // so that with --repeat the two alternate and each estimate has a count measured beside it.
+          if (options.recount && method === options.methods[0]) await recountOnce(mode, run);
         }
       }
       if (shadowAgainst !== null) {
@@ -314,23 +334,7 @@ async function main(): Promise<void> {
     for (const s of shadows) rmSync(s, { recursive: true, force: true });
     if (against !== null) rmSync(against, { recursive: true, force: true });
   }
-  let recountPhaseMs: number | null = null;
-  const recountPhases: Array<{ mode: 'on' | 'off'; countPhaseMs: number | null }> = [];
   if (options.partition !== null) log(`--partition ${options.partition}: the rows are that partition's task alone, on one thread`);
-  if (options.recount && options.partition === null) {
-    for (const mode of options.hugePageModes) {
-      const scratch = join(BENCH_OUT, 'work', `recount-${process.pid}`);
-      rmSync(scratch, { recursive: true, force: true });
-      const label = modeLabel(mode, options.hugePageModes);
-      rows.push(await measure(`quern count (same run)${label}`, '-', process.execPath, [QUERN_BIN, 'count', ...manifest.inputs.map((f) => f.path), '--job', scratch,
-        '--order', String(manifest.config.order), '--partitions', String(manifest.config.partitions), '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet'], ngrams, hugePagesEnv(mode)));
-      const phaseMs = (JSON.parse(readFileSync(join(scratch, 'job.json'), 'utf8')) as JobManifest).stages.count.elapsedMs ?? null;
-      recountPhases.push({ mode, countPhaseMs: phaseMs });
-      if (recountPhaseMs === null) recountPhaseMs = phaseMs;
-      log(`quern count (same run)${label}: count stage (stageMs.count) ${((phaseMs ?? 0) / 1000).toFixed(1)} s`);
-      rmSync(scratch, { recursive: true, force: true });
-    }
-  }
   const tablesBytes = countTablesBytes(distinct);
   const baseline = options.partition === null && (options.baseline === 'yes' || (options.baseline === 'auto' && tablesBytes <= options.memoryBytes));
   if (baseline) {
@@ -351,12 +355,24 @@ async function main(): Promise<void> {
     lines.push([r.what, r.method, (r.wallMs / 1000).toFixed(1), (r.cpuMs / 1000).toFixed(1), rate(r.ngramsPerSecond), mib(r.rssBytesMax),
       `${(r.wallMs / countStageMs).toFixed(2)}×`, `${(r.wallMs / Math.max(1, countPhaseMs)).toFixed(2)}×`, r.loadAverage1m.toFixed(1)].join('\t'));
   }
-  const recount = rows.find((r) => r.what === 'quern count (same run)');
-  if (recount) {
-    for (const r of rows.filter((x) => x.what.startsWith('streaming') && !x.what.endsWith(NO_HUGE_PAGES))) {
-      lines.push(`${r.what} ${r.method}: ${(r.wallMs / recount.wallMs).toFixed(2)}× the time of quern count measured in this run` +
-        (recountPhaseMs === null ? '' : `, ${(r.wallMs / recountPhaseMs).toFixed(2)}× its count stage (stageMs.count ${(recountPhaseMs / 1000).toFixed(1)} s)`) +
-        `; CPU ${(r.cpuMs / recount.cpuMs).toFixed(2)}× that of the whole quern count`);
+  // Each streaming run of the first method beside the quern count run after it (--recount).
+  const counts = rows.filter((r) => r.what === 'quern count (same run)');
+  const pairs = rows.filter((r) => r.what === 'streaming' && r.method === options.methods[0]);
+  const phasesOn = recountPhases.filter((r) => r.mode === options.hugePageModes[0]);
+  if (counts.length > 0 && counts.length === pairs.length && phasesOn.length === pairs.length) {
+    const ratios: number[] = [];
+    pairs.forEach((r, i) => {
+      const phaseMs = phasesOn[i].countPhaseMs;
+      if (phaseMs !== null) ratios.push(r.wallMs / Math.max(1, phaseMs));
+      lines.push(`${r.what} ${r.method}, run ${i + 1}: ${(r.wallMs / counts[i].wallMs).toFixed(2)}× the time of the quern count after it` +
+        (phaseMs === null ? '' : `, ${(r.wallMs / Math.max(1, phaseMs)).toFixed(2)}× its count stage (stageMs.count ${(phaseMs / 1000).toFixed(1)} s)`) +
+        `; CPU ${(r.cpuMs / counts[i].cpuMs).toFixed(2)}× that of the whole quern count`);
+    });
+    if (ratios.length > 1) {
+      const sorted = [...ratios].sort((x, y) => x - y);
+      const half = sorted.length >> 1;
+      const median = sorted.length % 2 === 1 ? sorted[half] : (sorted[half - 1] + sorted[half]) / 2;
+      lines.push(`streaming ${options.methods[0]} / the count stage of the quern count after it: median ${median.toFixed(2)}× of ${ratios.length} pairs (${ratios.map((x) => x.toFixed(2) + '×').join(', ')})`);
     }
   }
   if (against !== null) {

@@ -7,7 +7,9 @@
  * for Katz, its back-off formula.
  */
 import { describe, expect, test } from 'vitest';
+import { BackOffLog10Memo, log10BackOffOf } from '../../src/estimate/back-off-form.ts';
 import { logProb } from '../../src/estimate/model.ts';
+import { contextStarts } from '../../src/estimate/rows.ts';
 import { corpus, countsOf, estimateWith, histories, idsOf, NORMALISED_METHODS, randomCorpus, Reference } from './support.ts';
 
 const CORPORA = [
@@ -39,4 +41,38 @@ describe.each(CORPORA)('back-off form = formula on the $name corpus', ({ sentenc
       }
     });
   }
+});
+
+describe('BackOffLog10Memo', () => {
+  test('gives exactly log10BackOffOf for every weight, repeated or not, whatever shares its slot', () => {
+    // 4,096 slots and 50,000 distinct weights: most slots are taken by several weights in turn, so a
+    // memo that answered from a slot without checking whose weight it holds would fail here.
+    const memo = new BackOffLog10Memo();
+    let seed = 12345;
+    const next = () => (seed = (Math.imul(seed, 1103515245) + 12345) >>> 0) / 2 ** 32;
+    const weights = [0, 1, 0.5, 1e-300, Number.MIN_VALUE];
+    for (let i = 0; i < 50_000; i++) weights.push(next());
+    // Ratios of small counts, as contexts' weights are: these come back again and again.
+    for (let d = 1; d <= 40; d++) for (let n = 1; n <= d; n++) weights.push(n / d);
+    for (let round = 0; round < 3; round++) {
+      for (const w of weights) expect(memo.log10(w)).toBe(log10BackOffOf(w));
+    }
+    expect(memo.log10(1)).toBe(0);
+    expect(memo.log10(0)).toBe(-Infinity);
+  });
+});
+
+describe('contextStarts into a scratch array', () => {
+  test('gives the same starts as without one, for every order and for windows of every length', () => {
+    for (const order of [2, 3, 4]) {
+      const counts = countsOf(randomCorpus(order, 200, 6, 8), order);
+      const table = counts.tables[order - 1];
+      const rows = table.ids.length / order;
+      const scratch = new Uint32Array(rows + 1).fill(7);
+      for (const length of [0, 1, 2, Math.floor(rows / 3), rows]) {
+        const expected = contextStarts(table.ids, order, length);
+        expect(Array.from(contextStarts(table.ids, order, length, scratch))).toEqual(Array.from(expected));
+      }
+    }
+  });
 });

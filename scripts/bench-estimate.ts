@@ -171,6 +171,13 @@ interface Row {
 /** What a row's label ends with when it was measured without huge pages beside runs with them. */
 const NO_HUGE_PAGES = ', no huge pages';
 
+/** The median of `xs` (the mean of the middle two when their number is even). */
+function median(xs: number[]): number {
+  const sorted = [...xs].sort((x, y) => x - y);
+  const half = sorted.length >> 1;
+  return sorted.length % 2 === 1 ? sorted[half] : (sorted[half - 1] + sorted[half]) / 2;
+}
+
 /** A row's label suffix for a huge-page mode (only `off` beside `on` is marked). */
 function modeLabel(mode: 'on' | 'off', modes: ReadonlyArray<'on' | 'off'>): string {
   return modes.length > 1 && mode === 'off' ? NO_HUGE_PAGES : '';
@@ -278,7 +285,6 @@ async function main(): Promise<void> {
   log(`count stage from job.json: ${(countStageMs / 1000).toFixed(1)} s in all (vocabulary + count + merge + continuation), of which the count phase ${(countPhaseMs / 1000).toFixed(1)} s`);
 
   const rows: Row[] = [];
-  let recountPhaseMs: number | null = null;
   const recountPhases: Array<{ mode: 'on' | 'off'; run: number; countPhaseMs: number | null }> = [];
   /** quern count of the job's inputs into a scratch job: its whole time, and its count stage. */
   const recountOnce = async (mode: 'on' | 'off', run: number): Promise<void> => {
@@ -289,7 +295,6 @@ async function main(): Promise<void> {
       '--order', String(manifest.config.order), '--partitions', String(manifest.config.partitions), '--workers', String(options.workers), '--memory', String(options.memoryBytes), '--quiet'], ngrams, hugePagesEnv(mode)));
     const phaseMs = (JSON.parse(readFileSync(join(scratch, 'job.json'), 'utf8')) as JobManifest).stages.count.elapsedMs ?? null;
     recountPhases.push({ mode, run, countPhaseMs: phaseMs });
-    if (recountPhaseMs === null) recountPhaseMs = phaseMs;
     log(`quern count (same run)${label}: count stage (stageMs.count) ${((phaseMs ?? 0) / 1000).toFixed(1)} s`);
     rmSync(scratch, { recursive: true, force: true });
   };
@@ -369,24 +374,19 @@ async function main(): Promise<void> {
         `; CPU ${(r.cpuMs / counts[i].cpuMs).toFixed(2)}× that of the whole quern count`);
     });
     if (ratios.length > 1) {
-      const sorted = [...ratios].sort((x, y) => x - y);
-      const half = sorted.length >> 1;
-      const median = sorted.length % 2 === 1 ? sorted[half] : (sorted[half - 1] + sorted[half]) / 2;
-      lines.push(`streaming ${options.methods[0]} / the count stage of the quern count after it: median ${median.toFixed(2)}× of ${ratios.length} pairs (${ratios.map((x) => x.toFixed(2) + '×').join(', ')})`);
+      lines.push(`streaming ${options.methods[0]} / the count stage of the quern count after it: median ${median(ratios).toFixed(2)}× of ${ratios.length} pairs (${ratios.map((x) => x.toFixed(2) + '×').join(', ')})`);
     }
   }
   if (against !== null) {
     for (const method of options.methods) {
       const mine = rows.filter((r) => r.what === 'streaming' && r.method === method);
       const theirs = rows.filter((r) => r.what === `streaming ${options.against}` && r.method === method);
-      const median = (xs: number[]) => [...xs].sort((x, y) => x - y)[Math.floor(xs.length / 2)];
       const ratio = (key: 'wallMs' | 'cpuMs') => (median(mine.map((r) => r[key])) / median(theirs.map((r) => r[key]))).toFixed(2);
       if (mine.length > 0 && theirs.length > 0) lines.push(`${method}: this checkout ${ratio('wallMs')}× the wall time, ${ratio('cpuMs')}× the CPU time of ${options.against} (medians of ${mine.length} runs each, alternating)`);
     }
     for (const { method, differences } of identical) lines.push(`${method}: results ${differences.length === 0 ? 'byte-identical' : 'DIFFER: ' + differences.join('; ')}`);
   }
   if (options.hugePageModes.length > 1) {
-    const median = (xs: number[]) => [...xs].sort((x, y) => x - y)[Math.floor(xs.length / 2)];
     const pairs: Array<[string, string]> = [...options.methods.map((m): [string, string] => ['streaming', m]), ['quern count (same run)', '-']];
     for (const [what, method] of pairs) {
       const on = rows.filter((r) => r.what === what && r.method === method);
@@ -405,7 +405,7 @@ async function main(): Promise<void> {
   process.stdout.write(lines.join('\n') + '\n');
   mkdirSync(BENCH_OUT, { recursive: true });
   const file = join(BENCH_OUT, `bench-estimate-${new Date().toISOString().replace(/[:.]/g, '-')}.json`);
-  writeFileSync(file, JSON.stringify({ benchmark: 'scripts/bench-estimate.ts', options, job, ngrams, distinct, countStageMs, countPhaseMs, recountPhaseMs, recountPhases, rows, identical }, null, 2) + '\n');
+  writeFileSync(file, JSON.stringify({ benchmark: 'scripts/bench-estimate.ts', options, job, ngrams, distinct, countStageMs, countPhaseMs, recountPhaseMs: recountPhases[0]?.countPhaseMs ?? null, recountPhases, rows, identical }, null, 2) + '\n');
   log(`results in ${file}`);
   if (identical.some((x) => x.differences.length > 0)) process.exit(1);
 }

@@ -207,8 +207,9 @@ const BACK_OFF_MEMO_ENTRIES = 4096;
  * log10BackOffOf with the answers for recent weights kept: a direct-mapped table indexed by a hash
  * of the weight's bits. A context's weight is (Σ discounts + dropped counts) / c(h) of small counts
  * mostly, so the same few thousand values come back for most of the millions of contexts, and
- * Math.log10 (a call into V8's fdlibm port, ~7% of a partition's time when every context paid it)
- * runs once per distinct value instead. The answer is the very number log10BackOffOf gives.
+ * Math.log10 (a call into V8's fdlibm port: 7.5% of a partition's profile, rows' probabilities and
+ * contexts' weights together) runs once per distinct weight instead. The answer is the very number
+ * log10BackOffOf gives.
  */
 export class BackOffLog10Memo {
   private readonly weights = new Float64Array(BACK_OFF_MEMO_ENTRIES).fill(NaN);

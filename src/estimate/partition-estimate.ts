@@ -172,8 +172,9 @@ class ProbabilityTable {
     assert(buffer.byteLength >= this.slotCount * this.stride * 4, 'a table buffer holds every slot of the table');
     this.ids = new Uint32Array(buffer, 0, this.slotCount * this.stride);
     this.values = new Float64Array(buffer, 0, (this.slotCount * this.stride) >> 1);
-    // Every slot empty: NaN in every 8 bytes, ids included (a native fill, where a loop over the
-    // slots' values cost ~2% of a partition); an empty slot's ids are never compared as found.
+    // Every slot empty: NaN in every 8 bytes, ids included (a native fill; the loop over the slots'
+    // values it replaces took 2.3% of partition 0's profile without huge pages, 0.2% with them); an
+    // empty slot's ids are never compared as found.
     this.values.fill(NaN);
   }
 
@@ -449,7 +450,10 @@ async function estimateOrder(
 
   /** Applies the rule to the window's first `rows` rows (whole contexts). */
   const process = (rows: number): void => {
-    if (scratch.kept.length < rows) scratch = { kept: new Uint8Array(Math.max(rows, 2 * scratch.kept.length)), starts: new Uint32Array(Math.max(rows, 2 * scratch.kept.length) + 1) };
+    if (scratch.kept.length < rows) {
+      const capacity = Math.max(rows, 2 * scratch.kept.length);
+      scratch = { kept: new Uint8Array(capacity), starts: new Uint32Array(capacity + 1) };
+    }
     const level = contextLevel(m, rows, window.ids, window.counts, withContinuation ? window.continuation : null, cutoff, highest, scratch);
     const rule = plan.ruleFor(level);
     if (lower.length < rows) {

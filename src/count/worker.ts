@@ -50,7 +50,7 @@ let progressAt = Date.now();
 function flushProgress(force: boolean): void {
   const now = Date.now();
   if (!force && now - progressAt < PROGRESS_INTERVAL_MS) return;
-  if (progressBytes > 0 || progressTokens > 0) post({ type: 'progress', bytes: progressBytes, tokens: progressTokens });
+  if (progressBytes > 0 || progressTokens !== 0) post({ type: 'progress', bytes: progressBytes, tokens: progressTokens });
   progressBytes = 0;
   progressTokens = 0;
   progressAt = now;

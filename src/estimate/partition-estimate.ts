@@ -6,9 +6,10 @@
  * are in P too; only the unigrams are shared (their probabilities come with the task). The task
  * goes through orders 2..N in key order, gathering windows of whole contexts, and applies the
  * method's per-context rule (method-plan.ts, back-off-form.ts) exactly as the in-memory driver does.
- * p(w | h') of a row is looked up in P's own results of order m−1, held in a hash table of their
- * ids and probabilities (ProbabilityTable): one lookup per row by the ids of its suffix, a window's
- * lookups in batches so that their cache misses overlap.
+ * p(w | h') of a row is looked up in P's own results of order m−1, held in a hash table of 64-bit
+ * fingerprints of their ids and their probabilities (ProbabilityTable, exact: a fingerprint met
+ * twice restarts the task under another seed): one lookup per row by its suffix, a window's lookups
+ * in batches so that their cache misses overlap.
  *
  * Files: each order's two result files are written while the order is estimated (writes run ahead
  * of the estimate, result-file.ts); their fsync and rename go on while the next order is estimated,
@@ -18,8 +19,7 @@
  * (`o{m}.prob`), and the back-off weights of the contexts of order m−1 whose n-grams are in P
  * (`o{m−1}.bow`) — rows of other partitions, joined when the model is read (job-model-source.ts).
  *
- * Memory: P's results of orders m−1 and m (1.5 slots of 4·order + 8 bytes, order rounded up to
- * even, per row of the order), each in a buffer of the largest such table's size that the thread
+ * Memory: P's results of orders m−1 and m (2 slots of 16 bytes per row of the order), each in a buffer of the largest such table's size that the thread
  * keeps for the next order and partition, and a window of at most ESTIMATE_WINDOW_ROWS + V rows;
  * `partitionNeedBytes` states it from P's row counts.
  */
@@ -85,7 +85,7 @@ export function partitionRowCounts(store: PartitionStore): number[] {
 /** Bytes of each of a partition's table buffers: the slots of its largest table (orders 2..N−1). */
 function tableBufferBytes(rows: number[]): number {
   let bytes = 0;
-  for (let m = 2; m < rows.length; m++) bytes = Math.max(bytes, ProbabilityTable.slotBytesFor(m, rows[m - 1]));
+  for (let m = 2; m < rows.length; m++) bytes = Math.max(bytes, ProbabilityTable.slotBytesFor(rows[m - 1]));
   return bytes;
 }
 
@@ -119,128 +119,187 @@ function giveTableBuffer(buffer: ArrayBuffer): void {
 }
 
 /**
- * A ProbabilityTable's hash of the row ids[offset .. offset+order): the ids multiplied in one after
- * another, then murmur3's finaliser — one multiplication per id, where the counters' ngramHash
- * (count/hash.ts) mixes after every id to be extendable leftwards, which a table never needs. The
- * slots a row lands in do not change what the table answers, only how fast.
+ * A ProbabilityTable's hash of the row ids[offset .. offset+order) (order ≥ 2), which places the row:
+ * the ids multiplied in one after another, then murmur3's finaliser — one multiplication per id,
+ * where the counters' ngramHash (count/hash.ts) mixes after every id to be extendable leftwards,
+ * which a table never needs.
  */
 function tableHash(ids: Uint32Array, offset: number, order: number): number {
-  let h = 0x3c6ef372;
-  for (let j = 0; j < order; j++) h = Math.imul(h ^ ids[offset + j], 0x9e3779b1);
+  let h = Math.imul(0x3c6ef372 ^ ids[offset], 0x9e3779b1);
+  h = Math.imul(h ^ ids[offset + 1], 0x9e3779b1);
+  for (let j = 2; j < order; j++) h = Math.imul(h ^ ids[offset + j], 0x9e3779b1);
   return mix32(h);
 }
+
+/**
+ * The second half of a row's fingerprint: a hash of the same ids with other multipliers, started
+ * from `seed`, so that two rows whose fingerprints agree under one seed almost surely differ under
+ * the next (a ProbabilityTable that meets such a pair is built again with another seed).
+ */
+function fingerprintHash(ids: Uint32Array, offset: number, order: number, seed: number): number {
+  let h = Math.imul(0x27d4eb2f ^ seed, 0x165667b1);
+  for (let j = 0; j < order; j++) h = Math.imul(h ^ ids[offset + j], 0x85ebca77) ^ (h >>> 15);
+  return mix32(h);
+}
+
+/** Two rows of one table with the same fingerprint under the table's seed (module comment). */
+export class FingerprintCollision extends Error {
+  constructor(readonly order: number, readonly seed: number) {
+    super(`two n-grams of order ${order} share a 64-bit table fingerprint under seed ${seed}`);
+  }
+}
+
+/**
+ * Tests only: tables of order ≥ narrowedFromOrder under seeds below narrowedSeeds keep 4 bits of
+ * the placing hash and none of the second, so that their rows collide
+ * (test/estimate/table-fingerprint.test.ts); no table otherwise.
+ */
+let narrowedSeeds = 0;
+let narrowedFromOrder = 2;
+
+/** Tests only: makes this thread's tables of order ≥ fromOrder under seeds 0 .. seeds − 1 collide. */
+export function narrowFingerprintsForTests(seeds: number, fromOrder = 2): void {
+  narrowedSeeds = seeds;
+  narrowedFromOrder = fromOrder;
+}
+
+/** Seeds a partition's task tries before it gives up (each try meets a collision with a chance of
+ *  about rows² / 2^65, some 10^-6 for the largest tables of the benchmark job). */
+const FINGERPRINT_SEEDS = 4;
 
 /** Rows a ProbabilityTable inserts, or looks up, together. */
 const TABLE_BATCH_ROWS = 1024;
 
-/** Slots of a ProbabilityTable per row it may hold: at most two thirds of the slots are used. */
-const TABLE_SLOTS_PER_ROW = 1.5;
+/** Slots of a ProbabilityTable per row it may hold: at most half of the slots are used. */
+const TABLE_SLOTS_PER_ROW = 2;
+
+/** Bytes of a ProbabilityTable slot: the two 32-bit halves of a fingerprint, a float64. */
+const TABLE_SLOT_BYTES = 16;
 
 /**
  * Kept rows of one order of the partition with their probabilities (linear), found by their ids:
- * an open-addressing hash table (linear probing) whose slots hold a row's ids, padded to 8 bytes,
- * and its probability side by side, so that a lookup mostly reads one cache line. An empty slot
- * holds NaN as its probability (a probability never is: applyContextRule checks them).
+ * an open-addressing hash table (linear probing) of 16-byte slots, four to a cache line. A slot
+ * holds a 64-bit fingerprint of the row's ids instead of the ids — the hash that placed it
+ * (`tableHash`) and a second one (`fingerprintHash`) — and its probability. An empty slot holds NaN
+ * as its probability (a probability never is: applyContextRule checks them).
+ *
+ * Exact, not probabilistic: every row the table holds has a fingerprint of its own, because an
+ * insert compares the fingerprints of the slots it passes, and a row with the same fingerprint has
+ * the same home slot, so it lies on that path (linear probing, no deletions). An insert that meets
+ * one throws FingerprintCollision and the partition is estimated again with another seed. A lookup
+ * for a row the table holds therefore finds that row; one for a row it does not hold (a damaged or
+ * differently partitioned store) is reported as missing unless its fingerprint equals a held row's.
  *
  * A window's kept rows are inserted straight from the window (`insertKept`), and a window's lookups
- * made (`suffixProbabilities`), a batch of TABLE_BATCH_ROWS rows at a time in three passes: the home slots of the batch (arithmetic); a read of
- * each home slot's first and last word that only brings them into the cache (a loop without
- * branches on what it reads, so the processor has many of these misses under way at once); then
- * the probes proper, whose branches on the slots' contents now cost a cache hit when mispredicted
- * instead of a wait for memory. The probe compares all ids of a slot before it branches.
+ * made (`suffixProbabilities`), a batch of TABLE_BATCH_ROWS rows at a time in three passes: the
+ * fingerprints and home slots of the batch (arithmetic); a read of each home slot that only brings
+ * it into the cache (a loop without branches on what it reads, so the processor has many of these
+ * misses under way at once); then the probes proper, whose branches on the slots' contents now cost
+ * a cache hit when mispredicted instead of a wait for memory.
  */
 class ProbabilityTable {
-  /** u32 elements per slot (even). */
-  readonly stride: number;
   private readonly slotCount: number;
-  private readonly ids: Uint32Array;
+  /** Slot s: fingerprint halves at [4s], [4s + 1]. */
+  private readonly keys: Int32Array;
+  /** Slot s: probability at [2s + 1]. */
   private readonly values: Float64Array;
   /** Rows inserted. */
   rows = 0;
-  /** Scratch of a batch: its home slots. */
+  /** slotCount / 2^32: a hash times this, rounded down, is its home slot (exact: a power of two divides). */
+  private readonly homeScale: number;
+  /** Scratch of a batch: home slots and fingerprints. */
   private readonly homes = new Int32Array(TABLE_BATCH_ROWS);
+  private readonly firsts = new Int32Array(TABLE_BATCH_ROWS);
+  private readonly seconds = new Int32Array(TABLE_BATCH_ROWS);
   /** What the cache-warming passes read (kept, so that the compiler cannot drop them). */
   private sink = 0;
 
   /**
-   * A table of `order` for `capacity` rows in `buffer` (at least `slotBytesFor(order, capacity)`
-   * bytes; whatever it held before is overwritten).
+   * A table of `order` for `capacity` rows in `buffer` (at least `slotBytesFor(capacity)` bytes;
+   * whatever it held before is overwritten), fingerprints under `seed`.
    */
-  constructor(readonly order: number, readonly capacity: number, readonly buffer: ArrayBuffer) {
-    this.stride = ProbabilityTable.strideOf(order);
+  constructor(readonly order: number, readonly capacity: number, readonly buffer: ArrayBuffer, readonly seed: number) {
+    assert(order >= 2, 'a probability table holds n-grams of order 2 or more');
     this.slotCount = ProbabilityTable.slotsFor(capacity);
-    assert(buffer.byteLength >= this.slotCount * this.stride * 4, 'a table buffer holds every slot of the table');
-    this.ids = new Uint32Array(buffer, 0, this.slotCount * this.stride);
-    this.values = new Float64Array(buffer, 0, (this.slotCount * this.stride) >> 1);
-    // Every slot empty: NaN in every 8 bytes, ids included (a native fill; the loop over the slots'
-    // values it replaces took 2.3% of partition 0's profile without huge pages, 0.2% with them); an
-    // empty slot's ids are never compared as found.
+    this.homeScale = this.slotCount / 4294967296;
+    assert(buffer.byteLength >= this.slotCount * TABLE_SLOT_BYTES, 'a table buffer holds every slot of the table');
+    this.keys = new Int32Array(buffer, 0, this.slotCount * 4);
+    this.values = new Float64Array(buffer, 0, this.slotCount * 2);
+    // Every slot empty: NaN in every 8 bytes, fingerprints included (a native fill); an empty
+    // slot's fingerprint is never taken as found.
     this.values.fill(NaN);
-  }
-
-  static strideOf(order: number): number {
-    return 2 * Math.ceil(order / 2) + 2;
   }
 
   private static slotsFor(capacity: number): number {
     return Math.max(16, Math.ceil(capacity * TABLE_SLOTS_PER_ROW));
   }
 
-  /** Bytes of the slots of a table of `order` for `rows` rows at most. */
-  static slotBytesFor(order: number, rows: number): number {
-    return ProbabilityTable.slotsFor(rows) * 4 * ProbabilityTable.strideOf(order);
+  /** Bytes of the slots of a table for `rows` rows at most (of any order). */
+  static slotBytesFor(rows: number): number {
+    return ProbabilityTable.slotsFor(rows) * TABLE_SLOT_BYTES;
   }
 
-  /** Bytes of a table's scratch array (its batch's home slots, beside its buffer). */
+  /** Bytes of a table's scratch arrays (its batch's home slots and fingerprints, beside its buffer). */
   static scratchBytesFor(): number {
-    return TABLE_BATCH_ROWS * 4;
-  }
-
-  /** The first slot to probe for a hash: the hash scaled to the slot count. */
-  private home(hash: number): number {
-    return Math.floor(((hash >>> 0) / 4294967296) * this.slotCount);
+    return TABLE_BATCH_ROWS * 4 * 3;
   }
 
   /**
-   * The first two passes over a batch (module comment): homes[row − from] = the home slot of the
-   * ids src[row·rowLength + offset ..][0 .. order) of each kept row in [from, to); then a read of
-   * each home slot that only brings it into the cache.
+   * The first two passes over a batch (class comment) for the kept rows in [from, to) of `src`,
+   * whose row `row` is src[row·rowLength + offset ..][0 .. order): their fingerprints and home
+   * slots into the scratch arrays, then a read of each home slot that only brings it into the cache.
    */
   private locateBatch(src: Uint32Array, rowLength: number, offset: number, from: number, to: number, kept: Uint8Array): void {
-    const { order, stride, ids, homes } = this;
-    for (let row = from; row < to; row++) homes[row - from] = kept[row] === 1 ? this.home(tableHash(src, row * rowLength + offset, order)) : 0;
-    let sink = 0;
+    const { order, keys, homes, firsts, seconds, homeScale, seed } = this;
+    const narrowed = seed < narrowedSeeds && order >= narrowedFromOrder;
+    const firstMask = narrowed ? 0xf : -1;
+    const secondMask = narrowed ? 0 : -1;
     for (let row = from; row < to; row++) {
-      const base = homes[row - from] * stride;
-      sink |= ids[base] ^ ids[base + stride - 1];
+      const i = row - from;
+      if (kept[row] === 0) {
+        homes[i] = 0;
+        continue;
+      }
+      const at = row * rowLength + offset;
+      const first = (tableHash(src, at, order) & firstMask) >>> 0;
+      homes[i] = Math.floor(first * homeScale);
+      firsts[i] = first;
+      seconds[i] = fingerprintHash(src, at, order, seed) & secondMask;
     }
+    let sink = 0;
+    for (let i = 0; i < to - from; i++) sink |= keys[homes[i] << 2];
     this.sink |= sink;
   }
 
   /**
    * Inserts the kept rows (kept[row] = 1) among rows [0, rows) of `src` (rows of this table's order,
-   * as a window holds them) with their probabilities `values[row]`, a batch at a time (module
-   * comment). Rows are distinct, so each goes to a free slot.
+   * as a window holds them) with their probabilities `values[row]`, a batch at a time (class
+   * comment). Rows are distinct; a row whose fingerprint another row has already throws
+   * FingerprintCollision.
    */
   insertKept(src: Uint32Array, rows: number, kept: Uint8Array, values: Float64Array): void {
-    const { order, stride, ids, values: slotValues, homes, slotCount } = this;
+    const { keys, values: slotValues, homes, firsts, seconds, slotCount } = this;
     let keptRows = 0;
     for (let row = 0; row < rows; row++) keptRows += kept[row];
     assert(this.rows + keptRows <= this.capacity, 'a partition table holds at most the rows its store records');
     for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
       const to = Math.min(rows, from + TABLE_BATCH_ROWS);
-      this.locateBatch(src, order, 0, from, to, kept);
+      this.locateBatch(src, this.order, 0, from, to, kept);
       for (let row = from; row < to; row++) {
         if (kept[row] === 0) continue;
-        let slot = homes[row - from];
+        const i = row - from;
+        const first = firsts[i];
+        const second = seconds[i];
+        let slot = homes[i];
         for (;;) {
-          const value = slotValues[(slot * stride + stride - 2) >> 1];
+          const value = slotValues[(slot << 1) + 1];
           if (value !== value) break; // NaN: free
+          if (keys[slot << 2] === first && keys[(slot << 2) + 1] === second) throw new FingerprintCollision(this.order, this.seed);
           slot = slot + 1 === slotCount ? 0 : slot + 1;
         }
-        const base = slot * stride;
-        for (let j = 0; j < order; j++) ids[base + j] = src[row * order + j];
-        slotValues[(base + stride - 2) >> 1] = values[row];
+        keys[slot << 2] = first;
+        keys[(slot << 2) + 1] = second;
+        slotValues[(slot << 1) + 1] = values[row];
       }
     }
     this.rows += keptRows;
@@ -253,20 +312,19 @@ class ProbabilityTable {
    */
   suffixProbabilities(ids: Uint32Array, m: number, rows: number, kept: Uint8Array, lower: Float64Array, store: PartitionStore): void {
     assert(this.order === m - 1, 'the suffixes of order m are the inserted rows of order m − 1');
-    const { order, stride, ids: tableIds, values, homes, slotCount } = this;
+    const { keys, values, homes, firsts, seconds, slotCount } = this;
     for (let from = 0; from < rows; from += TABLE_BATCH_ROWS) {
       const to = Math.min(rows, from + TABLE_BATCH_ROWS);
       this.locateBatch(ids, m, 1, from, to, kept);
       for (let row = from; row < to; row++) {
         if (kept[row] === 0) continue;
-        const key = row * m + 1;
-        let slot = homes[row - from];
+        const i = row - from;
+        const first = firsts[i];
+        const second = seconds[i];
+        let slot = homes[i];
         for (;;) {
-          const base = slot * stride;
-          let difference = 0;
-          for (let j = 0; j < order; j++) difference |= tableIds[base + j] ^ ids[key + j];
-          const value = values[(base + stride - 2) >> 1];
-          if (difference === 0 && value === value) {
+          const value = values[(slot << 1) + 1];
+          if (keys[slot << 2] === first && keys[(slot << 2) + 1] === second && value === value) {
             lower[row] = value;
             break;
           }
@@ -338,6 +396,31 @@ export async function estimatePartition(
   partition: number,
   settings: PartitionEstimateSettings,
   onRows: (rows: number) => void = () => undefined,
+  firstSeed = 0,
+): Promise<PartitionEstimateResult> {
+  for (let seed = firstSeed; ; seed++) {
+    let rowsReported = 0;
+    try {
+      return await estimatePartitionOnce(fs, jobDir, partition, settings, seed, (rows) => {
+        rowsReported += rows;
+        onRows(rows);
+      });
+    } catch (error) {
+      // Two rows with one fingerprint (ProbabilityTable): the files written so far are written
+      // again, under the next seed. Progress counted for this try is taken back.
+      if (!(error instanceof FingerprintCollision) || seed + 1 - firstSeed >= FINGERPRINT_SEEDS) throw error;
+      onRows(-rowsReported);
+    }
+  }
+}
+
+async function estimatePartitionOnce(
+  fs: StageFs,
+  jobDir: string,
+  partition: number,
+  settings: PartitionEstimateSettings,
+  seed: number,
+  onRows: (rows: number) => void,
 ): Promise<PartitionEstimateResult> {
   const orderMax = settings.orders.length;
   const plan = planMethod(settings.request, settings.orders, settings.size);
@@ -352,7 +435,7 @@ export async function estimatePartition(
     let previous: ProbabilityTable | null = null;
     for (let m = 2; m <= orderMax; m++) {
       const highest = m === orderMax;
-      const current: ProbabilityTable | null = highest ? null : new ProbabilityTable(m, partitionRows[m - 1], takeTableBuffer(bufferBytes));
+      const current: ProbabilityTable | null = highest ? null : new ProbabilityTable(m, partitionRows[m - 1], takeTableBuffer(bufferBytes), seed);
       const probFile = resultFilePath(partition, 'probabilities', m);
       const bowFile = resultFilePath(partition, 'back-off', m - 1);
       const prob = await openThrough(fs, path.join(jobDir, probFile));

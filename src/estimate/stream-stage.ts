@@ -234,21 +234,84 @@ export async function stageInputs(job: JobManifest, jobDir: string, request: Pla
 }
 
 async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
-  const orderMax = job.config.order;
-  const partitions = job.config.partitions;
   const { settings, plan, key } = await stageInputs(job, jobDir, request.request);
-  const { size, unigramProb } = settings;
   const serial = pLimit(1); // job.json is written one write at a time
   const save = (): Promise<void> => serial(() => writeManifest(fs, jobDir, job));
 
   let stage: EstimateStage | undefined = job.stages.estimate;
+  // Stale results are moved aside at once and removed while the partitions are estimated (gigabytes
+  // of files take seconds to delete); what an earlier run left aside is removed the same way.
+  const removals: Array<Promise<void>> = await staleResultRemovals(jobDir);
   if (stage === undefined || stage.key !== key || request.restart === true) {
     // Results of another estimate (or of a run asked to start over) are stale: forget, then remove.
     stage = { status: 'pending', key, partitionsDone: [] };
     job.stages.estimate = stage;
     await save();
-    await fsp.rm(path.join(jobDir, ESTIMATE_DIR), { recursive: true, force: true });
+    const stale = await moveAside(jobDir);
+    if (stale !== null) {
+      const removal = removeStale(stale);
+      removal.catch(() => undefined); // awaited, and so reported, at the end of the stage
+      removals.push(removal);
+    }
   }
+  let summary: StreamEstimateSummary;
+  try {
+    summary = await runPartitions(job, jobDir, fs, progress, request, started, stage, settings, plan, save);
+  } catch (error) {
+    await Promise.allSettled(removals); // the stage's own failure is the one to report
+    throw error;
+  }
+  await Promise.all(removals);
+  return summary;
+}
+
+/** Stale result folders (estimate/ moved aside) are named ESTIMATE_DIR + this + a unique suffix. */
+const STALE_SUFFIX = '.stale-';
+
+/** Moves the job's estimate/ aside under a stale name and returns that path, or null when there is none. */
+async function moveAside(jobDir: string): Promise<string | null> {
+  const stale = path.join(jobDir, `${ESTIMATE_DIR}${STALE_SUFFIX}${process.pid}-${Date.now()}`);
+  try {
+    await fsp.rename(path.join(jobDir, ESTIMATE_DIR), stale);
+    return stale;
+  } catch (cause) {
+    if ((cause as NodeJS.ErrnoException).code === 'ENOENT') return null;
+    throw new QuernError('io', `cannot move the stale estimate results of ${jobDir} aside: ${(cause as Error).message}`, { cause });
+  }
+}
+
+/** Removes a stale result folder (an 'io' error if that fails). */
+async function removeStale(stale: string): Promise<void> {
+  try {
+    await fsp.rm(stale, { recursive: true, force: true });
+  } catch (cause) {
+    throw new QuernError('io', `cannot remove the stale estimate results ${stale}: ${(cause as Error).message}`, { cause });
+  }
+}
+
+/** Starts removing the stale result folders an earlier run left in the job (interrupted while removing them). */
+async function staleResultRemovals(jobDir: string): Promise<Array<Promise<void>>> {
+  const names = await fsp.readdir(jobDir);
+  const removals = names.filter((name) => name.startsWith(`${ESTIMATE_DIR}${STALE_SUFFIX}`)).map((name) => removeStale(path.join(jobDir, name)));
+  for (const removal of removals) removal.catch(() => undefined); // awaited, and so reported, at the end of the stage
+  return removals;
+}
+
+async function runPartitions(
+  job: JobManifest,
+  jobDir: string,
+  fs: StageFs,
+  progress: ProgressSink,
+  request: StreamEstimateRequest,
+  started: number,
+  stage: EstimateStage,
+  settings: PartitionEstimateSettings,
+  plan: MethodPlan,
+  save: () => Promise<void>,
+): Promise<StreamEstimateSummary> {
+  const orderMax = job.config.order;
+  const partitions = job.config.partitions;
+  const { size, unigramProb } = settings;
   await removeUnrecorded(jobDir, fs, stage);
   const partitionsBefore = stage.partitionsDone.length;
 

@@ -6,7 +6,7 @@
  * store and printed, the model the in-memory path gives; bad held-out input refused.
  */
 import { spawn } from 'node:child_process';
-import { cpSync, existsSync, readFileSync, statSync, writeFileSync } from 'node:fs';
+import { cpSync, existsSync, mkdirSync, readdirSync, readFileSync, statSync, writeFileSync } from 'node:fs';
 import * as path from 'node:path';
 import { beforeAll, describe, expect, test } from 'vitest';
 import { QuernError } from '../../src/errors.ts';
@@ -111,6 +111,21 @@ describe('the estimate stage', () => {
     expect(second.key).not.toBe(first.key);
     expect(JSON.parse(second.key).method).toBe('katz');
     expectSameModel(await materialiseModel(source), estimate(await loadCountTables(job, 1 << 30), { method: 'katz', fallback: true }));
+  }, 60_000);
+
+  test('stale results are moved aside and removed while the partitions are estimated; leftovers of an interrupted removal go too', async () => {
+    const job = copyJob();
+    await estimateJobStreaming({ jobDir: job, request: { method: 'witten-bell' }, memoryBytes: 256 << 20, workers: 2 });
+    const staleFile = path.join(job, 'estimate', 'p0003', 'o2.prob');
+    expect(statSync(staleFile).size).toBeGreaterThan(0);
+    // What a run killed while removing a folder it had moved aside leaves behind.
+    const leftover = path.join(job, 'estimate.stale-1-2', 'p0001');
+    mkdirSync(leftover, { recursive: true });
+    writeFileSync(path.join(leftover, 'o2.prob'), 'stale');
+    await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 256 << 20, workers: 2, restart: true });
+    expect(readdirSync(job).filter((name) => name.startsWith('estimate'))).toEqual(['estimate']);
+    expect(JSON.parse((await stageOf(job))!.key).method).toBe('modified-kneser-ney');
+    await expectInMemoryModel(job);
   }, 60_000);
 
   test('a partition that does not fit --memory is refused, naming the partitions that would fit', async () => {

@@ -19,8 +19,8 @@
  * (`o{m}.prob`), and the back-off weights of the contexts of order m−1 whose n-grams are in P
  * (`o{m−1}.bow`) — rows of other partitions, joined when the model is read (job-model-source.ts).
  *
- * Memory: P's results of orders m−1 and m (2 slots of 16 bytes per row of the order), each in a buffer of the largest such table's size that the thread
- * keeps for the next order and partition, and a window of at most ESTIMATE_WINDOW_ROWS + V rows;
+ * Memory: P's results of orders m−1 and m (2 slots of 16 bytes per row of the order), each in a
+ * buffer of the largest such table's size that the thread keeps for the next order and partition, and a window of at most ESTIMATE_WINDOW_ROWS + V rows;
  * `partitionNeedBytes` states it from P's row counts.
  */
 import * as path from 'node:path';
@@ -119,15 +119,14 @@ function giveTableBuffer(buffer: ArrayBuffer): void {
 }
 
 /**
- * A ProbabilityTable's hash of the row ids[offset .. offset+order) (order ≥ 2), which places the row:
+ * A ProbabilityTable's hash of the row ids[offset .. offset+order), which places the row:
  * the ids multiplied in one after another, then murmur3's finaliser — one multiplication per id,
  * where the counters' ngramHash (count/hash.ts) mixes after every id to be extendable leftwards,
  * which a table never needs.
  */
 function tableHash(ids: Uint32Array, offset: number, order: number): number {
-  let h = Math.imul(0x3c6ef372 ^ ids[offset], 0x9e3779b1);
-  h = Math.imul(h ^ ids[offset + 1], 0x9e3779b1);
-  for (let j = 2; j < order; j++) h = Math.imul(h ^ ids[offset + j], 0x9e3779b1);
+  let h = 0x3c6ef372;
+  for (let j = 0; j < order; j++) h = Math.imul(h ^ ids[offset + j], 0x9e3779b1);
   return mix32(h);
 }
 
@@ -396,9 +395,8 @@ export async function estimatePartition(
   partition: number,
   settings: PartitionEstimateSettings,
   onRows: (rows: number) => void = () => undefined,
-  firstSeed = 0,
 ): Promise<PartitionEstimateResult> {
-  for (let seed = firstSeed; ; seed++) {
+  for (let seed = 0; ; seed++) {
     let rowsReported = 0;
     try {
       return await estimatePartitionOnce(fs, jobDir, partition, settings, seed, (rows) => {
@@ -408,7 +406,7 @@ export async function estimatePartition(
     } catch (error) {
       // Two rows with one fingerprint (ProbabilityTable): the files written so far are written
       // again, under the next seed. Progress counted for this try is taken back.
-      if (!(error instanceof FingerprintCollision) || seed + 1 - firstSeed >= FINGERPRINT_SEEDS) throw error;
+      if (!(error instanceof FingerprintCollision) || seed + 1 >= FINGERPRINT_SEEDS) throw error;
       onRows(-rowsReported);
     }
   }

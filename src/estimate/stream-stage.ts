@@ -248,11 +248,7 @@ async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress:
     job.stages.estimate = stage;
     await save();
     const stale = await moveAside(jobDir);
-    if (stale !== null) {
-      const removal = removeStale(stale);
-      removal.catch(() => undefined); // awaited, and so reported, at the end of the stage
-      removals.push(removal);
-    }
+    if (stale !== null) removals.push(startRemoving(stale));
   }
   let summary: StreamEstimateSummary;
   try {
@@ -280,21 +276,22 @@ async function moveAside(jobDir: string): Promise<string | null> {
   }
 }
 
-/** Removes a stale result folder (an 'io' error if that fails). */
-async function removeStale(stale: string): Promise<void> {
-  try {
-    await fsp.rm(stale, { recursive: true, force: true });
-  } catch (cause) {
+/**
+ * Starts removing a stale result folder; the promise fails with an 'io' error if that fails. It is
+ * awaited, and so reported, at the end of the stage; until then its failure is held, not unhandled.
+ */
+function startRemoving(stale: string): Promise<void> {
+  const removal = fsp.rm(stale, { recursive: true, force: true }).catch((cause: unknown) => {
     throw new QuernError('io', `cannot remove the stale estimate results ${stale}: ${(cause as Error).message}`, { cause });
-  }
+  });
+  removal.catch(() => undefined);
+  return removal;
 }
 
 /** Starts removing the stale result folders an earlier run left in the job (interrupted while removing them). */
 async function staleResultRemovals(jobDir: string): Promise<Array<Promise<void>>> {
   const names = await fsp.readdir(jobDir);
-  const removals = names.filter((name) => name.startsWith(`${ESTIMATE_DIR}${STALE_SUFFIX}`)).map((name) => removeStale(path.join(jobDir, name)));
-  for (const removal of removals) removal.catch(() => undefined); // awaited, and so reported, at the end of the stage
-  return removals;
+  return names.filter((name) => name.startsWith(`${ESTIMATE_DIR}${STALE_SUFFIX}`)).map((name) => startRemoving(path.join(jobDir, name)));
 }
 
 async function runPartitions(

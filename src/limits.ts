@@ -253,6 +253,12 @@ export const SCORE_BATCH_TOKENS = 1 << 16;
  *  rows, often smaller; 1 MiB writes keep the calls few. */
 export const PACK_WRITE_BUFFER_BYTES = 1 << 20;
 
+/** Bytes per write and per read of a pack's spool (src/pack/spool.ts: a section's content written in
+ *  the one pass over its order, read back when its turn comes): 4 MiB, few calls per GB, and one
+ *  buffer of each per open spool (at most four at once). A multiple of 8, so every piece holds whole
+ *  values. */
+export const PACK_SPOOL_BYTES = 4 << 20;
+
 /** Values a quantisation codebook is fitted on at most: larger orders are represented by an
  *  evenly spaced sample of their sorted values (their quantiles), which keeps each Lloyd
  *  iteration to a few milliseconds; the codes are still assigned to every value. */

@@ -35,34 +35,51 @@ class RowCursor {
     }
     return !this.done;
   }
+
+  /** Stops the stream early (its source closes its files); nothing after its end. */
+  async close(): Promise<void> {
+    if (!this.done) await this.iterator.return?.();
+    this.done = true;
+  }
 }
 
 /**
- * For the rows of order n (< N) in order, batch by batch: how many rows of order n + 1 each one is
- * the context of. Asserts that every row of order n + 1 has its context among the rows of order n
- * (the estimators keep the prefixes of their n-grams) and that the counts sum to the rows of n + 1.
+ * The rows of order n in order, batch by batch, each batch with `counts`: how many rows of order
+ * n + 1 each of its rows is the context of (all 0 at the highest order, `orders`). Asserts that every
+ * row of order n + 1 has its context among the rows of order n (the estimators keep the prefixes of
+ * their n-grams) and that the counts sum to the rows of n + 1.
  */
-export async function* childCounts(source: ModelSource, n: number): AsyncGenerator<Uint32Array> {
-  const upper = new RowCursor(source, n + 1);
+export async function* rowsWithChildren(source: ModelSource, n: number): AsyncGenerator<{ batch: ModelRowBatch; counts: Uint32Array }> {
+  const upper = n === source.rowCounts.length ? null : new RowCursor(source, n + 1);
   let upperRows = 0;
-  for await (const batch of source.rows(n)) {
-    const counts = new Uint32Array(batch.rows);
-    for (let row = 0; row < batch.rows; row++) {
-      let count = 0;
-      for (;;) {
-        if ((upper.batch === null || upper.index >= upper.batch.rows) && !(await upper.fill())) break;
-        const current = upper.batch as ModelRowBatch;
-        const order = compareRows(current.ids, upper.index * (n + 1), batch.ids, row * n, n);
-        if (order > 0) break;
-        if (order < 0) assert(false, `order ${n + 1}: an n-gram's context is a row of order ${n}, and rows ascend`);
-        count++;
-        upper.index++;
+  let finished = false;
+  try {
+    for await (const batch of source.rows(n)) {
+      const counts = new Uint32Array(batch.rows);
+      if (upper !== null) {
+        for (let row = 0; row < batch.rows; row++) {
+          let count = 0;
+          for (;;) {
+            if ((upper.batch === null || upper.index >= upper.batch.rows) && !(await upper.fill())) break;
+            const current = upper.batch as ModelRowBatch;
+            const order = compareRows(current.ids, upper.index * (n + 1), batch.ids, row * n, n);
+            if (order > 0) break;
+            if (order < 0) assert(false, `order ${n + 1}: an n-gram's context is a row of order ${n}, and rows ascend`);
+            count++;
+            upper.index++;
+          }
+          counts[row] = count;
+          upperRows += count;
+        }
       }
-      counts[row] = count;
-      upperRows += count;
+      yield { batch, counts };
     }
-    yield counts;
+    finished = true;
+  } finally {
+    // Stopped early (a failure here or downstream): the upper stream's files are closed too.
+    if (!finished) await upper?.close();
   }
+  if (upper === null) return;
   const left = (upper.batch === null || upper.index >= upper.batch.rows) ? await upper.fill() : true;
   assert(!left, `order ${n + 1}: every n-gram's context is a row of order ${n}`);
   assert(upperRows === source.rowCounts[n], `order ${n + 1}: the rows read are the rows announced`);

@@ -9,12 +9,14 @@
  * instead of all n ids, the file stores each row's last word id, and each row of order n < N records
  * where its children (the rows of order n+1 it is the context of) start.
  *
- * Streaming: each section is written while it is built, batch by batch, so no order is ever held
- * whole — only per order n < N a bit per row (is it a context?) and a u32 per 64 rows (children
- * bases). A section is built in one pass over the rows it needs: word ids and probabilities read
- * order n; back-off weights read order n and a bitmap of its contexts; children read orders n and
- * n+1 side by side (child-counts.ts), once to size the offsets and once to write them. A codebook
- * is fitted on a pass of its own before its codes are written (`sampleForFit`).
+ * Streaming: no order is ever held whole — only per order n < N a bit per row (is it a context?)
+ * and a u32 per 64 rows (children bases). One pass over the rows of order n, with those of order
+ * n + 1 beside them (child-counts.ts), builds every section of the order into spools (spool.ts:
+ * temporary files beside the model's, deleted once written), since the sections follow one another
+ * in the file; so each order is read twice (and a model streamed from an estimate's result files is
+ * merged twice), not once per section. A codebook is fitted on a pass over its spool before its
+ * codes are written (`sampleForFit`). Disk: the spools of one order at a time, about the size of
+ * its sections (float64 values until they are coded, and 4 bytes per row for the children).
  *
  * The bytes depend on the model and the options only (no time, path or random salt), so the same
  * model always gives the same file.
@@ -29,8 +31,9 @@ import { modelSource, type ModelHeader, type ModelSource } from '../estimate/mod
 import { writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { ORDER_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_DESCRIPTION_BYTES_MAX, QUANT_FIT_VALUES_MAX } from '../limits.ts';
 import { BitPacker } from './bits.ts';
-import { childCounts } from './child-counts.ts';
+import { rowsWithChildren } from './child-counts.ts';
 import { ModelFileWriter } from './file-writer.ts';
+import { Spool } from './spool.ts';
 import {
   bitsFor, CHILD_BLOCK_ROWS, childBlocks, childOffsetsStart, FLAG_NORMALISED, fnv1a32, H, hashSlotsFor, HEADER_BYTES, MODEL_MAGIC, MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR,
   requireLittleEndian, SectionKind, ValueEncoding,
@@ -114,7 +117,8 @@ export async function packModelSource(source: ModelSource, options: PackOptions,
     await out.section(SectionKind.VocabularyWords, 0, vocabulary.words);
     await out.section(SectionKind.VocabularyOffsets, 0, vocabulary.offsets);
     await out.section(SectionKind.VocabularyHash, 0, vocabulary.hash);
-    for (let n = 1; n <= header.order; n++) await writeOrder(out, source, n, encoding);
+    const makeSpool: SpoolMaker = (n, name) => Spool.create(fs, `${filePath}.${process.pid}.o${n}-${name}.tmp`);
+    for (let n = 1; n <= header.order; n++) await writeOrder(out, source, n, encoding, makeSpool);
     fileBytes = await out.finish();
     sections = out.sections.length;
   });
@@ -167,141 +171,180 @@ function vocabularySections(header: ModelHeader): { words: Uint8Array; offsets: 
   return { words, offsets: bytesOf(offsets), hash: bytesOf(slots) };
 }
 
-/** The sections of order n, in file order: word ids (n ≥ 2), probabilities (and codebook), back-off
- *  weights (and codebook) and children (n < N). */
-async function writeOrder(out: ModelFileWriter, source: ModelSource, n: number, encoding: ValueEncoding): Promise<void> {
+/** Creates the spool of one order's section (`name`), a temporary file beside the model's. */
+type SpoolMaker = (n: number, name: string) => Promise<Spool>;
+
+/**
+ * The sections of order n, in file order: word ids (n ≥ 2), probabilities (and codebook), back-off
+ * weights (and codebook) and children (n < N). One pass over the rows of order n, with those of
+ * order n + 1 beside them for the children (`rowsWithChildren`), checks the rows and spools every
+ * section's content (the values as stored, or as float64 when codes are fitted to them later; the
+ * children as one u32 start per row, packed once their width is known); then the sections are
+ * written from the spools in turn.
+ */
+async function writeOrder(out: ModelFileWriter, source: ModelSource, n: number, encoding: ValueEncoding, makeSpool: SpoolMaker): Promise<void> {
   const order = source.header.order;
   const rows = source.rowCounts[n - 1];
   const size = vocabularySize(source.header.vocabulary);
   const quantBits = encoding === ValueEncoding.Quantised8 ? 8 : encoding === ValueEncoding.Quantised16 ? 16 : 0;
+  const spooledEncoding = quantBits === 0 ? encoding : ValueEncoding.Float64;
+  const valueUnit = spooledEncoding === ValueEncoding.Float64 ? 8 : 4;
+  const hasChildren = n < order;
+  const spools: Spool[] = [];
+  const spool = async (name: string): Promise<Spool> => {
+    const made = await makeSpool(n, name);
+    spools.push(made);
+    return made;
+  };
+  try {
+    const wordSpool = n >= 2 ? await spool('words') : null;
+    const probSpool = await spool('probabilities');
+    const backOffSpool = hasChildren ? await spool('back-off') : null;
+    const startSpool = hasChildren ? await spool('children') : null;
 
-  // Word ids (and the checks of the rows: ascending, last ids in 1..V, order 1 complete).
-  if (n >= 2) {
-    out.begin(SectionKind.Words, n);
+    // The pass: word ids (and the checks of the rows: ascending, last ids in 1..V, order 1
+    // complete), values, and which rows are contexts, with the bases and width of the children
+    // offsets.
     const packer = new BitPacker(bitsFor(size));
     const previous = new Uint32Array(n);
-    let seen = 0;
-    for await (const batch of source.rows(n)) {
+    const isContext = new Uint8Array(hasChildren ? Math.ceil(rows / 8) : 0);
+    const bases = new Uint32Array(hasChildren ? childBlocks(rows) : 0);
+    let contexts = 0;
+    let start = 0;
+    let spanMax = 0;
+    let row = 0;
+    const noteRow = (): void => {
+      if (row % CHILD_BLOCK_ROWS === 0) bases[row / CHILD_BLOCK_ROWS] = start;
+      const span = start - bases[Math.floor(row / CHILD_BLOCK_ROWS)];
+      if (span > spanMax) spanMax = span;
+    };
+    for await (const { batch, counts } of rowsWithChildren(source, n)) {
       const ids = batch.ids;
-      for (let row = 0; row < batch.rows; row++) {
-        const at = row * n;
-        if (seen > 0) {
-          let i = 0;
-          while (i < n && ids[at + i] === previous[i]) i++;
-          if (!(i < n && ids[at + i] > previous[i])) assert(false, `order ${n}: rows ascend and are distinct`);
+      if (n >= 2) {
+        for (let i = 0; i < batch.rows; i++) {
+          const at = i * n;
+          if (row + i > 0) {
+            let j = 0;
+            while (j < n && ids[at + j] === previous[j]) j++;
+            if (!(j < n && ids[at + j] > previous[j])) assert(false, `order ${n}: rows ascend and are distinct`);
+          }
+          for (let j = 0; j < n; j++) previous[j] = ids[at + j];
+          const word = ids[at + n - 1];
+          if (!(word >= 1 && word <= size)) assert(false, `order ${n}: a predicted word is a vocabulary id other than <s> (got ${word})`);
+          packer.push(word);
         }
-        for (let i = 0; i < n; i++) previous[i] = ids[at + i];
-        const word = ids[at + n - 1];
-        if (!(word >= 1 && word <= size)) assert(false, `order ${n}: a predicted word is a vocabulary id other than <s> (got ${word})`);
-        packer.push(word);
-        seen++;
+        await (wordSpool as Spool).write(packer.take());
+      } else {
+        for (let i = 0; i < batch.rows; i++) if (ids[i] !== row + i) assert(false, 'order 1: row = id');
       }
-      await out.write(packer.take());
+      checkValues(batch.log10Prob, n, 'probability');
+      await probSpool.write(valueBytes(batch.log10Prob, spooledEncoding, null, 0, null, 0));
+      if (hasChildren) {
+        // Back-off weights of the rows that are contexts; the others are never read and are stored as 0.
+        const values = new Float64Array(batch.rows);
+        const starts = new Uint32Array(batch.rows);
+        for (let i = 0; i < batch.rows; i++, row++) {
+          noteRow();
+          starts[i] = start;
+          if (counts[i] > 0) {
+            isContext[row >>> 3] |= 1 << (row & 7);
+            contexts++;
+            values[i] = batch.log10BackOff[i];
+          }
+          start += counts[i];
+        }
+        checkValues(values, n, 'back-off weight');
+        await (backOffSpool as Spool).write(valueBytes(values, spooledEncoding, null, 0, null, 0));
+        await (startSpool as Spool).write(bytesOf(starts));
+      } else row += batch.rows;
     }
-    await out.write(packer.finish());
+    assert(row === rows, `order ${n}: the rows read are the rows announced`);
+    if (wordSpool !== null) await wordSpool.write(packer.finish());
+    if (hasChildren) {
+      assert(start === source.rowCounts[n], `order ${n}: children cover the rows of order ${n + 1}`);
+      noteRow(); // the entry after the last row: the end of its children
+      await (startSpool as Spool).write(bytesOf(Uint32Array.of(start)));
+    }
+    for (const made of spools) await made.close();
+
+    // The sections, from the spools.
+    if (wordSpool !== null) {
+      out.begin(SectionKind.Words, n);
+      for await (const piece of wordSpool.read(8)) await out.write(piece);
+      await out.end();
+    }
+    await writeValues(out, SectionKind.Probabilities, SectionKind.ProbabilityCodebook, n, probSpool, encoding, quantBits, null, rows, valueUnit);
+    if (!hasChildren) return;
+    await writeValues(out, SectionKind.BackOffs, SectionKind.BackOffCodebook, n, backOffSpool as Spool, encoding, quantBits, isContext, contexts, valueUnit);
+
+    // Children: the width, the bases, then each entry's offset from its block's base.
+    out.begin(SectionKind.Children, n);
+    const prefix = new Uint8Array(childOffsetsStart(rows));
+    const prefixView = new DataView(prefix.buffer);
+    prefixView.setUint32(0, bitsFor(spanMax), true);
+    prefix.set(bytesOf(bases), 8);
+    await out.write(prefix);
+    const offsets = new BitPacker(bitsFor(spanMax));
+    let entry = 0;
+    for await (const piece of (startSpool as Spool).read(4)) {
+      const starts = new Uint32Array(piece.buffer, piece.byteOffset, piece.length / 4);
+      for (let i = 0; i < starts.length; i++, entry++) offsets.push(starts[i] - bases[Math.floor(entry / CHILD_BLOCK_ROWS)]);
+      await out.write(offsets.take());
+    }
+    assert(entry === rows + 1, `order ${n}: one children entry per row and one after the last`);
+    await out.write(offsets.finish());
     await out.end();
-    assert(seen === rows, `order ${n}: the rows read are the rows announced`);
-  } else {
-    let id = 0;
-    for await (const batch of source.rows(1)) {
-      for (let row = 0; row < batch.rows; row++, id++) if (batch.ids[row] !== id) assert(false, 'order 1: row = id');
-    }
-    assert(id === rows, 'order 1: the rows read are the rows announced');
+  } finally {
+    await Promise.all(spools.map((made) => made.remove()));
   }
-
-  // Probabilities.
-  const probCodebook = quantBits === 0 ? null : fitCodebook(await sampleForFit(source, n, 'log10Prob', rows, null), quantBits);
-  out.begin(SectionKind.Probabilities, n);
-  for await (const batch of source.rows(n)) {
-    checkValues(batch.log10Prob, n, 'probability');
-    await out.write(valueBytes(batch.log10Prob, encoding, probCodebook, quantBits, null, 0));
-  }
-  await out.end();
-  if (probCodebook !== null) await out.section(SectionKind.ProbabilityCodebook, n, bytesOf(probCodebook));
-  if (n === order) return;
-
-  // Contexts (rows with children) and the bases and width of the children offsets: one pass over
-  // orders n and n+1.
-  const isContext = new Uint8Array(Math.ceil(rows / 8));
-  const bases = new Uint32Array(childBlocks(rows));
-  let contexts = 0;
-  let start = 0;
-  let spanMax = 0;
-  let row = 0;
-  const noteRow = (): void => {
-    if (row % CHILD_BLOCK_ROWS === 0) bases[row / CHILD_BLOCK_ROWS] = start;
-    const span = start - bases[Math.floor(row / CHILD_BLOCK_ROWS)];
-    if (span > spanMax) spanMax = span;
-  };
-  for await (const counts of childCounts(source, n)) {
-    for (let i = 0; i < counts.length; i++, row++) {
-      noteRow();
-      if (counts[i] > 0) {
-        isContext[row >>> 3] |= 1 << (row & 7);
-        contexts++;
-      }
-      start += counts[i];
-    }
-  }
-  assert(row === rows && start === source.rowCounts[n], `order ${n}: children cover the rows of order ${n + 1}`);
-  noteRow(); // the entry after the last row: the end of its children
-  const childBits = bitsFor(spanMax);
-
-  // Back-off weights of the rows that are contexts; the others are never read and are stored as 0.
-  const backOffCodebook = quantBits === 0 ? null : fitCodebook(await sampleForFit(source, n, 'log10BackOff', contexts, isContext), quantBits);
-  out.begin(SectionKind.BackOffs, n);
-  let first = 0;
-  for await (const batch of source.rows(n)) {
-    const values = new Float64Array(batch.rows);
-    for (let i = 0; i < batch.rows; i++) {
-      const at = first + i;
-      if ((isContext[at >>> 3] & (1 << (at & 7))) !== 0) values[i] = batch.log10BackOff[i];
-    }
-    checkValues(values, n, 'back-off weight');
-    await out.write(valueBytes(values, encoding, backOffCodebook, quantBits, isContext, first));
-    first += batch.rows;
-  }
-  await out.end();
-  if (backOffCodebook !== null) await out.section(SectionKind.BackOffCodebook, n, bytesOf(backOffCodebook));
-
-  // Children: the width, the bases, then each entry's offset from its block's base.
-  out.begin(SectionKind.Children, n);
-  const prefix = new Uint8Array(childOffsetsStart(rows));
-  const prefixView = new DataView(prefix.buffer);
-  prefixView.setUint32(0, childBits, true);
-  prefix.set(bytesOf(bases), 8);
-  await out.write(prefix);
-  const packer = new BitPacker(childBits);
-  start = 0;
-  row = 0;
-  for await (const counts of childCounts(source, n)) {
-    for (let i = 0; i < counts.length; i++, row++) {
-      packer.push(start - bases[Math.floor(row / CHILD_BLOCK_ROWS)]);
-      start += counts[i];
-    }
-    await out.write(packer.take());
-  }
-  packer.push(start - bases[Math.floor(row / CHILD_BLOCK_ROWS)]);
-  await out.write(packer.finish());
-  await out.end();
 }
 
 /**
- * The values a codebook is fitted on, from one pass over order n: every k-th of the `count`
- * included values (all rows, or the contexts of `include`), k = ⌈count / QUANT_FIT_VALUES_MAX⌉, so at
- * most QUANT_FIT_VALUES_MAX of them (below that, all: the fit is exact when the values are few); and
- * −∞ once if any included value is −∞, so that it keeps a code of its own. Deterministic.
+ * A values section (and its codebook) from the spool of its values, which holds them as stored
+ * (floats) or, for codes, as float64: the codebook is fitted on a pass over the spool
+ * (`sampleForFit`: the `count` values of the rows in `include`, or of all rows), then every value
+ * coded (rows outside `include` get code 0).
  */
-async function sampleForFit(source: ModelSource, n: number, field: 'log10Prob' | 'log10BackOff', count: number, include: Uint8Array | null): Promise<Float64Array> {
+async function writeValues(
+  out: ModelFileWriter, kind: SectionKind, codebookKind: SectionKind, n: number, spool: Spool, encoding: ValueEncoding, quantBits: number,
+  include: Uint8Array | null, count: number, unit: number,
+): Promise<void> {
+  const spooled = (): AsyncIterable<Float64Array> => float64Pieces(spool);
+  const codebook = quantBits === 0 ? null : fitCodebook(await sampleForFit(spooled(), n, count, include), quantBits as 8 | 16);
+  out.begin(kind, n);
+  if (codebook === null) {
+    for await (const piece of spool.read(unit)) await out.write(piece);
+  } else {
+    let first = 0;
+    for await (const values of spooled()) {
+      await out.write(valueBytes(values, encoding, codebook, quantBits, include, first));
+      first += values.length;
+    }
+  }
+  await out.end();
+  if (codebook !== null) await out.section(codebookKind, n, bytesOf(codebook));
+}
+
+/** A spool of float64 values, piece by piece. */
+async function* float64Pieces(spool: Spool): AsyncIterable<Float64Array> {
+  for await (const piece of spool.read(8)) yield new Float64Array(piece.buffer, piece.byteOffset, piece.length / 8);
+}
+
+/**
+ * The values a codebook is fitted on, from one pass over the values of order n: every k-th of the
+ * `count` included values (all rows, or the contexts of `include`), k = ⌈count / QUANT_FIT_VALUES_MAX⌉,
+ * so at most QUANT_FIT_VALUES_MAX of them (below that, all: the fit is exact when the values are
+ * few); and −∞ once if any included value is −∞, so that it keeps a code of its own. Deterministic.
+ */
+async function sampleForFit(pieces: AsyncIterable<Float64Array>, n: number, count: number, include: Uint8Array | null): Promise<Float64Array> {
   const stride = Math.max(1, Math.ceil(count / QUANT_FIT_VALUES_MAX));
   const sample = new Float64Array(Math.ceil(count / stride) + 1);
   let taken = 0;
   let index = 0;
   let row = 0;
   let negativeInfinity = false;
-  for await (const batch of source.rows(n)) {
-    const values = batch[field];
-    for (let i = 0; i < batch.rows; i++, row++) {
+  for await (const values of pieces) {
+    for (let i = 0; i < values.length; i++, row++) {
       if (include !== null && (include[row >>> 3] & (1 << (row & 7))) === 0) continue;
       const value = values[i];
       if (value === -Infinity) negativeInfinity = true;

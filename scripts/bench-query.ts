@@ -41,11 +41,16 @@
  * --heldout corpus:DIR takes a corpus directory of scripts/gen-corpus.ts instead, and writes 2 MB of
  * held-out text from its generator (its seed and vocabulary, the shard after its last).
  *
+ * --huge-pages on|off|both (with --model; default on): the measuring process runs with the
+ * environment `bin/quern.js` gives Node (scripts/lib/quern-env.ts: glibc marks the model's section
+ * buffers for transparent huge pages), without it, or both in turn (on, off, on, off), so that the
+ * TLB misses of lookups scattered over gigabytes are measured with and without them.
+ *
  * Batched lookups: `stepBatch` through src/score/batch.ts's lanes (--lanes, default SCORE_LANES;
  * a list measures each), in turn with `step`, Σ log10 p compared.
  *
  *   npx tsx scripts/bench-query.ts [--corpus brown|synthetic|both] [--orders 3,5] [--synthetic-bytes 24MB] [--seconds 1] [--against REF] [--lanes 64]
- *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF] [--lanes 64,16,256]
+ *   npx tsx scripts/bench-query.ts --model FILE --heldout TEXT|corpus:DIR [--heldout-lines 100000] [--seconds 1] [--against REF] [--lanes 64,16,256] [--huge-pages on|off|both]
  */
 import { execFileSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, rmSync, mkdtempSync, statSync, writeFileSync } from 'node:fs';
@@ -64,6 +69,7 @@ import { packModel, type PackOptions } from '../src/pack/writer.ts';
 import { SCORE_LANES } from '../src/limits.ts';
 import { scoreIdSentences } from '../src/score/batch.ts';
 import { brownFiles, readBrown } from '../test/pack/support.ts';
+import { hugePagesEnv } from './lib/quern-env.ts';
 import { SyntheticModel, writeShardFile } from './lib/synthetic.ts';
 
 const { values: args } = parseArgs({
@@ -78,6 +84,8 @@ const { values: args } = parseArgs({
     model: { type: 'string' },
     heldout: { type: 'string' },
     'heldout-lines': { type: 'string', default: '100000' },
+    'huge-pages': { type: 'string', default: 'on' },
+    'huge-pages-child': { type: 'string' },
     lanes: { type: 'string', default: String(SCORE_LANES) },
     load: { type: 'string' },
     kind: { type: 'string' },
@@ -534,6 +542,18 @@ if (args.load !== undefined) {
 }
 if (args.measure !== undefined) {
   process.stdout.write(JSON.stringify(await measurePart(args.measure, args.part as Part)));
+  process.exit(0);
+}
+if (args.model !== undefined && args['huge-pages-child'] === undefined) {
+  // The measurement runs in a child per huge-page mode, with that mode's environment.
+  const mode = args['huge-pages'];
+  if (mode !== 'on' && mode !== 'off' && mode !== 'both') throw new Error(`--huge-pages must be on, off or both (got ${mode})`);
+  const modes: Array<'on' | 'off'> = mode === 'both' ? ['on', 'off', 'on', 'off'] : [mode];
+  const passOn = process.argv.slice(2).filter((arg, i, all) => arg !== '--huge-pages' && all[i - 1] !== '--huge-pages' && !arg.startsWith('--huge-pages='));
+  for (const each of modes) {
+    console.log(`huge pages ${each}:`);
+    execFileSync(process.execPath, [...process.execArgv, process.argv[1], ...passOn, '--huge-pages-child', each], { stdio: 'inherit', env: hugePagesEnv(each) });
+  }
   process.exit(0);
 }
 if (args.model !== undefined) {

@@ -16,7 +16,10 @@ import { readManifest, type EstimateStage } from '../job/manifest.ts';
 import { ESTIMATE_SOURCE_BATCH_ROWS } from '../limits.ts';
 import { vocabularySize } from './counts.ts';
 import { checkModel, type LanguageModel, type ModelOrder } from './model.ts';
-import type { ModelRowBatch, ModelSource } from './model-source.ts';
+import type { ModelRowBatch, ModelSource, RowOptions } from './model-source.ts';
+
+/** The back-off weights of a batch read with `idsOnly`. */
+const NO_VALUES = new Float64Array(0);
 import { resultFilePath, type ResultFileRecord } from './partition-estimate.ts';
 import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
 import type { RunBatch } from '../count/run-file.ts';
@@ -90,7 +93,7 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
    * files. The partitions' rows are disjoint, so the merge never adds two values; the row total is
    * checked against the files' records all the same.
    */
-  async function* orderRows(order: number): AsyncIterable<ModelRowBatch> {
+  async function* orderRows(order: number, idsOnly: boolean): AsyncIterable<ModelRowBatch> {
     const corrupt = (what: string): QuernError => new QuernError('corrupt', `${jobDir}: ${what}; re-run quern estimate with --restart`);
     const probFiles = byOrder('probabilities', order);
     const backOffFiles = byOrder('back-off', order);
@@ -114,6 +117,12 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
     let backOffRows = 0;
     try {
       probs = mergeRuns((await openAll(probFiles)).map((r) => resultSource(r, order)), order);
+      if (idsOnly) {
+        // The ids alone: no back-off weights merged or joined (nor their checks, made by the passes
+        // that read them).
+        for await (const batch of probs) yield { rows: batch.recordCount, ids: batch.keys.subarray(0, batch.recordCount * order), log10Prob: batch.counts.subarray(0, batch.recordCount), log10BackOff: NO_VALUES };
+        return;
+      }
       backOffs = mergeRuns((await openAll(backOffFiles)).map((r) => resultSource(r, order)), order);
       for await (const batch of probs) {
         const { keys, counts, recordCount } = batch;
@@ -150,9 +159,9 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
   return {
     header: { ...stage.header, vocabulary },
     rowCounts,
-    rows(order: number): AsyncIterable<ModelRowBatch> {
+    rows(order: number, options?: RowOptions): AsyncIterable<ModelRowBatch> {
       assert(Number.isInteger(order) && order >= 1 && order <= orderMax, `order in [1, ${orderMax}]`);
-      return order === 1 ? unigramRows() : orderRows(order);
+      return order === 1 ? unigramRows() : orderRows(order, options?.idsOnly === true);
     },
   };
 }

@@ -28,13 +28,20 @@ export interface ModelRowBatch {
   log10BackOff: Float64Array;
 }
 
+/** How `ModelSource.rows` is read. */
+export interface RowOptions {
+  idsOnly?: boolean;
+}
+
 /** A model read order by order. */
 export interface ModelSource {
   header: ModelHeader;
   /** Rows per order 1..N (index order − 1). */
   rowCounts: number[];
-  /** The rows of `order` (1..N) in ascending id order; every call starts a new pass. */
-  rows(order: number): AsyncIterable<ModelRowBatch>;
+  /** The rows of `order` (1..N) in ascending id order; every call starts a new pass. With
+   *  `idsOnly`, a source may leave the batches' back-off weights empty (length 0) and skip the work
+   *  of joining them: for readers of the ids alone (the pack's children counts). */
+  rows(order: number, options?: RowOptions): AsyncIterable<ModelRowBatch>;
 }
 
 /** Rows per batch of `modelSource`. */

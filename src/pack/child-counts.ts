@@ -17,7 +17,7 @@ class RowCursor {
   done = false;
 
   constructor(source: ModelSource, readonly order: number) {
-    this.iterator = source.rows(order)[Symbol.asyncIterator]();
+    this.iterator = source.rows(order, { idsOnly: true })[Symbol.asyncIterator]();
   }
 
   /** Loads the next batch when the current one is used up; false at the end of the order. */

@@ -15,7 +15,8 @@ import { loadCountTables } from '../../src/estimate/from-store.ts';
 import { materialiseModel, openJobModelSource } from '../../src/estimate/job-model-source.ts';
 import { estimateJobStreaming } from '../../src/estimate/stream-stage.ts';
 import { readManifest, type EstimateStage } from '../../src/job/manifest.ts';
-import { FAULT_ENV } from '../../src/job/fsio.ts';
+import { FAULT_ENV, nodeFs } from '../../src/job/fsio.ts';
+import { packModel, packModelSource } from '../../src/pack/writer.ts';
 import { REPO, runQuern, tempDir } from '../support/cli.ts';
 import { countJob, expectSameModel } from './stream-support.ts';
 import { makeTokenizer } from '../../src/corpus/tokenize.ts';
@@ -111,6 +112,28 @@ describe('the estimate stage', () => {
     expect(second.key).not.toBe(first.key);
     expect(JSON.parse(second.key).method).toBe('katz');
     expectSameModel(await materialiseModel(source), estimate(await loadCountTables(job, 1 << 30), { method: 'katz', fallback: true }));
+  }, 60_000);
+
+  test('read for its ids alone (idsOnly), an order gives the ids of a full read and no back-off weights; packed from the job, the model has the bytes of its materialised copy packed', async () => {
+    const job = copyJob();
+    await estimateJobStreaming({ jobDir: job, request: { method: 'modified-kneser-ney', fallback: true }, memoryBytes: 256 << 20, workers: 2 });
+    const source = await openJobModelSource(job);
+    for (let order = 2; order <= source.rowCounts.length; order++) {
+      const full: number[] = [];
+      const alone: number[] = [];
+      for await (const batch of source.rows(order)) full.push(...batch.ids);
+      for await (const batch of source.rows(order, { idsOnly: true })) {
+        expect(batch.log10BackOff.length).toBe(0);
+        alone.push(...batch.ids);
+      }
+      expect(alone.length).toBe(source.rowCounts[order - 1] * order);
+      expect(alone).toEqual(full);
+    }
+    const fromJob = path.join(job, 'from-job.qm');
+    const fromCopy = path.join(job, 'from-copy.qm');
+    await packModelSource(await openJobModelSource(job), { fingerprint: 'f', quantBits: 8 }, nodeFs, fromJob);
+    await packModel(await materialiseModel(await openJobModelSource(job)), { fingerprint: 'f', quantBits: 8 }, nodeFs, fromCopy);
+    expect(readFileSync(fromJob).equals(readFileSync(fromCopy))).toBe(true);
   }, 60_000);
 
   test('stale results are moved aside and removed while the partitions are estimated; leftovers of an interrupted removal go too', async () => {

@@ -3,7 +3,7 @@
  * (src/pack/writer.ts reading src/estimate/job-model-source.ts's merge of the partitions' result
  * files), against another revision's writer in the same run.
  *
- *   npm run bench:pack -- --job DIR [--against REV] [--repeat N] [--quant 8|16]
+ *   npm run bench:pack -- --job DIR [--against REV] [--repeat N] [--quant 8|16] [--threads on|off]
  *
  * --job      a counted job whose estimate is finished (`quern estimate DIR`; e.g. the order-5 job
  *            of the 200 MB corpus that `npm run bench:estimate` leaves in bench-out/estimate-200MB-o5,
@@ -12,6 +12,8 @@
  *            and its writer and model source run beside this checkout's, alternating
  * --repeat   runs of each (default 2)
  * --quant    pack with 8- or 16-bit codes instead of float32
+ * --threads  on (default, as `quern estimate` packs): each order is merged in a thread of its own
+ *            (revisions without that option pack on one thread whatever this says); off: one thread
  *
  * Each run is a child process (scripts/lib/pack-once.ts) under GNU time (scripts/lib/rss.ts): the
  * pack's own wall and CPU time, and the process's peak RSS. With --against, every file written is
@@ -43,6 +45,7 @@ const { values } = parseArgs({
     against: { type: 'string' },
     repeat: { type: 'string', default: '2' },
     quant: { type: 'string' },
+    threads: { type: 'string', default: 'on' },
   },
 });
 if (values.job === undefined) fail('--job DIR is required (a job whose estimate is finished)');
@@ -78,7 +81,7 @@ try {
     for (const { what, tree } of run % 2 === 0 ? trees : [...trees].reverse()) {
       const file = join(work, `model-${rows.length}.qm`);
       const loadAverage1m = os.loadavg()[0];
-      const measured = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', process.execPath, '--import', 'tsx', ONCE, tree, job, file, ...(values.quant === undefined ? [] : [values.quant])], { cwd: REPO, stdout: 'pipe', stderr: 'pipe', env: hugePagesEnv('on') });
+      const measured = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', process.execPath, '--import', 'tsx', ONCE, tree, job, file, values.quant ?? '-', values.threads as string], { cwd: REPO, stdout: 'pipe', stderr: 'pipe', env: hugePagesEnv('on') });
       if (measured.exitCode !== 0) fail(`${what} failed (${measured.exitCode ?? measured.signal}): ${measured.stderr.trim()}`);
       const result = JSON.parse(measured.stdout.trim().split('\n').pop() as string) as { elapsedMs: number; cpuMs: number; bytes: number; ngrams: number[] };
       const row: Row = { what, wallMs: result.elapsedMs, cpuMs: result.cpuMs, rssBytesMax: measured.rssBytesMax, bytes: result.bytes, ngrams: result.ngrams.reduce((a, b) => a + b, 0), loadAverage1m };

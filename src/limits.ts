@@ -259,6 +259,16 @@ export const PACK_WRITE_BUFFER_BYTES = 1 << 20;
  *  values. */
 export const PACK_SPOOL_BYTES = 4 << 20;
 
+/** Batches of rows a thread reading an order of an estimate for the pack (job-model-source.ts,
+ *  `threads`) posts before the pack has taken them: enough to keep it busy while the pack works on
+ *  the last ones; each is MERGE_BATCH_RECORDS rows, ~0.3 MB at order 5. */
+export const ROWS_THREAD_BATCHES_AHEAD = 4;
+
+/** Rows of an order from which it is read in a thread of its own for the pack (`threads`): a
+ *  thread takes ~0.3 s to start and to read the job's vocabulary, while an order of a million rows
+ *  merges in about that time. */
+export const ROWS_THREAD_ROWS_MIN = 1_000_000;
+
 /** Values a quantisation codebook is fitted on at most: larger orders are represented by an
  *  evenly spaced sample of their sorted values (their quantiles), which keeps each Lloyd
  *  iteration to a few milliseconds; the codes are still assigned to every value. */

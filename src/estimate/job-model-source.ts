@@ -9,11 +9,13 @@
  * weight 1, log10 0). Memory: one block per file and one output batch.
  */
 import * as path from 'node:path';
+import { Worker } from 'node:worker_threads';
 import { assert, QuernError } from '../errors.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { readJobVocabulary } from '../count/stage.ts';
 import { readManifest, type EstimateStage } from '../job/manifest.ts';
-import { ESTIMATE_SOURCE_BATCH_ROWS } from '../limits.ts';
+import { ESTIMATE_SOURCE_BATCH_ROWS, ROWS_THREAD_BATCHES_AHEAD, ROWS_THREAD_ROWS_MIN } from '../limits.ts';
+import type { RowsFromWorker, RowsToWorker, RowsWorkerData } from './rows-protocol.ts';
 import { vocabularySize } from './counts.ts';
 import { checkModel, type LanguageModel, type ModelOrder } from './model.ts';
 import type { ModelRowBatch, ModelSource, RowOptions } from './model-source.ts';
@@ -46,8 +48,72 @@ function finishedStage(jobDir: string, stage: EstimateStage | undefined): Requir
   return stage as Required<Pick<EstimateStage, 'header' | 'unigrams'>> & EstimateStage;
 }
 
+/** Options of `openJobModelSource`. */
+export interface JobModelSourceOptions {
+  /** Read each pass over an order (the merge of its result files) in a worker thread of its own,
+   *  which posts the batches to this one (`threadedRows`): a reader that goes through two orders
+   *  side by side (the pack) then has two threads merging for it. Default false. */
+  threads?: boolean;
+  /** With `threads`: orders of fewer rows are read on this thread (a thread takes ~0.3 s to start,
+   *  more than such an order takes to merge). Default ROWS_THREAD_ROWS_MIN. */
+  threadRowsMin?: number;
+}
+
+/** The worker-thread entry and the module it loads (src/count/worker-boot.mjs registers tsx for .ts). */
+const BOOT_URL = new URL('../count/worker-boot.mjs', import.meta.url);
+const ROWS_WORKER_URL = new URL(import.meta.url.endsWith('.ts') ? './rows-worker.ts' : './rows-worker.js', import.meta.url);
+
+/** Threads started by `threadedRows` in this process (tests check that threads ran). */
+let threadsStarted = 0;
+
+/** @internal For tests: how many passes `threadedRows` has read in threads of their own. */
+export function threadedPassesStarted(): number {
+  return threadsStarted;
+}
+
+/**
+ * One pass over an order of the job's estimate, read in a worker thread (rows-worker.ts) that
+ * posts its batches ahead, at most ROWS_THREAD_BATCHES_AHEAD untaken. The worker is stopped when
+ * the pass ends, fails or is left early.
+ */
+async function* threadedRows(jobDir: string, order: number, idsOnly: boolean): AsyncGenerator<ModelRowBatch> {
+  threadsStarted++;
+  const data: RowsWorkerData = { module: ROWS_WORKER_URL.href, jobDir, order, idsOnly, ahead: ROWS_THREAD_BATCHES_AHEAD };
+  const worker = new Worker(BOOT_URL, { workerData: data });
+  const queue: RowsFromWorker[] = [];
+  let failure: Error | null = null;
+  let wake: (() => void) | null = null;
+  worker.on('message', (message: RowsFromWorker) => {
+    queue.push(message);
+    wake?.();
+  });
+  worker.on('error', (error) => {
+    failure ??= error;
+    wake?.();
+  });
+  worker.on('exit', (code) => {
+    failure ??= new Error(`the thread reading order ${order} of ${jobDir} stopped (exit code ${code})`);
+    wake?.();
+  });
+  try {
+    for (;;) {
+      while (queue.length === 0 && failure === null) await new Promise<void>((resolve) => (wake = resolve));
+      wake = null;
+      const message = queue.shift();
+      if (message === undefined) throw failure as unknown as Error;
+      if (message.type === 'end') return;
+      if (message.type === 'error') throw message.code === null ? new Error(message.message) : new QuernError(message.code, message.message);
+      worker.postMessage({ type: 'credit' } satisfies RowsToWorker);
+      yield { rows: message.rows, ids: message.ids, log10Prob: message.log10Prob, log10BackOff: message.log10BackOff };
+    }
+  } finally {
+    worker.removeAllListeners('exit');
+    await worker.terminate();
+  }
+}
+
 /** The model of the job's finished streaming estimate, read order by order from its result files. */
-export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
+export async function openJobModelSource(jobDir: string, options: JobModelSourceOptions = {}): Promise<ModelSource> {
   const job = await readManifest(jobDir);
   if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json)`);
   const stage = finishedStage(jobDir, job.stages.estimate);
@@ -159,9 +225,11 @@ export async function openJobModelSource(jobDir: string): Promise<ModelSource> {
   return {
     header: { ...stage.header, vocabulary },
     rowCounts,
-    rows(order: number, options?: RowOptions): AsyncIterable<ModelRowBatch> {
+    rows(order: number, rowOptions?: RowOptions): AsyncIterable<ModelRowBatch> {
       assert(Number.isInteger(order) && order >= 1 && order <= orderMax, `order in [1, ${orderMax}]`);
-      return order === 1 ? unigramRows() : orderRows(order, options?.idsOnly === true);
+      const idsOnly = rowOptions?.idsOnly === true;
+      if (options.threads === true && order >= 2 && rowCounts[order - 1] >= (options.threadRowsMin ?? ROWS_THREAD_ROWS_MIN)) return threadedRows(jobDir, order, idsOnly);
+      return order === 1 ? unigramRows() : orderRows(order, idsOnly);
     },
   };
 }

@@ -401,7 +401,7 @@ async function runPartitions(
   stage.elapsedMs = (stage.elapsedMs ?? 0) + Date.now() - started;
   await save();
   return {
-    source: await openJobModelSource(jobDir),
+    source: await openJobModelSource(jobDir, { threads: true }),
     partitionsEstimated: stage.partitionsDone.length - partitionsBefore,
     partitions,
     workers,

@@ -12,7 +12,7 @@ import { beforeAll, describe, expect, test } from 'vitest';
 import { QuernError } from '../../src/errors.ts';
 import { estimate } from '../../src/estimate/estimate.ts';
 import { loadCountTables } from '../../src/estimate/from-store.ts';
-import { materialiseModel, openJobModelSource } from '../../src/estimate/job-model-source.ts';
+import { materialiseModel, openJobModelSource, threadedPassesStarted } from '../../src/estimate/job-model-source.ts';
 import { estimateJobStreaming } from '../../src/estimate/stream-stage.ts';
 import { readManifest, type EstimateStage } from '../../src/job/manifest.ts';
 import { FAULT_ENV, nodeFs } from '../../src/job/fsio.ts';
@@ -114,7 +114,7 @@ describe('the estimate stage', () => {
     expectSameModel(await materialiseModel(source), estimate(await loadCountTables(job, 1 << 30), { method: 'katz', fallback: true }));
   }, 60_000);
 
-  test('read for its ids alone (idsOnly), an order gives the ids of a full read and no back-off weights; packed from the job, the model has the bytes of its materialised copy packed', async () => {
+  test('read for its ids alone (idsOnly), an order gives the ids of a full read and no back-off weights; packed from the job (on one thread or with threads), the model has the bytes of its materialised copy packed', async () => {
     const job = copyJob();
     await estimateJobStreaming({ jobDir: job, request: { method: 'modified-kneser-ney', fallback: true }, memoryBytes: 256 << 20, workers: 2 });
     const source = await openJobModelSource(job);
@@ -131,9 +131,15 @@ describe('the estimate stage', () => {
     }
     const fromJob = path.join(job, 'from-job.qm');
     const fromCopy = path.join(job, 'from-copy.qm');
-    await packModelSource(await openJobModelSource(job), { fingerprint: 'f', quantBits: 8 }, nodeFs, fromJob);
     await packModel(await materialiseModel(await openJobModelSource(job)), { fingerprint: 'f', quantBits: 8 }, nodeFs, fromCopy);
-    expect(readFileSync(fromJob).equals(readFileSync(fromCopy))).toBe(true);
+    // On this thread, and with each pass over an order read in a thread of its own.
+    for (const threads of [false, true]) {
+      const started = threadedPassesStarted();
+      await packModelSource(await openJobModelSource(job, { threads, threadRowsMin: 0 }), { fingerprint: 'f', quantBits: 8 }, nodeFs, fromJob);
+      expect(readFileSync(fromJob).equals(readFileSync(fromCopy))).toBe(true);
+      // Orders 2..4 each read twice (beside the order below, then for their own sections), order 1 on this thread: 6 passes.
+      expect(threadedPassesStarted() - started).toBe(threads ? 6 : 0);
+    }
   }, 60_000);
 
   test('stale results are moved aside and removed while the partitions are estimated; leftovers of an interrupted removal go too', async () => {
@@ -173,10 +179,13 @@ describe('the estimate stage', () => {
     const bytes = readFileSync(file);
     bytes[200] ^= 0x40;
     writeFileSync(file, bytes);
-    const error = await materialiseModel(await openJobModelSource(job)).catch((e: unknown) => e);
-    expect(error).toBeInstanceOf(QuernError);
-    expect((error as QuernError).code).toBe('corrupt');
-    expect((error as QuernError).message).toContain(file);
+    // Read on this thread, and in threads of its own (as quern estimate packs): the same error.
+    for (const threads of [false, true]) {
+      const error = await materialiseModel(await openJobModelSource(job, { threads, threadRowsMin: 0 })).catch((e: unknown) => e);
+      expect(error).toBeInstanceOf(QuernError);
+      expect((error as QuernError).code).toBe('corrupt');
+      expect((error as QuernError).message).toContain(file);
+    }
     const restarted = await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 256 << 20, workers: 2, restart: true });
     expect(restarted.partitionsEstimated).toBe(16);
     await expectInMemoryModel(job);

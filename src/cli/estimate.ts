@@ -20,6 +20,7 @@ import { makeProgress } from './progress.ts';
 import { intInRange } from './options.ts';
 import type { EstimateRequest } from '../estimate/estimate.ts';
 import { packModelSource, type PackOptions } from '../pack/writer.ts';
+import { withPackCleanup } from './pack-signals.ts';
 import { formatPackSummary } from './pack.ts';
 import { defaultMemoryBytes } from './count.ts';
 import { parseSize } from './options.ts';
@@ -88,7 +89,7 @@ export async function estimateJob(jobDir: string, out: string, argv: EstimateArg
   const { source } = await estimateJobStreaming({ jobDir, request: planned, memoryBytes: run.memoryBytes, workers: run.workers, progress: run.progress, restart: run.restart, handleSignals: true });
   const options: PackOptions = { fingerprint: job.inputs.map((f) => f.fingerprint).join(','), normalize: job.config.normalize };
   if (argv.quant !== undefined) options.quantBits = argv.quant as 8 | 16;
-  const summary = await packModelSource(source, options, stageFs(), out);
+  const summary = await withPackCleanup(out, () => packModelSource(source, options, stageFs(), out));
   return { line: formatPackSummary(summary) };
 }
 

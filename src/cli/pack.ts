@@ -5,6 +5,7 @@ import { stageFs } from '../job/fsio.ts';
 import { readArpa } from '../pack/arpa.ts';
 import { ENCODING_NAMES } from '../pack/format.ts';
 import { packModel, type PackOptions, type PackSummary } from '../pack/writer.ts';
+import { withPackCleanup } from './pack-signals.ts';
 
 /** One line about a packed file: where, what, how big. */
 export function formatPackSummary(summary: PackSummary): string {
@@ -31,6 +32,6 @@ export const packCommand: CommandModule = {
     const options: PackOptions = { fingerprint: argv.fingerprint as string };
     if (argv.quant !== undefined) options.quantBits = argv.quant as 8 | 16;
     if (argv.float !== undefined) options.floatBits = argv.float as 32 | 64;
-    process.stdout.write(formatPackSummary(await packModel(model, options, stageFs(), out)));
+    process.stdout.write(formatPackSummary(await withPackCleanup(out, () => packModel(model, options, stageFs(), out))));
   },
 };

@@ -81,8 +81,13 @@ export const nodeFs: StageFs = {
  * rename, fsync of the directory. A crash or a failure leaves either the old file or the new one,
  * never a half-written one (the temporary file is removed on failure).
  */
+/** The temporary name `writeFileThrough` writes `filePath` under until it is complete. */
+export function temporaryPathOf(filePath: string): string {
+  return `${filePath}.${process.pid}.tmp`;
+}
+
 export async function writeFileThrough(fs: StageFs, filePath: string, write: (file: WritableFile) => Promise<void>): Promise<void> {
-  const tmpPath = `${filePath}.${process.pid}.tmp`;
+  const tmpPath = temporaryPathOf(filePath);
   const file = await fs.create(tmpPath);
   try {
     try {

@@ -6,7 +6,7 @@
  */
 import { rmSync } from 'node:fs';
 
-const EXIT_ON_SIGNAL: Record<string, number> = { SIGINT: 130, SIGTERM: 143 };
+export const EXIT_ON_SIGNAL: Record<string, number> = { SIGINT: 130, SIGTERM: 143 };
 
 /**
  * Installs the handlers; returns a function that removes them. `quiesce` (WorkerPool.quiesce) runs

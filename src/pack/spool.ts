@@ -17,6 +17,7 @@ import * as fsp from 'node:fs/promises';
 import { assert, ioError } from '../errors.ts';
 import type { StageFs, WritableFile } from '../job/fsio.ts';
 import { PACK_SPOOL_BYTES } from '../limits.ts';
+import { trackTemporary, untrackTemporary } from './temporaries.ts';
 
 export class Spool {
   /** Bytes written. */
@@ -30,7 +31,13 @@ export class Spool {
   }
 
   static async create(fs: StageFs, filePath: string): Promise<Spool> {
-    return new Spool(filePath, await fs.create(filePath));
+    trackTemporary(filePath);
+    try {
+      return new Spool(filePath, await fs.create(filePath));
+    } catch (error) {
+      untrackTemporary(filePath);
+      throw error;
+    }
   }
 
   /** Appends bytes (gathered into writes of PACK_SPOOL_BYTES). */
@@ -100,6 +107,7 @@ export class Spool {
     this.file = null;
     await file?.close().catch(() => undefined);
     await fsp.rm(this.filePath, { force: true }).catch(() => undefined);
+    untrackTemporary(this.filePath);
   }
 
   private async flush(): Promise<void> {

@@ -28,12 +28,13 @@ import type { NormalizeOptions } from '../corpus/types.ts';
 import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, type LanguageModel } from '../estimate/model.ts';
 import { modelSource, type ModelHeader, type ModelSource } from '../estimate/model-source.ts';
-import { writeFileThrough, type StageFs } from '../job/fsio.ts';
+import { temporaryPathOf, writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { ORDER_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_DESCRIPTION_BYTES_MAX, QUANT_FIT_VALUES_MAX } from '../limits.ts';
 import { BitPacker } from './bits.ts';
 import { rowsWithChildren } from './child-counts.ts';
 import { ModelFileWriter } from './file-writer.ts';
 import { Spool } from './spool.ts';
+import { trackTemporary, untrackTemporary } from './temporaries.ts';
 import {
   bitsFor, CHILD_BLOCK_ROWS, childBlocks, childOffsetsStart, FLAG_NORMALISED, fnv1a32, H, hashSlotsFor, HEADER_BYTES, MODEL_MAGIC, MODEL_VERSION_MAJOR, MODEL_VERSION_MINOR,
   requireLittleEndian, SectionKind, ValueEncoding,
@@ -109,19 +110,26 @@ export async function packModelSource(source: ModelSource, options: PackOptions,
 
   let fileBytes = 0;
   let sections = 0;
-  await writeFileThrough(fs, filePath, async (file) => {
-    const out = new ModelFileWriter(file);
-    await out.header(headerBytes(header, rowCounts, encoding));
-    await out.section(SectionKind.Description, 0, description);
-    await out.section(SectionKind.Fingerprint, 0, fingerprint);
-    await out.section(SectionKind.VocabularyWords, 0, vocabulary.words);
-    await out.section(SectionKind.VocabularyOffsets, 0, vocabulary.offsets);
-    await out.section(SectionKind.VocabularyHash, 0, vocabulary.hash);
-    const makeSpool: SpoolMaker = (n, name) => Spool.create(fs, `${filePath}.${process.pid}.o${n}-${name}.tmp`);
-    for (let n = 1; n <= header.order; n++) await writeOrder(out, source, n, encoding, makeSpool);
-    fileBytes = await out.finish();
-    sections = out.sections.length;
-  });
+  // writeFileThrough's temporary name, for a signal handler that deletes it (temporaries.ts).
+  const temporary = temporaryPathOf(filePath);
+  trackTemporary(temporary);
+  try {
+    await writeFileThrough(fs, filePath, async (file) => {
+      const out = new ModelFileWriter(file);
+      await out.header(headerBytes(header, rowCounts, encoding));
+      await out.section(SectionKind.Description, 0, description);
+      await out.section(SectionKind.Fingerprint, 0, fingerprint);
+      await out.section(SectionKind.VocabularyWords, 0, vocabulary.words);
+      await out.section(SectionKind.VocabularyOffsets, 0, vocabulary.offsets);
+      await out.section(SectionKind.VocabularyHash, 0, vocabulary.hash);
+      const makeSpool: SpoolMaker = (n, name) => Spool.create(fs, `${filePath}.${process.pid}.o${n}-${name}.tmp`);
+      for (let n = 1; n <= header.order; n++) await writeOrder(out, source, n, encoding, makeSpool);
+      fileBytes = await out.finish();
+      sections = out.sections.length;
+    });
+  } finally {
+    untrackTemporary(temporary);
+  }
   return { filePath, bytes: fileBytes, ngrams: [...rowCounts], encoding, sections };
 }
 

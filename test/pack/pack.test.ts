@@ -3,7 +3,7 @@
  * vocabulary, scoring, deterministic bytes, the recorded description, atomic writes.
  */
 import { existsSync, readdirSync, readFileSync } from 'node:fs';
-import { join } from 'node:path';
+import { basename, join } from 'node:path';
 import { afterAll, describe, expect, test } from 'vitest';
 import { QuernError } from '../../src/errors.ts';
 import { countCorpus, sentenceIds, truncateCounts, wordIdMap } from '../../src/estimate/counts.ts';
@@ -11,6 +11,7 @@ import { logProb, sentenceLogProbs, type LanguageModel } from '../../src/estimat
 import { faultyFs, nodeFs } from '../../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, packModelSource, type PackOptions } from '../../src/pack/writer.ts';
+import { removePackTemporariesSync } from '../../src/pack/temporaries.ts';
 import { modelSource, type ModelRowBatch, type ModelSource } from '../../src/estimate/model-source.ts';
 import { seededRandom } from '../support/seeded.ts';
 import { estimateWith, histories, markovCorpus, NORMALISED_METHODS } from '../estimate/support.ts';
@@ -216,6 +217,41 @@ describe('the streaming writer', () => {
         expect(reads()).toEqual([1, 2, 2, 2]);
       }
     }
+  });
+
+  test('a pack in progress knows its temporary files: removePackTemporariesSync (what a stopped command runs) deletes the model\'s and the spools', async () => {
+    const model = estimateWith('kneser-ney', counts, heldOut);
+    const inner = modelSource(model);
+    const sub = join(dir, 'stopped');
+    await nodeFs.mkdir(sub);
+    const target = join(sub, 'model.qm');
+    let release = (): void => undefined;
+    const held = new Promise<void>((resolve) => (release = resolve));
+    let reached = (): void => undefined;
+    const paused = new Promise<void>((resolve) => (reached = resolve));
+    // Order 3 waits: by then orders 1 and 2 are written, and order 2's pass has its spools open.
+    const source: ModelSource = {
+      header: inner.header,
+      rowCounts: inner.rowCounts,
+      async *rows(order: number, options?: { idsOnly?: boolean }): AsyncIterable<ModelRowBatch> {
+        if (order === 3) {
+          reached();
+          await held;
+        }
+        yield* inner.rows(order, options);
+      },
+    };
+    const packing = packModelSource(source, { fingerprint: '' }, nodeFs, target).catch((error: unknown) => error);
+    await paused;
+    const temporaries = readdirSync(sub).filter((name) => name.endsWith('.tmp')).sort();
+    expect(temporaries).toEqual([`model.qm.${process.pid}.o2-back-off.tmp`, `model.qm.${process.pid}.o2-children.tmp`, `model.qm.${process.pid}.o2-probabilities.tmp`, `model.qm.${process.pid}.o2-words.tmp`, `model.qm.${process.pid}.tmp`]);
+    expect(removePackTemporariesSync().map((file) => basename(file)).sort()).toEqual(temporaries);
+    expect(readdirSync(sub)).toEqual([]);
+    release();
+    // The pack then fails (its file is gone) and leaves nothing.
+    expect(await packing).toBeInstanceOf(QuernError);
+    expect(readdirSync(sub)).toEqual([]);
+    expect(removePackTemporariesSync()).toEqual([]);
   });
 
   test('a source that breaks its contract (rows out of order, a context missing) is an assertion failure, and leaves no file', async () => {

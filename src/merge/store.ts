@@ -53,10 +53,15 @@ export function parseNgramKey(key: Uint8Array): { order: number; ids: Uint32Arra
   return { order, ids };
 }
 
-/** Opens a partition's environment with every storage option stated. */
+/**
+ * Opens a partition's environment with every storage option stated. Through the thread's stop gate
+ * (stop-gate.ts), like a commit: a worker ended by process.exit inside lmdb's native open aborted the
+ * whole process ("napi_throw" while its isolate was terminating: 1 SIGTERM in the merge stage of
+ * test/e2e/crash.test.ts in a CI run), instead of exiting with the signal's status.
+ */
 function openEnvironment(dir: string, readOnly: boolean): RootDatabase<Buffer, Buffer> {
   try {
-    return open<Buffer, Buffer>({
+    return runUnstoppable(() => open<Buffer, Buffer>({
       path: dir,
       keyEncoding: 'binary',
       encoding: 'binary',
@@ -65,7 +70,7 @@ function openEnvironment(dir: string, readOnly: boolean): RootDatabase<Buffer, B
       noSync: false, // every commit is durable: progress recorded in it can be trusted
       overlappingSync: false,
       readOnly,
-    });
+    }));
   } catch (cause) {
     throw new QuernError('io', `cannot open the count store ${dir}: ${(cause as Error).message}`, { cause });
   }

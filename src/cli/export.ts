@@ -2,7 +2,7 @@
 import type { CommandModule } from 'yargs';
 import { QuernError } from '../errors.ts';
 import { stageFs } from '../job/fsio.ts';
-import { writeArpa, writeArpaFile } from '../pack/arpa.ts';
+import { writeArpaFile, writeArpaSource } from '../pack/arpa.ts';
 import { openModel } from '../pack/reader.ts';
 
 export const exportCommand: CommandModule = {
@@ -13,12 +13,13 @@ export const exportCommand: CommandModule = {
     .option('out', { type: 'string', describe: 'Write to this file (atomically) instead of standard output' })
     .example('$0 export model.qm --out model.arpa', 'The model as an ARPA file'),
   handler: async (argv) => {
-    const model = (await openModel(argv.model as string)).toLanguageModel();
+    // Streamed order by order from the file (no order held in memory), after the structure check.
+    const model = (await openModel(argv.model as string)).toModelSource();
     if (typeof argv.out === 'string') {
       if (argv.out === '') throw new QuernError('config', '--out expects a file name');
       await writeArpaFile(model, stageFs(), argv.out);
     } else {
-      await writeArpa(model, process.stdout);
+      await writeArpaSource(model, process.stdout);
     }
   },
 };

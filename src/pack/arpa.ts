@@ -38,6 +38,8 @@ import { isNormalizeOptions, type NormalizeOptions } from '../corpus/types.ts';
 import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, modelRowCount, type LanguageModel, type MethodParameters, type ModelOrder } from '../estimate/model.ts';
 import { compareRow, searchRows } from '../estimate/rows.ts';
+import { modelSource, type ModelSource } from '../estimate/model-source.ts';
+import { rowsWithChildren } from './child-counts.ts';
 import { writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { openForReading } from '../job/file-read.ts';
 import { ARPA_LOG10_ZERO, ARPA_SIGNIFICANT_DIGITS, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
@@ -83,6 +85,16 @@ export function formatLog10(value: number): string {
  */
 export async function writeArpa(model: LanguageModel, out: NodeJS.WritableStream): Promise<void> {
   checkModel(model);
+  await writeArpaSource(modelSource(model), out);
+}
+
+/**
+ * `writeArpa` for a model read as a stream of rows (a packed model's `toModelSource()`, a job's
+ * estimate): one pass over each order, with the next order beside it to tell which rows are
+ * contexts (child-counts.ts), so no order is held in memory.
+ */
+export async function writeArpaSource(source: ModelSource, out: NodeJS.WritableStream): Promise<void> {
+  const model = source.header;
   const { words } = model.vocabulary;
   for (const word of words) {
     if (word.length === 0 || /\s/.test(word)) throw new QuernError('input', `the word ${JSON.stringify(word)} is empty or contains white space, which the ARPA format cannot hold`);
@@ -102,27 +114,23 @@ export async function writeArpa(model: LanguageModel, out: NodeJS.WritableStream
   };
   let text = 'Written by Quern. ARPA readers skip the text before \\data\\; the next line tells Quern how the model was estimated.\n';
   text += `${DESCRIPTION_PREFIX}${JSON.stringify(description)}\n\n\\data\\\n`;
-  for (const table of model.orders) text += `ngram ${table.order}=${modelRowCount(table)}\n`;
+  source.rowCounts.forEach((rows, index) => (text += `ngram ${index + 1}=${rows}\n`));
   await put(text);
 
-  for (const table of model.orders) {
-    const n = table.order;
-    const rows = modelRowCount(table);
-    // Rows that are contexts of the next order carry a back-off weight.
-    const isContext = new Uint8Array(rows);
-    if (n < model.order) {
-      const higher = model.orders[n];
-      for (let row = 0; row < modelRowCount(higher); row++) isContext[higher.contextRow[row]] = 1;
-    }
+  for (let n = 1; n <= model.order; n++) {
     let lines: string[] = [`\n\\${n}-grams:`];
-    for (let row = 0; row < rows; row++) {
-      let ngram = words[table.ids[row * n]];
-      for (let i = 1; i < n; i++) ngram += ' ' + words[table.ids[row * n + i]];
-      const prob = n === 1 && row === BOS_ID ? -Infinity : table.log10Prob[row];
-      lines.push(isContext[row] === 1 ? `${formatLog10(prob)}\t${ngram}\t${formatLog10(table.log10BackOff[row])}` : `${formatLog10(prob)}\t${ngram}`);
-      if (lines.length >= LINES_PER_WRITE) {
-        await put(lines.join('\n') + '\n');
-        lines = [];
+    let row = 0;
+    // Rows that are contexts of the next order (they have children) carry a back-off weight.
+    for await (const { batch, counts } of rowsWithChildren(source, n)) {
+      for (let i = 0; i < batch.rows; i++, row++) {
+        let ngram = words[batch.ids[i * n]];
+        for (let j = 1; j < n; j++) ngram += ' ' + words[batch.ids[i * n + j]];
+        const prob = n === 1 && row === BOS_ID ? -Infinity : batch.log10Prob[i];
+        lines.push(counts[i] > 0 ? `${formatLog10(prob)}\t${ngram}\t${formatLog10(batch.log10BackOff[i])}` : `${formatLog10(prob)}\t${ngram}`);
+        if (lines.length >= LINES_PER_WRITE) {
+          await put(lines.join('\n') + '\n');
+          lines = [];
+        }
       }
     }
     if (lines.length > 0) await put(lines.join('\n') + '\n');
@@ -153,7 +161,7 @@ function drained(out: NodeJS.WritableStream): Promise<void> {
  * Writes `model` as an ARPA file atomically through `fs`: a temporary file beside `filePath`, fsync,
  * rename, directory fsync (no half-written file is ever left under `filePath`).
  */
-export async function writeArpaFile(model: LanguageModel, fs: StageFs, filePath: string): Promise<void> {
+export async function writeArpaFile(model: LanguageModel | ModelSource, fs: StageFs, filePath: string): Promise<void> {
   await writeFileThrough(fs, filePath, async (file) => {
     const out = new Writable({
       highWaterMark: 1 << 20,
@@ -163,7 +171,7 @@ export async function writeArpaFile(model: LanguageModel, fs: StageFs, filePath:
     });
     const finished = once(out, 'finish');
     finished.catch(() => undefined); // awaited below; writeArpa reports a failure first
-    await writeArpa(model, out);
+    await ('rows' in model ? writeArpaSource(model, out) : writeArpa(model, out));
     out.end();
     await finished;
   });

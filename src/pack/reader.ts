@@ -33,11 +33,12 @@
  */
 import { promises as fsp } from 'node:fs';
 import { crc32 } from 'node:zlib';
-import { QuernError } from '../errors.ts';
+import { assert, QuernError } from '../errors.ts';
 import { openForReading, readFullyAt } from '../job/file-read.ts';
 import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
 import { isNormalizeOptions, type NormalizeOptions } from '../corpus/types.ts';
 import type { LanguageModel, MethodParameters, ModelOrder } from '../estimate/model.ts';
+import type { ModelRowBatch, ModelSource } from '../estimate/model-source.ts';
 import {
   ORDER_MAX, PACK_DESCRIPTION_BYTES_MAX, PACK_FINGERPRINT_BYTES_MAX, PACK_READ_BYTES_MAX, PACK_ROWS_MAX, PACK_SECTION_BYTES_MAX, PACK_SECTIONS_MAX, VOCAB_TYPES_MAX,
 } from '../limits.ts';
@@ -1617,6 +1618,89 @@ export class PackedModel {
    * The model as an in-memory `LanguageModel` (float64 values; quantised values are their codebook
    * values; the back-off weights of rows that are no context are 0). For export and comparison.
    */
+  /**
+   * The model as a stream of rows (src/estimate/model-source.ts), order by order in row order, for
+   * `quern export` and packing again: each pass over order n walks the children ranges of orders
+   * 1..n depth first, keeping the ids of the path, so a row's ids come with it and no order is ever
+   * held in memory (`toLanguageModel` holds them all: ~36 bytes per n-gram). Runs the structure check
+   * first when `openModel` did not.
+   */
+  toModelSource(): ModelSource {
+    if (!this.structureChecked) this.checkStructure(this.filePath, this.sectionWhere);
+    const words: string[] = [];
+    for (let id = 0; id <= this.vocabularySize; id++) words.push(this.word(id));
+    return { header: this.headerOf(words), rowCounts: [...this.ngrams], rows: (order: number) => this.walkRows(order) };
+  }
+
+  /** Rows of order n in row order, with their ids (`toModelSource`), in batches of WALK_BATCH_ROWS. */
+  private async *walkRows(n: number): AsyncGenerator<ModelRowBatch> {
+    if (!(Number.isInteger(n) && n >= 1 && n <= this.order)) throw new RangeError(`order must be an integer in [1, ${this.order}] (got ${n})`);
+    const hot = this.hot;
+    const rowsTotal = this.ngrams[n - 1];
+    const highest = n === this.order;
+    let ids = new Uint32Array(WALK_BATCH_ROWS * n);
+    let log10Prob = new Float64Array(WALK_BATCH_ROWS);
+    let log10BackOff = new Float64Array(WALK_BATCH_ROWS);
+    let filled = 0;
+    // The path: at depth d (1..n), rows [cursor[d], end[d]) of order d are left to visit, and ids[d - 1]
+    // of `path` is the id of the row being visited.
+    const cursor = new Int32Array(n + 1);
+    const end = new Int32Array(n + 1);
+    const path = new Uint32Array(n);
+    let depth = 1;
+    cursor[1] = 0;
+    end[1] = this.ngrams[0];
+    let emitted = 0;
+    while (depth > 0) {
+      if (cursor[depth] >= end[depth]) {
+        depth--;
+        if (depth > 0) cursor[depth]++;
+        continue;
+      }
+      const row = cursor[depth];
+      path[depth - 1] = depth === 1 ? row : unpack(hot[depth].words, row, this.wordBits, this.wordMask);
+      if (depth < n) {
+        const level = hot[depth];
+        cursor[depth + 1] = childrenStart(level, row);
+        end[depth + 1] = childrenEnd(level, row);
+        depth++;
+        continue;
+      }
+      // A row of order n: row `emitted` of the order, since depth first visits them in row order.
+      assert(row === emitted, `order ${n}: rows are visited in order`);
+      ids.set(path, filled * n);
+      const level = hot[n];
+      log10Prob[filled] = valueOf(level.prob, level.probBook, row);
+      log10BackOff[filled] = !highest && childrenEnd(level, row) > childrenStart(level, row) ? valueOf(level.backOff, level.backOffBook, row) : 0;
+      filled++;
+      emitted++;
+      cursor[depth]++;
+      if (filled === WALK_BATCH_ROWS) {
+        yield { rows: filled, ids, log10Prob, log10BackOff };
+        ids = new Uint32Array(WALK_BATCH_ROWS * n);
+        log10Prob = new Float64Array(WALK_BATCH_ROWS);
+        log10BackOff = new Float64Array(WALK_BATCH_ROWS);
+        filled = 0;
+      }
+    }
+    if (filled > 0) yield { rows: filled, ids: ids.subarray(0, filled * n), log10Prob: log10Prob.subarray(0, filled), log10BackOff: log10BackOff.subarray(0, filled) };
+    assert(emitted === rowsTotal, `order ${n}: ${emitted} rows visited of ${rowsTotal}`);
+  }
+
+  /** Everything of the model but its rows, with `words` as its vocabulary. */
+  private headerOf(words: string[]): Omit<LanguageModel, 'orders'> {
+    return {
+      order: this.order,
+      vocabulary: { words, eosId: this.eosId, unkId: this.unkId },
+      normalised: this.normalised,
+      parameters: this.parameters,
+      cutoffs: [...this.cutoffs],
+      vocabularyCap: this.vocabularyCap,
+      ...(this.normalize === null ? {} : { normalize: { ...this.normalize } }),
+      log10UnseenContextWeight: this.log10UnseenContextWeight,
+    };
+  }
+
   toLanguageModel(): LanguageModel {
     // Walking every context's children needs the ranges checked (openModel checks them by default).
     if (!this.structureChecked) this.checkStructure(this.filePath, this.sectionWhere);
@@ -1650,19 +1734,12 @@ export class PackedModel {
       }
       orders.push({ order: n, ids, log10Prob, log10BackOff, contextRow });
     }
-    return {
-      order: this.order,
-      vocabulary: { words, eosId: this.eosId, unkId: this.unkId },
-      normalised: this.normalised,
-      parameters: this.parameters,
-      cutoffs: [...this.cutoffs],
-      vocabularyCap: this.vocabularyCap,
-      ...(this.normalize === null ? {} : { normalize: { ...this.normalize } }),
-      log10UnseenContextWeight: this.log10UnseenContextWeight,
-      orders,
-    };
+    return { ...this.headerOf(words), orders };
   }
 }
+
+/** Rows per batch of `PackedModel.toModelSource`. */
+const WALK_BATCH_ROWS = 65_536;
 
 /**
  * The children of an order n < N and the word ids of order n + 1, decoded in sequence in one pass:

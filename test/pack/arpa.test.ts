@@ -11,7 +11,7 @@ import { QuernError } from '../../src/errors.ts';
 import { countCorpus, sentenceIds, wordIdMap } from '../../src/estimate/counts.ts';
 import { logProb, type LanguageModel } from '../../src/estimate/model.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
-import { formatLog10, readArpa, writeArpa, type ArpaModelDescription } from '../../src/pack/arpa.ts';
+import { formatLog10, readArpa, writeArpa, writeArpaFile, type ArpaModelDescription } from '../../src/pack/arpa.ts';
 import { openModel } from '../../src/pack/reader.ts';
 import { packModel } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
@@ -112,6 +112,28 @@ describe('round trip model → ARPA → model', () => {
     const trigram = lines[lines.indexOf('\\3-grams:') + 1].split('\t');
     expect(trigram).toHaveLength(2);
     expect(trigram[1].split(' ')).toHaveLength(3);
+  });
+
+  test('a packed model exported as a stream (toModelSource, as quern export does) gives the text of the model in memory, with and without cutoffs, floats and codes', async () => {
+    for (const [method, cutoffs, options] of [
+      ['modified-kneser-ney', undefined, { floatBits: 64 }], ['katz', [1, 2, 2], { floatBits: 32 }], ['witten-bell', [1, 1, 2], { quantBits: 8 }],
+    ] as const) {
+      const model = estimateWith(method, counts, heldOut, cutoffs as number[] | undefined);
+      const packedPath = join(dir, `export-${fileIndex++}.qm`);
+      await packModel(model, { fingerprint: '', ...options }, nodeFs, packedPath);
+      const packed = await openModel(packedPath);
+      const inMemory = join(dir, `export-${fileIndex++}.arpa`);
+      const streamed = join(dir, `export-${fileIndex++}.arpa`);
+      await writeArpaFile(packed.toLanguageModel(), nodeFs, inMemory);
+      await writeArpaFile(packed.toModelSource(), nodeFs, streamed);
+      expect(readFileSync(streamed, 'utf8')).toBe(readFileSync(inMemory, 'utf8'));
+      // A pass over an order yields its rows with their ids, in row order.
+      const source = packed.toModelSource();
+      const table = packed.toLanguageModel().orders[2];
+      const ids: number[] = [];
+      for await (const batch of source.rows(3)) ids.push(...batch.ids);
+      expect(ids).toEqual([...table.ids]);
+    }
   });
 
   test('a model read from ARPA packs, and the packed file answers as the model read', async () => {

@@ -9,12 +9,12 @@
  * are written to bench-out/work/ and deleted after the comparison. The script fails when they
  * differ. The machine is shared and noisy: compare the ratios of one run.
  */
-import { createReadStream, mkdirSync, rmSync, statSync, writeFileSync } from 'node:fs';
-import { createHash } from 'node:crypto';
+import { mkdirSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import { join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
+import { fileDigest } from './lib/file-digest.ts';
 import { hugePagesEnv } from './lib/quern-env.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 import { GNU_TIME_PATH, measureCommand } from './lib/rss.ts';
@@ -38,12 +38,6 @@ mkdirSync(work, { recursive: true });
 const against = extractRevision(REPO, values.against, ['src', 'bin', 'package.json', 'tsconfig.json'], (h) => join(work, `tree-${h}`));
 const trees = [{ what: 'this checkout', tree: REPO }, { what: values.against, tree: against.tree }];
 
-async function digest(file: string): Promise<string> {
-  const hash = createHash('sha256');
-  for await (const chunk of createReadStream(file)) hash.update(chunk as Buffer);
-  return hash.digest('hex');
-}
-
 interface Row { what: string; wallMs: number; rssBytesMax: number; outBytes: number; loadAverage1m: number }
 const rows: Row[] = [];
 const digests = new Set<string>();
@@ -56,7 +50,7 @@ try {
       if (measured.exitCode !== 0) fail(`${what} failed (${measured.exitCode ?? measured.signal}): ${measured.stderr.trim()}`);
       const row = { what, wallMs: measured.elapsedMs, rssBytesMax: measured.rssBytesMax, outBytes: statSync(out).size, loadAverage1m };
       rows.push(row);
-      digests.add(await digest(out));
+      digests.add(await fileDigest(out));
       rmSync(out, { force: true });
       process.stderr.write(`${what.padEnd(16)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  peak RSS ${(row.rssBytesMax / 2 ** 20).toFixed(0)} MiB  ${row.outBytes} bytes  load ${loadAverage1m.toFixed(1)}\n`);
     }

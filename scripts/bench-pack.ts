@@ -21,11 +21,12 @@
  * differs. The machine is shared and noisy: compare the ratios of one run, not seconds across runs.
  * Results go to stdout and to bench-out/bench-pack-<timestamp>.json.
  */
-import { createReadStream, existsSync, mkdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import { join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
+import { fileDigest } from './lib/file-digest.ts';
 import { hugePagesEnv } from './lib/quern-env.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 import { GNU_TIME_PATH, measureCommand } from './lib/rss.ts';
@@ -63,16 +64,6 @@ mkdirSync(work, { recursive: true });
 const against = values.against === undefined ? null : extractRevision(REPO, values.against, ['src', 'package.json', 'tsconfig.json'], (h) => join(work, `tree-${h}`));
 const trees: Array<{ what: string; tree: string }> = [{ what: 'this checkout', tree: REPO }, ...(against === null ? [] : [{ what: values.against as string, tree: against.tree }])];
 
-async function sameBytes(a: string, b: string): Promise<boolean> {
-  const digest = async (file: string): Promise<string> => {
-    const { createHash } = await import('node:crypto');
-    const hash = createHash('sha256');
-    for await (const chunk of createReadStream(file)) hash.update(chunk as Buffer);
-    return hash.digest('hex');
-  };
-  return (await digest(a)) === (await digest(b));
-}
-
 const rows: Row[] = [];
 let reference: string | null = null;
 let differ = false;
@@ -89,7 +80,7 @@ try {
       process.stderr.write(`${what.padEnd(16)} ${(row.wallMs / 1000).toFixed(1).padStart(7)} s  CPU ${(row.cpuMs / 1000).toFixed(1).padStart(7)} s  ${(row.ngrams / row.wallMs / 1000).toFixed(2)} M n-grams/s  peak RSS ${(row.rssBytesMax / 2 ** 20).toFixed(0)} MiB  load ${loadAverage1m.toFixed(1)}\n`);
       if (reference === null) reference = file;
       else {
-        if (!(await sameBytes(reference, file))) {
+        if ((await fileDigest(reference)) !== (await fileDigest(file))) {
           differ = true;
           process.stderr.write(`${what}: its file DIFFERS from the first run's\n`);
         }

@@ -2,25 +2,20 @@
  * SIGINT and SIGTERM while a command packs a model file: the file is written under a temporary name
  * and renamed only when complete, so stopping at once is safe, but the temporary files (the model's
  * and the spools of its sections, gigabytes for a large model) would stay. The handlers delete them
- * (pack/temporaries.ts), say so, and exit non-zero.
+ * (pack/temporaries.ts), say so, and exit non-zero (job/interrupt.ts).
  */
-import { EXIT_ON_SIGNAL } from '../job/interrupt.ts';
+import { exitOnStopSignals } from '../job/interrupt.ts';
 import { removePackTemporariesSync } from '../pack/temporaries.ts';
 
 /** Runs `work` (a pack into `out`) with the handlers installed. */
 export async function withPackCleanup<T>(out: string, work: () => Promise<T>): Promise<T> {
-  const handlers = Object.keys(EXIT_ON_SIGNAL).map((signal) => {
-    const handler = (): void => {
-      const removed = removePackTemporariesSync();
-      process.stderr.write(`\nquern: stopped by ${signal} while packing ${out}; it was not written (an earlier file there is unchanged)${removed.length > 0 ? `, and the pack's ${removed.length} temporary files are deleted` : ''}\n`);
-      process.exit(EXIT_ON_SIGNAL[signal]);
-    };
-    process.once(signal, handler);
-    return [signal, handler] as const;
+  const remove = exitOnStopSignals((signal) => {
+    const removed = removePackTemporariesSync();
+    process.stderr.write(`\nquern: stopped by ${signal} while packing ${out}; it was not written (an earlier file there is unchanged)${removed.length > 0 ? `, and the pack's ${removed.length} temporary files are deleted` : ''}\n`);
   });
   try {
     return await work();
   } finally {
-    for (const [signal, handler] of handlers) process.removeListener(signal, handler);
+    remove();
   }
 }

@@ -19,9 +19,6 @@ import type { RowsFromWorker, RowsToWorker, RowsWorkerData } from './rows-protoc
 import { vocabularySize } from './counts.ts';
 import { checkModel, type LanguageModel, type ModelOrder } from './model.ts';
 import type { ModelRowBatch, ModelSource, RowOptions } from './model-source.ts';
-
-/** The back-off weights of a batch read with `idsOnly`. */
-const NO_VALUES = new Float64Array(0);
 import { resultFilePath, type ResultFileRecord } from './partition-estimate.ts';
 import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
 import type { RunBatch } from '../count/run-file.ts';
@@ -48,14 +45,17 @@ function finishedStage(jobDir: string, stage: EstimateStage | undefined): Requir
   return stage as Required<Pick<EstimateStage, 'header' | 'unigrams'>> & EstimateStage;
 }
 
+/** The back-off weights of a batch read with `idsOnly`. */
+const NO_VALUES = new Float64Array(0);
+
 /** Options of `openJobModelSource`. */
 export interface JobModelSourceOptions {
   /** Read each pass over an order (the merge of its result files) in a worker thread of its own,
    *  which posts the batches to this one (`threadedRows`): a reader that goes through two orders
    *  side by side (the pack) then has two threads merging for it. Default false. */
   threads?: boolean;
-  /** With `threads`: orders of fewer rows are read on this thread (a thread takes ~0.3 s to start,
-   *  more than such an order takes to merge). Default ROWS_THREAD_ROWS_MIN. */
+  /** With `threads`: orders of fewer rows are read on this thread (a thread takes ~0.5 s longer to
+   *  give its first batch, about what such an order takes to merge). Default ROWS_THREAD_ROWS_MIN. */
   threadRowsMin?: number;
 }
 
@@ -100,7 +100,7 @@ async function* threadedRows(jobDir: string, order: number, idsOnly: boolean): A
       while (queue.length === 0 && failure === null) await new Promise<void>((resolve) => (wake = resolve));
       wake = null;
       const message = queue.shift();
-      if (message === undefined) throw failure as unknown as Error;
+      if (message === undefined) throw failure ?? new Error(`the thread reading order ${order} of ${jobDir} ended without a word`);
       if (message.type === 'end') return;
       if (message.type === 'error') throw message.code === null ? new Error(message.message) : new QuernError(message.code, message.message);
       worker.postMessage({ type: 'credit' } satisfies RowsToWorker);

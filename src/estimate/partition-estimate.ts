@@ -20,8 +20,9 @@
  * (`o{m−1}.bow`) — rows of other partitions, joined when the model is read (job-model-source.ts).
  *
  * Memory: P's results of orders m−1 and m (2 slots of 16 bytes per row of the order), each in a
- * buffer of the largest such table's size that the thread keeps for the next order and partition, and a window of at most ESTIMATE_WINDOW_ROWS + V rows;
- * `partitionNeedBytes` states it from P's row counts.
+ * buffer of the largest such table's size that the thread keeps for the next order and partition,
+ * and a window of at most ESTIMATE_WINDOW_ROWS + V rows; `partitionNeedBytes` states it from P's
+ * row counts.
  */
 import * as path from 'node:path';
 import { assert, QuernError } from '../errors.ts';

@@ -76,16 +76,16 @@ export const nodeFs: StageFs = {
   },
 };
 
-/**
- * Writes a file atomically through `write`, which appends to it: a temporary file beside it, fsync,
- * rename, fsync of the directory. A crash or a failure leaves either the old file or the new one,
- * never a half-written one (the temporary file is removed on failure).
- */
 /** The temporary name `writeFileThrough` writes `filePath` under until it is complete. */
 export function temporaryPathOf(filePath: string): string {
   return `${filePath}.${process.pid}.tmp`;
 }
 
+/**
+ * Writes a file atomically through `write`, which appends to it: a temporary file beside it, fsync,
+ * rename, fsync of the directory. A crash or a failure leaves either the old file or the new one,
+ * never a half-written one (the temporary file is removed on failure).
+ */
 export async function writeFileThrough(fs: StageFs, filePath: string, write: (file: WritableFile) => Promise<void>): Promise<void> {
   const tmpPath = temporaryPathOf(filePath);
   const file = await fs.create(tmpPath);

@@ -45,7 +45,7 @@ class RowCursor {
 
 /**
  * The rows of order n in order, batch by batch, each batch with `counts`: how many rows of order
- * n + 1 each of its rows is the context of (all 0 at the highest order, `orders`). Asserts that every
+ * n + 1 each of its rows is the context of (all 0 at the highest order). Asserts that every
  * row of order n + 1 has its context among the rows of order n (the estimators keep the prefixes of
  * their n-grams) and that the counts sum to the rows of n + 1.
  */

@@ -14,6 +14,7 @@ import { assert, QuernError } from '../errors.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { readJobVocabulary } from '../count/stage.ts';
 import { readManifest, type EstimateStage } from '../job/manifest.ts';
+import { StopGate } from '../job/stop-gate.ts';
 import { ESTIMATE_SOURCE_BATCH_ROWS, ROWS_THREAD_BATCHES_AHEAD, ROWS_THREAD_ROWS_MIN } from '../limits.ts';
 import type { RowsFromWorker, RowsToWorker, RowsWorkerData } from './rows-protocol.ts';
 import { vocabularySize } from './counts.ts';
@@ -78,7 +79,9 @@ export function threadedPassesStarted(): number {
  */
 async function* threadedRows(jobDir: string, order: number, idsOnly: boolean): AsyncGenerator<ModelRowBatch> {
   threadsStarted++;
-  const data: RowsWorkerData = { module: ROWS_WORKER_URL.href, jobDir, order, idsOnly, ahead: ROWS_THREAD_BATCHES_AHEAD };
+  // Its gate is closed before it is terminated, so that it is never ended while it loads (worker-boot.mjs).
+  const gate = new StopGate();
+  const data: RowsWorkerData = { module: ROWS_WORKER_URL.href, jobDir, order, idsOnly, ahead: ROWS_THREAD_BATCHES_AHEAD, stopGate: gate.buffer };
   const worker = new Worker(BOOT_URL, { workerData: data });
   const queue: RowsFromWorker[] = [];
   let failure: Error | null = null;
@@ -108,6 +111,7 @@ async function* threadedRows(jobDir: string, order: number, idsOnly: boolean): A
     }
   } finally {
     worker.removeAllListeners('exit');
+    gate.close();
     await worker.terminate();
   }
 }

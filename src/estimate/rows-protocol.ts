@@ -9,6 +9,8 @@ export interface RowsWorkerData {
   idsOnly: boolean;
   /** Batches the worker may post before the first credit comes back. */
   ahead: number;
+  /** The words of the worker's stop gate (src/job/stop-gate.ts; worker-boot.mjs loads through it). */
+  stopGate: SharedArrayBuffer;
 }
 
 export type RowsFromWorker =

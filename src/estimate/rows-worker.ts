@@ -31,7 +31,9 @@ function own<T extends Uint32Array | Float64Array>(array: T, transfer: ArrayBuff
 }
 
 const post = (message: RowsFromWorker, transfer: ArrayBuffer[] = []): void => port.postMessage(message, transfer);
-try {
+
+/** The pass, started once the module has loaded (worker-boot.mjs loads it through the stop gate). */
+async function readPass(): Promise<void> {
   const source = await openJobModelSource(jobDir);
   for await (const batch of source.rows(order, { idsOnly })) {
     while (credits === 0) await new Promise<void>((resolve) => (wake = resolve));
@@ -44,6 +46,8 @@ try {
     post({ type: 'batch', rows: batch.rows, ids, log10Prob, log10BackOff }, transfer);
   }
   post({ type: 'end' });
-} catch (error) {
-  post({ type: 'error', code: error instanceof QuernError ? error.code : null, message: error instanceof Error ? error.message : String(error) });
 }
+
+readPass().catch((error: unknown) => {
+  post({ type: 'error', code: error instanceof QuernError ? error.code : null, message: error instanceof Error ? error.message : String(error) });
+});

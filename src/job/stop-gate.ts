@@ -43,17 +43,37 @@ export class StopGate {
    * there without running it until it is terminated: the gate is closed only to stop the thread.
    */
   run<T>(section: () => T): T {
+    this.enter();
+    try {
+      return section();
+    } finally {
+      this.leave();
+    }
+  }
+
+  /**
+   * `run` for an asynchronous section: a worker loading its modules (worker-boot.mjs), whose
+   * native addons (lmdb's) abort the process when their thread is ended while they register. The
+   * thread stays counted as running until `section` settles, so the section must not wait on the
+   * thread that closes the gate.
+   */
+  async runAsync<T>(section: () => Promise<T>): Promise<T> {
+    this.enter();
+    try {
+      return await section();
+    } finally {
+      this.leave();
+    }
+  }
+
+  /** Waits while the gate is closed, then counts this thread as running a section. */
+  private enter(): void {
     const words = this.words;
     for (;;) {
       while (Atomics.load(words, CLOSED) !== 0) Atomics.wait(words, CLOSED, 1);
       Atomics.add(words, RUNNING, 1);
       // Closed between the check and the count: `close` may have seen no section running.
-      if (Atomics.load(words, CLOSED) === 0) break;
-      this.leave();
-    }
-    try {
-      return section();
-    } finally {
+      if (Atomics.load(words, CLOSED) === 0) return;
       this.leave();
     }
   }

@@ -13,6 +13,7 @@ import { REPO, tempDir } from '../support/cli.ts';
 
 const WORKER = new URL('../support/stop-gate-worker.ts', import.meta.url).href;
 const BOOT = new URL('../../src/count/worker-boot.mjs', import.meta.url);
+const SLOW_LOAD_WORKER = new URL('../support/slow-load-worker.ts', import.meta.url).href;
 
 describe('StopGate', () => {
   it('a worker told to stop while inside a store commit finishes that commit, then ends', async () => {
@@ -61,6 +62,23 @@ describe('StopGate', () => {
       await new Promise((resolve) => setTimeout(resolve, 300));
       expect(Atomics.load(flags, 1), 'sections finished after close()').toBe(finished);
       expect(Atomics.load(flags, 0)).toBe(0);
+    } finally {
+      await worker.terminate();
+    }
+  });
+
+  it('a worker is loaded through its gate: close() while its modules load returns once they have loaded (lmdb\'s addon must not be ended while it registers)', async () => {
+    const gate = new StopGate();
+    const flags = new Int32Array(new SharedArrayBuffer(8)); // [loading began, loading ended]
+    const loadMs = 400;
+    const worker = new Worker(BOOT, { workerData: { module: SLOW_LOAD_WORKER, stopGate: gate.buffer, flags: flags.buffer, loadMs } });
+    try {
+      while (Atomics.load(flags, 0) === 0) await new Promise((resolve) => setTimeout(resolve, 5));
+      expect(Atomics.load(flags, 1)).toBe(0);
+      const started = performance.now();
+      gate.close();
+      expect(Atomics.load(flags, 1), 'close() returned while the worker was still loading').toBe(1);
+      expect(performance.now() - started).toBeGreaterThan(100);
     } finally {
       await worker.terminate();
     }

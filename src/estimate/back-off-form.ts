@@ -46,6 +46,9 @@ export interface Level {
   contextStarts: Uint32Array;
   /** True for the highest order N. */
   highest: boolean;
+  /** An array of at least `rows` entries that kneserNeyCounts fills instead of allocating one (the
+   *  streaming driver's, reused from window to window); absent otherwise. */
+  countsScratch?: Float64Array;
 }
 
 /** Count tables prepared for estimation. */
@@ -113,17 +116,19 @@ export function contextLevel(order: number, rows: number, ids: Uint32Array, coun
   assert(order >= 2 && ids.length >= rows * order && counts.length >= rows, 'a context level holds rows of its order');
   const kept = scratch === undefined ? new Uint8Array(rows) : scratch.kept.subarray(0, rows);
   for (let row = 0; row < rows; row++) kept[row] = counts[row] >= cutoff ? 1 : 0;
-  return { order, rows, ids, counts, continuation, kept, contextStarts: contextStarts(ids, order, rows, scratch?.starts), highest };
+  return { order, rows, ids, counts, continuation, kept, contextStarts: contextStarts(ids, order, rows, scratch?.starts), highest, countsScratch: scratch?.counts };
 }
 
 /**
  * Arrays a caller that builds one level after another (the streaming driver's windows) lends
- * contextLevel instead of fresh ones per level: `kept` at least rows long, `starts` rows + 1. The
+ * contextLevel instead of fresh ones per level: `kept` and `counts` at least rows long, `starts` rows + 1. The
  * level then lives only until the next one is built into them.
  */
 export interface LevelScratch {
   kept: Uint8Array;
   starts: Uint32Array;
+  /** Level.countsScratch, rows long. */
+  counts: Float64Array;
 }
 
 /** Checks the tables, applies the cutoffs and finds the contexts of every order. */

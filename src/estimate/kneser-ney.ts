@@ -33,7 +33,7 @@ export function kneserNeyCounts(level: Level): Float64Array {
   assert(level.continuation !== null, `continuation counts of order ${level.order} are needed`);
   const continuation = level.continuation;
   if (level.order === 1) return continuation;
-  const counts = new Float64Array(level.rows);
+  const counts = level.countsScratch === undefined ? new Float64Array(level.rows) : level.countsScratch.subarray(0, level.rows);
   for (let row = 0; row < level.rows; row++) {
     counts[row] = level.ids[row * level.order] === BOS_ID ? level.counts[row] : continuation[row];
   }

@@ -32,6 +32,7 @@ import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.t
 import type { MergeProgress } from '../merge/merge-partition.ts';
 import { applyContextRule, BackOffLog10Memo, contextLevel, type LevelScratch } from './back-off-form.ts';
 import { mix32 } from '../count/hash.ts';
+import { BOS_ID } from '../corpus/vocabulary.ts';
 import type { KatzTallies } from './katz.ts';
 import { planMethod, type MethodPlan, type OrderCountOfCounts, type PlannedRequest } from './method-plan.ts';
 import { ResultWriter, type ResultKind } from './result-file.ts';
@@ -450,7 +451,7 @@ async function estimatePartitionOnce(
       try {
         const probWriter = new ResultWriter(prob.file, { kind: 'probabilities', order: m, partition });
         const bowWriter = new ResultWriter(bow.file, { kind: 'back-off', order: m - 1, partition });
-        await estimateOrder(store, m, highest, plan, settings, previous, current, probWriter, bowWriter, onRows);
+        await estimateOrder(store, m, highest, plan, settings, previous, current, probWriter, bowWriter, partitionRows[m - 1], onRows);
         files.push({ file: bowFile, kind: 'back-off', order: m - 1, ...(await bowWriter.finish()) });
         files.push({ file: probFile, kind: 'probabilities', order: m, ...(await probWriter.finish()) });
       } catch (error) {
@@ -519,6 +520,7 @@ async function estimateOrder(
   current: ProbabilityTable | null,
   probWriter: ResultWriter,
   bowWriter: ResultWriter,
+  expectedRows: number,
   onRows: (rows: number) => void,
 ): Promise<void> {
   const normalised = plan.header.normalised;
@@ -528,13 +530,13 @@ async function estimateOrder(
   let lower = new Float64Array(0);
   let prob = new Float64Array(0);
   const backOffLog10 = new BackOffLog10Memo();
-  let scratch: LevelScratch = { kept: new Uint8Array(0), starts: new Uint32Array(1) };
+  let scratch: LevelScratch = { kept: new Uint8Array(0), starts: new Uint32Array(1), counts: new Float64Array(0) };
 
   /** Applies the rule to the window's first `rows` rows (whole contexts). */
   const process = (rows: number): void => {
     if (scratch.kept.length < rows) {
       const capacity = Math.max(rows, 2 * scratch.kept.length);
-      scratch = { kept: new Uint8Array(capacity), starts: new Uint32Array(capacity + 1) };
+      scratch = { kept: new Uint8Array(capacity), starts: new Uint32Array(capacity + 1), counts: new Float64Array(capacity) };
     }
     const level = contextLevel(m, rows, window.ids, window.counts, withContinuation ? window.continuation : null, cutoff, highest, scratch);
     const rule = plan.ruleFor(level);
@@ -575,20 +577,52 @@ async function estimateOrder(
     if (bowWriter.pendingByteCount >= DRAIN_BYTES) await bowWriter.drain();
   };
 
-  // Both sources decode into reused arrays: a raw batch is copied into the window at once, and a
-  // continuation batch (its own source, so its own arrays) is held only while it is walked.
+  /** Appends a batch's rows to the window with their raw and continuation counts; processes the
+   *  window's whole contexts once it holds ESTIMATE_WINDOW_ROWS rows. */
+  const append = async (keys: Uint32Array, counts: Float64Array, continuationCounts: Float64Array | null, rows: number): Promise<void> => {
+    window.reserve(window.rows + rows);
+    window.ids.set(keys.subarray(0, rows * m), window.rows * m);
+    window.counts.set(counts.subarray(0, rows), window.rows);
+    if (continuationCounts === null) window.continuation.fill(0, window.rows, window.rows + rows);
+    else window.continuation.set(continuationCounts.subarray(0, rows), window.rows);
+    window.rows += rows;
+    if (window.rows >= ESTIMATE_WINDOW_ROWS) {
+      const split = window.lastContextStart();
+      if (split > 0) {
+        process(split);
+        window.keepFrom(split);
+        await drain();
+      }
+    }
+  };
+
+  if (withContinuation && cutoff <= 1) await readContinuationOnly(store, m, expectedRows, append);
+  else await readRawWithContinuation(store, m, withContinuation, append);
+  if (window.rows > 0) process(window.rows);
+  await probWriter.drain();
+  await bowWriter.drain();
+}
+
+/** Takes a batch of rows: ids, raw counts, continuation counts (null: none stored, 0), row count. */
+type AppendRows = (keys: Uint32Array, counts: Float64Array, continuation: Float64Array | null, rows: number) => Promise<void>;
+
+/**
+ * Order m's rows in key order from the raw counts, with their continuation counts joined when
+ * `withContinuation` (stored for the n-grams something precedes: a subset of the rows, 0 for the
+ * others). Both sources decode into reused arrays: a raw batch is copied into the window at once,
+ * and a continuation batch (its own source, so its own arrays) is held only while it is walked.
+ */
+async function readRawWithContinuation(store: PartitionStore, m: number, withContinuation: boolean, append: AppendRows): Promise<void> {
   const raw = new StoreSource(store, m, undefined, 'raw', true);
   const continuation = withContinuation ? new StoreSource(store, m, undefined, 'continuation', true) : null;
   let contBatch: { keys: Uint32Array; counts: Float64Array; recordCount: number } | null = null;
   let contIndex = 0;
+  let joined = new Float64Array(0);
   try {
     if (continuation !== null) contBatch = await continuation.nextBatch();
     for (let batch = await raw.nextBatch(); batch !== null; batch = await raw.nextBatch()) {
-      window.reserve(window.rows + batch.recordCount);
-      window.ids.set(batch.keys.subarray(0, batch.recordCount * m), window.rows * m);
-      window.counts.set(batch.counts.subarray(0, batch.recordCount), window.rows);
       if (continuation !== null) {
-        // Continuation counts are stored for the n-grams something precedes: a subset of the rows.
+        if (joined.length < batch.recordCount) joined = new Float64Array(batch.recordCount);
         for (let j = 0; j < batch.recordCount; j++) {
           let value = 0;
           if (contBatch !== null) {
@@ -602,26 +636,50 @@ async function estimateOrder(
               }
             }
           }
-          window.continuation[window.rows + j] = value;
+          joined[j] = value;
         }
       }
-      window.rows += batch.recordCount;
-      if (window.rows >= ESTIMATE_WINDOW_ROWS) {
-        const split = window.lastContextStart();
-        if (split > 0) {
-          process(split);
-          window.keepFrom(split);
-          await drain();
-        }
-      }
+      await append(batch.keys, batch.counts, continuation === null ? null : joined, batch.recordCount);
     }
     if (contBatch !== null) throw corruptContinuation(store, m);
-    if (window.rows > 0) process(window.rows);
-    await probWriter.drain();
-    await bowWriter.drain();
   } finally {
     await raw.close();
     await continuation?.close();
+  }
+}
+
+/**
+ * Order m's rows in key order for a method that reads, below the highest order, raw counts only for
+ * the n-grams that begin with `<s>` and continuation counts for the rest (Kneser-Ney:
+ * kneserNeyCounts), when no cutoff applies at this order: the rows that begin with `<s>` (the first
+ * ones, BOS_ID being 0) from the raw counts, then every other row from the continuation counts —
+ * nothing precedes an n-gram that begins with `<s>`, and something precedes every other one, so
+ * together they are all the rows, each read once. An n-gram's raw count stands in for the others'
+ * (it is ≥ 1, as the continuation count is, so no row is cut: `cutoff` ≤ 1). The rows are checked
+ * against the number the store's merge recorded, `expectedRows`.
+ */
+async function readContinuationOnly(store: PartitionStore, m: number, expectedRows: number, append: AppendRows): Promise<void> {
+  const bos = new StoreSource(store, m, Uint32Array.of(BOS_ID), 'raw', true);
+  const continuation = new StoreSource(store, m, undefined, 'continuation', true);
+  let rows = 0;
+  try {
+    for (let batch = await bos.nextBatch(); batch !== null; batch = await bos.nextBatch()) {
+      await append(batch.keys, batch.counts, null, batch.recordCount);
+      rows += batch.recordCount;
+    }
+    let first = true;
+    for (let batch = await continuation.nextBatch(); batch !== null; batch = await continuation.nextBatch()) {
+      if (first && batch.recordCount > 0 && batch.keys[0] === BOS_ID) throw corruptContinuation(store, m);
+      first = false;
+      await append(batch.keys, batch.counts, batch.counts, batch.recordCount);
+      rows += batch.recordCount;
+    }
+  } finally {
+    await bos.close();
+    await continuation.close();
+  }
+  if (rows !== expectedRows) {
+    throw new QuernError('corrupt', `count store ${store.dir}: order ${m} holds ${rows} n-grams that begin with <s> or have a continuation count, but its merge recorded ${expectedRows}; re-run quern count with --restart`);
   }
 }
 

@@ -8,6 +8,7 @@
 import { spawn } from 'node:child_process';
 import { cpSync, existsSync, mkdirSync, readdirSync, readFileSync, statSync, writeFileSync } from 'node:fs';
 import * as path from 'node:path';
+import { open } from 'lmdb';
 import { beforeAll, describe, expect, test } from 'vitest';
 import { QuernError } from '../../src/errors.ts';
 import { estimate } from '../../src/estimate/estimate.ts';
@@ -17,6 +18,7 @@ import { estimateJobStreaming } from '../../src/estimate/stream-stage.ts';
 import { readManifest, type EstimateStage } from '../../src/job/manifest.ts';
 import { FAULT_ENV, nodeFs } from '../../src/job/fsio.ts';
 import { packModel, packModelSource } from '../../src/pack/writer.ts';
+import { KEY_SPACE, partitionStoreDir } from '../../src/merge/store.ts';
 import { REPO, runQuern, tempDir } from '../support/cli.ts';
 import { countJob, expectSameModel } from './stream-support.ts';
 import { makeTokenizer } from '../../src/corpus/tokenize.ts';
@@ -189,6 +191,30 @@ describe('the estimate stage', () => {
     const restarted = await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 256 << 20, workers: 2, restart: true });
     expect(restarted.partitionsEstimated).toBe(16);
     await expectInMemoryModel(job);
+  }, 60_000);
+});
+
+describe('reading the count store', () => {
+  // Without cutoffs, Kneser-Ney's lower orders are read from the continuation counts, and the raw
+  // counts only for the n-grams that begin with <s> (partition-estimate.ts, readContinuationOnly):
+  // a store whose continuation counts lost rows must not give a model without them.
+  test('continuation counts that lost a block: the partition is reported as corrupt, by the rows its merge recorded', async () => {
+    const job = copyJob();
+    const partition = 5;
+    const order = 3;
+    const env = open<Buffer, Buffer>({ path: path.join(job, partitionStoreDir(partition)), keyEncoding: 'binary', encoding: 'binary', compression: false });
+    const space = KEY_SPACE.continuation + order;
+    let removed = 0;
+    for (const { key } of env.getRange({ start: Buffer.from([space]), end: Buffer.from([space + 1]), limit: 1 })) {
+      env.removeSync(Buffer.from(key));
+      removed++;
+    }
+    await env.close();
+    expect(removed).toBe(1);
+    const error = await estimateJobStreaming({ jobDir: job, request: { fallback: true }, memoryBytes: 256 << 20, workers: 1 }).catch((e: unknown) => e);
+    expect(error).toBeInstanceOf(QuernError);
+    expect((error as QuernError).code).toBe('corrupt');
+    expect((error as QuernError).message).toMatch(new RegExp(`p000${partition}: order ${order} holds \\d+ n-grams .* its merge recorded \\d+`));
   }, 60_000);
 });
 

@@ -20,7 +20,7 @@ import { assert, QuernError } from '../errors.ts';
 import type { WritableFile } from '../job/fsio.ts';
 import { openForReading, readFullyAt } from '../job/file-read.ts';
 import { ORDER_MAX, RESULT_ARENA_BYTES, RESULT_BLOCK_ROWS, RESULT_SPARE_ARENAS } from '../limits.ts';
-import { compareRows, putVarU32, readVarU32, DecodeFailure } from '../count/block-codec.ts';
+import { compareRows, readVarU32, DecodeFailure } from '../count/block-codec.ts';
 
 export const RESULT_FORMAT_VERSION = 1;
 export const RESULT_HEADER_BYTES = 64;
@@ -176,14 +176,22 @@ export class ResultWriter {
       while (shared < order && ids[base + shared] === ids[prev + shared]) shared++;
       if (shared === order || ids[base + shared] < ids[prev + shared]) assert(false, `result rows of order ${order} strictly increase`);
       buf[p++] = shared;
-      // One-byte varints (most deltas, and the ids of frequent words) written here; longer ones by putVarU32.
-      const delta = ids[base + shared] - ids[prev + shared];
-      if (delta < 0x80) buf[p++] = delta;
-      else p = putVarU32(buf, p, delta);
+      // LEB128 varints (putVarU32's bytes) written inline: with a vocabulary of more than 128
+      // words most ids, and many deltas, take two or three bytes, and a call per varint cost more
+      // than the writing.
+      let delta = ids[base + shared] - ids[prev + shared];
+      while (delta >= 0x80) {
+        buf[p++] = delta | 0x80;
+        delta >>>= 7;
+      }
+      buf[p++] = delta;
       for (let j = shared + 1; j < order; j++) {
-        const id = ids[base + j];
-        if (id < 0x80) buf[p++] = id;
-        else p = putVarU32(buf, p, id);
+        let id = ids[base + j];
+        while (id >= 0x80) {
+          buf[p++] = id | 0x80;
+          id >>>= 7;
+        }
+        buf[p++] = id;
       }
     }
     buf.writeUInt32LE(p - idStart, 8);

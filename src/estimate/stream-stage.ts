@@ -234,6 +234,17 @@ export async function stageInputs(job: JobManifest, jobDir: string, request: Pla
 }
 
 async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
+  // The workers load their modules (about a second) while this thread reads the job's inputs and
+  // estimates the unigrams; a run with nothing left to estimate closes them unused.
+  const ownPool = request.pool === undefined && job.config.order > 1 ? new WorkerPool(Math.max(1, Math.min(request.workers, job.config.partitions))) : undefined;
+  try {
+    return await runStageWith(job, jobDir, fs, progress, { ...request, pool: request.pool ?? ownPool }, started);
+  } finally {
+    await ownPool?.close();
+  }
+}
+
+async function runStageWith(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
   const { settings, plan, key } = await stageInputs(job, jobDir, request.request);
   const serial = pLimit(1); // job.json is written one write at a time
   const save = (): Promise<void> => serial(() => writeManifest(fs, jobDir, job));
@@ -361,7 +372,7 @@ async function runPartitions(
   if (todo.length > 0 && orderMax > 1) {
     stage.status = 'running';
     await save();
-    const pool = request.pool ?? new WorkerPool(workers);
+    const pool = request.pool ?? new WorkerPool(workers); // runStage passes one unless the order is 1
     progress.start(`estimating ${todo.length} partitions`, todo.length, 'tasks', 'n-grams');
     try {
       await pool.run<number, EstimateDone, unknown>({ ...baseInit(job, jobDir, 'estimate'), estimate: settings }, todo, {

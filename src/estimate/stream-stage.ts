@@ -14,7 +14,7 @@ import { createHash } from 'node:crypto';
 import pLimit from 'p-limit';
 import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
-import { QuernError } from '../errors.ts';
+import { assert, QuernError } from '../errors.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { WorkerPool } from '../count/pool.ts';
 import type { EstimateDone } from '../count/protocol.ts';
@@ -372,7 +372,8 @@ async function runPartitions(
   if (todo.length > 0 && orderMax > 1) {
     stage.status = 'running';
     await save();
-    const pool = request.pool ?? new WorkerPool(workers); // runStage passes one unless the order is 1
+    const pool = request.pool;
+    assert(pool !== undefined, 'runStage starts the pool of a job of order 2 or more');
     progress.start(`estimating ${todo.length} partitions`, todo.length, 'tasks', 'n-grams');
     try {
       await pool.run<number, EstimateDone, unknown>({ ...baseInit(job, jobDir, 'estimate'), estimate: settings }, todo, {
@@ -385,8 +386,7 @@ async function runPartitions(
         },
       }, workers);
     } finally {
-      progress.stop();
-      if (request.pool === undefined) await pool.close();
+      progress.stop(); // runStage closes the pool
     }
   }
   stage.partitionsDone.sort((a, b) => a.partition - b.partition);

@@ -577,14 +577,15 @@ async function estimateOrder(
     if (bowWriter.pendingByteCount >= DRAIN_BYTES) await bowWriter.drain();
   };
 
-  /** Appends a batch's rows to the window with their raw and continuation counts; processes the
-   *  window's whole contexts once it holds ESTIMATE_WINDOW_ROWS rows. */
+  /** Appends a batch's rows to the window with their raw and continuation counts (null: none, so 0
+   *  where the level uses them); processes the window's whole contexts once it holds
+   *  ESTIMATE_WINDOW_ROWS rows. */
   const append = async (keys: Uint32Array, counts: Float64Array, continuationCounts: Float64Array | null, rows: number): Promise<void> => {
     window.reserve(window.rows + rows);
     window.ids.set(keys.subarray(0, rows * m), window.rows * m);
     window.counts.set(counts.subarray(0, rows), window.rows);
-    if (continuationCounts === null) window.continuation.fill(0, window.rows, window.rows + rows);
-    else window.continuation.set(continuationCounts.subarray(0, rows), window.rows);
+    if (continuationCounts !== null) window.continuation.set(continuationCounts.subarray(0, rows), window.rows);
+    else if (withContinuation) window.continuation.fill(0, window.rows, window.rows + rows); // the level reads them
     window.rows += rows;
     if (window.rows >= ESTIMATE_WINDOW_ROWS) {
       const split = window.lastContextStart();

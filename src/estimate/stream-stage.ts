@@ -234,8 +234,8 @@ export async function stageInputs(job: JobManifest, jobDir: string, request: Pla
 }
 
 async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
-  // The workers load their modules (about a second) while this thread reads the job's inputs and
-  // estimates the unigrams; a run with nothing left to estimate closes them unused.
+  // The workers load their modules while this thread reads the job's inputs and estimates the
+  // unigrams; a run with nothing left to estimate closes them unused.
   const ownPool = request.pool === undefined && job.config.order > 1 ? new WorkerPool(Math.max(1, Math.min(request.workers, job.config.partitions))) : undefined;
   try {
     return await runStageWith(job, jobDir, fs, progress, { ...request, pool: request.pool ?? ownPool }, started);

@@ -1615,21 +1615,25 @@ export class PackedModel {
   }
 
   /**
-   * The model as an in-memory `LanguageModel` (float64 values; quantised values are their codebook
-   * values; the back-off weights of rows that are no context are 0). For export and comparison.
-   */
-  /**
    * The model as a stream of rows (src/estimate/model-source.ts), order by order in row order, for
    * `quern export` and packing again: each pass over order n walks the children ranges of orders
    * 1..n depth first, keeping the ids of the path, so a row's ids come with it and no order is ever
-   * held in memory (`toLanguageModel` holds them all: ~36 bytes per n-gram). Runs the structure check
+   * held in memory (`toLanguageModel` holds them all, in arrays of 4n + 20 bytes per n-gram of order n). Runs the structure check
    * first when `openModel` did not.
    */
   toModelSource(): ModelSource {
+    return { header: this.headerOf(this.checkedWords()), rowCounts: [...this.ngrams], rows: (order: number) => this.walkRows(order) };
+  }
+
+  /**
+   * Every word by id, after the structure check when `openModel` did not make it: walking every
+   * context's children (`toModelSource`, `toLanguageModel`) needs the ranges checked.
+   */
+  private checkedWords(): string[] {
     if (!this.structureChecked) this.checkStructure(this.filePath, this.sectionWhere);
     const words: string[] = [];
     for (let id = 0; id <= this.vocabularySize; id++) words.push(this.word(id));
-    return { header: this.headerOf(words), rowCounts: [...this.ngrams], rows: (order: number) => this.walkRows(order) };
+    return words;
   }
 
   /** Rows of order n in row order, with their ids (`toModelSource`), in batches of WALK_BATCH_ROWS. */
@@ -1701,12 +1705,13 @@ export class PackedModel {
     };
   }
 
+  /**
+   * The model as an in-memory `LanguageModel` (float64 values; quantised values are their codebook
+   * values; the back-off weights of rows that are no context are 0). For export and comparison.
+   */
   toLanguageModel(): LanguageModel {
-    // Walking every context's children needs the ranges checked (openModel checks them by default).
-    if (!this.structureChecked) this.checkStructure(this.filePath, this.sectionWhere);
     const size = this.vocabularySize;
-    const words: string[] = [];
-    for (let id = 0; id <= size; id++) words.push(this.word(id));
+    const words = this.checkedWords();
     const orders: ModelOrder[] = [];
     for (let n = 1; n <= this.order; n++) {
       const level = this.levels[n - 1];

@@ -1,0 +1,353 @@
+/**
+ * The hashed layout of one order of n-grams, the candidate for the model file's next version (not
+ * written by `quern pack` yet; `npm run bench:lookup-layout` measures it against the file's own
+ * lookups). Each n-gram of order n ≥ 2 is a key (its context's slot at order n − 1 — at order 2 the
+ * context's word id — and its last word) with a few fixed-width values (log10 p, log10 back-off),
+ * stored as one bit-packed record per slot of an open-addressing table:
+ *
+ *   record = word (W bits) | remainder (Q bits) | displacement (D bits) | value 0 | value 1 …
+ *
+ * so that a lookup finds the key and its values in one place, and the probes of a lookup's orders
+ * depend only on the state (the context slots), not on each other.
+ *
+ * - Home bucket: z = (mix(context) + hash(word)) mod 2^a, with mix an a-bit bijection, so that z and
+ *   the word give the context back; home = ⌊z · B / 2^a⌋ for B buckets of `bucketSlots` slots (a power
+ *   of two). The z of one home lie in an interval shorter than 2^Q, so the record keeps z's low Q
+ *   bits (the remainder) and the word instead of (word, context): the key exactly, in fewer bits,
+ *   and no division on the lookup's path.
+ * - Placement: ordered linear probing by buckets. Entries are laid out in order of home bucket, each
+ *   at the first free slot at or after its bucket's first, so the displacement (its bucket − its home)
+ *   is small and a search stops at an empty slot (word field 0: words are ≥ 1) or at an entry whose
+ *   home is past the key's. One empty slot ends the table.
+ */
+import { assert } from '../errors.ts';
+import { maskFor } from './bits.ts';
+import { bitsFor } from './format.ts';
+
+/** Extra bits of z above those of the bucket count: 2^a ≥ 8·B, so that homes are close to uniform. */
+const MIX_BITS_ABOVE_BUCKETS = 3;
+/** Largest key (word | remainder | displacement): one u32. */
+const KEY_BITS_MAX = 32;
+/** Largest value field. */
+const VALUE_BITS_MAX = 32;
+const MIX_MULTIPLIER_1 = 0x9e3779b1;
+const MIX_MULTIPLIER_2 = 0x85ebca6b;
+
+/** The inverse of an odd number modulo 2^32 (Newton's iteration: each step doubles the correct bits). */
+function inverseOdd(m: number): number {
+  let y = m >>> 0;
+  for (let i = 0; i < 5; i++) y = Math.imul(y, (2 - Math.imul(m, y)) >>> 0) >>> 0;
+  assert(Math.imul(m, y) >>> 0 === 1, 'an odd multiplier has an inverse modulo 2^32');
+  return y;
+}
+const MIX_INVERSE_1 = inverseOdd(MIX_MULTIPLIER_1);
+const MIX_INVERSE_2 = inverseOdd(MIX_MULTIPLIER_2);
+
+/** A bijection of [0, 2^a), 1 ≤ a ≤ 32: multiply by odd constants and xor-shift right by ⌈a/2⌉, twice. */
+export function mix(x: number, a: number): number {
+  const mask = maskFor(a);
+  const shift = (a + 1) >>> 1;
+  x = (Math.imul(x, MIX_MULTIPLIER_1) & mask) >>> 0;
+  x = (x ^ (x >>> shift)) >>> 0;
+  x = (Math.imul(x, MIX_MULTIPLIER_2) & mask) >>> 0;
+  return (x ^ (x >>> shift)) >>> 0;
+}
+
+/** The inverse of `mix` (a xor-shift by ⌈a/2⌉ ≥ a/2 is its own inverse). */
+export function unmix(x: number, a: number): number {
+  const mask = maskFor(a);
+  const shift = (a + 1) >>> 1;
+  x = (x ^ (x >>> shift)) >>> 0;
+  x = (Math.imul(x, MIX_INVERSE_2) & mask) >>> 0;
+  x = (x ^ (x >>> shift)) >>> 0;
+  return (Math.imul(x, MIX_INVERSE_1) & mask) >>> 0;
+}
+
+/** 32-bit hash of a word id (the finaliser of MurmurHash3). */
+export function hashWord(word: number): number {
+  let h = word >>> 0;
+  h = Math.imul(h ^ (h >>> 16), 0x85ebca6b) >>> 0;
+  h = Math.imul(h ^ (h >>> 13), 0xc2b2ae35) >>> 0;
+  return (h ^ (h >>> 16)) >>> 0;
+}
+
+/** ⌊z · buckets / 2^a⌋ exactly (z < 2^a ≤ 2^32, buckets < 2^31): the product split so that every
+ *  intermediate stays below 2^53. */
+export function homeOf(z: number, buckets: number, a: number): number {
+  if (a <= 16) return Math.floor((z * buckets) / 2 ** a);
+  const high = Math.floor(buckets / 65536);
+  const low = buckets - high * 65536;
+  return Math.floor((z * high + Math.floor((z * low) / 65536)) / 2 ** (a - 16));
+}
+
+/** z of (context, word) in an a-bit mix. */
+export function zOf(context: number, word: number, a: number): number {
+  return ((mix(context, a) + hashWord(word)) & maskFor(a)) >>> 0;
+}
+
+/** What an order's table is built from. */
+export interface HashedOrderInput {
+  /** Entries (n-grams of the order). */
+  rows: number;
+  /** Contexts are 0 .. contextSpace − 1. */
+  contextSpace: number;
+  /** Words are 1 .. wordMax. */
+  wordMax: number;
+  /** Each entry's context and word. */
+  contexts: Uint32Array;
+  words: Uint32Array;
+  /** Widths (1..32 bits) of the value fields, and each field's value per entry (< 2^width). */
+  valueBits: number[];
+  values: Uint32Array[];
+  /** Entries per slot, 0 < load < 1. */
+  load: number;
+  bucketSlots: number;
+}
+
+/** The parameters a reader needs (all of them stored with the table in a file). */
+export interface HashedOrderLayout {
+  buckets: number;
+  bucketSlots: number;
+  /** Slots: the buckets', those entries pushed past the last bucket, and one empty slot. */
+  slots: number;
+  /** a: the width of z. */
+  mixBits: number;
+  wordBits: number;
+  /** Q: the low bits of z a record keeps. */
+  remainderBits: number;
+  displacementBits: number;
+  valueBits: number[];
+  /** Bits of a record: word + remainder + displacement + the values. */
+  recordBits: number;
+}
+
+/** Bytes of a table of `layout`: its records bit-packed, plus two spare u32 words. */
+export function hashedOrderBytes(layout: HashedOrderLayout): number {
+  return (Math.ceil((layout.slots * layout.recordBits) / 32) + 2) * 4;
+}
+
+/** The `mask`-wide field at stream bit `bit` (which may exceed 2^32: float math). */
+function readBits(words: Uint32Array, bit: number, mask: number): number {
+  const word = Math.floor(bit / 32);
+  const shift = bit - word * 32;
+  return (((words[word] >>> shift) | ((words[word + 1] << 1) << (31 - shift))) & mask) >>> 0;
+}
+
+function writeBits(words: Uint32Array, bit: number, width: number, value: number): void {
+  if (width === 0) return;
+  const word = Math.floor(bit / 32);
+  const shift = bit - word * 32;
+  words[word] = (words[word] | (value << shift)) >>> 0;
+  if (shift + width > 32) words[word + 1] = (words[word + 1] | (value >>> (32 - shift))) >>> 0;
+}
+
+/** One order's table: built by `build`, read by `find`, `value` and `keyAt`. */
+export class HashedOrder {
+  readonly layout: HashedOrderLayout;
+  /** The records, bit-packed (hashedOrderBytes). */
+  readonly words: Uint32Array;
+  // Derived from the layout, for the lookups. Shifts of 32 would be shifts of 0 in JS: the masks
+  // (0 for an empty field) keep them right.
+  private readonly wordMask: number;
+  private readonly keyMask: number;
+  private readonly matchMask: number;
+  private readonly remainderMask: number;
+  private readonly displacementShift: number;
+  private readonly displacementMask: number;
+  private readonly bucketShift: number;
+  // z and its home without a division or a power (homeOf, zOf and mix, specialised to the layout).
+  private readonly zMask: number;
+  private readonly mixShift: number;
+  private readonly bucketsHigh: number;
+  private readonly bucketsLow: number;
+  /** 2^−a when a ≤ 16, else 2^−(a − 16). */
+  private readonly homeScale: number;
+  private readonly wideMix: boolean;
+  private readonly valueOffsets: number[];
+  private readonly valueMasks: number[];
+
+  constructor(layout: HashedOrderLayout, words: Uint32Array) {
+    assert(words.length * 4 === hashedOrderBytes(layout), 'a table holds its records and two spare words');
+    assert(Number.isInteger(Math.log2(layout.bucketSlots)), 'a power of two slots per bucket');
+    this.layout = layout;
+    this.words = words;
+    const keyBits = layout.wordBits + layout.remainderBits + layout.displacementBits;
+    assert(keyBits <= KEY_BITS_MAX, `a key fits ${KEY_BITS_MAX} bits`);
+    this.wordMask = maskFor(layout.wordBits);
+    this.keyMask = maskFor(keyBits);
+    this.matchMask = maskFor(layout.wordBits + layout.remainderBits);
+    this.remainderMask = maskFor(layout.remainderBits);
+    this.displacementShift = layout.wordBits + layout.remainderBits;
+    this.displacementMask = maskFor(layout.displacementBits);
+    this.bucketShift = Math.log2(layout.bucketSlots);
+    const a = layout.mixBits;
+    this.zMask = maskFor(a);
+    this.mixShift = (a + 1) >>> 1;
+    this.wideMix = a > 16;
+    this.bucketsHigh = Math.floor(layout.buckets / 65536);
+    this.bucketsLow = layout.buckets - this.bucketsHigh * 65536;
+    this.homeScale = this.wideMix ? 2 ** -(a - 16) : 2 ** -a;
+    this.valueOffsets = [];
+    this.valueMasks = [];
+    let offset = keyBits;
+    for (const bits of layout.valueBits) {
+      this.valueOffsets.push(offset);
+      this.valueMasks.push(maskFor(bits));
+      offset += bits;
+    }
+  }
+
+  /** Builds the table of `input`; `slotOf[i]` is entry i's slot. */
+  static build(input: HashedOrderInput): { table: HashedOrder; slotOf: Int32Array } {
+    const { rows, contextSpace, wordMax, contexts, words, valueBits, values, load, bucketSlots } = input;
+    assert(rows >= 1 && contextSpace >= 1 && wordMax >= 1, 'a table holds at least one entry');
+    assert(load > 0 && load < 1 && Number.isInteger(Math.log2(bucketSlots)), 'load in (0, 1), a power of two slots per bucket');
+    assert(valueBits.length === values.length && valueBits.every((bits) => Number.isInteger(bits) && bits >= 1 && bits <= VALUE_BITS_MAX), 'value fields of 1..32 bits');
+    const buckets = Math.ceil(rows / (load * bucketSlots));
+    assert(buckets * bucketSlots < 2 ** 31, 'fewer than 2^31 slots');
+    const mixBits = Math.min(32, Math.max(1, bitsFor(contextSpace - 1), bitsFor(buckets - 1) + MIX_BITS_ABOVE_BUCKETS));
+    const wordBits = bitsFor(wordMax);
+    // The z of one home: fewer than ⌈2^a / B⌉ + 1, so remainderBits of them tell them apart.
+    const remainderBits = Math.min(mixBits, bitsFor(Math.ceil(2 ** mixBits / buckets)));
+    const remainderMask = maskFor(remainderBits);
+    // Homes and remainders, then the entries in order of home (a counting sort, stable).
+    const homes = new Uint32Array(rows);
+    const remainders = new Uint32Array(rows);
+    for (let i = 0; i < rows; i++) {
+      const context = contexts[i];
+      const word = words[i];
+      assert(context < contextSpace && word >= 1 && word <= wordMax, `entry ${i}: context ${context} and word ${word} in range`);
+      const z = zOf(context, word, mixBits);
+      homes[i] = homeOf(z, buckets, mixBits);
+      remainders[i] = (z & remainderMask) >>> 0;
+    }
+    const firstOf = new Uint32Array(buckets + 1);
+    for (let i = 0; i < rows; i++) firstOf[homes[i] + 1]++;
+    for (let b = 0; b < buckets; b++) firstOf[b + 1] += firstOf[b];
+    const byHome = new Uint32Array(rows);
+    for (let i = 0; i < rows; i++) byHome[firstOf[homes[i]]++] = i;
+    const slotOf = new Int32Array(rows);
+    let position = -1;
+    let displacementMax = 0;
+    for (let j = 0; j < rows; j++) {
+      const i = byHome[j];
+      position = Math.max(homes[i] * bucketSlots, position + 1);
+      slotOf[i] = position;
+      const displacement = Math.floor(position / bucketSlots) - homes[i];
+      if (displacement > displacementMax) displacementMax = displacement;
+    }
+    const displacementBits = bitsFor(displacementMax);
+    const slots = Math.max(buckets * bucketSlots, position + 1) + 1;
+    const recordBits = wordBits + remainderBits + displacementBits + valueBits.reduce((sum, bits) => sum + bits, 0);
+    const layout: HashedOrderLayout = { buckets, bucketSlots, slots, mixBits, wordBits, remainderBits, displacementBits, valueBits: [...valueBits], recordBits };
+    const packed = new Uint32Array(hashedOrderBytes(layout) / 4);
+    for (let i = 0; i < rows; i++) {
+      const slot = slotOf[i];
+      let bit = slot * recordBits;
+      writeBits(packed, bit, wordBits, words[i]);
+      bit += wordBits;
+      writeBits(packed, bit, remainderBits, remainders[i]);
+      bit += remainderBits;
+      writeBits(packed, bit, displacementBits, Math.floor(slot / bucketSlots) - homes[i]);
+      bit += displacementBits;
+      for (let f = 0; f < valueBits.length; f++) {
+        const value = values[f][i];
+        assert(value <= maskFor(valueBits[f]), `entry ${i}: value ${f} fits ${valueBits[f]} bits`);
+        writeBits(packed, bit, valueBits[f], value);
+        bit += valueBits[f];
+      }
+    }
+    return { table: new HashedOrder(layout, packed), slotOf };
+  }
+
+  /** The slot of (context, word), or −1 when the table does not hold it. */
+  find(context: number, word: number): number {
+    const z = this.z(context, word);
+    return this.findFrom(this.home(z), this.wantedOf(z, word));
+  }
+
+  /** z of (context, word) (`home` and `wantedOf` take it): zOf for this layout. */
+  z(context: number, word: number): number {
+    const mask = this.zMask;
+    const shift = this.mixShift;
+    let x = (Math.imul(context, MIX_MULTIPLIER_1) & mask) >>> 0;
+    x = (x ^ (x >>> shift)) >>> 0;
+    x = (Math.imul(x, MIX_MULTIPLIER_2) & mask) >>> 0;
+    x = (x ^ (x >>> shift)) >>> 0;
+    return ((x + hashWord(word)) & mask) >>> 0;
+  }
+
+  /** The home bucket of a key's z: homeOf for this layout (multiplications by powers of two are exact). */
+  home(z: number): number {
+    if (!this.wideMix) return Math.floor(z * this.layout.buckets * this.homeScale);
+    return Math.floor((z * this.bucketsHigh + Math.floor(z * this.bucketsLow * (1 / 65536))) * this.homeScale);
+  }
+
+  /** The word and remainder fields a record of the key holds. */
+  wantedOf(z: number, word: number): number {
+    return (word | ((z & this.remainderMask) << this.layout.wordBits)) >>> 0;
+  }
+
+  /** Reads the first word of bucket `home`'s records: a load issued ahead of `findFrom`, so that the
+   *  memory reads of many lookups overlap. */
+  touch(home: number): number {
+    return this.words[Math.floor((home * this.layout.bucketSlots * this.layout.recordBits) / 32)];
+  }
+
+  /** The slot of the key whose home is `home` and whose fields are `wanted` (`wantedOf`), or −1. */
+  findFrom(home: number, wanted: number): number {
+    const recordBits = this.layout.recordBits;
+    const words = this.words;
+    const keyMask = this.keyMask;
+    const wordMask = this.wordMask;
+    const matchMask = this.matchMask;
+    const displacementShift = this.displacementShift;
+    const displacementMask = this.displacementMask;
+    const bucketShift = this.bucketShift;
+    let slot = home << bucketShift;
+    // The stream bit of the slot's record, as 32·word + shift, stepped without a division.
+    let word = Math.floor((slot * recordBits) / 32);
+    let shift = slot * recordBits - word * 32;
+    const wordStep = recordBits >>> 5;
+    const shiftStep = recordBits & 31;
+    for (;;) {
+      const key = (((words[word] >>> shift) | ((words[word + 1] << 1) << (31 - shift))) & keyMask) >>> 0;
+      if ((key & wordMask) === 0) return -1;
+      const entryHome = (slot >>> bucketShift) - ((key >>> displacementShift) & displacementMask);
+      if (entryHome === home && (key & matchMask) === wanted) return slot;
+      if (entryHome > home) return -1;
+      slot++;
+      word += wordStep;
+      shift += shiftStep;
+      if (shift >= 32) {
+        shift -= 32;
+        word++;
+      }
+    }
+  }
+
+  /** Value field `field` of the entry at `slot` (a slot `find` returned). */
+  value(slot: number, field: number): number {
+    return readBits(this.words, slot * this.layout.recordBits + this.valueOffsets[field], this.valueMasks[field]);
+  }
+
+  /** The (context, word) at `slot`, or null for an empty slot. */
+  keyAt(slot: number): { context: number; word: number } | null {
+    const layout = this.layout;
+    const key = readBits(this.words, slot * layout.recordBits, this.keyMask);
+    const word = key & this.wordMask;
+    if (word === 0) return null;
+    const remainder = (key >>> layout.wordBits) & this.remainderMask;
+    const home = (slot >>> this.bucketShift) - ((key >>> this.displacementShift) & this.displacementMask);
+    // The z of this home run from the first z ≥ home·2^a / B: the one with these low bits.
+    const a = layout.mixBits;
+    let first = Math.ceil((home * 2 ** a) / layout.buckets);
+    while (first > 0 && homeOf(first - 1, layout.buckets, a) === home) first--;
+    while (homeOf(first, layout.buckets, a) < home) first++;
+    const span = 2 ** layout.remainderBits;
+    const z = first + ((((remainder - first) % span) + span) % span);
+    assert(homeOf(z, layout.buckets, a) === home, `slot ${slot}: its remainder names a z of its home`);
+    const x = (z - (hashWord(word) % 2 ** a) + 2 ** a) % 2 ** a;
+    return { context: unmix(x, a), word };
+  }
+}

@@ -1,0 +1,153 @@
+import { describe, expect, it } from 'vitest';
+import { bitsFor } from '../../src/pack/format.ts';
+import { HashedOrder, hashedOrderBytes, homeOf, mix, unmix, zOf, type HashedOrderInput } from '../../src/pack/hash-layout.ts';
+import { Prng } from '../../scripts/lib/prng.ts';
+
+/** Distinct random (context, word) keys with two value fields, as an order's n-grams would be. */
+function randomInput(seed: number, rows: number, contextSpace: number, wordMax: number, valueBits = [32, 8]): HashedOrderInput {
+  const prng = new Prng(seed);
+  const seen = new Set<number>();
+  const contexts = new Uint32Array(rows);
+  const words = new Uint32Array(rows);
+  for (let i = 0; i < rows; ) {
+    const context = prng.int(contextSpace);
+    const word = 1 + prng.int(wordMax);
+    const key = context * (wordMax + 1) + word;
+    if (seen.has(key)) continue;
+    seen.add(key);
+    contexts[i] = context;
+    words[i] = word;
+    i++;
+  }
+  const values = valueBits.map((bits) => {
+    const field = new Uint32Array(rows);
+    for (let i = 0; i < rows; i++) field[i] = bits === 32 ? prng.nextUint32() : prng.int(2 ** bits);
+    return field;
+  });
+  return { rows, contextSpace, wordMax, contexts, words, valueBits, values, load: 0.85, bucketSlots: 4 };
+}
+
+describe('the context mix', () => {
+  it('is a bijection of [0, 2^a) for every a up to 16, and unmix inverts it', () => {
+    for (let a = 1; a <= 16; a++) {
+      const size = 2 ** a;
+      const hit = new Uint8Array(size);
+      let wrong = 0;
+      for (let x = 0; x < size; x++) {
+        const y = mix(x, a);
+        if (!(y < size) || hit[y] !== 0 || unmix(y, a) !== x) wrong++;
+        else hit[y] = 1;
+      }
+      expect(wrong, `a = ${a}`).toBe(0);
+    }
+  });
+
+  it('is inverted by unmix for wide mixes (a = 17..32), on random values', () => {
+    const prng = new Prng(5);
+    for (let a = 17; a <= 32; a++) {
+      for (let i = 0; i < 2000; i++) {
+        const x = a === 32 ? prng.nextUint32() : prng.int(2 ** a);
+        const y = mix(x, a);
+        expect(y).toBeLessThan(2 ** a);
+        expect(unmix(y, a)).toBe(x);
+      }
+    }
+  });
+
+  it('homeOf is ⌊z · B / 2^a⌋ exactly, as 64-bit integer arithmetic gives it', () => {
+    const prng = new Prng(9);
+    let wrong = 0;
+    for (let t = 0; t < 20_000; t++) {
+      const a = 1 + prng.int(32);
+      const z = a === 32 ? prng.nextUint32() : prng.int(2 ** a);
+      const buckets = 1 + prng.int(2 ** 31 - 1);
+      if (homeOf(z, buckets, a) !== Number((BigInt(z) * BigInt(buckets)) >> BigInt(a))) wrong++;
+    }
+    expect(wrong).toBe(0);
+  });
+});
+
+describe('a hashed order', () => {
+  it('finds every entry at its slot, with its values, and gives its key back', () => {
+    const input = randomInput(1, 20_000, 5_000, 3_000);
+    const { table, slotOf } = HashedOrder.build(input);
+    for (let i = 0; i < input.rows; i++) {
+      const slot = table.find(input.contexts[i], input.words[i]);
+      expect(slot).toBe(slotOf[i]);
+      expect(table.value(slot, 0)).toBe(input.values[0][i]);
+      expect(table.value(slot, 1)).toBe(input.values[1][i]);
+      expect(table.keyAt(slot)).toEqual({ context: input.contexts[i], word: input.words[i] });
+    }
+  });
+
+  it('finds no key it does not hold, and its other slots are empty', () => {
+    const input = randomInput(2, 20_000, 5_000, 3_000);
+    const { table, slotOf } = HashedOrder.build(input);
+    const held = new Set<number>();
+    for (let i = 0; i < input.rows; i++) held.add(input.contexts[i] * 4000 + input.words[i]);
+    const prng = new Prng(3);
+    let absent = 0;
+    for (let t = 0; t < 50_000; t++) {
+      const context = prng.int(5_000);
+      const word = 1 + prng.int(3_000);
+      if (held.has(context * 4000 + word)) continue;
+      expect(table.find(context, word)).toBe(-1);
+      absent++;
+    }
+    expect(absent).toBeGreaterThan(45_000);
+    const used = new Set(slotOf);
+    let empty = 0;
+    for (let slot = 0; slot < table.layout.slots; slot++) {
+      if (used.has(slot)) continue;
+      expect(table.keyAt(slot)).toBeNull();
+      empty++;
+    }
+    expect(empty).toBe(table.layout.slots - input.rows);
+    // The last slot is always empty: a search never runs past the table.
+    expect(used.has(table.layout.slots - 1)).toBe(false);
+  });
+
+  it('lays the entries out in order of home, each at or after its home bucket, in the fewest bits', () => {
+    const input = randomInput(4, 30_000, 40_000, 70_000, [16]);
+    const { table, slotOf } = HashedOrder.build(input);
+    const layout = table.layout;
+    expect(layout.buckets).toBe(Math.ceil(30_000 / (0.85 * 4)));
+    expect(layout.wordBits).toBe(bitsFor(70_000));
+    expect(layout.recordBits).toBe(layout.wordBits + layout.remainderBits + layout.displacementBits + 16);
+    expect(table.words.length * 4).toBe(hashedOrderBytes(layout));
+    // The largest displacement needs exactly displacementBits.
+    let largest = 0;
+    const order = [...slotOf].sort((a, b) => a - b);
+    let previousHome = -1;
+    for (const slot of order) {
+      const key = table.keyAt(slot)!;
+      const back = table.find(key.context, key.word);
+      expect(back).toBe(slot);
+      // Home = bucket − displacement, recomputed from the key.
+      const home = homeOf(zOf(key.context, key.word, layout.mixBits), layout.buckets, layout.mixBits);
+      expect(Math.floor(slot / layout.bucketSlots)).toBeGreaterThanOrEqual(home);
+      expect(home).toBeGreaterThanOrEqual(previousHome);
+      previousHome = home;
+      largest = Math.max(largest, Math.floor(slot / layout.bucketSlots) - home);
+    }
+    expect(layout.displacementBits).toBe(bitsFor(largest));
+  });
+
+  it('is deterministic: the same entries give the same bytes', () => {
+    const a = HashedOrder.build(randomInput(6, 5_000, 1_000, 900)).table;
+    const b = HashedOrder.build(randomInput(6, 5_000, 1_000, 900)).table;
+    expect(Buffer.from(a.words.buffer).equals(Buffer.from(b.words.buffer))).toBe(true);
+  });
+
+  it('holds one entry, and a context space of one', () => {
+    const one = HashedOrder.build({ rows: 1, contextSpace: 1, wordMax: 1, contexts: Uint32Array.of(0), words: Uint32Array.of(1), valueBits: [32], values: [Uint32Array.of(0xdeadbeef)], load: 0.5, bucketSlots: 4 }).table;
+    const slot = one.find(0, 1);
+    expect(slot).toBeGreaterThanOrEqual(0);
+    expect(one.value(slot, 0)).toBe(0xdeadbeef);
+    expect(one.keyAt(slot)).toEqual({ context: 0, word: 1 });
+    const input = randomInput(7, 500, 1, 600);
+    const { table } = HashedOrder.build(input);
+    for (let i = 0; i < input.rows; i++) expect(table.keyAt(table.find(0, input.words[i]))).toEqual({ context: 0, word: input.words[i] });
+  });
+});
+

@@ -13,7 +13,7 @@ import { Worker } from 'node:worker_threads';
 import { assert, QuernError } from '../errors.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { readJobVocabulary } from '../count/stage.ts';
-import { readManifest, type EstimateStage } from '../job/manifest.ts';
+import { readManifest, type EstimateStage, type JobManifest } from '../job/manifest.ts';
 import { StopGate } from '../job/stop-gate.ts';
 import { ESTIMATE_SOURCE_BATCH_ROWS, ROWS_THREAD_BATCHES_AHEAD, ROWS_THREAD_ROWS_MIN } from '../limits.ts';
 import type { RowsFromWorker, RowsToWorker, RowsWorkerData } from './rows-protocol.ts';
@@ -116,20 +116,115 @@ async function* threadedRows(jobDir: string, order: number, idsOnly: boolean): A
   }
 }
 
-/** The model of the job's finished streaming estimate, read order by order from its result files. */
-export async function openJobModelSource(jobDir: string, options: JobModelSourceOptions = {}): Promise<ModelSource> {
+/** The result files of a job's finished estimate, by kind and order, and how to open one. */
+interface EstimateResults {
+  byOrder(kind: ResultKind, order: number): ResultFileRecord[];
+  open(record: ResultFileRecord): Promise<ResultReader>;
+}
+
+/** A job's finished estimate stage and its result files (no vocabulary read). */
+async function readEstimateResults(jobDir: string): Promise<{ job: JobManifest; stage: ReturnType<typeof finishedStage>; results: EstimateResults }> {
   const job = await readManifest(jobDir);
   if (!job) throw new QuernError('config', `${jobDir} is not a quern job (no job.json)`);
   const stage = finishedStage(jobDir, job.stages.estimate);
-  const vocab = await readJobVocabulary(jobDir, job);
-  const vocabulary = { words: vocab.words, eosId: vocab.eosId, unkId: vocab.unkId };
-  const size = vocabularySize(vocabulary);
-  const orderMax = stage.header.cutoffs.length;
   const byOrder = (kind: ResultKind, order: number): ResultFileRecord[] =>
     stage.partitionsDone.flatMap((p) => p.files.filter((f) => f.kind === kind && f.order === order).map((f) => ({ ...f, partition: p.partition })));
   const partitionOf = (record: ResultFileRecord): number => Number((record as ResultFileRecord & { partition: number }).partition);
   const open = (record: ResultFileRecord): Promise<ResultReader> =>
     ResultReader.open(path.join(jobDir, record.file), { kind: record.kind, order: record.order, partition: partitionOf(record) }, record);
+  return { job, stage, results: { byOrder, open } };
+}
+
+/**
+ * One pass over order m ≥ 2 of a job's finished estimate (what `openJobModelSource(job).rows(m)`
+ * gives), without reading the job's vocabulary, which only order 1 and the header need: for the
+ * pack's row threads (rows-worker.ts), each of which reads one pass.
+ */
+export async function jobOrderRows(jobDir: string, order: number, idsOnly: boolean): Promise<AsyncIterable<ModelRowBatch>> {
+  const { stage, results } = await readEstimateResults(jobDir);
+  const orderMax = stage.header.cutoffs.length;
+  assert(Number.isInteger(order) && order >= 2 && order <= orderMax, `order in [2, ${orderMax}]`);
+  return orderRows(jobDir, results, order, idsOnly);
+}
+
+/**
+ * Order m ≥ 2: the partitions' probability files merged into ascending order by the loser-tree
+ * merge of the count store (batch by batch, no per-row await), joined with their merged back-off
+ * files. The partitions' rows are disjoint, so the merge never adds two values; the row total is
+ * checked against the files' records all the same.
+ */
+async function* orderRows(jobDir: string, results: EstimateResults, order: number, idsOnly: boolean): AsyncIterable<ModelRowBatch> {
+  const { byOrder, open } = results;
+  const corrupt = (what: string): QuernError => new QuernError('corrupt', `${jobDir}: ${what}; re-run quern estimate with --restart`);
+  const probFiles = byOrder('probabilities', order);
+  const backOffFiles = byOrder('back-off', order);
+  // Every reader opened is closed in the end, whatever fails: a merge that was never started
+  // (the back-off weights', when the first probability batch is damaged) closes nothing itself.
+  const readers: ResultReader[] = [];
+  const openAll = async (records: ResultFileRecord[]): Promise<ResultReader[]> => {
+    const opened: ResultReader[] = [];
+    for (const record of records) {
+      const reader = await open(record);
+      readers.push(reader);
+      opened.push(reader);
+    }
+    return opened;
+  };
+  let probs: AsyncGenerator<RunBatch> | undefined;
+  let backOffs: AsyncGenerator<RunBatch> | undefined;
+  let backOff: RunBatch | null = null;
+  let b = 0;
+  let rowsOut = 0;
+  let backOffRows = 0;
+  try {
+    probs = mergeRuns((await openAll(probFiles)).map((r) => resultSource(r, order)), order);
+    if (idsOnly) {
+      // The ids alone: no back-off weights merged or joined (nor their checks, made by the passes
+      // that read them).
+      for await (const batch of probs) yield { rows: batch.recordCount, ids: batch.keys.subarray(0, batch.recordCount * order), log10Prob: batch.counts.subarray(0, batch.recordCount), log10BackOff: NO_VALUES };
+      return;
+    }
+    backOffs = mergeRuns((await openAll(backOffFiles)).map((r) => resultSource(r, order)), order);
+    for await (const batch of probs) {
+      const { keys, counts, recordCount } = batch;
+      const log10BackOff = new Float64Array(recordCount);
+      for (let r = 0; r < recordCount; r++) {
+        if (backOff === null || b === backOff.recordCount) {
+          const next = await backOffs.next();
+          backOff = next.done ? null : next.value;
+          b = 0;
+        }
+        if (backOff === null) break;
+        const c = compareRows(backOff.keys, b * order, keys, r * order, order);
+        if (c < 0) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
+        if (c === 0) {
+          log10BackOff[r] = backOff.counts[b++];
+          backOffRows++;
+        }
+      }
+      rowsOut += recordCount;
+      yield { rows: recordCount, ids: keys.subarray(0, recordCount * order), log10Prob: counts.subarray(0, recordCount), log10BackOff };
+    }
+    if (backOff !== null && b < backOff.recordCount) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
+    if (!(await backOffs.next()).done) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
+    const probRows = probFiles.reduce((sum, f) => sum + f.rows, 0);
+    const weightRows = backOffFiles.reduce((sum, f) => sum + f.rows, 0);
+    if (rowsOut !== probRows || backOffRows !== weightRows) throw corrupt(`order ${order}: the partitions' results overlap (${rowsOut} of ${probRows} rows, ${backOffRows} of ${weightRows} back-off weights distinct)`);
+  } finally {
+    await probs?.return(undefined);
+    await backOffs?.return(undefined);
+    await Promise.all(readers.map((reader) => reader.close().catch(() => undefined)));
+  }
+}
+
+/** The model of the job's finished streaming estimate, read order by order from its result files. */
+export async function openJobModelSource(jobDir: string, options: JobModelSourceOptions = {}): Promise<ModelSource> {
+  const { job, stage, results } = await readEstimateResults(jobDir);
+  const vocab = await readJobVocabulary(jobDir, job);
+  const vocabulary = { words: vocab.words, eosId: vocab.eosId, unkId: vocab.unkId };
+  const size = vocabularySize(vocabulary);
+  const orderMax = stage.header.cutoffs.length;
+  const { byOrder, open } = results;
   const rowCounts = [size + 1];
   for (let m = 2; m <= orderMax; m++) rowCounts.push(byOrder('probabilities', m).reduce((sum, f) => sum + f.rows, 0));
   assert(stage.unigrams.rows === size + 1, 'the unigram results hold every id 0..V');
@@ -157,75 +252,6 @@ export async function openJobModelSource(jobDir: string, options: JobModelSource
     }
   }
 
-  /**
-   * Order m ≥ 2: the partitions' probability files merged into ascending order by the loser-tree
-   * merge of the count store (batch by batch, no per-row await), joined with their merged back-off
-   * files. The partitions' rows are disjoint, so the merge never adds two values; the row total is
-   * checked against the files' records all the same.
-   */
-  async function* orderRows(order: number, idsOnly: boolean): AsyncIterable<ModelRowBatch> {
-    const corrupt = (what: string): QuernError => new QuernError('corrupt', `${jobDir}: ${what}; re-run quern estimate with --restart`);
-    const probFiles = byOrder('probabilities', order);
-    const backOffFiles = byOrder('back-off', order);
-    // Every reader opened is closed in the end, whatever fails: a merge that was never started
-    // (the back-off weights', when the first probability batch is damaged) closes nothing itself.
-    const readers: ResultReader[] = [];
-    const openAll = async (records: ResultFileRecord[]): Promise<ResultReader[]> => {
-      const opened: ResultReader[] = [];
-      for (const record of records) {
-        const reader = await open(record);
-        readers.push(reader);
-        opened.push(reader);
-      }
-      return opened;
-    };
-    let probs: AsyncGenerator<RunBatch> | undefined;
-    let backOffs: AsyncGenerator<RunBatch> | undefined;
-    let backOff: RunBatch | null = null;
-    let b = 0;
-    let rowsOut = 0;
-    let backOffRows = 0;
-    try {
-      probs = mergeRuns((await openAll(probFiles)).map((r) => resultSource(r, order)), order);
-      if (idsOnly) {
-        // The ids alone: no back-off weights merged or joined (nor their checks, made by the passes
-        // that read them).
-        for await (const batch of probs) yield { rows: batch.recordCount, ids: batch.keys.subarray(0, batch.recordCount * order), log10Prob: batch.counts.subarray(0, batch.recordCount), log10BackOff: NO_VALUES };
-        return;
-      }
-      backOffs = mergeRuns((await openAll(backOffFiles)).map((r) => resultSource(r, order)), order);
-      for await (const batch of probs) {
-        const { keys, counts, recordCount } = batch;
-        const log10BackOff = new Float64Array(recordCount);
-        for (let r = 0; r < recordCount; r++) {
-          if (backOff === null || b === backOff.recordCount) {
-            const next = await backOffs.next();
-            backOff = next.done ? null : next.value;
-            b = 0;
-          }
-          if (backOff === null) break;
-          const c = compareRows(backOff.keys, b * order, keys, r * order, order);
-          if (c < 0) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
-          if (c === 0) {
-            log10BackOff[r] = backOff.counts[b++];
-            backOffRows++;
-          }
-        }
-        rowsOut += recordCount;
-        yield { rows: recordCount, ids: keys.subarray(0, recordCount * order), log10Prob: counts.subarray(0, recordCount), log10BackOff };
-      }
-      if (backOff !== null && b < backOff.recordCount) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
-      if (!(await backOffs.next()).done) throw corrupt(`a back-off weight of order ${order} belongs to no row of the model`);
-      const probRows = probFiles.reduce((sum, f) => sum + f.rows, 0);
-      const weightRows = backOffFiles.reduce((sum, f) => sum + f.rows, 0);
-      if (rowsOut !== probRows || backOffRows !== weightRows) throw corrupt(`order ${order}: the partitions' results overlap (${rowsOut} of ${probRows} rows, ${backOffRows} of ${weightRows} back-off weights distinct)`);
-    } finally {
-      await probs?.return(undefined);
-      await backOffs?.return(undefined);
-      await Promise.all(readers.map((reader) => reader.close().catch(() => undefined)));
-    }
-  }
-
   return {
     header: { ...stage.header, vocabulary },
     rowCounts,
@@ -233,7 +259,7 @@ export async function openJobModelSource(jobDir: string, options: JobModelSource
       assert(Number.isInteger(order) && order >= 1 && order <= orderMax, `order in [1, ${orderMax}]`);
       const idsOnly = rowOptions?.idsOnly === true;
       if (options.threads === true && order >= 2 && rowCounts[order - 1] >= (options.threadRowsMin ?? ROWS_THREAD_ROWS_MIN)) return threadedRows(jobDir, order, idsOnly);
-      return order === 1 ? unigramRows() : orderRows(order, idsOnly);
+      return order === 1 ? unigramRows() : orderRows(jobDir, results, order, idsOnly);
     },
   };
 }

@@ -1,13 +1,13 @@
 /**
  * Worker thread of `threadedRows` (job-model-source.ts): reads one order of a job's finished
- * estimate (`openJobModelSource(job).rows(order)`: the k-way merge of the partitions' result files,
- * and their back-off weights joined) and posts its batches to the main thread, at most
+ * estimate (`jobOrderRows`, the same pass as `openJobModelSource(job).rows(order)` without reading
+ * the vocabulary: the k-way merge of the partitions' result files, and their back-off weights joined) and posts its batches to the main thread, at most
  * `ahead` batches before the main thread has taken them (each taken batch sends a credit back).
  * Batches move without a copy (their buffers are transferred) unless a buffer is shared.
  */
 import { parentPort, workerData } from 'node:worker_threads';
 import { QuernError } from '../errors.ts';
-import { openJobModelSource } from './job-model-source.ts';
+import { jobOrderRows } from './job-model-source.ts';
 import type { RowsFromWorker, RowsToWorker, RowsWorkerData } from './rows-protocol.ts';
 
 const { jobDir, order, idsOnly, ahead } = workerData as RowsWorkerData;
@@ -34,8 +34,7 @@ const post = (message: RowsFromWorker, transfer: ArrayBuffer[] = []): void => po
 
 /** The pass, started once the module has loaded (worker-boot.mjs loads it through the stop gate). */
 async function readPass(): Promise<void> {
-  const source = await openJobModelSource(jobDir);
-  for await (const batch of source.rows(order, { idsOnly })) {
+  for await (const batch of await jobOrderRows(jobDir, order, idsOnly)) {
     while (credits === 0) await new Promise<void>((resolve) => (wake = resolve));
     wake = null;
     credits--;

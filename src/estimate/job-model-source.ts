@@ -67,6 +67,24 @@ const ROWS_WORKER_URL = new URL(import.meta.url.endsWith('.ts') ? './rows-worker
 /** Threads started by `threadedRows` in this process (tests check that threads ran). */
 let threadsStarted = 0;
 
+/** The stop gates of the row threads running now (`threadedRows`). */
+const liveRowGates = new Set<StopGate>();
+
+/**
+ * Closes the stop gate of every row thread running now and returns once none of them is inside a
+ * section it must not be stopped in (loading its modules, lmdb's among them, worker-boot.mjs): from
+ * then on process.exit may end them. For the stop-signal handler of a pack (cli/pack-signals.ts),
+ * which exits at once; a pass that ends normally closes its own gate.
+ */
+export function quiesceRowThreads(): void {
+  for (const gate of liveRowGates) gate.close();
+}
+
+/** @internal For tests: the gates of the row threads running now. */
+export function liveRowThreadGates(): StopGate[] {
+  return [...liveRowGates];
+}
+
 /** @internal For tests: how many passes `threadedRows` has read in threads of their own. */
 export function threadedPassesStarted(): number {
   return threadsStarted;
@@ -81,6 +99,7 @@ async function* threadedRows(jobDir: string, order: number, idsOnly: boolean): A
   threadsStarted++;
   // Its gate is closed before it is terminated, so that it is never ended while it loads (worker-boot.mjs).
   const gate = new StopGate();
+  liveRowGates.add(gate);
   const data: RowsWorkerData = { module: ROWS_WORKER_URL.href, jobDir, order, idsOnly, ahead: ROWS_THREAD_BATCHES_AHEAD, stopGate: gate.buffer };
   const worker = new Worker(BOOT_URL, { workerData: data });
   const queue: RowsFromWorker[] = [];
@@ -112,6 +131,7 @@ async function* threadedRows(jobDir: string, order: number, idsOnly: boolean): A
   } finally {
     worker.removeAllListeners('exit');
     gate.close();
+    liveRowGates.delete(gate);
     await worker.terminate();
   }
 }

@@ -13,7 +13,7 @@ import { beforeAll, describe, expect, test } from 'vitest';
 import { QuernError } from '../../src/errors.ts';
 import { estimate } from '../../src/estimate/estimate.ts';
 import { loadCountTables } from '../../src/estimate/from-store.ts';
-import { materialiseModel, openJobModelSource, threadedPassesStarted } from '../../src/estimate/job-model-source.ts';
+import { liveRowThreadGates, materialiseModel, openJobModelSource, quiesceRowThreads, threadedPassesStarted } from '../../src/estimate/job-model-source.ts';
 import { estimateJobStreaming } from '../../src/estimate/stream-stage.ts';
 import { readManifest, type EstimateStage } from '../../src/job/manifest.ts';
 import { FAULT_ENV, nodeFs } from '../../src/job/fsio.ts';
@@ -142,6 +142,27 @@ describe('the estimate stage', () => {
       // Orders 2..4 each read twice (beside the order below, then for their own sections), order 1 on this thread: 6 passes.
       expect(threadedPassesStarted() - started).toBe(threads ? 6 : 0);
     }
+  }, 60_000);
+
+  test('a stop signal during a pack closes the gate of every row thread running (quiesceRowThreads) before the process exits', async () => {
+    const job = copyJob();
+    await estimateJobStreaming({ jobDir: job, request: { method: 'witten-bell' }, memoryBytes: 256 << 20, workers: 2 });
+    const source = await openJobModelSource(job, { threads: true, threadRowsMin: 0 });
+    const rows = source.rows(3)[Symbol.asyncIterator]();
+    let batch = await rows.next(); // the thread has loaded its modules and sent a batch
+    let read = 0;
+    const gates = liveRowThreadGates();
+    expect(gates.length).toBe(1);
+    // What pack-signals.ts runs before process.exit: every running row thread's gate closed, and no
+    // section it must not be ended in running (gate words: [closed, sections running]). A thread
+    // still loading would be waited for (stop-gate tests); this one is past its load.
+    quiesceRowThreads();
+    expect(gates[0].closed).toBe(true);
+    expect(Atomics.load(gates[0].words, 1)).toBe(0);
+    // The pass is no such section: it reads on to its end, and its thread's gate is then forgotten.
+    for (; !batch.done; batch = await rows.next()) read += batch.value.rows;
+    expect(read).toBe(source.rowCounts[2]);
+    expect(liveRowThreadGates().length).toBe(0);
   }, 60_000);
 
   test('stale results are moved aside and removed while the partitions are estimated; leftovers of an interrupted removal go too', async () => {

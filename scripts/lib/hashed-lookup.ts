@@ -8,7 +8,8 @@
  * keys alone.
  */
 import assert from 'node:assert/strict';
-import { HashedOrder, hashedOrderBytes } from '../../src/pack/hash-layout.ts';
+import type { ModelRowBatch, ModelSource } from '../../src/estimate/model-source.ts';
+import { HashedOrderBuilder, hashedOrderBytes, type HashedOrder } from '../../src/pack/hash-layout.ts';
 import type { PackedModel } from '../../src/pack/reader.ts';
 
 export interface HashedOptions {
@@ -24,6 +25,45 @@ const bitsOfFloat = new Uint32Array(floatBits.buffer);
 function toBits(value: number): number {
   floatBits[0] = value;
   return bitsOfFloat[0];
+}
+
+/**
+ * The rows of order n ≥ 2 of `source` with each row's key: its context's slot at order n − 1
+ * (`slotOf` of that order; at order 2 the context's id) and its word. The context is found by
+ * walking order n − 1 in step (both ascend, and a context's rows are contiguous).
+ */
+async function* keyedRows(source: ModelSource, n: number, slotOf: Int32Array | null): AsyncGenerator<{ contexts: Uint32Array; words: Uint32Array; batch: ModelRowBatch }> {
+  const below = source.rows(n - 1, { idsOnly: true })[Symbol.asyncIterator]();
+  let belowBatch = (await below.next()).value as ModelRowBatch;
+  let belowIndex = 0;
+  let belowRow = 0;
+  let row = 0;
+  try {
+    for await (const batch of source.rows(n)) {
+      const contexts = new Uint32Array(batch.rows);
+      const words = new Uint32Array(batch.rows);
+      for (let j = 0; j < batch.rows; j++, row++) {
+        for (;;) {
+          let same = true;
+          for (let i = 0; i < n - 1 && same; i++) same = belowBatch.ids[belowIndex * (n - 1) + i] === batch.ids[j * n + i];
+          if (same) break;
+          belowIndex++;
+          belowRow++;
+          if (belowIndex === belowBatch.rows) {
+            const next = await below.next();
+            assert(!next.done, `order ${n}: the context of row ${row} is not a row of order ${n - 1}`);
+            belowBatch = next.value;
+            belowIndex = 0;
+          }
+        }
+        contexts[j] = slotOf === null ? belowRow : slotOf[belowRow];
+        words[j] = batch.ids[j * n + n - 1];
+      }
+      yield { contexts, words, batch };
+    }
+  } finally {
+    await below.return?.(undefined);
+  }
 }
 
 export class HashedLookup {
@@ -83,44 +123,22 @@ export class HashedLookup {
     for (let n = 2; n <= order; n++) {
       const rows = model.ngrams[n - 1];
       const highest = n === order;
-      const contexts = new Uint32Array(rows);
-      const words = new Uint32Array(rows);
-      const prob = new Uint32Array(rows);
-      const backOff = highest ? new Uint32Array(0) : new Uint32Array(rows);
-      // The context of each row: a row of order n − 1, found by walking that order in step (both
-      // ascend, and a context's rows are contiguous).
-      const below = source.rows(n - 1, { idsOnly: true })[Symbol.asyncIterator]();
-      let belowBatch = (await below.next()).value;
-      let belowIndex = 0;
-      let belowRow = 0;
-      const sameContext = (ids: Uint32Array, rowAt: number): boolean => {
-        for (let i = 0; i < n - 1; i++) if (belowBatch.ids[belowIndex * (n - 1) + i] !== ids[rowAt * n + i]) return false;
-        return true;
-      };
+      const contextOf = slotOfContext;
+      // Two passes over the order (HashedOrderBuilder): count the homes, then place the records.
+      const builder = new HashedOrderBuilder({ rows, contextSpace, wordMax: model.vocabularySize, valueBits: highest ? [32] : [32, 32], load: options.load, bucketSlots: options.bucketSlots });
+      for await (const { contexts, words } of keyedRows(source, n, contextOf)) for (let j = 0; j < words.length; j++) builder.count(contexts[j], words[j]);
+      builder.endCounting();
+      const slotOf = new Int32Array(rows);
+      const values = [0, 0];
       let row = 0;
-      for await (const batch of source.rows(n)) {
-        for (let j = 0; j < batch.rows; j++, row++) {
-          while (!sameContext(batch.ids, j)) {
-            belowIndex++;
-            belowRow++;
-            if (belowIndex === belowBatch.rows) {
-              const next = await below.next();
-              assert(!next.done, `order ${n}: the context of row ${row} is not a row of order ${n - 1}`);
-              belowBatch = next.value;
-              belowIndex = 0;
-            }
-          }
-          contexts[row] = slotOfContext === null ? belowRow : slotOfContext[belowRow];
-          words[row] = batch.ids[j * n + n - 1];
-          prob[row] = toBits(batch.log10Prob[j]);
-          if (!highest) backOff[row] = toBits(batch.log10BackOff[j]);
+      for await (const { contexts, words, batch } of keyedRows(source, n, contextOf)) {
+        for (let j = 0; j < words.length; j++, row++) {
+          values[0] = toBits(batch.log10Prob[j]);
+          values[1] = highest ? 0 : toBits(batch.log10BackOff[j]);
+          slotOf[row] = builder.place(contexts[j], words[j], values);
         }
       }
-      await below.return?.();
-      const { table, slotOf } = HashedOrder.build({
-        rows, contextSpace, wordMax: model.vocabularySize, contexts, words,
-        valueBits: highest ? [32] : [32, 32], values: highest ? [prob] : [prob, backOff], load: options.load, bucketSlots: options.bucketSlots,
-      });
+      const table = builder.finish();
       tables[n] = table;
       slotOfContext = slotOf;
       contextSpace = table.layout.slots;

@@ -197,67 +197,20 @@ export class HashedOrder {
     }
   }
 
-  /** Builds the table of `input`; `slotOf[i]` is entry i's slot. */
+  /** Builds the table of `input` (HashedOrderBuilder, both passes over its arrays); `slotOf[i]` is
+   *  entry i's slot. */
   static build(input: HashedOrderInput): { table: HashedOrder; slotOf: Int32Array } {
-    const { rows, contextSpace, wordMax, contexts, words, valueBits, values, load, bucketSlots } = input;
-    assert(rows >= 1 && contextSpace >= 1 && wordMax >= 1, 'a table holds at least one entry');
-    assert(load > 0 && load < 1 && Number.isInteger(Math.log2(bucketSlots)), 'load in (0, 1), a power of two slots per bucket');
-    assert(valueBits.length === values.length && valueBits.every((bits) => Number.isInteger(bits) && bits >= 1 && bits <= VALUE_BITS_MAX), 'value fields of 1..32 bits');
-    const buckets = Math.ceil(rows / (load * bucketSlots));
-    assert(buckets * bucketSlots < 2 ** 31, 'fewer than 2^31 slots');
-    const mixBits = Math.min(32, Math.max(1, bitsFor(contextSpace - 1), bitsFor(buckets - 1) + MIX_BITS_ABOVE_BUCKETS));
-    const wordBits = bitsFor(wordMax);
-    // The z of one home: fewer than ⌈2^a / B⌉ + 1, so remainderBits of them tell them apart.
-    const remainderBits = Math.min(mixBits, bitsFor(Math.ceil(2 ** mixBits / buckets)));
-    const remainderMask = maskFor(remainderBits);
-    // Homes and remainders, then the entries in order of home (a counting sort, stable).
-    const homes = new Uint32Array(rows);
-    const remainders = new Uint32Array(rows);
-    for (let i = 0; i < rows; i++) {
-      const context = contexts[i];
-      const word = words[i];
-      assert(context < contextSpace && word >= 1 && word <= wordMax, `entry ${i}: context ${context} and word ${word} in range`);
-      const z = zOf(context, word, mixBits);
-      homes[i] = homeOf(z, buckets, mixBits);
-      remainders[i] = (z & remainderMask) >>> 0;
-    }
-    const firstOf = new Uint32Array(buckets + 1);
-    for (let i = 0; i < rows; i++) firstOf[homes[i] + 1]++;
-    for (let b = 0; b < buckets; b++) firstOf[b + 1] += firstOf[b];
-    const byHome = new Uint32Array(rows);
-    for (let i = 0; i < rows; i++) byHome[firstOf[homes[i]]++] = i;
+    const { rows, contexts, words, values } = input;
+    const builder = new HashedOrderBuilder(input);
+    for (let i = 0; i < rows; i++) builder.count(contexts[i], words[i]);
+    builder.endCounting();
     const slotOf = new Int32Array(rows);
-    let position = -1;
-    let displacementMax = 0;
-    for (let j = 0; j < rows; j++) {
-      const i = byHome[j];
-      position = Math.max(homes[i] * bucketSlots, position + 1);
-      slotOf[i] = position;
-      const displacement = Math.floor(position / bucketSlots) - homes[i];
-      if (displacement > displacementMax) displacementMax = displacement;
-    }
-    const displacementBits = bitsFor(displacementMax);
-    const slots = Math.max(buckets * bucketSlots, position + 1) + 1;
-    const recordBits = wordBits + remainderBits + displacementBits + valueBits.reduce((sum, bits) => sum + bits, 0);
-    const layout: HashedOrderLayout = { buckets, bucketSlots, slots, mixBits, wordBits, remainderBits, displacementBits, valueBits: [...valueBits], recordBits };
-    const packed = new Uint32Array(hashedOrderBytes(layout) / 4);
+    const entryValues = new Array<number>(values.length);
     for (let i = 0; i < rows; i++) {
-      const slot = slotOf[i];
-      let bit = slot * recordBits;
-      writeBits(packed, bit, wordBits, words[i]);
-      bit += wordBits;
-      writeBits(packed, bit, remainderBits, remainders[i]);
-      bit += remainderBits;
-      writeBits(packed, bit, displacementBits, Math.floor(slot / bucketSlots) - homes[i]);
-      bit += displacementBits;
-      for (let f = 0; f < valueBits.length; f++) {
-        const value = values[f][i];
-        assert(value <= maskFor(valueBits[f]), `entry ${i}: value ${f} fits ${valueBits[f]} bits`);
-        writeBits(packed, bit, valueBits[f], value);
-        bit += valueBits[f];
-      }
+      for (let f = 0; f < values.length; f++) entryValues[f] = values[f][i];
+      slotOf[i] = builder.place(contexts[i], words[i], entryValues);
     }
-    return { table: new HashedOrder(layout, packed), slotOf };
+    return { table: builder.finish(), slotOf };
   }
 
   /** The slot of (context, word), or −1 when the table does not hold it. */
@@ -349,5 +302,115 @@ export class HashedOrder {
     assert(homeOf(z, layout.buckets, a) === home, `slot ${slot}: its remainder names a z of its home`);
     const x = (z - (hashWord(word) % 2 ** a) + 2 ** a) % 2 ** a;
     return { context: unmix(x, a), word };
+  }
+}
+
+/** What a table is built for: HashedOrderInput without the entries themselves. */
+export type HashedOrderSpec = Pick<HashedOrderInput, 'rows' | 'contextSpace' | 'wordMax' | 'valueBits' | 'load' | 'bucketSlots'>;
+
+/**
+ * Builds one order's table in two passes over its entries, in the same order both times (a writer
+ * reads the rows of a streamed model twice): `count` each entry, `endCounting`, then `place` each
+ * entry, which writes its record and returns its slot, and `finish`. Memory: the table and one u32
+ * per bucket, nothing per entry. The layout follows from the counts alone: bucket b's entries take
+ * the slots from start(b) = max(b · bucketSlots, start(b − 1) + count(b − 1)) on, in the order they
+ * come (what placing them one by one in order of home gives).
+ */
+export class HashedOrderBuilder {
+  private readonly spec: HashedOrderSpec;
+  private readonly buckets: number;
+  private readonly mixBits: number;
+  private readonly wordBits: number;
+  private readonly remainderBits: number;
+  private readonly remainderMask: number;
+  /** Pass 1: entries per home bucket; pass 2: the next free slot of each bucket. */
+  private readonly next: Uint32Array;
+  private counted = 0;
+  private placed = 0;
+  private layout: HashedOrderLayout | null = null;
+  private words: Uint32Array | null = null;
+
+  constructor(spec: HashedOrderSpec) {
+    const { rows, contextSpace, wordMax, valueBits, load, bucketSlots } = spec;
+    assert(rows >= 1 && contextSpace >= 1 && wordMax >= 1, 'a table holds at least one entry');
+    assert(load > 0 && load < 1 && Number.isInteger(Math.log2(bucketSlots)), 'load in (0, 1), a power of two slots per bucket');
+    assert(valueBits.every((bits) => Number.isInteger(bits) && bits >= 1 && bits <= VALUE_BITS_MAX), 'value fields of 1..32 bits');
+    this.spec = spec;
+    this.buckets = Math.ceil(rows / (load * bucketSlots));
+    assert(this.buckets * bucketSlots < 2 ** 31, 'fewer than 2^31 slots');
+    this.mixBits = Math.min(32, Math.max(1, bitsFor(contextSpace - 1), bitsFor(this.buckets - 1) + MIX_BITS_ABOVE_BUCKETS));
+    this.wordBits = bitsFor(wordMax);
+    // The z of one home: fewer than ⌈2^a / B⌉ + 1, so remainderBits of them tell them apart.
+    this.remainderBits = Math.min(this.mixBits, bitsFor(Math.ceil(2 ** this.mixBits / this.buckets)));
+    this.remainderMask = maskFor(this.remainderBits);
+    this.next = new Uint32Array(this.buckets);
+  }
+
+  private check(context: number, word: number): void {
+    if (!(context < this.spec.contextSpace && word >= 1 && word <= this.spec.wordMax)) assert(false, `context ${context} and word ${word} in range`);
+  }
+
+  /** Pass 1: one entry. */
+  count(context: number, word: number): void {
+    assert(this.layout === null, 'entries are counted before any is placed');
+    this.check(context, word);
+    this.next[homeOf(zOf(context, word, this.mixBits), this.buckets, this.mixBits)]++;
+    this.counted++;
+  }
+
+  /** Ends pass 1: fixes the layout and allocates the table. */
+  endCounting(): HashedOrderLayout {
+    assert(this.layout === null && this.counted === this.spec.rows, `${this.spec.rows} entries counted (got ${this.counted})`);
+    const per = this.spec.bucketSlots;
+    let free = 0;
+    let displacementMax = 0;
+    for (let b = 0; b < this.buckets; b++) {
+      const count = this.next[b];
+      const start = Math.max(b * per, free);
+      this.next[b] = start;
+      free = start + count;
+      if (count > 0) displacementMax = Math.max(displacementMax, Math.floor((free - 1) / per) - b);
+    }
+    const displacementBits = bitsFor(displacementMax);
+    const valueBits = [...this.spec.valueBits];
+    const recordBits = this.wordBits + this.remainderBits + displacementBits + valueBits.reduce((sum, bits) => sum + bits, 0);
+    this.layout = {
+      buckets: this.buckets, bucketSlots: per, slots: Math.max(this.buckets * per, free) + 1, mixBits: this.mixBits,
+      wordBits: this.wordBits, remainderBits: this.remainderBits, displacementBits, valueBits, recordBits,
+    };
+    this.words = new Uint32Array(hashedOrderBytes(this.layout) / 4);
+    return this.layout;
+  }
+
+  /** Pass 2: one entry, in the order of pass 1, with its value fields; returns its slot. */
+  place(context: number, word: number, values: ArrayLike<number>): number {
+    const layout = this.layout;
+    const words = this.words;
+    assert(layout !== null && words !== null, 'entries are placed after endCounting');
+    this.check(context, word);
+    const z = zOf(context, word, this.mixBits);
+    const home = homeOf(z, this.buckets, this.mixBits);
+    const slot = this.next[home]++;
+    let bit = slot * layout.recordBits;
+    writeBits(words, bit, layout.wordBits, word);
+    bit += layout.wordBits;
+    writeBits(words, bit, layout.remainderBits, (z & this.remainderMask) >>> 0);
+    bit += layout.remainderBits;
+    writeBits(words, bit, layout.displacementBits, Math.floor(slot / layout.bucketSlots) - home);
+    bit += layout.displacementBits;
+    for (let f = 0; f < layout.valueBits.length; f++) {
+      const value = values[f];
+      if (!(Number.isInteger(value) && value >= 0 && value <= maskFor(layout.valueBits[f]))) assert(false, `value ${f} fits ${layout.valueBits[f]} bits (got ${value})`);
+      writeBits(words, bit, layout.valueBits[f], value);
+      bit += layout.valueBits[f];
+    }
+    this.placed++;
+    return slot;
+  }
+
+  /** The table, once every counted entry is placed. */
+  finish(): HashedOrder {
+    assert(this.layout !== null && this.words !== null && this.placed === this.counted, `every counted entry placed (${this.placed} of ${this.counted})`);
+    return new HashedOrder(this.layout, this.words);
   }
 }

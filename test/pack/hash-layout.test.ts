@@ -1,6 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import { bitsFor } from '../../src/pack/format.ts';
-import { HashedOrder, hashedOrderBytes, homeOf, mix, unmix, zOf, type HashedOrderInput } from '../../src/pack/hash-layout.ts';
+import { createHash } from 'node:crypto';
+import { HashedOrder, HashedOrderBuilder, hashedOrderBytes, homeOf, mix, unmix, zOf, type HashedOrderInput } from '../../src/pack/hash-layout.ts';
 import { Prng } from '../../scripts/lib/prng.ts';
 
 /** Distinct random (context, word) keys with two value fields, as an order's n-grams would be. */
@@ -137,6 +138,36 @@ describe('a hashed order', () => {
     const a = HashedOrder.build(randomInput(6, 5_000, 1_000, 900)).table;
     const b = HashedOrder.build(randomInput(6, 5_000, 1_000, 900)).table;
     expect(Buffer.from(a.words.buffer).equals(Buffer.from(b.words.buffer))).toBe(true);
+  });
+
+  it('is fixed: seeded entries give these bytes and slots (sha256; a change of layout changes them)', () => {
+    // Values recorded from the first implementation (entries placed one by one in order of home),
+    // which the two-pass builder reproduces.
+    const cases: Array<[number, number, number, number, string]> = [
+      [1, 20_000, 5_000, 3_000, 'd3da10adeaedd88f'],
+      [4, 30_000, 40_000, 70_000, '55c8fad10178badf'],
+      [7, 500, 1, 600, 'd41967a6267ff6d1'],
+    ];
+    for (const [seed, rows, contextSpace, wordMax, digest] of cases) {
+      const { table, slotOf } = HashedOrder.build(randomInput(seed, rows, contextSpace, wordMax));
+      expect(createHash('sha256').update(Buffer.from(table.words.buffer)).update(Buffer.from(slotOf.buffer)).digest('hex').slice(0, 16)).toBe(digest);
+    }
+  });
+
+  it('the builder takes its passes in order: counting, then placing every counted entry', () => {
+    const spec = { rows: 2, contextSpace: 10, wordMax: 10, valueBits: [8], load: 0.5, bucketSlots: 4 };
+    const early = new HashedOrderBuilder(spec);
+    early.count(1, 1);
+    expect(() => early.place(1, 1, [0])).toThrow(/after endCounting/);
+    expect(() => early.endCounting()).toThrow(/2 entries counted/);
+    const builder = new HashedOrderBuilder(spec);
+    builder.count(1, 1);
+    builder.count(2, 3);
+    builder.endCounting();
+    expect(() => builder.count(4, 4)).toThrow(/counted before any is placed/);
+    builder.place(1, 1, [7]);
+    expect(() => builder.finish()).toThrow(/every counted entry placed/);
+    expect(() => builder.place(2, 3, [256])).toThrow(/fits 8 bits/);
   });
 
   it('holds one entry, and a context space of one', () => {

@@ -284,24 +284,75 @@ export class HashedOrder {
     return readBits(this.words, slot * this.layout.recordBits + this.valueOffsets[field], this.valueMasks[field]);
   }
 
+  /**
+   * Checks what the lookups rely on, slot by slot: the last slot empty; every record's word in
+   * 1..wordMax, its home (bucket − displacement) at or after the previous record's and with no empty
+   * slot between its bucket's first slot and it (else a search would stop short), its remainder
+   * naming a z of that home whose context is below contextSpace, and no key twice. Returns the first
+   * fault, or null. (The values are whatever bits they are; a file checks its codes apart.)
+   */
+  check(contextSpace: number, wordMax: number): string | null {
+    const layout = this.layout;
+    const per = layout.bucketSlots;
+    if (this.keyAt0(layout.slots - 1) !== null) return `slot ${layout.slots - 1}, the last, is not empty`;
+    let lastEmpty = -1;
+    let previousHome = -1;
+    let sameHome = new Set<number>();
+    for (let slot = 0; slot < layout.slots; slot++) {
+      const key = readBits(this.words, slot * layout.recordBits, this.keyMask);
+      const word = key & this.wordMask;
+      if (word === 0) {
+        if (key !== 0) return `slot ${slot}: an empty slot with a remainder or displacement`;
+        lastEmpty = slot;
+        continue;
+      }
+      if (word > wordMax) return `slot ${slot}: word ${word} above ${wordMax}`;
+      const home = (slot >>> this.bucketShift) - ((key >>> this.displacementShift) & this.displacementMask);
+      if (home < 0 || home >= layout.buckets) return `slot ${slot}: home bucket ${home} outside 0..${layout.buckets - 1}`;
+      if (home < previousHome) return `slot ${slot}: home bucket ${home} before the previous record's ${previousHome}`;
+      if (lastEmpty >= home * per) return `slot ${slot}: the empty slot ${lastEmpty} lies between it and its home bucket ${home}`;
+      if (home !== previousHome) sameHome = new Set<number>();
+      const match = (key & this.matchMask) >>> 0;
+      if (sameHome.has(match)) return `slot ${slot}: its key is held twice`;
+      sameHome.add(match);
+      previousHome = home;
+      const context = this.contextOf(home, word, (key >>> layout.wordBits) & this.remainderMask);
+      if (context === null) return `slot ${slot}: its remainder names no z of home bucket ${home}`;
+      if (context >= contextSpace) return `slot ${slot}: context ${context} above ${contextSpace - 1}`;
+    }
+    return null;
+  }
+
+  /** The key word of `slot` when it is not empty, else null (for `check`). */
+  private keyAt0(slot: number): number | null {
+    const key = readBits(this.words, slot * this.layout.recordBits, this.keyMask);
+    return key === 0 ? null : key;
+  }
+
+  /** The context whose key with `word` has home bucket `home` and these low bits of z, or null when
+   *  no z of that home has them. */
+  private contextOf(home: number, word: number, remainder: number): number | null {
+    const layout = this.layout;
+    const a = layout.mixBits;
+    // The z of this home run from the first z ≥ home·2^a / B: the one with these low bits.
+    const first = Math.ceil((home * 2 ** a) / layout.buckets);
+    const span = 2 ** layout.remainderBits;
+    const z = first + ((((remainder - first) % span) + span) % span);
+    if (z >= 2 ** a || homeOf(z, layout.buckets, a) !== home) return null;
+    const x = (z - (hashWord(word) % 2 ** a) + 2 ** a) % 2 ** a;
+    return unmix(x, a);
+  }
+
   /** The (context, word) at `slot`, or null for an empty slot. */
   keyAt(slot: number): { context: number; word: number } | null {
     const layout = this.layout;
     const key = readBits(this.words, slot * layout.recordBits, this.keyMask);
     const word = key & this.wordMask;
     if (word === 0) return null;
-    const remainder = (key >>> layout.wordBits) & this.remainderMask;
     const home = (slot >>> this.bucketShift) - ((key >>> this.displacementShift) & this.displacementMask);
-    // The z of this home run from the first z ≥ home·2^a / B: the one with these low bits.
-    const a = layout.mixBits;
-    let first = Math.ceil((home * 2 ** a) / layout.buckets);
-    while (first > 0 && homeOf(first - 1, layout.buckets, a) === home) first--;
-    while (homeOf(first, layout.buckets, a) < home) first++;
-    const span = 2 ** layout.remainderBits;
-    const z = first + ((((remainder - first) % span) + span) % span);
-    assert(homeOf(z, layout.buckets, a) === home, `slot ${slot}: its remainder names a z of its home`);
-    const x = (z - (hashWord(word) % 2 ** a) + 2 ** a) % 2 ** a;
-    return { context: unmix(x, a), word };
+    const context = this.contextOf(home, word, (key >>> layout.wordBits) & this.remainderMask);
+    assert(context !== null, `slot ${slot}: its remainder names a z of its home`);
+    return { context, word };
   }
 }
 

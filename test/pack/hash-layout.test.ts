@@ -170,6 +170,52 @@ describe('a hashed order', () => {
     expect(() => builder.place(2, 3, [256])).toThrow(/fits 8 bits/);
   });
 
+  it('check() passes a table as built and names the first fault of a damaged one', () => {
+    const input = randomInput(10, 20_000, 5_000, 3_000);
+    const build = (): HashedOrder => HashedOrder.build(input).table;
+    expect(build().check(5_000, 3_000)).toBeNull();
+    expect(build().check(100, 3_000)).toMatch(/context \d+ above 99/);
+    expect(build().check(5_000, 100)).toMatch(/word \d+ above 100/);
+    const keyBits = (t: HashedOrder): number => t.layout.wordBits + t.layout.remainderBits + t.layout.displacementBits;
+    const keyOf = (t: HashedOrder, slot: number): number => readField(t.words, slot * t.layout.recordBits, keyBits(t));
+    const setKey = (t: HashedOrder, slot: number, key: number): void => writeField(t.words, slot * t.layout.recordBits, keyBits(t), key);
+    const homeAt = (t: HashedOrder, slot: number): number => Math.floor(slot / 4) - (keyOf(t, slot) >>> (t.layout.wordBits + t.layout.remainderBits));
+    // Two neighbours with the same home, the second displaced past its bucket's first slot.
+    const t0 = build();
+    let pair = -1;
+    for (let slot = 0; slot + 1 < t0.layout.slots && pair < 0; slot++) {
+      if (keyOf(t0, slot) !== 0 && keyOf(t0, slot + 1) !== 0 && homeAt(t0, slot) === homeAt(t0, slot + 1) && homeAt(t0, slot) * 4 <= slot) pair = slot;
+    }
+    expect(pair).toBeGreaterThanOrEqual(0);
+    // An emptied slot in front of a record of the same home: that record could not be found.
+    const t1 = build();
+    setKey(t1, pair, 0);
+    expect(t1.check(5_000, 3_000)).toMatch(new RegExp(`slot ${pair + 1}: the empty slot ${pair} lies between`));
+    // A slot whose word is 0 but whose other key bits are not.
+    const t2 = build();
+    setKey(t2, pair, keyOf(t2, pair) & ~((1 << t2.layout.wordBits) - 1));
+    expect(t2.check(5_000, 3_000)).toMatch(new RegExp(`slot ${pair}: an empty slot with`));
+    // The same key twice.
+    const t3 = build();
+    const wordAndRemainder = (1 << (t3.layout.wordBits + t3.layout.remainderBits)) - 1;
+    setKey(t3, pair + 1, (keyOf(t3, pair + 1) & ~wordAndRemainder) | (keyOf(t3, pair) & wordAndRemainder));
+    expect(t3.check(5_000, 3_000)).toMatch(new RegExp(`slot ${pair + 1}: its key is held twice`));
+    // A record's displacement set to 0, so its home moves up to its own bucket, past the next
+    // record's home: caught there, or at the record itself when its remainder no longer fits.
+    const t4 = build();
+    let moved = -1;
+    for (let slot = 0; slot + 1 < t4.layout.slots && moved < 0; slot++) {
+      if (keyOf(t4, slot) !== 0 && keyOf(t4, slot + 1) !== 0 && homeAt(t4, slot) < Math.floor(slot / 4) && homeAt(t4, slot + 1) < Math.floor(slot / 4)) moved = slot;
+    }
+    expect(moved).toBeGreaterThanOrEqual(0);
+    setKey(t4, moved, keyOf(t4, moved) & wordAndRemainder);
+    expect(t4.check(5_000, 3_000)).toMatch(new RegExp(`^slot ${moved}: (its remainder names no z|context)|^slot ${moved + 1}: home bucket \\d+ before the previous record's`));
+    // The last slot must stay empty.
+    const t5 = build();
+    setKey(t5, t5.layout.slots - 1, keyOf(t5, pair));
+    expect(t5.check(5_000, 3_000)).toMatch(/the last, is not empty/);
+  });
+
   it('holds one entry, and a context space of one', () => {
     const one = HashedOrder.build({ rows: 1, contextSpace: 1, wordMax: 1, contexts: Uint32Array.of(0), words: Uint32Array.of(1), valueBits: [32], values: [Uint32Array.of(0xdeadbeef)], load: 0.5, bucketSlots: 4 }).table;
     const slot = one.find(0, 1);
@@ -182,3 +228,17 @@ describe('a hashed order', () => {
   });
 });
 
+/** The `bits`-wide field at stream bit `bit` (little-endian u32 words, least significant bit first). */
+function readField(words: Uint32Array, bit: number, bits: number): number {
+  let value = 0;
+  for (let i = 0; i < bits; i++) value += ((words[Math.floor((bit + i) / 32)] >>> ((bit + i) % 32)) & 1) * 2 ** i;
+  return value;
+}
+
+function writeField(words: Uint32Array, bit: number, bits: number, value: number): void {
+  for (let i = 0; i < bits; i++) {
+    const word = Math.floor((bit + i) / 32);
+    const mask = 1 << ((bit + i) % 32);
+    words[word] = (Math.floor(value / 2 ** i) % 2 === 1 ? words[word] | mask : words[word] & ~mask) >>> 0;
+  }
+}

@@ -23,6 +23,7 @@
 import { assert } from '../errors.ts';
 import { maskFor } from './bits.ts';
 import { bitsFor } from './format.ts';
+import { scatterRows } from '../count/radix.ts';
 
 /** Extra bits of z above those of the bucket count: 2^a ≥ 8·B, so that homes are close to uniform. */
 const MIX_BITS_ABOVE_BUCKETS = 3;
@@ -464,4 +465,63 @@ export class HashedOrderBuilder {
     assert(this.layout !== null && this.words !== null && this.placed === this.counted, `every counted entry placed (${this.placed} of ${this.counted})`);
     return new HashedOrder(this.layout, this.words);
   }
+}
+
+/** Digits of the row-order sort (scatterRows): 16 bits a pass. */
+const ROW_SORT_DIGIT_BITS = 16;
+
+/**
+ * The entries of one order in row order: ascending by (the context's row at order n − 1, the
+ * word), as the model file's rows and the ARPA text list them, for a walk over the model
+ * (`quern export`). `contextRow(context)` gives a context's row at order n − 1 (at order 2 the
+ * context is an id, its own row; above, a slot, whose row the previous call's `rowOf` gives).
+ * Returns `slots[row]`, the slot of each row, and `rowOf[slot]`, the row of each slot (−1 for an
+ * empty one). An LSD radix sort of (context row, word, slot) triples: 24 bytes per entry at most.
+ */
+export function rowOrder(table: HashedOrder, entries: number, contextRow: (context: number) => number): { slots: Uint32Array; rowOf: Int32Array } {
+  const slotsTotal = table.layout.slots;
+  let triples = new Uint32Array(entries * 3);
+  let filled = 0;
+  let rowMax = 0;
+  let wordMax = 0;
+  for (let slot = 0; slot < slotsTotal; slot++) {
+    const key = table.keyAt(slot);
+    if (key === null) continue;
+    assert(filled < entries, `at most ${entries} entries`);
+    const row = contextRow(key.context);
+    assert(Number.isInteger(row) && row >= 0, `slot ${slot}: its context has a row`);
+    triples[filled * 3] = row;
+    triples[filled * 3 + 1] = key.word;
+    triples[filled * 3 + 2] = slot;
+    if (row > rowMax) rowMax = row;
+    if (key.word > wordMax) wordMax = key.word;
+    filled++;
+  }
+  assert(filled === entries, `${entries} entries (found ${filled})`);
+  let spare = new Uint32Array(entries * 3);
+  const digits = 1 << ROW_SORT_DIGIT_BITS;
+  const offsets = new Uint32Array(digits);
+  // Least significant first: the word's digits, then the context row's.
+  for (const [word, max] of [[1, wordMax], [0, rowMax]] as const) {
+    for (let shift = 0; shift < 32 && (shift === 0 || max >>> shift !== 0); shift += ROW_SORT_DIGIT_BITS) {
+      offsets.fill(0);
+      for (let i = 0; i < entries; i++) offsets[(triples[i * 3 + word] >>> shift) & (digits - 1)]++;
+      let sum = 0;
+      for (let d = 0; d < digits; d++) {
+        const count = offsets[d];
+        offsets[d] = sum;
+        sum += count;
+      }
+      scatterRows(triples, spare, 0, entries, 3, word, shift, digits - 1, offsets);
+      [triples, spare] = [spare, triples];
+    }
+  }
+  const slots = new Uint32Array(entries);
+  const rowOf = new Int32Array(slotsTotal).fill(-1);
+  for (let row = 0; row < entries; row++) {
+    const slot = triples[row * 3 + 2];
+    slots[row] = slot;
+    rowOf[slot] = row;
+  }
+  return { slots, rowOf };
 }

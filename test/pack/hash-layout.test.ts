@@ -1,7 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import { bitsFor } from '../../src/pack/format.ts';
 import { createHash } from 'node:crypto';
-import { HashedOrder, HashedOrderBuilder, hashedOrderBytes, homeOf, mix, unmix, zOf, type HashedOrderInput } from '../../src/pack/hash-layout.ts';
+import { HashedOrder, HashedOrderBuilder, hashedOrderBytes, rowOrder, homeOf, mix, unmix, zOf, type HashedOrderInput } from '../../src/pack/hash-layout.ts';
 import { Prng } from '../../scripts/lib/prng.ts';
 
 /** Distinct random (context, word) keys with two value fields, as an order's n-grams would be. */
@@ -214,6 +214,46 @@ describe('a hashed order', () => {
     const t5 = build();
     setKey(t5, t5.layout.slots - 1, keyOf(t5, pair));
     expect(t5.check(5_000, 3_000)).toMatch(/the last, is not empty/);
+  });
+
+  it('rowOrder lists two orders built on each other in the order of their id tuples', () => {
+    // Bigrams (id, id) and trigrams on top of them (their context a bigram's slot), as a model has.
+    const prng = new Prng(11);
+    const vocabulary = 70_000; // words above 2^16: the sort's second word digit is used
+    const bigrams = new Map<string, [number, number]>();
+    while (bigrams.size < 8_000) {
+      const a = prng.int(vocabulary + 1);
+      const b = 1 + prng.int(vocabulary);
+      bigrams.set(`${a} ${b}`, [a, b]);
+    }
+    const pairs = [...bigrams.values()];
+    const order2 = HashedOrder.build({
+      rows: pairs.length, contextSpace: vocabulary + 1, wordMax: vocabulary, contexts: Uint32Array.from(pairs, ([a]) => a), words: Uint32Array.from(pairs, ([, b]) => b),
+      valueBits: [8], values: [new Uint32Array(pairs.length)], load: 0.85, bucketSlots: 4,
+    });
+    const triples = new Map<string, [number, number, number, number]>(); // a b c, and the bigram's index
+    while (triples.size < 12_000) {
+      const index = prng.int(pairs.length);
+      const c = 1 + prng.int(vocabulary);
+      triples.set(`${pairs[index].join(' ')} ${c}`, [...pairs[index], c, index] as [number, number, number, number]);
+    }
+    const list = [...triples.values()];
+    const order3 = HashedOrder.build({
+      rows: list.length, contextSpace: order2.table.layout.slots, wordMax: vocabulary, contexts: Uint32Array.from(list, (t) => order2.slotOf[t[3]]), words: Uint32Array.from(list, (t) => t[2]),
+      valueBits: [8], values: [new Uint32Array(list.length)], load: 0.85, bucketSlots: 4,
+    });
+    const byTuple = (x: number[], y: number[]): number => { for (let i = 0; i < x.length; i++) if (x[i] !== y[i]) return x[i] - y[i]; return 0; };
+    const walk2 = rowOrder(order2.table, pairs.length, (id) => id);
+    const expected2 = [...pairs].sort(byTuple);
+    expect(Array.from(walk2.slots, (slot) => { const key = order2.table.keyAt(slot)!; return [key.context, key.word]; })).toEqual(expected2);
+    const walk3 = rowOrder(order3.table, list.length, (slot) => walk2.rowOf[slot]);
+    const expected3 = list.map((t) => t.slice(0, 3)).sort(byTuple);
+    expect(Array.from(walk3.slots, (slot) => {
+      const key = order3.table.keyAt(slot)!;
+      const context = order2.table.keyAt(key.context)!;
+      return [context.context, context.word, key.word];
+    })).toEqual(expected3);
+    expect(walk3.rowOf.filter((row) => row >= 0).length).toBe(list.length);
   });
 
   it('holds one entry, and a context space of one', () => {

@@ -13,7 +13,8 @@
  * relative), or the run fails. It prints the tables' sizes too, and the bytes per n-gram a file with
  * them in place of the n-gram sections would take (float32, and 8-bit codes from the same layouts).
  * The model must keep the suffixes of its n-grams (the batched lookup stops at the first order that
- * misses) and be normalised. Run it with huge pages as the program has them (the script starts
+ * misses) and be normalised. The tables' structure check (`HashedOrder.check`) and the walk in row
+ * order (`rowOrder`, every order) are timed too, once, before the lookups. Run it with huge pages as the program has them (the script starts
  * itself again with that environment, scripts/lib/quern-env.ts) unless --huge-pages off.
  *
  *   npx tsx scripts/bench-lookup-layout.ts --model FILE --heldout TEXT [--heldout-lines 100000] [--passes 5] [--lanes 64] [--load 0.9] [--bucket-slots 4] [--huge-pages on|off]
@@ -24,6 +25,7 @@ import { parseArgs } from 'node:util';
 import { BOS_ID } from '../src/corpus/vocabulary.ts';
 import { openModel, type PackedModel } from '../src/pack/reader.ts';
 import { scoreIdSentences } from '../src/score/batch.ts';
+import { rowOrder } from '../src/pack/hash-layout.ts';
 import { HashedLookup } from './lib/hashed-lookup.ts';
 import { hugePagesEnv } from './lib/quern-env.ts';
 
@@ -70,6 +72,22 @@ const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
 const built = performance.now();
 const hashed = await HashedLookup.build(model, { load: Number(args.load), bucketSlots: Number(args['bucket-slots']) }, log);
 const buildSeconds = (performance.now() - built) / 1000;
+
+// The next file version's other costs on these tables: the structure check a reader runs on
+// request, and the walk in row order that `quern export` needs (rowOrder, order by order).
+const checked = performance.now();
+for (let n = 2; n <= model.order; n++) {
+  const fault = hashed.tables[n].check(n === 2 ? model.ngrams[0] : hashed.tables[n - 1].layout.slots, model.vocabularySize);
+  if (fault !== null) throw new Error(`order ${n}: ${fault}`);
+}
+const checkSeconds = (performance.now() - checked) / 1000;
+const walked = performance.now();
+let rowOf: Int32Array | null = null;
+for (let n = 2; n <= model.order; n++) {
+  const below: Int32Array | null = rowOf;
+  rowOf = rowOrder(hashed.tables[n], model.ngrams[n - 1], below === null ? (id) => id : (slot) => below[slot]).rowOf;
+}
+const walkSeconds = (performance.now() - walked) / 1000;
 
 function stepSum(packed: PackedModel): number {
   let sum = 0;
@@ -136,7 +154,8 @@ const codebooks = (2 * model.order - 1) * 256 * 8;
 const eightBitFile = kept - unigramValueBytes + unigramValueBytes / 4 + hashed.bytesWithValueBits(8) + codebooks;
 console.log(
   `hashed tables (load ${args.load}, ${args['bucket-slots']} slots per bucket), built in ${buildSeconds.toFixed(1)} s: ${(hashed.bytes / 1e9).toFixed(2)} GB; ` +
-    `a file with them ≈ ${(float32File / ngrams).toFixed(2)} bytes per n-gram with float32 values, ≈ ${(eightBitFile / ngrams).toFixed(2)} with 8-bit codes`,
+    `a file with them ≈ ${(float32File / ngrams).toFixed(2)} bytes per n-gram with float32 values, ≈ ${(eightBitFile / ngrams).toFixed(2)} with 8-bit codes; ` +
+    `structure check ${checkSeconds.toFixed(1)} s, walk in row order ${walkSeconds.toFixed(1)} s`,
 );
 for (const [index, [name]] of ways.entries()) {
   console.log(`  ${name.padEnd(22)} ${million(medians[index])}  ×${(medians[index] / medians[0]).toFixed(2)} step  (passes ${perSecond[index].map((value) => (value / 1e6).toFixed(2)).join(', ')})`);

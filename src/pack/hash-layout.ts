@@ -81,6 +81,15 @@ export function homeOf(z: number, buckets: number, a: number): number {
   return Math.floor((z * high + Math.floor((z * low) / 65536)) / 2 ** (a - 16));
 }
 
+/** The first z of home bucket `home`: ⌈home · 2^a / buckets⌉, exactly (computed in floating point,
+ *  where home · 2^a may pass 2^53, then put right by a step at most with homeOf). */
+export function firstZ(home: number, buckets: number, a: number): number {
+  let first = Math.ceil((home * 2 ** a) / buckets);
+  while (first > 0 && homeOf(first - 1, buckets, a) >= home) first--;
+  while (first < 2 ** a && homeOf(first, buckets, a) < home) first++;
+  return first;
+}
+
 /** z of (context, word) in an a-bit mix. */
 export function zOf(context: number, word: number, a: number): number {
   return ((mix(context, a) + hashWord(word)) & maskFor(a)) >>> 0;
@@ -164,6 +173,9 @@ export class HashedOrder {
   /** 2^−a when a ≤ 16, else 2^−(a − 16). */
   private readonly homeScale: number;
   private readonly wideMix: boolean;
+  /** 2^a, and 2^Q. */
+  private readonly zSpan: number;
+  private readonly remainderSpan: number;
   private readonly valueOffsets: number[];
   private readonly valueMasks: number[];
 
@@ -188,6 +200,8 @@ export class HashedOrder {
     this.bucketsHigh = Math.floor(layout.buckets / 65536);
     this.bucketsLow = layout.buckets - this.bucketsHigh * 65536;
     this.homeScale = this.wideMix ? 2 ** -(a - 16) : 2 ** -a;
+    this.zSpan = 2 ** a;
+    this.remainderSpan = 2 ** layout.remainderBits;
     this.valueOffsets = [];
     this.valueMasks = [];
     let offset = keyBits;
@@ -295,12 +309,16 @@ export class HashedOrder {
   check(contextSpace: number, wordMax: number): string | null {
     const layout = this.layout;
     const per = layout.bucketSlots;
-    if (this.keyAt0(layout.slots - 1) !== null) return `slot ${layout.slots - 1}, the last, is not empty`;
+    const words = this.words;
+    const recordBits = layout.recordBits;
+    if (readBits(words, (layout.slots - 1) * recordBits, this.keyMask) !== 0) return `slot ${layout.slots - 1}, the last, is not empty`;
     let lastEmpty = -1;
     let previousHome = -1;
-    let sameHome = new Set<number>();
+    // The word and remainder of the records of the current home (a few), to find a key held twice.
+    let sameHome = new Float64Array(16);
+    let sameHomeCount = 0;
     for (let slot = 0; slot < layout.slots; slot++) {
-      const key = readBits(this.words, slot * layout.recordBits, this.keyMask);
+      const key = readBits(words, slot * recordBits, this.keyMask);
       const word = key & this.wordMask;
       if (word === 0) {
         if (key !== 0) return `slot ${slot}: an empty slot with a remainder or displacement`;
@@ -312,48 +330,58 @@ export class HashedOrder {
       if (home < 0 || home >= layout.buckets) return `slot ${slot}: home bucket ${home} outside 0..${layout.buckets - 1}`;
       if (home < previousHome) return `slot ${slot}: home bucket ${home} before the previous record's ${previousHome}`;
       if (lastEmpty >= home * per) return `slot ${slot}: the empty slot ${lastEmpty} lies between it and its home bucket ${home}`;
-      if (home !== previousHome) sameHome = new Set<number>();
+      if (home !== previousHome) sameHomeCount = 0;
       const match = (key & this.matchMask) >>> 0;
-      if (sameHome.has(match)) return `slot ${slot}: its key is held twice`;
-      sameHome.add(match);
+      for (let i = 0; i < sameHomeCount; i++) if (sameHome[i] === match) return `slot ${slot}: its key is held twice`;
+      if (sameHomeCount === sameHome.length) {
+        const grown = new Float64Array(2 * sameHome.length);
+        grown.set(sameHome);
+        sameHome = grown;
+      }
+      sameHome[sameHomeCount++] = match;
       previousHome = home;
       const context = this.contextOf(home, word, (key >>> layout.wordBits) & this.remainderMask);
-      if (context === null) return `slot ${slot}: its remainder names no z of home bucket ${home}`;
+      if (context < 0) return `slot ${slot}: its remainder names no z of home bucket ${home}`;
       if (context >= contextSpace) return `slot ${slot}: context ${context} above ${contextSpace - 1}`;
     }
     return null;
   }
 
-  /** The key word of `slot` when it is not empty, else null (for `check`). */
-  private keyAt0(slot: number): number | null {
-    const key = readBits(this.words, slot * this.layout.recordBits, this.keyMask);
-    return key === 0 ? null : key;
-  }
-
-  /** The context whose key with `word` has home bucket `home` and these low bits of z, or null when
+  /** The context whose key with `word` has home bucket `home` and these low bits of z, or −1 when
    *  no z of that home has them. */
-  private contextOf(home: number, word: number, remainder: number): number | null {
+  private contextOf(home: number, word: number, remainder: number): number {
     const layout = this.layout;
     const a = layout.mixBits;
-    // The z of this home run from the first z ≥ home·2^a / B: the one with these low bits.
-    const first = Math.ceil((home * 2 ** a) / layout.buckets);
-    const span = 2 ** layout.remainderBits;
+    const buckets = layout.buckets;
+    const first = firstZ(home, buckets, a);
+    const span = this.remainderSpan;
     const z = first + ((((remainder - first) % span) + span) % span);
-    if (z >= 2 ** a || homeOf(z, layout.buckets, a) !== home) return null;
-    const x = (z - (hashWord(word) % 2 ** a) + 2 ** a) % 2 ** a;
+    if (z >= this.zSpan || this.home(z) !== home) return -1;
+    const x = (((z - (hashWord(word) & this.zMask)) & this.zMask) >>> 0);
     return unmix(x, a);
   }
 
   /** The (context, word) at `slot`, or null for an empty slot. */
   keyAt(slot: number): { context: number; word: number } | null {
+    const word = this.wordAt(slot);
+    return word === 0 ? null : { context: this.contextAt(slot), word };
+  }
+
+  /** The word of the record at `slot`, 0 for an empty slot. */
+  wordAt(slot: number): number {
+    return readBits(this.words, slot * this.layout.recordBits, this.keyMask) & this.wordMask;
+  }
+
+  /** The context of the record at `slot` (not an empty one). */
+  contextAt(slot: number): number {
     const layout = this.layout;
     const key = readBits(this.words, slot * layout.recordBits, this.keyMask);
     const word = key & this.wordMask;
-    if (word === 0) return null;
+    assert(word !== 0, `slot ${slot} holds a record`);
     const home = (slot >>> this.bucketShift) - ((key >>> this.displacementShift) & this.displacementMask);
     const context = this.contextOf(home, word, (key >>> layout.wordBits) & this.remainderMask);
-    assert(context !== null, `slot ${slot}: its remainder names a z of its home`);
-    return { context, word };
+    assert(context >= 0, `slot ${slot}: its remainder names a z of its home`);
+    return context;
   }
 }
 
@@ -485,16 +513,16 @@ export function rowOrder(table: HashedOrder, entries: number, contextRow: (conte
   let rowMax = 0;
   let wordMax = 0;
   for (let slot = 0; slot < slotsTotal; slot++) {
-    const key = table.keyAt(slot);
-    if (key === null) continue;
+    const word = table.wordAt(slot);
+    if (word === 0) continue;
     assert(filled < entries, `at most ${entries} entries`);
-    const row = contextRow(key.context);
+    const row = contextRow(table.contextAt(slot));
     assert(Number.isInteger(row) && row >= 0, `slot ${slot}: its context has a row`);
     triples[filled * 3] = row;
-    triples[filled * 3 + 1] = key.word;
+    triples[filled * 3 + 1] = word;
     triples[filled * 3 + 2] = slot;
     if (row > rowMax) rowMax = row;
-    if (key.word > wordMax) wordMax = key.word;
+    if (word > wordMax) wordMax = word;
     filled++;
   }
   assert(filled === entries, `${entries} entries (found ${filled})`);

@@ -1,7 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import { bitsFor } from '../../src/pack/format.ts';
 import { createHash } from 'node:crypto';
-import { HashedOrder, HashedOrderBuilder, hashedOrderBytes, rowOrder, homeOf, mix, unmix, zOf, type HashedOrderInput } from '../../src/pack/hash-layout.ts';
+import { HashedOrder, HashedOrderBuilder, firstZ, hashedOrderBytes, rowOrder, homeOf, mix, unmix, zOf, type HashedOrderInput } from '../../src/pack/hash-layout.ts';
 import { Prng } from '../../scripts/lib/prng.ts';
 
 /** Distinct random (context, word) keys with two value fields, as an order's n-grams would be. */
@@ -64,6 +64,39 @@ describe('the context mix', () => {
       const buckets = 1 + prng.int(2 ** 31 - 1);
       if (homeOf(z, buckets, a) !== Number((BigInt(z) * BigInt(buckets)) >> BigInt(a))) wrong++;
     }
+    expect(wrong).toBe(0);
+  });
+  it('firstZ is ⌈home · 2^a / B⌉ exactly, where home · 2^a passes 2^53', () => {
+    const prng = new Prng(12);
+    let wrong = 0;
+    for (let t = 0; t < 20_000; t++) {
+      const a = 24 + prng.int(9);
+      const buckets = 2 ** 20 + prng.int(2 ** 31 - 2 ** 20);
+      if (buckets > 2 ** a) continue;
+      const home = prng.int(buckets);
+      const exact = (BigInt(home) * (1n << BigInt(a)) + BigInt(buckets) - 1n) / BigInt(buckets);
+      if (firstZ(home, buckets, a) !== Number(exact)) wrong++;
+    }
+    // Homes with home · 2^32 ≡ 1 (mod B): the quotient lies 1/B above an integer, below half an ulp
+    // of a double near 2^32, where a floating-point ceiling alone falls one short.
+    const inverse = (x: bigint, m: bigint): bigint => {
+      let [r0, r1, s0, s1] = [m, x % m, 0n, 1n];
+      while (r1 !== 0n) {
+        const q = r0 / r1;
+        [r0, r1] = [r1, r0 - q * r1];
+        [s0, s1] = [s1, s0 - q * s1];
+      }
+      return ((s0 % m) + m) % m;
+    };
+    let close = 0;
+    for (let t = 0; t < 200; t++) {
+      const buckets = 2 ** 29 + 2 * prng.int(2 ** 28) + 1;
+      const home = Number(inverse(1n << 32n, BigInt(buckets)));
+      const exact = (BigInt(home) * (1n << 32n) + BigInt(buckets) - 1n) / BigInt(buckets);
+      if (Math.ceil((home * 2 ** 32) / buckets) !== Number(exact)) close++;
+      if (firstZ(home, buckets, 32) !== Number(exact)) wrong++;
+    }
+    expect(close).toBeGreaterThan(0); // the cases the correction is for do occur
     expect(wrong).toBe(0);
   });
 });

@@ -14,10 +14,12 @@
  * them in place of the n-gram sections would take (float32, and 8-bit codes from the same layouts).
  * The model must keep the suffixes of its n-grams (the batched lookup stops at the first order that
  * misses) and be normalised. The tables' structure check (`HashedOrder.check`) and the walk in row
- * order (`rowOrder`, every order) are timed too, once, before the lookups. Run it with huge pages as the program has them (the script starts
+ * order (`rowOrder`, every order) are timed too, once, before the lookups. --aligned builds
+ * word-aligned records (keys padded to 32 bits: every float32 field a u32 read by index) instead of
+ * bit-packed ones; the 8-bit size printed is that of bit-packed records either way. Run it with huge pages as the program has them (the script starts
  * itself again with that environment, scripts/lib/quern-env.ts) unless --huge-pages off.
  *
- *   npx tsx scripts/bench-lookup-layout.ts --model FILE --heldout TEXT [--heldout-lines 100000] [--passes 5] [--lanes 64] [--load 0.9] [--bucket-slots 4] [--huge-pages on|off]
+ *   npx tsx scripts/bench-lookup-layout.ts --model FILE --heldout TEXT [--heldout-lines 100000] [--passes 5] [--lanes 64] [--load 0.9] [--bucket-slots 4] [--aligned] [--huge-pages on|off]
  */
 import { spawnSync } from 'node:child_process';
 import { readFileSync, statSync } from 'node:fs';
@@ -38,6 +40,7 @@ const { values: args } = parseArgs({
     lanes: { type: 'string', default: '64' },
     load: { type: 'string', default: '0.9' },
     'bucket-slots': { type: 'string', default: '4' },
+    aligned: { type: 'boolean', default: false },
     'huge-pages': { type: 'string', default: 'on' },
     child: { type: 'boolean', default: false },
   },
@@ -70,7 +73,7 @@ const tokens = stream.reduce((sum, sentence) => sum + sentence.length, 0);
 const ngrams = model.ngrams.reduce((sum, rows) => sum + rows, 0);
 
 const built = performance.now();
-const hashed = await HashedLookup.build(model, { load: Number(args.load), bucketSlots: Number(args['bucket-slots']) }, log);
+const hashed = await HashedLookup.build(model, { load: Number(args.load), bucketSlots: Number(args['bucket-slots']), alignKeys: args.aligned }, log);
 const buildSeconds = (performance.now() - built) / 1000;
 
 // The next file version's other costs on these tables: the structure check a reader runs on
@@ -153,7 +156,7 @@ const float32File = kept + hashed.bytes;
 const codebooks = (2 * model.order - 1) * 256 * 8;
 const eightBitFile = kept - unigramValueBytes + unigramValueBytes / 4 + hashed.bytesWithValueBits(8) + codebooks;
 console.log(
-  `hashed tables (load ${args.load}, ${args['bucket-slots']} slots per bucket), built in ${buildSeconds.toFixed(1)} s: ${(hashed.bytes / 1e9).toFixed(2)} GB; ` +
+  `hashed tables (load ${args.load}, ${args['bucket-slots']} slots per bucket${args.aligned ? ', word-aligned records' : ''}), built in ${buildSeconds.toFixed(1)} s: ${(hashed.bytes / 1e9).toFixed(2)} GB; ` +
     `a file with them ≈ ${(float32File / ngrams).toFixed(2)} bytes per n-gram with float32 values, ≈ ${(eightBitFile / ngrams).toFixed(2)} with 8-bit codes; ` +
     `structure check ${checkSeconds.toFixed(1)} s, walk in row order ${walkSeconds.toFixed(1)} s`,
 );

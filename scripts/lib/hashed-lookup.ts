@@ -17,6 +17,8 @@ export interface HashedOptions {
   load: number;
   /** Slots per bucket. */
   bucketSlots: number;
+  /** Word-aligned records (keys padded to 32 bits). */
+  alignKeys: boolean;
 }
 
 /** float32 ↔ its bits. */
@@ -96,9 +98,11 @@ export class HashedLookup {
     return this.tables.reduce((sum, table) => {
       if (!table) return sum;
       const layout = table.layout;
+      // Codes are bit-packed: the key in its own bits, not padded.
       const valueBits = layout.valueBits.map(() => bits);
-      const recordBits = layout.recordBits - layout.valueBits.reduce((a, b) => a + b, 0) + valueBits.reduce((a, b) => a + b, 0);
-      return sum + hashedOrderBytes({ ...layout, valueBits, recordBits });
+      const keyFieldBits = layout.wordBits + layout.remainderBits + layout.displacementBits;
+      const recordBits = keyFieldBits + valueBits.reduce((a, b) => a + b, 0);
+      return sum + hashedOrderBytes({ ...layout, keyFieldBits, valueBits, recordBits });
     }, 0);
   }
 
@@ -125,7 +129,7 @@ export class HashedLookup {
       const highest = n === order;
       const contextOf = slotOfContext;
       // Two passes over the order (HashedOrderBuilder): count the homes, then place the records.
-      const builder = new HashedOrderBuilder({ rows, contextSpace, wordMax: model.vocabularySize, valueBits: highest ? [32] : [32, 32], load: options.load, bucketSlots: options.bucketSlots });
+      const builder = new HashedOrderBuilder({ rows, contextSpace, wordMax: model.vocabularySize, valueBits: highest ? [32] : [32, 32], load: options.load, bucketSlots: options.bucketSlots, alignKeys: options.alignKeys });
       for await (const { contexts, words } of keyedRows(source, n, contextOf)) for (let j = 0; j < words.length; j++) builder.count(contexts[j], words[j]);
       builder.endCounting();
       const slotOf = new Int32Array(rows);
@@ -143,7 +147,7 @@ export class HashedLookup {
       slotOfContext = slotOf;
       contextSpace = table.layout.slots;
       const layout = table.layout;
-      log(`order ${n}: ${rows.toLocaleString('en-US')} rows in ${layout.slots.toLocaleString('en-US')} slots, records of ${layout.recordBits} bits (word ${layout.wordBits}, remainder ${layout.remainderBits}, displacement ${layout.displacementBits}), ${((performance.now() - started) / 1000).toFixed(1)} s`);
+      log(`order ${n}: ${rows.toLocaleString('en-US')} rows in ${layout.slots.toLocaleString('en-US')} slots, records of ${layout.recordBits} bits (key field ${layout.keyFieldBits}: word ${layout.wordBits}, remainder ${layout.remainderBits}, displacement ${layout.displacementBits}), ${((performance.now() - started) / 1000).toFixed(1)} s`);
     }
     return new HashedLookup(order, tables, unigramProb, unigramBackOff);
   }

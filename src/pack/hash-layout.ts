@@ -112,6 +112,8 @@ export interface HashedOrderInput {
   /** Entries per slot, 0 < load < 1. */
   load: number;
   bucketSlots: number;
+  /** Pad the key to 32 bits (HashedOrderLayout.keyFieldBits); default false. */
+  alignKeys?: boolean;
 }
 
 /** The parameters a reader needs (all of them stored with the table in a file). */
@@ -126,8 +128,11 @@ export interface HashedOrderLayout {
   /** Q: the low bits of z a record keeps. */
   remainderBits: number;
   displacementBits: number;
+  /** Width of the key field: word + remainder + displacement bits, or 32 for word-aligned records
+   *  (the key padded with zero bits, so that with 32-bit values every field is a u32). */
+  keyFieldBits: number;
   valueBits: number[];
-  /** Bits of a record: word + remainder + displacement + the values. */
+  /** Bits of a record: the key field + the values. */
   recordBits: number;
 }
 
@@ -160,6 +165,11 @@ export class HashedOrder {
   // (0 for an empty field) keep them right.
   private readonly wordMask: number;
   private readonly keyMask: number;
+  private readonly keyFieldMask: number;
+  /** Word-aligned records of u32 fields (keyFieldBits 32, values of 32 bits): read by index. */
+  private readonly aligned: boolean;
+  /** u32 words per record, when aligned. */
+  private readonly stride: number;
   private readonly matchMask: number;
   private readonly remainderMask: number;
   private readonly displacementShift: number;
@@ -185,7 +195,10 @@ export class HashedOrder {
     this.layout = layout;
     this.words = words;
     const keyBits = layout.wordBits + layout.remainderBits + layout.displacementBits;
-    assert(keyBits <= KEY_BITS_MAX, `a key fits ${KEY_BITS_MAX} bits`);
+    assert(keyBits <= layout.keyFieldBits && layout.keyFieldBits <= KEY_BITS_MAX, `a key fits its field of at most ${KEY_BITS_MAX} bits`);
+    this.keyFieldMask = maskFor(layout.keyFieldBits);
+    this.aligned = layout.keyFieldBits === 32 && layout.valueBits.every((bits) => bits === 32);
+    this.stride = layout.recordBits >>> 5;
     this.wordMask = maskFor(layout.wordBits);
     this.keyMask = maskFor(keyBits);
     this.matchMask = maskFor(layout.wordBits + layout.remainderBits);
@@ -204,7 +217,7 @@ export class HashedOrder {
     this.remainderSpan = 2 ** layout.remainderBits;
     this.valueOffsets = [];
     this.valueMasks = [];
-    let offset = keyBits;
+    let offset = layout.keyFieldBits;
     for (const bits of layout.valueBits) {
       this.valueOffsets.push(offset);
       this.valueMasks.push(maskFor(bits));
@@ -273,6 +286,16 @@ export class HashedOrder {
     const displacementMask = this.displacementMask;
     const bucketShift = this.bucketShift;
     let slot = home << bucketShift;
+    if (this.aligned) {
+      const stride = this.stride;
+      for (let at = slot * stride; ; slot++, at += stride) {
+        const key = words[at];
+        if ((key & wordMask) === 0) return -1;
+        const entryHome = (slot >>> bucketShift) - ((key >>> displacementShift) & displacementMask);
+        if (entryHome === home && (key & matchMask) === wanted) return slot;
+        if (entryHome > home) return -1;
+      }
+    }
     // The stream bit of the slot's record, as 32·word + shift, stepped without a division.
     let word = Math.floor((slot * recordBits) / 32);
     let shift = slot * recordBits - word * 32;
@@ -296,6 +319,7 @@ export class HashedOrder {
 
   /** Value field `field` of the entry at `slot` (a slot `find` returned). */
   value(slot: number, field: number): number {
+    if (this.aligned) return this.words[slot * this.stride + 1 + field];
     return readBits(this.words, slot * this.layout.recordBits + this.valueOffsets[field], this.valueMasks[field]);
   }
 
@@ -319,6 +343,7 @@ export class HashedOrder {
     let sameHomeCount = 0;
     for (let slot = 0; slot < layout.slots; slot++) {
       const key = readBits(words, slot * recordBits, this.keyMask);
+      if (readBits(words, slot * recordBits, this.keyFieldMask) !== key) return `slot ${slot}: the key's padding bits are not zero`;
       const word = key & this.wordMask;
       if (word === 0) {
         if (key !== 0) return `slot ${slot}: an empty slot with a remainder or displacement`;
@@ -386,7 +411,7 @@ export class HashedOrder {
 }
 
 /** What a table is built for: HashedOrderInput without the entries themselves. */
-export type HashedOrderSpec = Pick<HashedOrderInput, 'rows' | 'contextSpace' | 'wordMax' | 'valueBits' | 'load' | 'bucketSlots'>;
+export type HashedOrderSpec = Pick<HashedOrderInput, 'rows' | 'contextSpace' | 'wordMax' | 'valueBits' | 'load' | 'bucketSlots' | 'alignKeys'>;
 
 /**
  * Builds one order's table in two passes over its entries, in the same order both times (a writer
@@ -453,10 +478,13 @@ export class HashedOrderBuilder {
     }
     const displacementBits = bitsFor(displacementMax);
     const valueBits = [...this.spec.valueBits];
-    const recordBits = this.wordBits + this.remainderBits + displacementBits + valueBits.reduce((sum, bits) => sum + bits, 0);
+    const keyBits = this.wordBits + this.remainderBits + displacementBits;
+    assert(keyBits <= KEY_BITS_MAX, `a key fits ${KEY_BITS_MAX} bits (word ${this.wordBits}, remainder ${this.remainderBits}, displacement ${displacementBits})`);
+    const keyFieldBits = this.spec.alignKeys === true ? KEY_BITS_MAX : keyBits;
+    const recordBits = keyFieldBits + valueBits.reduce((sum, bits) => sum + bits, 0);
     this.layout = {
       buckets: this.buckets, bucketSlots: per, slots: Math.max(this.buckets * per, free) + 1, mixBits: this.mixBits,
-      wordBits: this.wordBits, remainderBits: this.remainderBits, displacementBits, valueBits, recordBits,
+      wordBits: this.wordBits, remainderBits: this.remainderBits, displacementBits, keyFieldBits, valueBits, recordBits,
     };
     this.words = new Uint32Array(hashedOrderBytes(this.layout) / 4);
     return this.layout;
@@ -477,7 +505,7 @@ export class HashedOrderBuilder {
     writeBits(words, bit, layout.remainderBits, (z & this.remainderMask) >>> 0);
     bit += layout.remainderBits;
     writeBits(words, bit, layout.displacementBits, Math.floor(slot / layout.bucketSlots) - home);
-    bit += layout.displacementBits;
+    bit = slot * layout.recordBits + layout.keyFieldBits;
     for (let f = 0; f < layout.valueBits.length; f++) {
       const value = values[f];
       if (!(Number.isInteger(value) && value >= 0 && value <= maskFor(layout.valueBits[f]))) assert(false, `value ${f} fits ${layout.valueBits[f]} bits (got ${value})`);

@@ -289,6 +289,27 @@ describe('a hashed order', () => {
     expect(walk3.rowOf.filter((row) => row >= 0).length).toBe(list.length);
   });
 
+  it('word-aligned records (keys padded to 32 bits) hold the same keys and values, read by index', () => {
+    const input = { ...randomInput(13, 20_000, 5_000, 3_000, [32, 32]), alignKeys: true };
+    const { table, slotOf } = HashedOrder.build(input);
+    expect(table.layout.keyFieldBits).toBe(32);
+    expect(table.layout.recordBits).toBe(96);
+    const packed = HashedOrder.build({ ...input, alignKeys: false });
+    expect(slotOf).toEqual(packed.slotOf); // the placement depends on the keys alone
+    for (let i = 0; i < input.rows; i++) {
+      const slot = table.find(input.contexts[i], input.words[i]);
+      expect(slot).toBe(slotOf[i]);
+      expect([table.value(slot, 0), table.value(slot, 1)]).toEqual([input.values[0][i], input.values[1][i]]);
+      expect(table.keyAt(slot)).toEqual({ context: input.contexts[i], word: input.words[i] });
+    }
+    expect(table.find(4_999, 2_999) === -1 || table.keyAt(table.find(4_999, 2_999))!.word === 2_999).toBe(true);
+    expect(table.check(5_000, 3_000)).toBeNull();
+    // A padding bit set is damage.
+    const slot = slotOf[0];
+    table.words[slot * 3] = (table.words[slot * 3] | 0x80000000) >>> 0;
+    expect(table.check(5_000, 3_000)).toMatch(new RegExp(`slot ${slot}: the key's padding bits are not zero`));
+  });
+
   it('holds one entry, and a context space of one', () => {
     const one = HashedOrder.build({ rows: 1, contextSpace: 1, wordMax: 1, contexts: Uint32Array.of(0), words: Uint32Array.of(1), valueBits: [32], values: [Uint32Array.of(0xdeadbeef)], load: 0.5, bucketSlots: 4 }).table;
     const slot = one.find(0, 1);

@@ -7,6 +7,8 @@
  *
  *   record = word (W bits) | remainder (Q bits) | displacement (D bits) | value 0 | value 1 …
  *
+ * (with `alignKeys`, the key's three fields are padded with zero bits to 32, so that with 32-bit
+ * values every field of a record is a u32 read by index: faster, and larger)
  * so that a lookup finds the key and its values in one place, and the probes of a lookup's orders
  * depend only on the state (the context slots), not on each other.
  *
@@ -82,11 +84,13 @@ export function homeOf(z: number, buckets: number, a: number): number {
 }
 
 /** The first z of home bucket `home`: ⌈home · 2^a / buckets⌉, exactly (computed in floating point,
- *  where home · 2^a may pass 2^53, then put right by a step at most with homeOf). */
-export function firstZ(home: number, buckets: number, a: number): number {
-  let first = Math.ceil((home * 2 ** a) / buckets);
-  while (first > 0 && homeOf(first - 1, buckets, a) >= home) first--;
-  while (first < 2 ** a && homeOf(first, buckets, a) < home) first++;
+ *  where home · 2^a may pass 2^53, then put right by a step at most with homeOf, or `homeOfZ`, the
+ *  same function specialised to a layout: HashedOrder.home). */
+export function firstZ(home: number, buckets: number, a: number, homeOfZ: (z: number) => number = (z) => homeOf(z, buckets, a)): number {
+  const zSpan = 2 ** a;
+  let first = Math.ceil((home * zSpan) / buckets);
+  while (first > 0 && homeOfZ(first - 1) >= home) first--;
+  while (first < zSpan && homeOfZ(first) < home) first++;
   return first;
 }
 
@@ -186,6 +190,8 @@ export class HashedOrder {
   /** 2^a, and 2^Q. */
   private readonly zSpan: number;
   private readonly remainderSpan: number;
+  /** `home`, for firstZ. */
+  private readonly homeOfZ: (z: number) => number;
   private readonly valueOffsets: number[];
   private readonly valueMasks: number[];
 
@@ -214,6 +220,7 @@ export class HashedOrder {
     this.bucketsLow = layout.buckets - this.bucketsHigh * 65536;
     this.homeScale = this.wideMix ? 2 ** -(a - 16) : 2 ** -a;
     this.zSpan = 2 ** a;
+    this.homeOfZ = (z) => this.home(z);
     this.remainderSpan = 2 ** layout.remainderBits;
     this.valueOffsets = [];
     this.valueMasks = [];
@@ -378,7 +385,7 @@ export class HashedOrder {
     const layout = this.layout;
     const a = layout.mixBits;
     const buckets = layout.buckets;
-    const first = firstZ(home, buckets, a);
+    const first = firstZ(home, buckets, a, this.homeOfZ);
     const span = this.remainderSpan;
     const z = first + ((((remainder - first) % span) + span) % span);
     if (z >= this.zSpan || this.home(z) !== home) return -1;

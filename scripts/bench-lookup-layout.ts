@@ -25,10 +25,10 @@ import { spawnSync } from 'node:child_process';
 import { readFileSync, statSync } from 'node:fs';
 import { parseArgs } from 'node:util';
 import { BOS_ID } from '../src/corpus/vocabulary.ts';
-import { openModel, type PackedModel } from '../src/pack/reader.ts';
-import { scoreIdSentences } from '../src/score/batch.ts';
+import { openModel } from '../src/pack/reader.ts';
 import { rowOrder } from '../src/pack/hash-layout.ts';
 import { HashedLookup } from './lib/hashed-lookup.ts';
+import { batchPass, stepPass } from './lib/lookup-passes.ts';
 import { hugePagesEnv } from './lib/quern-env.ts';
 
 const { values: args } = parseArgs({
@@ -92,24 +92,6 @@ for (let n = 2; n <= model.order; n++) {
 }
 const walkSeconds = (performance.now() - walked) / 1000;
 
-function stepSum(packed: PackedModel): number {
-  let sum = 0;
-  const state = packed.newState();
-  for (const sentence of stream) {
-    packed.resetState(state);
-    for (let i = 0; i < sentence.length; i++) sum += packed.step(state, sentence[i]);
-  }
-  return sum;
-}
-
-function batchSum(packed: PackedModel): number {
-  let sum = 0;
-  scoreIdSentences(packed, stream, (_sentence, _position, log10Prob) => {
-    sum += log10Prob;
-  }, lanes);
-  return sum;
-}
-
 function hashedSum(): number {
   let sum = 0;
   for (const sentence of stream) {
@@ -120,8 +102,8 @@ function hashedSum(): number {
 }
 
 const ways: Array<[string, () => number]> = [
-  ['step', () => stepSum(model)],
-  [`stepBatch, ${lanes} lanes`, () => batchSum(model)],
+  ['step', () => stepPass(model, stream)],
+  [`stepBatch, ${lanes} lanes`, () => batchPass(model, stream, lanes)],
   ['hashed', hashedSum],
   [`hashed, ${lanes} lanes`, () => hashed.batchSum(stream, lanes)],
 ];

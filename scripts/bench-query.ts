@@ -67,8 +67,8 @@ import { nodeFs } from '../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../src/pack/writer.ts';
 import { SCORE_LANES } from '../src/limits.ts';
-import { scoreIdSentences } from '../src/score/batch.ts';
 import { brownFiles, readBrown } from '../test/pack/support.ts';
+import { batchPass, stepPass } from './lib/lookup-passes.ts';
 import { hugePagesEnv } from './lib/quern-env.ts';
 import { SyntheticModel, writeShardFile } from './lib/synthetic.ts';
 
@@ -211,26 +211,6 @@ function againstPass(model: AgainstModel, stream: number[][]): number {
       sum += step.log10Prob;
       state = step.state;
     }
-  }
-  return sum;
-}
-
-/** The stream scored in lanes, `lanes` sentences at a time (`stepBatch`): one lookup per token, as
- *  in stepPass; Σ log10 p equal to stepPass's up to the order of the additions. */
-function batchPass(model: PackedModel, stream: number[][], lanes: number): number {
-  let sum = 0;
-  scoreIdSentences(model, stream, (_sentence, _position, log10Prob) => {
-    sum += log10Prob;
-  }, lanes);
-  return sum;
-}
-
-function stepPass(model: PackedModel, stream: number[][]): number {
-  let sum = 0;
-  const state = model.newState();
-  for (const sentence of stream) {
-    model.resetState(state);
-    for (let i = 0; i < sentence.length; i++) sum += model.step(state, sentence[i]);
   }
   return sum;
 }

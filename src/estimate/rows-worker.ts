@@ -1,8 +1,9 @@
 /**
  * Worker thread of `threadedRows` (job-model-source.ts): reads one order of a job's finished
  * estimate (`jobOrderRows`, the same pass as `openJobModelSource(job).rows(order)` without reading
- * the vocabulary: the k-way merge of the partitions' result files, and their back-off weights joined) and posts its batches to the main thread, at most
- * `ahead` batches before the main thread has taken them (each taken batch sends a credit back).
+ * the vocabulary: the k-way merge of the partitions' result files, and their back-off weights
+ * joined) and posts its batches to the main thread, at most `ahead` batches before the main thread
+ * has taken them (each taken batch sends a credit back).
  * Batches move without a copy (their buffers are transferred) unless a buffer is shared.
  */
 import { parentPort, workerData } from 'node:worker_threads';

@@ -14,7 +14,7 @@ import { createHash } from 'node:crypto';
 import pLimit from 'p-limit';
 import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
-import { assert, QuernError } from '../errors.ts';
+import { QuernError } from '../errors.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
 import { WorkerPool } from '../count/pool.ts';
 import type { EstimateDone } from '../count/protocol.ts';
@@ -234,18 +234,6 @@ export async function stageInputs(job: JobManifest, jobDir: string, request: Pla
 }
 
 async function runStage(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
-  // One pool for the stage, closed at its end whatever happens. Its workers start with the first
-  // phase (pool.run), after this thread has read the job's inputs and estimated the unigrams:
-  // starting them before that (tried on the sample job, six runs each) gained nothing on 2 cores.
-  const ownPool = request.pool === undefined && job.config.order > 1 ? new WorkerPool(Math.max(1, Math.min(request.workers, job.config.partitions))) : undefined;
-  try {
-    return await runStageWith(job, jobDir, fs, progress, { ...request, pool: request.pool ?? ownPool }, started);
-  } finally {
-    await ownPool?.close();
-  }
-}
-
-async function runStageWith(job: JobManifest, jobDir: string, fs: StageFs, progress: ProgressSink, request: StreamEstimateRequest, started: number): Promise<StreamEstimateSummary> {
   const { settings, plan, key } = await stageInputs(job, jobDir, request.request);
   const serial = pLimit(1); // job.json is written one write at a time
   const save = (): Promise<void> => serial(() => writeManifest(fs, jobDir, job));
@@ -373,8 +361,9 @@ async function runPartitions(
   if (todo.length > 0 && orderMax > 1) {
     stage.status = 'running';
     await save();
-    const pool = request.pool;
-    assert(pool !== undefined, 'runStage starts the pool of a job of order 2 or more');
+    // Its workers start with pool.run; starting them before the stage reads its inputs (tried on
+    // the sample job, six runs each) gained nothing on 2 cores.
+    const pool = request.pool ?? new WorkerPool(workers);
     progress.start(`estimating ${todo.length} partitions`, todo.length, 'tasks', 'n-grams');
     try {
       await pool.run<number, EstimateDone, unknown>({ ...baseInit(job, jobDir, 'estimate'), estimate: settings }, todo, {
@@ -387,7 +376,8 @@ async function runPartitions(
         },
       }, workers);
     } finally {
-      progress.stop(); // runStage closes the pool
+      progress.stop();
+      if (request.pool === undefined) await pool.close();
     }
   }
   stage.partitionsDone.sort((a, b) => a.partition - b.partition);

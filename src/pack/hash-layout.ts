@@ -179,9 +179,8 @@ export class HashedOrder {
   private readonly displacementShift: number;
   private readonly displacementMask: number;
   private readonly bucketShift: number;
-  // z and its home without a division or a power (homeOf, zOf and mix, specialised to the layout).
+  // z and its home without a division or a power (zOf and homeOf, specialised to the layout).
   private readonly zMask: number;
-  private readonly mixShift: number;
   private readonly bucketsHigh: number;
   private readonly bucketsLow: number;
   /** 2^−a when a ≤ 16, else 2^−(a − 16). */
@@ -214,7 +213,6 @@ export class HashedOrder {
     this.bucketShift = Math.log2(layout.bucketSlots);
     const a = layout.mixBits;
     this.zMask = maskFor(a);
-    this.mixShift = (a + 1) >>> 1;
     this.wideMix = a > 16;
     this.bucketsHigh = Math.floor(layout.buckets / 65536);
     this.bucketsLow = layout.buckets - this.bucketsHigh * 65536;
@@ -256,13 +254,7 @@ export class HashedOrder {
 
   /** z of (context, word) (`home` and `wantedOf` take it): zOf for this layout. */
   z(context: number, word: number): number {
-    const mask = this.zMask;
-    const shift = this.mixShift;
-    let x = (Math.imul(context, MIX_MULTIPLIER_1) & mask) >>> 0;
-    x = (x ^ (x >>> shift)) >>> 0;
-    x = (Math.imul(x, MIX_MULTIPLIER_2) & mask) >>> 0;
-    x = (x ^ (x >>> shift)) >>> 0;
-    return ((x + hashWord(word)) & mask) >>> 0;
+    return ((mix(context, this.layout.mixBits) + hashWord(word)) & this.zMask) >>> 0;
   }
 
   /** The home bucket of a key's z: homeOf for this layout (multiplications by powers of two are exact). */

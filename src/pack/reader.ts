@@ -1618,8 +1618,8 @@ export class PackedModel {
    * The model as a stream of rows (src/estimate/model-source.ts), order by order in row order, for
    * `quern export` and packing again: each pass over order n walks the children ranges of orders
    * 1..n depth first, keeping the ids of the path, so a row's ids come with it and no order is ever
-   * held in memory (`toLanguageModel` holds them all, in arrays of 4n + 20 bytes per n-gram of order n). Runs the structure check
-   * first when `openModel` did not.
+   * held in memory (`toLanguageModel` holds them all, in arrays of 4n + 20 bytes per n-gram of
+   * order n). Runs the structure check first when `openModel` did not.
    */
   toModelSource(): ModelSource {
     return { header: this.headerOf(this.checkedWords()), rowCounts: [...this.ngrams], rows: (order: number) => this.walkRows(order) };

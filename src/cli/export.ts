@@ -10,8 +10,9 @@ export const exportCommand: CommandModule = {
   describe: 'Write a model file in the ARPA back-off format (log10 values to 7 significant digits)',
   builder: (yargs) => yargs
     .positional('model', { type: 'string', describe: 'Model file written by quern pack' })
+    .option('format', { type: 'string', choices: ['arpa'], default: 'arpa', describe: 'Output format: the ARPA back-off text format (the only one for now)' })
     .option('out', { type: 'string', describe: 'Write to this file (atomically) instead of standard output' })
-    .example('$0 export model.qm --out model.arpa', 'The model as an ARPA file'),
+    .example('$0 export model.qm --format arpa --out model.arpa', 'The model as an ARPA file'),
   handler: async (argv) => {
     // Streamed order by order from the file (no order held in memory), after the structure check.
     const model = (await openModel(argv.model as string)).toModelSource();

@@ -33,6 +33,8 @@ test('export a model file to ARPA, pack it back with 8-bit values, describe both
   const arpa = join(dir, 'model.arpa');
   expect(await run(['export', original, '--out', arpa])).toBe('');
   expect(await run(['export', original])).toBe(readFileSync(arpa, 'utf8'));
+  expect(await run(['export', original, '--format', 'arpa'])).toBe(readFileSync(arpa, 'utf8'));
+  await expect(run(['export', original, '--format', 'text'])).rejects.toThrow(/Invalid values:[\s\S]*format/);
 
   const packed = join(dir, 'packed.qm');
   const summary = await run(['pack', arpa, '--out', packed, '--quant', '8', '--fingerprint', 'corpus-1']);

@@ -1,13 +1,19 @@
 /**
  * Measures `quern estimate`'s last step, packing a job's finished estimate into a model file
  * (src/pack/writer.ts reading src/estimate/job-model-source.ts's merge of the partitions' result
- * files), against another revision's writer in the same run.
+ * files), or `quern pack` of an ARPA file (src/pack/arpa.ts), against another revision's in the
+ * same run.
  *
  *   npm run bench:pack -- --job DIR [--against REV] [--repeat N] [--quant 8|16] [--threads on|off]
+ *   npm run bench:pack -- --arpa FILE [--memory SIZE] [--against REV] [--repeat N] [--quant 8|16]
  *
  * --job      a counted job whose estimate is finished (`quern estimate DIR`; e.g. the order-5 job
  *            of the 200 MB corpus that `npm run bench:estimate` leaves in bench-out/estimate-200MB-o5,
  *            estimated once with `node bin/quern.js estimate DIR --fallback`)
+ * --arpa     an ARPA file instead (e.g. `quern export` of such a model; its sections shuffled to
+ *            measure the sort), packed as `quern pack` does
+ * --memory   with --arpa: `quern pack --memory`, the sort's budget (default its default); revisions
+ *            that read the whole ARPA file into memory ignore it
  * --against  a git revision: its src/ is extracted to a scratch folder (scripts/lib/revision-tree.ts)
  *            and its writer and model source run beside this checkout's, alternating
  * --repeat   runs of each (default 2)
@@ -26,6 +32,7 @@ import * as os from 'node:os';
 import { join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
+import bytesIec from 'bytes-iec';
 import { fileDigest } from './lib/file-digest.ts';
 import { hugePagesEnv } from './lib/quern-env.ts';
 import { extractRevision } from './lib/revision-tree.ts';
@@ -43,19 +50,24 @@ function fail(message: string): never {
 const { values } = parseArgs({
   options: {
     job: { type: 'string' },
+    arpa: { type: 'string' },
+    memory: { type: 'string' },
     against: { type: 'string' },
     repeat: { type: 'string', default: '2' },
     quant: { type: 'string' },
     threads: { type: 'string', default: 'on' },
   },
 });
-if (values.job === undefined) fail('--job DIR is required (a job whose estimate is finished)');
-const job = resolve(values.job);
+if ((values.job === undefined) === (values.arpa === undefined)) fail('one of --job DIR (a job whose estimate is finished) or --arpa FILE is required');
+const mode = values.arpa === undefined ? 'job' : 'arpa';
+const job = resolve((values.job ?? values.arpa) as string);
 const repeat = Number(values.repeat);
 if (!(Number.isInteger(repeat) && repeat >= 1)) fail(`--repeat must be an integer ≥ 1 (got ${values.repeat})`);
 if (values.quant !== undefined && values.quant !== '8' && values.quant !== '16') fail(`--quant must be 8 or 16 (got ${values.quant})`);
-const manifest = JSON.parse(readFileSync(join(job, 'job.json'), 'utf8')) as { stages: { estimate?: { status?: string } } };
-if (manifest.stages.estimate?.status !== 'done') fail(`${job} holds no finished estimate: run node bin/quern.js estimate ${job} first`);
+if (mode === 'job') {
+  const manifest = JSON.parse(readFileSync(join(job, 'job.json'), 'utf8')) as { stages: { estimate?: { status?: string } } };
+  if (manifest.stages.estimate?.status !== 'done') fail(`${job} holds no finished estimate: run node bin/quern.js estimate ${job} first`);
+} else if (!existsSync(job)) fail(`no ARPA file ${job}`);
 
 interface Row { what: string; wallMs: number; cpuMs: number; rssBytesMax: number; bytes: number; ngrams: number; loadAverage1m: number }
 
@@ -72,7 +84,7 @@ try {
     for (const { what, tree } of run % 2 === 0 ? trees : [...trees].reverse()) {
       const file = join(work, `model-${rows.length}.qm`);
       const loadAverage1m = os.loadavg()[0];
-      const measured = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', process.execPath, '--import', 'tsx', ONCE, tree, job, file, values.quant ?? '-', values.threads as string], { cwd: REPO, stdout: 'pipe', stderr: 'pipe', env: hugePagesEnv('on') });
+      const measured = await measureCommand(GNU_TIME_PATH, ['-f', '%U %S', process.execPath, '--import', 'tsx', ONCE, tree, job, file, values.quant ?? '-', values.threads as string, mode, values.memory === undefined ? '-' : String(bytesIec.parse(values.memory))], { cwd: REPO, stdout: 'pipe', stderr: 'pipe', env: hugePagesEnv('on') });
       if (measured.exitCode !== 0) fail(`${what} failed (${measured.exitCode ?? measured.signal}): ${measured.stderr.trim()}`);
       const result = JSON.parse(measured.stdout.trim().split('\n').pop() as string) as { elapsedMs: number; cpuMs: number; bytes: number; ngrams: number[] };
       const row: Row = { what, wallMs: result.elapsedMs, cpuMs: result.cpuMs, rssBytesMax: measured.rssBytesMax, bytes: result.bytes, ngrams: result.ngrams.reduce((a, b) => a + b, 0), loadAverage1m };
@@ -97,7 +109,7 @@ const median = (xs: number[]): number => {
   const middle = sorted.length >> 1;
   return sorted.length % 2 === 1 ? sorted[middle] : (sorted[middle - 1] + sorted[middle]) / 2;
 };
-const lines = [`job: ${job}; ${rows[0].ngrams} n-grams, ${rows[0].bytes} bytes (${(rows[0].bytes / rows[0].ngrams).toFixed(2)} per n-gram)${values.quant === undefined ? '' : `, ${values.quant}-bit codes`}; ${os.cpus().length} CPUs`];
+const lines = [`${mode === 'job' ? 'job' : 'ARPA file'}: ${job}; ${rows[0].ngrams} n-grams, ${rows[0].bytes} bytes (${(rows[0].bytes / rows[0].ngrams).toFixed(2)} per n-gram)${values.quant === undefined ? '' : `, ${values.quant}-bit codes`}; ${os.cpus().length} CPUs`];
 lines.push(['writer', 'wall s', 'CPU s', 'M n-grams/s', 'peak RSS MiB', 'load'].join('\t'));
 for (const r of rows) lines.push([r.what, (r.wallMs / 1000).toFixed(1), (r.cpuMs / 1000).toFixed(1), (r.ngrams / r.wallMs / 1000).toFixed(2), (r.rssBytesMax / 2 ** 20).toFixed(0), r.loadAverage1m.toFixed(1)].join('\t'));
 if (against !== null) {

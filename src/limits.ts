@@ -289,5 +289,22 @@ export const ARPA_SIGNIFICANT_DIGITS = 7;
  *  a read value is taken as −∞: −99 is common practice for `<s>`'s unigram probability. */
 export const ARPA_LOG10_ZERO = -99;
 
+/** Memory for sorting an ARPA file's n-grams into id order (`quern pack --memory`, arpa-rows.ts), by
+ *  default: one order's rows at a time, 8n + 28 bytes each (68 at order 5), so 512 MiB sorts
+ *  ~7.9 M rows of order 5 per run; a larger order is merged from runs on disk. */
+export const ARPA_SORT_BYTES_DEFAULT = 512 << 20;
+
+/** Rows a sort buffer holds at least, whatever the budget (a run of fewer would make merges of
+ *  very many runs). ~70 KB at order 5. */
+export const ARPA_SORT_ROWS_MIN = 1_024;
+
+/** Rows per block of the ARPA sort's files (arpa-rows.ts): even, so that the blocks' f64 fields
+ *  are 8-byte aligned; 8,192 rows are 320 KB at order 5, one read per block in a merge of runs. */
+export const ARPA_BLOCK_ROWS = 8_192;
+
+/** Lines of an ARPA file at most: the sort keeps each n-gram's line (for messages) in a u32. */
+export const ARPA_LINES_MAX = 0xffff_ffff;
+
 assert(PACK_SECTION_BYTES_MAX <= 2 ** 31, 'a section fits one read call and a Buffer on any 64-bit Node');
 assert(PACK_READ_BYTES_MAX < 2 ** 31, 'a read call stays under fs\'s 2 GiB limit');
+assert(ARPA_BLOCK_ROWS % 2 === 0, 'ARPA sort blocks hold an even number of rows (8-byte aligned f64 fields)');

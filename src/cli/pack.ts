@@ -2,9 +2,12 @@
 import type { CommandModule } from 'yargs';
 import { QuernError } from '../errors.ts';
 import { stageFs } from '../job/fsio.ts';
-import { readArpa } from '../pack/arpa.ts';
+import { openArpaSource } from '../pack/arpa.ts';
 import { ENCODING_NAMES } from '../pack/format.ts';
-import { packModel, type PackOptions, type PackSummary } from '../pack/writer.ts';
+import { Spool } from '../pack/spool.ts';
+import { packModelSource, type PackOptions, type PackSummary } from '../pack/writer.ts';
+import { ARPA_SORT_BYTES_DEFAULT } from '../limits.ts';
+import { formatBytes, parseSize } from './options.ts';
 import { withPackCleanup } from './pack-signals.ts';
 
 /** One line about a packed file: where, what, how big. */
@@ -23,15 +26,25 @@ export const packCommand: CommandModule = {
     .option('quant', { type: 'number', choices: [8, 16], describe: 'Quantise log10 probabilities and back-off weights to 8 or 16 bits (codebooks fitted per order)' })
     .option('float', { type: 'number', choices: [32, 64], describe: 'Store unquantised values as float32 (default) or float64' })
     .option('fingerprint', { type: 'string', default: '', describe: 'Corpus fingerprint to record in the file' })
+    .option('memory', { type: 'string', describe: `Memory for sorting one order's n-grams into id order, e.g. 1GiB (default ${formatBytes(ARPA_SORT_BYTES_DEFAULT)}); a larger order is sorted in runs on disk beside --out` })
     .conflicts('quant', 'float')
     .example('$0 pack model.arpa --out model.qm --quant 8', 'An 8-bit model file'),
   handler: async (argv) => {
     const out = argv.out as string;
     if (out === '') throw new QuernError('config', '--out expects a file name');
-    const model = await readArpa(argv.arpa as string);
+    const sortBytes = argv.memory === undefined ? ARPA_SORT_BYTES_DEFAULT : parseSize(argv.memory as string, '--memory');
     const options: PackOptions = { fingerprint: argv.fingerprint as string };
     if (argv.quant !== undefined) options.quantBits = argv.quant as 8 | 16;
     if (argv.float !== undefined) options.floatBits = argv.float as 32 | 64;
-    process.stdout.write(formatPackSummary(await withPackCleanup(out, () => packModel(model, options, stageFs(), out))));
+    const summary = await withPackCleanup(out, async () => {
+      // The ARPA file's orders ≥ 2, sorted into id order in temporary files beside the model.
+      const source = await openArpaSource(argv.arpa as string, (n, name) => Spool.create(stageFs(), `${out}.${process.pid}.arpa-o${n}-${name}.tmp`), { sortBytes });
+      try {
+        return await packModelSource(source, options, stageFs(), out);
+      } finally {
+        await source.remove();
+      }
+    });
+    process.stdout.write(formatPackSummary(summary));
   },
 };

@@ -10,8 +10,10 @@
  * the back-off weight of the context `<s>`); orders ≥ 2 hold the n-grams kept from training,
  * sorted by their ids; log10BackOff is 0 for a row that is no context of the next order.
  */
-import { assert } from '../errors.ts';
-import { modelRowCount, type LanguageModel } from './model.ts';
+import { assert, QuernError } from '../errors.ts';
+import { BOS_ID } from '../corpus/vocabulary.ts';
+import { compareRows } from '../count/block-codec.ts';
+import { checkModel, modelRowCount, type LanguageModel, type ModelOrder } from './model.ts';
 
 /** Everything of a model but its rows. */
 export type ModelHeader = Omit<LanguageModel, 'orders'>;
@@ -68,4 +70,47 @@ export function modelSource(model: LanguageModel): ModelSource {
       }
     },
   };
+}
+
+/**
+ * Reads a whole ModelSource into an in-memory LanguageModel (for tests, and for packing until the
+ * model file is written from a source directly): every order's rows, and each row's context row,
+ * found by one walk since contexts ascend with their rows.
+ */
+export async function materialiseModel(source: ModelSource): Promise<LanguageModel> {
+  const orders: ModelOrder[] = [];
+  for (let order = 1; order <= source.rowCounts.length; order++) {
+    const total = source.rowCounts[order - 1];
+    const ids = new Uint32Array(total * order);
+    const log10Prob = new Float64Array(total);
+    const log10BackOff = new Float64Array(total);
+    let rows = 0;
+    for await (const batch of source.rows(order)) {
+      if (rows + batch.rows > total) throw new QuernError('corrupt', `the model source yields more rows of order ${order} than its ${total}`);
+      ids.set(batch.ids.subarray(0, batch.rows * order), rows * order);
+      log10Prob.set(batch.log10Prob.subarray(0, batch.rows), rows);
+      log10BackOff.set(batch.log10BackOff.subarray(0, batch.rows), rows);
+      rows += batch.rows;
+    }
+    if (rows !== total) throw new QuernError('corrupt', `the model source yields ${rows} rows of order ${order}, not ${total}`);
+    const contextRow = new Uint32Array(order === 1 ? 0 : total);
+    if (order > 1) {
+      const shorter = orders[order - 2];
+      const shorterRows = shorter.log10Prob.length;
+      let context = 0;
+      for (let row = 0; row < total; row++) {
+        while (context < shorterRows && compareRows(shorter.ids, context * (order - 1), ids, row * order, order - 1) < 0) context++;
+        if (!(context < shorterRows && compareRows(shorter.ids, context * (order - 1), ids, row * order, order - 1) === 0)) {
+          throw new QuernError('corrupt', `the context of a row of order ${order} is not a row of order ${order - 1}`);
+        }
+        contextRow[row] = context;
+      }
+    } else {
+      assert(ids[BOS_ID] === BOS_ID, 'order 1 starts with <s>');
+    }
+    orders.push({ order, ids, log10Prob, log10BackOff, contextRow });
+  }
+  const model: LanguageModel = { ...source.header, orders };
+  checkModel(model);
+  return model;
 }

@@ -31,18 +31,21 @@
  */
 import { once } from 'node:events';
 import { promises as fsp } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { Writable } from 'node:stream';
 import { assert, ioError, QuernError } from '../errors.ts';
 import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
 import { isNormalizeOptions, type NormalizeOptions } from '../corpus/types.ts';
 import { vocabularySize } from '../estimate/counts.ts';
-import { checkModel, modelRowCount, type LanguageModel, type MethodParameters, type ModelOrder } from '../estimate/model.ts';
-import { compareRow, searchRows } from '../estimate/rows.ts';
-import { modelSource, type ModelSource } from '../estimate/model-source.ts';
+import { checkModel, type LanguageModel, type MethodParameters } from '../estimate/model.ts';
+import { materialiseModel, modelSource, type ModelHeader, type ModelRowBatch, type ModelSource } from '../estimate/model-source.ts';
 import { rowsWithChildren } from './child-counts.ts';
-import { writeFileThrough, type StageFs } from '../job/fsio.ts';
+import { ArpaOrderRows, readBlocks, type ArpaRowsFile, type ArpaSpoolMaker } from './arpa-rows.ts';
+import { Spool } from './spool.ts';
+import { nodeFs, writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { openForReading } from '../job/file-read.ts';
-import { ARPA_LOG10_ZERO, ARPA_SIGNIFICANT_DIGITS, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
+import { ARPA_LINES_MAX, ARPA_LOG10_ZERO, ARPA_SIGNIFICANT_DIGITS, ARPA_SORT_BYTES_DEFAULT, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
 
 /** What Quern records about a model beside its ARPA tables (the `quern-model` line). */
 export interface ArpaModelDescription {
@@ -177,7 +180,7 @@ export async function writeArpaFile(model: LanguageModel | ModelSource, fs: Stag
   });
 }
 
-/** Options of `readArpa`. */
+/** Options of `readArpa` and `openArpaSource`. */
 export interface ArpaReadOptions {
   /**
    * How the model was estimated, for an ARPA file that Quern did not write (one without a
@@ -185,19 +188,32 @@ export interface ArpaReadOptions {
    * LanguageModel records its method, and nothing in the file says which it was.
    */
   description?: ArpaModelDescription;
+  /** Bytes for sorting one order's n-grams in memory (arpa-rows.ts); default ARPA_SORT_BYTES_DEFAULT. */
+  sortBytes?: number;
+}
+
+/** An ARPA file read as a model source, its orders ≥ 2 sorted into files; `remove` deletes them. */
+export interface ArpaSource extends ModelSource {
+  remove(): Promise<void>;
 }
 
 /**
- * Reads an ARPA file into a `LanguageModel`. Ids: `<s>` is 0 and the other unigrams follow in file
- * order (a file Quern wrote keeps its ids); a file without `<unk>` gets one with probability 0.
- * Throws QuernError 'input' naming the file and line for anything the format does not allow (and
- * for n-grams whose context is missing, `<s>` after the first position, back-off weights at the
- * highest order, counts that disagree with `\data\`), 'io' when the file cannot be read.
+ * Reads an ARPA file into a `ModelSource` without holding its n-grams in memory: the unigrams stay
+ * in memory, each higher order is sorted into id order in a file made by `spools` (arpa-rows.ts)
+ * within `sortBytes`, and `rows` streams those files. Ids: `<s>` is 0 and the other unigrams
+ * follow in file order (a file Quern wrote keeps its ids); a file without `<unk>` gets one with
+ * probability 0. Throws QuernError 'input' naming the file and line for anything the format does
+ * not allow (and for n-grams whose context is missing, `<s>` after the first position, back-off
+ * weights at the highest order, counts that disagree with `\data\`, an n-gram twice), 'io' when the
+ * file cannot be read; the files made so far are deleted then.
  */
-export async function readArpa(filePath: string, options: ArpaReadOptions = {}): Promise<LanguageModel> {
+export async function openArpaSource(filePath: string, spools: ArpaSpoolMaker, options: ArpaReadOptions = {}): Promise<ArpaSource> {
+  const sortBytes = options.sortBytes ?? ARPA_SORT_BYTES_DEFAULT;
+  assert(Number.isFinite(sortBytes) && sortBytes > 0, 'the ARPA sort budget is a positive number of bytes');
   const { handle, bytes: fileBytes } = await openForReading(filePath);
+  let parser: ArpaParser | null = null;
   try {
-    const parser = new ArpaParser(filePath, fileBytes);
+    parser = new ArpaParser(filePath, fileBytes, sortBytes, spools);
     const decoder = new TextDecoder('utf-8', { fatal: true });
     const block = Buffer.allocUnsafe(READ_BLOCK_BYTES);
     let carry: Buffer = Buffer.alloc(0);
@@ -218,13 +234,34 @@ export async function readArpa(filePath: string, options: ArpaReadOptions = {}):
         carry = Buffer.from(bytes);
         continue;
       }
-      parser.lines(decodeLines(decoder, bytes.subarray(0, last), parser));
+      await parser.lines(decodeLines(decoder, bytes.subarray(0, last), parser));
       carry = Buffer.from(bytes.subarray(last + 1));
     }
-    if (carry.length > 0) parser.lines(decodeLines(decoder, carry, parser));
-    return parser.finish(options.description);
+    if (carry.length > 0) await parser.lines(decodeLines(decoder, carry, parser));
+    return await parser.finish(options.description);
+  } catch (error) {
+    await parser?.remove();
+    throw error;
   } finally {
     await handle.close().catch(() => undefined);
+  }
+}
+
+/**
+ * Reads an ARPA file into a `LanguageModel` (`openArpaSource` with its files in a temporary
+ * folder, read back whole): for models that fit in memory. Same ids and errors.
+ */
+export async function readArpa(filePath: string, options: ArpaReadOptions = {}): Promise<LanguageModel> {
+  const folder = await fsp.mkdtemp(join(tmpdir(), 'quern-arpa-'));
+  try {
+    const source = await openArpaSource(filePath, (n, name) => Spool.create(nodeFs, join(folder, `o${n}-${name}.tmp`)), options);
+    try {
+      return await materialiseModel(source);
+    } finally {
+      await source.remove();
+    }
+  } finally {
+    await fsp.rm(folder, { recursive: true, force: true });
   }
 }
 
@@ -254,46 +291,82 @@ function decodeLines(decoder: TextDecoder, bytes: Uint8Array, parser: ArpaParser
   return lines;
 }
 
-/** One order's entries as read, in file order. */
-interface OrderEntries {
+/** The order being read: how many n-grams `\data\` declares and how many came. */
+interface OrderProgress {
   order: number;
   declared: number;
   count: number;
-  ids: Uint32Array;
-  prob: Float64Array;
-  backOff: Float64Array;
-  /** Line of each entry, for messages after sorting. */
-  lines: Uint32Array;
 }
 
 const NGRAM_COUNT = /^ngram\s+(\d+)\s*=\s*(\d+)$/;
 const SECTION_START = /^\\(\d+)-grams:$/;
 
-/** The ARPA reader's state machine, fed line by line. */
+/** Rows of order 1 per batch of the source. */
+const UNIGRAM_BATCH_ROWS = 65_536;
+
+/**
+ * The ARPA reader's state machine, fed line by line. Unigrams are kept in memory; the n-grams of
+ * each higher order go to an ArpaOrderRows (sorted on disk), which the parser waits for (`lines`
+ * awaits) when its buffer is full and when an order ends.
+ */
 class ArpaParser {
   lineNumber = 0;
   private state: 'preamble' | 'data' | 'ngrams' | 'end' = 'preamble';
   private description: ArpaModelDescription | null = null;
   private declared: number[] = [];
-  private current: OrderEntries | null = null;
-  private readonly orders: OrderEntries[] = [];
-  /** Unigram words in file order, and word → index in that order. */
+  private current: OrderProgress | null = null;
+  private readonly ended: OrderProgress[] = [];
+  /** Unigram words in file order, word → index in that order, and their values. */
   private unigramWords: string[] = [];
   private unigramIndex = new Map<string, number>();
+  private unigramProb = new Float64Array(0);
+  private unigramBackOff = new Float64Array(0);
   /** Word → id, fixed when the unigrams are complete. */
   private idOf: Map<string, number> | null = null;
   private vocabularyWords: string[] = [];
+  /** Orders ≥ 2: the one being read, the one that has ended and is not finished yet, and the
+   *  sorted files of those finished (index order − 2). */
+  private rows: ArpaOrderRows | null = null;
+  private endedRows: ArpaOrderRows | null = null;
+  /** An order ≥ 2 whose section has begun and whose rows are not made yet (0: none). */
+  private pendingOrder = 0;
+  private readonly files: ArpaRowsFile[] = [];
+  private readonly ids = new Uint32Array(ORDER_MAX);
 
-  constructor(private readonly file: string, private readonly fileBytes: number) {}
+  constructor(private readonly file: string, private readonly fileBytes: number, private readonly sortBytes: number, private readonly spools: ArpaSpoolMaker) {}
 
   error(message: string, line = this.lineNumber): QuernError {
     return new QuernError('input', `${this.file}:${line}: ${message}`, { location: { file: this.file, line } });
   }
 
-  lines(lines: string[]): void {
+  /** Feeds `lines`, waiting for the sort whenever it needs to write. */
+  async lines(lines: string[]): Promise<void> {
     for (const line of lines) {
+      if (this.endedRows !== null || this.pendingOrder !== 0 || this.rows?.full) await this.settle();
+      if (this.lineNumber === ARPA_LINES_MAX) throw this.error(`more than ${ARPA_LINES_MAX} lines`);
       this.lineNumber++;
       this.line(line.trim());
+    }
+    await this.settle();
+  }
+
+  /** Writes a full buffer out; sorts and checks an order that has ended, and only then (so that
+   *  two orders' buffers never take memory at once) makes the next order's. */
+  private async settle(): Promise<void> {
+    if (this.rows?.full) await this.rows.flush();
+    if (this.endedRows !== null) {
+      const rows = this.endedRows;
+      this.endedRows = null;
+      try {
+        this.files.push(await rows.finish(this.files.length > 0 ? this.files[this.files.length - 1] : null));
+      } catch (error) {
+        await rows.remove();
+        throw error;
+      }
+    }
+    if (this.pendingOrder !== 0) {
+      this.rows = new ArpaOrderRows(this.pendingOrder, this.sortBytes, this.spools, this);
+      this.pendingOrder = 0;
     }
   }
 
@@ -326,7 +399,7 @@ class ArpaParser {
         if (line.length === 0) return;
         if (line === '\\end\\') {
           this.endOrder();
-          if (this.orders.length !== this.declared.length) throw this.error(`\\end\\ after order ${this.orders.length}; \\data\\ declares ${this.declared.length} orders`);
+          if (this.ended.length !== this.declared.length) throw this.error(`\\end\\ after order ${this.ended.length}; \\data\\ declares ${this.declared.length} orders`);
           this.state = 'end';
           return;
         }
@@ -364,27 +437,29 @@ class ArpaParser {
 
   private startOrder(line: string): void {
     const n = Number((SECTION_START.exec(line) as RegExpExecArray)[1]);
-    if (n !== this.orders.length + 1) throw this.error(`expected \\${this.orders.length + 1}-grams:, found \\${n}-grams:`);
+    if (n !== this.ended.length + 1) throw this.error(`expected \\${this.ended.length + 1}-grams:, found \\${n}-grams:`);
     if (n > this.declared.length) throw this.error(`\\${n}-grams: but \\data\\ declares ${this.declared.length} orders`);
-    if (n === 2) this.fixVocabulary();
     const rows = this.declared[n - 1];
-    this.current = {
-      order: n,
-      declared: rows,
-      count: 0,
-      ids: new Uint32Array(n === 1 ? 0 : rows * n),
-      prob: new Float64Array(rows),
-      backOff: new Float64Array(rows),
-      lines: new Uint32Array(rows),
-    };
+    if (n === 1) {
+      this.unigramProb = new Float64Array(rows);
+      this.unigramBackOff = new Float64Array(rows);
+    } else {
+      this.fixVocabulary();
+      this.pendingOrder = n;
+    }
+    this.current = { order: n, declared: rows, count: 0 };
     this.state = 'ngrams';
   }
 
   private endOrder(): void {
-    const current = this.current as OrderEntries;
+    const current = this.current as OrderProgress;
     if (current.count !== current.declared) throw this.error(`order ${current.order} has ${current.count} n-grams; \\data\\ declares ${current.declared}`);
-    this.orders.push(current);
+    this.ended.push(current);
     if (current.order === 1) this.fixVocabulary();
+    else {
+      this.endedRows = this.rows;
+      this.rows = null;
+    }
   }
 
   private value(field: string, what: string): number {
@@ -395,7 +470,7 @@ class ArpaParser {
   }
 
   private entry(line: string): void {
-    const current = this.current as OrderEntries;
+    const current = this.current as OrderProgress;
     const n = current.order;
     const fields = line.split(/\s+/);
     const highest = n === this.declared.length;
@@ -403,23 +478,26 @@ class ArpaParser {
     if (fields.length !== n + 1 && fields.length !== n + 2) throw this.error(`an entry of order ${n} has a log10 probability, ${n} word${n === 1 ? '' : 's'} and an optional back-off weight (found ${fields.length} fields)`);
     if (current.count >= current.declared) throw this.error(`more n-grams of order ${n} than the ${current.declared} \\data\\ declares`);
     const row = current.count++;
-    current.prob[row] = this.value(fields[0], 'log10 probability');
-    current.backOff[row] = fields.length === n + 2 ? this.value(fields[n + 1], 'log10 back-off weight') : 0;
-    current.lines[row] = this.lineNumber;
+    const prob = this.value(fields[0], 'log10 probability');
+    const backOff = fields.length === n + 2 ? this.value(fields[n + 1], 'log10 back-off weight') : 0;
     if (n === 1) {
       const word = fields[1];
       if (this.unigramIndex.has(word)) throw this.error(`the unigram ${word} appears twice`);
       this.unigramIndex.set(word, this.unigramWords.length);
       this.unigramWords.push(word);
+      this.unigramProb[row] = prob;
+      this.unigramBackOff[row] = backOff;
       return;
     }
     const idOf = this.idOf as Map<string, number>;
+    const ids = this.ids;
     for (let i = 0; i < n; i++) {
       const id = idOf.get(fields[1 + i]);
       if (id === undefined) throw this.error(`the word ${JSON.stringify(fields[1 + i])} is not among the unigrams`);
       if (id === BOS_ID && i > 0) throw this.error(`<s> is a context only; it cannot follow another word`);
-      current.ids[row * n + i] = id;
+      ids[i] = id;
     }
+    (this.rows as ArpaOrderRows).add(ids, prob, backOff, this.lineNumber);
   }
 
   /** Ids: `<s>` 0, then the unigrams in file order; `<unk>` added when missing. */
@@ -432,57 +510,29 @@ class ArpaParser {
     this.idOf = new Map(words.map((word, id) => [word, id]));
   }
 
-  finish(given: ArpaModelDescription | undefined): LanguageModel {
+  /** The model source over what was read. */
+  async finish(given: ArpaModelDescription | undefined): Promise<ArpaSource> {
     if (this.state !== 'end') throw this.error(this.state === 'preamble' ? 'no \\data\\ line: not an ARPA file' : 'the file ends before \\end\\');
+    assert(this.endedRows === null && this.rows === null && this.pendingOrder === 0, 'every order is sorted at \\end\\');
     const description = this.description ?? given;
     if (description === undefined) {
       throw new QuernError('input', `${this.file}: no quern-model line says how this model was estimated; pass the description option (method, parameters, cutoffs) to read a model Quern did not write`, { location: { file: this.file } });
     }
-    const order = this.orders.length;
+    const order = this.ended.length;
     if (description.cutoffs.length !== order) throw new QuernError('input', `${this.file}: the description gives ${description.cutoffs.length} cutoffs for a model of order ${order}`, { location: { file: this.file } });
     const words = this.vocabularyWords;
     const idOf = this.idOf as Map<string, number>;
     const size = words.length - 1;
 
-    const unigrams = this.orders[0];
-    const ids = new Uint32Array(size + 1);
     const log10Prob = new Float64Array(size + 1).fill(-Infinity);
     const log10BackOff = new Float64Array(size + 1);
-    for (let id = 0; id <= size; id++) ids[id] = id;
     this.unigramWords.forEach((word, index) => {
       const id = idOf.get(word) as number;
-      log10Prob[id] = unigrams.prob[index];
-      log10BackOff[id] = unigrams.backOff[index];
+      log10Prob[id] = this.unigramProb[index];
+      log10BackOff[id] = this.unigramBackOff[index];
     });
     log10Prob[BOS_ID] = -Infinity; // never predicted (its ARPA value is a placeholder)
-    const orders: ModelOrder[] = [{ order: 1, ids, log10Prob, log10BackOff, contextRow: new Uint32Array(0) }];
-
-    for (let n = 2; n <= order; n++) {
-      const entries = this.orders[n - 1];
-      const rows = entries.count;
-      const permutation = sortedPermutation(entries.ids, n, rows);
-      const table: ModelOrder = { order: n, ids: new Uint32Array(rows * n), log10Prob: new Float64Array(rows), log10BackOff: new Float64Array(rows), contextRow: new Uint32Array(rows) };
-      for (let row = 0; row < rows; row++) {
-        const from = permutation === null ? row : permutation[row];
-        table.ids.set(entries.ids.subarray(from * n, from * n + n), row * n);
-        table.log10Prob[row] = entries.prob[from];
-        table.log10BackOff[row] = entries.backOff[from];
-        if (row > 0 && compareRow(table.ids, n, row - 1, table.ids, row * n, n) === 0) {
-          throw this.error(`the n-gram "${this.ngramText(table.ids, n, row)}" appears twice`, entries.lines[from]);
-        }
-      }
-      const lower = orders[n - 2];
-      for (let row = 0; row < rows; row++) {
-        const context = searchRows(lower.ids, n - 1, modelRowCount(lower), table.ids, row * n);
-        if (context < 0) {
-          const from = permutation === null ? row : permutation[row];
-          throw this.error(`the n-gram "${this.ngramText(table.ids, n, row)}" has no (n−1)-gram "${this.ngramText(table.ids, n, row, n - 1)}" for its context`, entries.lines[from]);
-        }
-        table.contextRow[row] = context;
-      }
-      orders.push(table);
-    }
-    const model: LanguageModel = {
+    const header: ModelHeader = {
       order,
       vocabulary: { words, eosId: idOf.get(EOS) as number, unkId: idOf.get(UNK) as number },
       normalised: description.normalised,
@@ -491,26 +541,43 @@ class ArpaParser {
       vocabularyCap: description.vocabularyCap,
       ...(description.normalize === undefined ? {} : { normalize: { ...description.normalize } }),
       log10UnseenContextWeight: description.log10UnseenContextWeight,
-      orders,
     };
-    assert(vocabularySize(model.vocabulary) === size, 'ARPA vocabulary size');
-    checkModel(model);
-    return model;
+    assert(vocabularySize(header.vocabulary) === size, 'ARPA vocabulary size');
+    const files = this.files;
+    return {
+      header,
+      rowCounts: [size + 1, ...files.map((file) => file.rows)],
+      async *rows(n: number): AsyncIterable<ModelRowBatch> {
+        assert(Number.isInteger(n) && n >= 1 && n <= order, `order in [1, ${order}]`);
+        if (n === 1) {
+          for (let start = 0; start <= size; start += UNIGRAM_BATCH_ROWS) {
+            const end = Math.min(size + 1, start + UNIGRAM_BATCH_ROWS);
+            const ids = new Uint32Array(end - start);
+            for (let i = 0; i < ids.length; i++) ids[i] = start + i;
+            yield { rows: end - start, ids, log10Prob: log10Prob.slice(start, end), log10BackOff: log10BackOff.slice(start, end) };
+          }
+          return;
+        }
+        // Copies: a block's views are overwritten by the next read.
+        for await (const block of readBlocks(files[n - 2])) {
+          yield { rows: block.rows, ids: block.ids.slice(0, block.rows * n), log10Prob: block.prob.slice(0, block.rows), log10BackOff: block.backOff.slice(0, block.rows) };
+        }
+      },
+      remove: () => this.remove(),
+    };
   }
 
-  private ngramText(ids: Uint32Array, n: number, row: number, length = n): string {
+  /** Deletes every file the sort has made. */
+  async remove(): Promise<void> {
+    await this.rows?.remove();
+    await this.endedRows?.remove();
+    for (const file of this.files) await file.spool.remove();
+    this.files.length = 0;
+  }
+
+  ngramText(ids: Uint32Array, at: number, length: number): string {
     const words: string[] = [];
-    for (let i = 0; i < length; i++) words.push(this.vocabularyWords[ids[row * n + i]]);
+    for (let i = 0; i < length; i++) words.push(this.vocabularyWords[ids[at + i]]);
     return words.join(' ');
   }
-}
-
-/** The order of rows that sorts them (null when they are sorted already). */
-function sortedPermutation(ids: Uint32Array, n: number, rows: number): Uint32Array | null {
-  let sorted = true;
-  for (let row = 1; row < rows && sorted; row++) sorted = compareRow(ids, n, row - 1, ids, row * n, n) < 0;
-  if (sorted) return null;
-  const permutation = Array.from({ length: rows }, (_, row) => row);
-  permutation.sort((a, b) => compareRow(ids, n, a, ids, b * n, n) || a - b);
-  return Uint32Array.from(permutation);
 }

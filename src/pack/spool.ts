@@ -22,7 +22,8 @@ import { trackTemporary, untrackTemporary } from './temporaries.ts';
 export class Spool {
   /** Bytes written. */
   bytes = 0;
-  private readonly gathered = Buffer.allocUnsafeSlow(PACK_SPOOL_BYTES);
+  /** The bytes gathered for the next write (released when the spool is closed). */
+  private gathered: Buffer = Buffer.allocUnsafeSlow(PACK_SPOOL_BYTES);
   private gatheredBytes = 0;
   private file: WritableFile | null;
 
@@ -60,18 +61,19 @@ export class Spool {
     if (file === null) return;
     await this.flush();
     this.file = null;
+    this.gathered = Buffer.alloc(0);
     await file.close();
   }
 
   /**
-   * The bytes written, in order, in pieces of at most PACK_SPOOL_BYTES whose lengths are multiples
-   * of `unit` (a piece is a view of a buffer that the next piece overwrites: use it before asking
-   * for the next).
+   * The bytes written, in order, in pieces of at most `pieceBytes` (default PACK_SPOOL_BYTES) whose
+   * lengths are multiples of `unit` (a piece is a view of a buffer that the next piece overwrites:
+   * use it before asking for the next). A piece starts 8-byte aligned in its ArrayBuffer.
    */
-  async *read(unit: number): AsyncGenerator<Uint8Array> {
+  async *read(unit: number, pieceBytes: number = PACK_SPOOL_BYTES): AsyncGenerator<Uint8Array> {
     assert(this.file === null, 'a spool is read once it is closed');
-    assert(PACK_SPOOL_BYTES % unit === 0 && this.bytes % unit === 0, 'a spool holds whole values');
-    const buffer = Buffer.allocUnsafeSlow(PACK_SPOOL_BYTES);
+    assert(Number.isInteger(unit) && unit >= 1 && unit <= pieceBytes && this.bytes % unit === 0, 'a spool holds whole values');
+    const buffer = Buffer.allocUnsafeSlow(Math.floor(pieceBytes / unit) * unit);
     let handle: fsp.FileHandle;
     try {
       handle = await fsp.open(this.filePath, 'r');

@@ -12,7 +12,7 @@ import { afterAll, describe, expect, test } from 'vitest';
 import { WorkerPool } from '../../src/count/pool.ts';
 import { estimate, type EstimateRequest } from '../../src/estimate/estimate.ts';
 import { loadCountTables } from '../../src/estimate/from-store.ts';
-import { materialiseModel } from '../../src/estimate/job-model-source.ts';
+import { materialiseModel } from '../../src/estimate/model-source.ts';
 import type { PlannedRequest } from '../../src/estimate/method-plan.ts';
 import { estimateJobStreaming } from '../../src/estimate/stream-stage.ts';
 import { fitWeightsOnJob } from '../../src/estimate/heldout-store.ts';

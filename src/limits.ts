@@ -302,6 +302,14 @@ export const ARPA_SORT_ROWS_MIN = 1_024;
  *  are 8-byte aligned; 8,192 rows are 320 KB at order 5, one read per block in a merge of runs. */
 export const ARPA_BLOCK_ROWS = 8_192;
 
+/** The largest ratio of the text deflate restores to its compressed size: 1032:1 (zlib's FAQ, as
+ *  remembered; a limit of the format's longest match per code). Bounds the text a gzip file can
+ *  hold, for the check of the sizes an ARPA file declares. */
+export const DEFLATE_RATIO_MAX = 1032;
+
+/** gzip level of `quern export --out FILE.gz`: 6, zlib's default, the usual trade of size for time. */
+export const ARPA_GZIP_LEVEL = 6;
+
 /** Lines of an ARPA file at most: the sort keeps each n-gram's line (for messages) in a u32. */
 export const ARPA_LINES_MAX = 0xffff_ffff;
 

@@ -11,7 +11,7 @@ export const exportCommand: CommandModule = {
   builder: (yargs) => yargs
     .positional('model', { type: 'string', describe: 'Model file written by quern pack' })
     .option('format', { type: 'string', choices: ['arpa'], default: 'arpa', describe: 'Output format: the ARPA back-off text format (the only one for now)' })
-    .option('out', { type: 'string', describe: 'Write to this file (atomically) instead of standard output' })
+    .option('out', { type: 'string', describe: 'Write to this file (atomically) instead of standard output; gzip-compressed when the name ends in .gz' })
     .example('$0 export model.qm --format arpa --out model.arpa', 'The model as an ARPA file'),
   handler: async (argv) => {
     // Streamed order by order from the file (no order held in memory), after the structure check.

@@ -21,7 +21,7 @@ export const packCommand: CommandModule = {
   command: 'pack <arpa>',
   describe: 'Pack a model in the ARPA format (as quern export writes it) into one memory-mappable model file',
   builder: (yargs) => yargs
-    .positional('arpa', { type: 'string', describe: 'ARPA file written by quern export (it records how the model was estimated)' })
+    .positional('arpa', { type: 'string', describe: 'ARPA file written by quern export (it records how the model was estimated); plain or gzip' })
     .option('out', { type: 'string', demandOption: true, describe: 'The model file to write (atomically)' })
     .option('quant', { type: 'number', choices: [8, 16], describe: 'Quantise log10 probabilities and back-off weights to 8 or 16 bits (codebooks fitted per order)' })
     .option('float', { type: 'number', choices: [32, 64], describe: 'Store unquantised values as float32 (default) or float64' })

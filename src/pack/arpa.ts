@@ -28,12 +28,16 @@
  * vocabulary cap and the text normalisation — Quern writes before `\data\` on one line `quern-model {JSON}`; ARPA readers ignore
  * text before `\data\`, and `readArpa` restores the model from it. The unigrams are written in id
  * order (`<s>` first), so a model read back has the same ids.
+ *
+ * Files may be gzip-compressed: written so for a name ending in `.gz`, read so when they start with
+ * gzip's magic bytes.
  */
 import { once } from 'node:events';
 import { promises as fsp } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { Writable } from 'node:stream';
+import { type Readable, Writable } from 'node:stream';
+import { createGunzip, createGzip } from 'node:zlib';
 import { assert, ioError, QuernError } from '../errors.ts';
 import { BOS, BOS_ID, EOS, UNK, type VocabCap } from '../corpus/vocabulary.ts';
 import { isNormalizeOptions, type NormalizeOptions } from '../corpus/types.ts';
@@ -45,7 +49,7 @@ import { ArpaOrderRows, readBlocks, type ArpaRowsFile, type ArpaSpoolMaker } fro
 import { Spool } from './spool.ts';
 import { nodeFs, writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { openForReading } from '../job/file-read.ts';
-import { ARPA_LINES_MAX, ARPA_LOG10_ZERO, ARPA_SIGNIFICANT_DIGITS, ARPA_SORT_BYTES_DEFAULT, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
+import { ARPA_GZIP_LEVEL, ARPA_LINES_MAX, ARPA_LOG10_ZERO, DEFLATE_RATIO_MAX, ARPA_SIGNIFICANT_DIGITS, ARPA_SORT_BYTES_DEFAULT, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
 
 /** What Quern records about a model beside its ARPA tables (the `quern-model` line). */
 export interface ArpaModelDescription {
@@ -162,18 +166,25 @@ function drained(out: NodeJS.WritableStream): Promise<void> {
 
 /**
  * Writes `model` as an ARPA file atomically through `fs`: a temporary file beside `filePath`, fsync,
- * rename, directory fsync (no half-written file is ever left under `filePath`).
+ * rename, directory fsync (no half-written file is ever left under `filePath`); gzip-compressed when
+ * `filePath` ends in `.gz`.
  */
 export async function writeArpaFile(model: LanguageModel | ModelSource, fs: StageFs, filePath: string): Promise<void> {
   await writeFileThrough(fs, filePath, async (file) => {
-    const out = new Writable({
+    const toFile = new Writable({
       highWaterMark: 1 << 20,
       write(chunk: Buffer, _encoding, callback) {
         file.write(chunk).then(() => callback(), callback);
       },
     });
-    const finished = once(out, 'finish');
+    const finished = once(toFile, 'finish');
     finished.catch(() => undefined); // awaited below; writeArpa reports a failure first
+    // A name ending in .gz: the text gzip-compressed on its way to the file.
+    const out = filePath.endsWith('.gz') ? createGzip({ level: ARPA_GZIP_LEVEL }) : toFile;
+    if (out !== toFile) {
+      out.on('error', (error) => toFile.destroy(error));
+      out.pipe(toFile);
+    }
     await ('rows' in model ? writeArpaSource(model, out) : writeArpa(model, out));
     out.end();
     await finished;
@@ -213,21 +224,14 @@ export async function openArpaSource(filePath: string, spools: ArpaSpoolMaker, o
   const { handle, bytes: fileBytes } = await openForReading(filePath);
   let parser: ArpaParser | null = null;
   try {
-    parser = new ArpaParser(filePath, fileBytes, sortBytes, spools);
+    const gzip = await isGzip(handle, filePath);
+    // The text a gzip file holds is at most DEFLATE_RATIO_MAX times its size: the bound on what
+    // `\data\` may declare.
+    parser = new ArpaParser(filePath, gzip ? fileBytes * DEFLATE_RATIO_MAX : fileBytes, sortBytes, spools);
     const decoder = new TextDecoder('utf-8', { fatal: true });
-    const block = Buffer.allocUnsafe(READ_BLOCK_BYTES);
     let carry: Buffer = Buffer.alloc(0);
-    let position = 0;
-    for (;;) {
-      let bytesRead: number;
-      try {
-        ({ bytesRead } = await handle.read(block, 0, block.length, position));
-      } catch (cause) {
-        throw ioError('read', filePath, cause);
-      }
-      if (bytesRead === 0) break;
-      position += bytesRead;
-      const bytes = carry.length === 0 ? block.subarray(0, bytesRead) : Buffer.concat([carry, block.subarray(0, bytesRead)]);
+    for await (const block of textBlocks(handle, filePath, gzip, () => (parser as ArpaParser).lineNumber + 1)) {
+      const bytes = carry.length === 0 ? block : Buffer.concat([carry, block]);
       const last = bytes.lastIndexOf(0x0a);
       if (last < 0) {
         if (bytes.length > LINE_BYTES_MAX) throw parser.error(`a line is longer than ${LINE_BYTES_MAX} bytes`, parser.lineNumber + 1);
@@ -244,6 +248,48 @@ export async function openArpaSource(filePath: string, spools: ArpaSpoolMaker, o
     throw error;
   } finally {
     await handle.close().catch(() => undefined);
+  }
+}
+
+/** Whether the file starts with gzip's magic bytes (1f 8b). */
+async function isGzip(handle: fsp.FileHandle, filePath: string): Promise<boolean> {
+  const magic = Buffer.alloc(2);
+  try {
+    const { bytesRead } = await handle.read(magic, 0, 2, 0);
+    return bytesRead === 2 && magic[0] === 0x1f && magic[1] === 0x8b;
+  } catch (cause) {
+    throw ioError('read', filePath, cause);
+  }
+}
+
+/**
+ * The file's text in blocks (views valid until the next one): read as it is, or through gunzip.
+ * A failing read is an 'io' QuernError; damaged or truncated gzip data an 'input' one at the line
+ * `lineAt()` gives.
+ */
+async function* textBlocks(handle: fsp.FileHandle, filePath: string, gzip: boolean, lineAt: () => number): AsyncGenerator<Buffer> {
+  const source = handle.createReadStream({ start: 0, highWaterMark: READ_BLOCK_BYTES, autoClose: false });
+  let sourceError: unknown;
+  source.on('error', (cause) => (sourceError = cause));
+  const stream: Readable = gzip ? source.pipe(createGunzip({ chunkSize: READ_BLOCK_BYTES })) : source;
+  if (gzip) source.on('error', (cause) => stream.destroy(cause as Error));
+  const blocks = stream[Symbol.asyncIterator]();
+  try {
+    for (;;) {
+      let next: IteratorResult<Buffer>;
+      try {
+        next = await blocks.next();
+      } catch (cause) {
+        if (sourceError !== undefined || !gzip) throw ioError('read', filePath, sourceError ?? cause);
+        const line = lineAt();
+        throw new QuernError('input', `${filePath}:${line}: truncated or corrupt gzip data (${(cause as Error).message ?? String(cause)})`, { cause, location: { file: filePath, line } });
+      }
+      if (next.done) return;
+      yield next.value;
+    }
+  } finally {
+    await blocks.return?.(undefined).catch(() => undefined);
+    source.destroy();
   }
 }
 

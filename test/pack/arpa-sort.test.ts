@@ -4,7 +4,8 @@
  * KB here. The model read must not depend on the order of a section's lines or on the budget; a
  * repeated n-gram or a missing context is found across runs and named by its line; the sort's
  * files are gone afterwards, whether the read succeeded or failed. And `quern pack --memory` packs a
- * shuffled file into the same bytes as the file in order.
+ * shuffled file into the same bytes as the file in order. A gzipped ARPA file reads as its text (and
+ * `writeArpaFile` writes one for a .gz name); damaged gzip data stops the read.
  */
 import { existsSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
@@ -191,4 +192,54 @@ test('quern pack --memory: a shuffled file packs into the bytes of the file in o
   writeFileSync(shuffled, shuffleSections(sortedText, 74).replace('\\end\\', 'oops\n\\end\\'));
   await expect(run(['pack', shuffled, '--out', join(folder, 'd.qm'), '--memory', '64KiB'])).rejects.toThrow(/shuffled\.arpa:\d+: /);
   expect(readdirSync(folder).sort()).toEqual(['a.qm', 'b.qm', 'shuffled.arpa']);
+});
+
+describe('gzip', () => {
+  test('export to a .gz name writes the ARPA text gzipped; reading and packing it give what the plain file gives', async () => {
+    const { gunzipSync } = await import('node:zlib');
+    const folder = join(dir, 'gzip');
+    const { mkdirSync } = await import('node:fs');
+    mkdirSync(folder);
+    const gz = join(folder, 'model.arpa.gz');
+    await writeArpaFile(model, nodeFs, gz);
+    const bytes = readFileSync(gz);
+    expect([bytes[0], bytes[1]]).toEqual([0x1f, 0x8b]);
+    expect(gunzipSync(bytes).toString('utf8')).toBe(sortedText);
+    expect(await readArpa(gz)).toEqual(await readArpa(sortedPath));
+    // Detected by its magic bytes, not its name.
+    const renamed = join(folder, 'model-gzipped.arpa');
+    writeFileSync(renamed, bytes);
+    const run = (args: string[]): Promise<string> => runCommandsInProcess([packCommand], args);
+    await run(['pack', renamed, '--out', join(folder, 'from-gzip.qm')]);
+    await run(['pack', sortedPath, '--out', join(folder, 'from-text.qm')]);
+    expect(readFileSync(join(folder, 'from-gzip.qm')).equals(readFileSync(join(folder, 'from-text.qm')))).toBe(true);
+  });
+
+  test('a truncated or damaged gzip stream: an input error naming the file and the line reached; no file left', async () => {
+    const folder = join(dir, 'gzip-bad');
+    const { mkdirSync } = await import('node:fs');
+    mkdirSync(folder);
+    const gz = join(folder, 'model.arpa.gz');
+    await writeArpaFile(model, nodeFs, gz);
+    const bytes = readFileSync(gz);
+    const truncated = join(folder, 'truncated.arpa.gz');
+    writeFileSync(truncated, bytes.subarray(0, Math.floor(bytes.length * 0.6)));
+    const damaged = join(folder, 'damaged.arpa.gz');
+    const flipped = Buffer.from(bytes);
+    flipped[Math.floor(bytes.length / 2)] ^= 0xff;
+    writeFileSync(damaged, flipped);
+    for (const path of [truncated, damaged]) {
+      // (damaged data may decode into text that breaks first, or fail gzip's checksum at the end)
+      const { spools, made } = spoolsIn(folder);
+      const error = await openArpaSource(path, spools).catch((caught: unknown) => caught);
+      expect(error, path).toBeInstanceOf(QuernError);
+      expect((error as QuernError).code).toBe('input');
+      expect((error as Error).message).toMatch(new RegExp(`^${path.replace(/[.]/g, '\\.')}:\\d+: (truncated or corrupt gzip data|not valid UTF-8|the )`));
+      expect(made.filter(existsSync)).toEqual([]);
+    }
+    // The truncated stream reads well up to its end, so it is the gzip reader that stops it.
+    const truncatedError = await openArpaSource(truncated, spoolsIn(folder).spools).catch((caught: unknown) => caught as Error);
+    expect((truncatedError as Error).message).toMatch(/truncated or corrupt gzip data \(unexpected end of file\)/);
+    expect(readdirSync(folder).sort()).toEqual(['damaged.arpa.gz', 'model.arpa.gz', 'truncated.arpa.gz']);
+  });
 });

@@ -32,6 +32,7 @@
  * Files may be gzip-compressed: written so for a name ending in `.gz`, read so when they start with
  * gzip's magic bytes.
  */
+import { isUtf8 } from 'node:buffer';
 import { once } from 'node:events';
 import { promises as fsp } from 'node:fs';
 import { tmpdir } from 'node:os';
@@ -45,6 +46,7 @@ import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, type LanguageModel, type MethodParameters } from '../estimate/model.ts';
 import { materialiseModel, modelSource, type ModelHeader, type ModelRowBatch, type ModelSource } from '../estimate/model-source.ts';
 import { rowsWithChildren } from './child-counts.ts';
+import { FNV_OFFSET, FNV_PRIME, WordTable } from '../corpus/word-table.ts';
 import { ArpaOrderRows, readBlocks, type ArpaRowsFile, type ArpaSpoolMaker } from './arpa-rows.ts';
 import { Spool } from './spool.ts';
 import { nodeFs, writeFileThrough, type StageFs } from '../job/fsio.ts';
@@ -238,10 +240,10 @@ export async function openArpaSource(filePath: string, spools: ArpaSpoolMaker, o
         carry = Buffer.from(bytes);
         continue;
       }
-      await parser.lines(decodeLines(decoder, bytes.subarray(0, last), parser));
+      await parser.block(bytes, last, decoder);
       carry = Buffer.from(bytes.subarray(last + 1));
     }
-    if (carry.length > 0) await parser.lines(decodeLines(decoder, carry, parser));
+    if (carry.length > 0) await parser.block(carry, carry.length, decoder);
     return await parser.finish(options.description);
   } catch (error) {
     await parser?.remove();
@@ -337,6 +339,61 @@ function decodeLines(decoder: TextDecoder, bytes: Uint8Array, parser: ArpaParser
   return lines;
 }
 
+/** ASCII white space as JavaScript's `\s` has it: tab, line feed, vertical tab, form feed, carriage
+ *  return, space. */
+function isAsciiSpace(byte: number): boolean {
+  return byte === 0x20 || (byte >= 0x09 && byte <= 0x0d);
+}
+
+/** 10^0 … 10^22: the powers of ten a double holds exactly. */
+const EXACT_POWERS_OF_TEN = Array.from({ length: 23 }, (_, k) => Number(`1e${k}`));
+
+/**
+ * A log10 value from its bytes, as `ArpaParser.value` reads it (the same double as `Number` of the
+ * text); NaN for one it refuses. Plain decimals of up to 15 significant digits and 22 decimal
+ * places — all that Quern writes — are read from the digits: the integer of the digits divided by
+ * the power of ten, both exact doubles, is the correctly rounded value (common practice in decimal
+ * readers: the quotient of two exact doubles is rounded once). Anything else goes through `Number`.
+ */
+export function log10ValueOfBytes(bytes: Buffer, start: number, end: number): number {
+  let i = start;
+  const negative = bytes[i] === 0x2d;
+  if (negative || bytes[i] === 0x2b) i++;
+  let mantissa = 0;
+  let digits = 0;
+  let places = 0;
+  let seenDigit = false;
+  let seenPoint = false;
+  for (; i < end; i++) {
+    const c = bytes[i];
+    if (c >= 0x30 && c <= 0x39) {
+      seenDigit = true;
+      if (seenPoint) places++;
+      if (mantissa === 0 && c === 0x30) continue;
+      if (digits === 15) return textValue(bytes, start, end);
+      mantissa = mantissa * 10 + (c - 0x30);
+      digits++;
+    } else if (c === 0x2e && !seenPoint) {
+      seenPoint = true;
+    } else {
+      return textValue(bytes, start, end);
+    }
+  }
+  if (!seenDigit || places >= EXACT_POWERS_OF_TEN.length) return textValue(bytes, start, end);
+  const magnitude = places === 0 ? mantissa : mantissa / EXACT_POWERS_OF_TEN[places];
+  const value = negative ? -magnitude : magnitude;
+  return value <= ARPA_LOG10_ZERO ? -Infinity : value;
+}
+
+/** `log10ValueOfBytes` through the text and `Number`. */
+function textValue(bytes: Buffer, start: number, end: number): number {
+  const text = bytes.toString('latin1', start, end);
+  if (text === '-inf' || text === '-Infinity') return -Infinity;
+  const value = Number(text);
+  if (!Number.isFinite(value)) return NaN;
+  return value <= ARPA_LOG10_ZERO ? -Infinity : value;
+}
+
 /** The order being read: how many n-grams `\data\` declares and how many came. */
 interface OrderProgress {
   order: number;
@@ -378,6 +435,12 @@ class ArpaParser {
   private pendingOrder = 0;
   private readonly files: ArpaRowsFile[] = [];
   private readonly ids = new Uint32Array(ORDER_MAX);
+  /** The byte path's word table (its entries are the ids), and each field of the line at hand:
+   *  where it starts and ends and its FNV-1a hash. */
+  private wordTable: WordTable | null = null;
+  private readonly fieldStart = new Int32Array(ORDER_MAX + 2);
+  private readonly fieldEnd = new Int32Array(ORDER_MAX + 2);
+  private readonly fieldHash = new Int32Array(ORDER_MAX + 2);
 
   constructor(private readonly file: string, private readonly fileBytes: number, private readonly sortBytes: number, private readonly spools: ArpaSpoolMaker) {}
 
@@ -394,6 +457,82 @@ class ArpaParser {
       this.line(line.trim());
     }
     await this.settle();
+  }
+
+  /**
+   * Feeds the lines of bytes[0, end) (whole lines, '\n'-separated). The n-gram lines of orders ≥ 2
+   * take the byte path (`byteEntry`: no string per line or word); every other line, and any n-gram
+   * line the byte path does not take, is decoded and goes through `line` as text. Text that is not
+   * valid UTF-8 goes through `lines`, which names the line.
+   */
+  async block(bytes: Buffer, end: number, decoder: TextDecoder): Promise<void> {
+    if (!isUtf8(bytes.subarray(0, end))) {
+      await this.lines(decodeLines(decoder, bytes.subarray(0, end), this));
+      return;
+    }
+    // A byte-order mark at the start of the file is not text (TextDecoder drops it too).
+    let start = this.lineNumber === 0 && end >= 3 && bytes[0] === 0xef && bytes[1] === 0xbb && bytes[2] === 0xbf ? 3 : 0;
+    while (start <= end) {
+      let stop = bytes.indexOf(0x0a, start);
+      if (stop < 0 || stop > end) stop = end;
+      const lineEnd = stop > start && bytes[stop - 1] === 0x0d ? stop - 1 : stop;
+      if (this.endedRows !== null || this.pendingOrder !== 0 || this.rows?.full) await this.settle();
+      if (this.lineNumber === ARPA_LINES_MAX) throw this.error(`more than ${ARPA_LINES_MAX} lines`);
+      this.lineNumber++;
+      if (!(this.state === 'ngrams' && this.byteEntry(bytes, start, lineEnd))) this.line(bytes.toString('utf8', start, lineEnd).trim());
+      start = stop + 1;
+    }
+    await this.settle();
+  }
+
+  /**
+   * An n-gram line of order ≥ 2 read from its bytes: what `entry` does, for a line that is
+   * well-formed. Returns false, changing nothing, for anything else (a blank or section line, a
+   * field count or value or word that `entry` would refuse), which the caller then reads as text:
+   * the errors are `entry`'s. Fields are split at ASCII white space only; a line with other white
+   * space that `\s` splits at (U+00A0, U+3000, …) has a field that is no number and no word (the
+   * words come from unigram lines split at all of it), so it goes to the text path as well.
+   */
+  private byteEntry(bytes: Buffer, start: number, end: number): boolean {
+    const current = this.current as OrderProgress;
+    const n = current.order;
+    if (n < 2 || current.count >= current.declared) return false;
+    const fieldStart = this.fieldStart;
+    const fieldEnd = this.fieldEnd;
+    const hashes = this.fieldHash;
+    let fields = 0;
+    let i = start;
+    while (i < end && isAsciiSpace(bytes[i])) i++;
+    if (i === end || bytes[i] === 0x5c) return false;
+    while (i < end) {
+      if (fields === n + 2) return false;
+      fieldStart[fields] = i;
+      let hash = FNV_OFFSET;
+      for (; i < end; i++) {
+        const byte = bytes[i];
+        if (isAsciiSpace(byte)) break;
+        hash = Math.imul(hash ^ byte, FNV_PRIME);
+      }
+      fieldEnd[fields] = i;
+      hashes[fields] = hash;
+      fields++;
+      while (i < end && isAsciiSpace(bytes[i])) i++;
+    }
+    if (fields !== n + 1 && fields !== n + 2) return false;
+    if (fields === n + 2 && n === this.declared.length) return false;
+    const prob = log10ValueOfBytes(bytes, fieldStart[0], fieldEnd[0]);
+    const backOff = fields === n + 2 ? log10ValueOfBytes(bytes, fieldStart[n + 1], fieldEnd[n + 1]) : 0;
+    if (Number.isNaN(prob) || Number.isNaN(backOff)) return false;
+    const table = this.wordTable as WordTable;
+    const ids = this.ids;
+    for (let k = 0; k < n; k++) {
+      const id = table.find(bytes, fieldStart[k + 1], fieldEnd[k + 1], hashes[k + 1]);
+      if (id < 0 || (id === BOS_ID && k > 0)) return false;
+      ids[k] = id;
+    }
+    current.count++;
+    (this.rows as ArpaOrderRows).add(ids, prob, backOff, this.lineNumber);
+    return true;
   }
 
   /** Writes a full buffer out; sorts and checks an order that has ended, and only then (so that
@@ -554,6 +693,10 @@ class ArpaParser {
     if (!this.unigramIndex.has(UNK)) words.push(UNK);
     this.vocabularyWords = words;
     this.idOf = new Map(words.map((word, id) => [word, id]));
+    // The same words by their bytes, for the byte path: entries are given in order, so entry = id.
+    const table = WordTable.sizedFor(words.length);
+    words.forEach((word, id) => assert(table.internWord(word) === id, 'a word table entry is its word\'s id'));
+    this.wordTable = table;
   }
 
   /** The model source over what was read. */

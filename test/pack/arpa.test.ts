@@ -11,11 +11,12 @@ import { QuernError } from '../../src/errors.ts';
 import { countCorpus, sentenceIds, wordIdMap } from '../../src/estimate/counts.ts';
 import { logProb, type LanguageModel } from '../../src/estimate/model.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
-import { formatLog10, readArpa, writeArpa, writeArpaFile, type ArpaModelDescription } from '../../src/pack/arpa.ts';
+import { formatLog10, log10ValueOfBytes, readArpa, writeArpa, writeArpaFile, type ArpaModelDescription } from '../../src/pack/arpa.ts';
 import { openModel } from '../../src/pack/reader.ts';
 import { packModel } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { compareAlongSentences, expectClose, temporaryDirectory } from './support.ts';
+import { seededRandom } from '../support/seeded.ts';
 
 const { dir, remove } = temporaryDirectory('arpa');
 afterAll(remove);
@@ -53,6 +54,33 @@ test('values: 7 significant digits in plain decimal notation; −∞ as −99 (c
   expect(formatLog10(-1.234567891e-8)).toBe('-0.00000001234568');
   expect(formatLog10(0.000123456789)).toBe('0.0001234568');
   expect(formatLog10(Math.log10(0.4))).toBe('-0.39794');
+});
+
+test('values read from bytes are the doubles Number gives for their text (random decimals, and the odd forms the text path takes)', () => {
+  const random = seededRandom(34);
+  const textValue = (text: string): number => {
+    if (text === '-inf' || text === '-Infinity') return -Infinity;
+    const value = Number(text);
+    if (!Number.isFinite(value)) return NaN;
+    return value <= -99 ? -Infinity : value;
+  };
+  const texts = ['-0', '0', '-0.0', '1.', '.5', '-.5', '+2.25', '-99', '-99.0000001', '-98.9999999', '-100', '-inf', '-Infinity', 'Infinity', 'nan',
+    '.', '-', '1e-5', '-1.5E3', '0x10', '1..2', '123456789012345', '1234567890123456', '0.0000000000000000000001', '0.00000000000000000000001',
+    '-0.00000001234568', '-1.234568', '-12.34568', '0.0001234568', '00012.50', '1_0'];
+  for (let i = 0; i < 20_000; i++) {
+    const intDigits = Math.floor(random() * 4);
+    const fracDigits = Math.floor(random() * 20);
+    let text = random() < 0.7 ? '-' : '';
+    for (let d = 0; d < intDigits; d++) text += String(Math.floor(random() * 10));
+    if (fracDigits > 0 || intDigits === 0) text += '.';
+    for (let d = 0; d < fracDigits; d++) text += String(random() < 0.3 ? 0 : Math.floor(random() * 10));
+    texts.push(text);
+    texts.push(formatLog10(-random() * 10 ** (Math.floor(random() * 12) - 9)));
+  }
+  for (const text of texts) {
+    const bytes = Buffer.from(`  ${text}\t`, 'latin1');
+    expect(Object.is(log10ValueOfBytes(bytes, 2, 2 + text.length), textValue(text)), text).toBe(true);
+  }
 });
 
 const train = markovCorpus(31, 250, 35, 12);
@@ -198,6 +226,27 @@ describe('an ARPA file Quern did not write', () => {
     const packedPath = join(dir, 'hand.qm');
     await packModel(model, { fingerprint: '', floatBits: 64 }, nodeFs, packedPath);
     expectClose((await openModel(packedPath)).scoreSentence(['a', 'b']).log10Prob, -1.7, 1e-12);
+  });
+
+  test('white space, line ends, a byte-order mark and -inf do not change what is read; words may be any UTF-8 (n-gram lines are read from their bytes, the rest as text)', async () => {
+    const canonical = [
+      '\\data\\', 'ngram 1=5', 'ngram 2=4', 'ngram 3=2', '',
+      '\\1-grams:', '-1.0\t</s>', '-99\t<s>\t-0.5', '-0.6\tcafé\t-0.2', '-0.7\t日本\t-0.1', '-0.8\tb', '',
+      '\\2-grams:', '-0.3\t<s> café\t-0.05', '-0.4\tcafé 日本\t-0.07', '-0.25\t日本 </s>', '-0.5\tcafé b', '',
+      '\\3-grams:', '-99\t<s> café 日本', '-0.1\tcafé 日本 </s>', '', '\\end\\', '',
+    ].join('\n');
+    const odd = '\ufeff' + [
+      '\\data\\', 'ngram 1=5', 'ngram 2=4', 'ngram 3=2', '',
+      '\\1-grams:', '-1.0 </s>', '-99\t<s>  -0.5', '-0.6\tcafé\t-0.2 ', '  -0.7 日本 -0.1', '-0.8\tb', '   ',
+      '\\2-grams:', '-0.30   <s>\tcafé\t-0.05', ' -0.4 café 日本 -0.07\t', '-0.25\u00a0日本 </s>', '-0.5\tcafé\u3000b', '',
+      '\\3-grams:', '-inf <s> café\t日本', '-0.1\tcafé 日本 </s>\u00a0', '', '\\end\\', '',
+    ].join('\r\n');
+    const description = { ...DESCRIPTION, cutoffs: [1, 1, 1] };
+    const expected = await readArpa(arpaFile(canonical), { description });
+    expect(expected.vocabulary.words).toEqual(['<s>', '</s>', 'café', '日本', 'b', '<unk>']);
+    expect(expected.orders[2].log10Prob[0]).toBe(-Infinity);
+    expectClose(logProb(expected, [2, 3], 1).log10Prob, -0.1, 1e-12);
+    expect(await readArpa(arpaFile(odd), { description })).toEqual(expected);
   });
 
   test('bad files: a QuernError naming the file and line', async () => {

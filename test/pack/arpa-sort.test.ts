@@ -7,7 +7,8 @@
  * shuffled file into the same bytes as the file in order. A gzipped ARPA file reads as its text (and
  * `writeArpaFile` writes one for a .gz name); damaged gzip data stops the read.
  */
-import { existsSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { gunzipSync } from 'node:zlib';
 import { join } from 'node:path';
 import { afterAll, describe, expect, test } from 'vitest';
 import { packCommand } from '../../src/cli/pack.ts';
@@ -178,7 +179,6 @@ describe('errors found by the sort name the line, and leave no files', () => {
 
 test('quern pack --memory: a shuffled file packs into the bytes of the file in order; no temporary file is left', async () => {
   const folder = join(dir, 'cli');
-  const { mkdirSync } = await import('node:fs');
   mkdirSync(folder);
   const shuffled = join(folder, 'shuffled.arpa');
   writeFileSync(shuffled, shuffleSections(sortedText, 74));
@@ -195,14 +195,17 @@ test('quern pack --memory: a shuffled file packs into the bytes of the file in o
 });
 
 describe('gzip', () => {
-  test('export to a .gz name writes the ARPA text gzipped; reading and packing it give what the plain file gives', async () => {
-    const { gunzipSync } = await import('node:zlib');
-    const folder = join(dir, 'gzip');
-    const { mkdirSync } = await import('node:fs');
+  /** A new folder `name` holding the test model exported to model.arpa.gz. */
+  async function gzippedIn(name: string): Promise<{ folder: string; gz: string; bytes: Buffer }> {
+    const folder = join(dir, name);
     mkdirSync(folder);
     const gz = join(folder, 'model.arpa.gz');
     await writeArpaFile(model, nodeFs, gz);
-    const bytes = readFileSync(gz);
+    return { folder, gz, bytes: readFileSync(gz) };
+  }
+
+  test('export to a .gz name writes the ARPA text gzipped; reading and packing it give what the plain file gives', async () => {
+    const { folder, gz, bytes } = await gzippedIn('gzip');
     expect([bytes[0], bytes[1]]).toEqual([0x1f, 0x8b]);
     expect(gunzipSync(bytes).toString('utf8')).toBe(sortedText);
     expect(await readArpa(gz)).toEqual(await readArpa(sortedPath));
@@ -216,12 +219,7 @@ describe('gzip', () => {
   });
 
   test('a truncated or damaged gzip stream: an input error naming the file and the line reached; no file left', async () => {
-    const folder = join(dir, 'gzip-bad');
-    const { mkdirSync } = await import('node:fs');
-    mkdirSync(folder);
-    const gz = join(folder, 'model.arpa.gz');
-    await writeArpaFile(model, nodeFs, gz);
-    const bytes = readFileSync(gz);
+    const { folder, bytes } = await gzippedIn('gzip-bad');
     const truncated = join(folder, 'truncated.arpa.gz');
     writeFileSync(truncated, bytes.subarray(0, Math.floor(bytes.length * 0.6)));
     const damaged = join(folder, 'damaged.arpa.gz');

@@ -46,12 +46,13 @@ import { vocabularySize } from '../estimate/counts.ts';
 import { checkModel, type LanguageModel, type MethodParameters } from '../estimate/model.ts';
 import { materialiseModel, modelSource, type ModelHeader, type ModelRowBatch, type ModelSource } from '../estimate/model-source.ts';
 import { rowsWithChildren } from './child-counts.ts';
+import { Log10Texts, LOG10_TEXT_MAX, TextOut, WordArena } from './arpa-text.ts';
 import { FNV_OFFSET, FNV_PRIME, WordTable } from '../corpus/word-table.ts';
 import { ArpaOrderRows, readBlocks, type ArpaRowsFile, type ArpaSpoolMaker } from './arpa-rows.ts';
 import { Spool } from './spool.ts';
 import { nodeFs, writeFileThrough, type StageFs } from '../job/fsio.ts';
 import { openForReading } from '../job/file-read.ts';
-import { ARPA_GZIP_LEVEL, ARPA_LINES_MAX, ARPA_LOG10_ZERO, DEFLATE_RATIO_MAX, ARPA_SIGNIFICANT_DIGITS, ARPA_SORT_BYTES_DEFAULT, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
+import { ARPA_GZIP_LEVEL, ARPA_LINES_MAX, ARPA_LOG10_ZERO, DEFLATE_RATIO_MAX, ARPA_SORT_BYTES_DEFAULT, LINE_BYTES_MAX, ORDER_MAX, READ_BLOCK_BYTES } from '../limits.ts';
 
 /** What Quern records about a model beside its ARPA tables (the `quern-model` line). */
 export interface ArpaModelDescription {
@@ -67,25 +68,7 @@ export interface ArpaModelDescription {
 /** Prefix of the description line before `\data\`. */
 const DESCRIPTION_PREFIX = 'quern-model ';
 
-/** Lines per write call. */
-const LINES_PER_WRITE = 4096;
-
-/**
- * A log10 value as written: ARPA_SIGNIFICANT_DIGITS significant digits in plain decimal notation
- * (no exponent), trailing zeros dropped; −∞ as ARPA_LOG10_ZERO.
- */
-export function formatLog10(value: number): string {
-  if (value === -Infinity) return String(ARPA_LOG10_ZERO);
-  if (!Number.isFinite(value)) assert(false, `a log10 value to write is finite or −∞ (got ${value})`);
-  let text = value.toPrecision(ARPA_SIGNIFICANT_DIGITS);
-  if (text.includes('e')) {
-    const rounded = Number(text);
-    const exponent = Math.floor(Math.log10(Math.abs(rounded)));
-    text = rounded.toFixed(Math.min(100, Math.max(0, ARPA_SIGNIFICANT_DIGITS - 1 - exponent)));
-  }
-  if (text.includes('.')) text = text.replace(/0+$/, '').replace(/\.$/, '');
-  return text === '-0' ? '0' : text;
-}
+export { formatLog10 } from './arpa-text.ts';
 
 /**
  * Writes `model` to `out` in the ARPA format (module comment), honouring back-pressure; resolves
@@ -108,7 +91,7 @@ export async function writeArpaSource(source: ModelSource, out: NodeJS.WritableS
   for (const word of words) {
     if (word.length === 0 || /\s/.test(word)) throw new QuernError('input', `the word ${JSON.stringify(word)} is empty or contains white space, which the ARPA format cannot hold`);
   }
-  const put = async (text: string): Promise<void> => {
+  const put = async (text: string | Buffer): Promise<void> => {
     const errored = (out as Partial<Writable>).errored;
     if (errored) throw errored;
     if (!out.write(text)) await drained(out);
@@ -121,31 +104,50 @@ export async function writeArpaSource(source: ModelSource, out: NodeJS.WritableS
     vocabularyCap: model.vocabularyCap,
     ...(model.normalize === undefined ? {} : { normalize: model.normalize }),
   };
-  let text = 'Written by Quern. ARPA readers skip the text before \\data\\; the next line tells Quern how the model was estimated.\n';
-  text += `${DESCRIPTION_PREFIX}${JSON.stringify(description)}\n\n\\data\\\n`;
-  source.rowCounts.forEach((rows, index) => (text += `ngram ${index + 1}=${rows}\n`));
-  await put(text);
+  let header = 'Written by Quern. ARPA readers skip the text before \\data\\; the next line tells Quern how the model was estimated.\n';
+  header += `${DESCRIPTION_PREFIX}${JSON.stringify(description)}\n\n\\data\\\n`;
+  source.rowCounts.forEach((rows, index) => (header += `ngram ${index + 1}=${rows}\n`));
+  await put(header);
 
+  // Lines are put together from the words' UTF-8 bytes and the values' texts (arpa-text.ts).
+  const arena = new WordArena(words);
+  const wordBytes = arena.bytes;
+  const wordStarts = arena.starts;
+  const text = new TextOut(put);
+  const values = new Log10Texts();
   for (let n = 1; n <= model.order; n++) {
-    let lines: string[] = [`\n\\${n}-grams:`];
+    if (!text.has(32)) await text.makeRoom(32);
+    text.latin1(`\n\\${n}-grams:\n`);
+    const lineMax = n * (arena.longest + 1) + 2 * (LOG10_TEXT_MAX + 1) + 1;
     let row = 0;
     // Rows that are contexts of the next order (they have children) carry a back-off weight.
     for await (const { batch, counts } of rowsWithChildren(source, n)) {
+      const ids = batch.ids;
       for (let i = 0; i < batch.rows; i++, row++) {
-        let ngram = words[batch.ids[i * n]];
-        for (let j = 1; j < n; j++) ngram += ' ' + words[batch.ids[i * n + j]];
-        const prob = n === 1 && row === BOS_ID ? -Infinity : batch.log10Prob[i];
-        lines.push(counts[i] > 0 ? `${formatLog10(prob)}\t${ngram}\t${formatLog10(batch.log10BackOff[i])}` : `${formatLog10(prob)}\t${ngram}`);
-        if (lines.length >= LINES_PER_WRITE) {
-          await put(lines.join('\n') + '\n');
-          lines = [];
+        if (!text.has(lineMax)) await text.makeRoom(lineMax);
+        text.latin1(values.of(n === 1 && row === BOS_ID ? -Infinity : batch.log10Prob[i]));
+        text.byte(TAB);
+        for (let j = 0; j < n; j++) {
+          const id = ids[i * n + j];
+          if (j > 0) text.byte(SPACE);
+          text.bytes(wordBytes, wordStarts[id], wordStarts[id + 1]);
         }
+        if (counts[i] > 0) {
+          text.byte(TAB);
+          text.latin1(values.of(batch.log10BackOff[i]));
+        }
+        text.byte(NEWLINE);
       }
     }
-    if (lines.length > 0) await put(lines.join('\n') + '\n');
   }
-  await put('\n\\end\\\n');
+  if (!text.has(16)) await text.makeRoom(16);
+  text.latin1('\n\\end\\\n');
+  await text.flush();
 }
+
+const TAB = 0x09;
+const SPACE = 0x20;
+const NEWLINE = 0x0a;
 
 /** Resolves when `out` drains; rejects when it fails or closes first. */
 function drained(out: NodeJS.WritableStream): Promise<void> {

@@ -17,6 +17,7 @@ import { packModel } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { compareAlongSentences, expectClose, temporaryDirectory } from './support.ts';
 import { seededRandom } from '../support/seeded.ts';
+import { Log10Texts } from '../../src/pack/arpa-text.ts';
 
 const { dir, remove } = temporaryDirectory('arpa');
 afterAll(remove);
@@ -54,6 +55,14 @@ test('values: 7 significant digits in plain decimal notation; −∞ as −99 (c
   expect(formatLog10(-1.234567891e-8)).toBe('-0.00000001234568');
   expect(formatLog10(0.000123456789)).toBe('0.0001234568');
   expect(formatLog10(Math.log10(0.4))).toBe('-0.39794');
+});
+
+test('the writer\'s cache of formatted values gives formatLog10\'s text for every value, through collisions and repeats', () => {
+  const random = seededRandom(35);
+  const texts = new Log10Texts();
+  const values = [0, -0, -Infinity, -99, -1e-30, -123.456];
+  for (let i = 0; i < 100_000; i++) values.push(-random() * 10 ** (Math.floor(random() * 8) - 4), values[Math.floor(random() * values.length)]);
+  for (const value of values) expect(texts.of(value)).toBe(formatLog10(value));
 });
 
 test('values read from bytes are the doubles Number gives for their text (random decimals, and the odd forms the text path takes)', () => {
@@ -247,6 +256,10 @@ describe('an ARPA file Quern did not write', () => {
     expect(expected.orders[2].log10Prob[0]).toBe(-Infinity);
     expectClose(logProb(expected, [2, 3], 1).log10Prob, -0.1, 1e-12);
     expect(await readArpa(arpaFile(odd), { description })).toEqual(expected);
+    // Written back (the words from their UTF-8 bytes) and read again: the same model.
+    const written = await toArpa(expected);
+    expect(readFileSync(written, 'utf8')).toContain('\n-0.4\tcafé 日本\t-0.07\n');
+    expect(await readArpa(written)).toEqual(expected);
   });
 
   test('bad files: a QuernError naming the file and line', async () => {

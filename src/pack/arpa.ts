@@ -186,7 +186,10 @@ export async function writeArpaFile(model: LanguageModel | ModelSource, fs: Stag
     // A name ending in .gz: the text gzip-compressed on its way to the file.
     const out = filePath.endsWith('.gz') ? createGzip({ level: ARPA_GZIP_LEVEL }) : toFile;
     if (out !== toFile) {
+      // A failure on either side ends both (a write that fails on disk must not leave the writer
+      // waiting for gzip to drain).
       out.on('error', (error) => toFile.destroy(error));
+      toFile.on('error', (error) => out.destroy(error));
       out.pipe(toFile);
     }
     await ('rows' in model ? writeArpaSource(model, out) : writeArpa(model, out));

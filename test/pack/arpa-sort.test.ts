@@ -15,7 +15,7 @@ import { packCommand } from '../../src/cli/pack.ts';
 import { QuernError } from '../../src/errors.ts';
 import { countCorpus } from '../../src/estimate/counts.ts';
 import { materialiseModel } from '../../src/estimate/model-source.ts';
-import { nodeFs } from '../../src/job/fsio.ts';
+import { faultyFs, nodeFs } from '../../src/job/fsio.ts';
 import { openArpaSource, readArpa, writeArpaFile } from '../../src/pack/arpa.ts';
 import { Spool } from '../../src/pack/spool.ts';
 import { ARPA_BLOCK_ROWS, ARPA_SORT_ROWS_MIN } from '../../src/limits.ts';
@@ -216,6 +216,32 @@ describe('gzip', () => {
     await run(['pack', renamed, '--out', join(folder, 'from-gzip.qm')]);
     await run(['pack', sortedPath, '--out', join(folder, 'from-text.qm')]);
     expect(readFileSync(join(folder, 'from-gzip.qm')).equals(readFileSync(join(folder, 'from-text.qm')))).toBe(true);
+  });
+
+  test('a file system that fails while gzip output is written: an io error each time, never a hang, and no partial file left', async () => {
+    const folder = join(dir, 'gzip-faults');
+    mkdirSync(folder);
+    const target = join(folder, 'model.arpa.gz');
+    let failures = 0;
+    for (let operations = 0; ; operations++) {
+      const fs = faultyFs(nodeFs, { failAfterOperations: operations, mode: 'once', errno: 'ENOSPC' });
+      const error = await writeArpaFile(model, fs, target).then(() => null, (caught: unknown) => caught);
+      if (fs.operations() <= operations) {
+        expect(error).toBeNull(); // no fault was injected: it succeeded
+        break;
+      }
+      expect(error).toBeInstanceOf(QuernError);
+      expect((error as QuernError).code).toBe('io');
+      // No temporary file; the file itself only when the failure came after its rename, whole.
+      const left = readdirSync(folder);
+      expect(left.filter((name) => name !== 'model.arpa.gz')).toEqual([]);
+      if (left.length > 0) expect(gunzipSync(readFileSync(target)).toString('utf8')).toBe(sortedText);
+      failures++;
+    }
+    // The create, writes (the text is larger than gzip's buffers, so the writer is held back by
+    // them while a write fails), the sync, the rename and the folder's sync.
+    expect(failures).toBeGreaterThanOrEqual(5);
+    expect(gunzipSync(readFileSync(target)).toString('utf8')).toBe(sortedText);
   });
 
   test('a truncated or damaged gzip stream: an input error naming the file and the line reached; no file left', async () => {

@@ -19,9 +19,9 @@ export function formatPackSummary(summary: PackSummary): string {
 
 export const packCommand: CommandModule = {
   command: 'pack <arpa>',
-  describe: 'Pack a model in the ARPA format (as quern export writes it) into one memory-mappable model file',
+  describe: 'Pack a model in the ARPA format into one memory-mappable model file',
   builder: (yargs) => yargs
-    .positional('arpa', { type: 'string', describe: 'ARPA file written by quern export (it records how the model was estimated); plain or gzip' })
+    .positional('arpa', { type: 'string', describe: 'ARPA file, plain or gzip: one written by quern export (it records how the model was estimated), or by another program (packed as a back-off model of log10 probabilities, method "imported")' })
     .option('out', { type: 'string', demandOption: true, describe: 'The model file to write (atomically)' })
     .option('quant', { type: 'number', choices: [8, 16], describe: 'Quantise log10 probabilities and back-off weights to 8 or 16 bits (codebooks fitted per order)' })
     .option('float', { type: 'number', choices: [32, 64], describe: 'Store unquantised values as float32 (default) or float64' })
@@ -38,7 +38,10 @@ export const packCommand: CommandModule = {
     if (argv.float !== undefined) options.floatBits = argv.float as 32 | 64;
     const summary = await withPackCleanup(out, async () => {
       // The ARPA file's orders ≥ 2, sorted into id order in temporary files beside the model.
-      const source = await openArpaSource(argv.arpa as string, (n, name) => Spool.create(stageFs(), `${out}.${process.pid}.arpa-o${n}-${name}.tmp`), { sortBytes });
+      const source = await openArpaSource(argv.arpa as string, (n, name) => Spool.create(stageFs(), `${out}.${process.pid}.arpa-o${n}-${name}.tmp`), { sortBytes, imported: true });
+      if (source.header.parameters.method === 'imported') {
+        process.stderr.write(`quern: ${argv.arpa as string} does not say how it was estimated (no quern-model line): packed as what the format says, a back-off model of log10 probabilities, method "imported"\n`);
+      }
       try {
         return await packModelSource(source, options, stageFs(), out);
       } finally {

@@ -115,7 +115,9 @@ export type MethodParameters =
   | { method: 'witten-bell' }
   | { method: 'jelinek-mercer'; weights: InterpolationWeights }
   | { method: 'stupid-backoff'; alpha: number }
-  | { method: 'uniform' };
+  | { method: 'uniform' }
+  /** A back-off model read from an ARPA file that does not say how it was estimated. */
+  | { method: 'imported' };
 
 /** One order of a model (see the module comment). */
 export interface ModelOrder {

@@ -208,6 +208,18 @@ export interface ArpaReadOptions {
   description?: ArpaModelDescription;
   /** Bytes for sorting one order's n-grams in memory (arpa-rows.ts); default ARPA_SORT_BYTES_DEFAULT. */
   sortBytes?: number;
+  /**
+   * For a file without a `quern-model` line and no `description`: read it as what the format
+   * itself says, a back-off model of log10 probabilities (normalised, a context never seen backs
+   * off with weight 1), with method `imported`, no cutoffs and no vocabulary cap. Without this (or
+   * a description), reading such a file fails.
+   */
+  imported?: boolean;
+}
+
+/** What `imported` assumes of an ARPA file of order `order` that does not describe itself. */
+export function importedDescription(order: number): ArpaModelDescription {
+  return { normalised: true, log10UnseenContextWeight: 0, parameters: { method: 'imported' }, cutoffs: Array.from({ length: order }, () => 1), vocabularyCap: null };
 }
 
 /** An ARPA file read as a model source, its orders ≥ 2 sorted into files; `remove` deletes them. */
@@ -249,7 +261,7 @@ export async function openArpaSource(filePath: string, spools: ArpaSpoolMaker, o
       carry = Buffer.from(bytes.subarray(last + 1));
     }
     if (carry.length > 0) await parser.block(carry, carry.length, decoder);
-    return await parser.finish(options.description);
+    return await parser.finish(options.description, options.imported === true);
   } catch (error) {
     await parser?.remove();
     throw error;
@@ -705,14 +717,14 @@ class ArpaParser {
   }
 
   /** The model source over what was read. */
-  async finish(given: ArpaModelDescription | undefined): Promise<ArpaSource> {
+  async finish(given: ArpaModelDescription | undefined, imported: boolean): Promise<ArpaSource> {
     if (this.state !== 'end') throw this.error(this.state === 'preamble' ? 'no \\data\\ line: not an ARPA file' : 'the file ends before \\end\\');
     assert(this.endedRows === null && this.rows === null && this.pendingOrder === 0, 'every order is sorted at \\end\\');
-    const description = this.description ?? given;
-    if (description === undefined) {
-      throw new QuernError('input', `${this.file}: no quern-model line says how this model was estimated; pass the description option (method, parameters, cutoffs) to read a model Quern did not write`, { location: { file: this.file } });
-    }
     const order = this.ended.length;
+    const description = this.description ?? given ?? (imported ? importedDescription(order) : undefined);
+    if (description === undefined) {
+      throw new QuernError('input', `${this.file}: no quern-model line says how this model was estimated; pass the description option (method, parameters, cutoffs) or imported: true to read a model Quern did not write`, { location: { file: this.file } });
+    }
     if (description.cutoffs.length !== order) throw new QuernError('input', `${this.file}: the description gives ${description.cutoffs.length} cutoffs for a model of order ${order}`, { location: { file: this.file } });
     const words = this.vocabularyWords;
     const idOf = this.idOf as Map<string, number>;

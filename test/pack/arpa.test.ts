@@ -6,7 +6,9 @@
 import { createWriteStream, readFileSync, writeFileSync } from 'node:fs';
 import { once } from 'node:events';
 import { join } from 'node:path';
-import { afterAll, describe, expect, test } from 'vitest';
+import { afterAll, describe, expect, test, vi } from 'vitest';
+import { packCommand } from '../../src/cli/pack.ts';
+import { runCommandsInProcess } from '../support/in-process.ts';
 import { QuernError } from '../../src/errors.ts';
 import { countCorpus, sentenceIds, wordIdMap } from '../../src/estimate/counts.ts';
 import { logProb, type LanguageModel } from '../../src/estimate/model.ts';
@@ -235,6 +237,31 @@ describe('an ARPA file Quern did not write', () => {
     const packedPath = join(dir, 'hand.qm');
     await packModel(model, { fingerprint: '', floatBits: 64 }, nodeFs, packedPath);
     expectClose((await openModel(packedPath)).scoreSentence(['a', 'b']).log10Prob, -1.7, 1e-12);
+  });
+
+  test('imported: without a description, read as what the format says (method imported, probabilities, no cutoffs); quern pack does so and says it', async () => {
+    const path = arpaFile(HAND);
+    const model = await readArpa(path, { imported: true });
+    expect(model.parameters).toEqual({ method: 'imported' });
+    expect([model.normalised, model.log10UnseenContextWeight, model.cutoffs, model.vocabularyCap]).toEqual([true, 0, [1, 1], null]);
+    // A description, given or in the file, wins.
+    expect((await readArpa(path, { imported: true, description: DESCRIPTION })).parameters).toEqual({ method: 'witten-bell' });
+    const packed = join(dir, 'imported.qm');
+    const notes: string[] = [];
+    vi.spyOn(process.stderr, 'write').mockImplementation((chunk: string | Uint8Array) => {
+      notes.push(String(chunk));
+      return true;
+    });
+    try {
+      expect(await runCommandsInProcess([packCommand], ['pack', path, '--out', packed])).toMatch(/^packed .*imported\.qm: order 2, n-grams 5 \+ 3/);
+    } finally {
+      vi.restoreAllMocks();
+    }
+    expect(notes.join('')).toMatch(/does not say how it was estimated \(no quern-model line\): packed as .* method "imported"/);
+    const opened = await openModel(packed);
+    expect(opened.parameters).toEqual({ method: 'imported' });
+    // "a b": p(a|<s>) + p(b|a) + p(</s>|b) = −0.3 − 0.4 − 1.0, as in the test above.
+    expectClose(opened.scoreSentence(['a', 'b']).log10Prob, -1.7, 1e-6);
   });
 
   test('white space, line ends, a byte-order mark and -inf do not change what is read; words may be any UTF-8 (n-gram lines are read from their bytes, the rest as text)', async () => {

@@ -72,3 +72,36 @@ export function scatterRows(
       }
   }
 }
+
+/**
+ * Sorts rows 0..count−1 of `rows` (rows of `stride` 32-bit words) by the words at `columns`, the
+ * first most significant: an LSD radix sort with digits of `digitBits` bits, stable, as many passes
+ * per column as its largest value needs. `spare` is a second array of the same size; returns the
+ * one that holds the sorted rows (`rows` or `spare`).
+ */
+export function sortRowsByColumns(
+  rows: Uint32Array, spare: Uint32Array, count: number, stride: number, columns: readonly number[], digitBits: number,
+): Uint32Array {
+  const digits = 1 << digitBits;
+  const offsets = new Uint32Array(digits);
+  let source = rows;
+  let target = spare;
+  for (let c = columns.length - 1; c >= 0; c--) {
+    const column = columns[c];
+    let max = 0;
+    for (let row = 0; row < count; row++) if (source[row * stride + column] > max) max = source[row * stride + column];
+    for (let shift = 0; shift < 32 && (shift === 0 || max >>> shift !== 0); shift += digitBits) {
+      offsets.fill(0);
+      for (let row = 0; row < count; row++) offsets[(source[row * stride + column] >>> shift) & (digits - 1)]++;
+      let sum = 0;
+      for (let d = 0; d < digits; d++) {
+        const digitCount = offsets[d];
+        offsets[d] = sum;
+        sum += digitCount;
+      }
+      scatterRows(source, target, 0, count, stride, column, shift, digits - 1, offsets);
+      [source, target] = [target, source];
+    }
+  }
+  return source;
+}

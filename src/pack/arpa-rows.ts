@@ -21,7 +21,8 @@
  */
 import { assert, QuernError } from '../errors.ts';
 import { ARPA_BLOCK_ROWS, ARPA_SORT_ROWS_MIN } from '../limits.ts';
-import { scatterRows } from '../count/radix.ts';
+import { sortRowsByColumns } from '../count/radix.ts';
+import { compareRows } from '../count/block-codec.ts';
 import type { Spool } from './spool.ts';
 
 /** Makes the spool named `name` for order n. */
@@ -175,15 +176,6 @@ class RowCursor {
   }
 }
 
-/** Compares the n ids at `a[i..]` and `b[j..]`. */
-function compareIds(a: Uint32Array, i: number, b: Uint32Array, j: number, n: number): number {
-  for (let k = 0; k < n; k++) {
-    const d = a[i + k] - b[j + k];
-    if (d !== 0) return d;
-  }
-  return 0;
-}
-
 /**
  * The rows of one order as they are read: `add` them (while `full` is false), `flush` when full,
  * and `finish` at the order's end for the sorted, checked file.
@@ -202,6 +194,8 @@ export class ArpaOrderRows {
   /** Whether every row so far came after the one before it. */
   private ascending = true;
   private readonly last: Uint32Array;
+  /** The columns of a buffered row that hold its ids (the last holds its index). */
+  private readonly idColumns: number[];
   /** The run the ascending buffers are appended to, while they are. */
   private direct: BlockWriter | null = null;
   private directFile: ArpaRowsFile | null = null;
@@ -220,6 +214,7 @@ export class ArpaOrderRows {
     this.backOff = new Float64Array(this.capacity);
     this.lines = new Uint32Array(this.capacity);
     this.last = new Uint32Array(n);
+    this.idColumns = Array.from({ length: n }, (_, i) => i);
   }
 
   get full(): boolean {
@@ -229,7 +224,7 @@ export class ArpaOrderRows {
   add(ids: Uint32Array, prob: number, backOff: number, line: number): void {
     assert(this.buffered < this.capacity, 'rows are added while the buffer has room');
     const n = this.n;
-    if (this.ascending && this.count > 0 && compareIds(this.last, 0, ids, 0, n) >= 0) this.ascending = false;
+    if (this.ascending && this.count > 0 && compareRows(this.last, 0, ids, 0, n) >= 0) this.ascending = false;
     if (this.ascending) this.last.set(ids.subarray(0, n));
     const row = this.buffered++;
     const base = row * this.stride;
@@ -265,7 +260,7 @@ export class ArpaOrderRows {
     for (let i = 0; i < this.buffered; i++) {
       const base = i * stride;
       const row = this.rows[base + n];
-      if (i > 0 && compareIds(this.rows, base - stride, this.rows, base, n) === 0) {
+      if (i > 0 && compareRows(this.rows, base - stride, this.rows, base, n) === 0) {
         this.duplicate(this.rows, base, Math.max(this.lines[row], this.lines[this.rows[base - stride + n]]));
       }
       if (writer.add(this.rows, base, this.lines[row], this.prob[row], this.backOff[row])) await writer.flush();
@@ -317,27 +312,8 @@ export class ArpaOrderRows {
   /** Sorts the buffered rows by their ids (LSD radix, 8-bit digits; stable, so equal rows keep
    *  the order they came in). */
   private sort(): void {
-    const n = this.n;
-    const stride = this.stride;
-    const count = this.buffered;
-    const digits = 1 << SORT_DIGIT_BITS;
-    const offsets = new Uint32Array(digits);
-    for (let column = n - 1; column >= 0; column--) {
-      let max = 0;
-      for (let row = 0; row < count; row++) if (this.rows[row * stride + column] > max) max = this.rows[row * stride + column];
-      for (let shift = 0; shift < 32 && (shift === 0 || max >>> shift !== 0); shift += SORT_DIGIT_BITS) {
-        offsets.fill(0);
-        for (let row = 0; row < count; row++) offsets[(this.rows[row * stride + column] >>> shift) & (digits - 1)]++;
-        let sum = 0;
-        for (let d = 0; d < digits; d++) {
-          const c = offsets[d];
-          offsets[d] = sum;
-          sum += c;
-        }
-        scatterRows(this.rows, this.spare, 0, count, stride, column, shift, digits - 1, offsets);
-        [this.rows, this.spare] = [this.spare, this.rows];
-      }
-    }
+    const sorted = sortRowsByColumns(this.rows, this.spare, this.buffered, this.stride, this.idColumns, SORT_DIGIT_BITS);
+    if (sorted !== this.rows) [this.rows, this.spare] = [this.spare, this.rows];
   }
 
   /** k-way merge of sorted runs into one file (a binary heap of cursors). */
@@ -353,7 +329,7 @@ export class ArpaOrderRows {
       const less = (a: RowCursor, b: RowCursor): boolean => {
         const blockA = a.block as Block;
         const blockB = b.block as Block;
-        const d = compareIds(blockA.ids, a.row * n, blockB.ids, b.row * n, n);
+        const d = compareRows(blockA.ids, a.row * n, blockB.ids, b.row * n, n);
         return d < 0 || (d === 0 && blockA.lines[a.row] < blockB.lines[b.row]);
       };
       const down = (from: number): void => {
@@ -376,7 +352,7 @@ export class ArpaOrderRows {
         const block = top.block as Block;
         const at = top.row * n;
         const line = block.lines[top.row];
-        if (writer.rows > 0 && compareIds(previous, 0, block.ids, at, n) === 0) this.duplicate(block.ids, at, Math.max(line, previousLine));
+        if (writer.rows > 0 && compareRows(previous, 0, block.ids, at, n) === 0) this.duplicate(block.ids, at, Math.max(line, previousLine));
         previous.set(block.ids.subarray(at, at + n));
         previousLine = line;
         if (writer.add(block.ids, at, line, block.prob[top.row], block.backOff[top.row])) await writer.flush();
@@ -412,7 +388,7 @@ export class ArpaOrderRows {
         const block = rows.block as Block;
         const at = rows.row * n;
         let d = -1;
-        while (haveContext && (d = compareIds((contexts.block as Block).ids, contexts.row * (n - 1), block.ids, at, n - 1)) < 0) haveContext = contexts.step() || (await contexts.next());
+        while (haveContext && (d = compareRows((contexts.block as Block).ids, contexts.row * (n - 1), block.ids, at, n - 1)) < 0) haveContext = contexts.step() || (await contexts.next());
         if (!haveContext || d !== 0) {
           throw this.context.error(`the n-gram "${this.context.ngramText(block.ids, at, n)}" has no (n−1)-gram "${this.context.ngramText(block.ids, at, n - 1)}" for its context`, block.lines[rows.row]);
         }

@@ -58,8 +58,9 @@ export class WordArena {
   }
 }
 
-/** Entries of the cache of formatted values: a power of two. */
-const LOG10_TEXTS_SLOTS = 1 << 14;
+/** Entries of the cache of formatted values: 2^LOG10_TEXTS_SLOT_BITS. */
+const LOG10_TEXTS_SLOT_BITS = 14;
+const LOG10_TEXTS_SLOTS = 1 << LOG10_TEXTS_SLOT_BITS;
 
 /** `formatLog10` with a direct-mapped cache keyed by the value's bits. */
 export class Log10Texts {
@@ -70,7 +71,7 @@ export class Log10Texts {
 
   of(value: number): string {
     this.scratch[0] = value;
-    const slot = Math.imul(this.scratchBits[0] ^ Math.imul(this.scratchBits[1], 0x85ebca6b), 0x9e3779b1) >>> (32 - Math.log2(LOG10_TEXTS_SLOTS));
+    const slot = Math.imul(this.scratchBits[0] ^ Math.imul(this.scratchBits[1], 0x85ebca6b), 0x9e3779b1) >>> (32 - LOG10_TEXTS_SLOT_BITS);
     // −0 and 0 share a key (===) and a text ('0'); NaN is never a key (formatLog10 refuses it).
     if (this.keys[slot] === value) return this.texts[slot];
     const text = formatLog10(value);

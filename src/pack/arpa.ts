@@ -247,7 +247,6 @@ export async function openArpaSource(filePath: string, spools: ArpaSpoolMaker, o
     // The text a gzip file holds is at most DEFLATE_RATIO_MAX times its size: the bound on what
     // `\data\` may declare.
     parser = new ArpaParser(filePath, gzip ? fileBytes * DEFLATE_RATIO_MAX : fileBytes, sortBytes, spools);
-    const decoder = new TextDecoder('utf-8', { fatal: true });
     let carry: Buffer = Buffer.alloc(0);
     for await (const block of textBlocks(handle, filePath, gzip, () => (parser as ArpaParser).lineNumber + 1)) {
       const bytes = carry.length === 0 ? block : Buffer.concat([carry, block]);
@@ -257,10 +256,10 @@ export async function openArpaSource(filePath: string, spools: ArpaSpoolMaker, o
         carry = Buffer.from(bytes);
         continue;
       }
-      await parser.block(bytes, last, decoder);
+      await parser.block(bytes, last);
       carry = Buffer.from(bytes.subarray(last + 1));
     }
-    if (carry.length > 0) await parser.block(carry, carry.length, decoder);
+    if (carry.length > 0) await parser.block(carry, carry.length);
     return await parser.finish(options.description, options.imported === true);
   } catch (error) {
     await parser?.remove();
@@ -330,30 +329,16 @@ export async function readArpa(filePath: string, options: ArpaReadOptions = {}):
   }
 }
 
-/** The lines of `bytes` (UTF-8, '\n'-separated, a '\r' before the '\n' dropped). */
-function decodeLines(decoder: TextDecoder, bytes: Uint8Array, parser: ArpaParser): string[] {
-  let text: string;
-  try {
-    text = decoder.decode(bytes);
-  } catch {
-    // Find the line for the message.
-    let line = parser.lineNumber;
-    let start = 0;
-    for (;;) {
-      line++;
-      const end = bytes.indexOf(0x0a, start);
-      try {
-        decoder.decode(bytes.subarray(start, end < 0 ? bytes.length : end));
-      } catch {
-        throw parser.error('not valid UTF-8', line);
-      }
-      if (end < 0) throw parser.error('not valid UTF-8', line);
-      start = end + 1;
-    }
+/** The error for `bytes` (whole lines that are not valid UTF-8, the first at the line after
+ *  `parser.lineNumber`): the first line that is not, named. */
+function utf8Error(bytes: Uint8Array, parser: ArpaParser): QuernError {
+  let line = parser.lineNumber;
+  for (let start = 0; ; ) {
+    line++;
+    const end = bytes.indexOf(0x0a, start);
+    if (end < 0 || !isUtf8(bytes.subarray(start, end))) return parser.error('not valid UTF-8', line);
+    start = end + 1;
   }
-  const lines = text.split('\n');
-  for (let i = 0; i < lines.length; i++) if (lines[i].endsWith('\r')) lines[i] = lines[i].slice(0, -1);
-  return lines;
 }
 
 /** ASCII white space as JavaScript's `\s` has it: tab, line feed, vertical tab, form feed, carriage
@@ -465,29 +450,15 @@ class ArpaParser {
     return new QuernError('input', `${this.file}:${line}: ${message}`, { location: { file: this.file, line } });
   }
 
-  /** Feeds `lines`, waiting for the sort whenever it needs to write. */
-  async lines(lines: string[]): Promise<void> {
-    for (const line of lines) {
-      if (this.endedRows !== null || this.pendingOrder !== 0 || this.rows?.full) await this.settle();
-      if (this.lineNumber === ARPA_LINES_MAX) throw this.error(`more than ${ARPA_LINES_MAX} lines`);
-      this.lineNumber++;
-      this.line(line.trim());
-    }
-    await this.settle();
-  }
-
   /**
    * Feeds the lines of bytes[0, end) (whole lines, '\n'-separated). The n-gram lines of orders ≥ 2
    * take the byte path (`byteEntry`: no string per line or word); every other line, and any n-gram
    * line the byte path does not take, is decoded and goes through `line` as text. Text that is not
-   * valid UTF-8 goes through `lines`, which names the line.
+   * valid UTF-8 stops the read at its first bad line.
    */
-  async block(bytes: Buffer, end: number, decoder: TextDecoder): Promise<void> {
-    if (!isUtf8(bytes.subarray(0, end))) {
-      await this.lines(decodeLines(decoder, bytes.subarray(0, end), this));
-      return;
-    }
-    // A byte-order mark at the start of the file is not text (TextDecoder drops it too).
+  async block(bytes: Buffer, end: number): Promise<void> {
+    if (!isUtf8(bytes.subarray(0, end))) throw utf8Error(bytes.subarray(0, end), this);
+    // A byte-order mark at the start of the file is not text.
     let start = this.lineNumber === 0 && end >= 3 && bytes[0] === 0xef && bytes[1] === 0xbb && bytes[2] === 0xbf ? 3 : 0;
     while (start <= end) {
       let stop = bytes.indexOf(0x0a, start);

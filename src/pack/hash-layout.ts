@@ -25,7 +25,7 @@
 import { assert } from '../errors.ts';
 import { maskFor } from './bits.ts';
 import { bitsFor } from './format.ts';
-import { scatterRows } from '../count/radix.ts';
+import { sortRowsByColumns } from '../count/radix.ts';
 
 /** Extra bits of z above those of the bucket count: 2^a ≥ 8·B, so that homes are close to uniform. */
 const MIX_BITS_ABOVE_BUCKETS = 3;
@@ -522,7 +522,7 @@ export class HashedOrderBuilder {
   }
 }
 
-/** Digits of the row-order sort (scatterRows): 16 bits a pass. */
+/** Digits of the row-order sort (sortRowsByColumns): 16 bits a pass. */
 const ROW_SORT_DIGIT_BITS = 16;
 
 /**
@@ -535,10 +535,8 @@ const ROW_SORT_DIGIT_BITS = 16;
  */
 export function rowOrder(table: HashedOrder, entries: number, contextRow: (context: number) => number): { slots: Uint32Array; rowOf: Int32Array } {
   const slotsTotal = table.layout.slots;
-  let triples = new Uint32Array(entries * 3);
+  const triples = new Uint32Array(entries * 3);
   let filled = 0;
-  let rowMax = 0;
-  let wordMax = 0;
   for (let slot = 0; slot < slotsTotal; slot++) {
     const word = table.wordAt(slot);
     if (word === 0) continue;
@@ -548,33 +546,15 @@ export function rowOrder(table: HashedOrder, entries: number, contextRow: (conte
     triples[filled * 3] = row;
     triples[filled * 3 + 1] = word;
     triples[filled * 3 + 2] = slot;
-    if (row > rowMax) rowMax = row;
-    if (word > wordMax) wordMax = word;
     filled++;
   }
   assert(filled === entries, `${entries} entries (found ${filled})`);
-  let spare = new Uint32Array(entries * 3);
-  const digits = 1 << ROW_SORT_DIGIT_BITS;
-  const offsets = new Uint32Array(digits);
-  // Least significant first: the word's digits, then the context row's.
-  for (const [word, max] of [[1, wordMax], [0, rowMax]] as const) {
-    for (let shift = 0; shift < 32 && (shift === 0 || max >>> shift !== 0); shift += ROW_SORT_DIGIT_BITS) {
-      offsets.fill(0);
-      for (let i = 0; i < entries; i++) offsets[(triples[i * 3 + word] >>> shift) & (digits - 1)]++;
-      let sum = 0;
-      for (let d = 0; d < digits; d++) {
-        const count = offsets[d];
-        offsets[d] = sum;
-        sum += count;
-      }
-      scatterRows(triples, spare, 0, entries, 3, word, shift, digits - 1, offsets);
-      [triples, spare] = [spare, triples];
-    }
-  }
+  // By context row, then word.
+  const sorted = sortRowsByColumns(triples, new Uint32Array(entries * 3), entries, 3, [0, 1], ROW_SORT_DIGIT_BITS);
   const slots = new Uint32Array(entries);
   const rowOf = new Int32Array(slotsTotal).fill(-1);
   for (let row = 0; row < entries; row++) {
-    const slot = triples[row * 3 + 2];
+    const slot = sorted[row * 3 + 2];
     slots[row] = slot;
     rowOf[slot] = row;
   }

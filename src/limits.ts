@@ -245,6 +245,12 @@ export const SCORE_LANES_MAX = 1 << 16;
  *  32 MB L3 cache), ×0.92 on a 35 MB one, ×1.09 on a 95 MB one and ×1.48 on the 3.26 GB one. */
 export const SCORE_BATCH_MODEL_BYTES_MIN = 64 << 20;
 
+/** Bytes of the line-aligned chunks `quern score` splits plain inputs into (its default
+ *  --chunk-size): the unit of work handed to a worker thread, and of the per-line records held until
+ *  their turn to be printed (~30,000 sentences of the benchmark corpus, ~2 MB of records). Small
+ *  enough that a 2-worker run of a 30 MB file keeps both busy to the end. */
+export const SCORE_CHUNK_BYTES = 8 << 20;
+
 /** Tokens `quern score` gathers (whole sentences, `</s>` counted) before it scores them together:
  *  enough to keep SCORE_LANES lanes busy for a thousand calls, a few MB of token strings at most. */
 export const SCORE_BATCH_TOKENS = 1 << 16;

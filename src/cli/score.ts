@@ -3,68 +3,138 @@
  * gzip, JSON Lines), per file and in total; with --per-line, one JSON record per line (or per
  * JSON Lines document) for filtering training data by perplexity.
  */
+import os from 'node:os';
 import type { CommandModule } from 'yargs';
 import { QuernError } from '../errors.ts';
 import { discoverInputs } from '../corpus/discover.ts';
 import { planChunks } from '../corpus/plan.ts';
-import { readChunk } from '../corpus/read.ts';
-import { makeTokenizer } from '../corpus/tokenize.ts';
-import type { NormalizeOptions } from '../corpus/types.ts';
+import type { Chunk, InputFile, NormalizeOptions, SkippedSample } from '../corpus/types.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
+import { WorkerPool } from '../count/pool.ts';
+import type { ScoreChunkDone } from '../count/protocol.ts';
+import type { ProgressSink } from '../job/context.ts';
+import { SCORE_CHUNK_BYTES } from '../limits.ts';
 import { corpusOptions } from './count.ts';
+import { intInRange, parseSize } from './options.ts';
+import { makeProgress } from './progress.ts';
 import { describeNormalize, resolveNormalize } from '../score/normalization.ts';
-import { withPerplexities, type PerplexityResult } from '../score/perplexity.ts';
-import { BatchScorer } from '../score/batch.ts';
+import { withPerplexities, type PerplexityResult, type PerplexitySums } from '../score/perplexity.ts';
+import { scoreChunk, type ChunkScore, type ScoreSettings } from '../score/score-chunk.ts';
+import { InOrder } from '../score/in-order.ts';
 
-/** One file's (or the total's) sums and perplexities. */
+/** One file's (or the total's) sums and perplexities, and the bad lines skipped (--skip-bad). */
 interface Totals extends PerplexityResult {
   file: string;
+  skipped: number;
+  /** The first bad line skipped, if any. */
+  firstSkipped?: SkippedSample;
+}
+
+/** How `scoreInputs` reads, splits and reports. */
+export interface ScoreRun {
+  normalize: NormalizeOptions;
+  textField: string | undefined;
+  skipBad: boolean;
+  /** 'text' or 'jsonl' for every input, or undefined: by each file's name. */
+  format: 'text' | 'jsonl' | undefined;
+  /** Worker threads; 1 scores in this thread. The model must be opened `{ shared: true }` for more. */
+  workers: number;
+  chunkBytes: number;
+  progress: ProgressSink;
+  /** Per-sentence records as JSON lines, in input order, a chunk's at a time, when given. */
+  onLines?: (text: string) => Promise<void> | void;
+}
+
+/**
+ * Scores every sentence of the inputs, chunk by chunk (line-aligned byte ranges of `chunkBytes`; a
+ * gzip file is one chunk), on `workers` threads; each file's sums are its chunks' sums added in
+ * chunk order, so the result does not depend on `workers`.
+ */
+export async function scoreInputs(model: PackedModel, specs: string[], run: ScoreRun): Promise<{ files: Totals[]; total: Totals }> {
+  if (!model.normalised) throw new QuernError('config', `perplexity needs a normalised model; this ${model.parameters.method} model gives scores, not probabilities`);
+  const inputs = await discoverInputs(specs, run.format === undefined ? {} : { format: run.format });
+  if (inputs.some((f) => f.format === 'jsonl') && run.textField === undefined) throw new QuernError('config', 'JSON Lines input: say where the text is with --text-field');
+  const settings: ScoreSettings = { normalize: run.normalize, textField: run.textField?.split('.'), skipBad: run.skipBad, perLine: run.onLines !== undefined };
+  const chunks = await planChunks(inputs, run.chunkBytes);
+  const files = inputs.map((file) => totals(file.path));
+  // Sentences and lines of each file's chunks consumed so far (per-line records number sentences
+  // from 1 within a file; a skipped line's number is its file's earlier lines + its line in its chunk).
+  const sentencesBefore = new Array<number>(inputs.length).fill(0);
+  const linesBefore = new Array<number>(inputs.length).fill(0);
+  const sums = inputs.map((): PerplexitySums => ({ sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0 }));
+  const consume = async (result: ChunkScore): Promise<void> => {
+    const fileIndex = chunks[result.chunk].fileIndex;
+    const t = files[fileIndex];
+    for (const k of ['sentences', 'tokens', 'oov', 'log10Prob', 'log10ProbWithUnk'] as const) sums[fileIndex][k] += result.sums[k];
+    t.skipped += result.reads.skipped;
+    const first = result.reads.skippedSamples[0];
+    if (t.firstSkipped === undefined && first !== undefined) {
+      t.firstSkipped = { line: first.line ?? linesBefore[fileIndex] + first.lineInChunk, byteOffset: first.byteOffset, reason: first.reason };
+    }
+    linesBefore[fileIndex] += result.reads.lines;
+    if (run.onLines !== undefined && result.lines !== null && result.lines.tokens.length > 0) {
+      const { tokens, oov, log10Prob, log10ProbWithUnk } = result.lines;
+      const records: string[] = [];
+      for (let i = 0; i < tokens.length; i++) {
+        records.push(JSON.stringify({
+          file: t.file, sentence: sentencesBefore[fileIndex] + i + 1, tokens: tokens[i], oov: oov[i], log10Prob: log10Prob[i],
+          perplexity: 10 ** (-log10Prob[i] / Math.max(1, tokens[i] - oov[i])),
+          perplexityWithUnk: 10 ** (-log10ProbWithUnk[i] / tokens[i]),
+        }));
+      }
+      await run.onLines(records.join('\n') + '\n');
+    }
+    sentencesBefore[fileIndex] += result.sums.sentences;
+  };
+  const totalBytes = chunks.reduce((sum, chunk) => sum + chunk.byteEnd - chunk.byteStart, 0);
+  run.progress.start('scoring', totalBytes);
+  try {
+    if (run.workers > 1 && chunks.length > 1) await scoreInWorkers(model, inputs, chunks, settings, run, consume);
+    else {
+      for (const chunk of chunks) {
+        const result = await scoreChunk(model, inputs[chunk.fileIndex], chunk, settings);
+        run.progress.update(chunk.byteEnd - chunk.byteStart, result.sums.tokens);
+        await consume(result);
+      }
+    }
+  } finally {
+    run.progress.stop();
+  }
+  const total = totals('total');
+  for (const [index, t] of files.entries()) {
+    Object.assign(t, withPerplexities(sums[index]));
+    for (const k of ['sentences', 'tokens', 'oov', 'log10Prob', 'log10ProbWithUnk', 'skipped'] as const) total[k] += t[k];
+  }
+  return { files, total: { ...total, ...withPerplexities(total) } };
 }
 
 function totals(file: string): Totals {
-  return { file, sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0, perplexity: NaN, perplexityWithUnk: NaN };
+  return { file, sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0, perplexity: NaN, perplexityWithUnk: NaN, skipped: 0 };
 }
 
-/** Scores every sentence of the inputs; `onLine` receives per-sentence records when asked. */
-export async function scoreInputs(
-  model: PackedModel, specs: string[], normalize: NormalizeOptions, textField: string | undefined, skipBad: boolean,
-  onLine?: (record: object) => void,
-): Promise<{ files: Totals[]; total: Totals }> {
-  if (!model.normalised) throw new QuernError('config', `perplexity needs a normalised model; this ${model.parameters.method} model gives scores, not probabilities`);
-  const inputs = await discoverInputs(specs);
-  if (inputs.some((f) => f.format === 'jsonl') && textField === undefined) throw new QuernError('config', 'JSON Lines input: say where the text is with --text-field');
-  const tokenize = makeTokenizer(normalize);
-  const tokens: string[] = [];
-  const total = totals('total');
-  const files: Totals[] = [];
-  for (const chunk of await planChunks(inputs, Number.MAX_SAFE_INTEGER)) {
-    const file = inputs[chunk.fileIndex];
-    const t = totals(file.path);
-    let line = 0;
-    // Sentences are scored in groups of up to SCORE_BATCH_TOKENS tokens, many at once (a model
-    // file of SCORE_BATCH_MODEL_BYTES_MIN or more; src/score/batch.ts), and reported in order.
-    const scorer = new BatchScorer(model, (score) => {
-      line++;
-      t.sentences++;
-      t.tokens += score.tokens.length;
-      t.oov += score.oov;
-      t.log10Prob += score.log10Prob;
-      t.log10ProbWithUnk += score.log10ProbWithUnk;
-      onLine?.({
-        file: file.path, sentence: line, tokens: score.tokens.length, oov: score.oov, log10Prob: score.log10Prob,
-        perplexity: 10 ** (-score.log10Prob / Math.max(1, score.tokens.length - score.oov)),
-        perplexityWithUnk: 10 ** (-score.log10ProbWithUnk / score.tokens.length),
-      });
-    });
-    await readChunk(file, chunk, { format: file.format, textField: textField?.split('.'), skipBad }, (sentence) => {
-      const n = tokenize(sentence, tokens);
-      scorer.add(tokens.slice(0, n));
-    });
-    scorer.flush();
-    for (const k of ['sentences', 'tokens', 'oov', 'log10Prob', 'log10ProbWithUnk'] as const) total[k] += t[k];
-    files.push(withPerplexities(t));
+/** The chunks scored by worker threads that share the model's memory, consumed in chunk order. */
+async function scoreInWorkers(
+  model: PackedModel, inputs: InputFile[], chunks: Chunk[], settings: ScoreSettings, run: ScoreRun, consume: (result: ChunkScore) => Promise<void>,
+): Promise<void> {
+  const pool = new WorkerPool(Math.min(run.workers, chunks.length));
+  const inOrder = new InOrder<ChunkScore>(consume);
+  try {
+    await pool.run(
+      {
+        phase: 'score', jobDir: '', inputs, textField: settings.textField, skipBad: settings.skipBad, normalize: settings.normalize, order: model.order, partitions: 0,
+        score: { model: model.shareable(), settings },
+      },
+      chunks,
+      {
+        message: (chunk) => ({ type: 'chunk', chunk }),
+        onProgress: (bytes, tokens) => run.progress.update(bytes, tokens),
+        // The worker gets its next chunk once this one's turn has come and it has been consumed.
+        onDone: (done: ScoreChunkDone) => inOrder.offer(done.chunk, done),
+      },
+    );
+  } finally {
+    await pool.close();
   }
-  return { files, total: withPerplexities(total) };
 }
 
 export const scoreCommand: CommandModule = {
@@ -74,15 +144,24 @@ export const scoreCommand: CommandModule = {
     .positional('model', { type: 'string', describe: 'A model file written by quern estimate, build or pack' })
     .positional('inputs', { type: 'string', array: true, describe: 'Files, directories or glob patterns' })
     .option('per-line', { type: 'boolean', default: false, describe: 'Print one JSON record per sentence (per line, or per line of a JSON Lines text field)' })
-    .option('json', { type: 'boolean', default: false, describe: 'Print the totals as one JSON object' }), false)
+    .option('json', { type: 'boolean', default: false, describe: 'Print the totals as one JSON object' })
+    .option('workers', { type: 'number', default: os.availableParallelism(), describe: 'Worker threads (they share the model\'s memory); 1 scores in the main thread' })
+    .option('chunk-size', { type: 'string', default: String(SCORE_CHUNK_BYTES), describe: 'Split plain inputs into line-aligned chunks of about this size, the unit of work of a worker' })
+    .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' }), false)
     .example('$0 score job/model.qm heldout/', 'Perplexity on held-out text, normalised as the model file records it'),
   handler: async (argv) => {
-    const model = await openModel(argv.model as string);
+    const workers = intInRange(argv.workers, '--workers', 1, 256);
+    const chunkBytes = parseSize(argv['chunk-size'] as string, '--chunk-size');
+    const model = await openModel(argv.model as string, { shared: workers > 1 });
     const given = { lowercase: argv.lowercase as boolean | undefined, unicode: argv.unicode as NormalizeOptions['unicode'] | undefined, split: argv.split as NormalizeOptions['split'] | undefined };
     const { normalize, source } = resolveNormalize(model.normalize, given);
     const out = process.stdout;
-    const { files, total } = await scoreInputs(model, argv.inputs as string[], normalize, argv['text-field'] as string | undefined, Boolean(argv['skip-bad']),
-      argv['per-line'] ? (record) => out.write(JSON.stringify(record) + '\n') : undefined);
+    const format = argv.format === 'text' || argv.format === 'jsonl' ? argv.format : undefined;
+    const { files, total } = await scoreInputs(model, argv.inputs as string[], {
+      normalize, textField: argv['text-field'] as string | undefined, skipBad: Boolean(argv['skip-bad']), format, workers, chunkBytes,
+      progress: makeProgress(argv.quiet ? 'quiet' : 'auto'),
+      onLines: argv['per-line'] ? (text) => writeOut(out, text) : undefined,
+    });
     if (argv['per-line']) return;
     if (argv.json) {
       out.write(JSON.stringify({ normalize, normalizeSource: source, files, total }, null, 2) + '\n');
@@ -92,6 +171,16 @@ export const scoreCommand: CommandModule = {
     for (const t of [...files, total]) {
       out.write(`${t.file}\n  ${t.sentences} sentences, ${t.tokens} tokens (${t.oov} OOV), log10 p ${t.log10Prob.toFixed(2)}, ` +
         `perplexity ${t.perplexity.toFixed(2)} without OOVs, ${t.perplexityWithUnk.toFixed(2)} with OOVs as <unk>\n`);
+      if (t.skipped > 0) {
+        const first = t.firstSkipped;
+        out.write(`  skipped ${t.skipped} bad lines or records${first ? ` (first: ${first.line !== undefined ? `line ${first.line}` : `byte ${first.byteOffset}`}, ${first.reason})` : ''}\n`);
+      }
     }
   },
 };
+
+/** Writes `text`, waiting for the stream to drain when its buffer is full (a pipe read slowly). */
+function writeOut(out: NodeJS.WritableStream, text: string): Promise<void> | void {
+  if (out.write(text)) return;
+  return new Promise((resolve) => out.once('drain', () => resolve()));
+}

@@ -5,8 +5,10 @@ import type { PartitionMergeTask } from '../merge/merge-partition.ts';
 import type { TokenFileRecord } from './token-file.ts';
 import type { OrderTally } from '../merge/tally.ts';
 import type { PartitionEstimateResult, PartitionEstimateSettings } from '../estimate/partition-estimate.ts';
+import type { SharedModel } from '../pack/reader.ts';
+import type { ChunkScore, ScoreSettings } from '../score/score-chunk.ts';
 
-export type Phase = 'vocab' | 'count' | 'remap' | 'merge' | 'continuation-emit' | 'continuation-merge' | 'estimate';
+export type Phase = 'vocab' | 'count' | 'remap' | 'merge' | 'continuation-emit' | 'continuation-merge' | 'estimate' | 'score';
 
 export interface WorkerInit {
   phase: Phase;
@@ -37,6 +39,8 @@ export interface WorkerInit {
   spillBase?: number;
   /** estimate phase: the method, its global parameters and the unigram results. */
   estimate?: PartitionEstimateSettings;
+  /** score phase (`quern score`, a chunk per task): the model, shared, and how to read and score. */
+  score?: { model: SharedModel; settings: ScoreSettings };
 }
 
 export type ToWorker =
@@ -69,6 +73,8 @@ export interface MergeDone {
 }
 
 export type EstimateDone = { type: 'done' } & PartitionEstimateResult;
+
+export type ScoreChunkDone = { type: 'done' } & ChunkScore;
 
 export interface VocabChunkDone {
   type: 'done';
@@ -116,4 +122,4 @@ export interface WorkerFailure {
   stack?: string;
 }
 
-export type FromWorker = VocabChunkDone | CountGroupDone | MergeDone | EmitDone | RemapDone | EstimateDone | VocabFinished | CountFinished | Progress | WorkerFailure;
+export type FromWorker = VocabChunkDone | CountGroupDone | MergeDone | EmitDone | RemapDone | EstimateDone | ScoreChunkDone | VocabFinished | CountFinished | Progress | WorkerFailure;

@@ -1,5 +1,6 @@
 /**
- * A count worker thread. In the vocabulary phase it counts words per chunk in a word table keyed
+ * A worker thread of the job's pool (and of `quern score`, phase 'score': chunks scored with a model
+ * shared by the main thread, src/score/score-chunk.ts). In the vocabulary phase it counts words per chunk in a word table keyed
  * by their UTF-8 bytes; in the count phase it turns words into ids through a table of the
  * vocabulary and counts n-grams of orders 1..N in its CounterSet, spilling sorted, partitioned run
  * files when its budget is reached and at the end of every chunk (so a finished chunk is a durable
@@ -23,6 +24,8 @@ import { partitionStoreDir } from '../merge/store.ts';
 import { emitContinuations } from '../merge/continuation.ts';
 import { remapChunkRuns } from './remap.ts';
 import { estimatePartition } from '../estimate/partition-estimate.ts';
+import { modelFromShared, type PackedModel } from '../pack/reader.ts';
+import { scoreChunk } from '../score/score-chunk.ts';
 import { runFilePath } from './run-layout.ts';
 import { readTokenFile, tokenFileIntact, TokenFileWriter, type TokenFileBlock } from './token-file.ts';
 import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
@@ -372,6 +375,22 @@ async function estimateTask(partition: number): Promise<void> {
   post({ type: 'done', ...result });
 }
 
+// ---- score phase ---------------------------------------------------------------------------
+
+/** The score phase's model, over the main thread's shared sections (made at the phase's first chunk). */
+let scoreModel: PackedModel | undefined;
+
+async function scoreTask(chunk: Chunk): Promise<void> {
+  const { model, settings } = init.score!;
+  scoreModel ??= modelFromShared(model);
+  const result = await scoreChunk(scoreModel, init.inputs[chunk.fileIndex], chunk, settings);
+  progressBytes += chunk.byteEnd - chunk.byteStart;
+  progressTokens += result.sums.tokens;
+  flushProgress(true);
+  const lines = result.lines;
+  port.postMessage({ type: 'done', ...result } satisfies FromWorker, lines === null ? [] : [lines.tokens.buffer, lines.oov.buffer, lines.log10Prob.buffer, lines.log10ProbWithUnk.buffer] as ArrayBuffer[]);
+}
+
 /** Starts a phase: its settings, and a fresh state for it. */
 function startPhase(next: WorkerInit): void {
   init = next;
@@ -385,6 +404,7 @@ function releasePhaseState(): void {
   entryCounts = new Float64Array(0);
   countState = undefined;
   needsPerByte = undefined;
+  scoreModel = undefined;
 }
 
 async function handle(message: ToWorker): Promise<void> {
@@ -401,6 +421,7 @@ async function handle(message: ToWorker): Promise<void> {
   else if (message.type === 'emit') await emitTask(message.partition, message.localOrders);
   else if (message.type === 'remap') await remapTask(message.chunk, message.files);
   else if (message.type === 'estimate') await estimateTask(message.partition);
+  else if (message.type === 'chunk' && init.phase === 'score') await scoreTask(message.chunk);
   else if (message.type === 'chunk') await vocabChunk(message.chunk);
   else if (message.type === 'chunks') await countGroup(message.chunks);
   else assert(false, `unexpected message for a ${init.phase} worker`);

@@ -182,6 +182,31 @@ export interface OpenOptions {
    *  (never a crash, a hang, a read outside its arrays or a huge allocation); `toLanguageModel`
    *  (export) runs the check first when it has not run. `quern info MODEL --check` runs it. */
   checkStructure?: boolean;
+  /** Read the sections into SharedArrayBuffers (default false), so that `shareable()` can hand the
+   *  model to worker threads (`modelFromShared`), which then answer from the same memory. */
+  shared?: boolean;
+}
+
+/**
+ * A model opened with `{ shared: true }`, as a worker thread receives it (structured-clone safe:
+ * the sections are SharedArrayBuffers, not copied). `modelFromShared` makes it a PackedModel again
+ * without reading or checksumming anything: the thread that opened the file verified it.
+ */
+export interface SharedModel {
+  file: string;
+  fileBytes: number;
+  header: Header;
+  sections: SectionInfo[];
+  /** Each known section: its key (`kind:order`) and its bytes. */
+  data: Array<{ key: string; buffer: SharedArrayBuffer; byteOffset: number; byteLength: number }>;
+  structureChecked: boolean;
+}
+
+/** The model `shared` describes, over the same memory (SharedModel). */
+export function modelFromShared(shared: SharedModel): PackedModel {
+  const data = new Map<string, Buffer>();
+  for (const { key, buffer, byteOffset, byteLength } of shared.data) data.set(key, Buffer.from(buffer, byteOffset, byteLength));
+  return new PackedModel(shared.file, shared.fileBytes, shared.header, shared.sections, data, shared.structureChecked);
 }
 
 /**
@@ -194,7 +219,7 @@ export async function openModel(filePath: string, options: OpenOptions = {}): Pr
   requireLittleEndian();
   const { handle, bytes: fileBytes } = await openForReading(filePath);
   try {
-    return await readModel(handle, filePath, fileBytes, options.checkStructure ?? false);
+    return await readModel(handle, filePath, fileBytes, options.checkStructure ?? false, options.shared ?? false);
   } finally {
     await handle.close().catch(() => undefined);
   }
@@ -217,7 +242,8 @@ function u64(buffer: Buffer, offset: number): number {
   return value <= BigInt(Number.MAX_SAFE_INTEGER) ? Number(value) : Number.MAX_SAFE_INTEGER;
 }
 
-interface Header {
+/** The header's fields, as read (docs/model-file.md). */
+export interface Header {
   versionMinor: number;
   normalised: boolean;
   order: number;
@@ -357,7 +383,7 @@ function requiredSections(header: Header): Array<[number, number]> {
   return required;
 }
 
-async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number, checkStructure: boolean): Promise<PackedModel> {
+async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number, checkStructure: boolean, shared: boolean): Promise<PackedModel> {
   const headerBytes = Buffer.alloc(HEADER_BYTES);
   await readAt(handle, file, 'header', headerBytes.subarray(0, Math.min(HEADER_BYTES, fileBytes)), 0);
   const header = parseHeader(file, headerBytes, fileBytes);
@@ -417,7 +443,7 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
   // structure of an order as soon as its sections are verified, while later sections are still
   // being read.
   const data = new Map<string, Buffer>();
-  const reads = new SectionReads(handle, file, sections);
+  const reads = new SectionReads(handle, file, sections, shared);
   const structure = checkStructure ? new StructureCheck(file, header, sections, data) : null;
   try {
     for (let index = 0; index < sections.length; index++) {
@@ -432,7 +458,7 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
         const checked = Math.min(piece.bytes, info.bytes - done);
         if (checked > 0) crc = crc32(buffer.subarray(done, done + checked), crc); // (crc32 of an empty array may return 0, not crc)
       }
-      buffer ??= Buffer.alloc(0);
+      buffer ??= shared ? Buffer.from(new SharedArrayBuffer(0)) : Buffer.alloc(0);
       for (let i = info.bytes; i < padded; i++) if (buffer[i] !== 0) throw corrupt(file, where, `padding byte ${info.offset + i} is not zero`);
       if (crc !== info.crc32) throw corrupt(file, where, `checksum mismatch (stored 0x${hex(info.crc32)}, computed 0x${hex(crc)})`);
       const body = buffer.subarray(0, info.bytes);
@@ -463,7 +489,7 @@ class SectionReads {
   private taken = 0;
   private stopped = false;
 
-  constructor(private readonly handle: fsp.FileHandle, private readonly file: string, private readonly sections: SectionInfo[]) {
+  constructor(private readonly handle: fsp.FileHandle, private readonly file: string, private readonly sections: SectionInfo[], private readonly shared: boolean) {
     sections.forEach((info, section) => {
       const padded = alignUp(info.bytes);
       for (let start = 0; start < padded; start += PACK_READ_BYTES_MAX) this.pieces.push({ section, start, bytes: Math.min(PACK_READ_BYTES_MAX, padded - start) });
@@ -475,7 +501,7 @@ class SectionReads {
     while (!this.stopped && this.issued < this.pieces.length && this.issued - this.taken < READ_AHEAD_PIECES) {
       const { section, start, bytes } = this.pieces[this.issued];
       const info = this.sections[section];
-      if (start === 0) this.buffers[section] = Buffer.allocUnsafeSlow(alignUp(info.bytes));
+      if (start === 0) this.buffers[section] = this.shared ? Buffer.from(new SharedArrayBuffer(alignUp(info.bytes))) : Buffer.allocUnsafeSlow(alignUp(info.bytes));
       const where = `section ${section} (${info.name}) at byte ${info.offset}`;
       const read = readAt(this.handle, this.file, where, this.buffers[section].subarray(start, start + bytes), info.offset + start);
       read.catch(() => undefined); // awaited by `next` (or dropped after `stop`)
@@ -923,6 +949,9 @@ export class PackedModel {
   private touchStride = 0;
   /** The sum of the values `stepBatch` touched, kept so that the loads stay. */
   private touched = 0;
+  /** What `shareable` hands on: the header and the sections as read. */
+  private readonly header: Header;
+  private readonly data: Map<string, Buffer>;
 
   /** True once the structure of every order was checked (`openModel`'s `checkStructure`, or
    *  `toLanguageModel`): then every children range and word id is known to be as the format says. */
@@ -933,6 +962,8 @@ export class PackedModel {
   /** @internal Use `openModel`. */
   constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, structureChecked: boolean) {
     const get = (kind: number, order = 0): Buffer => data.get(`${kind}:${order}`) as Buffer;
+    this.header = header;
+    this.data = data;
     this.filePath = file;
     this.fileBytes = fileBytes;
     this.version = { major: MODEL_VERSION_MAJOR, minor: header.versionMinor };
@@ -989,6 +1020,16 @@ export class PackedModel {
     // openModel checked the structure while reading (StructureCheck) when asked to.
     this.checked = structureChecked;
     [this.sampleAt, this.samples] = this.order > 1 ? sampleLongChildren(this.hot[1], this.hot[2], this.vocabularySize + 1, this.wordBits, this.wordMask) : [new Int32Array(0), new Int32Array(0)];
+  }
+
+  /** The model for worker threads (`modelFromShared`); it must have been opened with `{ shared: true }`. */
+  shareable(): SharedModel {
+    const data: SharedModel['data'] = [];
+    for (const [key, buffer] of this.data) {
+      if (!(buffer.buffer instanceof SharedArrayBuffer)) throw new Error(`${this.filePath}: opened without { shared: true }, so it cannot be shared with worker threads`);
+      data.push({ key, buffer: buffer.buffer, byteOffset: buffer.byteOffset, byteLength: buffer.byteLength });
+    }
+    return { file: this.filePath, fileBytes: this.fileBytes, header: this.header, sections: this.sections, data, structureChecked: this.checked };
   }
 
   /** Vocabulary checks that every lookup relies on (cheap: one pass over V + 1 words). */

@@ -16,7 +16,7 @@ describe('quern build and quern score', () => {
     expect(build.stdout).toMatch(/^packed .*model\.qm: order 3/);
     const heldout = path.join(REPO, 'sample-data/heldout/harbour-heldout.txt');
     // No --lowercase: build recorded the count's normalisation in the model file, and score uses it.
-    const scored = await runQuern(['score', out, heldout, '--json']);
+    const scored = await runQuern(['score', out, heldout, '--json', '--quiet']);
     expect(scored.stderr).toBe('');
     const { total, normalize, normalizeSource } = JSON.parse(scored.stdout);
     expect(normalizeSource).toBe('model');

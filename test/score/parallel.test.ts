@@ -1,0 +1,157 @@
+/**
+ * `quern score` in chunks on worker threads that share the model's memory: the same output, byte
+ * for byte, whatever the number of workers, and the same sums as the in-memory model scores the
+ * text with (perplexity.ts, DESIGN.md's conventions). Also what scoring on threads rests on: a model
+ * handed to another thread over SharedArrayBuffers, and results consumed in order.
+ */
+import { writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { gzipSync } from 'node:zlib';
+import { afterAll, describe, expect, test } from 'vitest';
+import { scoreCommand } from '../../src/cli/score.ts';
+import { countCorpus } from '../../src/estimate/counts.ts';
+import { nodeFs } from '../../src/job/fsio.ts';
+import { modelFromShared, openModel } from '../../src/pack/reader.ts';
+import { packModel } from '../../src/pack/writer.ts';
+import { InOrder } from '../../src/score/in-order.ts';
+import { perplexity } from '../../src/score/perplexity.ts';
+import { estimateWith, markovCorpus } from '../estimate/support.ts';
+import { temporaryDirectory } from '../pack/support.ts';
+import { runCommandsInProcess } from '../support/in-process.ts';
+
+const { dir, remove } = temporaryDirectory('score-parallel');
+afterAll(remove);
+
+const score = (args: string[]): Promise<string> => runCommandsInProcess([scoreCommand], ['score', ...args, '--quiet']);
+
+const train = markovCorpus(21, 2000, 40, 12);
+const model = estimateWith('modified-kneser-ney', countCorpus(train, 3), []);
+const modelFile = join(dir, 'model.qm');
+// Held-out text from the same chain, and with words the model has not seen (OOVs).
+const plain = markovCorpus(22, 3000, 40, 12);
+const wider = markovCorpus(23, 600, 40, 12).map((words, i) => (i % 7 === 0 ? [...words, `unseen${i % 3}`] : words));
+const records = markovCorpus(24, 400, 40, 12);
+const text = (sentences: string[][]): string => sentences.map((words) => words.join(' ')).join('\n') + '\n';
+// JSON Lines: two sentences per record, as two lines of its text field.
+const jsonl = (sentences: string[][]): string =>
+  Array.from({ length: sentences.length / 2 }, (_, i) => JSON.stringify({ id: i, body: { text: `${sentences[2 * i].join(' ')}\n${sentences[2 * i + 1].join(' ')}` } })).join('\n') + '\n';
+
+const files = { plain: join(dir, 'a-plain.txt'), gzip: join(dir, 'b-wider.txt.gz'), jsonl: join(dir, 'c-records.jsonl') };
+
+describe('quern score on worker threads', () => {
+  test('the same output for 1 and 2 workers, and the in-memory model\'s sums, file by file', async () => {
+    await packModel(model, { fingerprint: '' }, nodeFs, modelFile);
+    writeFileSync(files.plain, text(plain));
+    writeFileSync(files.gzip, gzipSync(text(wider)));
+    writeFileSync(files.jsonl, jsonl(records));
+    const inputs = [files.plain, files.gzip, files.jsonl, '--text-field', 'body.text'];
+    // 4 KiB chunks: the plain file (~70 KB) is ~18 of them, the JSON Lines file ~3, the gzip one 1.
+    const chunked = ['--chunk-size', '4KiB'];
+    const one = await score([modelFile, ...inputs, ...chunked, '--workers', '1', '--json']);
+    const two = await score([modelFile, ...inputs, ...chunked, '--workers', '2', '--json']);
+    expect(two).toBe(one);
+    const result = JSON.parse(one);
+    for (const [index, sentences] of [plain, wider, records].entries()) {
+      const expected = perplexity(model, sentences);
+      const got = result.files[index];
+      expect(got.sentences).toBe(expected.sentences);
+      expect(got.tokens).toBe(expected.tokens);
+      expect(got.oov).toBe(expected.oov);
+      // float32 values in the file: agreement to float32 precision.
+      expect(Math.abs(got.log10Prob - expected.log10Prob) / Math.abs(expected.log10Prob)).toBeLessThan(1e-6);
+      expect(Math.abs(got.log10ProbWithUnk - expected.log10ProbWithUnk) / Math.abs(expected.log10ProbWithUnk)).toBeLessThan(1e-6);
+    }
+    expect(result.files[1].oov).toBeGreaterThan(0);
+    // Chunks do not change what one chunk per file gives, beyond the order of the additions.
+    const whole = JSON.parse(await score([modelFile, ...inputs, '--workers', '1', '--json']));
+    expect(whole.total.tokens).toBe(result.total.tokens);
+    expect(Math.abs(whole.total.log10Prob - result.total.log10Prob)).toBeLessThan(1e-9 * Math.abs(result.total.log10Prob));
+
+    // Per line: the same records in the same order, numbered from 1 in each file across its chunks.
+    const lines1 = await score([modelFile, ...inputs, ...chunked, '--workers', '1', '--per-line']);
+    const lines2 = await score([modelFile, ...inputs, ...chunked, '--workers', '2', '--per-line']);
+    expect(lines2).toBe(lines1);
+    const perLine = lines1.trim().split('\n').map((line) => JSON.parse(line));
+    expect(perLine).toHaveLength(plain.length + wider.length + records.length);
+    const ofPlain = perLine.filter((record) => record.file === files.plain);
+    expect(ofPlain.map((record) => record.sentence)).toEqual(Array.from({ length: plain.length }, (_, i) => i + 1));
+    expect(ofPlain.reduce((sum, record) => sum + record.tokens, 0)).toBe(result.files[0].tokens);
+    // Each record is its sentence's score (sentence 1234 of the plain file, at the model's precision).
+    const alone = perplexity(model, [plain[1233]]);
+    expect(ofPlain[1233].tokens).toBe(alone.tokens);
+    expect(ofPlain[1233].log10Prob).toBeCloseTo(alone.log10Prob, 5);
+  });
+
+  test('a bad line in a chunk a worker reads: an error naming file and line, or skipped and reported', async () => {
+    const bad = join(dir, 'bad.txt');
+    const good = join(dir, 'good.txt');
+    const lines = text(plain).split('\n');
+    const at = 2500; // well inside a later chunk
+    writeFileSync(good, [...lines.slice(0, at), ...lines.slice(at)].join('\n'));
+    writeFileSync(bad, Buffer.concat([Buffer.from(lines.slice(0, at).join('\n') + '\n'), Buffer.from([0x66, 0xff, 0x66, 0x0a]), Buffer.from(lines.slice(at).join('\n'))]));
+    const args = [modelFile, bad, '--chunk-size', '4KiB', '--workers', '2'];
+    await expect(score([...args, '--json'])).rejects.toThrow(`${bad}:${at + 1} (byte `);
+    const skipped = JSON.parse(await score([...args, '--json', '--skip-bad']));
+    const clean = JSON.parse(await score([modelFile, good, '--chunk-size', '4KiB', '--workers', '2', '--json']));
+    expect(skipped.files[0].skipped).toBe(1);
+    expect(skipped.files[0].firstSkipped.line).toBe(at + 1);
+    expect(skipped.total.skipped).toBe(1);
+    expect({ ...skipped.total, skipped: 0, file: '' }).toEqual({ ...clean.total, file: '' });
+    const printed = await score([...args, '--skip-bad']);
+    expect(printed).toMatch(new RegExp(`skipped 1 bad lines or records \\(first: line ${at + 1}, `));
+  });
+
+  test('--format jsonl reads a JSON Lines file whatever its name', async () => {
+    const named = join(dir, 'records-as.txt');
+    writeFileSync(named, jsonl(records));
+    const byName = JSON.parse(await score([modelFile, files.jsonl, '--text-field', 'body.text', '--json', '--workers', '1']));
+    const byOption = JSON.parse(await score([modelFile, named, '--format', 'jsonl', '--text-field', 'body.text', '--json', '--workers', '1']));
+    expect(byOption.total).toEqual(byName.total);
+    expect(byOption.total.sentences).toBe(records.length);
+  });
+});
+
+describe('a model shared with other threads', () => {
+  test('opened { shared: true }, it answers as the file does from the same memory; opened without, it cannot be shared', async () => {
+    const shared = await openModel(modelFile, { shared: true });
+    const handed = shared.shareable();
+    expect(handed.data.every(({ buffer }) => buffer instanceof SharedArrayBuffer)).toBe(true);
+    // structuredClone is what postMessage does: the SharedArrayBuffers are shared, not copied.
+    const other = modelFromShared(structuredClone(handed));
+    for (const sentence of plain.slice(0, 50)) expect(other.scoreSentence(sentence)).toEqual(shared.scoreSentence(sentence));
+    expect(other.ngrams).toEqual(shared.ngrams);
+    const plainOpen = await openModel(modelFile);
+    expect(() => plainOpen.shareable()).toThrow(/opened without \{ shared: true \}/);
+  });
+});
+
+describe('InOrder', () => {
+  test('results offered in any order are consumed in index order; each offer settles once its result is consumed', async () => {
+    const consumed: number[] = [];
+    const inOrder = new InOrder<number>(async (value) => {
+      await new Promise((resolve) => setTimeout(resolve, value % 3));
+      consumed.push(value);
+    });
+    const settled: number[] = [];
+    const offers = [3, 1, 4, 0, 2, 6, 5].map((index) => inOrder.offer(index, index * 10).then(() => settled.push(index)));
+    await Promise.all(offers);
+    expect(consumed).toEqual([0, 10, 20, 30, 40, 50, 60]);
+    expect(settled).toEqual([0, 1, 2, 3, 4, 5, 6]);
+    expect(inOrder.consumed).toBe(7);
+  });
+
+  test('after a failed consume, later offers fail with it and are not consumed', async () => {
+    const consumed: number[] = [];
+    const inOrder = new InOrder<number>((value) => {
+      if (value === 1) throw new Error('disk full');
+      consumed.push(value);
+    });
+    const second = inOrder.offer(2, 2);
+    const failing = inOrder.offer(1, 1);
+    await inOrder.offer(0, 0);
+    await expect(failing).rejects.toThrow('disk full');
+    await expect(second).rejects.toThrow('disk full');
+    expect(consumed).toEqual([0]);
+    expect(() => inOrder.offer(2, 2)).toThrow(/offered once/);
+  });
+});

@@ -4,12 +4,13 @@
  * turn (the order reversed every other round): wall time and peak RSS of each, and their sums
  * compared.
  *
- *   npm run bench:score -- --model FILE --text FILE [--text FILE …] [--workers 1,2] [--against REV] [--repeat N]
+ *   npm run bench:score -- --model FILE --text FILE [--text FILE …] [--workers 1,2] [--against REV [--against-args='--workers 1']] [--repeat N]
  *
  * Each run is `bin/quern.js score MODEL TEXT… --json --quiet --workers W` under GNU time
  * (scripts/lib/rss.ts), with the program's environment (huge pages, scripts/lib/quern-env.ts).
- * REV's tree (its src/ and bin/, scripts/lib/revision-tree.ts) runs `… --json` alone (a revision
- * before 2026-12-03 has neither --workers nor --quiet).
+ * REV's tree (its src/ and bin/, scripts/lib/revision-tree.ts) runs `… --json` and --against-args
+ * (a revision before 4bb0414 has neither --workers nor --quiet; from it on, --workers defaults to the
+ * cores).
  * The totals of this checkout's runs must be identical whatever the number of workers, and REV's
  * equal to them in tokens, sentences and OOVs and within 1e-9 in Σ log10 p (its sums may add the
  * sentences in another grouping); else the script fails. The ratios are against the first
@@ -39,6 +40,7 @@ const { values } = parseArgs({
     text: { type: 'string', multiple: true },
     workers: { type: 'string', default: `1,${os.availableParallelism()}` },
     against: { type: 'string' },
+    'against-args': { type: 'string', default: '' },
     repeat: { type: 'string', default: '1' },
   },
 });
@@ -56,7 +58,8 @@ const work = join(BENCH_OUT, 'work', `score-${process.pid}`);
 const configurations: Configuration[] = [];
 if (values.against !== undefined) {
   const against = extractRevision(REPO, values.against, ['src', 'bin', 'package.json', 'tsconfig.json'], (hash) => join(work, `tree-${hash}`));
-  configurations.push({ what: `${values.against} (${against.hash})`, tree: against.tree, extra: [] });
+  const extra = values['against-args'].split(' ').filter((arg) => arg !== '');
+  configurations.push({ what: `${values.against} (${against.hash})${extra.length > 0 ? ` ${extra.join(' ')}` : ''}`, tree: against.tree, extra });
 }
 for (const count of workerCounts) configurations.push({ what: `--workers ${count}`, tree: REPO, extra: ['--quiet', '--workers', String(count)] });
 

@@ -4,12 +4,12 @@
  * phase 'score') alike. Its sums are added sentence by sentence in order, and the command adds the
  * chunks' sums in chunk order, so the totals do not depend on how many threads scored them.
  */
-import { readChunk, type ChunkReadStats } from '../corpus/read.ts';
-import { makeTokenizer } from '../corpus/tokenize.ts';
+import type { ChunkReadStats } from '../corpus/read.ts';
+import { TokenReader } from '../corpus/read-tokens.ts';
 import type { Chunk, InputFile, NormalizeOptions } from '../corpus/types.ts';
 import type { PackedModel } from '../pack/reader.ts';
-import { BatchScorer } from './batch.ts';
 import type { PerplexitySums } from './perplexity.ts';
+import { BlockScorer, modelWords } from './token-ids.ts';
 
 /** How the chunks of one `quern score` run are read and what is kept of them. */
 export interface ScoreSettings {
@@ -46,26 +46,22 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
   const oov: number[] = [];
   const log10Prob: number[] = [];
   const log10ProbWithUnk: number[] = [];
-  // Sentences are scored in groups of up to SCORE_BATCH_TOKENS tokens, many at once (a model file
-  // of SCORE_BATCH_MODEL_BYTES_MIN or more; src/score/batch.ts), and come back in order.
-  const scorer = new BatchScorer(model, (score) => {
+  // The text's tokens are looked up in the model's words from their bytes (TokenReader, as the
+  // count reads text), and scored in groups (BlockScorer: many sentences at once for a large model).
+  const scorer = new BlockScorer(model, modelWords(model), (sentenceTokens, sentenceOov, sentenceLog10Prob, sentenceLog10ProbWithUnk) => {
     sums.sentences++;
-    sums.tokens += score.tokens.length;
-    sums.oov += score.oov;
-    sums.log10Prob += score.log10Prob;
-    sums.log10ProbWithUnk += score.log10ProbWithUnk;
+    sums.tokens += sentenceTokens;
+    sums.oov += sentenceOov;
+    sums.log10Prob += sentenceLog10Prob;
+    sums.log10ProbWithUnk += sentenceLog10ProbWithUnk;
     if (!settings.perLine) return;
-    tokens.push(score.tokens.length);
-    oov.push(score.oov);
-    log10Prob.push(score.log10Prob);
-    log10ProbWithUnk.push(score.log10ProbWithUnk);
+    tokens.push(sentenceTokens);
+    oov.push(sentenceOov);
+    log10Prob.push(sentenceLog10Prob);
+    log10ProbWithUnk.push(sentenceLog10ProbWithUnk);
   });
-  const tokenize = makeTokenizer(settings.normalize);
-  const words: string[] = [];
-  const reads = await readChunk(file, chunk, { format: file.format, textField: settings.textField, skipBad: settings.skipBad }, (sentence) => {
-    const n = tokenize(sentence, words);
-    scorer.add(words.slice(0, n));
-  });
+  const reader = new TokenReader(settings.normalize, modelWords(model).table, false);
+  const reads = await reader.read(file, chunk, { format: file.format, textField: settings.textField, skipBad: settings.skipBad }, (block) => scorer.add(block));
   scorer.flush();
   const lines = settings.perLine
     ? { tokens: Int32Array.from(tokens), oov: Int32Array.from(oov), log10Prob: Float64Array.from(log10Prob), log10ProbWithUnk: Float64Array.from(log10ProbWithUnk) }

@@ -14,6 +14,12 @@ import { nodeFs } from '../../src/job/fsio.ts';
 import { modelFromShared, openModel } from '../../src/pack/reader.ts';
 import { packModel } from '../../src/pack/writer.ts';
 import { InOrder } from '../../src/score/in-order.ts';
+import { BlockScorer, modelWords } from '../../src/score/token-ids.ts';
+import { TokenReader } from '../../src/corpus/read-tokens.ts';
+import { makeTokenizer } from '../../src/corpus/tokenize.ts';
+import { isBlankLine } from '../../src/corpus/lines.ts';
+import { discoverInputs } from '../../src/corpus/discover.ts';
+import { planChunks } from '../../src/corpus/plan.ts';
 import { perplexity } from '../../src/score/perplexity.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { temporaryDirectory } from '../pack/support.ts';
@@ -153,5 +159,44 @@ describe('InOrder', () => {
     await expect(second).rejects.toThrow('disk full');
     expect(consumed).toEqual([0]);
     expect(() => inOrder.offer(2, 2)).toThrow(/offered once/);
+  });
+});
+
+describe('tokens looked up from their bytes (BlockScorer over TokenReader)', () => {
+  // Words the model knows and does not, non-ASCII ones, separators the tokenizer splits at (NBSP,
+  // U+3000, tabs), `<s>`/`</s>`/`<unk>` written in the text (OOVs), blank lines, CRLF, a BOM.
+  const known = plain.slice(0, 300).map((words) => words.join(' '));
+  const odd = [
+    `${known[0]}\u00a0Zürich ${known[1]}`, '', '   ', `<unk> ${known[2]} </s>`, `<s>\t${known[3]}\u3000naïve`, `${known[4].toUpperCase()}\r`,
+    'ÉCOLE école Ecole', `${known[5]}   ${known[6]}`,
+  ];
+  const lines = ['\ufeff' + known[7], ...odd, ...known.slice(8)];
+  const file = join(dir, 'odd.txt');
+
+  test.each([
+    ['as written', { lowercase: false, unicode: 'none', split: 'space' }],
+    ['lower-cased, NFC', { lowercase: true, unicode: 'nfc', split: 'space' }],
+    ['characters', { lowercase: false, unicode: 'none', split: 'chars' }],
+  ] as const)('%s: every sentence scores exactly as scoreSentence scores its tokens, one at a time and batched', async (_name, normalize) => {
+    writeFileSync(file, lines.join('\n') + '\n');
+    const packed = await openModel(modelFile);
+    const tokenize = makeTokenizer(normalize);
+    const expected = lines.map((line) => line.replace(/^\ufeff/, '').replace(/\r$/, '')).filter((line) => !isBlankLine(line)).map((line) => {
+      const tokens: string[] = [];
+      const n = tokenize(line, tokens);
+      return packed.scoreSentence(tokens.slice(0, n));
+    });
+    for (const batched of [false, true]) {
+      const got: Array<[number, number, number, number]> = [];
+      const scorer = new BlockScorer(packed, modelWords(packed), (...figures) => got.push(figures), batched);
+      const reader = new TokenReader(normalize, modelWords(packed).table, false);
+      const [input] = await discoverInputs([file]);
+      const [chunk] = await planChunks([input], 1 << 30);
+      await reader.read(input, chunk, { format: 'text', textField: undefined, skipBad: false }, (block) => scorer.add(block));
+      scorer.flush();
+      expect(scorer.batched).toBe(batched);
+      expect(got).toEqual(expected.map((score) => [score.tokens.length, score.oov, score.log10Prob, score.log10ProbWithUnk]));
+    }
+    expect(expected.some((score) => score.oov > 0)).toBe(true);
   });
 });

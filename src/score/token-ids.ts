@@ -1,0 +1,146 @@
+/**
+ * Text to model ids without a string per token: the model's vocabulary in a WordTable (corpus/
+ * word-table.ts) that the corpus readers' byte tokenizer looks tokens up in (corpus/read-tokens.ts,
+ * lookup mode), and the token blocks it gives scored as id sentences. The ids, and so every number,
+ * are those of `PackedModel.textWordId` and `scoreSentence`: `<s>`, `</s>` and `<unk>` written in
+ * the text are not in the table, so they read as OOVs, like every word outside the vocabulary.
+ */
+import type { TokenBlock } from '../corpus/byte-tokenizer.ts';
+import { BOS_ID } from '../corpus/vocabulary.ts';
+import { WordTable } from '../corpus/word-table.ts';
+import { assert } from '../errors.ts';
+import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS } from '../limits.ts';
+import type { DecoderState, PackedModel } from '../pack/reader.ts';
+import { scoreIdSentences } from './batch.ts';
+
+/** A model's words (ids 1..V but `</s>` and `<unk>`) as word-table entries, and each entry's id. */
+export interface ModelWords {
+  table: WordTable;
+  idOf: Int32Array;
+}
+
+const wordsOf = new WeakMap<PackedModel, ModelWords>();
+
+/** The table of `model`'s words, made once per model. */
+export function modelWords(model: PackedModel): ModelWords {
+  let words = wordsOf.get(model);
+  if (words !== undefined) return words;
+  const table = WordTable.sizedFor(model.vocabularySize);
+  const idOf = new Int32Array(model.vocabularySize);
+  for (let id = BOS_ID + 1; id <= model.vocabularySize; id++) {
+    if (id === model.eosId || id === model.unkId) continue;
+    const entry = table.internWord(model.word(id));
+    assert(entry === table.size - 1, `word ${id} of the model's vocabulary is held once`);
+    idOf[entry] = id;
+  }
+  words = { table, idOf };
+  wordsOf.set(model, words);
+  return words;
+}
+
+/** What a scored sentence reports (`SentenceScore` without the tokens). */
+export type SentenceSums = (tokens: number, oov: number, log10Prob: number, log10ProbWithUnk: number) => void;
+
+/**
+ * Sentences of token blocks scored as `BatchScorer` scores sentences of words: each is its tokens'
+ * ids (an OOV as `<unk>`) and `</s>`; groups of up to SCORE_BATCH_TOKENS tokens scored together
+ * (`scoreIdSentences`) for a model file of SCORE_BATCH_MODEL_BYTES_MIN or more, else one at a time
+ * with `step`. `onSentence` receives each sentence's figures, in order, its sums added in token
+ * order as `scoreSentence` adds them.
+ */
+export class BlockScorer {
+  /** Whether sentences are scored together (`scoreIdSentences`) or one at a time (`step`). */
+  readonly batched: boolean;
+  private ids = new Int32Array(SCORE_BATCH_TOKENS + 1024);
+  private oov = new Uint8Array(SCORE_BATCH_TOKENS + 1024);
+  private tokens = 0;
+  /** starts[s]: where sentence s's ids begin; starts[sentences] = tokens. */
+  private starts: number[] = [0];
+  private readonly state: DecoderState;
+
+  constructor(
+    private readonly model: PackedModel, private readonly words: ModelWords, private readonly onSentence: SentenceSums,
+    batched = model.fileBytes >= SCORE_BATCH_MODEL_BYTES_MIN,
+  ) {
+    this.batched = batched;
+    this.state = model.newState();
+  }
+
+  /** Adds the sentences of `block` (kept nothing of). */
+  add(block: TokenBlock): void {
+    const { entries, sentenceEnds } = block;
+    const idOf = this.words.idOf;
+    const unk = this.model.unkId;
+    const eos = this.model.eosId;
+    let from = 0;
+    for (let s = 0; s < block.sentences; s++) {
+      const to = sentenceEnds[s];
+      this.reserve(to - from + 1);
+      const ids = this.ids;
+      const oov = this.oov;
+      let at = this.tokens;
+      for (let i = from; i < to; i++, at++) {
+        const entry = entries[i];
+        if (entry < 0) {
+          ids[at] = unk;
+          oov[at] = 1;
+        } else {
+          ids[at] = idOf[entry];
+          oov[at] = 0;
+        }
+      }
+      ids[at] = eos;
+      oov[at] = 0;
+      this.tokens = at + 1;
+      this.starts.push(this.tokens);
+      from = to;
+      if (this.tokens >= SCORE_BATCH_TOKENS) this.flush();
+    }
+  }
+
+  /** Scores what is gathered (call it at the end). */
+  flush(): void {
+    const count = this.starts.length - 1;
+    if (count === 0) return;
+    const { ids, oov, starts } = this;
+    const withUnk = new Float64Array(count);
+    const without = new Float64Array(count);
+    if (this.batched) {
+      const sentences = Array.from({ length: count }, (_, s) => ids.subarray(starts[s], starts[s + 1]));
+      // Tokens of a sentence arrive in order, so each sum is added in token order.
+      scoreIdSentences(this.model, sentences, (s, position, log10Prob) => {
+        withUnk[s] += log10Prob;
+        if (oov[starts[s] + position] === 0) without[s] += log10Prob;
+      });
+    } else {
+      const state = this.state;
+      for (let s = 0; s < count; s++) {
+        this.model.resetState(state);
+        for (let at = starts[s]; at < starts[s + 1]; at++) {
+          const log10Prob = this.model.step(state, ids[at]);
+          withUnk[s] += log10Prob;
+          if (oov[at] === 0) without[s] += log10Prob;
+        }
+      }
+    }
+    for (let s = 0; s < count; s++) {
+      let oovs = 0;
+      for (let at = starts[s]; at < starts[s + 1]; at++) oovs += oov[at];
+      this.onSentence(starts[s + 1] - starts[s], oovs, without[s], withUnk[s]);
+    }
+    this.tokens = 0;
+    this.starts = [0];
+  }
+
+  /** Room for `more` ids after those gathered. */
+  private reserve(more: number): void {
+    if (this.tokens + more <= this.ids.length) return;
+    const size = Math.max(2 * this.ids.length, this.tokens + more);
+    const ids = new Int32Array(size);
+    ids.set(this.ids.subarray(0, this.tokens));
+    const oov = new Uint8Array(size);
+    oov.set(this.oov.subarray(0, this.tokens));
+    this.ids = ids;
+    this.oov = oov;
+  }
+}

@@ -23,3 +23,15 @@ export function reportError(error: unknown): number {
   process.stderr.write(`quern: internal error (please report it): ${(error as Error)?.stack ?? String(error)}\n`);
   return EXIT_STATUS.internal;
 }
+
+/**
+ * What happens when standard output cannot be written. A reader that stops early (`quern ngrams
+ * job | head`) closes the pipe, and the next write fails with EPIPE: the output is not wanted any
+ * more, so the command ends there, quietly, with status 0 (as a program killed by SIGPIPE would stop,
+ * which Node prevents). Any other failure (a full disk under `> file`) is an io error, status 4.
+ */
+export function onStdoutError(error: NodeJS.ErrnoException): never {
+  if (error.code === 'EPIPE') process.exit(0);
+  process.stderr.write(`quern: writing the output failed: ${error.message}\n`);
+  process.exit(EXIT_STATUS.io);
+}

@@ -2,7 +2,7 @@
 import yargs from 'yargs';
 import { hideBin } from 'yargs/helpers';
 import { COMMAND_LOADERS } from './commands.ts';
-import { reportError, EXIT_STATUS } from './exit.ts';
+import { onStdoutError, reportError, EXIT_STATUS } from './exit.ts';
 
 export async function main(args: string[]): Promise<number> {
   try {
@@ -38,5 +38,6 @@ export async function main(args: string[]): Promise<number> {
   }
 }
 
+process.stdout.on('error', onStdoutError);
 const status = await main(hideBin(process.argv));
 process.exitCode = status;

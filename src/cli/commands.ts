@@ -16,6 +16,7 @@ export const COMMAND_LOADERS: Record<string, () => Promise<AnyCommand>> = {
   info: async () => (await import('./info.ts')).infoCommand,
   export: async () => (await import('./export.ts')).exportCommand,
   score: async () => (await import('./score.ts')).scoreCommand,
+  next: async () => (await import('./next.ts')).nextCommand,
   build: async () => (await import('./build.ts')).buildCommand,
   verify: async () => (await import('./verify.ts')).verifyCommand,
 };

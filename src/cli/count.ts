@@ -18,14 +18,20 @@ export function defaultMemoryBytes(): number {
  * normalisation options stay undefined when not given, so the model file's record applies.
  */
 export function corpusOptions<T>(yargs: Argv<T>, normalizeDefaults = true) {
+  return normalizeOptions(yargs, normalizeDefaults)
+    .option('format', { choices: ['auto', 'text', 'jsonl'] as const, default: 'auto' as const, describe: 'Input format; auto: .jsonl/.ndjson (optionally .gz) is JSON Lines, anything else plain text' })
+    .option('text-field', { type: 'string', describe: 'JSON Lines: dotted path of the text field, e.g. body.text' })
+    .option('skip-bad', { type: 'boolean', default: false, describe: 'Skip bad lines and records (counted and reported) instead of stopping' });
+}
+
+/** The normalisation options (--lowercase, --unicode, --split): with `normalizeDefaults` false, for
+ *  commands that read a model file, which records them. */
+export function normalizeOptions<T>(yargs: Argv<T>, normalizeDefaults = true) {
   const recorded = normalizeDefaults ? '' : ' (default: as the model file records it)';
   return yargs
     .option('lowercase', { type: 'boolean', default: normalizeDefaults ? false : undefined, describe: `Lower-case every token (locale-independent)${recorded}` })
     .option('unicode', { choices: ['none', 'nfc', 'nfkc'] as const, default: normalizeDefaults ? 'none' as const : undefined, describe: `Unicode normalisation before splitting: NFC composes accents; NFKC also folds compatibility forms (ligatures, full-width letters)${recorded}` })
-    .option('split', { choices: ['space', 'chars'] as const, default: normalizeDefaults ? 'space' as const : undefined, describe: `space: tokens are separated by white space; chars: every non-space character is a token (scripts written without spaces)${recorded}` })
-    .option('format', { choices: ['auto', 'text', 'jsonl'] as const, default: 'auto' as const, describe: 'Input format; auto: .jsonl/.ndjson (optionally .gz) is JSON Lines, anything else plain text' })
-    .option('text-field', { type: 'string', describe: 'JSON Lines: dotted path of the text field, e.g. body.text' })
-    .option('skip-bad', { type: 'boolean', default: false, describe: 'Skip bad lines and records (counted and reported) instead of stopping' });
+    .option('split', { choices: ['space', 'chars'] as const, default: normalizeDefaults ? 'space' as const : undefined, describe: `space: tokens are separated by white space; chars: every non-space character is a token (scripts written without spaces)${recorded}` });
 }
 
 /** `--token-files` of the commands that count (count, build). */

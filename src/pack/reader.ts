@@ -1623,6 +1623,24 @@ export class PackedModel {
   }
 
   /**
+   * Calls `onWord` with the last word id of every n-gram of the model that extends a suffix of the
+   * history of `state` by one word (the children of each of its context rows, longest context first;
+   * an id may come more than once). Every word whose probability after the history is not backed
+   * off to order 1 is among them (src/score/next-words.ts).
+   */
+  continuations(state: ModelState, onWord: (id: number) => void): void {
+    const length = state.length;
+    for (let k = length; k >= 1; k--) {
+      const row = state.data[length + k - 1];
+      if (row < 0) continue;
+      const start = childrenStart(this.hot[k], row);
+      const end = childrenEnd(this.hot[k], row);
+      const next = this.hot[k + 1];
+      for (let child = start; child < end; child++) onWord(this.words16 ? next.words16[child] : unpackId(next.words, child, this.wordBits, this.wordMask));
+    }
+  }
+
+  /**
    * Scores a tokenised sentence wrapped as `<s> w1 … wm </s>` (DESIGN.md): every token and `</s>` is
    * predicted from the tokens before it. A token outside the vocabulary, and a literal `<s>`, `</s>`
    * or `<unk>`, is an OOV: scored as `<unk>`, it stays in the history as `<unk>`. An empty sentence

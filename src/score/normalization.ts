@@ -30,7 +30,7 @@ export function resolveNormalize(recorded: NormalizeOptions | null, given: Parti
     .map((key) => `${OPTION_OF[key]} ${String(given[key])} (the model was trained with ${String(recorded[key])})`);
   if (conflicts.length > 0) {
     throw new QuernError('config', `${conflicts.join('; ')}: text normalised unlike the training text turns known words into OOVs and raises perplexity. ` +
-      `Leave the normalisation options out: the model file records ${describeNormalize(recorded)}, and score uses that.`);
+      `Leave the normalisation options out: the model file records ${describeNormalize(recorded)}, and text is read that way.`);
   }
   return { normalize: { ...recorded }, source: 'model' };
 }

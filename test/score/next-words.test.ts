@@ -1,0 +1,129 @@
+/**
+ * The most probable next tokens (`nextTokens`, `quern next`) against scoring every token of the
+ * vocabulary after the same history with `logProb` (which finds the history's rows afresh, not from
+ * a state), on float32, 8-bit (many equal values: ties by id) and stupid-backoff models; and, for a
+ * normalised model, the whole list's probabilities sum to 1 (a conditional distribution: common
+ * practice for any normalised language model).
+ */
+import { join } from 'node:path';
+import { afterAll, describe, expect, test } from 'vitest';
+import { nextCommand } from '../../src/cli/next.ts';
+import { BOS_ID } from '../../src/corpus/vocabulary.ts';
+import { countCorpus } from '../../src/estimate/counts.ts';
+import { nodeFs } from '../../src/job/fsio.ts';
+import { openModel, type PackedModel } from '../../src/pack/reader.ts';
+import { packModel } from '../../src/pack/writer.ts';
+import { contextState, nextTokens, type NextToken } from '../../src/score/next-words.ts';
+import { estimateWith, markovCorpus } from '../estimate/support.ts';
+import { temporaryDirectory } from '../pack/support.ts';
+import { runCommandsInProcess } from '../support/in-process.ts';
+
+const { dir, remove } = temporaryDirectory('next-words');
+afterAll(remove);
+
+const train = markovCorpus(41, 1500, 60, 12);
+const counts = countCorpus(train, 4);
+const files = {
+  float32: join(dir, 'mkn.qm'),
+  eightBit: join(dir, 'mkn8.qm'),
+  stupid: join(dir, 'sb.qm'),
+};
+
+async function models(): Promise<Record<keyof typeof files, PackedModel>> {
+  await packModel(estimateWith('modified-kneser-ney', counts, []), { fingerprint: '' }, nodeFs, files.float32);
+  await packModel(estimateWith('modified-kneser-ney', counts, []), { fingerprint: '', quantBits: 8 }, nodeFs, files.eightBit);
+  await packModel(estimateWith('stupid-backoff', counts, []), { fingerprint: '' }, nodeFs, files.stupid);
+  return { float32: await openModel(files.float32), eightBit: await openModel(files.eightBit), stupid: await openModel(files.stupid) };
+}
+
+/** Every token 1..V scored by logProb after `history` (ids), best first, ties by id. */
+function bruteForce(model: PackedModel, history: number[], keep: (id: number) => boolean = () => true): NextToken[] {
+  const all: NextToken[] = [];
+  for (let id = 1; id <= model.vocabularySize; id++) {
+    if (!keep(id)) continue;
+    const { log10Prob, order } = model.logProb(history, id);
+    all.push({ id, word: model.word(id), log10Prob, order });
+  }
+  return all.sort((a, b) => b.log10Prob - a.log10Prob || a.id - b.id);
+}
+
+describe('nextTokens', () => {
+  test('the best tokens after many contexts are those of scoring the whole vocabulary, in the same order', async () => {
+    const opened = await models();
+    // Contexts: none, seen word sequences of 1-3 words, sequences never seen, and OOV words.
+    const contexts: string[][] = [[], ['zzz-unseen'], ['zzz-unseen', 'yyy-unseen', 'xxx-unseen']];
+    for (const sentence of train.slice(0, 12)) for (let length = 1; length <= Math.min(3, sentence.length); length++) contexts.push(sentence.slice(0, length));
+    for (const sentence of train.slice(12, 20)) contexts.push([...sentence.slice(0, 2)].reverse());
+    for (const [name, model] of Object.entries(opened)) {
+      for (const words of contexts) {
+        for (const sentenceStart of [true, false]) {
+          const ids = words.map((word) => (model.textWordId(word) < 0 ? model.unkId : model.textWordId(word)));
+          const history = sentenceStart ? [BOS_ID, ...ids] : ids;
+          const state = contextState(model, words, sentenceStart);
+          const expected = bruteForce(model, history);
+          for (const top of [1, 5, 40]) {
+            expect(nextTokens(model, state, { top }), `${name} after ${sentenceStart ? '<s> ' : ''}${words.join(' ')}, top ${top}`).toEqual(expected.slice(0, top));
+          }
+        }
+      }
+    }
+  });
+
+  test('a back-off model whose continuations score below a frequent word\'s backed-off score: that word is still found', async () => {
+    // After "q" the model has 31 continuations, "the" (the most frequent word) among them; with
+    // stupid backoff S(the | q) = 1/31, but "and", never after "q", scores 0.4 · p1(and) ≈ 0.12:
+    // the best token comes from the unigram ranking past a word that is a continuation.
+    const designed = [
+      ...Array.from({ length: 200 }, () => ['the', 'and', 'the', 'and', 'of']),
+      ['q', 'the'], ...Array.from({ length: 30 }, (_, i) => ['q', `rare${i}`]),
+    ];
+    const file = join(dir, 'designed.qm');
+    await packModel(estimateWith('stupid-backoff', countCorpus(designed, 2), []), { fingerprint: '' }, nodeFs, file);
+    const model = await openModel(file);
+    for (const top of [1, 2, 3]) {
+      const got = nextTokens(model, contextState(model, ['q']), { top });
+      expect(got).toEqual(bruteForce(model, [BOS_ID, model.textWordId('q')]).slice(0, top));
+      expect(got[0].word).toBe('and');
+    }
+  });
+
+  test('a prefix and excluded ids keep only those tokens, still exactly the best of them', async () => {
+    const { float32: model, eightBit } = await models();
+    const exclude = new Set([model.eosId, model.unkId]);
+    for (const m of [model, eightBit]) {
+      for (const words of [[], train[3].slice(0, 2), ['zzz-unseen']]) {
+        const state = contextState(m, words);
+        const history = [BOS_ID, ...words.map((word) => (m.textWordId(word) < 0 ? m.unkId : m.textWordId(word)))];
+        for (const prefix of ['w1', 'w', 'w2', 'nothing-starts-so']) {
+          const keep = (id: number): boolean => !exclude.has(id) && m.word(id).startsWith(prefix);
+          expect(nextTokens(m, state, { top: 7, prefix, exclude })).toEqual(bruteForce(m, history, keep).slice(0, 7));
+        }
+      }
+    }
+  });
+
+  test('a normalised model: the probabilities of every next token sum to 1', async () => {
+    const { float32: model } = await models();
+    for (const words of [[], train[0].slice(0, 1), train[5].slice(0, 3), ['zzz-unseen']]) {
+      const all = nextTokens(model, contextState(model, words), { top: model.vocabularySize });
+      expect(all).toHaveLength(model.vocabularySize);
+      // float32 values: each term to ~7 digits.
+      expect(all.reduce((sum, token) => sum + 10 ** token.log10Prob, 0)).toBeCloseTo(1, 5);
+    }
+  });
+
+  test('quern next prints them, tokenised as the model records; bad options are refused', async () => {
+    await models();
+    const words = train[2].slice(0, 2);
+    const printed = JSON.parse(await runCommandsInProcess([nextCommand], ['next', files.float32, words.join('  '), '--top', '4', '--json']));
+    const model = await openModel(files.float32);
+    const expected = nextTokens(model, contextState(model, words), { top: 4 });
+    expect(printed.context).toEqual(['<s>', ...words]);
+    expect(printed.next).toEqual(expected.map(({ word, log10Prob, order }) => ({ word, log10Prob, probability: 10 ** log10Prob, order })));
+    const text = await runCommandsInProcess([nextCommand], ['next', files.float32, words.join(' '), '--top', '2', '--prefix', 'w']);
+    expect(text.split('\n')[0]).toBe(`after <s> ${words.join(' ')}, starting with "w": log10 p, p, the order that answered`);
+    expect(text.trim().split('\n')).toHaveLength(3);
+    await expect(runCommandsInProcess([nextCommand], ['next', files.float32, 'a', '--prefix', 'two words'])).rejects.toThrow(/--prefix must be the start of one token/);
+    await expect(runCommandsInProcess([nextCommand], ['next', files.float32, 'a', '--top', '0'])).rejects.toThrow(/--top/);
+  });
+});

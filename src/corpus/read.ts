@@ -13,8 +13,10 @@ import { makeRecordReader, type RecordReader } from './jsonl.ts';
 import { countNewlines, forEachLine, isBlankLine } from './lines.ts';
 import type { Chunk, InputFile, ReadOptions, ReadStats, SkippedSample } from './types.ts';
 
-/** Receives one sentence: the raw text of a line (no normalisation yet), never blank. */
-export type SentenceHandler = (text: string) => void;
+/** Receives one sentence: the raw text of a line (no normalisation yet), never blank, and the line
+ *  it is on, counted from 1 at the chunk's first line (JSONL: the record's line; each line of its
+ *  text is a sentence of that line). */
+export type SentenceHandler = (text: string, lineInChunk: number) => void;
 
 /** What a `LinesHandler` found in the lines it was given. */
 export interface LinesSeen {
@@ -420,7 +422,7 @@ class LineReader {
           emptyLines++;
         } else {
           sentences++;
-          onSentence(line);
+          onSentence(line, this.stats.lines + lines);
         }
         position = next;
       }
@@ -466,7 +468,7 @@ class LineReader {
       this.stats.emptyLines++;
     } else {
       this.stats.sentences++;
-      this.onSentence!(line);
+      this.onSentence!(line, this.stats.lines);
     }
   };
 

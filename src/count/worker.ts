@@ -387,8 +387,8 @@ async function scoreTask(chunk: Chunk): Promise<void> {
   progressBytes += chunk.byteEnd - chunk.byteStart;
   progressTokens += result.sums.tokens;
   flushProgress(true);
-  const lines = result.lines;
-  port.postMessage({ type: 'done', ...result } satisfies FromWorker, lines === null ? [] : [lines.tokens.buffer, lines.oov.buffer, lines.log10Prob.buffer, lines.log10ProbWithUnk.buffer] as ArrayBuffer[]);
+  const records = result.records;
+  port.postMessage({ type: 'done', ...result } satisfies FromWorker, records === null ? [] : Object.values(records).map((array) => array.buffer as ArrayBuffer));
 }
 
 /** Starts a phase: its settings, and a fresh state for it. */

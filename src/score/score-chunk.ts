@@ -4,8 +4,10 @@
  * phase 'score') alike. Its sums are added sentence by sentence in order, and the command adds the
  * chunks' sums in chunk order, so the totals do not depend on how many threads scored them.
  */
-import type { ChunkReadStats } from '../corpus/read.ts';
+import { clearTokenBlock, newTokenBlock, SentenceTextAdder } from '../corpus/byte-tokenizer.ts';
+import { readChunk, type ChunkReadStats } from '../corpus/read.ts';
 import { TokenReader } from '../corpus/read-tokens.ts';
+import { makeTokenizer } from '../corpus/tokenize.ts';
 import type { Chunk, InputFile, NormalizeOptions } from '../corpus/types.ts';
 import type { PackedModel } from '../pack/reader.ts';
 import type { PerplexitySums } from './perplexity.ts';
@@ -17,16 +19,24 @@ export interface ScoreSettings {
   /** JSON Lines: the text field's path. */
   textField: string[] | undefined;
   skipBad: boolean;
-  /** Keep each sentence's figures (ChunkScore.lines), for per-line records. */
+  /** Keep each record's figures (ChunkScore.records), for per-line records. */
   perLine: boolean;
 }
 
-/** Per sentence of a chunk, in order: what its per-line record reports. */
-export interface SentenceFigures {
+/**
+ * Per record of a chunk, in order, what its per-line record reports: a record is a sentence of plain
+ * text, or a JSON Lines document (the sums over the lines of its text field, which are its
+ * sentences; a document without a sentence has no record).
+ */
+export interface RecordFigures {
   tokens: Int32Array;
   oov: Int32Array;
   log10Prob: Float64Array;
   log10ProbWithUnk: Float64Array;
+  /** JSON Lines: each document's line, counted from 1 at the chunk's first line, and its
+   *  sentences; empty for plain text. */
+  line: Int32Array;
+  sentences: Int32Array;
 }
 
 /** A scored chunk (structured-clone safe, for a worker's reply). */
@@ -36,35 +46,81 @@ export interface ChunkScore {
   /** What reading saw (a skipped line's number within the chunk: `lineInChunk`). */
   reads: ChunkReadStats;
   /** Null unless ScoreSettings.perLine. */
-  lines: SentenceFigures | null;
+  records: RecordFigures | null;
 }
+
+/** Tokens a JSON Lines chunk's block gathers before they are scored. */
+const JSONL_BLOCK_TOKENS = 1 << 16;
 
 /** Scores `chunk` of `file` with `model` (a normalised one: the caller checks). */
 export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chunk, settings: ScoreSettings): Promise<ChunkScore> {
   const sums: PerplexitySums = { sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0 };
+  const documents = file.format === 'jsonl';
   const tokens: number[] = [];
   const oov: number[] = [];
   const log10Prob: number[] = [];
   const log10ProbWithUnk: number[] = [];
-  // The text's tokens are looked up in the model's words from their bytes (TokenReader, as the
-  // count reads text), and scored in groups (BlockScorer: many sentences at once for a large model).
-  const scorer = new BlockScorer(model, modelWords(model), (sentenceTokens, sentenceOov, sentenceLog10Prob, sentenceLog10ProbWithUnk) => {
+  const line: number[] = [];
+  const sentences: number[] = [];
+  // JSON Lines: the line of each sentence given to the scorer, and how many have been scored.
+  const sentenceLines: number[] = [];
+  let scored = 0;
+  // The tokens are looked up in the model's words (a WordTable), and scored in groups (BlockScorer:
+  // many sentences at once for a large model), each sentence's figures coming back in order.
+  const words = modelWords(model);
+  const scorer = new BlockScorer(model, words, (sentenceTokens, sentenceOov, sentenceLog10Prob, sentenceLog10ProbWithUnk) => {
     sums.sentences++;
     sums.tokens += sentenceTokens;
     sums.oov += sentenceOov;
     sums.log10Prob += sentenceLog10Prob;
     sums.log10ProbWithUnk += sentenceLog10ProbWithUnk;
     if (!settings.perLine) return;
-    tokens.push(sentenceTokens);
-    oov.push(sentenceOov);
-    log10Prob.push(sentenceLog10Prob);
-    log10ProbWithUnk.push(sentenceLog10ProbWithUnk);
+    const at = tokens.length - 1;
+    if (documents && at >= 0 && line[at] === sentenceLines[scored]) {
+      // Another sentence of the same document.
+      tokens[at] += sentenceTokens;
+      oov[at] += sentenceOov;
+      log10Prob[at] += sentenceLog10Prob;
+      log10ProbWithUnk[at] += sentenceLog10ProbWithUnk;
+      sentences[at]++;
+    } else {
+      tokens.push(sentenceTokens);
+      oov.push(sentenceOov);
+      log10Prob.push(sentenceLog10Prob);
+      log10ProbWithUnk.push(sentenceLog10ProbWithUnk);
+      if (documents) {
+        line.push(sentenceLines[scored]);
+        sentences.push(1);
+      }
+    }
+    scored++;
   });
-  const reader = new TokenReader(settings.normalize, modelWords(model).table, false);
-  const reads = await reader.read(file, chunk, { format: file.format, textField: settings.textField, skipBad: settings.skipBad }, (block) => scorer.add(block));
+  const options = { format: file.format, textField: settings.textField, skipBad: settings.skipBad };
+  let reads: ChunkReadStats;
+  if (documents) {
+    // JSON Lines text is read as strings (as TokenReader reads it), here with each sentence's line.
+    const adder = new SentenceTextAdder(makeTokenizer(settings.normalize));
+    const block = newTokenBlock();
+    reads = await readChunk(file, chunk, options, (sentence, lineInChunk) => {
+      adder.add(sentence, words.table, false, block);
+      if (settings.perLine) sentenceLines.push(lineInChunk);
+      if (block.tokens >= JSONL_BLOCK_TOKENS) {
+        scorer.add(block);
+        clearTokenBlock(block);
+      }
+    });
+    scorer.add(block);
+  } else {
+    // Plain text: the tokens are looked up from their bytes (TokenReader, as the count reads text).
+    const reader = new TokenReader(settings.normalize, words.table, false);
+    reads = await reader.read(file, chunk, options, (block) => scorer.add(block));
+  }
   scorer.flush();
-  const lines = settings.perLine
-    ? { tokens: Int32Array.from(tokens), oov: Int32Array.from(oov), log10Prob: Float64Array.from(log10Prob), log10ProbWithUnk: Float64Array.from(log10ProbWithUnk) }
+  const records = settings.perLine
+    ? {
+        tokens: Int32Array.from(tokens), oov: Int32Array.from(oov), log10Prob: Float64Array.from(log10Prob), log10ProbWithUnk: Float64Array.from(log10ProbWithUnk),
+        line: Int32Array.from(line), sentences: Int32Array.from(sentences),
+      }
     : null;
-  return { chunk: chunk.index, sums, reads, lines };
+  return { chunk: chunk.index, sums, reads, records };
 }

@@ -78,14 +78,45 @@ describe('quern score on worker threads', () => {
     const lines2 = await score([modelFile, ...inputs, ...chunked, '--workers', '2', '--per-line']);
     expect(lines2).toBe(lines1);
     const perLine = lines1.trim().split('\n').map((line) => JSON.parse(line));
-    expect(perLine).toHaveLength(plain.length + wider.length + records.length);
+    // A sentence of plain text each, a document (two sentences) of the JSON Lines file each.
+    expect(perLine).toHaveLength(plain.length + wider.length + records.length / 2);
     const ofPlain = perLine.filter((record) => record.file === files.plain);
     expect(ofPlain.map((record) => record.sentence)).toEqual(Array.from({ length: plain.length }, (_, i) => i + 1));
     expect(ofPlain.reduce((sum, record) => sum + record.tokens, 0)).toBe(result.files[0].tokens);
+    // A document's record: its line in the file, and the sums of its two sentences' scores.
+    const documents = perLine.filter((record) => record.file === files.jsonl);
+    const packed = await openModel(modelFile);
+    expect(documents.map((record) => record.line)).toEqual(Array.from({ length: records.length / 2 }, (_, i) => i + 1));
+    for (const [i, document] of documents.entries()) {
+      const [first, second] = [packed.scoreSentence(records[2 * i]), packed.scoreSentence(records[2 * i + 1])];
+      expect(document.sentences).toBe(2);
+      expect(document.tokens).toBe(first.tokens.length + second.tokens.length);
+      expect(document.log10Prob).toBe(first.log10Prob + second.log10Prob);
+      expect(document.perplexity).toBe(10 ** (-(first.log10Prob + second.log10Prob) / (document.tokens - document.oov)));
+    }
     // Each record is its sentence's score (sentence 1234 of the plain file, at the model's precision).
     const alone = perplexity(model, [plain[1233]]);
     expect(ofPlain[1233].tokens).toBe(alone.tokens);
     expect(ofPlain[1233].log10Prob).toBeCloseTo(alone.log10Prob, 5);
+  });
+
+  test('long JSON Lines documents: each one record, across the scorer\'s groups of tokens', async () => {
+    // 250 documents of 40 sentences, ~80,000 tokens in one chunk: past the JSON Lines block and
+    // the scorer's group (2^16 tokens each), so documents are cut between groups.
+    const sentences = markovCorpus(26, 10_000, 40, 12);
+    const file = join(dir, 'long.jsonl');
+    writeFileSync(file, Array.from({ length: 250 }, (_, d) => JSON.stringify({ body: { text: sentences.slice(40 * d, 40 * d + 40).map((words) => words.join(' ')).join('\n') } })).join('\n') + '\n');
+    const printed = await score([modelFile, file, '--text-field', 'body.text', '--per-line', '--workers', '1']);
+    const documents = printed.trim().split('\n').map((line) => JSON.parse(line));
+    expect(documents).toHaveLength(250);
+    const packed = await openModel(modelFile);
+    for (const [d, document] of documents.entries()) {
+      const scores = sentences.slice(40 * d, 40 * d + 40).map((words) => packed.scoreSentence(words));
+      expect(document.line).toBe(d + 1);
+      expect(document.sentences).toBe(40);
+      expect(document.tokens).toBe(scores.reduce((sum, one) => sum + one.tokens.length, 0));
+      expect(document.log10Prob).toBe(scores.reduce((sum, one) => sum + one.log10Prob, 0));
+    }
   });
 
   test('a bad line in a chunk a worker reads: an error naming file and line, or skipped and reported', async () => {

@@ -1,5 +1,5 @@
 /** The whole job in one command, and scoring with the packed model, against the in-memory estimator. */
-import { readFileSync } from 'node:fs';
+import { existsSync, readFileSync } from 'node:fs';
 import * as path from 'node:path';
 import { describe, expect, test } from 'vitest';
 import { loadCountTables } from '../../src/estimate/from-store.ts';
@@ -36,6 +36,29 @@ describe('quern build and quern score', () => {
     const records = lines.stdout.trim().split('\n').map((l) => JSON.parse(l));
     expect(records).toHaveLength(expected.sentences);
     expect(records.reduce((s, r) => s + r.tokens, 0)).toBe(expected.tokens);
+
+    // quern pack JOB: the job's estimate packed again: the same bytes as build wrote, or 8-bit codes.
+    const again = path.join(dir, 'again.qm');
+    const packed = await runQuern(['pack', `${out}.job`, '--out', again]);
+    expect(packed.status).toBe(0);
+    expect(readFileSync(again).equals(readFileSync(out))).toBe(true);
+    const coded = await runQuern(['pack', `${out}.job`, '--out', path.join(dir, 'coded.qm'), '--quant', '8']);
+    expect(coded.stdout).toMatch(/8-bit quantised values/);
+    const info = await runQuern(['info', path.join(dir, 'coded.qm')]);
+    expect(info.stdout).toMatch(/text +normalised as --lowercase/);
+  });
+
+  test('quern pack of a directory that is not a job, or of a job without an estimate: refused, no file', async () => {
+    const dir = tempDir();
+    const notJob = await runQuern(['pack', path.join(REPO, 'sample-data'), '--out', path.join(dir, 'x.qm')]);
+    expect(notJob.status).toBe(2);
+    expect(notJob.stderr).toMatch(/is a directory but not a quern job \(no job\.json\)/);
+    const job = path.join(dir, 'job');
+    await runQuern(['count', path.join(REPO, 'sample-data/logbook'), '--job', job, '--order', '2', '--quiet']);
+    const unestimated = await runQuern(['pack', job, '--out', path.join(dir, 'y.qm')]);
+    expect(unestimated.status).toBe(2);
+    expect(unestimated.stderr).toMatch(/holds no finished estimate; run quern estimate first/);
+    expect(existsSync(path.join(dir, 'x.qm')) || existsSync(path.join(dir, 'y.qm'))).toBe(false);
   });
 
   test('a stupid-backoff model is refused by score: scores, not probabilities', async () => {

@@ -4,6 +4,7 @@ import type { CommandModule } from 'yargs';
 import type { MethodParameters, OrderDiscounts } from '../estimate/model.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
 import { describeNormalize } from '../score/normalization.ts';
+import { formatQuantEffect, measureQuantEffect } from './quant-effect.ts';
 
 /** The method's parameters in a few words per order. */
 export function describeParameters(parameters: MethodParameters): string[] {
@@ -55,15 +56,19 @@ export const infoCommand: CommandModule = {
     .positional('model', { type: 'string', describe: 'Model file written by quern pack' })
     .option('json', { type: 'boolean', default: false, describe: 'Print the description as JSON' })
     .option('check', { type: 'boolean', default: false, describe: 'Also check the structure of every order (children ranges, word id order, codes): a pass over every n-gram' })
+    .option('heldout', { type: 'string', array: true, describe: 'Held-out text (plain or gzip; normalised as the model file records): its perplexity with the values as stored and, for a file of floats, with the 16- and 8-bit codes quern pack --quant would give (each packed into a temporary file beside the model)' })
     .example('$0 info model.qm', 'What the file holds; exit status 5 if it is damaged')
-    .example('$0 info model.qm --check', 'The same, after checking every n-gram of the file, not only its checksums'),
+    .example('$0 info model.qm --check', 'The same, after checking every n-gram of the file, not only its checksums')
+    .example('$0 info model.qm --heldout dev.txt', 'What 16- and 8-bit codes would cost in held-out perplexity'),
   handler: async (argv) => {
-    const model = await openModel(argv.model as string, { checkStructure: Boolean(argv.check) });
+    const heldout = argv.heldout as string[] | undefined;
+    const model = await openModel(argv.model as string, { checkStructure: Boolean(argv.check), shared: heldout !== undefined });
+    const quantisation = heldout === undefined ? undefined : await measureQuantEffect(model, heldout, argv.json ? () => {} : (line) => process.stderr.write(line));
     if (!argv.json) {
-      process.stdout.write(formatModelInfo(model));
+      process.stdout.write(formatModelInfo(model) + (quantisation === undefined ? '' : formatQuantEffect(quantisation)));
       return;
     }
     const { filePath, version, fileBytes, order, vocabularySize, ngrams, encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked } = model;
-    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked }, null, 2) + '\n');
+    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked, ...(quantisation === undefined ? {} : { heldout: quantisation }) }, null, 2) + '\n');
   },
 };

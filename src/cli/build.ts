@@ -7,12 +7,11 @@ import * as os from 'node:os';
 import * as path from 'node:path';
 import type { CommandModule } from 'yargs';
 import { QuernError } from '../errors.ts';
-import { CHUNK_BYTES_TARGET, ORDER_MAX, PARTITIONS_DEFAULT, PARTITIONS_MAX } from '../limits.ts';
+import { CHUNK_BYTES_TARGET, ORDER_MAX, PARTITIONS_DEFAULT } from '../limits.ts';
 import { runCount } from '../job/pipeline.ts';
-import type { JobConfig } from '../job/manifest.ts';
 import { loadStatsInput } from '../stats/job-stats.ts';
 import { buildReport } from '../stats/report.ts';
-import { corpusOptions, defaultMemoryBytes, printSummary, TOKEN_FILES_OPTION } from './count.ts';
+import { corpusOptions, defaultMemoryBytes, jobConfigOf, printSummary, TOKEN_FILES_OPTION } from './count.ts';
 import { estimateJob, estimateOptions } from './estimate.ts';
 import { intInRange, parseSize } from './options.ts';
 import { makeProgress } from './progress.ts';
@@ -28,7 +27,9 @@ export const buildCommand: CommandModule = {
     .option('workers', { type: 'number', default: os.availableParallelism(), describe: 'Worker threads' })
     .option('partitions', { type: 'number', default: PARTITIONS_DEFAULT, describe: 'Partitions of the n-gram space: more make each estimate task smaller (less memory)' })
     .option('memory', { type: 'string', describe: 'Budget for counting memory, e.g. 2GiB (default: a quarter of RAM, at least 1 GiB)' })
+    .option('vocab-top', { type: 'number', describe: 'Keep the K most frequent word types; the rest count as <unk>' })
     .option('vocab-min-count', { type: 'number', describe: 'Keep word types seen at least C times; the rest count as <unk>' })
+    .option('chunk-size', { type: 'string', default: String(CHUNK_BYTES_TARGET), describe: 'Split plain inputs into line-aligned chunks of about this size' })
     .option('token-files', TOKEN_FILES_OPTION)
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' })))
     .example('$0 build corpus/ --order 4 --out model.qm', 'A modified Kneser-Ney model of order 4'),
@@ -36,17 +37,7 @@ export const buildCommand: CommandModule = {
     const out = argv.out as string;
     if (out === '') throw new QuernError('config', '--out expects a file name');
     const jobDir = (argv.job as string | undefined) ?? `${out}.job`;
-    const minCount = argv['vocab-min-count'] === undefined ? undefined : intInRange(argv['vocab-min-count'], '--vocab-min-count', 1, Number.MAX_SAFE_INTEGER);
-    const config: JobConfig = {
-      order: intInRange(argv.order, '--order', 1, ORDER_MAX),
-      partitions: intInRange(argv.partitions, '--partitions', 1, PARTITIONS_MAX),
-      normalize: { lowercase: Boolean(argv.lowercase), unicode: argv.unicode as 'none', split: argv.split as 'space' },
-      format: argv.format as 'auto',
-      textField: typeof argv['text-field'] === 'string' ? argv['text-field'] : null,
-      skipBad: Boolean(argv['skip-bad']),
-      vocabCap: minCount === undefined ? {} : { minCount },
-      chunkBytes: CHUNK_BYTES_TARGET,
-    };
+    const config = jobConfigOf(argv);
     const memoryBytes = argv.memory === undefined ? defaultMemoryBytes() : parseSize(argv.memory as string, '--memory');
     const summary = await runCount({
       jobDir, inputSpecs: argv.inputs as string[], config, workers: intInRange(argv.workers, '--workers', 1, 256),

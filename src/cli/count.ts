@@ -62,6 +62,26 @@ export function printSummary(summary: CountSummary, out: NodeJS.WriteStream = pr
   for (const [k, v] of rows) out.write(`${k.padEnd(width)}  ${v}\n`);
 }
 
+/** The job settings of the counting commands' options (count, build), checked. */
+export function jobConfigOf(argv: Record<string, unknown>): JobConfig {
+  const vocabTop = argv['vocab-top'] === undefined ? undefined : intInRange(argv['vocab-top'], '--vocab-top', 1, 2 ** 32 - 16);
+  const vocabMinCount = argv['vocab-min-count'] === undefined ? undefined : intInRange(argv['vocab-min-count'], '--vocab-min-count', 1, Number.MAX_SAFE_INTEGER);
+  const config: JobConfig = {
+    order: intInRange(argv.order, '--order', 1, ORDER_MAX),
+    partitions: intInRange(argv.partitions, '--partitions', 1, PARTITIONS_MAX),
+    normalize: { lowercase: Boolean(argv.lowercase), unicode: argv.unicode as 'none', split: argv.split as 'space' },
+    format: argv.format as 'auto',
+    textField: typeof argv['text-field'] === 'string' ? argv['text-field'] : null,
+    skipBad: Boolean(argv['skip-bad']),
+    vocabCap: { ...(vocabTop !== undefined ? { top: vocabTop } : {}), ...(vocabMinCount !== undefined ? { minCount: vocabMinCount } : {}) },
+    chunkBytes: parseSize(argv['chunk-size'] as string, '--chunk-size'),
+  };
+  if (config.textField !== null && !/^[^.]+(\.[^.]+)*$/.test(config.textField)) {
+    throw new QuernError('config', `--text-field expects a dotted path such as body.text, got '${config.textField}'`);
+  }
+  return config;
+}
+
 export const countCommand: CommandModule = {
   command: 'count <inputs..>',
   describe: 'Count every n-gram up to --order of the inputs (files, directories, globs) into a job directory',
@@ -84,21 +104,7 @@ export const countCommand: CommandModule = {
     .example('$0 count "crawl/*.jsonl.gz" --text-field body.text --job job', 'Count the text at body.text of JSON Lines shards')
     .example('$0 count new-shards/ --job job --order 5 --add', 'Add shards to a counted job'),
   handler: async (argv) => {
-    const vocabTop = argv['vocab-top'] === undefined ? undefined : intInRange(argv['vocab-top'], '--vocab-top', 1, 2 ** 32 - 16);
-    const vocabMinCount = argv['vocab-min-count'] === undefined ? undefined : intInRange(argv['vocab-min-count'], '--vocab-min-count', 1, Number.MAX_SAFE_INTEGER);
-    const config: JobConfig = {
-      order: intInRange(argv.order, '--order', 1, ORDER_MAX),
-      partitions: intInRange(argv.partitions, '--partitions', 1, PARTITIONS_MAX),
-      normalize: { lowercase: Boolean(argv.lowercase), unicode: argv.unicode as 'none', split: argv.split as 'space' },
-      format: argv.format as 'auto',
-      textField: typeof argv['text-field'] === 'string' ? argv['text-field'] : null,
-      skipBad: Boolean(argv['skip-bad']),
-      vocabCap: { ...(vocabTop !== undefined ? { top: vocabTop } : {}), ...(vocabMinCount !== undefined ? { minCount: vocabMinCount } : {}) },
-      chunkBytes: parseSize(argv['chunk-size'] as string, '--chunk-size'),
-    };
-    if (config.textField !== null && !/^[^.]+(\.[^.]+)*$/.test(config.textField)) {
-      throw new QuernError('config', `--text-field expects a dotted path such as body.text, got '${config.textField}'`);
-    }
+    const config = jobConfigOf(argv);
     if (argv.add && argv.restart) throw new QuernError('config', '--add and --restart cannot go together: --restart discards the job that --add would extend');
     const workers = intInRange(argv.workers, '--workers', 1, 256);
     const memoryBytes = argv.memory === undefined ? defaultMemoryBytes() : parseSize(argv.memory as string, '--memory');

@@ -48,6 +48,21 @@ describe('quern build and quern score', () => {
     expect(info.stdout).toMatch(/text +normalised as --lowercase/);
   });
 
+  test('quern build takes the count\'s vocabulary cap and chunk size, and checks --text-field as count does', async () => {
+    const dir = tempDir();
+    const out = path.join(dir, 'capped.qm');
+    const built = await runQuern(['build', path.join(REPO, 'sample-data/logbook'), '--order', '2', '--vocab-top', '500', '--chunk-size', '64KiB', '--fallback', '--out', out, '--quiet']);
+    expect(built.status).toBe(0);
+    const info = JSON.parse((await runQuern(['info', out, '--json'])).stdout);
+    expect(info.vocabularyCap).toEqual({ top: 500 });
+    expect(info.vocabularySize).toBe(502); // 500 words, </s> and <unk>
+    const job = JSON.parse(readFileSync(`${out}.job/job.json`, 'utf8'));
+    expect(job.config.chunkBytes).toBe(65536);
+    const bad = await runQuern(['build', path.join(REPO, 'sample-data/logbook'), '--text-field', 'a..b', '--out', path.join(dir, 'x.qm'), '--quiet']);
+    expect(bad.status).toBe(2);
+    expect(bad.stderr).toMatch(/--text-field expects a dotted path/);
+  });
+
   test('quern pack of a directory that is not a job, or of a job without an estimate: refused, no file', async () => {
     const dir = tempDir();
     const notJob = await runQuern(['pack', path.join(REPO, 'sample-data'), '--out', path.join(dir, 'x.qm')]);

@@ -304,6 +304,11 @@ export const ARPA_SORT_BYTES_DEFAULT = 512 << 20;
  *  very many runs). ~70 KB at order 5. */
 export const ARPA_SORT_ROWS_MIN = 1_024;
 
+/** Rows the ARPA sort buffers while every row so far came in id order (a file Quern wrote) before
+ *  it appends them to the order's one run: a few blocks, so that such a file keeps only the start
+ *  of the `--memory` buffer in use instead of filling all of it between writes. */
+export const ARPA_ASCENDING_FLUSH_ROWS = 8 * 8_192;
+
 /** Rows per block of the ARPA sort's files (arpa-rows.ts): even, so that the blocks' f64 fields
  *  are 8-byte aligned; 8,192 rows are 320 KB at order 5, one read per block in a merge of runs. */
 export const ARPA_BLOCK_ROWS = 8_192;

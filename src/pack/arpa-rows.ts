@@ -6,8 +6,9 @@
  * and a model file wants them by ids. So the rows of an order are gathered in a buffer of at most
  * `budgetBytes`; a full buffer is sorted (LSD radix sort over the ids) and written out as a run, and
  * at the order's end the runs are merged into one file. Rows that arrive in ascending order already
- * (a file Quern wrote) skip both: their buffers are appended to one run as they come, and an order
- * that is one run needs no merge. Two equal n-grams meet in the sort or the merge and stop the read
+ * (a file Quern wrote) skip both: they are appended to one run a few blocks at a time as they come
+ * (ARPA_ASCENDING_FLUSH_ROWS), so only the start of the buffer is ever used, and an order that is
+ * one run needs no merge. Two equal n-grams meet in the sort or the merge and stop the read
  * with both lines; so does an n-gram whose context (its first n − 1 words) is not an n-gram of the
  * order below, found by walking the two orders' files in step.
  *
@@ -20,7 +21,7 @@
  * as typed-array views.
  */
 import { assert, QuernError } from '../errors.ts';
-import { ARPA_BLOCK_ROWS, ARPA_SORT_ROWS_MIN } from '../limits.ts';
+import { ARPA_ASCENDING_FLUSH_ROWS, ARPA_BLOCK_ROWS, ARPA_SORT_ROWS_MIN } from '../limits.ts';
 import { sortRowsByColumns } from '../count/radix.ts';
 import { compareRows } from '../count/block-codec.ts';
 import type { Spool } from './spool.ts';
@@ -217,8 +218,10 @@ export class ArpaOrderRows {
     this.idColumns = Array.from({ length: n }, (_, i) => i);
   }
 
+  /** The buffer is to be written out (`flush`) before more rows are added: it is full, or it holds
+   *  ARPA_ASCENDING_FLUSH_ROWS rows that all came in order, which go straight to the run. */
   get full(): boolean {
-    return this.buffered === this.capacity;
+    return this.buffered === this.capacity || (this.ascending && this.buffered >= ARPA_ASCENDING_FLUSH_ROWS);
   }
 
   add(ids: Uint32Array, prob: number, backOff: number, line: number): void {

@@ -72,12 +72,13 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
       t.firstSkipped = { line: first.line ?? linesBefore[fileIndex] + first.lineInChunk, byteOffset: first.byteOffset, reason: first.reason };
     }
     if (run.onLines !== undefined && result.records !== null && result.records.tokens.length > 0) {
-      const { tokens, oov, log10Prob, log10ProbWithUnk, line, sentences } = result.records;
-      const documents = line.length > 0;
+      const { tokens, oov, log10Prob, log10ProbWithUnk, line, sentences, documents } = result.records;
       const records: string[] = [];
       for (let i = 0; i < tokens.length; i++) {
-        // A sentence of plain text by its number in the file; a JSON Lines document by its line.
-        const where = documents ? { line: linesBefore[fileIndex] + line[i], sentences: sentences[i] } : { sentence: sentencesBefore[fileIndex] + i + 1 };
+        // A sentence of plain text by its number and line in the file; a JSON Lines document by its line.
+        const where = documents
+          ? { line: linesBefore[fileIndex] + line[i], sentences: sentences[i] }
+          : { sentence: sentencesBefore[fileIndex] + i + 1, line: linesBefore[fileIndex] + line[i] };
         records.push(JSON.stringify({
           file: t.file, ...where, tokens: tokens[i], oov: oov[i], log10Prob: log10Prob[i],
           perplexity: 10 ** (-log10Prob[i] / Math.max(1, tokens[i] - oov[i])),
@@ -146,7 +147,7 @@ export const scoreCommand: CommandModule = {
   builder: (yargs) => corpusOptions(yargs
     .positional('model', { type: 'string', describe: 'A model file written by quern estimate, build or pack' })
     .positional('inputs', { type: 'string', array: true, describe: 'Files, directories or glob patterns' })
-    .option('per-line', { type: 'boolean', default: false, describe: 'Print one JSON record per sentence of plain text (its number in the file), or per JSON Lines document (its line; the sums over the lines of its text)' })
+    .option('per-line', { type: 'boolean', default: false, describe: 'Print one JSON record per sentence of plain text (its number and line in the file), or per JSON Lines document (its line; the sums over the lines of its text)' })
     .option('json', { type: 'boolean', default: false, describe: 'Print the totals as one JSON object' })
     .option('workers', { type: 'number', default: os.availableParallelism(), describe: 'Worker threads (they share the model\'s memory); 1 scores in the main thread' })
     .option('chunk-size', { type: 'string', default: String(SCORE_CHUNK_BYTES), describe: 'Split plain inputs into line-aligned chunks of about this size, the unit of work of a worker' })

@@ -24,6 +24,8 @@ export interface TokenBlock {
   /** sentenceEnds[0 .. sentences): sentence i is entries[sentenceEnds[i−1] (0 for i = 0) ..
    *  sentenceEnds[i]). A sentence may have no tokens when a normalisation removed them all. */
   sentenceEnds: Uint32Array;
+  /** sentenceLines[i]: the line sentence i is on, counted from 1 at the block's first line. */
+  sentenceLines: Uint32Array;
   sentences: number;
   /** Lines seen, blank ones included. */
   lines: number;
@@ -32,7 +34,7 @@ export interface TokenBlock {
 }
 
 export function newTokenBlock(): TokenBlock {
-  return { entries: new Int32Array(1 << 16), tokens: 0, sentenceEnds: new Uint32Array(1 << 12), sentences: 0, lines: 0, blankLines: 0 };
+  return { entries: new Int32Array(1 << 16), tokens: 0, sentenceEnds: new Uint32Array(1 << 12), sentenceLines: new Uint32Array(1 << 12), sentences: 0, lines: 0, blankLines: 0 };
 }
 
 /** Empties a block, keeping its arrays. */
@@ -61,7 +63,11 @@ function endLine(block: TokenBlock, blank: boolean): void {
     const ends = new Uint32Array(2 * block.sentenceEnds.length);
     ends.set(block.sentenceEnds);
     block.sentenceEnds = ends;
+    const lines = new Uint32Array(ends.length);
+    lines.set(block.sentenceLines);
+    block.sentenceLines = lines;
   }
+  block.sentenceLines[block.sentences] = block.lines;
   block.sentenceEnds[block.sentences++] = block.tokens;
 }
 

@@ -388,7 +388,7 @@ async function scoreTask(chunk: Chunk): Promise<void> {
   progressTokens += result.sums.tokens;
   flushProgress(true);
   const records = result.records;
-  port.postMessage({ type: 'done', ...result } satisfies FromWorker, records === null ? [] : Object.values(records).map((array) => array.buffer as ArrayBuffer));
+  port.postMessage({ type: 'done', ...result } satisfies FromWorker, records === null ? [] : [records.tokens, records.oov, records.log10Prob, records.log10ProbWithUnk, records.line, records.sentences].map((array) => array.buffer as ArrayBuffer));
 }
 
 /** Starts a phase: its settings, and a fresh state for it. */

@@ -33,10 +33,12 @@ export interface RecordFigures {
   oov: Int32Array;
   log10Prob: Float64Array;
   log10ProbWithUnk: Float64Array;
-  /** JSON Lines: each document's line, counted from 1 at the chunk's first line, and its
-   *  sentences; empty for plain text. */
+  /** Each record's line, counted from 1 at the chunk's first line, and its sentences (1 for a
+   *  sentence of plain text). */
   line: Int32Array;
   sentences: Int32Array;
+  /** Whether the records are JSON Lines documents (else sentences of plain text). */
+  documents: boolean;
 }
 
 /** A scored chunk (structured-clone safe, for a worker's reply). */
@@ -62,7 +64,7 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
   const log10ProbWithUnk: number[] = [];
   const line: number[] = [];
   const sentences: number[] = [];
-  // JSON Lines: the line of each sentence given to the scorer, and how many have been scored.
+  // The line of each sentence given to the scorer (per-line records), and how many were scored.
   const sentenceLines: number[] = [];
   let scored = 0;
   // The tokens are looked up in the model's words (a WordTable), and scored in groups (BlockScorer:
@@ -76,7 +78,7 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
     sums.log10ProbWithUnk += sentenceLog10ProbWithUnk;
     if (!settings.perLine) return;
     const at = tokens.length - 1;
-    if (documents && at >= 0 && line[at] === sentenceLines[scored]) {
+    if (at >= 0 && line[at] === sentenceLines[scored]) {
       // Another sentence of the same document.
       tokens[at] += sentenceTokens;
       oov[at] += sentenceOov;
@@ -88,10 +90,8 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
       oov.push(sentenceOov);
       log10Prob.push(sentenceLog10Prob);
       log10ProbWithUnk.push(sentenceLog10ProbWithUnk);
-      if (documents) {
-        line.push(sentenceLines[scored]);
-        sentences.push(1);
-      }
+      line.push(sentenceLines[scored]);
+      sentences.push(1);
     }
     scored++;
   });
@@ -113,13 +113,18 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
   } else {
     // Plain text: the tokens are looked up from their bytes (TokenReader, as the count reads text).
     const reader = new TokenReader(settings.normalize, words.table, false);
-    reads = await reader.read(file, chunk, options, (block) => scorer.add(block));
+    let linesBefore = 0;
+    reads = await reader.read(file, chunk, options, (block) => {
+      if (settings.perLine) for (let s = 0; s < block.sentences; s++) sentenceLines.push(linesBefore + block.sentenceLines[s]);
+      linesBefore += block.lines;
+      scorer.add(block);
+    });
   }
   scorer.flush();
   const records = settings.perLine
     ? {
         tokens: Int32Array.from(tokens), oov: Int32Array.from(oov), log10Prob: Float64Array.from(log10Prob), log10ProbWithUnk: Float64Array.from(log10ProbWithUnk),
-        line: Int32Array.from(line), sentences: Int32Array.from(sentences),
+        line: Int32Array.from(line), sentences: Int32Array.from(sentences), documents,
       }
     : null;
   return { chunk: chunk.index, sums, reads, records };

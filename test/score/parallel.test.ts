@@ -100,6 +100,25 @@ describe('quern score on worker threads', () => {
     expect(ofPlain[1233].log10Prob).toBeCloseTo(alone.log10Prob, 5);
   });
 
+  test('plain text: each sentence\'s record names its line in the file, blank lines and chunks between', async () => {
+    const file = join(dir, 'gappy.txt');
+    // Every 7th line blank (or white space only), CRLF line ends: ~2,600 sentences over ~18 chunks.
+    const lines = plain.map((words, i) => (i % 7 === 3 ? (i % 2 === 0 ? '' : ' \t ') : words.join(' ')));
+    writeFileSync(file, lines.join('\r\n') + '\r\n');
+    const expectedLines = lines.flatMap((text, i) => (text.trim() === '' ? [] : [i + 1]));
+    for (const workers of ['1', '2']) {
+      const printed = await score([modelFile, file, '--chunk-size', '4KiB', '--workers', workers, '--per-line']);
+      const records = printed.trim().split('\n').map((line) => JSON.parse(line));
+      expect(records.map((record) => record.line)).toEqual(expectedLines);
+      expect(records.map((record) => record.sentence)).toEqual(expectedLines.map((_, i) => i + 1));
+    }
+    // One chunk of ~1.6 MB: read in blocks of 1 MiB, the lines counted on across them.
+    const many = markovCorpus(27, 70_000, 40, 12).map((words, i) => (i % 11 === 5 ? '' : words.join(' ')));
+    writeFileSync(file, many.join('\n') + '\n');
+    const printed = await score([modelFile, file, '--workers', '1', '--per-line']);
+    expect(printed.trim().split('\n').map((line) => JSON.parse(line).line)).toEqual(many.flatMap((text, i) => (text === '' ? [] : [i + 1])));
+  });
+
   test('long JSON Lines documents: each one record, across the scorer\'s groups of tokens', async () => {
     // 250 documents of 40 sentences, ~80,000 tokens in one chunk: past the JSON Lines block and
     // the scorer's group (2^16 tokens each), so documents are cut between groups.

@@ -1623,21 +1623,33 @@ export class PackedModel {
   }
 
   /**
-   * Calls `onWord` with the last word id of every n-gram of the model that extends a suffix of the
-   * history of `state` by one word (the children of each of its context rows, longest context first;
-   * an id may come more than once). Every word whose probability after the history is not backed
-   * off to order 1 is among them (src/score/next-words.ts).
+   * Scores, after the history of `state`, every word that an n-gram of order ≥ 2 of the model
+   * answers: the children of the history's context rows, longest context first, each with
+   * log10 p(w | h) and the order that answered, computed as `step` computes it (the same back-off
+   * weights added in the same order). A word may come again from a shorter context: only its first
+   * score is its own. Returns the back-off weights every other word gets: log10 p(w | h) = that +
+   * log10 p1(w) (`logProb([], w)`), answered at order 1. For src/score/next-words.ts.
    */
-  continuations(state: ModelState, onWord: (id: number) => void): void {
+  scoreContinuations(state: ModelState, onWord: (id: number, log10Prob: number, order: number) => void): number {
     const length = state.length;
+    let backOff = 0;
     for (let k = length; k >= 1; k--) {
       const row = state.data[length + k - 1];
-      if (row < 0) continue;
-      const start = childrenStart(this.hot[k], row);
-      const end = childrenEnd(this.hot[k], row);
+      const level = this.hot[k];
+      const start = row >= 0 ? childrenStart(level, row) : 0;
+      const end = row >= 0 ? childrenEnd(level, row) : 0;
+      if (start >= end) {
+        backOff += this.log10UnseenContextWeight;
+        continue;
+      }
       const next = this.hot[k + 1];
-      for (let child = start; child < end; child++) onWord(this.words16 ? next.words16[child] : unpackId(next.words, child, this.wordBits, this.wordMask));
+      for (let child = start; child < end; child++) {
+        const id = this.words16 ? next.words16[child] : unpackId(next.words, child, this.wordBits, this.wordMask);
+        onWord(id, backOff + valueOf(next.prob, next.probBook, child), k + 1);
+      }
+      backOff += valueOf(level.backOff, level.backOffBook, row);
     }
+    return backOff;
   }
 
   /**

@@ -8,7 +8,9 @@
  * rows (`PackedModel.continuations`). Every other token is answered by order 1, after the same
  * back-off weights, so log10 p(w | h) = (those weights) + log10 p1(w): among them, the order of p1
  * is the order of p. The candidates are therefore the continuations and the first `top` other
- * tokens by p1; each is scored by the model itself (`advance`), and the best `top` are returned.
+ * tokens by p1. The model scores the continuations in one pass over the context rows' children
+ * (`scoreContinuations`, as `step` would score each, without a search), and the best `top` are
+ * returned.
  */
 import { ModelState, type PackedModel } from '../pack/reader.ts';
 
@@ -55,25 +57,23 @@ export function nextTokens(model: PackedModel, state: ModelState, options: NextO
   if (!(Number.isInteger(top) && top >= 1)) throw new RangeError(`top must be an integer ≥ 1 (got ${top})`);
   const size = model.vocabularySize;
   const wanted = (id: number): boolean => !(exclude?.has(id) ?? false) && (prefix === undefined || model.word(id).startsWith(prefix));
-  // Ids met as continuations (each a candidate when wanted), not to be taken again from the ranking.
+  // Ids scored as continuations (the first score of each is its own), not to be taken again from
+  // the unigram ranking.
   const seen = new Uint8Array(size + 1);
-  const candidates: number[] = [];
-  model.continuations(state, (id) => {
+  const scored: NextToken[] = [];
+  const backOff = model.scoreContinuations(state, (id, log10Prob, order) => {
     if (id < 1 || id > size || seen[id] !== 0) return;
     seen[id] = 1;
-    if (wanted(id)) candidates.push(id);
+    if (wanted(id)) scored.push({ id, word: model.word(id), log10Prob, order });
   });
   const ranked = rankedByUnigram(model);
+  const empty: number[] = [];
   for (let i = 0, others = 0; i < ranked.length && others < top; i++) {
     const id = ranked[i];
     if (seen[id] !== 0 || !wanted(id)) continue;
-    candidates.push(id);
+    scored.push({ id, word: model.word(id), log10Prob: backOff + model.logProb(empty, id).log10Prob, order: 1 });
     others++;
   }
-  const scored = candidates.map((id): NextToken => {
-    const { log10Prob, order } = model.advance(state, id);
-    return { id, word: model.word(id), log10Prob, order };
-  });
   scored.sort((a, b) => b.log10Prob - a.log10Prob || a.id - b.id);
   return scored.slice(0, top);
 }

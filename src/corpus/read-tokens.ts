@@ -58,8 +58,11 @@ export class TokenReader {
   ): Promise<ChunkReadStats> {
     const block = this.block;
     clearTokenBlock(block);
+    // Lines of the blocks handed on so far in this chunk.
+    let linesHanded = 0;
     const flush = (): void | Promise<void> => {
       if (block.sentences === 0) return;
+      linesHanded += block.lines;
       const pending = onTokens(block);
       if (pending) return pending.then(() => clearTokenBlock(block));
       clearTokenBlock(block);
@@ -70,7 +73,12 @@ export class TokenReader {
     };
     const stats = options.format === 'text' && this.route !== 'strings'
       ? await readChunkLines(file, chunk, options, (bytes, start, end) => this.lines(bytes, start, end), onProgress)
-      : await readChunk(file, chunk, options, (sentence) => this.text.add(sentence, this.table, this.intern, block), onProgress);
+      : await readChunk(file, chunk, options, (sentence, lineInChunk) => {
+        // Plain text: the blank lines readChunk passes over are counted too, so that each
+        // sentence's line in the block (TokenBlock.sentenceLines) is its line in the text.
+        if (options.format === 'text') while (linesHanded + block.lines < lineInChunk - 1) SentenceTextAdder.blankLine(block);
+        this.text.add(sentence, this.table, this.intern, block);
+      }, onProgress);
     await flush();
     return stats;
   }

@@ -112,6 +112,9 @@ describe('quern score on worker threads', () => {
       expect(records.map((record) => record.line)).toEqual(expectedLines);
       expect(records.map((record) => record.sentence)).toEqual(expectedLines.map((_, i) => i + 1));
     }
+    // Split by characters (lines tokenised as strings, not bytes): the same lines.
+    const chars = await score([modelFile, file, '--chunk-size', '4KiB', '--workers', '2', '--per-line', '--split', 'chars']);
+    expect(chars.trim().split('\n').map((line) => JSON.parse(line).line)).toEqual(expectedLines);
     // One chunk of ~1.6 MB: read in blocks of 1 MiB, the lines counted on across them.
     const many = markovCorpus(27, 70_000, 40, 12).map((words, i) => (i % 11 === 5 ? '' : words.join(' ')));
     writeFileSync(file, many.join('\n') + '\n');

@@ -28,6 +28,6 @@ export { logProb, type LanguageModel } from './estimate/model.ts';
 export { perplexity } from './score/perplexity.ts';
 export { BatchScorer, scoreSentences } from './score/batch.ts';
 export { packModel, packModelSource, type PackOptions, type PackSummary } from './pack/writer.ts';
-export { DecoderState, ModelState, openModel, type PackedModel } from './pack/reader.ts';
+export { DecoderState, ModelState, modelFromShared, openModel, type PackedModel, type SharedModel } from './pack/reader.ts';
 export { contextState, nextTokens, type NextOptions, type NextToken } from './score/next-words.ts';
 export { openArpaSource, readArpa, writeArpa, type ArpaSource } from './pack/arpa.ts';

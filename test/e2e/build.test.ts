@@ -1,5 +1,6 @@
 /** The whole job in one command, and scoring with the packed model, against the in-memory estimator. */
-import { existsSync, readFileSync } from 'node:fs';
+import { spawnSync } from 'node:child_process';
+import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import * as path from 'node:path';
 import { describe, expect, test } from 'vitest';
 import { loadCountTables } from '../../src/estimate/from-store.ts';
@@ -36,6 +37,20 @@ describe('quern build and quern score', () => {
     const records = lines.stdout.trim().split('\n').map((l) => JSON.parse(l));
     expect(records).toHaveLength(expected.sentences);
     expect(records.reduce((s, r) => s + r.tokens, 0)).toBe(expected.tokens);
+
+    // The README's library example runs as written on this model (imports pointed at the source).
+    const readme = readFileSync(path.join(REPO, 'README.md'), 'utf8');
+    const example = /## Library[\s\S]*?```ts\n([\s\S]*?)```/.exec(readme)?.[1];
+    expect(example).toBeDefined();
+    const script = path.join(dir, 'readme-example.mts');
+    writeFileSync(script, example!.replace("from 'quern'", `from ${JSON.stringify(path.join(REPO, 'src/index.ts'))}`).replace("'model.qm'", JSON.stringify(out)));
+    const ran = spawnSync(process.execPath, ['--import', 'tsx', script], { cwd: REPO, encoding: 'utf8' });
+    expect(ran.stderr).toBe('');
+    expect(ran.status).toBe(0);
+    const printed = ran.stdout.trim().split('\n');
+    expect(printed).toHaveLength(8); // 5 words and </s>, the next words, the three sums
+    expect(printed[5]).toMatch(/^<\/s> -\d+\.\d{3} [1-3]$/);
+    expect(JSON.parse(printed[6].replaceAll("'", '"'))).toHaveLength(3);
 
     // quern pack JOB: the job's estimate packed again: the same bytes as build wrote, or 8-bit codes.
     const again = path.join(dir, 'again.qm');

@@ -56,8 +56,11 @@ export async function measureQuantEffect(model: PackedModel, heldout: string[], 
     notice(`quern: packing ${model.filePath} with ${quantBits}-bit codes into ${file} to score it\n`);
     trackTemporary(file);
     try {
-      const summary = await withPackCleanup(file, () => packModelSource(model.toModelSource(), { fingerprint: model.fingerprint, quantBits }, stageFs(), file));
-      const totals = await scoreWith(await openModel(file, { shared: true }));
+      // Ctrl-C while the variant is packed or scored deletes it (it is a tracked temporary).
+      const { summary, totals } = await withPackCleanup(file, async () => {
+        const packed = await packModelSource(model.toModelSource(), { fingerprint: model.fingerprint, quantBits }, stageFs(), file);
+        return { summary: packed, totals: await scoreWith(await openModel(file, { shared: true })) };
+      });
       effect.variants.push({ values: ENCODING_NAMES[summary.encoding], bytesPerNgram: summary.bytes / ngrams, perplexity: totals.perplexity, perplexityWithUnk: totals.perplexityWithUnk });
     } finally {
       await rm(file, { force: true });

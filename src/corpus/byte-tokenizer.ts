@@ -27,7 +27,8 @@ export interface TokenBlock {
   /** sentenceLines[i]: the line sentence i is on, counted from 1 at the block's first line. */
   sentenceLines: Uint32Array;
   sentences: number;
-  /** Lines seen, blank ones included. */
+  /** Lines seen, blank ones included (JSON Lines: records; the sentences of a record's text are
+   *  all on its line). */
   lines: number;
   /** Lines that were empty or held only white space (not sentences). */
   blankLines: number;
@@ -52,9 +53,10 @@ function growEntries(block: TokenBlock): Int32Array {
   return entries;
 }
 
-/** Counts one line; a line with tokens since the last sentence end is a sentence. */
-function endLine(block: TokenBlock, blank: boolean): void {
-  block.lines++;
+/** Counts one line (not with `sameLine`: another sentence of the line before, as the lines of a
+ *  JSON Lines record's text); a line with tokens since the last sentence end is a sentence. */
+function endLine(block: TokenBlock, blank: boolean, sameLine = false): void {
+  if (!sameLine) block.lines++;
   if (blank) {
     block.blankLines++;
     return;
@@ -182,7 +184,9 @@ export class SentenceTextAdder {
 
   constructor(private readonly tokenize: Tokenizer) {}
 
-  add(text: string, table: WordTable, intern: boolean, out: TokenBlock): void {
+  /** Adds `text` as a sentence, on a line of its own or, with `sameLine`, on the line of the one
+   *  before (JSON Lines: a record's text holds several). */
+  add(text: string, table: WordTable, intern: boolean, out: TokenBlock, sameLine = false): void {
     const strings = this.strings;
     const count = this.tokenize(text, strings);
     for (let i = 0; i < count; i++) {
@@ -193,7 +197,7 @@ export class SentenceTextAdder {
       if (out.tokens === out.entries.length) growEntries(out);
       out.entries[out.tokens++] = intern ? table.intern(this.scratch, 0, length, h) : table.find(this.scratch, 0, length, h);
     }
-    endLine(out, false);
+    endLine(out, false, sameLine);
   }
 
   /** Counts a blank line (one the reader or the caller found to hold only white space). */

@@ -74,10 +74,11 @@ export class TokenReader {
     const stats = options.format === 'text' && this.route !== 'strings'
       ? await readChunkLines(file, chunk, options, (bytes, start, end) => this.lines(bytes, start, end), onProgress)
       : await readChunk(file, chunk, options, (sentence, lineInChunk) => {
-        // Plain text: the blank lines readChunk passes over are counted too, so that each
-        // sentence's line in the block (TokenBlock.sentenceLines) is its line in the text.
-        if (options.format === 'text') while (linesHanded + block.lines < lineInChunk - 1) SentenceTextAdder.blankLine(block);
-        this.text.add(sentence, this.table, this.intern, block);
+        // Each sentence's line in the block (TokenBlock.sentenceLines) is its line in the chunk: the
+        // lines readChunk passes over (blank ones; JSON Lines records without text) are counted
+        // too, and the sentences of one record's text stand on its line.
+        while (linesHanded + block.lines < lineInChunk - 1) SentenceTextAdder.blankLine(block);
+        this.text.add(sentence, this.table, this.intern, block, linesHanded + block.lines === lineInChunk);
       }, onProgress);
     await flush();
     return stats;

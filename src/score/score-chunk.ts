@@ -4,10 +4,8 @@
  * phase 'score') alike. Its sums are added sentence by sentence in order, and the command adds the
  * chunks' sums in chunk order, so the totals do not depend on how many threads scored them.
  */
-import { clearTokenBlock, newTokenBlock, SentenceTextAdder } from '../corpus/byte-tokenizer.ts';
-import { readChunk, type ChunkReadStats } from '../corpus/read.ts';
+import type { ChunkReadStats } from '../corpus/read.ts';
 import { TokenReader } from '../corpus/read-tokens.ts';
-import { makeTokenizer } from '../corpus/tokenize.ts';
 import type { Chunk, InputFile, NormalizeOptions } from '../corpus/types.ts';
 import type { PackedModel } from '../pack/reader.ts';
 import type { PerplexitySums } from './perplexity.ts';
@@ -51,9 +49,6 @@ export interface ChunkScore {
   records: RecordFigures | null;
 }
 
-/** Tokens a JSON Lines chunk's block gathers before they are scored. */
-const JSONL_BLOCK_TOKENS = 1 << 16;
-
 /** Scores `chunk` of `file` with `model` (a normalised one: the caller checks). */
 export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chunk, settings: ScoreSettings): Promise<ChunkScore> {
   const sums: PerplexitySums = { sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0 };
@@ -95,31 +90,15 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
     }
     scored++;
   });
-  const options = { format: file.format, textField: settings.textField, skipBad: settings.skipBad };
-  let reads: ChunkReadStats;
-  if (documents) {
-    // JSON Lines text is read as strings (as TokenReader reads it), here with each sentence's line.
-    const adder = new SentenceTextAdder(makeTokenizer(settings.normalize));
-    const block = newTokenBlock();
-    reads = await readChunk(file, chunk, options, (sentence, lineInChunk) => {
-      adder.add(sentence, words.table, false, block);
-      if (settings.perLine) sentenceLines.push(lineInChunk);
-      if (block.tokens >= JSONL_BLOCK_TOKENS) {
-        scorer.add(block);
-        clearTokenBlock(block);
-      }
-    });
+  // The tokens are looked up from their bytes where they can be (TokenReader, as the count reads
+  // text; JSON Lines and some normalisations as strings), each sentence with its line in the chunk.
+  const reader = new TokenReader(settings.normalize, words.table, false);
+  let linesBefore = 0;
+  const reads = await reader.read(file, chunk, { format: file.format, textField: settings.textField, skipBad: settings.skipBad }, (block) => {
+    if (settings.perLine) for (let s = 0; s < block.sentences; s++) sentenceLines.push(linesBefore + block.sentenceLines[s]);
+    linesBefore += block.lines;
     scorer.add(block);
-  } else {
-    // Plain text: the tokens are looked up from their bytes (TokenReader, as the count reads text).
-    const reader = new TokenReader(settings.normalize, words.table, false);
-    let linesBefore = 0;
-    reads = await reader.read(file, chunk, options, (block) => {
-      if (settings.perLine) for (let s = 0; s < block.sentences; s++) sentenceLines.push(linesBefore + block.sentenceLines[s]);
-      linesBefore += block.lines;
-      scorer.add(block);
-    });
-  }
+  });
   scorer.flush();
   const records = settings.perLine
     ? {

@@ -13,7 +13,7 @@
  */
 import { assert } from '../errors.ts';
 import { UNKNOWN_TOKEN, type Tokenizer } from './tokenize.ts';
-import { FNV_OFFSET, FNV_PRIME, hashBytes, type WordTable } from './word-table.ts';
+import { FNV_OFFSET, FNV_PRIME, hashBytes, type WordLookup, type WordTable } from './word-table.ts';
 
 /** Tokens of a run of lines, as word-table entries. */
 export interface TokenBlock {
@@ -117,7 +117,7 @@ export function multiByteSpaceWidth(bytes: Uint8Array, p: number, end: number): 
  * no normalisation, no lower-casing (the caller lower-cases ASCII bytes beforehand), and the
  * sentence markers are left to the table (the passes keep entries for `<s>`, `</s>`, `<unk>`).
  */
-export function scanLines(bytes: Uint8Array, start: number, end: number, table: WordTable, intern: boolean, out: TokenBlock): void {
+export function scanLines(bytes: Uint8Array, start: number, end: number, table: WordLookup, intern: boolean, out: TokenBlock): void {
   let entries = out.entries;
   let tokens = out.tokens;
   let lineStart = tokens;
@@ -156,7 +156,7 @@ export function scanLines(bytes: Uint8Array, start: number, end: number, table: 
       out.tokens = tokens;
       entries = growEntries(out);
     }
-    entries[tokens++] = intern ? table.intern(bytes, tokenStart, p, h) : table.find(bytes, tokenStart, p, h);
+    entries[tokens++] = intern ? table.intern!(bytes, tokenStart, p, h) : table.find(bytes, tokenStart, p, h);
   }
   out.tokens = tokens;
   if (end > start && bytes[end - 1] !== 0x0a) endLine(out, tokens === lineStart);
@@ -186,7 +186,7 @@ export class SentenceTextAdder {
 
   /** Adds `text` as a sentence, on a line of its own or, with `sameLine`, on the line of the one
    *  before (JSON Lines: a record's text holds several). */
-  add(text: string, table: WordTable, intern: boolean, out: TokenBlock, sameLine = false): void {
+  add(text: string, table: WordLookup, intern: boolean, out: TokenBlock, sameLine = false): void {
     const strings = this.strings;
     const count = this.tokenize(text, strings);
     for (let i = 0; i < count; i++) {
@@ -195,7 +195,7 @@ export class SentenceTextAdder {
       const length = this.scratch.write(token, 0, 'utf8');
       const h = hashBytes(this.scratch, 0, length);
       if (out.tokens === out.entries.length) growEntries(out);
-      out.entries[out.tokens++] = intern ? table.intern(this.scratch, 0, length, h) : table.find(this.scratch, 0, length, h);
+      out.entries[out.tokens++] = intern ? table.intern!(this.scratch, 0, length, h) : table.find(this.scratch, 0, length, h);
     }
     endLine(out, false, sameLine);
   }

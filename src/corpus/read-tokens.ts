@@ -9,12 +9,13 @@
  * the caller as entries of one word table, a read block at a time.
  */
 import { isAscii } from 'node:buffer';
+import { assert } from '../errors.ts';
 import { readChunk, readChunkLines, type ChunkReadStats, type LinesSeen } from './read.ts';
 import { clearTokenBlock, lowerAscii, newTokenBlock, scanLines, SentenceTextAdder, type TokenBlock } from './byte-tokenizer.ts';
 import { isBlankLine } from './lines.ts';
 import { makeTokenizer } from './tokenize.ts';
 import type { Chunk, InputFile, NormalizeOptions, ReadOptions } from './types.ts';
-import type { WordTable } from './word-table.ts';
+import type { WordLookup } from './word-table.ts';
 
 /**
  * Receives the tokens read since the previous call (after each read block, and once at the end).
@@ -35,9 +36,11 @@ export class TokenReader {
   private readonly seen: LinesSeen = { lines: 0, blankLines: 0 };
 
   /**
-   * @param table the words; with `intern` new words are added to it, otherwise they read as −1
+   * @param table the words; with `intern` new words are added to it (it must have `intern`),
+   *   otherwise they read as −1
    */
-  constructor(normalize: NormalizeOptions, private readonly table: WordTable, private readonly intern: boolean) {
+  constructor(normalize: NormalizeOptions, private readonly table: WordLookup, private readonly intern: boolean) {
+    assert(!intern || table.intern !== undefined, 'words are added to a table that can add them');
     this.text = new SentenceTextAdder(makeTokenizer(normalize));
     this.lowercase = normalize.lowercase;
     if (normalize.split !== 'space') this.route = 'strings';

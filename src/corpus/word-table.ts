@@ -32,7 +32,18 @@ function fmix(h: number): number {
   return h ^ (h >>> 16);
 }
 
-export class WordTable {
+/**
+ * What the byte tokenizer looks tokens up in (scanLines, SentenceTextAdder, TokenReader): a word
+ * table, or another index of words by their UTF-8 bytes and FNV-1a hash (`hashBytes`), such as a
+ * model file's vocabulary (PackedModel.find). `find` gives a word's entry or −1; `intern`, which
+ * adds a word, is needed only where words are added.
+ */
+export interface WordLookup {
+  find(bytes: Uint8Array, start: number, end: number, hash: number): number;
+  intern?(bytes: Uint8Array, start: number, end: number, hash: number): number;
+}
+
+export class WordTable implements WordLookup {
   /** [mixed hash, record + 1] per slot; 0 in the second word is an empty slot. */
   private slots: Int32Array;
   private mask: number;

@@ -1100,20 +1100,35 @@ export class PackedModel {
   wordId(word: string): number {
     if (this.scratch.length < word.length * 3) this.scratch = new Uint8Array(word.length * 3);
     const { written } = encoder.encodeInto(word, this.scratch);
-    const bytes = this.scratch;
+    return this.idOfBytes(this.scratch, 0, written, fnv1a32(this.scratch, 0, written));
+  }
+
+  /**
+   * `textWordId` of the word whose UTF-8 bytes are bytes[start, end) and whose FNV-1a hash is `hash`
+   * (the hash of the vocabulary section, as the corpus readers compute it while they scan): so that
+   * their byte tokenizer looks text up in the model's own vocabulary (WordLookup; src/score/).
+   */
+  find(bytes: Uint8Array, start: number, end: number, hash: number): number {
+    const id = this.idOfBytes(bytes, start, end, hash);
+    return id === BOS_ID || id === this.eosId || id === this.unkId ? -1 : id;
+  }
+
+  /** The id of the word bytes[start, end) of FNV-1a hash `hash`, or −1. */
+  private idOfBytes(bytes: Uint8Array, start: number, end: number, hash: number): number {
     const slots = this.vocabularyHash;
     const mask = slots.length - 1;
     const offsets = this.vocabularyOffsets;
     const words = this.vocabularyWords;
-    let slot = fnv1a32(bytes, 0, written) & mask;
+    const length = end - start;
+    let slot = hash & mask;
     for (let probes = 0; probes <= mask; probes++) {
       const value = slots[slot];
       if (value === 0) return -1;
       const id = value - 1;
-      const start = offsets[id];
-      if (offsets[id + 1] - start === written) {
+      const at = offsets[id];
+      if (offsets[id + 1] - at === length) {
         let equal = true;
-        for (let i = 0; i < written && equal; i++) equal = words[start + i] === bytes[i];
+        for (let i = 0; i < length && equal; i++) equal = words[at + i] === bytes[start + i];
         if (equal) return id;
       }
       slot = (slot + 1) & mask;
@@ -1149,7 +1164,7 @@ export class PackedModel {
   }
 
   /** The row in [start, end) of order n whose word id is `word`, or −1. */
-  private find(n: number, start: number, end: number, word: number): number {
+  private findRow(n: number, start: number, end: number, word: number): number {
     const level = this.hot[n];
     return this.words16 ? searchWord16(level.words16, start, end, word) : searchWord(level.words, this.wordBits, this.wordMask, start, end, word);
   }
@@ -1184,7 +1199,7 @@ export class PackedModel {
         const start = this.childStart(k, row);
         const end = this.childStart(k, row + 1);
         if (start < end) {
-          const found = this.find(k + 1, start, end, word);
+          const found = this.findRow(k + 1, start, end, word);
           if (found >= 0) return { log10Prob: backOff + this.prob(k + 1, found), order: k + 1 };
           backOff += this.backOff(k, row);
           continue;

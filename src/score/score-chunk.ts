@@ -9,7 +9,7 @@ import { TokenReader } from '../corpus/read-tokens.ts';
 import type { Chunk, InputFile, NormalizeOptions } from '../corpus/types.ts';
 import type { PackedModel } from '../pack/reader.ts';
 import type { PerplexitySums } from './perplexity.ts';
-import { BlockScorer, modelWords } from './token-ids.ts';
+import { BlockScorer } from './token-ids.ts';
 
 /** How the chunks of one `quern score` run are read and what is kept of them. */
 export interface ScoreSettings {
@@ -62,10 +62,9 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
   // The line of each sentence given to the scorer (per-line records), and how many were scored.
   const sentenceLines: number[] = [];
   let scored = 0;
-  // The tokens are looked up in the model's words (a WordTable), and scored in groups (BlockScorer:
-  // many sentences at once for a large model), each sentence's figures coming back in order.
-  const words = modelWords(model);
-  const scorer = new BlockScorer(model, words, (sentenceTokens, sentenceOov, sentenceLog10Prob, sentenceLog10ProbWithUnk) => {
+  // Sentences are scored in groups (BlockScorer: many at once for a large model), each sentence's
+  // figures coming back in order.
+  const scorer = new BlockScorer(model, (sentenceTokens, sentenceOov, sentenceLog10Prob, sentenceLog10ProbWithUnk) => {
     sums.sentences++;
     sums.tokens += sentenceTokens;
     sums.oov += sentenceOov;
@@ -90,9 +89,10 @@ export async function scoreChunk(model: PackedModel, file: InputFile, chunk: Chu
     }
     scored++;
   });
-  // The tokens are looked up from their bytes where they can be (TokenReader, as the count reads
-  // text; JSON Lines and some normalisations as strings), each sentence with its line in the chunk.
-  const reader = new TokenReader(settings.normalize, words.table, false);
+  // The tokens are looked up in the model's vocabulary, from their bytes where they can be
+  // (TokenReader, as the count reads text; JSON Lines and some normalisations as strings), each
+  // sentence with its line in the chunk.
+  const reader = new TokenReader(settings.normalize, model, false);
   let linesBefore = 0;
   const reads = await reader.read(file, chunk, { format: file.format, textField: settings.textField, skipBad: settings.skipBad }, (block) => {
     if (settings.perLine) for (let s = 0; s < block.sentences; s++) sentenceLines.push(linesBefore + block.sentenceLines[s]);

@@ -1,42 +1,14 @@
 /**
- * Text to model ids without a string per token: the model's vocabulary in a WordTable (corpus/
- * word-table.ts) that the corpus readers' byte tokenizer looks tokens up in (corpus/read-tokens.ts,
- * lookup mode), and the token blocks it gives scored as id sentences. The ids, and so every number,
- * are those of `PackedModel.textWordId` and `scoreSentence`: `<s>`, `</s>` and `<unk>` written in
- * the text are not in the table, so they read as OOVs, like every word outside the vocabulary.
+ * Token blocks scored as id sentences: the corpus readers' byte tokenizer (corpus/read-tokens.ts,
+ * lookup mode) looks the text's tokens up in the model file's own vocabulary (`PackedModel.find`,
+ * by their bytes and FNV-1a hash), so the blocks hold model ids, −1 for an OOV. The ids, and so
+ * every number, are those of `PackedModel.textWordId` and `scoreSentence`: `<s>`, `</s>` and `<unk>`
+ * written in the text read as OOVs, like every word outside the vocabulary.
  */
 import type { TokenBlock } from '../corpus/byte-tokenizer.ts';
-import { BOS_ID } from '../corpus/vocabulary.ts';
-import { WordTable } from '../corpus/word-table.ts';
-import { assert } from '../errors.ts';
 import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS } from '../limits.ts';
 import type { DecoderState, PackedModel } from '../pack/reader.ts';
 import { scoreIdSentences } from './batch.ts';
-
-/** A model's words (ids 1..V but `</s>` and `<unk>`) as word-table entries, and each entry's id. */
-export interface ModelWords {
-  table: WordTable;
-  idOf: Int32Array;
-}
-
-const wordsOf = new WeakMap<PackedModel, ModelWords>();
-
-/** The table of `model`'s words, made once per model. */
-export function modelWords(model: PackedModel): ModelWords {
-  let words = wordsOf.get(model);
-  if (words !== undefined) return words;
-  const table = WordTable.sizedFor(model.vocabularySize);
-  const idOf = new Int32Array(model.vocabularySize);
-  for (let id = BOS_ID + 1; id <= model.vocabularySize; id++) {
-    if (id === model.eosId || id === model.unkId) continue;
-    const entry = table.internWord(model.word(id));
-    assert(entry === table.size - 1, `word ${id} of the model's vocabulary is held once`);
-    idOf[entry] = id;
-  }
-  words = { table, idOf };
-  wordsOf.set(model, words);
-  return words;
-}
 
 /** What a scored sentence reports (`SentenceScore` without the tokens). */
 export type SentenceSums = (tokens: number, oov: number, log10Prob: number, log10ProbWithUnk: number) => void;
@@ -59,17 +31,17 @@ export class BlockScorer {
   private readonly state: DecoderState;
 
   constructor(
-    private readonly model: PackedModel, private readonly words: ModelWords, private readonly onSentence: SentenceSums,
+    private readonly model: PackedModel, private readonly onSentence: SentenceSums,
     batched = model.fileBytes >= SCORE_BATCH_MODEL_BYTES_MIN,
   ) {
     this.batched = batched;
     this.state = model.newState();
   }
 
-  /** Adds the sentences of `block` (kept nothing of). */
+  /** Adds the sentences of `block` (its entries model ids, read with the model as the table; kept
+   *  nothing of). */
   add(block: TokenBlock): void {
     const { entries, sentenceEnds } = block;
-    const idOf = this.words.idOf;
     const unk = this.model.unkId;
     const eos = this.model.eosId;
     let from = 0;
@@ -80,12 +52,12 @@ export class BlockScorer {
       const oov = this.oov;
       let at = this.tokens;
       for (let i = from; i < to; i++, at++) {
-        const entry = entries[i];
-        if (entry < 0) {
+        const id = entries[i];
+        if (id < 0) {
           ids[at] = unk;
           oov[at] = 1;
         } else {
-          ids[at] = idOf[entry];
+          ids[at] = id;
           oov[at] = 0;
         }
       }

@@ -14,7 +14,7 @@ import { nodeFs } from '../../src/job/fsio.ts';
 import { modelFromShared, openModel } from '../../src/pack/reader.ts';
 import { packModel } from '../../src/pack/writer.ts';
 import { InOrder } from '../../src/score/in-order.ts';
-import { BlockScorer, modelWords } from '../../src/score/token-ids.ts';
+import { BlockScorer } from '../../src/score/token-ids.ts';
 import { TokenReader } from '../../src/corpus/read-tokens.ts';
 import { makeTokenizer } from '../../src/corpus/tokenize.ts';
 import { isBlankLine } from '../../src/corpus/lines.ts';
@@ -241,8 +241,8 @@ describe('tokens looked up from their bytes (BlockScorer over TokenReader)', () 
     });
     for (const batched of [false, true]) {
       const got: Array<[number, number, number, number]> = [];
-      const scorer = new BlockScorer(packed, modelWords(packed), (...figures) => got.push(figures), batched);
-      const reader = new TokenReader(normalize, modelWords(packed).table, false);
+      const scorer = new BlockScorer(packed, (...figures) => got.push(figures), batched);
+      const reader = new TokenReader(normalize, packed, false);
       const [input] = await discoverInputs([file]);
       const [chunk] = await planChunks([input], 1 << 30);
       await reader.read(input, chunk, { format: 'text', textField: undefined, skipBad: false }, (block) => scorer.add(block));

@@ -427,7 +427,6 @@ class ArpaParser {
   private unigramProb = new Float64Array(0);
   private unigramBackOff = new Float64Array(0);
   /** Word → id, fixed when the unigrams are complete. */
-  private idOf: Map<string, number> | null = null;
   private vocabularyWords: string[] = [];
   /** Orders ≥ 2: the one being read, the one that has ended and is not finished yet, and the
    *  sorted files of those finished (index order − 2). */
@@ -437,8 +436,9 @@ class ArpaParser {
   private pendingOrder = 0;
   private readonly files: ArpaRowsFile[] = [];
   private readonly ids = new Uint32Array(ORDER_MAX);
-  /** The byte path's word table (its entries are the ids), and each field of the line at hand:
-   *  where it starts and ends and its FNV-1a hash. */
+  /** The vocabulary once the unigrams are read (its entries are the ids), for the byte path and
+   *  the text path alike; and each field of the byte path's line at hand: where it starts and ends
+   *  and its FNV-1a hash. */
   private wordTable: WordTable | null = null;
   private readonly fieldStart = new Int32Array(ORDER_MAX + 2);
   private readonly fieldEnd = new Int32Array(ORDER_MAX + 2);
@@ -662,11 +662,11 @@ class ArpaParser {
       this.unigramBackOff[row] = backOff;
       return;
     }
-    const idOf = this.idOf as Map<string, number>;
+    const table = this.wordTable as WordTable;
     const ids = this.ids;
     for (let i = 0; i < n; i++) {
-      const id = idOf.get(fields[1 + i]);
-      if (id === undefined) throw this.error(`the word ${JSON.stringify(fields[1 + i])} is not among the unigrams`);
+      const id = table.findWord(fields[1 + i]);
+      if (id < 0) throw this.error(`the word ${JSON.stringify(fields[1 + i])} is not among the unigrams`);
       if (id === BOS_ID && i > 0) throw this.error(`<s> is a context only; it cannot follow another word`);
       ids[i] = id;
     }
@@ -675,13 +675,13 @@ class ArpaParser {
 
   /** Ids: `<s>` 0, then the unigrams in file order; `<unk>` added when missing. */
   private fixVocabulary(): void {
-    if (this.idOf !== null) return;
+    if (this.wordTable !== null) return;
     if (!this.unigramIndex.has(EOS)) throw this.error(`the unigrams lack </s>`);
     const words = [BOS, ...this.unigramWords.filter((word) => word !== BOS)];
     if (!this.unigramIndex.has(UNK)) words.push(UNK);
     this.vocabularyWords = words;
-    this.idOf = new Map(words.map((word, id) => [word, id]));
-    // The same words by their bytes, for the byte path: entries are given in order, so entry = id.
+    // The words by their bytes (the byte path) and as text (findWord): entries are given in order,
+    // so an entry is its word's id.
     const table = WordTable.sizedFor(words.length);
     words.forEach((word, id) => assert(table.internWord(word) === id, 'a word table entry is its word\'s id'));
     this.wordTable = table;
@@ -698,20 +698,20 @@ class ArpaParser {
     }
     if (description.cutoffs.length !== order) throw new QuernError('input', `${this.file}: the description gives ${description.cutoffs.length} cutoffs for a model of order ${order}`, { location: { file: this.file } });
     const words = this.vocabularyWords;
-    const idOf = this.idOf as Map<string, number>;
+    const table = this.wordTable as WordTable;
     const size = words.length - 1;
 
     const log10Prob = new Float64Array(size + 1).fill(-Infinity);
     const log10BackOff = new Float64Array(size + 1);
     this.unigramWords.forEach((word, index) => {
-      const id = idOf.get(word) as number;
+      const id = table.findWord(word);
       log10Prob[id] = this.unigramProb[index];
       log10BackOff[id] = this.unigramBackOff[index];
     });
     log10Prob[BOS_ID] = -Infinity; // never predicted (its ARPA value is a placeholder)
     const header: ModelHeader = {
       order,
-      vocabulary: { words, eosId: idOf.get(EOS) as number, unkId: idOf.get(UNK) as number },
+      vocabulary: { words, eosId: table.findWord(EOS), unkId: table.findWord(UNK) },
       normalised: description.normalised,
       parameters: description.parameters,
       cutoffs: [...description.cutoffs],

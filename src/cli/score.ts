@@ -8,9 +8,10 @@ import type { CommandModule } from 'yargs';
 import { QuernError } from '../errors.ts';
 import { discoverInputs } from '../corpus/discover.ts';
 import { planChunks } from '../corpus/plan.ts';
-import type { Chunk, InputFile, NormalizeOptions, SkippedSample } from '../corpus/types.ts';
+import { GzipPieces } from '../corpus/gzip-pieces.ts';
+import { isChunkPiece, type Chunk, type InputFile, type NormalizeOptions, type SkippedSample } from '../corpus/types.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
-import { WorkerPool } from '../count/pool.ts';
+import { WorkerPool, type TaskSource } from '../count/pool.ts';
 import type { ScoreChunkDone } from '../count/protocol.ts';
 import type { ProgressSink } from '../job/context.ts';
 import { SCORE_CHUNK_BYTES } from '../limits.ts';
@@ -47,8 +48,8 @@ export interface ScoreRun {
 
 /**
  * Scores every sentence of the inputs, chunk by chunk (line-aligned byte ranges of `chunkBytes`; a
- * gzip file is one chunk), on `workers` threads; each file's sums are its chunks' sums added in
- * chunk order, so the result does not depend on `workers`.
+ * gzip file's decompressed text cut the same way, ScoreTasks), on `workers` threads; each file's
+ * sums are its chunks' sums added in chunk order, so the result does not depend on `workers`.
  */
 export async function scoreInputs(model: PackedModel, specs: string[], run: ScoreRun): Promise<{ files: Totals[]; total: Totals }> {
   if (!model.normalised) throw new QuernError('config', `perplexity needs a normalised model; this ${model.parameters.method} model gives scores, not probabilities`);
@@ -56,6 +57,7 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
   if (inputs.some((f) => f.format === 'jsonl') && run.textField === undefined) throw new QuernError('config', 'JSON Lines input: say where the text is with --text-field');
   const settings: ScoreSettings = { normalize: run.normalize, textField: run.textField?.split('.'), skipBad: run.skipBad, perLine: run.onLines !== undefined };
   const chunks = await planChunks(inputs, run.chunkBytes);
+  const tasks = new ScoreTasks(inputs, chunks, run.chunkBytes);
   const files = inputs.map((file) => totals(file.path));
   // Sentences and lines of each file's chunks consumed so far (per-line records number sentences
   // from 1 within a file; a skipped line's number is its file's earlier lines + its line in its chunk).
@@ -63,7 +65,7 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
   const linesBefore = new Array<number>(inputs.length).fill(0);
   const sums = inputs.map((): PerplexitySums => ({ sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0 }));
   const consume = async (result: ChunkScore): Promise<void> => {
-    const fileIndex = chunks[result.chunk].fileIndex;
+    const fileIndex = tasks.fileOf[result.chunk];
     const t = files[fileIndex];
     for (const k of ['sentences', 'tokens', 'oov', 'log10Prob', 'log10ProbWithUnk'] as const) sums[fileIndex][k] += result.sums[k];
     t.skipped += result.reads.skipped;
@@ -93,15 +95,18 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
   const totalBytes = chunks.reduce((sum, chunk) => sum + chunk.byteEnd - chunk.byteStart, 0);
   run.progress.start('scoring', totalBytes);
   try {
-    if (run.workers > 1 && chunks.length > 1) await scoreInWorkers(model, inputs, chunks, settings, run, consume);
+    if (run.workers > 1 && (chunks.length > 1 || inputs.some((file) => file.gzip))) await scoreInWorkers(model, inputs, tasks, settings, run, consume);
     else {
-      for (const chunk of chunks) {
+      for (let chunk = await tasks.next(); chunk !== undefined; chunk = await tasks.next()) {
         const result = await scoreChunk(model, inputs[chunk.fileIndex], chunk, settings);
-        run.progress.update(chunk.byteEnd - chunk.byteStart, result.sums.tokens);
+        run.progress.update(progressBytes(chunk), result.sums.tokens);
         await consume(result);
       }
     }
+    // A gzip file that broke off: reported once every piece before the break was scored.
+    tasks.throwIfFailed();
   } finally {
+    await tasks.close();
     run.progress.stop();
   }
   const total = totals('total');
@@ -116,11 +121,87 @@ function totals(file: string): Totals {
   return { file, sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0, perplexity: NaN, perplexityWithUnk: NaN, skipped: 0 };
 }
 
+/** The input bytes a chunk stands for in the progress display (compressed bytes for a gzip piece). */
+export function progressBytes(chunk: Chunk): number {
+  return isChunkPiece(chunk) ? chunk.sourceBytes : chunk.byteEnd - chunk.byteStart;
+}
+
+/**
+ * The units of `quern score`'s work, in input order, numbered from 0: the planned chunks of plain
+ * files, and the pieces of each gzip file (GzipPieces, cut where its text as a plain file would be
+ * chunked, so a file scores the same compressed or not), cut as they are asked for with one piece
+ * cut ahead. A gzip file that breaks off ends the tasks there; `throwIfFailed` gives its error.
+ */
+class ScoreTasks implements TaskSource<Chunk> {
+  /** The input of each task handed out, by task index. */
+  readonly fileOf: number[] = [];
+  private planned = 0;
+  private pieces: GzipPieces | undefined;
+  private ahead: Promise<Chunk | undefined> | undefined;
+  private failure: { error: unknown } | undefined;
+  private done = false;
+
+  constructor(private readonly inputs: InputFile[], private readonly chunks: Chunk[], private readonly pieceBytes: number) {}
+
+  async next(): Promise<Chunk | undefined> {
+    const task = await (this.ahead ?? this.make());
+    this.ahead = task === undefined ? undefined : this.make();
+    return task;
+  }
+
+  /** The chunks planned, a gzip file counting as one. */
+  get plannedChunks(): number {
+    return this.chunks.length;
+  }
+
+  throwIfFailed(): void {
+    if (this.failure !== undefined) throw this.failure.error;
+  }
+
+  async close(): Promise<void> {
+    this.done = true;
+    await this.ahead;
+    await this.pieces?.close();
+  }
+
+  private async make(): Promise<Chunk | undefined> {
+    if (this.done) return undefined;
+    try {
+      for (;;) {
+        if (this.pieces !== undefined) {
+          const piece = await this.pieces.next();
+          if (piece !== undefined) return this.handOut(piece);
+          await this.pieces.close();
+          this.pieces = undefined;
+        }
+        if (this.planned === this.chunks.length) {
+          this.done = true;
+          return undefined;
+        }
+        const chunk = this.chunks[this.planned++];
+        const file = this.inputs[chunk.fileIndex];
+        if (file.gzip) this.pieces = new GzipPieces(file, chunk.fileIndex, this.pieceBytes, this.fileOf.length);
+        else return this.handOut({ ...chunk, index: this.fileOf.length });
+      }
+    } catch (error) {
+      this.failure = { error };
+      this.done = true;
+      return undefined;
+    }
+  }
+
+  private handOut(chunk: Chunk): Chunk {
+    this.fileOf.push(chunk.fileIndex);
+    return chunk;
+  }
+}
+
 /** The chunks scored by worker threads that share the model's memory, consumed in chunk order. */
 async function scoreInWorkers(
-  model: PackedModel, inputs: InputFile[], chunks: Chunk[], settings: ScoreSettings, run: ScoreRun, consume: (result: ChunkScore) => Promise<void>,
+  model: PackedModel, inputs: InputFile[], tasks: ScoreTasks, settings: ScoreSettings, run: ScoreRun, consume: (result: ChunkScore) => Promise<void>,
 ): Promise<void> {
-  const pool = new WorkerPool(Math.min(run.workers, chunks.length));
+  // As many workers as there are chunks, or all of them for a gzip file's pieces (not counted ahead).
+  const pool = new WorkerPool(inputs.some((file) => file.gzip) ? run.workers : Math.min(run.workers, tasks.plannedChunks));
   const inOrder = new InOrder<ChunkScore>(consume);
   try {
     await pool.run(
@@ -128,9 +209,11 @@ async function scoreInWorkers(
         phase: 'score', jobDir: '', inputs, textField: settings.textField, skipBad: settings.skipBad, normalize: settings.normalize, order: model.order, partitions: 0,
         score: { model: model.shareable(), settings },
       },
-      chunks,
+      tasks,
       {
         message: (chunk) => ({ type: 'chunk', chunk }),
+        // A gzip piece's bytes move to the worker (no copy).
+        transfer: (chunk) => (isChunkPiece(chunk) ? [chunk.data.buffer as ArrayBuffer] : []),
         onProgress: (bytes, tokens) => run.progress.update(bytes, tokens),
         // The worker gets its next chunk once this one's turn has come and it has been consumed.
         onDone: (done: ScoreChunkDone) => inOrder.offer(done.chunk, done),

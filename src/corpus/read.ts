@@ -11,7 +11,7 @@ import { assert, formatLocation, ioError, QuernError, type InputLocation } from 
 import { LINE_BYTES_MAX, READ_BLOCK_BYTES, SKIPPED_SAMPLES_PER_FILE_MAX } from '../limits.ts';
 import { makeRecordReader, type RecordReader } from './jsonl.ts';
 import { countNewlines, forEachLine, isBlankLine } from './lines.ts';
-import type { Chunk, InputFile, ReadOptions, ReadStats, SkippedSample } from './types.ts';
+import { isChunkPiece, type Chunk, type ChunkPiece, type InputFile, type ReadOptions, type ReadStats, type SkippedSample } from './types.ts';
 
 /** Receives one sentence: the raw text of a line (no normalisation yet), never blank, and the line
  *  it is on, counted from 1 at the chunk's first line (JSONL: the record's line; each line of its
@@ -43,7 +43,8 @@ export type ProgressHandler = (bytesRead: number) => void | Promise<void>;
 
 /**
  * A skipped line as `readChunk` reports it. `line` is absolute only for a chunk that starts at
- * byte 0 (every gzip chunk and the first chunk of a plain file); otherwise it is undefined, since
+ * byte 0 (every gzip chunk and the first chunk of a plain file) or a ChunkPiece, which knows the
+ * lines before it; otherwise it is undefined, since
  * finding it would mean reading the file from its start, and the caller completes it as
  * (lines of the file's earlier chunks) + `lineInChunk`. `byteOffset` is always absolute.
  */
@@ -95,7 +96,7 @@ export async function readChunk(
     }
     readRecord = makeRecordReader(options.textField);
   }
-  return readWith(file, chunk, new LineReader(chunk.byteStart, options.skipBad, onSentence, readRecord), onProgress);
+  return readWith(file, chunk, new LineReader(chunk.byteStart, lineBaseOf(chunk), options.skipBad, onSentence, readRecord), onProgress);
 }
 
 /**
@@ -116,11 +117,21 @@ export async function readChunkLines(
 ): Promise<ChunkReadStats> {
   checkChunk(file, chunk, options);
   assert(options.format === 'text', `readChunkLines reads text input, not ${options.format}`);
-  return readWith(file, chunk, new LineReader(chunk.byteStart, options.skipBad, undefined, undefined, onLines), onProgress);
+  return readWith(file, chunk, new LineReader(chunk.byteStart, lineBaseOf(chunk), options.skipBad, undefined, undefined, onLines), onProgress);
+}
+
+/** The absolute line before the chunk's first, when it is known without reading: 0 at byte 0. */
+function lineBaseOf(chunk: Chunk): number | undefined {
+  if (isChunkPiece(chunk)) return chunk.linesBefore;
+  return chunk.byteStart === 0 ? 0 : undefined;
 }
 
 function checkChunk(file: InputFile, chunk: Chunk, options: ReadOptions): void {
   assert(options.format === file.format, `ReadOptions.format (${options.format}) must equal the file's format (${file.format})`);
+  if (isChunkPiece(chunk)) {
+    assert(file.gzip && chunk.byteStart >= 0 && chunk.byteEnd - chunk.byteStart === chunk.data.length, `piece ${chunk.index} of ${file.path} holds the ${chunk.byteEnd - chunk.byteStart} decompressed bytes of its range`);
+    return;
+  }
   assert(
     Number.isSafeInteger(chunk.byteStart) && chunk.byteStart >= 0 && chunk.byteStart <= chunk.byteEnd && chunk.byteEnd <= file.bytes,
     `chunk ${chunk.index} range ${chunk.byteStart}..${chunk.byteEnd} lies within ${file.path} (${file.bytes} bytes)`,
@@ -135,7 +146,8 @@ async function readWith(
   onProgress: ProgressHandler | undefined,
 ): Promise<ChunkReadStats> {
   try {
-    if (file.gzip) await readGzip(file, reader, onProgress);
+    if (isChunkPiece(chunk)) await readPiece(chunk, reader, onProgress);
+    else if (file.gzip) await readGzip(file, reader, onProgress);
     else await readPlain(file, chunk, reader, onProgress);
   } catch (error) {
     if (error instanceof BadLine) throw await badLineError(file, chunk, error);
@@ -162,6 +174,19 @@ async function readPlain(file: InputFile, chunk: Chunk, reader: LineReader, onPr
     if (bytesRead !== rangeBytes) {
       throw new QuernError('input', `${file.path} changed since it was planned: ${bytesRead} bytes of ${chunk.byteStart}..${chunk.byteEnd} could be read`);
     }
+  }
+  reader.finish();
+}
+
+/** A piece's bytes, handed on a read block at a time as a file's would be. */
+async function readPiece(piece: ChunkPiece, reader: LineReader, onProgress: ProgressHandler | undefined): Promise<void> {
+  const data = Buffer.from(piece.data.buffer, piece.data.byteOffset, piece.data.byteLength);
+  for (let start = 0; start < data.length; start += READ_BLOCK_BYTES) {
+    const block = data.subarray(start, Math.min(data.length, start + READ_BLOCK_BYTES));
+    reader.push(block);
+    reader.stats.bytesRead += block.length;
+    const pending = onProgress?.(reader.stats.bytesRead);
+    if (pending) await pending;
   }
   reader.finish();
 }
@@ -223,7 +248,7 @@ async function forEachBlock(
   }
 }
 
-function gzipError(file: InputFile, at: { lineInChunk: number; byteOffset: number }, cause: unknown): QuernError {
+export function gzipError(file: InputFile, at: { lineInChunk: number; byteOffset: number }, cause: unknown): QuernError {
   const location: InputLocation = { file: file.path, line: at.lineInChunk, byteOffset: at.byteOffset };
   const reason = (cause as Error | undefined)?.message ?? String(cause);
   return new QuernError(
@@ -241,7 +266,7 @@ class BadLine extends Error {
 }
 
 async function badLineError(file: InputFile, chunk: Chunk, bad: BadLine): Promise<QuernError> {
-  const linesBefore = chunk.byteStart === 0 ? 0 : await countNewlines(file.path, chunk.byteStart);
+  const linesBefore = lineBaseOf(chunk) ?? await countNewlines(file.path, chunk.byteStart);
   const location: InputLocation = { file: file.path, line: linesBefore + bad.lineInChunk, byteOffset: bad.byteOffset };
   const where = file.gzip ? ' (byte offset in the decompressed stream)' : '';
   return new QuernError('input', `${formatLocation(location)}${where}: ${bad.reason}`, { location });
@@ -268,6 +293,7 @@ class LineReader {
 
   constructor(
     byteStart: number,
+    lineBase: number | undefined,
     private readonly skipBad: boolean,
     private readonly onSentence: SentenceHandler | undefined,
     private readonly readRecord: RecordReader | undefined,
@@ -275,7 +301,7 @@ class LineReader {
     private readonly onLines?: LinesHandler,
   ) {
     this.offset = byteStart;
-    this.lineBase = byteStart === 0 ? 0 : undefined;
+    this.lineBase = lineBase;
   }
 
   /** The line being read, for errors of the stream itself. */

@@ -29,6 +29,26 @@ export interface Chunk {
   byteEnd: number;
 }
 
+/**
+ * A chunk whose bytes the caller has read already: a line-aligned range of a gzip input's
+ * decompressed stream (src/corpus/gzip-pieces.ts), so that one large gzip file can be read by many
+ * threads. `byteStart` and `byteEnd` are offsets in the decompressed stream; `data` holds exactly
+ * those bytes. Its last line may be cut short only when it is longer than LINE_BYTES_MAX (the
+ * reader then rejects or skips it as overlong, and the next piece starts after it).
+ */
+export interface ChunkPiece extends Chunk {
+  data: Uint8Array;
+  /** Lines of the decompressed stream before `byteStart`: this piece's lines are numbered from there. */
+  linesBefore: number;
+  /** The compressed bytes this piece stands for, for progress (the pieces of a file sum to its size). */
+  sourceBytes: number;
+}
+
+/** Whether `chunk` carries its bytes (a ChunkPiece). */
+export function isChunkPiece(chunk: Chunk): chunk is ChunkPiece {
+  return (chunk as Partial<ChunkPiece>).data !== undefined;
+}
+
 export type UnicodeForm = 'none' | 'nfc' | 'nfkc';
 export type SplitMode = 'space' | 'chars';
 

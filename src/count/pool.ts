@@ -13,12 +13,20 @@ import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
 const BOOT_URL = new URL('./worker-boot.mjs', import.meta.url);
 const WORKER_URL = new URL(import.meta.url.endsWith('.ts') ? './worker.ts' : './worker.js', import.meta.url);
 
+/** Tasks made as they are needed (e.g. pieces of a gzip file cut as workers ask for them): `next`
+ *  is called once at a time, and gives undefined after the last, and again after that. */
+export interface TaskSource<Task> {
+  next(): Promise<Task | undefined>;
+}
+
 export interface PoolCallbacks<Task, Done, Finished> {
   /** Called for each finished task; the worker gets its next task once this settles. */
   onDone(done: Done): Promise<void> | void;
   onProgress?(bytes: number, tokens: number): void;
   /** The message that hands `task` to a worker. */
   message(task: Task): ToWorker;
+  /** Buffers of the message moved to the worker instead of copied (they are unusable here after). */
+  transfer?(task: Task): ArrayBuffer[];
   /** Collects each worker's 'finished' message at the end of the phase. */
   onFinished?(finished: Finished): void;
 }
@@ -54,18 +62,20 @@ export class WorkerPool {
   /**
    * Runs one phase: `tasks` on at most `workerCount` workers set up with `init`. Resolves when every
    * task is done and every worker has sent its 'finished' message; rejects with the first failure
-   * (after which the pool is closed).
+   * (after which the pool is closed). A TaskSource is asked for a task whenever a worker is idle.
    */
   run<Task, Done, Finished>(
     init: WorkerInit,
-    tasks: readonly Task[],
+    tasks: readonly Task[] | TaskSource<Task>,
     callbacks: PoolCallbacks<Task, Done, Finished>,
     workerCount = this.size,
   ): Promise<void> {
     if (this.broken !== undefined) return Promise.reject(this.broken);
     assert(!this.busy, 'one phase at a time per pool');
     this.busy = true;
-    const count = Math.max(1, Math.min(workerCount, this.size, Math.max(tasks.length, 1)));
+    const source = Array.isArray(tasks) ? undefined : (tasks as TaskSource<Task>);
+    const list = tasks as readonly Task[];
+    const count = Math.max(1, Math.min(workerCount, this.size, source === undefined ? Math.max(list.length, 1) : workerCount));
     const workers = Array.from({ length: count }, (_, i) => this.worker(i));
     return new Promise<void>((resolve, reject) => {
       const finished = new Set<Worker>();
@@ -87,9 +97,23 @@ export class WorkerPool {
         failed = true;
         settle(error);
       };
+      const send = (worker: Worker, task: Task | undefined): void => {
+        if (task === undefined) worker.postMessage({ type: 'finish' } satisfies ToWorker);
+        else worker.postMessage(callbacks.message(task), callbacks.transfer?.(task) ?? []);
+      };
+      // A source's tasks are asked for one at a time, in the order the workers became idle.
+      let asked = Promise.resolve();
       const dispatch = (worker: Worker): void => {
         if (failed) return;
-        worker.postMessage(next < tasks.length ? callbacks.message(tasks[next++]) : { type: 'finish' } satisfies ToWorker);
+        if (source === undefined) {
+          send(worker, next < list.length ? list[next++] : undefined);
+          return;
+        }
+        asked = asked.then(async () => {
+          if (failed) return;
+          const task = await source.next();
+          if (!failed) send(worker, task);
+        }).catch(fail);
       };
       for (const worker of workers) {
         const onMessage = (message: FromWorker): void => {

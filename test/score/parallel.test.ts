@@ -4,7 +4,7 @@
  * text with (perplexity.ts, DESIGN.md's conventions). Also what scoring on threads rests on: a model
  * handed to another thread over SharedArrayBuffers, and results consumed in order.
  */
-import { writeFileSync } from 'node:fs';
+import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { gzipSync } from 'node:zlib';
 import { afterAll, describe, expect, test } from 'vitest';
@@ -19,6 +19,8 @@ import { TokenReader } from '../../src/corpus/read-tokens.ts';
 import { makeTokenizer } from '../../src/corpus/tokenize.ts';
 import { isBlankLine } from '../../src/corpus/lines.ts';
 import { discoverInputs } from '../../src/corpus/discover.ts';
+import { readChunk } from '../../src/corpus/read.ts';
+import { LINE_BYTES_MAX } from '../../src/limits.ts';
 import { planChunks } from '../../src/corpus/plan.ts';
 import { perplexity } from '../../src/score/perplexity.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
@@ -158,6 +160,75 @@ describe('quern score on worker threads', () => {
     expect({ ...skipped.total, skipped: 0, file: '' }).toEqual({ ...clean.total, file: '' });
     const printed = await score([...args, '--skip-bad']);
     expect(printed).toMatch(new RegExp(`skipped 1 bad lines or records \\(first: line ${at + 1}, `));
+  });
+
+  test('a gzip file is scored in pieces on every worker, as its text scores uncompressed', async () => {
+    // The held-out text with blank lines, as plain text and JSON Lines, each also gzipped: the
+    // pieces of the decompressed text end where the plain file's chunks end, so the figures are
+    // the same, bit for bit, whatever the workers.
+    const lines = plain.map((words, i) => (i % 9 === 4 ? '' : words.join(' ')));
+    const pairs: Array<[string, string, string[]]> = [
+      [join(dir, 'same.txt'), join(dir, 'same.txt.gz'), []],
+      [join(dir, 'same.jsonl'), join(dir, 'same.jsonl.gz'), ['--text-field', 'body.text']],
+    ];
+    writeFileSync(pairs[0][0], lines.join('\n') + '\n');
+    writeFileSync(pairs[1][0], jsonl(plain));
+    for (const [raw, zipped, extra] of pairs) {
+      writeFileSync(zipped, gzipSync(readFileSync(raw)));
+      const outputs: string[] = [];
+      for (const [file, workers] of [[raw, '1'], [zipped, '2']]) {
+        {
+          const json = JSON.parse(await score([modelFile, file, ...extra, '--chunk-size', '4KiB', '--workers', workers, '--json']));
+          const records = await score([modelFile, file, ...extra, '--chunk-size', '4KiB', '--workers', workers, '--per-line']);
+          outputs.push(JSON.stringify({ ...json.files[0], file: '' }) + records.replaceAll(`"file":${JSON.stringify(file)}`, '"file":""'));
+        }
+      }
+      expect(outputs[0]).toContain('"perplexity"');
+      for (const output of outputs) expect(output).toBe(outputs[0]);
+    }
+  });
+
+  test('a gzip file that breaks off or holds a bad line, read in pieces: the error a whole read gives', async () => {
+    const lines = text(plain).split('\n');
+    const at = 2500;
+    const bad = join(dir, 'bad-in-piece.txt.gz');
+    writeFileSync(bad, gzipSync(Buffer.concat([Buffer.from(lines.slice(0, at).join('\n') + '\n'), Buffer.from([0x66, 0xff, 0x66, 0x0a]), Buffer.from(lines.slice(at).join('\n'))])));
+    for (const workers of ['1', '2']) {
+      await expect(score([modelFile, bad, '--chunk-size', '4KiB', '--workers', workers, '--json'])).rejects.toThrow(`${bad}:${at + 1} (byte `);
+      const skipped = JSON.parse(await score([modelFile, bad, '--chunk-size', '4KiB', '--workers', workers, '--json', '--skip-bad']));
+      expect(skipped.files[0].firstSkipped.line).toBe(at + 1);
+      expect(skipped.files[0].sentences).toBe(plain.length);
+    }
+    // Cut in half: the message of readChunk for the whole file, for any number of workers.
+    const whole = gzipSync(text(plain));
+    const cut = join(dir, 'cut.txt.gz');
+    writeFileSync(cut, whole.subarray(0, whole.length >> 1));
+    const file = (await discoverInputs([cut]))[0];
+    const expected = (await readChunk(file, { index: 0, fileIndex: 0, byteStart: 0, byteEnd: file.bytes }, { format: 'text', textField: undefined, skipBad: false }, () => undefined).catch((e) => e)) as Error;
+    expect(expected.message).toMatch(/truncated or corrupt gzip data/);
+    for (const workers of ['1', '2']) {
+      await expect(score([modelFile, cut, '--chunk-size', '4KiB', '--workers', workers])).rejects.toThrow(expected.message);
+      await expect(score([modelFile, cut, '--chunk-size', '4KiB', '--workers', workers, '--skip-bad'])).rejects.toThrow(expected.message);
+    }
+  });
+
+  test('an overlong line in a gzip file read in pieces: rejected, or skipped as one line, as in the text itself', async () => {
+    // Longer than LINE_BYTES_MAX: the piece that holds its start ends inside it.
+    const lines = text(plain.slice(0, 300)).split('\n');
+    const long = 'q'.repeat(LINE_BYTES_MAX + 5);
+    const raw = join(dir, 'overlong.txt');
+    writeFileSync(raw, [...lines.slice(0, 100), long, ...lines.slice(100)].join('\n'));
+    const zipped = join(dir, 'overlong.txt.gz');
+    writeFileSync(zipped, gzipSync(readFileSync(raw), { level: 1 }));
+    await expect(score([modelFile, zipped, '--chunk-size', '4KiB', '--workers', '2'])).rejects.toThrow(`${zipped}:101 (byte `);
+    const results: unknown[] = [];
+    for (const [file, workers] of [[raw, '1'], [zipped, '1'], [zipped, '2']]) {
+      const result = JSON.parse(await score([modelFile, file, '--chunk-size', '4KiB', '--workers', workers, '--json', '--skip-bad']));
+      expect(result.files[0]).toMatchObject({ skipped: 1, sentences: 300, firstSkipped: { line: 101, reason: `line longer than ${LINE_BYTES_MAX} bytes` } });
+      results.push({ ...result.files[0], file: '' });
+    }
+    expect(results[1]).toEqual(results[0]);
+    expect(results[2]).toEqual(results[0]);
   });
 
   test('--format jsonl reads a JSON Lines file whatever its name', async () => {

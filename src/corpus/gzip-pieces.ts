@@ -1,0 +1,201 @@
+/**
+ * One gzip input cut into pieces for many threads: a deflate stream cannot be entered in the middle,
+ * so one thread decompresses it and cuts the decompressed stream where a plain file of the same
+ * text would be cut into chunks (src/corpus/plan.ts: just after the first '\n' at or after each
+ * `pieceBytes`), and other threads read the pieces (readChunk with a ChunkPiece). Only the search for
+ * newlines runs here; validation, decoding and tokenising stay with the readers.
+ */
+import { createReadStream } from 'node:fs';
+import { createGunzip } from 'node:zlib';
+import { assert, ioError, QuernError } from '../errors.ts';
+import { LINE_BYTES_MAX, READ_BLOCK_BYTES } from '../limits.ts';
+import { gzipError } from './read.ts';
+import type { ChunkPiece, InputFile } from './types.ts';
+
+/**
+ * The pieces of `file` (a gzip input), in order, as `next` is called: each holds whole lines of the
+ * decompressed stream, is at least `pieceBytes` long except the last, and ends just after the first
+ * '\n' at or after its `pieceBytes`-th byte. A file that decompresses to nothing is one empty piece.
+ *
+ * A line longer than LINE_BYTES_MAX is not held whole: its piece ends inside it, past the limit (so
+ * the reader of that piece rejects it, or skips it with --skip-bad, as it would in a whole file),
+ * and the rest of the line is dropped here; the next piece starts after it, its lines numbered on.
+ *
+ * Bad gzip data, and a file whose size changed since it was discovered, fail `next` with the
+ * errors `readChunk` gives (the line and decompressed byte offset where the data broke off), after
+ * every piece before that point has been handed out.
+ */
+export class GzipPieces {
+  private readonly source;
+  private readonly blocks: AsyncIterator<Buffer>;
+  /** Decompressed bytes not yet handed out, from `pieceStart`. */
+  private pending: Buffer[] = [];
+  private pendingBytes = 0;
+  /** Absolute offset, in the decompressed stream, of `pending`'s first byte. */
+  private pieceStart = 0;
+  /** Newlines before `pieceStart` (the lines before the next piece). */
+  private linesBefore = 0;
+  /** Compressed bytes accounted to the pieces handed out so far. */
+  private sourceAccounted = 0;
+  /** Skipping the rest of an overlong line, which ended the last piece. */
+  private dropping = false;
+  private ended = false;
+  private handedOut = 0;
+  private sourceError: unknown;
+
+  /**
+   * @param firstIndex the `index` of the first piece (the next ones count on)
+   * @param lineBytesMax the longest line held whole (LINE_BYTES_MAX; smaller in tests)
+   */
+  constructor(
+    private readonly file: InputFile,
+    private readonly fileIndex: number,
+    private readonly pieceBytes: number,
+    private nextIndex: number,
+    private readonly lineBytesMax = LINE_BYTES_MAX,
+  ) {
+    assert(file.gzip, `${file.path} is cut into pieces only when it is gzip`);
+    assert(Number.isSafeInteger(pieceBytes) && pieceBytes >= 1, `piece size ${pieceBytes} is a positive integer`);
+    this.source = createReadStream(file.path, { highWaterMark: READ_BLOCK_BYTES });
+    const gunzip = createGunzip({ chunkSize: READ_BLOCK_BYTES });
+    this.source.on('error', (cause) => {
+      this.sourceError = cause;
+      gunzip.destroy(cause);
+    });
+    this.source.pipe(gunzip);
+    this.blocks = gunzip[Symbol.asyncIterator]();
+  }
+
+  /** The next piece, or undefined after the last. */
+  async next(): Promise<ChunkPiece | undefined> {
+    for (;;) {
+      const piece = this.cut();
+      if (piece !== undefined) return piece;
+      if (this.ended) return this.last();
+      let step: IteratorResult<Buffer>;
+      try {
+        step = await this.blocks.next();
+      } catch (cause) {
+        await this.close();
+        if (this.sourceError !== undefined) throw ioError('read', this.file.path, this.sourceError);
+        throw gzipError(this.file, this.currentLine(), cause);
+      }
+      if (step.done) {
+        this.ended = true;
+        if (this.source.bytesRead !== this.file.bytes) {
+          throw new QuernError('input', `${this.file.path} changed since it was discovered: ${this.source.bytesRead} bytes read, ${this.file.bytes} expected`);
+        }
+      } else this.add(step.value);
+    }
+  }
+
+  /** Stops reading (after the last piece, or when the caller gives up). */
+  async close(): Promise<void> {
+    this.ended = true;
+    await this.blocks.return?.().catch(() => undefined);
+    this.source.destroy();
+  }
+
+  /** Where the stream broke off, as LineReader.currentLine gives it for a whole gzip file. */
+  private currentLine(): { lineInChunk: number; byteOffset: number } {
+    let lines = this.linesBefore;
+    let lineStart = this.pieceStart;
+    let offset = this.pieceStart;
+    for (const block of this.pending) {
+      for (let at = block.indexOf(0x0a); at >= 0; at = block.indexOf(0x0a, at + 1)) {
+        lines++;
+        lineStart = offset + at + 1;
+      }
+      offset += block.length;
+    }
+    return { lineInChunk: lines + 1, byteOffset: lineStart };
+  }
+
+  private add(block: Buffer): void {
+    if (this.dropping) {
+      const newline = block.indexOf(0x0a);
+      if (newline < 0) {
+        this.pieceStart += block.length;
+        return;
+      }
+      // The overlong line ends here: it was one line, and the next piece starts after it.
+      this.dropping = false;
+      this.linesBefore++;
+      this.pieceStart += newline + 1;
+      block = block.subarray(newline + 1);
+      if (block.length === 0) return;
+    }
+    this.pending.push(block);
+    this.pendingBytes += block.length;
+  }
+
+  /** A piece, when the pending bytes hold one, else undefined. */
+  private cut(): ChunkPiece | undefined {
+    if (this.pendingBytes < this.pieceBytes) return undefined;
+    // The first '\n' at or after the piece's pieceBytes-th byte (relative offset pieceBytes − 1).
+    let offset = 0;
+    for (const block of this.pending) {
+      const from = Math.max(0, this.pieceBytes - 1 - offset);
+      if (from < block.length) {
+        const newline = block.indexOf(0x0a, from);
+        if (newline >= 0) return this.handOut(offset + newline + 1, false);
+      }
+      offset += block.length;
+    }
+    // No line ends past the target yet: wait for more, unless the line there is already too long.
+    if (this.pendingBytes - this.lastLineStart() > this.lineBytesMax) return this.handOut(this.pendingBytes, true);
+    return undefined;
+  }
+
+  /** Relative offset where the pending bytes' last (unfinished) line starts. */
+  private lastLineStart(): number {
+    let offset = this.pendingBytes;
+    for (let i = this.pending.length - 1; i >= 0; i--) {
+      const block = this.pending[i];
+      offset -= block.length;
+      const newline = block.lastIndexOf(0x0a);
+      if (newline >= 0) return offset + newline + 1;
+    }
+    return 0;
+  }
+
+  /** The piece at the end of the stream: what is left, or one empty piece for an empty stream. */
+  private last(): ChunkPiece | undefined {
+    if (this.pendingBytes > 0 || this.handedOut === 0) return this.handOut(this.pendingBytes, false);
+    return undefined;
+  }
+
+  /** Hands out the first `bytes` pending bytes; `overlong`: they end inside an overlong line. */
+  private handOut(bytes: number, overlong: boolean): ChunkPiece {
+    const data = Buffer.allocUnsafeSlow(bytes);
+    let filled = 0;
+    let newlines = 0;
+    while (filled < bytes) {
+      const block = this.pending[0];
+      const take = Math.min(block.length, bytes - filled);
+      const part = block.subarray(0, take);
+      part.copy(data, filled);
+      for (let at = part.indexOf(0x0a); at >= 0; at = part.indexOf(0x0a, at + 1)) newlines++;
+      filled += take;
+      if (take === block.length) this.pending.shift();
+      else this.pending[0] = block.subarray(take);
+    }
+    this.pendingBytes -= bytes;
+    const isLast = this.ended && this.pendingBytes === 0;
+    const sourceBytes = (isLast ? this.file.bytes : Math.min(this.file.bytes, this.source.bytesRead)) - this.sourceAccounted;
+    this.sourceAccounted += sourceBytes;
+    const piece: ChunkPiece = {
+      index: this.nextIndex++, fileIndex: this.fileIndex, byteStart: this.pieceStart, byteEnd: this.pieceStart + bytes,
+      data, linesBefore: this.linesBefore, sourceBytes,
+    };
+    this.handedOut++;
+    this.pieceStart += bytes;
+    this.linesBefore += newlines;
+    if (overlong) {
+      // The rest of the line is dropped, up to its '\n' (`add`), as the reader skips it.
+      assert(this.pendingBytes === 0, 'a piece that ends inside an overlong line takes every pending byte');
+      this.dropping = true;
+    }
+    return piece;
+  }
+}

@@ -1,0 +1,161 @@
+/**
+ * A gzip input cut into pieces of its decompressed text (GzipPieces), for readers on other threads:
+ * the pieces cover the text exactly, end where planChunks cuts the same text as a plain file, number
+ * their lines on, and read (readChunk with the piece) as the whole file reads.
+ */
+import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import * as path from 'node:path';
+import { gzipSync } from 'node:zlib';
+import { afterAll, describe, expect, test } from 'vitest';
+import { discoverInputs } from '../../src/corpus/discover.ts';
+import { GzipPieces } from '../../src/corpus/gzip-pieces.ts';
+import { planChunks } from '../../src/corpus/plan.ts';
+import { readChunk, type ChunkReadStats } from '../../src/corpus/read.ts';
+import type { Chunk, ChunkPiece, InputFile, ReadOptions } from '../../src/corpus/types.ts';
+import { QuernError } from '../../src/errors.ts';
+import { seededRandom } from '../support/seeded.ts';
+
+const root = mkdtempSync(path.join(tmpdir(), 'quern-gzip-pieces-'));
+afterAll(() => rmSync(root, { recursive: true, force: true }));
+
+const text: ReadOptions = { format: 'text', textField: undefined, skipBad: false };
+
+/** Lines of random words, blank and white-space lines, CRLF, multi-byte text, some long lines. */
+function corpus(lines: number, seed: number): string {
+  const random = seededRandom(seed);
+  const words = ['harbour', 'net', 'salt', 'brine', 'ébène', 'мост', '港', '🦀', 'a'];
+  const out: string[] = [];
+  for (let i = 0; i < lines; i++) {
+    const kind = random();
+    if (kind < 0.05) out.push('');
+    else if (kind < 0.08) out.push(' \t');
+    else {
+      const length = kind > 0.98 ? 300 : 1 + Math.floor(random() * 14);
+      const line = Array.from({ length }, () => words[Math.floor(random() * words.length)]).join(' ');
+      out.push(random() < 0.2 ? `${line}\r` : line);
+    }
+  }
+  return out.join('\n');
+}
+
+async function inputOf(name: string, bytes: Buffer | string): Promise<InputFile> {
+  const file = path.join(root, name);
+  writeFileSync(file, bytes);
+  return (await discoverInputs([file]))[0];
+}
+
+async function allPieces(file: InputFile, pieceBytes: number, lineBytesMax?: number): Promise<ChunkPiece[]> {
+  const cutter = new GzipPieces(file, 0, pieceBytes, 0, lineBytesMax);
+  const pieces: ChunkPiece[] = [];
+  for (let piece = await cutter.next(); piece !== undefined; piece = await cutter.next()) pieces.push(piece);
+  expect(await cutter.next()).toBeUndefined();
+  await cutter.close();
+  return pieces;
+}
+
+async function readPieces(file: InputFile, pieces: Chunk[], options = text): Promise<{ sentences: Array<[string, number]>; stats: ChunkReadStats[] }> {
+  const sentences: Array<[string, number]> = [];
+  const stats: ChunkReadStats[] = [];
+  let linesBefore = 0;
+  for (const piece of pieces) {
+    const read = await readChunk(file, piece, options, (sentence, line) => sentences.push([sentence, linesBefore + line]));
+    linesBefore += read.lines;
+    stats.push(read);
+  }
+  return { sentences, stats };
+}
+
+const newlines = (bytes: Uint8Array): number => bytes.reduce((sum, byte) => sum + (byte === 0x0a ? 1 : 0), 0);
+
+describe('GzipPieces', () => {
+  test.each([
+    ['no final newline', corpus(3000, 7), 1000],
+    ['a final newline', corpus(3000, 8) + '\n', 997],
+    ['pieces smaller than a line', corpus(400, 9), 1],
+  ])('%s: the pieces cover the text and end where the plain file\'s chunks end (pieces of %#)', async (_name, content, pieceBytes) => {
+    const plain = await inputOf(`cover-${pieceBytes}.txt`, content);
+    const zipped = await inputOf(`cover-${pieceBytes}.txt.gz`, gzipSync(content));
+    const pieces = await allPieces(zipped, pieceBytes);
+    const chunks = await planChunks([plain], pieceBytes);
+    expect(pieces.map((p) => [p.byteStart, p.byteEnd])).toEqual(chunks.map((c) => [c.byteStart, c.byteEnd]));
+    expect(pieces.map((p) => p.index)).toEqual(pieces.map((_, i) => i));
+    const bytes = Buffer.from(content);
+    let before = 0;
+    for (const piece of pieces) {
+      expect(Buffer.from(piece.data).equals(bytes.subarray(piece.byteStart, piece.byteEnd))).toBe(true);
+      expect(piece.linesBefore).toBe(before);
+      before += newlines(piece.data);
+    }
+    expect(pieces.reduce((sum, p) => sum + p.sourceBytes, 0)).toBe(zipped.bytes);
+    // Read piece by piece: what the whole file gives, line numbers included.
+    const whole = await readPieces(zipped, [{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: zipped.bytes }]);
+    const split = await readPieces(zipped, pieces);
+    expect(split.sentences).toEqual(whole.sentences);
+    expect(split.stats.reduce((sum, s) => sum + s.lines, 0)).toBe(whole.stats[0].lines);
+  });
+
+  test('an empty file is one empty piece', async () => {
+    const pieces = await allPieces(await inputOf('empty.gz', gzipSync('')), 64);
+    expect(pieces.map((p) => [p.byteStart, p.byteEnd, p.linesBefore, p.data.length])).toEqual([[0, 0, 0, 0]]);
+  });
+
+  test('an overlong line ends its piece past the limit; the next piece starts after it, its lines counted on', async () => {
+    // The text is decompressed a block (READ_BLOCK_BYTES, 1 MiB) at a time: the line's end is not in
+    // sight when its first 1 MiB is.
+    const limit = 1 << 20;
+    const long = 'w'.repeat(3 * limit);
+    const content = `one\ntwo\n${long}\nthree\nfour\n`;
+    const pieces = await allPieces(await inputOf('overlong.gz', gzipSync(content)), 6, limit);
+    const at = content.indexOf(long);
+    const cut = pieces.find((p) => p.byteStart <= at && p.byteEnd > at)!;
+    // The piece holds more than the limit of the line, and ends inside it.
+    expect(cut.byteEnd - at).toBeGreaterThan(limit);
+    expect(cut.byteEnd).toBeLessThan(at + long.length);
+    const next = pieces[pieces.indexOf(cut) + 1];
+    expect(next.byteStart).toBe(at + long.length + 1);
+    expect(next.linesBefore).toBe(3);
+    expect(Buffer.from(next.data).toString()).toBe('three\n');
+    expect(Buffer.from(pieces.at(-1)!.data).toString()).toBe('four\n');
+  });
+
+  test.each([false, true])('a truncated file: the pieces before the break, then readChunk\'s error for the whole file (skipBad %s)', async (skipBad) => {
+    const lines = Array.from({ length: 60_000 }, (_, i) => `sentence number ${i} with a few words`);
+    const zipped = gzipSync(lines.join('\n') + '\n');
+    const file = await inputOf(`cut-${skipBad}.gz`, zipped.subarray(0, zipped.length >> 1));
+    const whole = (await readChunk(file, { index: 0, fileIndex: 0, byteStart: 0, byteEnd: file.bytes }, { ...text, skipBad }, () => undefined).catch((e) => e)) as QuernError;
+    expect(whole).toBeInstanceOf(QuernError);
+    const cutter = new GzipPieces(file, 0, 4096, 0);
+    const pieces: ChunkPiece[] = [];
+    const error = await (async () => {
+      for (;;) {
+        const piece = await cutter.next();
+        if (piece === undefined) return undefined;
+        pieces.push(piece);
+      }
+    })().catch((e) => e);
+    expect(error).toBeInstanceOf(QuernError);
+    expect(error.code).toBe('input');
+    expect(error.message).toBe(whole.message);
+    expect(error.location).toEqual(whole.location);
+    expect(pieces.length).toBeGreaterThan(10);
+    const { sentences } = await readPieces(file, pieces, { ...text, skipBad });
+    expect(sentences.map(([s]) => s)).toEqual(lines.slice(0, sentences.length));
+    await cutter.close();
+  });
+
+  test('a bad line in a later piece is named by its line in the file, as in the whole file', async () => {
+    const lines = Array.from({ length: 5000 }, (_, i) => `line ${i}`);
+    const content = Buffer.concat([Buffer.from(lines.slice(0, 4000).join('\n') + '\n'), Buffer.from([0xc3, 0x28, 0x0a]), Buffer.from(lines.slice(4000).join('\n'))]);
+    const file = await inputOf('bad-utf8.gz', gzipSync(content));
+    const whole = (await readChunk(file, { index: 0, fileIndex: 0, byteStart: 0, byteEnd: file.bytes }, text, () => undefined).catch((e) => e)) as QuernError;
+    expect(whole.location).toMatchObject({ line: 4001 });
+    const pieces = await allPieces(file, 1024);
+    const error = (await readPieces(file, pieces).catch((e) => e)) as QuernError;
+    expect(error).toBeInstanceOf(QuernError);
+    expect(error.message).toBe(whole.message);
+    const skipped = await readPieces(file, pieces, { ...text, skipBad: true });
+    const samples = skipped.stats.flatMap((s) => s.skippedSamples);
+    expect(samples).toEqual([{ line: 4001, lineInChunk: expect.any(Number), byteOffset: whole.location!.byteOffset, reason: 'invalid UTF-8' }]);
+  });
+});

@@ -1089,6 +1089,17 @@ export class PackedModel {
     return utf8.decode(this.vocabularyWords.subarray(this.vocabularyOffsets[id], this.vocabularyOffsets[id + 1]));
   }
 
+  /** Whether the word of id `id` (0..V) starts with the UTF-8 bytes `prefix`: as `word(id).startsWith`
+   *  for the prefix's text, without decoding the word. */
+  wordStartsWith(id: number, prefix: Uint8Array): boolean {
+    if (!Number.isInteger(id) || id < 0 || id > this.vocabularySize) throw new RangeError(`id must be an integer in [0, ${this.vocabularySize}] (got ${id})`);
+    const start = this.vocabularyOffsets[id];
+    if (this.vocabularyOffsets[id + 1] - start < prefix.length) return false;
+    const words = this.vocabularyWords;
+    for (let i = 0; i < prefix.length; i++) if (words[start + i] !== prefix[i]) return false;
+    return true;
+  }
+
   /** The id a word of text is scored as: its id, or −1 when it is out of the vocabulary — then
    *  scored as `<unk>` — which `<s>`, `</s>` and `<unk>` written in the text are too. */
   textWordId(word: string): number {

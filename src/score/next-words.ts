@@ -56,33 +56,94 @@ export function nextTokens(model: PackedModel, state: ModelState, options: NextO
   const { top, prefix, exclude } = options;
   if (!(Number.isInteger(top) && top >= 1)) throw new RangeError(`top must be an integer ≥ 1 (got ${top})`);
   const size = model.vocabularySize;
-  const wanted = (id: number): boolean => !(exclude?.has(id) ?? false) && (prefix === undefined || model.word(id).startsWith(prefix));
+  // The prefix is compared as UTF-8 bytes with the model's words (no string per candidate).
+  const prefixBytes = prefix === undefined ? undefined : encoder.encode(prefix);
+  const wanted = (id: number): boolean => !(exclude?.has(id) ?? false) && (prefixBytes === undefined || model.wordStartsWith(id, prefixBytes));
   // Ids scored as continuations (the first score of each is its own), not to be taken again from
   // the unigram ranking.
   const seen = new Uint8Array(size + 1);
-  const scored: NextToken[] = [];
+  const best = new BestScores(top);
   const backOff = model.scoreContinuations(state, (id, log10Prob, order) => {
     if (id < 1 || id > size || seen[id] !== 0) return;
     seen[id] = 1;
-    if (wanted(id)) scored.push({ id, word: model.word(id), log10Prob, order });
+    if (wanted(id)) best.offer(id, log10Prob, order);
   });
   const ranked = rankedByUnigram(model);
   const empty: number[] = [];
   for (let i = 0, others = 0; i < ranked.length && others < top; i++) {
     const id = ranked[i];
     if (seen[id] !== 0 || !wanted(id)) continue;
-    scored.push({ id, word: model.word(id), log10Prob: backOff + model.logProb(empty, id).log10Prob, order: 1 });
+    best.offer(id, backOff + model.logProb(empty, id).log10Prob, 1);
     others++;
   }
-  scored.sort((a, b) => b.log10Prob - a.log10Prob || a.id - b.id);
-  return scored.slice(0, top);
+  return best.inOrder().map(({ id, log10Prob, order }) => ({ id, word: model.word(id), log10Prob, order }));
 }
 
+const encoder = new TextEncoder();
+
 /**
- * The state after the tokens `words` (OOVs as `<unk>`, as scoring reads text): at the start of a
- * sentence, after `<s>` (default), or with `sentenceStart` false after them alone (a context in the
- * middle of a sentence, its history only what is given).
+ * The `size` best of the scores offered: highest log10 p first, the lower id first among equals
+ * (as sorting every candidate and keeping the first `size` would give), kept in a binary heap whose
+ * root is the worst kept, so that each of the tens of thousands of continuations of a frequent
+ * word costs a comparison, and only the kept ones a string.
  */
+class BestScores {
+  private readonly ids: number[] = [];
+  private readonly scores: number[] = [];
+  private readonly orders: number[] = [];
+
+  constructor(private readonly size: number) {}
+
+  /** Whether entry a ranks below entry b (is worse). */
+  private worse(a: number, b: number): boolean {
+    return this.scores[a] < this.scores[b] || (this.scores[a] === this.scores[b] && this.ids[a] > this.ids[b]);
+  }
+
+  offer(id: number, log10Prob: number, order: number): void {
+    const { ids, scores, orders } = this;
+    if (ids.length < this.size) {
+      ids.push(id);
+      scores.push(log10Prob);
+      orders.push(order);
+      for (let at = ids.length - 1; at > 0;) {
+        const parent = (at - 1) >> 1;
+        if (!this.worse(at, parent)) break;
+        this.swap(at, parent);
+        at = parent;
+      }
+      return;
+    }
+    // Not better than the worst kept: dropped.
+    if (log10Prob < scores[0] || (log10Prob === scores[0] && id > ids[0])) return;
+    ids[0] = id;
+    scores[0] = log10Prob;
+    orders[0] = order;
+    for (let at = 0; ;) {
+      const left = 2 * at + 1;
+      if (left >= ids.length) break;
+      const right = left + 1;
+      const child = right < ids.length && this.worse(right, left) ? right : left;
+      if (!this.worse(child, at)) break;
+      this.swap(at, child);
+      at = child;
+    }
+  }
+
+  /** The kept entries, best first. */
+  inOrder(): Array<{ id: number; log10Prob: number; order: number }> {
+    return this.ids
+      .map((id, i) => ({ id, log10Prob: this.scores[i], order: this.orders[i] }))
+      .sort((a, b) => b.log10Prob - a.log10Prob || a.id - b.id);
+  }
+
+  private swap(a: number, b: number): void {
+    const { ids, scores, orders } = this;
+    [ids[a], ids[b]] = [ids[b], ids[a]];
+    [scores[a], scores[b]] = [scores[b], scores[a]];
+    [orders[a], orders[b]] = [orders[b], orders[a]];
+  }
+}
+
 export function contextState(model: PackedModel, words: readonly string[], sentenceStart = true): ModelState {
   let state = sentenceStart ? model.beginState() : new ModelState(0, []);
   for (const word of words) {

@@ -112,6 +112,26 @@ describe('nextTokens', () => {
     }
   });
 
+  test('prefixes of non-ASCII words: the byte comparison (wordStartsWith) agrees with String.startsWith', async () => {
+    // Words sharing lead bytes of multi-byte characters (é = c3 a9, è = c3 a8; м and н share d0).
+    const words = ['ébène', 'èbe', 'éa', 'e', 'мост', 'нос', 'м', '港口', '港', '渡', 'ab🦀', 'ab'];
+    const sentences = Array.from({ length: 40 }, (_, i) => [words[i % words.length], words[(i * 5 + 1) % words.length], words[(i * 7 + 2) % words.length]]);
+    const file = join(dir, 'non-ascii.qm');
+    await packModel(estimateWith('modified-kneser-ney', countCorpus(sentences, 2), []), { fingerprint: '' }, nodeFs, file);
+    const model = await openModel(file);
+    const encoder = new TextEncoder();
+    for (const prefix of ['', 'é', 'éb', 'è', 'e', 'м', 'мо', 'н', '港', '港口', '港口口', 'ab', 'ab🦀', '<', '</']) {
+      for (let id = 0; id <= model.vocabularySize; id++) expect(model.wordStartsWith(id, encoder.encode(prefix))).toBe(model.word(id).startsWith(prefix));
+      const keep = (id: number): boolean => model.word(id).startsWith(prefix);
+      expect(nextTokens(model, contextState(model, ['мост']), { top: 5, prefix })).toEqual(bruteForce(model, [BOS_ID, model.wordId('мост')], keep).slice(0, 5));
+    }
+    // A prefix longer than the word: the next word's bytes follow it in the file, and do not count.
+    for (let id = 0; id < model.vocabularySize; id++) {
+      const prefix = model.word(id) + model.word(id + 1);
+      expect(model.wordStartsWith(id, encoder.encode(prefix))).toBe(false);
+    }
+  });
+
   test('quern next prints them, tokenised as the model records; bad options are refused', async () => {
     await models();
     const words = train[2].slice(0, 2);

@@ -123,6 +123,16 @@ export class DecoderState {
   }
 }
 
+/** The children of one context row of a history (`PackedModel.continuations`). */
+export interface ContinuationRange {
+  /** Their order (the context's + 1). */
+  order: number;
+  start: number;
+  end: number;
+  /** log10 back-off weights added to each child's log10 p. */
+  base: number;
+}
+
 /** Result of `advance`: the word's lookup and the state after it. */
 export interface AdvanceResult extends PackedLookup {
   state: ModelState;
@@ -1649,15 +1659,16 @@ export class PackedModel {
   }
 
   /**
-   * Scores, after the history of `state`, every word that an n-gram of order ≥ 2 of the model
-   * answers: the children of the history's context rows, longest context first, each with
-   * log10 p(w | h) and the order that answered, computed as `step` computes it (the same back-off
-   * weights added in the same order). A word may come again from a shorter context: only its first
-   * score is its own. Returns the back-off weights every other word gets: log10 p(w | h) = that +
-   * log10 p1(w) (`logProb([], w)`), answered at order 1. For src/score/next-words.ts.
+   * The continuations of the history of `state`: for each of its context rows, longest context
+   * first, the rows [start, end) of order `order` that extend it (its children) and `base`, the
+   * back-off weights every child there gets added to its own log10 p (`childLog10Prob`), as `step`
+   * adds them (in the same order). A word may come again under a shorter context: only its first
+   * score is its own. `backOff` is the weights every other word gets: log10 p(w | h) = that +
+   * log10 p1(w), answered at order 1. For src/score/next-words.ts.
    */
-  scoreContinuations(state: ModelState, onWord: (id: number, log10Prob: number, order: number) => void): number {
+  continuations(state: ModelState): { ranges: ContinuationRange[]; backOff: number } {
     const length = state.length;
+    const ranges: ContinuationRange[] = [];
     let backOff = 0;
     for (let k = length; k >= 1; k--) {
       const row = state.data[length + k - 1];
@@ -1668,14 +1679,27 @@ export class PackedModel {
         backOff += this.log10UnseenContextWeight;
         continue;
       }
-      const next = this.hot[k + 1];
-      for (let child = start; child < end; child++) {
-        const id = this.words16 ? next.words16[child] : unpackId(next.words, child, this.wordBits, this.wordMask);
-        onWord(id, backOff + valueOf(next.prob, next.probBook, child), k + 1);
-      }
+      ranges.push({ order: k + 1, start, end, base: backOff });
       backOff += valueOf(level.backOff, level.backOffBook, row);
     }
-    return backOff;
+    return { ranges, backOff };
+  }
+
+  /** The word id of row `row` of order n (2..N): a child in a ContinuationRange. */
+  childWord(n: number, row: number): number {
+    return this.words16 ? this.hot[n].words16[row] : unpackId(this.hot[n].words, row, this.wordBits, this.wordMask);
+  }
+
+  /** log10 p of row `row` of order n (2..N), as stored (before any back-off weight). */
+  childLog10Prob(n: number, row: number): number {
+    const level = this.hot[n];
+    return valueOf(level.prob, level.probBook, row);
+  }
+
+  /** The row in [start, end) of order n (2..N) whose word is `word` (a ContinuationRange's
+   *  children ascend by word id), or −1. */
+  findChild(n: number, start: number, end: number, word: number): number {
+    return this.findRow(n, start, end, word);
   }
 
   /**

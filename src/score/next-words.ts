@@ -8,11 +8,12 @@
  * rows (`PackedModel.continuations`). Every other token is answered by order 1, after the same
  * back-off weights, so log10 p(w | h) = (those weights) + log10 p1(w): among them, the order of p1
  * is the order of p. The candidates are therefore the continuations and the first `top` other
- * tokens by p1. The model scores the continuations in one pass over the context rows' children
- * (`scoreContinuations`, as `step` would score each, without a search), and the best `top` are
- * returned.
+ * tokens by p1. The model gives the context rows' children (`PackedModel.continuations`) with the
+ * back-off weights `step` would add; a long list of children (after a frequent word, tens of
+ * thousands) asked for again is read best first, from its best children ranked and kept, and only
+ * until no child left could be among the best `top`.
  */
-import { ModelState, type PackedModel } from '../pack/reader.ts';
+import { ModelState, type ContinuationRange, type PackedModel } from '../pack/reader.ts';
 
 /** One predicted token. */
 export interface NextToken {
@@ -59,24 +60,103 @@ export function nextTokens(model: PackedModel, state: ModelState, options: NextO
   // The prefix is compared as UTF-8 bytes with the model's words (no string per candidate).
   const prefixBytes = prefix === undefined ? undefined : encoder.encode(prefix);
   const wanted = (id: number): boolean => !(exclude?.has(id) ?? false) && (prefixBytes === undefined || model.wordStartsWith(id, prefixBytes));
-  // Ids scored as continuations (the first score of each is its own), not to be taken again from
-  // the unigram ranking.
+  const { ranges, backOff } = model.continuations(state);
+  // A word's first score, under the longest context that has it, is its own. `seen` holds the
+  // children read so far; a range read only in part (ranked, up to where nothing left could be
+  // among the best) is searched for the words of the shorter ones.
   const seen = new Uint8Array(size + 1);
+  const partial: ContinuationRange[] = [];
+  const scoredBefore = (id: number): boolean => {
+    if (seen[id] !== 0) return true;
+    for (const range of partial) if (model.findChild(range.order, range.start, range.end, id) >= 0) return true;
+    return false;
+  };
   const best = new BestScores(top);
-  const backOff = model.scoreContinuations(state, (id, log10Prob, order) => {
-    if (id < 1 || id > size || seen[id] !== 0) return;
+  const consider = (id: number, log10Prob: number, order: number): void => {
+    if (id < 1 || id > size || scoredBefore(id)) return;
     seen[id] = 1;
     if (wanted(id)) best.offer(id, log10Prob, order);
-  });
-  const ranked = rankedByUnigram(model);
+  };
+  const walk = (range: ContinuationRange): void => {
+    for (let row = range.start; row < range.end; row++) consider(model.childWord(range.order, row), range.base + model.childLog10Prob(range.order, row), range.order);
+  };
+  for (const range of ranges) {
+    const ranked = range.end - range.start < RANKED_CHILDREN_MIN ? undefined : bestChildren(model, range);
+    if (ranked === undefined) {
+      walk(range);
+      continue;
+    }
+    // By log10 p, the lower word id first among equals (the order of the best): once a child
+    // cannot be taken, no later one can.
+    let read = 0;
+    for (; read < ranked.length; read++) {
+      const row = ranked[read];
+      const id = model.childWord(range.order, row);
+      const log10Prob = range.base + model.childLog10Prob(range.order, row);
+      if (!best.mayTake(id, log10Prob)) break;
+      consider(id, log10Prob, range.order);
+    }
+    if (read < ranked.length) partial.push(range);
+    // Past its best children, and some of the rest may count: read them all (those read are seen).
+    else if (ranked.length < range.end - range.start) walk(range);
+  }
+  // The words no context continues, answered at order 1 after every back-off weight, in unigram order.
+  const unigrams = rankedByUnigram(model);
   const empty: number[] = [];
-  for (let i = 0, others = 0; i < ranked.length && others < top; i++) {
-    const id = ranked[i];
-    if (seen[id] !== 0 || !wanted(id)) continue;
-    best.offer(id, backOff + model.logProb(empty, id).log10Prob, 1);
+  for (let i = 0, others = 0; i < unigrams.length && others < top; i++) {
+    const id = unigrams[i];
+    const log10Prob = backOff + model.logProb(empty, id).log10Prob;
+    if (!best.mayTake(id, log10Prob)) break;
+    if (scoredBefore(id) || !wanted(id)) continue;
+    best.offer(id, log10Prob, 1);
     others++;
   }
   return best.inOrder().map(({ id, log10Prob, order }) => ({ id, word: model.word(id), log10Prob, order }));
+}
+
+/** Children ranges at least this long are read best first (`bestChildren`) once they have been
+ *  asked for before, and only as far as a child could still be among the best; shorter ones, and
+ *  any range the first time, are read whole. */
+const RANKED_CHILDREN_MIN = 256;
+/** How many of a range's children are kept in order of probability: enough for the best few
+ *  dozen with a prefix of one or two letters (beyond them, the range is read whole). */
+const RANKED_CHILDREN_KEPT = 256;
+/** The ranked lists kept per model: 32,768 of them, 32 MiB at most; the least recently used go
+ *  first. And how many ranges' first use is remembered (then forgotten all at once). */
+const RANKED_LISTS_MAX = 32_768;
+const ASKED_ONCE_MAX = 1 << 20;
+
+const rankedLists = new WeakMap<PackedModel, { lists: Map<string, Int32Array>; askedOnce: Set<string> }>();
+
+/**
+ * The best RANKED_CHILDREN_KEPT rows of `range`, by log10 p descending and the lower word id first
+ * among equals, when the range was asked for before (a keyboard asks after the same frequent words
+ * again and again); undefined the first time, when ranking would cost more than reading it whole.
+ */
+function bestChildren(model: PackedModel, range: ContinuationRange): Int32Array | undefined {
+  let cache = rankedLists.get(model);
+  if (cache === undefined) rankedLists.set(model, (cache = { lists: new Map(), askedOnce: new Set() }));
+  const key = `${range.order}:${range.start}`;
+  const kept = cache.lists.get(key);
+  if (kept !== undefined) {
+    // Most recently used last.
+    cache.lists.delete(key);
+    cache.lists.set(key, kept);
+    return kept;
+  }
+  if (!cache.askedOnce.has(key)) {
+    if (cache.askedOnce.size >= ASKED_ONCE_MAX) cache.askedOnce.clear();
+    cache.askedOnce.add(key);
+    return undefined;
+  }
+  cache.askedOnce.delete(key);
+  // The children ascend by word id, so the lower row is the lower id among equal values.
+  const best = new BestScores(RANKED_CHILDREN_KEPT);
+  for (let row = range.start; row < range.end; row++) best.offer(row, model.childLog10Prob(range.order, row), 0);
+  const ranked = Int32Array.from(best.inOrder(), (entry) => entry.id);
+  cache.lists.set(key, ranked);
+  if (cache.lists.size > RANKED_LISTS_MAX) cache.lists.delete(cache.lists.keys().next().value as string);
+  return ranked;
 }
 
 const encoder = new TextEncoder();
@@ -97,6 +177,11 @@ class BestScores {
   /** Whether entry a ranks below entry b (is worse). */
   private worse(a: number, b: number): boolean {
     return this.scores[a] < this.scores[b] || (this.scores[a] === this.scores[b] && this.ids[a] > this.ids[b]);
+  }
+
+  /** Whether a score could still be kept: there is room, or it beats the worst kept. */
+  mayTake(id: number, log10Prob: number): boolean {
+    return this.ids.length < this.size || log10Prob > this.scores[0] || (log10Prob === this.scores[0] && id < this.ids[0]);
   }
 
   offer(id: number, log10Prob: number, order: number): void {

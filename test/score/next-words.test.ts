@@ -17,6 +17,7 @@ import { contextState, nextTokens, type NextToken } from '../../src/score/next-w
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { temporaryDirectory } from '../pack/support.ts';
 import { runCommandsInProcess } from '../support/in-process.ts';
+import { seededRandom } from '../support/seeded.ts';
 
 const { dir, remove } = temporaryDirectory('next-words');
 afterAll(remove);
@@ -97,6 +98,44 @@ describe('nextTokens', () => {
         for (const prefix of ['w1', 'w', 'w2', 'nothing-starts-so']) {
           const keep = (id: number): boolean => !exclude.has(id) && m.word(id).startsWith(prefix);
           expect(nextTokens(m, state, { top: 7, prefix, exclude })).toEqual(bruteForce(m, history, keep).slice(0, 7));
+        }
+      }
+    }
+  });
+
+  test('contexts with thousands of continuations, read ranked and in part: still exactly the best', async () => {
+    // "the" and "a" are followed by ~1,500 different words (and "<s>" by ~3,000): past
+    // RANKED_CHILDREN_MIN, so their children are read by probability and only as far as needed.
+    const random = seededRandom(77);
+    const sentences: string[][] = [];
+    for (let i = 0; i < 6000; i++) {
+      const word = `w${Math.floor(1500 * random() ** 2)}`;
+      const next = `w${Math.floor(1500 * random() ** 3)}`;
+      sentences.push(i % 3 === 0 ? ['the', word, next] : i % 3 === 1 ? ['a', word, 'the', next] : [word, 'a', next, 'the']);
+    }
+    // "a", frequent, follows "the" only twice: under stupid backoff its score after "the" is far
+    // below what backing off to its unigram would give, so it must not be taken for a word no
+    // context continues while the ranked read of "the" stops before it.
+    sentences.push(['the', 'a'], ['the', 'a']);
+    const wide = countCorpus(sentences, 3);
+    const wideFiles = { float32: join(dir, 'wide.qm'), eightBit: join(dir, 'wide8.qm'), stupid: join(dir, 'wide-sb.qm') };
+    await packModel(estimateWith('modified-kneser-ney', wide, []), { fingerprint: '' }, nodeFs, wideFiles.float32);
+    await packModel(estimateWith('modified-kneser-ney', wide, []), { fingerprint: '', quantBits: 8 }, nodeFs, wideFiles.eightBit);
+    await packModel(estimateWith('stupid-backoff', wide, []), { fingerprint: '' }, nodeFs, wideFiles.stupid);
+    for (const file of Object.values(wideFiles)) {
+      const model = await openModel(file);
+      const id = (word: string): number => (model.textWordId(word) < 0 ? model.unkId : model.textWordId(word));
+      for (const words of [[], ['the'], ['a'], ['w3', 'the'], ['w1', 'a'], ['a', 'w7'], ['zzz', 'the'], ['the', 'w2', 'the']]) {
+        const history = [BOS_ID, ...words.map(id)];
+        // Twice: the second time from the kept rankings.
+        for (let round = 0; round < 2; round++) {
+          for (const top of [1, 5, 60]) {
+            expect(nextTokens(model, contextState(model, words), { top })).toEqual(bruteForce(model, history).slice(0, top));
+          }
+          for (const prefix of ['w1', 'w14', 'w149', 't']) {
+            const keep = (token: number): boolean => model.word(token).startsWith(prefix);
+            expect(nextTokens(model, contextState(model, words), { top: 8, prefix })).toEqual(bruteForce(model, history, keep).slice(0, 8));
+          }
         }
       }
     }

@@ -9,7 +9,7 @@ import { QuernError } from '../errors.ts';
 import { discoverInputs } from '../corpus/discover.ts';
 import { planChunks } from '../corpus/plan.ts';
 import { GzipPieces } from '../corpus/gzip-pieces.ts';
-import { isChunkPiece, type Chunk, type InputFile, type NormalizeOptions, type SkippedSample } from '../corpus/types.ts';
+import { inputBytesOf, isChunkPiece, type Chunk, type InputFile, type NormalizeOptions, type SkippedSample } from '../corpus/types.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
 import { WorkerPool, type TaskSource } from '../count/pool.ts';
 import type { ScoreChunkDone } from '../count/protocol.ts';
@@ -99,7 +99,7 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
     else {
       for (let chunk = await tasks.next(); chunk !== undefined; chunk = await tasks.next()) {
         const result = await scoreChunk(model, inputs[chunk.fileIndex], chunk, settings);
-        run.progress.update(progressBytes(chunk), result.sums.tokens);
+        run.progress.update(inputBytesOf(chunk), result.sums.tokens);
         await consume(result);
       }
     }
@@ -119,11 +119,6 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
 
 function totals(file: string): Totals {
   return { file, sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0, perplexity: NaN, perplexityWithUnk: NaN, skipped: 0 };
-}
-
-/** The input bytes a chunk stands for in the progress display (compressed bytes for a gzip piece). */
-export function progressBytes(chunk: Chunk): number {
-  return isChunkPiece(chunk) ? chunk.sourceBytes : chunk.byteEnd - chunk.byteStart;
 }
 
 /**

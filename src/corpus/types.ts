@@ -49,6 +49,11 @@ export function isChunkPiece(chunk: Chunk): chunk is ChunkPiece {
   return (chunk as Partial<ChunkPiece>).data !== undefined;
 }
 
+/** The input bytes a chunk stands for, as progress counts them (compressed bytes for a gzip piece). */
+export function inputBytesOf(chunk: Chunk): number {
+  return isChunkPiece(chunk) ? chunk.sourceBytes : chunk.byteEnd - chunk.byteStart;
+}
+
 export type UnicodeForm = 'none' | 'nfc' | 'nfkc';
 export type SplitMode = 'space' | 'chars';
 

@@ -16,7 +16,7 @@ import { WordTable } from '../corpus/word-table.ts';
 import { stageFs } from '../job/fsio.ts';
 import { installStopGate, StopGate } from '../job/stop-gate.ts';
 import type { ChunkResult, RunRecord } from '../job/manifest.ts';
-import { isChunkPiece, type Chunk, type ReadOptions } from '../corpus/types.ts';
+import { inputBytesOf, type Chunk, type ReadOptions } from '../corpus/types.ts';
 import { CounterSet, type CounterNeed } from './counter-set.ts';
 import { spillCounterSet } from './spill.ts';
 import { mergePartition, type PartitionMergeTask } from '../merge/merge-partition.ts';
@@ -384,7 +384,7 @@ async function scoreTask(chunk: Chunk): Promise<void> {
   const { model, settings } = init.score!;
   scoreModel ??= modelFromShared(model);
   const result = await scoreChunk(scoreModel, init.inputs[chunk.fileIndex], chunk, settings);
-  progressBytes += isChunkPiece(chunk) ? chunk.sourceBytes : chunk.byteEnd - chunk.byteStart;
+  progressBytes += inputBytesOf(chunk);
   progressTokens += result.sums.tokens;
   flushProgress(true);
   const records = result.records;

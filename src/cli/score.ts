@@ -18,6 +18,7 @@ import { SCORE_CHUNK_BYTES } from '../limits.ts';
 import { corpusOptions } from './count.ts';
 import { intInRange, parseSize } from './options.ts';
 import { makeProgress } from './progress.ts';
+import { writeOut } from './write-out.ts';
 import { describeNormalize, resolveNormalize } from '../score/normalization.ts';
 import { withPerplexities, type PerplexityResult, type PerplexitySums } from '../score/perplexity.ts';
 import { scoreChunk, type ChunkScore, type ScoreSettings } from '../score/score-chunk.ts';
@@ -260,9 +261,3 @@ export const scoreCommand: CommandModule = {
     }
   },
 };
-
-/** Writes `text`, waiting for the stream to drain when its buffer is full (a pipe read slowly). */
-function writeOut(out: NodeJS.WritableStream, text: string): Promise<void> | void {
-  if (out.write(text)) return;
-  return new Promise((resolve) => out.once('drain', () => resolve()));
-}

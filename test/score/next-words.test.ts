@@ -5,6 +5,8 @@
  * normalised model, the whole list's probabilities sum to 1 (a conditional distribution: common
  * practice for any normalised language model).
  */
+import { spawn } from 'node:child_process';
+import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, describe, expect, test } from 'vitest';
 import { nextCommand } from '../../src/cli/next.ts';
@@ -18,6 +20,7 @@ import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { temporaryDirectory } from '../pack/support.ts';
 import { runCommandsInProcess } from '../support/in-process.ts';
 import { seededRandom } from '../support/seeded.ts';
+import { REPO } from '../support/cli.ts';
 
 const { dir, remove } = temporaryDirectory('next-words');
 afterAll(remove);
@@ -169,6 +172,67 @@ describe('nextTokens', () => {
       const prefix = model.word(id) + model.word(id + 1);
       expect(model.wordStartsWith(id, encoder.encode(prefix))).toBe(false);
     }
+  });
+
+  test('quern next --queries answers a file of queries, a JSON line each, and a bad line with its error', async () => {
+    await models();
+    const model = await openModel(files.float32);
+    const contexts = [train[3].slice(0, 2), [], train[4].slice(0, 1), ['zzz-unseen', train[5][0]]];
+    const queries = Buffer.concat([
+      Buffer.from(`${contexts[0].join(' ')}\n\n${contexts[2].join(' ')}\tw\r\n`),
+      Buffer.from([0x77, 0xff, 0x0a]),
+      Buffer.from(`${contexts[3].join(' ')}\n${contexts[0][0]}\ttwo words\n${contexts[0].join('  ')}`),
+    ]);
+    const file = join(dir, 'queries.txt');
+    writeFileSync(file, queries);
+    const printed = await runCommandsInProcess([nextCommand], ['next', files.float32, '--queries', file, '--top', '3']);
+    const records = printed.trim().split('\n').map((line) => JSON.parse(line));
+    const expected = (words: string[], prefix?: string) => ({
+      context: ['<s>', ...words.map((word) => (model.textWordId(word) < 0 ? '<unk>' : word))],
+      prefix: prefix ?? null,
+      next: nextTokens(model, contextState(model, words), { top: 3, prefix }).map(({ word, log10Prob, order }) => ({ word, log10Prob, probability: 10 ** log10Prob, order })),
+    });
+    expect(records).toEqual([
+      { line: 1, ...expected(contexts[0]) },
+      { line: 2, ...expected([]) },
+      { line: 3, ...expected(contexts[2], 'w') },
+      { line: 4, error: 'invalid UTF-8' },
+      { line: 5, ...expected(contexts[3]) },
+      { line: 6, error: 'the prefix must be the start of one token; "two words" is 2 tokens' },
+      { line: 7, ...expected(contexts[0]) },
+    ]);
+    await expect(runCommandsInProcess([nextCommand], ['next', files.float32, 'a b', '--queries', file])).rejects.toThrow(/--queries takes the contexts/);
+  });
+
+  test('quern next --queries on standard input answers each query before the next is written', async () => {
+    await models();
+    const model = await openModel(files.float32);
+    const child = spawn(process.execPath, [join(REPO, 'bin/quern.js'), 'next', files.float32, '--queries', '-', '--top', '2'], { stdio: ['pipe', 'pipe', 'pipe'] });
+    const lines: string[] = [];
+    let pending = '';
+    let waiting: (() => void) | undefined;
+    child.stdout.setEncoding('utf8').on('data', (data: string) => {
+      pending += data;
+      for (let newline = pending.indexOf('\n'); newline >= 0; newline = pending.indexOf('\n')) {
+        lines.push(pending.slice(0, newline));
+        pending = pending.slice(newline + 1);
+      }
+      waiting?.();
+    });
+    const answerTo = async (query: string, count: number): Promise<Record<string, unknown>> => {
+      child.stdin.write(`${query}\n`);
+      while (lines.length < count) await new Promise<void>((resolve) => (waiting = resolve));
+      return JSON.parse(lines[count - 1]);
+    };
+    // The second query is written only once the first is answered: the process answers as it reads.
+    for (const [index, words] of [train[6].slice(0, 2), train[7].slice(0, 1)].entries()) {
+      const record = await answerTo(words.join(' '), index + 1);
+      expect(record.next).toEqual(nextTokens(model, contextState(model, words), { top: 2 }).map(({ word, log10Prob, order }) => ({ word, log10Prob, probability: 10 ** log10Prob, order })));
+    }
+    child.stdin.end();
+    const status = await new Promise<number | null>((resolve) => child.on('close', resolve));
+    expect(status).toBe(0);
+    expect(lines).toHaveLength(2);
   });
 
   test('quern next prints them, tokenised as the model records; bad options are refused', async () => {

@@ -138,7 +138,9 @@ export class GzipPieces {
       const from = Math.max(0, this.pieceBytes - 1 - offset);
       if (from < block.length) {
         const newline = block.indexOf(0x0a, from);
-        if (newline >= 0) return this.handOut(offset + newline + 1, false);
+        // A piece that takes every pending byte waits for the end of the stream, if it is near:
+        // then it is known to be the last, and accounts for the rest of the compressed file.
+        if (newline >= 0) return offset + newline + 1 === this.pendingBytes && !this.ended ? undefined : this.handOut(offset + newline + 1, false);
       }
       offset += block.length;
     }

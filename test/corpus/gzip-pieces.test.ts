@@ -95,6 +95,14 @@ describe('GzipPieces', () => {
     expect(split.stats.reduce((sum, s) => sum + s.lines, 0)).toBe(whole.stats[0].lines);
   });
 
+  test('pieces that end where the text ends: the last one still accounts for the rest of the compressed file', async () => {
+    const content = 'ninebytes\n'.repeat(50);
+    const file = await inputOf('exact.gz', gzipSync(content));
+    const pieces = await allPieces(file, 10);
+    expect(pieces).toHaveLength(50);
+    expect(pieces.reduce((sum, p) => sum + p.sourceBytes, 0)).toBe(file.bytes);
+  });
+
   test('an empty file is one empty piece', async () => {
     const pieces = await allPieces(await inputOf('empty.gz', gzipSync('')), 64);
     expect(pieces.map((p) => [p.byteStart, p.byteEnd, p.linesBefore, p.data.length])).toEqual([[0, 0, 0, 0]]);

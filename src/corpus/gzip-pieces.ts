@@ -37,9 +37,11 @@ export class GzipPieces {
   private linesBefore = 0;
   /** Compressed bytes accounted to the pieces handed out so far. */
   private sourceAccounted = 0;
-  /** Skipping the rest of an overlong line, which ended the last piece. */
+  /** Skipping the rest of an overlong line, which ended the last piece; where that line starts. */
   private dropping = false;
+  private droppedLineStart = 0;
   private ended = false;
+  private closed = false;
   private handedOut = 0;
   private sourceError: unknown;
 
@@ -66,9 +68,10 @@ export class GzipPieces {
     this.blocks = gunzip[Symbol.asyncIterator]();
   }
 
-  /** The next piece, or undefined after the last. */
+  /** The next piece, or undefined after the last (or once closed). */
   async next(): Promise<ChunkPiece | undefined> {
     for (;;) {
+      if (this.closed) return undefined;
       const piece = this.cut();
       if (piece !== undefined) return piece;
       if (this.ended) return this.last();
@@ -91,6 +94,7 @@ export class GzipPieces {
 
   /** Stops reading (after the last piece, or when the caller gives up). */
   async close(): Promise<void> {
+    this.closed = true;
     this.ended = true;
     await this.blocks.return?.().catch(() => undefined);
     this.source.destroy();
@@ -98,6 +102,7 @@ export class GzipPieces {
 
   /** Where the stream broke off, as LineReader.currentLine gives it for a whole gzip file. */
   private currentLine(): { lineInChunk: number; byteOffset: number } {
+    if (this.dropping) return { lineInChunk: this.linesBefore + 1, byteOffset: this.droppedLineStart };
     let lines = this.linesBefore;
     let lineStart = this.pieceStart;
     let offset = this.pieceStart;
@@ -145,7 +150,11 @@ export class GzipPieces {
       offset += block.length;
     }
     // No line ends past the target yet: wait for more, unless the line there is already too long.
-    if (this.pendingBytes - this.lastLineStart() > this.lineBytesMax) return this.handOut(this.pendingBytes, true);
+    const lineStart = this.lastLineStart();
+    if (this.pendingBytes - lineStart > this.lineBytesMax) {
+      this.droppedLineStart = this.pieceStart + lineStart;
+      return this.handOut(this.pendingBytes, true);
+    }
     return undefined;
   }
 

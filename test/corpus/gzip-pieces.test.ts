@@ -14,6 +14,7 @@ import { planChunks } from '../../src/corpus/plan.ts';
 import { readChunk, type ChunkReadStats } from '../../src/corpus/read.ts';
 import type { Chunk, ChunkPiece, InputFile, ReadOptions } from '../../src/corpus/types.ts';
 import { QuernError } from '../../src/errors.ts';
+import { LINE_BYTES_MAX } from '../../src/limits.ts';
 import { seededRandom } from '../support/seeded.ts';
 
 const root = mkdtempSync(path.join(tmpdir(), 'quern-gzip-pieces-'));
@@ -149,6 +150,24 @@ describe('GzipPieces', () => {
     expect(pieces.length).toBeGreaterThan(10);
     const { sentences } = await readPieces(file, pieces, { ...text, skipBad });
     expect(sentences.map(([s]) => s)).toEqual(lines.slice(0, sentences.length));
+    await cutter.close();
+  });
+
+  test('a file that breaks off inside an overlong line: the error a whole read gives, at the line\'s start', async () => {
+    // Past LINE_BYTES_MAX (64 MiB) of one line before the data breaks off: the piece cut inside
+    // the line has been handed out and the rest is being dropped when the stream fails.
+    const head = Array.from({ length: 2000 }, (_, i) => `line ${i} of the head`).join('\n') + '\n';
+    const zipped = gzipSync(Buffer.concat([Buffer.from(head), Buffer.alloc(LINE_BYTES_MAX + (4 << 20), 0x71)]), { level: 1 });
+    const file = await inputOf('overlong-cut.gz', zipped.subarray(0, zipped.length - 64));
+    const whole = (await readChunk(file, { index: 0, fileIndex: 0, byteStart: 0, byteEnd: file.bytes }, { ...text, skipBad: true }, () => undefined).catch((e) => e)) as QuernError;
+    expect(whole.message).toMatch(/truncated or corrupt gzip data/);
+    const cutter = new GzipPieces(file, 0, 1 << 20, 0);
+    const error = await (async () => {
+      for (let piece = await cutter.next(); piece !== undefined; piece = await cutter.next());
+    })().catch((e) => e);
+    expect(error).toBeInstanceOf(QuernError);
+    expect(error.message).toBe(whole.message);
+    expect(error.location).toEqual({ file: file.path, line: 2001, byteOffset: Buffer.byteLength(head) });
     await cutter.close();
   });
 

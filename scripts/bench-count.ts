@@ -5,7 +5,7 @@
  *
  *   npm run bench:count -- [--bytes 200MB] [--shape few-large|many-small|both] [--orders 3,5]
  *                          [--memory 2GiB] [--workers 2] [--corpus-dir DIR] [--seed 1] [--keep] [--skip-pipeline]
- *                          [--against REV] [--repeat N]
+ *                          [--against REV] [--repeat N] [--gzip]
  *
  * --bytes       corpus size, all shards together (default 200MB; 1GB for the large variant)
  * --shape       few-large (2 shards), many-small (200 shards) or both (default), one after the other
@@ -26,6 +26,9 @@
  *               and per stage (the medians of --repeat runs each)
  * --repeat      runs of each quern (and of the --against one) per shape and order, alternating
  *               (default 1); the pipeline runs once
+ * --gzip        quern counts the corpus as one gzip file (its shards concatenated, `gzip -1`, made once
+ *               and kept beside them as all-shards.txt.gz); needs --skip-pipeline (the pipeline reads
+ *               the shards). With --against, how the two builds count one large gzip input
  * --keep        keep quern's job directories and the pipeline's `uniq -c` output under
  *               bench-out/work/ (by default each is removed once its counts are checked; the corpus
  *               is always kept, so the next run can reuse it)
@@ -96,6 +99,8 @@ interface Options {
   memoryBytes: number;
   workers: number;
   corpusDir: string | null;
+  /** Count the corpus as one gzip file (--gzip). */
+  gzip: boolean;
   seed: number;
   keep: boolean;
   /** Time quern alone (the store and memory figures; no throughput ratio). */
@@ -197,6 +202,7 @@ function parseOptions(argv: string[]): Options {
         'skip-pipeline': { type: 'boolean', default: false },
         against: { type: 'string' },
         repeat: { type: 'string', default: '1' },
+        gzip: { type: 'boolean', default: false },
       },
     });
   } catch (error) {
@@ -224,9 +230,10 @@ function parseOptions(argv: string[]): Options {
   if (corpusDir !== null && shapes.length > 1) fail('--corpus-dir needs a single --shape (each shape has its own corpus)');
   const repeat = Number(v.repeat);
   if (!Number.isInteger(repeat) || repeat < 1 || repeat > 20) fail(`--repeat must be an integer in [1, 20], got ${v.repeat}`);
+  if (v.gzip === true && v['skip-pipeline'] !== true) fail('--gzip needs --skip-pipeline (the pipeline reads the plain shards)');
   return {
     bytes: Math.floor(bytes), shapes, orders, memoryBytes: Math.floor(memoryBytes), workers, corpusDir, seed, keep: v.keep === true,
-    skipPipeline: v['skip-pipeline'] === true, against: v.against ?? null, repeat,
+    skipPipeline: v['skip-pipeline'] === true, against: v.against ?? null, repeat, gzip: v.gzip === true,
   };
 }
 
@@ -273,7 +280,20 @@ function prepareCorpus(options: Options, shape: CorpusShape): Corpus {
   }
   const manifest = readCorpusManifest(dir);
   if (!corpusMatches(manifest, dir, options, shape)) fail(`corpus in ${dir} does not match the options after generating it`);
-  return { shape, dir, files: manifest.shards.map((shard) => join(dir, shard.name)), manifest, generated };
+  const files = manifest.shards.map((shard) => join(dir, shard.name));
+  return { shape, dir, files: options.gzip ? [gzipCorpus(dir, files)] : files, manifest, generated };
+}
+
+/** The shards concatenated into one gzip file in `dir` (made once; a half-written one never counts). */
+function gzipCorpus(dir: string, files: readonly string[]): string {
+  const target = join(dir, 'all-shards.txt.gz');
+  if (existsSync(target)) return target;
+  log(`compressing the shards into ${relative(REPO, target) || target} (gzip -1) …`);
+  const partial = `${target}.partial`;
+  const result = spawnSync('bash', ['-c', 'set -o pipefail; cat "$@" | gzip -1 > "$PARTIAL"', 'gzip-corpus', ...files], { env: { ...process.env, PARTIAL: partial }, stdio: ['ignore', 'inherit', 'inherit'] });
+  if (result.status !== 0) fail(`compressing the corpus failed (exit ${result.status ?? result.signal})`);
+  renameSync(partial, target);
+  return target;
 }
 
 /** Reads every shard once, so neither tool pays for a cold page cache. */

@@ -4,13 +4,26 @@
 import { promises as fsp } from 'node:fs';
 import { ioError, QuernError } from '../errors.ts';
 import { PLAN_SCAN_BLOCK_BYTES } from '../limits.ts';
+import { GzipPieces } from './gzip-pieces.ts';
 import type { Chunk, InputFile } from './types.ts';
+
+/** How `planChunks` treats gzip inputs. */
+export interface PlanOptions {
+  /** Plan a gzip input of at least 1/GZIP_SPLIT_RATIO of the chunk size as ranges of its
+   *  decompressed text (Chunk.linesBefore), found by decompressing it once now. */
+  splitGzip?: boolean;
+}
+
+/** A gzip file this much smaller than a chunk (compressed) is likely one chunk of text or less:
+ *  it stays one chunk, and is not decompressed to be planned (text compresses 3–4 times). */
+const GZIP_SPLIT_RATIO = 4;
 
 /**
  * Splits `files` into chunks, in file order then byte order, with `index` counting from 0.
  *
  * A gzip input is one chunk covering the whole (compressed) file: a deflate stream cannot be
- * entered in the middle. A plain input (text or JSONL) is cut about every `chunkBytesTarget`
+ * entered in the middle. With `splitGzip`, a large one is cut instead where its decompressed text
+ * would be cut as a plain file (the ranges carry `linesBefore`); a bad gzip stream then fails here. A plain input (text or JSONL) is cut about every `chunkBytesTarget`
  * bytes: from each target offset the planner reads forward to just after the next '\n', so every
  * chunk holds whole lines, none is empty, and together they cover the file exactly. An empty file
  * is one chunk 0..0, so every input appears in the plan. The result depends only on the file
@@ -20,13 +33,26 @@ import type { Chunk, InputFile } from './types.ts';
  * @throws QuernError('config') for a bad `chunkBytesTarget`; QuernError('input') when a file's size
  *   no longer matches the discovered one; an 'io' QuernError when a file cannot be read.
  */
-export async function planChunks(files: InputFile[], chunkBytesTarget: number): Promise<Chunk[]> {
+export async function planChunks(files: InputFile[], chunkBytesTarget: number, options: PlanOptions = {}): Promise<Chunk[]> {
   if (!Number.isSafeInteger(chunkBytesTarget) || chunkBytesTarget < 1) {
     throw new QuernError('config', `chunkBytesTarget: must be a positive integer, got ${chunkBytesTarget}`);
   }
   const chunks: Chunk[] = [];
   for (let fileIndex = 0; fileIndex < files.length; fileIndex++) {
     const file = files[fileIndex];
+    if (file.gzip && options.splitGzip === true && file.bytes >= chunkBytesTarget / GZIP_SPLIT_RATIO) {
+      // Decompressed once here to find where its text's chunks end (GzipPieces' cut, the bytes
+      // dropped): the count's vocabulary pass cuts it again and hands the pieces to its workers.
+      const cutter = new GzipPieces(file, fileIndex, chunkBytesTarget, chunks.length);
+      try {
+        for (let piece = await cutter.next(); piece !== undefined; piece = await cutter.next()) {
+          chunks.push({ index: piece.index, fileIndex, byteStart: piece.byteStart, byteEnd: piece.byteEnd, linesBefore: piece.linesBefore });
+        }
+      } finally {
+        await cutter.close();
+      }
+      continue;
+    }
     if (file.gzip || file.bytes === 0) {
       chunks.push({ index: chunks.length, fileIndex, byteStart: 0, byteEnd: file.bytes });
       continue;

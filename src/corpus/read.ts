@@ -11,7 +11,7 @@ import { assert, formatLocation, ioError, QuernError, type InputLocation } from 
 import { LINE_BYTES_MAX, READ_BLOCK_BYTES, SKIPPED_SAMPLES_PER_FILE_MAX } from '../limits.ts';
 import { makeRecordReader, type RecordReader } from './jsonl.ts';
 import { countNewlines, forEachLine, isBlankLine } from './lines.ts';
-import { isChunkPiece, type Chunk, type ChunkPiece, type InputFile, type ReadOptions, type ReadStats, type SkippedSample } from './types.ts';
+import { isChunkPiece, isTextRange, type Chunk, type ChunkPiece, type InputFile, type ReadOptions, type ReadStats, type SkippedSample } from './types.ts';
 
 /** Receives one sentence: the raw text of a line (no normalisation yet), never blank, and the line
  *  it is on, counted from 1 at the chunk's first line (JSONL: the record's line; each line of its
@@ -122,7 +122,7 @@ export async function readChunkLines(
 
 /** The absolute line before the chunk's first, when it is known without reading: 0 at byte 0. */
 function lineBaseOf(chunk: Chunk): number | undefined {
-  if (isChunkPiece(chunk)) return chunk.linesBefore;
+  if (chunk.linesBefore !== undefined) return chunk.linesBefore;
   return chunk.byteStart === 0 ? 0 : undefined;
 }
 
@@ -130,6 +130,10 @@ function checkChunk(file: InputFile, chunk: Chunk, options: ReadOptions): void {
   assert(options.format === file.format, `ReadOptions.format (${options.format}) must equal the file's format (${file.format})`);
   if (isChunkPiece(chunk)) {
     assert(file.gzip && chunk.byteStart >= 0 && chunk.byteEnd - chunk.byteStart === chunk.data.length, `piece ${chunk.index} of ${file.path} holds the ${chunk.byteEnd - chunk.byteStart} decompressed bytes of its range`);
+    return;
+  }
+  if (isTextRange(chunk)) {
+    assert(file.gzip && Number.isSafeInteger(chunk.byteStart) && chunk.byteStart >= 0 && chunk.byteStart <= chunk.byteEnd, `chunk ${chunk.index}: a range ${chunk.byteStart}..${chunk.byteEnd} of decompressed text belongs to a gzip input`);
     return;
   }
   assert(
@@ -147,6 +151,7 @@ async function readWith(
 ): Promise<ChunkReadStats> {
   try {
     if (isChunkPiece(chunk)) await readPiece(chunk, reader, onProgress);
+    else if (isTextRange(chunk)) await readGzip(file, reader, onProgress, chunk);
     else if (file.gzip) await readGzip(file, reader, onProgress);
     else await readPlain(file, chunk, reader, onProgress);
   } catch (error) {
@@ -191,7 +196,14 @@ async function readPiece(piece: ChunkPiece, reader: LineReader, onProgress: Prog
   reader.finish();
 }
 
-async function readGzip(file: InputFile, reader: LineReader, onProgress: ProgressHandler | undefined): Promise<void> {
+/**
+ * A gzip input read through, or (`range`, a range of its decompressed text without its bytes) only
+ * the text of [range.byteStart, range.byteEnd): the stream is decompressed from its start, the text
+ * before the range passed over, and reading stops at its end. That costs the decompression of all
+ * the text before the range: the count's workers get a range's bytes from the pass that cut it, or
+ * read its token file, and come here only without those (`--no-token-files`).
+ */
+async function readGzip(file: InputFile, reader: LineReader, onProgress: ProgressHandler | undefined, range?: Chunk): Promise<void> {
   const source = createReadStream(file.path, { highWaterMark: READ_BLOCK_BYTES });
   const gunzip = createGunzip({ chunkSize: READ_BLOCK_BYTES });
   let sourceError: unknown;
@@ -200,18 +212,43 @@ async function readGzip(file: InputFile, reader: LineReader, onProgress: Progres
     gunzip.destroy(cause);
   });
   source.pipe(gunzip);
+  // Offset in the decompressed text of the next block.
+  let offset = 0;
+  let rangeRead = 0;
   try {
     await forEachBlock(
       gunzip,
       (block) => {
+        if (range !== undefined) {
+          const start = Math.max(range.byteStart - offset, 0);
+          const end = Math.min(range.byteEnd - offset, block.length);
+          offset += block.length;
+          if (start >= end) return;
+          reader.push(block.subarray(start, end));
+          rangeRead += end - start;
+          reader.stats.bytesRead = rangeRead;
+          return onProgress?.(rangeRead);
+        }
         reader.push(block);
         reader.stats.bytesRead = source.bytesRead;
         return onProgress?.(source.bytesRead);
       },
-      (cause) => (sourceError !== undefined ? ioError('read', file.path, sourceError) : gzipError(file, reader.currentLine(), cause)),
+      (cause) => {
+        if (sourceError !== undefined) return ioError('read', file.path, sourceError);
+        const at = reader.currentLine();
+        return gzipError(file, { lineInChunk: at.lineInChunk + (range?.linesBefore ?? 0), byteOffset: at.byteOffset }, cause);
+      },
+      range === undefined ? undefined : () => offset >= range.byteEnd,
     );
   } finally {
     source.destroy();
+  }
+  if (range !== undefined) {
+    if (rangeRead !== range.byteEnd - range.byteStart) {
+      throw new QuernError('input', `${file.path} changed since it was planned: its decompressed text ends before bytes ${range.byteStart}..${range.byteEnd}`);
+    }
+    reader.finish();
+    return;
   }
   reader.stats.bytesRead = source.bytesRead;
   if (source.bytesRead !== file.bytes) {
@@ -221,17 +258,19 @@ async function readGzip(file: InputFile, reader: LineReader, onProgress: Progres
 }
 
 /**
- * Runs `onBlock` for each block of `stream`. A failure of the stream itself goes through
- * `streamError`; whatever `onBlock` throws passes unchanged. The stream is closed either way.
+ * Runs `onBlock` for each block of `stream` (until `done` says so). A failure of the stream itself
+ * goes through `streamError`; whatever `onBlock` throws passes unchanged. The stream is closed either way.
  */
 async function forEachBlock(
   stream: AsyncIterable<Buffer>,
   onBlock: (block: Buffer) => void | Promise<void>,
   streamError: (cause: unknown) => Error,
+  done?: () => boolean,
 ): Promise<void> {
   const iterator = stream[Symbol.asyncIterator]();
   try {
     for (;;) {
+      if (done?.()) return;
       let step: IteratorResult<Buffer>;
       try {
         step = await iterator.next();

@@ -18,7 +18,8 @@ export interface InputFile {
 
 /**
  * A unit of reading work: a line-aligned byte range of one input. A plain file may be split into
- * several chunks; a gzip file is always one chunk covering the whole file.
+ * several chunks; a gzip file is one chunk covering the whole file, or (planned so, for the count)
+ * line-aligned ranges of its decompressed text.
  * `byteStart` is 0 or the offset just after a '\n'; `byteEnd` is exclusive and is the file size or
  * the offset just after a '\n'.
  */
@@ -27,6 +28,17 @@ export interface Chunk {
   fileIndex: number;
   byteStart: number;
   byteEnd: number;
+  /**
+   * Only for a range of a gzip input's decompressed text (a large gzip input planned in pieces,
+   * src/corpus/gzip-pieces.ts): `byteStart` and `byteEnd` are offsets in that text, and this is
+   * the number of its lines before `byteStart`. Absent: a byte range of the file itself.
+   */
+  linesBefore?: number;
+}
+
+/** Whether `chunk` is a range of a gzip input's decompressed text (with or without its bytes). */
+export function isTextRange(chunk: Chunk): boolean {
+  return chunk.linesBefore !== undefined;
 }
 
 /**

@@ -7,12 +7,14 @@ import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
 import { QuernError } from '../errors.ts';
 import { PROCESS_OVERHEAD_BYTES, VOCAB_BYTES_PER_TYPE, WORKER_COUNTER_BYTES_MIN, WORKER_OVERHEAD_BYTES } from '../limits.ts';
-import type { Chunk, ReadStats } from '../corpus/types.ts';
+import { GzipPieces } from '../corpus/gzip-pieces.ts';
+import { isChunkPiece, isTextRange, type Chunk, type InputFile, type ReadStats } from '../corpus/types.ts';
 import { buildVocabulary, formatVocabulary, parseVocabulary, type Vocabulary } from '../corpus/vocabulary.ts';
 import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
 import type { JobManifest } from '../job/manifest.ts';
 import type { CountGroupDone, VocabChunkDone, VocabFinished, WorkerInit } from './protocol.ts';
+import type { TaskSource } from './pool.ts';
 import { groupBytesTarget, groupChunks } from './chunk-groups.ts';
 import { RUNS_DIR } from './run-layout.ts';
 import { tokenMapPath, TOKENS_DIR, type TokenFileRecord } from './token-file.ts';
@@ -115,8 +117,11 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
   const tokenFiles: Array<TokenFileRecord | null> = job.chunks.map(() => null);
   const tables: Array<{ table: number; words: string[] }> = [];
   ctx.progress.start('vocabulary', chunkBytes(todo));
-  await ctx.pool.run<Chunk, VocabChunkDone, VocabFinished>({ ...baseInit(job, jobDir, 'vocab'), writeTokenFiles: ctx.tokenFiles }, todo, {
+  // Ranges of a gzip input's text go to the workers with their bytes, cut again here.
+  const tasks = todo.some(isTextRange) ? new TextRangeTasks(job.inputs, todo, job.config.chunkBytes) : todo;
+  await ctx.pool.run<Chunk, VocabChunkDone, VocabFinished>({ ...baseInit(job, jobDir, 'vocab'), writeTokenFiles: ctx.tokenFiles }, tasks, {
     message: (chunk) => ({ type: 'chunk', chunk }),
+    transfer: (chunk) => (isChunkPiece(chunk) ? [chunk.data.buffer as ArrayBuffer] : []),
     onProgress: (bytes, tokens) => ctx.progress.update(bytes, tokens),
     onDone: (done) => {
       reads[done.chunk] = done.reads;
@@ -130,7 +135,10 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
       unkSeen += finished.unkSeen;
       tables.push({ table: finished.table, words: finished.words });
     },
-  }).finally(() => ctx.progress.stop());
+  }).finally(async () => {
+    ctx.progress.stop();
+    if (tasks instanceof TextRangeTasks) await tasks.close();
+  });
   const sentences = reads.reduce((sum, r) => sum + r!.sentences, 0);
   const vocab = buildVocabulary(wordCounts, sentences, unkSeen, job.config.vocabCap);
   const text = formatVocabulary(vocab);
@@ -231,4 +239,47 @@ export function sumOccurrences(job: JobManifest): number[] {
   const occurrences = new Array<number>(job.config.order).fill(0);
   for (const c of job.stages.count.chunks) for (let n = 0; n < job.config.order; n++) occurrences[n] += c.occurrences[n];
   return occurrences;
+}
+
+/**
+ * The vocabulary pass's chunks in order, each range of a gzip input's decompressed text with its
+ * bytes: the input is decompressed once more, by this thread, and cut as it was planned
+ * (GzipPieces, the job's chunk size), so the workers share one large gzip input instead of one of
+ * them reading it all. A range that no longer matches the plan means the file changed.
+ */
+class TextRangeTasks implements TaskSource<Chunk> {
+  private next_ = 0;
+  private pieces: { fileIndex: number; cutter: GzipPieces } | undefined;
+
+  constructor(private readonly inputs: InputFile[], private readonly todo: Chunk[], private readonly chunkBytes: number) {}
+
+  async next(): Promise<Chunk | undefined> {
+    if (this.next_ === this.todo.length) {
+      await this.close();
+      return undefined;
+    }
+    const chunk = this.todo[this.next_++];
+    if (!isTextRange(chunk)) return chunk;
+    if (this.pieces?.fileIndex !== chunk.fileIndex) {
+      await this.close();
+      this.pieces = { fileIndex: chunk.fileIndex, cutter: new GzipPieces(this.inputs[chunk.fileIndex], chunk.fileIndex, this.chunkBytes, 0) };
+    }
+    for (;;) {
+      const piece = await this.pieces.cutter.next();
+      const file = this.inputs[chunk.fileIndex].path;
+      if (piece === undefined || piece.byteStart > chunk.byteStart) {
+        throw new QuernError('input', `${file} changed since it was planned: its decompressed text has no chunk at bytes ${chunk.byteStart}..${chunk.byteEnd}`);
+      }
+      if (piece.byteStart < chunk.byteStart) continue; // a range done already
+      if (piece.byteEnd !== chunk.byteEnd || piece.linesBefore !== chunk.linesBefore) {
+        throw new QuernError('input', `${file} changed since it was planned: its decompressed text at byte ${chunk.byteStart} no longer ends a chunk at ${chunk.byteEnd}`);
+      }
+      return { ...piece, index: chunk.index };
+    }
+  }
+
+  async close(): Promise<void> {
+    await this.pieces?.cutter.close();
+    this.pieces = undefined;
+  }
 }

@@ -16,7 +16,7 @@ import { WordTable } from '../corpus/word-table.ts';
 import { stageFs } from '../job/fsio.ts';
 import { installStopGate, StopGate } from '../job/stop-gate.ts';
 import type { ChunkResult, RunRecord } from '../job/manifest.ts';
-import { inputBytesOf, type Chunk, type ReadOptions } from '../corpus/types.ts';
+import { inputBytesOf, isTextRange, type Chunk, type ReadOptions } from '../corpus/types.ts';
 import { CounterSet, type CounterNeed } from './counter-set.ts';
 import { spillCounterSet } from './spill.ts';
 import { mergePartition, type PartitionMergeTask } from '../merge/merge-partition.ts';
@@ -78,7 +78,7 @@ const ngramsPerByte = { plain: 0, gzip: 0 };
 function learnNgramsPerByte(chunk: Chunk, ngrams: number): void {
   const bytes = chunk.byteEnd - chunk.byteStart;
   if (bytes <= 0) return;
-  const kind = init.inputs[chunk.fileIndex].gzip ? 'gzip' : 'plain';
+  const kind = isCompressedRange(chunk) ? 'gzip' : 'plain';
   ngramsPerByte[kind] = Math.max(ngramsPerByte[kind], ngrams / bytes);
 }
 
@@ -210,7 +210,13 @@ function groupBytes(group: readonly Chunk[]): number {
 
 /** Gzip bytes hold several times more text than plain ones: a group with any is sized by rate. */
 function groupHasGzip(group: readonly Chunk[]): boolean {
-  return group.some((chunk) => init.inputs[chunk.fileIndex].gzip);
+  return group.some(isCompressedRange);
+}
+
+/** Whether a chunk's bytes are compressed ones (a whole gzip input), not text (a range of its
+ *  decompressed text, or a plain file's). */
+function isCompressedRange(chunk: Chunk): boolean {
+  return init.inputs[chunk.fileIndex].gzip && !isTextRange(chunk);
 }
 
 /** The sentences of the current block wrapped as id sequences: sentence s is

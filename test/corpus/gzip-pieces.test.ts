@@ -104,6 +104,23 @@ describe('GzipPieces', () => {
     expect(pieces.reduce((sum, p) => sum + p.sourceBytes, 0)).toBe(file.bytes);
   });
 
+  test('planned with splitGzip: ranges of the text where the pieces end, each read alone (decompressing up to it) as the piece reads', async () => {
+    const content = corpus(4000, 12);
+    const zipped = await inputOf('planned.txt.gz', gzipSync(content));
+    const pieces = await allPieces(zipped, 2000);
+    const planned = await planChunks([zipped], 2000, { splitGzip: true });
+    expect(planned).toEqual(pieces.map((p) => ({ index: p.index, fileIndex: 0, byteStart: p.byteStart, byteEnd: p.byteEnd, linesBefore: p.linesBefore })));
+    expect(planned.length).toBeGreaterThan(20);
+    // Read without their bytes (readChunk decompresses the file up to each range): what the pieces give.
+    const fromRanges = await readPieces(zipped, planned);
+    const fromPieces = await readPieces(zipped, pieces);
+    expect(fromRanges.sentences).toEqual(fromPieces.sentences);
+    expect(fromRanges.stats.map((s) => [s.lines, s.sentences, s.emptyLines])).toEqual(fromPieces.stats.map((s) => [s.lines, s.sentences, s.emptyLines]));
+    // Without splitGzip, or compressed to under a quarter of a chunk: one chunk, the whole file.
+    expect(await planChunks([zipped], 2000)).toEqual([{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: zipped.bytes }]);
+    expect(await planChunks([zipped], 4 * zipped.bytes + 4, { splitGzip: true })).toEqual([{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: zipped.bytes }]);
+  });
+
   test('an empty file is one empty piece', async () => {
     const pieces = await allPieces(await inputOf('empty.gz', gzipSync('')), 64);
     expect(pieces.map((p) => [p.byteStart, p.byteEnd, p.linesBefore, p.data.length])).toEqual([[0, 0, 0, 0]]);

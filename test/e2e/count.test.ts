@@ -4,6 +4,7 @@
  */
 import { execFileSync } from 'node:child_process';
 import { readFileSync, writeFileSync } from 'node:fs';
+import { gzipSync } from 'node:zlib';
 import * as path from 'node:path';
 import { beforeAll, describe, expect, test } from 'vitest';
 import { SyntheticModel, writeShardFile } from '../../scripts/lib/synthetic.ts';
@@ -107,5 +108,32 @@ describe('count on a generated corpus', () => {
       expect(withoutZero(listA.get(n)!)).toEqual(reference.get(n));
       expect(listB.get(n)).toEqual(listA.get(n));
     }
+  }, 120_000);
+
+  test('one large gzip input is counted in ranges of its text on every worker: the counts of its plain text', async () => {
+    // The three shards as one gzip file, counted in 256 KiB ranges of its text on two workers: the
+    // plain shards' counts. (Each range read alone, as --no-token-files reads them: gzip-pieces.test.ts.)
+    const zipped = path.join(dir, 'all.txt.gz');
+    writeFileSync(zipped, gzipSync(Buffer.concat(['shard-0.txt', 'shard-1.txt', 'shard-2.txt'].map((f) => readFileSync(path.join(corpus, f))))));
+    const reference = await listAll(path.join(dir, 'one-worker'), 3);
+    {
+      const job = path.join(dir, 'gzip-ranges');
+      const result = await runQuern(['count', zipped, '--job', job, '--order', '3', '--workers', '2', '--chunk-size', '256KiB', '--quiet', '--json']);
+      expect(result.stderr).toBe('');
+      const manifest = JSON.parse(readFileSync(path.join(job, 'job.json'), 'utf8'));
+      expect(manifest.chunks.length).toBeGreaterThan(5);
+      expect(manifest.chunks.every((c: { linesBefore?: number }) => c.linesBefore !== undefined)).toBe(true);
+      const listed = await listAll(job, 3);
+      for (let n = 1; n <= 3; n++) expect(listed.get(n)).toEqual(reference.get(n));
+    }
+    // A bad line deep in it: named by its line in the file, as when the file was one chunk.
+    const text = readFileSync(path.join(corpus, 'shard-1.txt'));
+    const at = text.indexOf(0x0a, text.length >> 1) + 1;
+    const line = text.subarray(0, at).reduce((sum, byte) => sum + (byte === 0x0a ? 1 : 0), 0) + 1;
+    const bad = path.join(dir, 'bad.txt.gz');
+    writeFileSync(bad, gzipSync(Buffer.concat([text.subarray(0, at), Buffer.from([0x61, 0xff, 0x0a]), text.subarray(at)])));
+    const failed = await runQuern(['count', bad, '--job', path.join(dir, 'bad-job'), '--order', '2', '--workers', '2', '--chunk-size', '256KiB', '--quiet']);
+    expect(failed.status).not.toBe(0);
+    expect(failed.stderr).toContain(`${bad}:${line} (byte ${at})`);
   }, 120_000);
 });

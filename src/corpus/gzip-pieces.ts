@@ -10,7 +10,7 @@ import { createGunzip } from 'node:zlib';
 import { assert, ioError, QuernError } from '../errors.ts';
 import { LINE_BYTES_MAX, READ_BLOCK_BYTES } from '../limits.ts';
 import { gzipError } from './read.ts';
-import type { ChunkPiece, InputFile } from './types.ts';
+import type { Chunk, ChunkPiece, InputFile } from './types.ts';
 
 /**
  * The pieces of `file` (a gzip input), in order, as `next` is called: each holds whole lines of the
@@ -25,6 +25,9 @@ import type { ChunkPiece, InputFile } from './types.ts';
  * errors `readChunk` gives (the line and decompressed byte offset where the data broke off), after
  * every piece before that point has been handed out.
  */
+/** A piece's bytes when only its range is wanted (`nextRange`). */
+const NO_BYTES = Buffer.alloc(0);
+
 export class GzipPieces {
   private readonly source;
   private readonly blocks: AsyncIterator<Buffer>;
@@ -42,6 +45,8 @@ export class GzipPieces {
   private droppedLineStart = 0;
   private ended = false;
   private closed = false;
+  /** Whether the piece being cut keeps its bytes (`next`) or only its range (`nextRange`). */
+  private keepBytes = true;
   private handedOut = 0;
   private sourceError: unknown;
 
@@ -70,6 +75,19 @@ export class GzipPieces {
 
   /** The next piece, or undefined after the last (or once closed). */
   async next(): Promise<ChunkPiece | undefined> {
+    this.keepBytes = true;
+    return this.advance();
+  }
+
+  /** The next piece's range only (its bytes dropped, not copied), for a plan: `next` without `data`
+   *  and `sourceBytes`. */
+  async nextRange(): Promise<Chunk | undefined> {
+    this.keepBytes = false;
+    const piece = await this.advance();
+    return piece === undefined ? undefined : { index: piece.index, fileIndex: piece.fileIndex, byteStart: piece.byteStart, byteEnd: piece.byteEnd, linesBefore: piece.linesBefore };
+  }
+
+  private async advance(): Promise<ChunkPiece | undefined> {
     for (;;) {
       if (this.closed) return undefined;
       const piece = this.cut();
@@ -178,14 +196,14 @@ export class GzipPieces {
 
   /** Hands out the first `bytes` pending bytes; `overlong`: they end inside an overlong line. */
   private handOut(bytes: number, overlong: boolean): ChunkPiece {
-    const data = Buffer.allocUnsafeSlow(bytes);
+    const data = this.keepBytes ? Buffer.allocUnsafeSlow(bytes) : NO_BYTES;
     let filled = 0;
     let newlines = 0;
     while (filled < bytes) {
       const block = this.pending[0];
       const take = Math.min(block.length, bytes - filled);
       const part = block.subarray(0, take);
-      part.copy(data, filled);
+      if (this.keepBytes) part.copy(data, filled);
       for (let at = part.indexOf(0x0a); at >= 0; at = part.indexOf(0x0a, at + 1)) newlines++;
       filled += take;
       if (take === block.length) this.pending.shift();

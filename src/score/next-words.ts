@@ -199,7 +199,7 @@ class BestScores {
       return;
     }
     // Not better than the worst kept: dropped.
-    if (log10Prob < scores[0] || (log10Prob === scores[0] && id > ids[0])) return;
+    if (!this.mayTake(id, log10Prob)) return;
     ids[0] = id;
     scores[0] = log10Prob;
     orders[0] = order;

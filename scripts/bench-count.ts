@@ -5,7 +5,7 @@
  *
  *   npm run bench:count -- [--bytes 200MB] [--shape few-large|many-small|both] [--orders 3,5]
  *                          [--memory 2GiB] [--workers 2] [--corpus-dir DIR] [--seed 1] [--keep] [--skip-pipeline]
- *                          [--against REV] [--repeat N] [--gzip]
+ *                          [--against REV] [--repeat N] [--gzip] [--gzip-shards N]
  *
  * --bytes       corpus size, all shards together (default 200MB; 1GB for the large variant)
  * --shape       few-large (2 shards), many-small (200 shards) or both (default), one after the other
@@ -29,6 +29,9 @@
  * --gzip        quern counts the corpus as one gzip file (its shards concatenated, `gzip -1`, made once
  *               and kept beside them as all-shards.txt.gz); needs --skip-pipeline (the pipeline reads
  *               the shards). With --against, how the two builds count one large gzip input
+ * --gzip-shards N  as --gzip, but the concatenated text split at line ends into N parts of about equal
+ *               size, each its own `gzip -1` file (made once, kept in gzip-N/ beside the shards): how
+ *               a corpus of several mid-size gzip shards is counted
  * --keep        keep quern's job directories and the pipeline's `uniq -c` output under
  *               bench-out/work/ (by default each is removed once its counts are checked; the corpus
  *               is always kept, so the next run can reuse it)
@@ -99,8 +102,8 @@ interface Options {
   memoryBytes: number;
   workers: number;
   corpusDir: string | null;
-  /** Count the corpus as one gzip file (--gzip). */
-  gzip: boolean;
+  /** Count the corpus as this many gzip files (--gzip: 1, --gzip-shards N), or as its plain shards (0). */
+  gzipShards: number;
   seed: number;
   keep: boolean;
   /** Time quern alone (the store and memory figures; no throughput ratio). */
@@ -203,6 +206,7 @@ function parseOptions(argv: string[]): Options {
         against: { type: 'string' },
         repeat: { type: 'string', default: '1' },
         gzip: { type: 'boolean', default: false },
+        'gzip-shards': { type: 'string' },
       },
     });
   } catch (error) {
@@ -230,10 +234,12 @@ function parseOptions(argv: string[]): Options {
   if (corpusDir !== null && shapes.length > 1) fail('--corpus-dir needs a single --shape (each shape has its own corpus)');
   const repeat = Number(v.repeat);
   if (!Number.isInteger(repeat) || repeat < 1 || repeat > 20) fail(`--repeat must be an integer in [1, 20], got ${v.repeat}`);
-  if (v.gzip === true && v['skip-pipeline'] !== true) fail('--gzip needs --skip-pipeline (the pipeline reads the plain shards)');
+  const gzipShards = v['gzip-shards'] !== undefined ? Number(v['gzip-shards']) : v.gzip === true ? 1 : 0;
+  if (!Number.isInteger(gzipShards) || gzipShards < (v['gzip-shards'] !== undefined ? 1 : 0) || gzipShards > 1000) fail(`--gzip-shards must be an integer in [1, 1000], got ${v['gzip-shards']}`);
+  if (gzipShards > 0 && v['skip-pipeline'] !== true) fail('--gzip and --gzip-shards need --skip-pipeline (the pipeline reads the plain shards)');
   return {
     bytes: Math.floor(bytes), shapes, orders, memoryBytes: Math.floor(memoryBytes), workers, corpusDir, seed, keep: v.keep === true,
-    skipPipeline: v['skip-pipeline'] === true, against: v.against ?? null, repeat, gzip: v.gzip === true,
+    skipPipeline: v['skip-pipeline'] === true, against: v.against ?? null, repeat, gzipShards,
   };
 }
 
@@ -281,7 +287,7 @@ function prepareCorpus(options: Options, shape: CorpusShape): Corpus {
   const manifest = readCorpusManifest(dir);
   if (!corpusMatches(manifest, dir, options, shape)) fail(`corpus in ${dir} does not match the options after generating it`);
   const files = manifest.shards.map((shard) => join(dir, shard.name));
-  return { shape, dir, files: options.gzip ? [gzipCorpus(dir, files)] : files, manifest, generated };
+  return { shape, dir, files: options.gzipShards === 1 ? [gzipCorpus(dir, files)] : options.gzipShards > 1 ? gzipShardsOf(dir, files, options.gzipShards) : files, manifest, generated };
 }
 
 /** The shards concatenated into one gzip file in `dir` (made once; a half-written one never counts). */
@@ -294,6 +300,28 @@ function gzipCorpus(dir: string, files: readonly string[]): string {
   if (result.status !== 0) fail(`compressing the corpus failed (exit ${result.status ?? result.signal})`);
   renameSync(partial, target);
   return target;
+}
+
+/** The shards' text split at line ends into `count` parts, each gzip -1 (made once, in `dir`/gzip-<count>/;
+ *  a half-made folder never counts). */
+function gzipShardsOf(dir: string, files: readonly string[], count: number): string[] {
+  const target = join(dir, `gzip-${count}`);
+  const names = Array.from({ length: count }, (_, index) => `part-${String(index).padStart(4, '0')}.txt.gz`);
+  if (!existsSync(target)) {
+    log(`splitting the shards into ${count} gzip files in ${relative(REPO, target) || target} (gzip -1) …`);
+    const partial = `${target}.partial`;
+    rmSync(partial, { recursive: true, force: true });
+    mkdirSync(partial, { recursive: true });
+    // split -n l/N needs a file; each part goes through gzip -1 as it is written (--filter).
+    const joined = join(partial, 'all.txt');
+    const script = 'set -o pipefail; cat "$@" > "$JOINED" && split -n l/$COUNT -a 4 -d --additional-suffix=.txt --filter=\'gzip -1 > "$FILE.gz"\' "$JOINED" "$OUT/part-" && rm "$JOINED"';
+    const result = spawnSync('bash', ['-c', script, 'gzip-shards', ...files], { env: { ...process.env, JOINED: joined, COUNT: String(count), OUT: partial }, stdio: ['ignore', 'inherit', 'inherit'] });
+    if (result.status !== 0) fail(`splitting the corpus failed (exit ${result.status ?? result.signal})`);
+    renameSync(partial, target);
+  }
+  const paths = names.map((name) => join(target, name));
+  for (const file of paths) if (!existsSync(file)) fail(`${file} is missing: remove ${target} to make the parts again`);
+  return paths;
 }
 
 /** Reads every shard once, so neither tool pays for a cold page cache. */

@@ -2,16 +2,16 @@
  * Chunk planning: splits inputs into line-aligned byte ranges, the units of reading work.
  */
 import { promises as fsp } from 'node:fs';
-import { ioError, QuernError } from '../errors.ts';
+import { assert, ioError, QuernError } from '../errors.ts';
 import { PLAN_SCAN_BLOCK_BYTES } from '../limits.ts';
 import { GzipPieces } from './gzip-pieces.ts';
 import type { Chunk, InputFile } from './types.ts';
 
 /** How `planChunks` treats gzip inputs. */
 export interface PlanOptions {
-  /** Plan a gzip input of at least 1/GZIP_SPLIT_RATIO of the chunk size as ranges of its
-   *  decompressed text (Chunk.linesBefore), found by decompressing it once now. */
-  splitGzip?: boolean;
+  /** Plan a large gzip input as ranges of its decompressed text (Chunk.linesBefore), found by
+   *  decompressing it once now, so that this many workers can share it (`splitsGzip`). */
+  splitGzipFor?: { workers: number };
 }
 
 /** A gzip file this much smaller than a chunk (compressed) is likely one chunk of text or less:
@@ -20,17 +20,44 @@ export interface PlanOptions {
  *  text; from memory). */
 const GZIP_SPLIT_RATIO = 4;
 
+/** How many times its compressed size a gzip input's text is taken to be, when weighing it against
+ *  the other inputs: between the 2.5 measured on the benchmark's text and natural text's 3–4. */
+const GZIP_TEXT_RATIO = 3;
+
+/** A gzip input is split when, as one chunk, it would hold at least 1/(this × workers) of all the
+ *  text: beside many files of its size, the workers are kept busy without it, and splitting costs a
+ *  decompression at planning and the main thread's cutting in the vocabulary pass (bench:count
+ *  --gzip-shards 8 on the 200 MB corpus, order 3, 2 workers: every shard split took 1.08× the time). */
+const GZIP_SPLIT_SHARE = 2;
+
+/**
+ * Whether `planChunks` with `splitGzipFor` cuts `files[index]` (a gzip input) into ranges: when it
+ * is at least 1/GZIP_SPLIT_RATIO of a chunk compressed, and its text (GZIP_TEXT_RATIO × its size)
+ * is at least 1/(GZIP_SPLIT_SHARE × workers) of all the files' text together. So one large gzip
+ * file is read by every worker, and a corpus of many gzip shards, already shared out file by file,
+ * is not decompressed an extra time.
+ */
+export function splitsGzip(files: readonly InputFile[], index: number, chunkBytesTarget: number, workers: number): boolean {
+  assert(Number.isSafeInteger(workers) && workers >= 1, `workers ${workers} is a positive integer`);
+  const file = files[index];
+  if (!file.gzip || file.bytes < chunkBytesTarget / GZIP_SPLIT_RATIO) return false;
+  const textOf = (f: InputFile): number => (f.gzip ? GZIP_TEXT_RATIO * f.bytes : f.bytes);
+  const total = files.reduce((sum, f) => sum + textOf(f), 0);
+  return textOf(file) * GZIP_SPLIT_SHARE * workers >= total;
+}
+
 /**
  * Splits `files` into chunks, in file order then byte order, with `index` counting from 0.
  *
  * A gzip input is one chunk covering the whole (compressed) file: a deflate stream cannot be
- * entered in the middle. With `splitGzip`, a large one is cut instead where its decompressed text
- * would be cut as a plain file (the ranges carry `linesBefore`); a bad gzip stream then fails here.
+ * entered in the middle. With `splitGzipFor`, a large one (`splitsGzip`) is cut instead where its
+ * decompressed text would be cut as a plain file (the ranges carry `linesBefore`); a bad gzip stream
+ * then fails here.
  * A plain input (text or JSONL) is cut about every `chunkBytesTarget`
  * bytes: from each target offset the planner reads forward to just after the next '\n', so every
  * chunk holds whole lines, none is empty, and together they cover the file exactly. An empty file
  * is one chunk 0..0, so every input appears in the plan. The result depends only on the file
- * contents and `chunkBytesTarget`.
+ * contents, `chunkBytesTarget` and `splitGzipFor`.
  *
  * @param chunkBytesTarget a positive integer (typically CHUNK_BYTES_TARGET).
  * @throws QuernError('config') for a bad `chunkBytesTarget`; QuernError('input') when a file's size
@@ -43,7 +70,7 @@ export async function planChunks(files: InputFile[], chunkBytesTarget: number, o
   const chunks: Chunk[] = [];
   for (let fileIndex = 0; fileIndex < files.length; fileIndex++) {
     const file = files[fileIndex];
-    if (file.gzip && options.splitGzip === true && file.bytes >= chunkBytesTarget / GZIP_SPLIT_RATIO) {
+    if (options.splitGzipFor !== undefined && splitsGzip(files, fileIndex, chunkBytesTarget, options.splitGzipFor.workers)) {
       // Decompressed once here to find where its text's chunks end (GzipPieces' cut, the bytes not
       // kept): the count's vocabulary pass cuts it again and hands the pieces to its workers.
       const cutter = new GzipPieces(file, fileIndex, chunkBytesTarget, chunks.length);

@@ -121,7 +121,7 @@ async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobMa
     createdAt: new Date().toISOString(),
     config,
     inputs,
-    chunks: await planChunks(inputs, config.chunkBytes, { splitGzip: true }),
+    chunks: await planChunks(inputs, config.chunkBytes, { splitGzipFor: { workers: request.workers } }),
     stages: {
       vocab: { status: 'pending' },
       count: { status: 'pending', chunks: [] },

@@ -10,7 +10,7 @@ import { gzipSync } from 'node:zlib';
 import { afterAll, describe, expect, test } from 'vitest';
 import { discoverInputs } from '../../src/corpus/discover.ts';
 import { GzipPieces } from '../../src/corpus/gzip-pieces.ts';
-import { planChunks } from '../../src/corpus/plan.ts';
+import { planChunks, splitsGzip } from '../../src/corpus/plan.ts';
 import { readChunk, type ChunkReadStats } from '../../src/corpus/read.ts';
 import type { Chunk, ChunkPiece, InputFile, ReadOptions } from '../../src/corpus/types.ts';
 import { QuernError } from '../../src/errors.ts';
@@ -104,11 +104,11 @@ describe('GzipPieces', () => {
     expect(pieces.reduce((sum, p) => sum + p.sourceBytes, 0)).toBe(file.bytes);
   });
 
-  test('planned with splitGzip: ranges of the text where the pieces end, each read alone (decompressing up to it) as the piece reads', async () => {
+  test('planned with splitGzipFor: ranges of the text where the pieces end, each read alone (decompressing up to it) as the piece reads', async () => {
     const content = corpus(4000, 12);
     const zipped = await inputOf('planned.txt.gz', gzipSync(content));
     const pieces = await allPieces(zipped, 2000);
-    const planned = await planChunks([zipped], 2000, { splitGzip: true });
+    const planned = await planChunks([zipped], 2000, { splitGzipFor: { workers: 2 } });
     expect(planned).toEqual(pieces.map((p) => ({ index: p.index, fileIndex: 0, byteStart: p.byteStart, byteEnd: p.byteEnd, linesBefore: p.linesBefore })));
     expect(planned.length).toBeGreaterThan(20);
     // Read without their bytes (readChunk decompresses the file up to each range): what the pieces give.
@@ -116,9 +116,36 @@ describe('GzipPieces', () => {
     const fromPieces = await readPieces(zipped, pieces);
     expect(fromRanges.sentences).toEqual(fromPieces.sentences);
     expect(fromRanges.stats.map((s) => [s.lines, s.sentences, s.emptyLines])).toEqual(fromPieces.stats.map((s) => [s.lines, s.sentences, s.emptyLines]));
-    // Without splitGzip, or compressed to under a quarter of a chunk: one chunk, the whole file.
+    // Without splitGzipFor, or compressed to under a quarter of a chunk: one chunk, the whole file.
     expect(await planChunks([zipped], 2000)).toEqual([{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: zipped.bytes }]);
-    expect(await planChunks([zipped], 4 * zipped.bytes + 4, { splitGzip: true })).toEqual([{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: zipped.bytes }]);
+    expect(await planChunks([zipped], 4 * zipped.bytes + 4, { splitGzipFor: { workers: 2 } })).toEqual([{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: zipped.bytes }]);
+  });
+
+  test('a gzip input is split only when it holds a large share of the text for the workers (splitsGzip)', async () => {
+    const shards: InputFile[] = [];
+    for (let i = 0; i < 8; i++) shards.push(await inputOf(`shard-${i}.txt.gz`, gzipSync(corpus(1000, 100 + i))));
+    const sizes = shards.map((f) => f.bytes);
+    const chunk = Math.min(...sizes);
+    // Eight shards of about equal size: each is 1/8 of the text. With 2 workers the files keep them
+    // busy as they are (1/8 < 1/(2·2)); with 8 each is worth cutting (1/8 ≥ 1/(2·8)).
+    for (let i = 0; i < 8; i++) {
+      expect(splitsGzip(shards, i, chunk, 2)).toBe(false);
+      expect(splitsGzip(shards, i, chunk, 8)).toBe(true);
+    }
+    const planned = await planChunks(shards, chunk, { splitGzipFor: { workers: 2 } });
+    expect(planned.map((c) => [c.fileIndex, c.byteStart, c.byteEnd])).toEqual(shards.map((f, i) => [i, 0, f.bytes]));
+    expect((await planChunks(shards, chunk, { splitGzipFor: { workers: 8 } })).length).toBeGreaterThan(8);
+    // One alone is all of the text: split for one worker too (its ranges are what the vocabulary
+    // pass's main thread hands out); under a quarter of a chunk compressed it never is.
+    expect(splitsGzip([shards[0]], 0, chunk, 1)).toBe(true);
+    expect(splitsGzip([shards[0]], 0, 4 * shards[0].bytes + 4, 1)).toBe(false);
+    // Beside a plain file of 3 times its size (its text about as large as the gzip file's, taken
+    // as 3 times the compressed size), it holds half the text: split for 2 workers (1/2 ≥ 1/4).
+    const plain = await inputOf('beside.txt', Buffer.alloc(3 * shards[0].bytes, 'a\n'));
+    expect(splitsGzip([shards[0], plain], 0, chunk, 2)).toBe(true);
+    expect(splitsGzip([shards[0], plain], 1, chunk, 2)).toBe(false);
+    const large = await inputOf('large.txt', Buffer.alloc(30 * shards[0].bytes, 'a\n'));
+    expect(splitsGzip([shards[0], large], 0, chunk, 2)).toBe(false);
   });
 
   test('an empty file is one empty piece', async () => {

@@ -73,13 +73,19 @@ export async function planChunks(files: InputFile[], chunkBytesTarget: number, o
     if (options.splitGzipFor !== undefined && splitsGzip(files, fileIndex, chunkBytesTarget, options.splitGzipFor.workers)) {
       // Decompressed once here to find where its text's chunks end (GzipPieces' cut, the bytes not
       // kept): the count's vocabulary pass cuts it again and hands the pieces to its workers.
+      const ranges: Chunk[] = [];
       const cutter = new GzipPieces(file, fileIndex, chunkBytesTarget, chunks.length);
       try {
-        for (let range = await cutter.nextRange(); range !== undefined; range = await cutter.nextRange()) chunks.push(range);
+        for (let range = await cutter.nextRange(); range !== undefined; range = await cutter.nextRange()) ranges.push(range);
       } finally {
         await cutter.close();
       }
-      continue;
+      // Text of one chunk or less: the whole file, which a worker decompresses itself (as a range,
+      // the vocabulary pass's main thread would decompress it again to hand it over).
+      if (ranges.length > 1) {
+        chunks.push(...ranges);
+        continue;
+      }
     }
     if (file.gzip || file.bytes === 0) {
       chunks.push({ index: chunks.length, fileIndex, byteStart: 0, byteEnd: file.bytes });

@@ -139,6 +139,14 @@ describe('GzipPieces', () => {
     // pass's main thread hands out); under a quarter of a chunk compressed it never is.
     expect(splitsGzip([shards[0]], 0, chunk, 1)).toBe(true);
     expect(splitsGzip([shards[0]], 0, 4 * shards[0].bytes + 4, 1)).toBe(false);
+    // Cut, but its text fits one chunk: planned as the whole file all the same (stored uncompressed,
+    // gzip level 0, to be over a quarter of a chunk).
+    const text = corpus(1000, 100);
+    const textBytes = Buffer.byteLength(text);
+    const stored = await inputOf('stored.txt.gz', gzipSync(text, { level: 0 }));
+    expect(splitsGzip([stored], 0, textBytes + 1, 1)).toBe(true);
+    expect(await planChunks([stored], textBytes + 1, { splitGzipFor: { workers: 1 } })).toEqual([{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: stored.bytes }]);
+    expect((await planChunks([stored], Math.floor(textBytes / 2), { splitGzipFor: { workers: 1 } })).length).toBe(2);
     // Beside a plain file of 3 times its size (its text about as large as the gzip file's, taken
     // as 3 times the compressed size), it holds half the text: split for 2 workers (1/2 ≥ 1/4).
     const plain = await inputOf('beside.txt', Buffer.alloc(3 * shards[0].bytes, 'a\n'));

@@ -38,7 +38,7 @@ export function normalizeOptions<T>(yargs: Argv<T>, normalizeDefaults = true) {
 export const TOKEN_FILES_OPTION = {
   type: 'boolean',
   default: true,
-  describe: 'Keep the vocabulary pass\'s tokens on disk (4 bytes per token and per sentence, e.g. 0.54× the benchmark corpus\'s text; removed when the count is done) so the count pass need not read and split the text again; --no-token-files saves the disk space',
+  describe: 'Keep the vocabulary pass\'s tokens on disk (4 bytes per token and per sentence, e.g. 0.54× the benchmark corpus\'s text; removed when the count is done) so the count pass need not read and split the text again; --no-token-files saves the disk space (a gzip input is then one chunk, read by one worker)',
 } as const;
 
 export function printSummary(summary: CountSummary, out: NodeJS.WriteStream = process.stdout): void {

@@ -113,13 +113,16 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
   const todo = job.chunks.filter((c) => reads[c.index] === null);
   // Token files of an earlier, interrupted pass belong to word tables that are gone.
   await removeTokenFiles(jobDir);
-  if (ctx.tokenFiles) await ctx.fs.mkdir(path.join(jobDir, TOKENS_DIR));
+  // A plan with ranges of a gzip input (made with token files, resumed with --no-token-files)
+  // keeps them all the same: without, the count pass would decompress the file up to each range.
+  const writeTokenFiles = ctx.tokenFiles || job.chunks.some(isTextRange);
+  if (writeTokenFiles) await ctx.fs.mkdir(path.join(jobDir, TOKENS_DIR));
   const tokenFiles: Array<TokenFileRecord | null> = job.chunks.map(() => null);
   const tables: Array<{ table: number; words: string[] }> = [];
   ctx.progress.start('vocabulary', chunkBytes(todo));
   // Ranges of a gzip input's text go to the workers with their bytes, cut again here.
   const tasks = todo.some(isTextRange) ? new TextRangeTasks(job.inputs, todo, job.config.chunkBytes) : todo;
-  await ctx.pool.run<Chunk, VocabChunkDone, VocabFinished>({ ...baseInit(job, jobDir, 'vocab'), writeTokenFiles: ctx.tokenFiles }, tasks, {
+  await ctx.pool.run<Chunk, VocabChunkDone, VocabFinished>({ ...baseInit(job, jobDir, 'vocab'), writeTokenFiles }, tasks, {
     message: (chunk) => ({ type: 'chunk', chunk }),
     transfer: (chunk) => (isChunkPiece(chunk) ? [chunk.data.buffer as ArrayBuffer] : []),
     onProgress: (bytes, tokens) => ctx.progress.update(bytes, tokens),
@@ -143,7 +146,7 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
   const vocab = buildVocabulary(wordCounts, sentences, unkSeen, job.config.vocabCap);
   const text = formatVocabulary(vocab);
   await writeFileAtomic(ctx.fs, path.join(jobDir, VOCAB_FILE), text);
-  const tokens = ctx.tokenFiles ? { files: tokenFiles, maps: await writeTokenMaps(ctx, vocab, tables) } : undefined;
+  const tokens = writeTokenFiles ? { files: tokenFiles, maps: await writeTokenMaps(ctx, vocab, tables) } : undefined;
   job.stages.vocab = {
     ...(job.stages.vocab.previousSha !== undefined ? { previousSha: job.stages.vocab.previousSha } : {}),
     status: 'done',

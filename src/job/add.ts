@@ -34,7 +34,7 @@ export async function beginAddition(ctx: StageContext, added: InputFile[]): Prom
   await writeFileAtomic(ctx.fs, path.join(jobDir, PREVIOUS_VOCAB_FILE), await fsp.readFile(path.join(jobDir, VOCAB_FILE)));
   const fileBase = job.inputs.length;
   const chunkBase = job.chunks.length;
-  const planned = await planChunks(added, job.config.chunkBytes, { splitGzipFor: { workers: ctx.workers } });
+  const planned = await planChunks(added, job.config.chunkBytes, ctx.tokenFiles ? { splitGzipFor: { workers: ctx.workers } } : {});
   job.inputs.push(...added);
   job.chunks.push(...planned.map((c) => ({ ...c, index: c.index + chunkBase, fileIndex: c.fileIndex + fileBase })));
   job.stages.vocab = {

@@ -121,7 +121,9 @@ async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobMa
     createdAt: new Date().toISOString(),
     config,
     inputs,
-    chunks: await planChunks(inputs, config.chunkBytes, { splitGzipFor: { workers: request.workers } }),
+    // A gzip input is cut into ranges only when the vocabulary pass keeps token files: the count
+    // pass reads a range without one by decompressing the file up to it (quadratic in its ranges).
+    chunks: await planChunks(inputs, config.chunkBytes, request.tokenFiles === false ? {} : { splitGzipFor: { workers: request.workers } }),
     stages: {
       vocab: { status: 'pending' },
       count: { status: 'pending', chunks: [] },

@@ -3,7 +3,7 @@
  * by GNU coreutils (awk | LC_ALL=C sort | uniq -c: the everyday way of counting in the trade).
  */
 import { execFileSync } from 'node:child_process';
-import { readFileSync, writeFileSync } from 'node:fs';
+import { readFileSync, statSync, writeFileSync } from 'node:fs';
 import { gzipSync } from 'node:zlib';
 import * as path from 'node:path';
 import { beforeAll, describe, expect, test } from 'vitest';
@@ -123,6 +123,16 @@ describe('count on a generated corpus', () => {
       const manifest = JSON.parse(readFileSync(path.join(job, 'job.json'), 'utf8'));
       expect(manifest.chunks.length).toBeGreaterThan(5);
       expect(manifest.chunks.every((c: { linesBefore?: number }) => c.linesBefore !== undefined)).toBe(true);
+      const listed = await listAll(job, 3);
+      for (let n = 1; n <= 3; n++) expect(listed.get(n)).toEqual(reference.get(n));
+    }
+    {
+      // Without token files it stays one chunk: a range would be read by decompressing up to it.
+      const job = path.join(dir, 'gzip-no-token-files');
+      const result = await runQuern(['count', zipped, '--job', job, '--order', '3', '--workers', '2', '--chunk-size', '256KiB', '--no-token-files', '--quiet', '--json']);
+      expect(result.stderr).toBe('');
+      const manifest = JSON.parse(readFileSync(path.join(job, 'job.json'), 'utf8'));
+      expect(manifest.chunks).toEqual([{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: statSync(zipped).size }]);
       const listed = await listAll(job, 3);
       for (let n = 1; n <= 3; n++) expect(listed.get(n)).toEqual(reference.get(n));
     }

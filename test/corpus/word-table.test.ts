@@ -39,6 +39,20 @@ describe('WordTable', () => {
     expect(forced.find(x, 0, 1, 42)).toBe(0);
     expect(forced.find(y, 0, 1, 42)).toBe(1);
     expect(forced.find(bytesOf('z'), 0, 1, 42)).toBe(-1);
+    // Words of 0 to 12 bytes (held in their slots up to 7, compared with their records beyond),
+    // sharing prefixes and NUL bytes, all under one hash, looked up inside buffers whose bytes
+    // around them differ.
+    const lengths = new WordTable(8);
+    const variants: Buffer[] = [];
+    for (let length = 0; length <= 12; length++) {
+      variants.push(Buffer.alloc(length, 0x61), Buffer.alloc(length, 0), Buffer.concat([Buffer.alloc(Math.max(0, length - 1), 0x61), Buffer.from([0x62])]).subarray(0, length));
+    }
+    const distinct = [...new Map(variants.map((v) => [v.toString('hex'), v])).values()];
+    distinct.forEach((word, entry) => expect(lengths.intern(Buffer.concat([Buffer.from('\u00ff'), word, Buffer.from('zz')]), 2, 2 + word.length, 7)).toBe(entry));
+    distinct.forEach((word, entry) => expect(lengths.find(Buffer.concat([Buffer.from([0x61, 0]), word, Buffer.from([0x61, 0])]), 2, 2 + word.length, 7)).toBe(entry));
+    expect(lengths.find(Buffer.alloc(13, 0x61), 0, 13, 7)).toBe(-1);
+    expect(lengths.find(Buffer.from('aaaaaac'), 0, 7, 7)).toBe(-1);
+    expect(lengths.find(Buffer.from('aaaaaaaaaaac'), 0, 12, 7)).toBe(-1);
   });
 
   test('looks words up inside a larger buffer by range', () => {

@@ -124,10 +124,10 @@ export const COUNTER_PRESIZE_SHRINK_FACTOR = 8;
 export const SPILL_FILES_WRITING_MAX = 8;
 
 /** Estimated bytes per vocabulary type held by each worker, charged against `--memory` before the
- *  counters get theirs: the word as a string (~40–50 B), its word-table slots (16 B each, 2–4 of
- *  them at a load of 0.5–0.25) and record (~16 B), and its id (4 B). The dense unigram counter (4 B
- *  per id, and its spill scratch) is charged to the counters. */
-export const VOCAB_BYTES_PER_TYPE = 140;
+ *  counters get theirs: the word as a string (~40–50 B), its word-table slots and record (~35–50 B
+ *  at a load of 0.25–0.5) and its id (4 B). The dense unigram counter (4 B per id, and its spill
+ *  scratch) is charged to the counters. */
+export const VOCAB_BYTES_PER_TYPE = 120;
 
 /** Memory kept outside the counting budget: Node's heap and code per thread (the floor of a quern
  *  process that does nothing is 112 MiB here), the main thread's vocabulary, read buffers, LMDB's

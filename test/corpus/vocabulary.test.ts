@@ -1,6 +1,7 @@
 import { describe, expect, test } from 'vitest';
 import { buildVocabulary, compareCodePoints, formatVocabulary, parseVocabulary } from '../../src/corpus/vocabulary.ts';
 import { QuernError } from '../../src/errors.ts';
+import { seededRandom } from '../support/seeded.ts';
 
 describe('vocabulary', () => {
   test('ids rank by count, ties by UTF-8 bytes; <s> is id 0; markers included', () => {
@@ -23,6 +24,30 @@ describe('vocabulary', () => {
     const min = buildVocabulary(counts, 2, 0, { minCount: 3 });
     expect(min.words.slice(1, 3)).toEqual(['a', 'b']);
     expect(min.counts[min.unkId]).toBe(2);
+  });
+
+  test('on many words with tied counts, the order of one sort of all of them by (count, UTF-8 bytes)', () => {
+    const random = seededRandom(11);
+    const letters = ['a', 'b', 'z', 'é', '\uE000', '\uFFFD', '\u{1F600}', '𝔸', '<', 's', '/'];
+    const counts = new Map<string, number>();
+    while (counts.size < 3000) {
+      const word = Array.from({ length: 1 + Math.floor(random() * 4) }, () => letters[Math.floor(random() * letters.length)]).join('');
+      // Zipf-like: most words share a few small counts; some tie with the markers' counts.
+      if (word !== '<s>' && word !== '</s>' && word !== '<unk>') counts.set(word, random() < 0.9 ? 1 + Math.floor(random() * 3) : Math.floor(1 / random()));
+    }
+    const byBytes = (x: [string, number], y: [string, number]): number => y[1] - x[1] || Buffer.compare(Buffer.from(x[0]), Buffer.from(y[0]));
+    for (const [sentences, unkSeen, cap] of [[2, 0, {}], [40, 3, {}], [7, 2, { top: 500 }], [3, 0, { minCount: 3 }], [1, 1, { top: 0 }]] as const) {
+      const vocab = buildVocabulary(counts, sentences, unkSeen, cap);
+      const all = [...counts.entries()].sort(byBytes);
+      let kept = all.length;
+      if ('minCount' in cap) kept = all.filter((e) => e[1] >= cap.minCount).length;
+      if ('top' in cap) kept = Math.min(kept, cap.top);
+      const unk = unkSeen + all.slice(kept).reduce((sum, e) => sum + e[1], 0);
+      const expected = [...all.slice(0, kept), ['</s>', sentences] as [string, number], ['<unk>', unk] as [string, number]].sort(byBytes);
+      expect(vocab.words).toEqual(['<s>', ...expected.map((e) => e[0])]);
+      expect(vocab.counts).toEqual([sentences, ...expected.map((e) => e[1])]);
+      expect([vocab.typesSeen, vocab.typesCapped]).toEqual([counts.size, counts.size - kept]);
+    }
   });
 
   test('code-point order equals UTF-8 byte order, including astral characters', () => {

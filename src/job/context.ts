@@ -6,8 +6,12 @@ import { writeManifest, type JobManifest } from './manifest.ts';
 
 /** Receives progress of long work; the CLI draws it, tests ignore it. */
 export interface ProgressSink {
-  /** `items`: what the second count of `update` counts (default 'tokens'). */
-  start(label: string, total: number, unit?: 'bytes' | 'tasks', items?: string): void;
+  /**
+   * `total`: the bytes or tasks to do, or undefined when they are not known ahead (standard input
+   * being read: only what is done can be shown). `items`: what the second count of `update` counts
+   * (default 'tokens').
+   */
+  start(label: string, total: number | undefined, unit?: 'bytes' | 'tasks', items?: string): void;
   update(doneDelta: number, tokensDelta: number): void;
   stop(): void;
 }

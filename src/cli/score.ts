@@ -8,7 +8,7 @@ import type { CommandModule } from 'yargs';
 import { QuernError } from '../errors.ts';
 import { discoverInputs } from '../corpus/discover.ts';
 import { planChunks } from '../corpus/plan.ts';
-import { GzipPieces } from '../corpus/gzip-pieces.ts';
+import { TextPieces } from '../corpus/text-pieces.ts';
 import { inputBytesOf, isChunkPiece, type Chunk, type InputFile, type NormalizeOptions, type SkippedSample } from '../corpus/types.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
 import { WorkerPool, type TaskSource } from '../count/pool.ts';
@@ -124,7 +124,7 @@ function totals(file: string): Totals {
 
 /**
  * The units of `quern score`'s work, in input order, numbered from 0: the planned chunks of plain
- * files, and the pieces of each gzip file (GzipPieces, cut where its text as a plain file would be
+ * files, and the pieces of each gzip file (TextPieces, cut where its text as a plain file would be
  * chunked, so a file scores the same compressed or not), cut as they are asked for with one piece
  * cut ahead. A gzip file that breaks off ends the tasks there; `throwIfFailed` gives its error.
  */
@@ -132,7 +132,7 @@ class ScoreTasks implements TaskSource<Chunk> {
   /** The input of each task handed out, by task index. */
   readonly fileOf: number[] = [];
   private planned = 0;
-  private pieces: GzipPieces | undefined;
+  private pieces: TextPieces | undefined;
   private ahead: Promise<Chunk | undefined> | undefined;
   private failure: { error: unknown } | undefined;
   private done = false;
@@ -176,7 +176,7 @@ class ScoreTasks implements TaskSource<Chunk> {
         }
         const chunk = this.chunks[this.planned++];
         const file = this.inputs[chunk.fileIndex];
-        if (file.gzip) this.pieces = new GzipPieces(file, chunk.fileIndex, this.pieceBytes, this.fileOf.length);
+        if (file.gzip) this.pieces = TextPieces.ofFile(file, chunk.fileIndex, this.pieceBytes, this.fileOf.length);
         else return this.handOut({ ...chunk, index: this.fileOf.length });
       }
     } catch (error) {

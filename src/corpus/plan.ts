@@ -4,7 +4,7 @@
 import { promises as fsp } from 'node:fs';
 import { assert, ioError, QuernError } from '../errors.ts';
 import { PLAN_SCAN_BLOCK_BYTES } from '../limits.ts';
-import { GzipPieces } from './gzip-pieces.ts';
+import { TextPieces } from './text-pieces.ts';
 import type { Chunk, InputFile } from './types.ts';
 
 /** How `planChunks` treats gzip inputs. */
@@ -71,10 +71,10 @@ export async function planChunks(files: InputFile[], chunkBytesTarget: number, o
   for (let fileIndex = 0; fileIndex < files.length; fileIndex++) {
     const file = files[fileIndex];
     if (options.splitGzipFor !== undefined && splitsGzip(files, fileIndex, chunkBytesTarget, options.splitGzipFor.workers)) {
-      // Decompressed once here to find where its text's chunks end (GzipPieces' cut, the bytes not
+      // Decompressed once here to find where its text's chunks end (TextPieces' cut, the bytes not
       // kept): the count's vocabulary pass cuts it again and hands the pieces to its workers.
       const ranges: Chunk[] = [];
-      const cutter = new GzipPieces(file, fileIndex, chunkBytesTarget, chunks.length);
+      const cutter = TextPieces.ofFile(file, fileIndex, chunkBytesTarget, chunks.length);
       try {
         for (let range = await cutter.nextRange(); range !== undefined; range = await cutter.nextRange()) ranges.push(range);
       } finally {

@@ -30,7 +30,7 @@ export interface Chunk {
   byteEnd: number;
   /**
    * Only for a range of a gzip input's decompressed text (a large gzip input planned in pieces,
-   * src/corpus/gzip-pieces.ts): `byteStart` and `byteEnd` are offsets in that text, and this is
+   * src/corpus/text-pieces.ts): `byteStart` and `byteEnd` are offsets in that text, and this is
    * the number of its lines before `byteStart`. Absent: a byte range of the file itself.
    */
   linesBefore?: number;
@@ -43,7 +43,7 @@ export function isTextRange(chunk: Chunk): boolean {
 
 /**
  * A chunk whose bytes the caller has read already: a line-aligned range of a gzip input's
- * decompressed stream (src/corpus/gzip-pieces.ts), so that one large gzip file can be read by many
+ * decompressed stream (src/corpus/text-pieces.ts), so that one large gzip file can be read by many
  * threads. `byteStart` and `byteEnd` are offsets in the decompressed stream; `data` holds exactly
  * those bytes. Its last line may be cut short only when it is longer than LINE_BYTES_MAX (the
  * reader then rejects or skips it as overlong, and the next piece starts after it).

@@ -7,7 +7,7 @@ import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
 import { QuernError } from '../errors.ts';
 import { PROCESS_OVERHEAD_BYTES, VOCAB_BYTES_PER_TYPE, WORKER_COUNTER_BYTES_MIN, WORKER_OVERHEAD_BYTES } from '../limits.ts';
-import { GzipPieces } from '../corpus/gzip-pieces.ts';
+import { TextPieces } from '../corpus/text-pieces.ts';
 import { isChunkPiece, isTextRange, type Chunk, type InputFile, type ReadStats } from '../corpus/types.ts';
 import { buildVocabulary, formatVocabulary, parseVocabulary, type Vocabulary } from '../corpus/vocabulary.ts';
 import { writeFileAtomic } from '../job/fsio.ts';
@@ -247,12 +247,12 @@ export function sumOccurrences(job: JobManifest): number[] {
 /**
  * The vocabulary pass's chunks in order, each range of a gzip input's decompressed text with its
  * bytes: the input is decompressed once more, by this thread, and cut as it was planned
- * (GzipPieces, the job's chunk size), so the workers share one large gzip input instead of one of
+ * (TextPieces, the job's chunk size), so the workers share one large gzip input instead of one of
  * them reading it all. A range that no longer matches the plan means the file changed.
  */
 class TextRangeTasks implements TaskSource<Chunk> {
   private next_ = 0;
-  private pieces: { fileIndex: number; cutter: GzipPieces } | undefined;
+  private pieces: { fileIndex: number; cutter: TextPieces } | undefined;
 
   constructor(private readonly inputs: InputFile[], private readonly todo: Chunk[], private readonly chunkBytes: number) {}
 
@@ -265,7 +265,7 @@ class TextRangeTasks implements TaskSource<Chunk> {
     if (!isTextRange(chunk)) return chunk;
     if (this.pieces?.fileIndex !== chunk.fileIndex) {
       await this.close();
-      this.pieces = { fileIndex: chunk.fileIndex, cutter: new GzipPieces(this.inputs[chunk.fileIndex], chunk.fileIndex, this.chunkBytes, 0) };
+      this.pieces = { fileIndex: chunk.fileIndex, cutter: TextPieces.ofFile(this.inputs[chunk.fileIndex], chunk.fileIndex, this.chunkBytes, 0) };
     }
     for (;;) {
       const piece = await this.pieces.cutter.next();

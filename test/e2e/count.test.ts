@@ -112,7 +112,7 @@ describe('count on a generated corpus', () => {
 
   test('one large gzip input is counted in ranges of its text on every worker: the counts of its plain text', async () => {
     // The three shards as one gzip file, counted in 256 KiB ranges of its text on two workers: the
-    // plain shards' counts. (Each range read alone, as --no-token-files reads them: gzip-pieces.test.ts.)
+    // plain shards' counts. (Each range read alone, as --no-token-files reads them: text-pieces.test.ts.)
     const zipped = path.join(dir, 'all.txt.gz');
     writeFileSync(zipped, gzipSync(Buffer.concat(['shard-0.txt', 'shard-1.txt', 'shard-2.txt'].map((f) => readFileSync(path.join(corpus, f))))));
     const reference = await listAll(path.join(dir, 'one-worker'), 3);

@@ -1,44 +1,41 @@
 /**
- * One gzip input cut into pieces for many threads: a deflate stream cannot be entered in the middle,
- * so one thread decompresses it and cuts the decompressed stream where a plain file of the same
- * text would be cut into chunks (src/corpus/plan.ts: just after the first '\n' at or after each
- * `pieceBytes`), and other threads read the pieces (readChunk with a ChunkPiece). Only the search for
- * newlines runs here; validation, decoding and tokenising stay with the readers.
+ * The text of one input cut into pieces for many threads, as it is read from its start (a
+ * TextStream): a gzip file, whose deflate stream cannot be entered in the middle, or standard
+ * input, which can be read only once. One thread reads and cuts the text where a plain file of the
+ * same text would be cut into chunks (src/corpus/plan.ts: just after the first '\n' at or after each
+ * `pieceBytes`), and other threads read the pieces (readChunk with a ChunkPiece). Only the search
+ * for newlines runs here; validation, decoding and tokenising stay with the readers.
  */
-import { createReadStream } from 'node:fs';
-import { createGunzip } from 'node:zlib';
-import { assert, ioError, QuernError } from '../errors.ts';
-import { LINE_BYTES_MAX, READ_BLOCK_BYTES } from '../limits.ts';
-import { gzipError } from './read.ts';
+import { assert } from '../errors.ts';
+import { LINE_BYTES_MAX } from '../limits.ts';
+import { fileText, type TextStream } from './text-stream.ts';
 import type { Chunk, ChunkPiece, InputFile } from './types.ts';
 
+/** A piece's bytes when only its range is wanted (`nextRange`). */
+const NO_BYTES = Buffer.alloc(0);
+
 /**
- * The pieces of `file` (a gzip input), in order, as `next` is called: each holds whole lines of the
- * decompressed stream, is at least `pieceBytes` long except the last, and ends just after the first
- * '\n' at or after its `pieceBytes`-th byte. A file that decompresses to nothing is one empty piece.
+ * The pieces of a text stream, in order, as `next` is called: each holds whole lines of the text,
+ * is at least `pieceBytes` long except the last, and ends just after the first '\n' at or after its
+ * `pieceBytes`-th byte. A text that is empty is one empty piece.
  *
  * A line longer than LINE_BYTES_MAX is not held whole: its piece ends inside it, past the limit (so
  * the reader of that piece rejects it, or skips it with --skip-bad, as it would in a whole file),
  * and the rest of the line is dropped here; the next piece starts after it, its lines numbered on.
  *
- * Bad gzip data, and a file whose size changed since it was discovered, fail `next` with the
- * errors `readChunk` gives (the line and decompressed byte offset where the data broke off), after
- * every piece before that point has been handed out.
+ * Bad gzip data, an input that cannot be read, and a file whose size changed since it was
+ * discovered, fail `next` with the errors `readChunk` gives (the line and decompressed byte offset
+ * where the data broke off), after every piece before that point has been handed out.
  */
-/** A piece's bytes when only its range is wanted (`nextRange`). */
-const NO_BYTES = Buffer.alloc(0);
-
-export class GzipPieces {
-  private readonly source;
-  private readonly blocks: AsyncIterator<Buffer>;
-  /** Decompressed bytes not yet handed out, from `pieceStart`. */
+export class TextPieces {
+  /** Bytes of the text not yet handed out, from `pieceStart`. */
   private pending: Buffer[] = [];
   private pendingBytes = 0;
-  /** Absolute offset, in the decompressed stream, of `pending`'s first byte. */
+  /** Absolute offset, in the text, of `pending`'s first byte. */
   private pieceStart = 0;
   /** Newlines before `pieceStart` (the lines before the next piece). */
   private linesBefore = 0;
-  /** Compressed bytes accounted to the pieces handed out so far. */
+  /** Input bytes (compressed ones for gzip) accounted to the pieces handed out so far. */
   private sourceAccounted = 0;
   /** Skipping the rest of an overlong line, which ended the last piece; where that line starts. */
   private dropping = false;
@@ -48,29 +45,25 @@ export class GzipPieces {
   /** Whether the piece being cut keeps its bytes (`next`) or only its range (`nextRange`). */
   private keepBytes = true;
   private handedOut = 0;
-  private sourceError: unknown;
 
   /**
    * @param firstIndex the `index` of the first piece (the next ones count on)
    * @param lineBytesMax the longest line held whole (LINE_BYTES_MAX; smaller in tests)
    */
   constructor(
-    private readonly file: InputFile,
+    private readonly text: TextStream,
     private readonly fileIndex: number,
     private readonly pieceBytes: number,
     private nextIndex: number,
     private readonly lineBytesMax = LINE_BYTES_MAX,
   ) {
-    assert(file.gzip, `${file.path} is cut into pieces only when it is gzip`);
     assert(Number.isSafeInteger(pieceBytes) && pieceBytes >= 1, `piece size ${pieceBytes} is a positive integer`);
-    this.source = createReadStream(file.path, { highWaterMark: READ_BLOCK_BYTES });
-    const gunzip = createGunzip({ chunkSize: READ_BLOCK_BYTES });
-    this.source.on('error', (cause) => {
-      this.sourceError = cause;
-      gunzip.destroy(cause);
-    });
-    this.source.pipe(gunzip);
-    this.blocks = gunzip[Symbol.asyncIterator]();
+  }
+
+  /** The pieces of the gzip file `file` (the input `fileIndex`), read from its start. */
+  static ofFile(file: InputFile, fileIndex: number, pieceBytes: number, firstIndex: number, lineBytesMax = LINE_BYTES_MAX): TextPieces {
+    assert(file.gzip, `${file.path} is cut into pieces only when it is gzip`);
+    return new TextPieces(fileText(file), fileIndex, pieceBytes, firstIndex, lineBytesMax);
   }
 
   /** The next piece, or undefined after the last (or once closed). */
@@ -95,17 +88,16 @@ export class GzipPieces {
       if (this.ended) return this.last();
       let step: IteratorResult<Buffer>;
       try {
-        step = await this.blocks.next();
+        step = await this.text.blocks.next();
       } catch (cause) {
+        // Closed while waiting for data (the caller gave up): nothing to report.
+        if (this.closed) return undefined;
         await this.close();
-        if (this.sourceError !== undefined) throw ioError('read', this.file.path, this.sourceError);
-        throw gzipError(this.file, this.currentLine(), cause);
+        throw this.text.failure(cause, this.currentLine());
       }
       if (step.done) {
         this.ended = true;
-        if (this.source.bytesRead !== this.file.bytes) {
-          throw new QuernError('input', `${this.file.path} changed since it was discovered: ${this.source.bytesRead} bytes read, ${this.file.bytes} expected`);
-        }
+        this.text.checkEnd();
       } else this.add(step.value);
     }
   }
@@ -114,11 +106,10 @@ export class GzipPieces {
   async close(): Promise<void> {
     this.closed = true;
     this.ended = true;
-    await this.blocks.return?.().catch(() => undefined);
-    this.source.destroy();
+    await this.text.close();
   }
 
-  /** Where the stream broke off, as LineReader.currentLine gives it for a whole gzip file. */
+  /** Where the text broke off, as LineReader.currentLine gives it for a whole gzip file. */
   private currentLine(): { lineInChunk: number; byteOffset: number } {
     if (this.dropping) return { lineInChunk: this.linesBefore + 1, byteOffset: this.droppedLineStart };
     let lines = this.linesBefore;
@@ -211,7 +202,9 @@ export class GzipPieces {
     }
     this.pendingBytes -= bytes;
     const isLast = this.ended && this.pendingBytes === 0;
-    const sourceBytes = (isLast ? this.file.bytes : Math.min(this.file.bytes, this.source.bytesRead)) - this.sourceAccounted;
+    // The last piece accounts for the rest of the input (the gzip trailer); none for more than its size.
+    const { bytesRead, bytesExpected } = this.text;
+    const sourceBytes = (isLast ? bytesExpected ?? bytesRead : Math.min(bytesExpected ?? bytesRead, bytesRead)) - this.sourceAccounted;
     this.sourceAccounted += sourceBytes;
     const piece: ChunkPiece = {
       index: this.nextIndex++, fileIndex: this.fileIndex, byteStart: this.pieceStart, byteEnd: this.pieceStart + bytes,

@@ -1,15 +1,17 @@
 /**
- * A gzip input cut into pieces of its decompressed text (GzipPieces), for readers on other threads:
+ * A gzip input cut into pieces of its decompressed text (TextPieces.ofFile), for readers on other threads:
  * the pieces cover the text exactly, end where planChunks cuts the same text as a plain file, number
  * their lines on, and read (readChunk with the piece) as the whole file reads.
  */
 import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import * as path from 'node:path';
+import { Readable } from 'node:stream';
 import { gzipSync } from 'node:zlib';
 import { afterAll, describe, expect, test } from 'vitest';
 import { discoverInputs } from '../../src/corpus/discover.ts';
-import { GzipPieces } from '../../src/corpus/gzip-pieces.ts';
+import { TextPieces } from '../../src/corpus/text-pieces.ts';
+import { TextStream } from '../../src/corpus/text-stream.ts';
 import { planChunks, splitsGzip } from '../../src/corpus/plan.ts';
 import { readChunk, type ChunkReadStats } from '../../src/corpus/read.ts';
 import type { Chunk, ChunkPiece, InputFile, ReadOptions } from '../../src/corpus/types.ts';
@@ -17,7 +19,7 @@ import { QuernError } from '../../src/errors.ts';
 import { LINE_BYTES_MAX } from '../../src/limits.ts';
 import { seededRandom } from '../support/seeded.ts';
 
-const root = mkdtempSync(path.join(tmpdir(), 'quern-gzip-pieces-'));
+const root = mkdtempSync(path.join(tmpdir(), 'quern-text-pieces-'));
 afterAll(() => rmSync(root, { recursive: true, force: true }));
 
 const text: ReadOptions = { format: 'text', textField: undefined, skipBad: false };
@@ -47,7 +49,7 @@ async function inputOf(name: string, bytes: Buffer | string): Promise<InputFile>
 }
 
 async function allPieces(file: InputFile, pieceBytes: number, lineBytesMax?: number): Promise<ChunkPiece[]> {
-  const cutter = new GzipPieces(file, 0, pieceBytes, 0, lineBytesMax);
+  const cutter = TextPieces.ofFile(file, 0, pieceBytes, 0, lineBytesMax);
   const pieces: ChunkPiece[] = [];
   for (let piece = await cutter.next(); piece !== undefined; piece = await cutter.next()) pieces.push(piece);
   expect(await cutter.next()).toBeUndefined();
@@ -69,7 +71,7 @@ async function readPieces(file: InputFile, pieces: Chunk[], options = text): Pro
 
 const newlines = (bytes: Uint8Array): number => bytes.reduce((sum, byte) => sum + (byte === 0x0a ? 1 : 0), 0);
 
-describe('GzipPieces', () => {
+describe('TextPieces of a gzip file', () => {
   test.each([
     ['no final newline', corpus(3000, 7), 1000],
     ['a final newline', corpus(3000, 8) + '\n', 997],
@@ -186,7 +188,7 @@ describe('GzipPieces', () => {
     const file = await inputOf(`cut-${skipBad}.gz`, zipped.subarray(0, zipped.length >> 1));
     const whole = (await readChunk(file, { index: 0, fileIndex: 0, byteStart: 0, byteEnd: file.bytes }, { ...text, skipBad }, () => undefined).catch((e) => e)) as QuernError;
     expect(whole).toBeInstanceOf(QuernError);
-    const cutter = new GzipPieces(file, 0, 4096, 0);
+    const cutter = TextPieces.ofFile(file, 0, 4096, 0);
     const pieces: ChunkPiece[] = [];
     const error = await (async () => {
       for (;;) {
@@ -213,7 +215,7 @@ describe('GzipPieces', () => {
     const file = await inputOf('overlong-cut.gz', zipped.subarray(0, zipped.length - 64));
     const whole = (await readChunk(file, { index: 0, fileIndex: 0, byteStart: 0, byteEnd: file.bytes }, { ...text, skipBad: true }, () => undefined).catch((e) => e)) as QuernError;
     expect(whole.message).toMatch(/truncated or corrupt gzip data/);
-    const cutter = new GzipPieces(file, 0, 1 << 20, 0);
+    const cutter = TextPieces.ofFile(file, 0, 1 << 20, 0);
     const error = await (async () => {
       for (let piece = await cutter.next(); piece !== undefined; piece = await cutter.next());
     })().catch((e) => e);
@@ -236,5 +238,49 @@ describe('GzipPieces', () => {
     const skipped = await readPieces(file, pieces, { ...text, skipBad: true });
     const samples = skipped.stats.flatMap((s) => s.skippedSamples);
     expect(samples).toEqual([{ line: 4001, lineInChunk: expect.any(Number), byteOffset: whole.location!.byteOffset, reason: 'invalid UTF-8' }]);
+  });
+});
+
+describe('TextPieces of a stream that is not gzip', () => {
+  /** `bytes` as a stream of blocks of `blockBytes` (a pipe gives small ones), then `failure` if given. */
+  function streamOf(bytes: Buffer, blockBytes: number, failure?: Error): Readable {
+    return Readable.from((async function* () {
+      for (let start = 0; start < bytes.length; start += blockBytes) yield bytes.subarray(start, start + blockBytes);
+      if (failure !== undefined) throw failure;
+    })(), { objectMode: false });
+  }
+
+  test('the pieces end where the plain file\'s chunks end and read as the file reads; an empty stream is one empty piece', async () => {
+    const content = Buffer.from(corpus(3000, 13) + '\n');
+    const plain = await inputOf('streamed.txt', content);
+    const cutter = new TextPieces(new TextStream(plain, streamOf(content, 777), undefined), 0, 1000, 0);
+    const pieces: ChunkPiece[] = [];
+    for (let piece = await cutter.next(); piece !== undefined; piece = await cutter.next()) pieces.push(piece);
+    await cutter.close();
+    expect(pieces.map((p) => [p.byteStart, p.byteEnd])).toEqual((await planChunks([plain], 1000)).map((c) => [c.byteStart, c.byteEnd]));
+    // Progress: the pieces account for every byte of the stream.
+    expect(pieces.reduce((sum, p) => sum + p.sourceBytes, 0)).toBe(content.length);
+    const whole = await readPieces(plain, [{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: plain.bytes }]);
+    const split = await readPieces({ ...plain, gzip: true }, pieces);
+    expect(split.sentences).toEqual(whole.sentences);
+
+    const empty = new TextPieces(new TextStream(plain, streamOf(Buffer.alloc(0), 1), undefined), 0, 1000, 0);
+    expect(await empty.next()).toMatchObject({ byteStart: 0, byteEnd: 0, linesBefore: 0, sourceBytes: 0 });
+    expect(await empty.next()).toBeUndefined();
+  });
+
+  test('a stream that fails: the pieces before, then an io error naming the input and the cause', async () => {
+    const content = Buffer.from('one line\n'.repeat(1000));
+    const plain = await inputOf('failing.txt', content);
+    const cutter = new TextPieces(new TextStream(plain, streamOf(content, 512, new Error('EIO: the pipe broke')), undefined), 0, 1000, 0);
+    const pieces: ChunkPiece[] = [];
+    const error = await (async () => {
+      for (let piece = await cutter.next(); piece !== undefined; piece = await cutter.next()) pieces.push(piece);
+    })().catch((e) => e);
+    expect(error).toBeInstanceOf(QuernError);
+    expect(error.code).toBe('io');
+    expect(error.message).toBe(`cannot read ${plain.path}: EIO: the pipe broke`);
+    expect(pieces.length).toBeGreaterThan(5);
+    expect(pieces.at(-1)!.byteEnd).toBeLessThan(content.length);
   });
 });

@@ -1,0 +1,82 @@
+/**
+ * The text of one input read from its start as a stream of blocks: a file, or standard input;
+ * gunzipped when the input is gzip. Counts the input bytes read (compressed ones for gzip) and
+ * turns a failure of the stream into the error a whole read of the input gives.
+ */
+import { createReadStream } from 'node:fs';
+import type { Readable } from 'node:stream';
+import { createGunzip } from 'node:zlib';
+import { ioError, QuernError } from '../errors.ts';
+import { READ_BLOCK_BYTES } from '../limits.ts';
+import { gzipError } from './read.ts';
+import type { InputFile } from './types.ts';
+
+export class TextStream {
+  /** Blocks of the text (decompressed for gzip), in order. */
+  readonly blocks: AsyncIterator<Buffer>;
+  private bytes = 0;
+  private sourceError: unknown;
+
+  /**
+   * @param file the input (its `gzip` says whether to gunzip `source`)
+   * @param source the input's bytes from its start; `close` destroys it
+   * @param bytesExpected the input's size (a file's, as discovered), checked at the end; undefined
+   *   when it is not known (standard input)
+   */
+  constructor(readonly file: InputFile, private readonly source: Readable, readonly bytesExpected: number | undefined) {
+    if (file.gzip) {
+      const gunzip = createGunzip({ chunkSize: READ_BLOCK_BYTES });
+      source.on('data', (block: Buffer) => {
+        this.bytes += block.length;
+      });
+      source.on('error', (cause) => {
+        this.sourceError = cause;
+        gunzip.destroy(cause);
+      });
+      source.pipe(gunzip);
+      this.blocks = gunzip[Symbol.asyncIterator]();
+    } else {
+      const raw = source[Symbol.asyncIterator]() as AsyncIterator<Buffer>;
+      this.blocks = {
+        next: async () => {
+          const step = await raw.next();
+          if (step.done !== true) this.bytes += step.value.length;
+          return step;
+        },
+        return: async () => (await raw.return?.()) ?? { done: true, value: undefined },
+      };
+    }
+  }
+
+  /** Input bytes read so far (compressed ones for gzip). */
+  get bytesRead(): number {
+    return this.bytes;
+  }
+
+  /**
+   * The error for a failed `blocks.next()`: the input could not be read, or (gzip) its data is
+   * truncated or corrupt, `at` the line where the text broke off (as LineReader.currentLine gives it).
+   */
+  failure(cause: unknown, at: { lineInChunk: number; byteOffset: number }): QuernError {
+    if (this.sourceError !== undefined || !this.file.gzip) return ioError('read', this.file.path, this.sourceError ?? cause);
+    return gzipError(this.file, at, cause);
+  }
+
+  /** At the end of the text: throws when the input's size is not the one expected (a file that changed). */
+  checkEnd(): void {
+    if (this.bytesExpected !== undefined && this.bytes !== this.bytesExpected) {
+      throw new QuernError('input', `${this.file.path} changed since it was discovered: ${this.bytes} bytes read, ${this.bytesExpected} expected`);
+    }
+  }
+
+  /** Stops reading. The source goes first: a read still waiting for data (a pipe) then ends too. */
+  async close(): Promise<void> {
+    this.source.destroy();
+    await this.blocks.return?.().catch(() => undefined);
+  }
+}
+
+/** The text of the file `file` from its start (gunzipped if it is gzip), of the size discovered. */
+export function fileText(file: InputFile): TextStream {
+  return new TextStream(file, createReadStream(file.path, { highWaterMark: READ_BLOCK_BYTES }), file.bytes);
+}

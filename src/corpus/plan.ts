@@ -56,8 +56,9 @@ export function splitsGzip(files: readonly InputFile[], index: number, chunkByte
  * A plain input (text or JSONL) is cut about every `chunkBytesTarget`
  * bytes: from each target offset the planner reads forward to just after the next '\n', so every
  * chunk holds whole lines, none is empty, and together they cover the file exactly. An empty file
- * is one chunk 0..0, so every input appears in the plan. The result depends only on the file
- * contents, `chunkBytesTarget` and `splitGzipFor`.
+ * is one chunk 0..0, so every input appears in the plan; so is standard input (`quern score`), whose
+ * size is not known: it is cut into pieces as it is read (TextPieces). The result depends only on
+ * the file contents, `chunkBytesTarget` and `splitGzipFor`.
  *
  * @param chunkBytesTarget a positive integer (typically CHUNK_BYTES_TARGET).
  * @throws QuernError('config') for a bad `chunkBytesTarget`; QuernError('input') when a file's size
@@ -70,6 +71,10 @@ export async function planChunks(files: InputFile[], chunkBytesTarget: number, o
   const chunks: Chunk[] = [];
   for (let fileIndex = 0; fileIndex < files.length; fileIndex++) {
     const file = files[fileIndex];
+    if (file.stdin === true) {
+      chunks.push({ index: chunks.length, fileIndex, byteStart: 0, byteEnd: 0 });
+      continue;
+    }
     if (options.splitGzipFor !== undefined && splitsGzip(files, fileIndex, chunkBytesTarget, options.splitGzipFor.workers)) {
       // Decompressed once here to find where its text's chunks end (TextPieces' cut, the bytes not
       // kept): the count's vocabulary pass cuts it again and hands the pieces to its workers.

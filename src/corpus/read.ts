@@ -129,9 +129,10 @@ function lineBaseOf(chunk: Chunk): number | undefined {
 function checkChunk(file: InputFile, chunk: Chunk, options: ReadOptions): void {
   assert(options.format === file.format, `ReadOptions.format (${options.format}) must equal the file's format (${file.format})`);
   if (isChunkPiece(chunk)) {
-    assert(file.gzip && chunk.byteStart >= 0 && chunk.byteEnd - chunk.byteStart === chunk.data.length, `piece ${chunk.index} of ${file.path} holds the ${chunk.byteEnd - chunk.byteStart} decompressed bytes of its range`);
+    assert((file.gzip || file.stdin === true) && chunk.byteStart >= 0 && chunk.byteEnd - chunk.byteStart === chunk.data.length, `piece ${chunk.index} of ${file.path} (gzip or standard input) holds the ${chunk.byteEnd - chunk.byteStart} bytes of its range`);
     return;
   }
+  assert(file.stdin !== true, `chunk ${chunk.index}: standard input is read only in pieces`);
   if (isTextRange(chunk)) {
     assert(file.gzip && Number.isSafeInteger(chunk.byteStart) && chunk.byteStart >= 0 && chunk.byteStart <= chunk.byteEnd, `chunk ${chunk.index}: a range ${chunk.byteStart}..${chunk.byteEnd} of decompressed text belongs to a gzip input`);
     return;
@@ -292,9 +293,14 @@ export function gzipError(file: InputFile, at: { lineInChunk: number; byteOffset
   const reason = (cause as Error | undefined)?.message ?? String(cause);
   return new QuernError(
     'input',
-    `${formatLocation(location)}: truncated or corrupt gzip data (${reason}); the byte offset is in the decompressed stream`,
+    `${formatLocation(location)}${ofStdin(file)}: truncated or corrupt gzip data (${reason}); the byte offset is in the decompressed stream`,
     { cause, location },
   );
+}
+
+/** After a location in `-`, what `-` is. */
+function ofStdin(file: InputFile): string {
+  return file.stdin === true ? ' of standard input' : '';
 }
 
 /** A bad line found while reading; turned into a QuernError with the absolute line number. */
@@ -307,7 +313,7 @@ class BadLine extends Error {
 async function badLineError(file: InputFile, chunk: Chunk, bad: BadLine): Promise<QuernError> {
   const linesBefore = lineBaseOf(chunk) ?? await countNewlines(file.path, chunk.byteStart);
   const location: InputLocation = { file: file.path, line: linesBefore + bad.lineInChunk, byteOffset: bad.byteOffset };
-  const where = file.gzip ? ' (byte offset in the decompressed stream)' : '';
+  const where = `${ofStdin(file)}${file.gzip ? ' (byte offset in the decompressed stream)' : ''}`;
   return new QuernError('input', `${formatLocation(location)}${where}: ${bad.reason}`, { location });
 }
 

@@ -9,7 +9,7 @@ import { createGunzip } from 'node:zlib';
 import { ioError, QuernError } from '../errors.ts';
 import { READ_BLOCK_BYTES } from '../limits.ts';
 import { gzipError } from './read.ts';
-import type { InputFile } from './types.ts';
+import { inputName, type InputFile } from './types.ts';
 
 export class TextStream {
   /** Blocks of the text (decompressed for gzip), in order. */
@@ -58,7 +58,7 @@ export class TextStream {
    * truncated or corrupt, `at` the line where the text broke off (as LineReader.currentLine gives it).
    */
   failure(cause: unknown, at: { lineInChunk: number; byteOffset: number }): QuernError {
-    if (this.sourceError !== undefined || !this.file.gzip) return ioError('read', this.file.path, this.sourceError ?? cause);
+    if (this.sourceError !== undefined || !this.file.gzip) return ioError('read', inputName(this.file), this.sourceError ?? cause);
     return gzipError(this.file, at, cause);
   }
 

@@ -2,18 +2,28 @@
 
 export type InputFormat = 'text' | 'jsonl';
 
-/** One input shard as recorded in the job manifest. */
+/** One input shard as recorded in the job manifest (or standard input, for `quern score`). */
 export interface InputFile {
-  /** Absolute path. */
+  /** Absolute path; `-` for standard input. */
   path: string;
-  /** Size on disk in bytes (compressed size for gzip). */
+  /** Size on disk in bytes (compressed size for gzip); 0 for standard input, whose size is not known. */
   bytes: number;
   mtimeMs: number;
   /** True when the file starts with the gzip magic bytes 1f 8b (whatever its name). */
   gzip: boolean;
   format: InputFormat;
-  /** sha256 (hex) of the size, the first and the last FINGERPRINT_EDGE_BYTES of the file. */
+  /** sha256 (hex) of the size, the first and the last FINGERPRINT_EDGE_BYTES of the file ('' for standard input). */
   fingerprint: string;
+  /**
+   * Only for `quern score`, never in a manifest: the input is standard input (src/corpus/stdin.ts),
+   * read once from its start by the main thread and cut into pieces (ChunkPiece) as it is read.
+   */
+  stdin?: boolean;
+}
+
+/** How messages name an input: its path, or "standard input". */
+export function inputName(file: InputFile): string {
+  return file.stdin === true ? 'standard input' : file.path;
 }
 
 /**
@@ -43,16 +53,18 @@ export function isTextRange(chunk: Chunk): boolean {
 
 /**
  * A chunk whose bytes the caller has read already: a line-aligned range of a gzip input's
- * decompressed stream (src/corpus/text-pieces.ts), so that one large gzip file can be read by many
- * threads. `byteStart` and `byteEnd` are offsets in the decompressed stream; `data` holds exactly
- * those bytes. Its last line may be cut short only when it is longer than LINE_BYTES_MAX (the
- * reader then rejects or skips it as overlong, and the next piece starts after it).
+ * decompressed stream, or of standard input (src/corpus/text-pieces.ts), so that one large gzip
+ * file, or standard input, can be read by many threads. `byteStart` and `byteEnd` are offsets in
+ * the (decompressed) stream; `data` holds exactly those bytes. Its last line may be cut short only
+ * when it is longer than LINE_BYTES_MAX (the reader then rejects or skips it as overlong, and the
+ * next piece starts after it).
  */
 export interface ChunkPiece extends Chunk {
   data: Uint8Array;
   /** Lines of the decompressed stream before `byteStart`: this piece's lines are numbered from there. */
   linesBefore: number;
-  /** The compressed bytes this piece stands for, for progress (the pieces of a file sum to its size). */
+  /** The input bytes (compressed ones for gzip) this piece stands for, for progress (the pieces of
+   *  a file sum to its size). */
   sourceBytes: number;
 }
 

@@ -261,7 +261,7 @@ describe('TextPieces of a stream that is not gzip', () => {
     // Progress: the pieces account for every byte of the stream.
     expect(pieces.reduce((sum, p) => sum + p.sourceBytes, 0)).toBe(content.length);
     const whole = await readPieces(plain, [{ index: 0, fileIndex: 0, byteStart: 0, byteEnd: plain.bytes }]);
-    const split = await readPieces({ ...plain, gzip: true }, pieces);
+    const split = await readPieces({ ...plain, stdin: true }, pieces);
     expect(split.sentences).toEqual(whole.sentences);
 
     const empty = new TextPieces(new TextStream(plain, streamOf(Buffer.alloc(0), 1), undefined), 0, 1000, 0);

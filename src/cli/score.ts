@@ -1,14 +1,16 @@
 /**
  * `quern score`: perplexity of a packed model on inputs read like `quern count` reads them (plain,
- * gzip, JSON Lines), per file and in total; with --per-line, one JSON record per line (or per
- * JSON Lines document) for filtering training data by perplexity.
+ * gzip, JSON Lines), and on standard input (`-`), per file and in total; with --per-line, one JSON
+ * record per line (or per JSON Lines document) for filtering training data by perplexity.
  */
 import os from 'node:os';
 import type { CommandModule } from 'yargs';
-import { QuernError } from '../errors.ts';
+import { assert, QuernError } from '../errors.ts';
 import { discoverInputs } from '../corpus/discover.ts';
 import { planChunks } from '../corpus/plan.ts';
+import { openStdin, splitStdinSpec, STDIN_SPEC, type StdinInput } from '../corpus/stdin.ts';
 import { TextPieces } from '../corpus/text-pieces.ts';
+import { TextStream } from '../corpus/text-stream.ts';
 import { inputBytesOf, isChunkPiece, type Chunk, type InputFile, type NormalizeOptions, type SkippedSample } from '../corpus/types.ts';
 import { openModel, type PackedModel } from '../pack/reader.ts';
 import { WorkerPool, type TaskSource } from '../count/pool.ts';
@@ -37,7 +39,7 @@ export interface ScoreRun {
   normalize: NormalizeOptions;
   textField: string | undefined;
   skipBad: boolean;
-  /** 'text' or 'jsonl' for every input, or undefined: by each file's name. */
+  /** 'text' or 'jsonl' for every input, or undefined: by each file's name (standard input: text). */
   format: 'text' | 'jsonl' | undefined;
   /** Worker threads; 1 scores in this thread. The model must be opened `{ shared: true }` for more. */
   workers: number;
@@ -49,16 +51,31 @@ export interface ScoreRun {
 
 /**
  * Scores every sentence of the inputs, chunk by chunk (line-aligned byte ranges of `chunkBytes`; a
- * gzip file's decompressed text cut the same way, ScoreTasks), on `workers` threads; each file's
- * sums are its chunks' sums added in chunk order, so the result does not depend on `workers`.
+ * gzip file's decompressed text, and standard input, cut the same way as they are read,
+ * ScoreTasks), on `workers` threads; each file's sums are its chunks' sums added in chunk order, so
+ * the result does not depend on `workers`. Standard input (the spec `-`, at most once) comes first,
+ * named `-`; its format is `run.format`, or text.
  */
 export async function scoreInputs(model: PackedModel, specs: string[], run: ScoreRun): Promise<{ files: Totals[]; total: Totals }> {
   if (!model.normalised) throw new QuernError('config', `perplexity needs a normalised model; this ${model.parameters.method} model gives scores, not probabilities`);
-  const inputs = await discoverInputs(specs, run.format === undefined ? {} : { format: run.format });
-  if (inputs.some((f) => f.format === 'jsonl') && run.textField === undefined) throw new QuernError('config', 'JSON Lines input: say where the text is with --text-field');
+  const { stdin: readsStdin, files: fileSpecs } = splitStdinSpec(specs);
+  const stdinFormat = run.format ?? 'text';
+  // discoverInputs refuses no specs at all; `-` alone is no file.
+  const found = readsStdin && fileSpecs.length === 0 ? [] : await discoverInputs(fileSpecs, run.format === undefined ? {} : { format: run.format });
+  if ((found.some((f) => f.format === 'jsonl') || (readsStdin && stdinFormat === 'jsonl')) && run.textField === undefined) {
+    throw new QuernError('config', 'JSON Lines input: say where the text is with --text-field');
+  }
   const settings: ScoreSettings = { normalize: run.normalize, textField: run.textField?.split('.'), skipBad: run.skipBad, perLine: run.onLines !== undefined };
-  const chunks = await planChunks(inputs, run.chunkBytes);
-  const tasks = new ScoreTasks(inputs, chunks, run.chunkBytes);
+  const stdin = readsStdin ? await openStdin(stdinFormat) : undefined;
+  const inputs = stdin === undefined ? found : [stdin.input, ...found];
+  let chunks: Chunk[];
+  try {
+    chunks = await planChunks(inputs, run.chunkBytes);
+  } catch (error) {
+    stdin?.source.destroy();
+    throw error;
+  }
+  const tasks = new ScoreTasks(inputs, chunks, run.chunkBytes, stdin);
   const files = inputs.map((file) => totals(file.path));
   // Sentences and lines of each file's chunks consumed so far (per-line records number sentences
   // from 1 within a file; a skipped line's number is its file's earlier lines + its line in its chunk).
@@ -93,10 +110,11 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
     sentencesBefore[fileIndex] += result.sums.sentences;
     linesBefore[fileIndex] += result.reads.lines;
   };
+  // Standard input's size is not known: neither is the total then.
   const totalBytes = chunks.reduce((sum, chunk) => sum + chunk.byteEnd - chunk.byteStart, 0);
-  run.progress.start('scoring', totalBytes);
+  run.progress.start('scoring', stdin === undefined ? totalBytes : undefined);
   try {
-    if (run.workers > 1 && (chunks.length > 1 || inputs.some((file) => file.gzip))) await scoreInWorkers(model, inputs, tasks, settings, run, consume);
+    if (run.workers > 1 && (chunks.length > 1 || inputs.some(isStreamed))) await scoreInWorkers(model, inputs, tasks, settings, run, consume);
     else {
       for (let chunk = await tasks.next(); chunk !== undefined; chunk = await tasks.next()) {
         const result = await scoreChunk(model, inputs[chunk.fileIndex], chunk, settings);
@@ -118,15 +136,21 @@ export async function scoreInputs(model: PackedModel, specs: string[], run: Scor
   return { files, total: { ...total, ...withPerplexities(total) } };
 }
 
+/** Whether `file` is cut into pieces as it is read (a gzip file, standard input), not planned. */
+function isStreamed(file: InputFile): boolean {
+  return file.gzip || file.stdin === true;
+}
+
 function totals(file: string): Totals {
   return { file, sentences: 0, tokens: 0, oov: 0, log10Prob: 0, log10ProbWithUnk: 0, perplexity: NaN, perplexityWithUnk: NaN, skipped: 0 };
 }
 
 /**
  * The units of `quern score`'s work, in input order, numbered from 0: the planned chunks of plain
- * files, and the pieces of each gzip file (TextPieces, cut where its text as a plain file would be
- * chunked, so a file scores the same compressed or not), cut as they are asked for with one piece
- * cut ahead. A gzip file that breaks off ends the tasks there; `throwIfFailed` gives its error.
+ * files, and the pieces of each gzip file and of standard input (TextPieces, cut where its text as
+ * a plain file would be chunked, so an input scores the same compressed or not, piped or not), cut
+ * as they are asked for with one piece cut ahead. A stream that breaks off ends the tasks there;
+ * `throwIfFailed` gives its error.
  */
 class ScoreTasks implements TaskSource<Chunk> {
   /** The input of each task handed out, by task index. */
@@ -137,7 +161,8 @@ class ScoreTasks implements TaskSource<Chunk> {
   private failure: { error: unknown } | undefined;
   private done = false;
 
-  constructor(private readonly inputs: InputFile[], private readonly chunks: Chunk[], private readonly pieceBytes: number) {}
+  /** @param stdin standard input, when it is one of `inputs` (destroyed by `close` whatever was read) */
+  constructor(private readonly inputs: InputFile[], private readonly chunks: Chunk[], private readonly pieceBytes: number, private readonly stdin: StdinInput | undefined) {}
 
   async next(): Promise<Chunk | undefined> {
     const task = await (this.ahead ?? this.make());
@@ -156,14 +181,17 @@ class ScoreTasks implements TaskSource<Chunk> {
 
   async close(): Promise<void> {
     this.done = true;
+    // The stream first: a piece being cut from a pipe that gives no more then ends too.
+    await this.pieces?.close();
     await this.ahead;
     await this.pieces?.close();
+    this.stdin?.source.destroy();
   }
 
   private async make(): Promise<Chunk | undefined> {
-    if (this.done) return undefined;
     try {
       for (;;) {
+        if (this.done) return undefined;
         if (this.pieces !== undefined) {
           const piece = await this.pieces.next();
           if (piece !== undefined) return this.handOut(piece);
@@ -176,7 +204,10 @@ class ScoreTasks implements TaskSource<Chunk> {
         }
         const chunk = this.chunks[this.planned++];
         const file = this.inputs[chunk.fileIndex];
-        if (file.gzip) this.pieces = TextPieces.ofFile(file, chunk.fileIndex, this.pieceBytes, this.fileOf.length);
+        if (file.stdin === true) {
+          assert(this.stdin?.input === file, 'standard input is an input only with its stream');
+          this.pieces = new TextPieces(new TextStream(file, this.stdin.source, undefined), chunk.fileIndex, this.pieceBytes, this.fileOf.length);
+        } else if (file.gzip) this.pieces = TextPieces.ofFile(file, chunk.fileIndex, this.pieceBytes, this.fileOf.length);
         else return this.handOut({ ...chunk, index: this.fileOf.length });
       }
     } catch (error) {
@@ -196,8 +227,9 @@ class ScoreTasks implements TaskSource<Chunk> {
 async function scoreInWorkers(
   model: PackedModel, inputs: InputFile[], tasks: ScoreTasks, settings: ScoreSettings, run: ScoreRun, consume: (result: ChunkScore) => Promise<void>,
 ): Promise<void> {
-  // As many workers as there are chunks, or all of them for a gzip file's pieces (not counted ahead).
-  const pool = new WorkerPool(inputs.some((file) => file.gzip) ? run.workers : Math.min(run.workers, tasks.plannedChunks));
+  // As many workers as there are chunks, or all of them for the pieces of a gzip file or of
+  // standard input (not counted ahead).
+  const pool = new WorkerPool(inputs.some(isStreamed) ? run.workers : Math.min(run.workers, tasks.plannedChunks));
   const inOrder = new InOrder<ChunkScore>(consume);
   try {
     await pool.run(
@@ -208,7 +240,7 @@ async function scoreInWorkers(
       tasks,
       {
         message: (chunk) => ({ type: 'chunk', chunk }),
-        // A gzip piece's bytes move to the worker (no copy).
+        // A piece's bytes move to the worker (no copy).
         transfer: (chunk) => (isChunkPiece(chunk) ? [chunk.data.buffer as ArrayBuffer] : []),
         onProgress: (bytes, tokens) => run.progress.update(bytes, tokens),
         // The worker gets its next chunk once this one's turn has come and it has been consumed.
@@ -220,19 +252,34 @@ async function scoreInWorkers(
   }
 }
 
+/**
+ * Refuses the inputs that are options (`-x`, `--typo`; not `-`) with yargs' message for unknown
+ * arguments, as a usage error (src/cli/main.ts: status 2, then "See quern --help").
+ */
+function unknownOptions(inputs: string[]): void {
+  const options = inputs.filter((spec) => spec.startsWith('-') && spec !== STDIN_SPEC).map((spec) => spec.replace(/^-+/, '').replace(/=[^]*$/, ''));
+  if (options.length > 0) throw Object.assign(new Error(`Unknown argument${options.length > 1 ? 's' : ''}: ${options.join(', ')}`), { usage: true });
+}
+
 export const scoreCommand: CommandModule = {
   command: 'score <model> <inputs..>',
   describe: 'Perplexity of a model file on text (plain, gzip, JSON Lines), per file and in total',
   builder: (yargs) => corpusOptions(yargs
+    // yargs drops a `-` among the inputs (it parses the positionals again as `--inputs -`, where a
+    // lone `-` reads as an option and ends the list). Taken as arguments, unknown options reach the
+    // inputs too, and the handler refuses them first, as yargs' strict mode would (unknownOptions).
+    .parserConfiguration({ 'unknown-options-as-args': true })
     .positional('model', { type: 'string', describe: 'A model file written by quern estimate, build or pack' })
-    .positional('inputs', { type: 'string', array: true, describe: 'Files, directories or glob patterns' })
+    .positional('inputs', { type: 'string', array: true, describe: 'Files, directories or glob patterns; - for standard input, named - in the results (text, or JSON Lines with --format jsonl; gzip known by its first bytes)' })
     .option('per-line', { type: 'boolean', default: false, describe: 'Print one JSON record per sentence of plain text (its number and line in the file), or per JSON Lines document (its line; the sums over the lines of its text)' })
     .option('json', { type: 'boolean', default: false, describe: 'Print the totals as one JSON object' })
     .option('workers', { type: 'number', default: os.availableParallelism(), describe: 'Worker threads (they share the model\'s memory); 1 scores in the main thread' })
     .option('chunk-size', { type: 'string', default: String(SCORE_CHUNK_BYTES), describe: 'Split plain inputs into line-aligned chunks of about this size, the unit of work of a worker' })
     .option('quiet', { type: 'boolean', default: false, describe: 'No progress display' }), false)
-    .example('$0 score job/model.qm heldout/', 'Perplexity on held-out text, normalised as the model file records it'),
+    .example('$0 score job/model.qm heldout/', 'Perplexity on held-out text, normalised as the model file records it')
+    .example('zcat shard.gz | $0 score job/model.qm - --per-line', 'One record per sentence of the text piped in'),
   handler: async (argv) => {
+    unknownOptions(argv.inputs as string[]);
     const workers = intInRange(argv.workers, '--workers', 1, 256);
     const chunkBytes = parseSize(argv['chunk-size'] as string, '--chunk-size');
     const model = await openModel(argv.model as string, { shared: workers > 1 });

@@ -95,6 +95,7 @@ export class TextPieces {
         await this.close();
         throw this.text.failure(cause, this.currentLine());
       }
+      if (this.closed) return undefined;
       if (step.done) {
         this.ended = true;
         this.text.checkEnd();

@@ -4,7 +4,7 @@
  * turns a failure of the stream into the error a whole read of the input gives.
  */
 import { createReadStream } from 'node:fs';
-import type { Readable } from 'node:stream';
+import type { Readable, Transform } from 'node:stream';
 import { createGunzip } from 'node:zlib';
 import { ioError, QuernError } from '../errors.ts';
 import { READ_BLOCK_BYTES } from '../limits.ts';
@@ -16,6 +16,8 @@ export class TextStream {
   readonly blocks: AsyncIterator<Buffer>;
   private bytes = 0;
   private sourceError: unknown;
+  /** The gunzip stream between the source and `blocks`, for gzip. */
+  private readonly gunzip: Transform | undefined;
 
   /**
    * @param file the input (its `gzip` says whether to gunzip `source`)
@@ -26,6 +28,7 @@ export class TextStream {
   constructor(readonly file: InputFile, private readonly source: Readable, readonly bytesExpected: number | undefined) {
     if (file.gzip) {
       const gunzip = createGunzip({ chunkSize: READ_BLOCK_BYTES });
+      this.gunzip = gunzip;
       source.on('data', (block: Buffer) => {
         this.bytes += block.length;
       });
@@ -69,9 +72,11 @@ export class TextStream {
     }
   }
 
-  /** Stops reading. The source goes first: a read still waiting for data (a pipe) then ends too. */
+  /** Stops reading. The streams go first: a read of `blocks` still waiting for data (from a pipe)
+   *  then ends too, and does not hold up the iterator's end. */
   async close(): Promise<void> {
     this.source.destroy();
+    this.gunzip?.destroy();
     await this.blocks.return?.().catch(() => undefined);
   }
 }

@@ -15,9 +15,17 @@ export interface CliResult {
   stderr: string;
 }
 
-export function runQuern(args: string[], options: { cwd?: string; env?: NodeJS.ProcessEnv } = {}): Promise<CliResult> {
+/** Runs `quern args…`; with `input`, that is piped into its standard input, which is then closed. */
+export function runQuern(args: string[], options: { cwd?: string; env?: NodeJS.ProcessEnv; input?: Uint8Array | string } = {}): Promise<CliResult> {
   return new Promise((resolve, reject) => {
     const child = spawn(process.execPath, [BIN, ...args], { cwd: options.cwd ?? REPO, env: { ...process.env, ...options.env } });
+    if (options.input !== undefined) {
+      // A command that stops reading early (an error) closes the pipe: what was not read is not wanted.
+      child.stdin.on('error', (error: NodeJS.ErrnoException) => {
+        if (error.code !== 'EPIPE') reject(error);
+      });
+      child.stdin.end(options.input);
+    }
     let stdout = '';
     let stderr = '';
     child.stdout.setEncoding('utf8').on('data', (d: string) => { stdout += d; });

@@ -254,11 +254,14 @@ async function scoreInWorkers(
 
 /**
  * Refuses the inputs that are options (`-x`, `--typo`; not `-`) with yargs' message for unknown
- * arguments, as a usage error (src/cli/main.ts: status 2, then "See quern --help").
+ * arguments, as a usage error (src/cli/main.ts: status 2, then "See quern --help"). An unknown
+ * option before the model leaves the model empty (yargs parses it as `--model --typo`), its name lost.
  */
-function unknownOptions(inputs: string[]): void {
+function unknownOptions(model: string, inputs: string[]): void {
+  const usage = (message: string): Error => Object.assign(new Error(message), { usage: true });
+  if (model === '') throw usage('Unknown argument before <model>, or an empty model path');
   const options = inputs.filter((spec) => spec.startsWith('-') && spec !== STDIN_SPEC).map((spec) => spec.replace(/^-+/, '').replace(/=[^]*$/, ''));
-  if (options.length > 0) throw Object.assign(new Error(`Unknown argument${options.length > 1 ? 's' : ''}: ${options.join(', ')}`), { usage: true });
+  if (options.length > 0) throw usage(`Unknown argument${options.length > 1 ? 's' : ''}: ${options.join(', ')}`);
 }
 
 export const scoreCommand: CommandModule = {
@@ -279,7 +282,7 @@ export const scoreCommand: CommandModule = {
     .example('$0 score job/model.qm heldout/', 'Perplexity on held-out text, normalised as the model file records it')
     .example('zcat shard.gz | $0 score job/model.qm - --per-line', 'One record per sentence of the text piped in'),
   handler: async (argv) => {
-    unknownOptions(argv.inputs as string[]);
+    unknownOptions(argv.model as string, argv.inputs as string[]);
     const workers = intInRange(argv.workers, '--workers', 1, 256);
     const chunkBytes = parseSize(argv['chunk-size'] as string, '--chunk-size');
     const model = await openModel(argv.model as string, { shared: workers > 1 });

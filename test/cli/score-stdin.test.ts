@@ -109,6 +109,7 @@ describe('quern score - (standard input)', () => {
     await expect(runCommandsInProcess([scoreCommand], ['score', model, '-', files.text, '-', '--quiet'])).rejects.toMatchObject({ code: 'config', message: expect.stringMatching(/standard input\) is given 2 times/) });
     // Other arguments that begin with '-' are still options; unknown ones are refused.
     await expect(runCommandsInProcess([scoreCommand], ['score', model, files.text, '--typo', '--quiet'])).rejects.toThrow('Unknown argument: typo');
+    await expect(runCommandsInProcess([scoreCommand], ['score', '--typo', model, files.text, '--quiet'])).rejects.toThrow('Unknown argument before <model>');
   });
 
   test('bad input on standard input: status 3 and the file\'s message, naming - and the line', async () => {

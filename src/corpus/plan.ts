@@ -27,7 +27,8 @@ const GZIP_TEXT_RATIO = 3;
 /** A gzip input is split when, as one chunk, it would hold at least 1/(this × workers) of all the
  *  text: beside many files of its size, the workers are kept busy without it, and splitting costs a
  *  decompression at planning and the main thread's cutting in the vocabulary pass (bench:count
- *  --gzip-shards 8 on the 200 MB corpus, order 3, 2 workers: every shard split took 1.08× the time). */
+ *  --gzip-shards 8, the 200 MB corpus in 8 files: 1.3 s of planning with 8 workers; the wall-time
+ *  ratios at 2 workers, 0.93–1.08×, were within the runs' spread: DEVELOPERS.md, Benchmarks). */
 const GZIP_SPLIT_SHARE = 2;
 
 /**

@@ -4,10 +4,12 @@
  * nothing (`quern --help`, measured in the same run). This is where the fixed overheads that
  * DEVELOPERS.md states (PROCESS_OVERHEAD_BYTES, WORKER_OVERHEAD_BYTES in src/limits.ts) come from.
  *
- *   npm run bench:rss -- [--corpus-dir DIR] [--order 5] [--memory 128MiB,256MiB,512MiB,1GiB] [--workers 1,2]
+ *   npm run bench:rss -- [--corpus-dir DIR | --input FILE] [--order 5] [--memory 128MiB,256MiB,512MiB,1GiB] [--workers 1,2]
  *
  * --corpus-dir  a corpus made by scripts/gen-corpus.ts (default bench-out/corpus-20MB-few-large,
  *               generated there when missing)
+ * --input       one input file counted instead of a corpus's shards (e.g. the corpus as one gzip
+ *               file, `bench:count --gzip`'s all-shards.txt.gz: its ranges' text held by the workers)
  * Every run counts from scratch into a fresh job directory (removed afterwards), under GNU time
  * (scripts/lib/rss.ts). Results: a table on stdout and bench-out/bench-rss-<timestamp>.json.
  * Exit status 1 when a run exceeds the documented bound `rssBoundBytes(--memory, workers)`.
@@ -49,16 +51,24 @@ async function main(): Promise<void> {
   const { values } = parseArgs({
     options: {
       'corpus-dir': { type: 'string' },
+      input: { type: 'string' },
       order: { type: 'string', default: '5' },
       memory: { type: 'string', default: '128MiB,256MiB,512MiB,1GiB' },
       workers: { type: 'string', default: '1,2' },
     },
   });
-  const corpusDir = resolve(values['corpus-dir'] ?? join(REPO, 'bench-out/corpus-20MB-few-large'));
-  if (!existsSync(join(corpusDir, '.gen-corpus.json'))) {
-    execFileSync(process.execPath, ['--import', 'tsx', join(REPO, 'scripts/gen-corpus.ts'), '--bytes', '20MB', '--shape', 'few-large', '--out', corpusDir], { stdio: 'inherit' });
+  let shards: string[];
+  if (values.input !== undefined) {
+    if (values['corpus-dir'] !== undefined) throw new Error('--input and --corpus-dir: give one');
+    if (!existsSync(values.input)) throw new Error(`--input: no file ${values.input}`);
+    shards = [resolve(values.input)];
+  } else {
+    const corpusDir = resolve(values['corpus-dir'] ?? join(REPO, 'bench-out/corpus-20MB-few-large'));
+    if (!existsSync(join(corpusDir, '.gen-corpus.json'))) {
+      execFileSync(process.execPath, ['--import', 'tsx', join(REPO, 'scripts/gen-corpus.ts'), '--bytes', '20MB', '--shape', 'few-large', '--out', corpusDir], { stdio: 'inherit' });
+    }
+    shards = readdirSync(corpusDir).filter((f) => f.startsWith('shard-')).map((f) => join(corpusDir, f));
   }
-  const shards = readdirSync(corpusDir).filter((f) => f.startsWith('shard-')).map((f) => join(corpusDir, f));
   const memories = values.memory.split(',').map(size);
   const workerCounts = values.workers.split(',').map(Number);
 
@@ -101,7 +111,7 @@ async function main(): Promise<void> {
     process.stdout.write(`largest excess with ${w} worker(s): ${(worst / MIB).toFixed(0)} MiB\n`);
   }
   const out = join(REPO, 'bench-out', `bench-rss-${new Date().toISOString().replace(/[:.]/g, '-')}.json`);
-  writeFileSync(out, JSON.stringify({ benchmark: 'scripts/bench-rss.ts', corpusDir, order: Number(values.order), idleRssBytes: idle.rssBytesMax, runs }, null, 1) + '\n');
+  writeFileSync(out, JSON.stringify({ benchmark: 'scripts/bench-rss.ts', inputs: shards, order: Number(values.order), idleRssBytes: idle.rssBytesMax, runs }, null, 1) + '\n');
   process.stdout.write(`results: ${out}\n`);
   if (runs.some((r) => !r.withinBound)) process.exitCode = 1;
 }

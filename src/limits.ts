@@ -135,12 +135,12 @@ export const VOCAB_BYTES_PER_TYPE = 120;
  *  (20 MB corpus, 151,733 types, order 5): at a 128 MiB budget, peak RSS was 280 MiB above it
  *  with 1 worker and 337 MiB with 2; DEVELOPERS.md states the bound. */
 export const PROCESS_OVERHEAD_BYTES = 256 << 20;
-/** Per worker: its thread's heap and code, and what it holds of the chunk it reads (a gzip range's
- *  text, a token file's blocks), about one chunk at the default 32 MiB (CHUNK_BYTES_TARGET). 64 MiB
- *  held on the 20 MB corpus (10 MB shards, so smaller chunks) up to 8 workers, but not on the 200 MB
- *  corpus's 32 MiB chunks: order 3, --memory 256MiB, 4 and 8 workers peaked at 807 and 1,303 MiB
- *  (plain shards) and 826 and 1,255 MiB (one gzip file), up to 99 MiB a worker beyond the process's
- *  256 (bench:rss, 2026-12-03). A larger --chunk-size adds about one chunk a worker. */
+/** Per worker: its thread's heap and code, and what the merge and continuation stages hold per
+ *  partition, where the peak comes (RSS sampled every 0.5 s: anonymous memory, not LMDB's mapped
+ *  pages). 64 MiB held up to 2 workers, but not beyond: the 200 MB corpus, order 3, --memory
+ *  256MiB, 4 and 8 workers peaked at 807 and 1,303 MiB (plain shards) and 826 and 1,255 MiB (one
+ *  gzip file); the 20 MB corpus, order 5, 8 workers, at 1,066 MiB in its continuation stage: up to
+ *  99 MiB a worker beyond the process's 256 (bench:rss and an RSS trace, 2026-12-03). */
 export const WORKER_OVERHEAD_BYTES = 128 << 20;
 
 /** Smallest counting budget per worker that still makes progress. */

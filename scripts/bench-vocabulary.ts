@@ -18,8 +18,8 @@ import { readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { fileURLToPath, pathToFileURL } from 'node:url';
 import { parseArgs } from 'node:util';
-import { seededRandom } from '../test/support/seeded.ts';
 import * as current from '../src/corpus/vocabulary.ts';
+import { Prng } from './lib/prng.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
@@ -37,9 +37,9 @@ const baseline = (await import(pathToFileURL(join(tree, 'src/corpus/vocabulary.t
 const parsed = current.parseVocabulary(readFileSync(values.vocab, 'utf8'), values.vocab);
 const pairs: Array<[string, number]> = [];
 for (let id = 1; id < parsed.words.length; id++) if (id !== parsed.eosId && id !== parsed.unkId) pairs.push([parsed.words[id], parsed.counts[id]]);
-const random = seededRandom(1);
+const random = new Prng(1);
 for (let i = pairs.length - 1; i > 0; i--) {
-  const j = Math.floor(random() * (i + 1));
+  const j = random.int(i + 1);
   [pairs[i], pairs[j]] = [pairs[j], pairs[i]];
 }
 const wordCounts = new Map(pairs);

@@ -21,7 +21,8 @@ export interface PlanOptions {
 const GZIP_SPLIT_RATIO = 4;
 
 /** How many times its compressed size a gzip input's text is taken to be, when weighing it against
- *  the other inputs: between the 2.5 measured on the benchmark's text and natural text's 3–4. */
+ *  the other inputs: between the 2.5 measured on the benchmark's text and natural text's 3–4 (from
+ *  memory). */
 const GZIP_TEXT_RATIO = 3;
 
 /** A gzip input is split when, as one chunk, it would hold at least 1/(this × workers) of all the
@@ -39,12 +40,23 @@ const GZIP_SPLIT_SHARE = 2;
  * is not decompressed an extra time.
  */
 export function splitsGzip(files: readonly InputFile[], index: number, chunkBytesTarget: number, workers: number): boolean {
+  return splitsGzipOf(files[index], textBytesOf(files), chunkBytesTarget, workers);
+}
+
+/** The text of `files` together, as `splitsGzip` weighs it (a gzip file's: GZIP_TEXT_RATIO × its size). */
+function textBytesOf(files: readonly InputFile[]): number {
+  return files.reduce((sum, f) => sum + textBytes(f), 0);
+}
+
+function textBytes(file: InputFile): number {
+  return file.gzip ? GZIP_TEXT_RATIO * file.bytes : file.bytes;
+}
+
+/** `splitsGzip` of `file` among inputs of `totalText` text bytes (textBytesOf). */
+function splitsGzipOf(file: InputFile, totalText: number, chunkBytesTarget: number, workers: number): boolean {
   assert(Number.isSafeInteger(workers) && workers >= 1, `workers ${workers} is a positive integer`);
-  const file = files[index];
   if (!file.gzip || file.bytes < chunkBytesTarget / GZIP_SPLIT_RATIO) return false;
-  const textOf = (f: InputFile): number => (f.gzip ? GZIP_TEXT_RATIO * f.bytes : f.bytes);
-  const total = files.reduce((sum, f) => sum + textOf(f), 0);
-  return textOf(file) * GZIP_SPLIT_SHARE * workers >= total;
+  return textBytes(file) * GZIP_SPLIT_SHARE * workers >= totalText;
 }
 
 /**
@@ -70,13 +82,15 @@ export async function planChunks(files: InputFile[], chunkBytesTarget: number, o
     throw new QuernError('config', `chunkBytesTarget: must be a positive integer, got ${chunkBytesTarget}`);
   }
   const chunks: Chunk[] = [];
+  // Once, not per file: a corpus may have 100,000 shards.
+  const totalText = options.splitGzipFor === undefined ? 0 : textBytesOf(files);
   for (let fileIndex = 0; fileIndex < files.length; fileIndex++) {
     const file = files[fileIndex];
     if (file.stdin === true) {
       chunks.push({ index: chunks.length, fileIndex, byteStart: 0, byteEnd: 0 });
       continue;
     }
-    if (options.splitGzipFor !== undefined && splitsGzip(files, fileIndex, chunkBytesTarget, options.splitGzipFor.workers)) {
+    if (options.splitGzipFor !== undefined && splitsGzipOf(file, totalText, chunkBytesTarget, options.splitGzipFor.workers)) {
       // Decompressed once here to find where its text's chunks end (TextPieces' cut, the bytes not
       // kept): the count's vocabulary pass cuts it again and hands the pieces to its workers.
       const ranges: Chunk[] = [];

@@ -6,12 +6,12 @@
  */
 import { isUtf8 } from 'node:buffer';
 import { createReadStream } from 'node:fs';
-import { createGunzip } from 'node:zlib';
 import { assert, formatLocation, ioError, QuernError, type InputLocation } from '../errors.ts';
 import { LINE_BYTES_MAX, READ_BLOCK_BYTES, SKIPPED_SAMPLES_PER_FILE_MAX } from '../limits.ts';
 import { makeRecordReader, type RecordReader } from './jsonl.ts';
+import { fileText } from './text-stream.ts';
 import { countNewlines, forEachLine, isBlankLine } from './lines.ts';
-import { isChunkPiece, isTextRange, type Chunk, type ChunkPiece, type InputFile, type ReadOptions, type ReadStats, type SkippedSample } from './types.ts';
+import { isChunkPiece, isTextRange, ofStdin, type Chunk, type ChunkPiece, type InputFile, type ReadOptions, type ReadStats, type SkippedSample } from './types.ts';
 
 /** Receives one sentence: the raw text of a line (no normalisation yet), never blank, and the line
  *  it is on, counted from 1 at the chunk's first line (JSONL: the record's line; each line of its
@@ -205,20 +205,13 @@ async function readPiece(piece: ChunkPiece, reader: LineReader, onProgress: Prog
  * read its token file, and come here only without those (`--no-token-files`).
  */
 async function readGzip(file: InputFile, reader: LineReader, onProgress: ProgressHandler | undefined, range?: Chunk): Promise<void> {
-  const source = createReadStream(file.path, { highWaterMark: READ_BLOCK_BYTES });
-  const gunzip = createGunzip({ chunkSize: READ_BLOCK_BYTES });
-  let sourceError: unknown;
-  source.on('error', (cause) => {
-    sourceError = cause;
-    gunzip.destroy(cause);
-  });
-  source.pipe(gunzip);
+  const text = fileText(file);
   // Offset in the decompressed text of the next block.
   let offset = 0;
   let rangeRead = 0;
   try {
     await forEachBlock(
-      gunzip,
+      text.blocks,
       (block) => {
         if (range !== undefined) {
           const start = Math.max(range.byteStart - offset, 0);
@@ -231,18 +224,17 @@ async function readGzip(file: InputFile, reader: LineReader, onProgress: Progres
           return onProgress?.(rangeRead);
         }
         reader.push(block);
-        reader.stats.bytesRead = source.bytesRead;
-        return onProgress?.(source.bytesRead);
+        reader.stats.bytesRead = text.bytesRead;
+        return onProgress?.(text.bytesRead);
       },
       (cause) => {
-        if (sourceError !== undefined) return ioError('read', file.path, sourceError);
         const at = reader.currentLine();
-        return gzipError(file, { lineInChunk: at.lineInChunk + (range?.linesBefore ?? 0), byteOffset: at.byteOffset }, cause);
+        return text.failure(cause, { lineInChunk: at.lineInChunk + (range?.linesBefore ?? 0), byteOffset: at.byteOffset });
       },
       range === undefined ? undefined : () => offset >= range.byteEnd,
     );
   } finally {
-    source.destroy();
+    await text.close();
   }
   if (range !== undefined) {
     if (rangeRead !== range.byteEnd - range.byteStart) {
@@ -251,10 +243,8 @@ async function readGzip(file: InputFile, reader: LineReader, onProgress: Progres
     reader.finish();
     return;
   }
-  reader.stats.bytesRead = source.bytesRead;
-  if (source.bytesRead !== file.bytes) {
-    throw new QuernError('input', `${file.path} changed since it was discovered: ${source.bytesRead} bytes read, ${file.bytes} expected`);
-  }
+  reader.stats.bytesRead = text.bytesRead;
+  text.checkEnd();
   reader.finish();
 }
 
@@ -263,12 +253,12 @@ async function readGzip(file: InputFile, reader: LineReader, onProgress: Progres
  * goes through `streamError`; whatever `onBlock` throws passes unchanged. The stream is closed either way.
  */
 async function forEachBlock(
-  stream: AsyncIterable<Buffer>,
+  stream: AsyncIterable<Buffer> | AsyncIterator<Buffer>,
   onBlock: (block: Buffer) => void | Promise<void>,
   streamError: (cause: unknown) => Error,
   done?: () => boolean,
 ): Promise<void> {
-  const iterator = stream[Symbol.asyncIterator]();
+  const iterator = Symbol.asyncIterator in stream ? stream[Symbol.asyncIterator]() : stream;
   try {
     for (;;) {
       if (done?.()) return;
@@ -286,21 +276,6 @@ async function forEachBlock(
     // Closing an already failed or finished stream can only repeat its error; the first one counts.
     await iterator.return?.().catch(() => undefined);
   }
-}
-
-export function gzipError(file: InputFile, at: { lineInChunk: number; byteOffset: number }, cause: unknown): QuernError {
-  const location: InputLocation = { file: file.path, line: at.lineInChunk, byteOffset: at.byteOffset };
-  const reason = (cause as Error | undefined)?.message ?? String(cause);
-  return new QuernError(
-    'input',
-    `${formatLocation(location)}${ofStdin(file)}: truncated or corrupt gzip data (${reason}); the byte offset is in the decompressed stream`,
-    { cause, location },
-  );
-}
-
-/** After a location in `-`, what `-` is. */
-function ofStdin(file: InputFile): string {
-  return file.stdin === true ? ' of standard input' : '';
 }
 
 /** A bad line found while reading; turned into a QuernError with the absolute line number. */

@@ -6,10 +6,9 @@
 import { createReadStream } from 'node:fs';
 import type { Readable, Transform } from 'node:stream';
 import { createGunzip } from 'node:zlib';
-import { ioError, QuernError } from '../errors.ts';
+import { formatLocation, ioError, QuernError, type InputLocation } from '../errors.ts';
 import { READ_BLOCK_BYTES } from '../limits.ts';
-import { gzipError } from './read.ts';
-import { inputName, type InputFile } from './types.ts';
+import { inputName, ofStdin, type InputFile } from './types.ts';
 
 export class TextStream {
   /** Blocks of the text (decompressed for gzip), in order. */
@@ -84,4 +83,15 @@ export class TextStream {
 /** The text of the file `file` from its start (gunzipped if it is gzip), of the size discovered. */
 export function fileText(file: InputFile): TextStream {
   return new TextStream(file, createReadStream(file.path, { highWaterMark: READ_BLOCK_BYTES }), file.bytes);
+}
+
+/** The error for gzip data that breaks off or is corrupt, `at` the line where the text stopped. */
+export function gzipError(file: InputFile, at: { lineInChunk: number; byteOffset: number }, cause: unknown): QuernError {
+  const location: InputLocation = { file: file.path, line: at.lineInChunk, byteOffset: at.byteOffset };
+  const reason = (cause as Error | undefined)?.message ?? String(cause);
+  return new QuernError(
+    'input',
+    `${formatLocation(location)}${ofStdin(file)}: truncated or corrupt gzip data (${reason}); the byte offset is in the decompressed stream`,
+    { cause, location },
+  );
 }

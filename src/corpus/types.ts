@@ -26,6 +26,11 @@ export function inputName(file: InputFile): string {
   return file.stdin === true ? 'standard input' : file.path;
 }
 
+/** Said after a location in `-` (standard input), what `-` is; nothing for a file. */
+export function ofStdin(file: InputFile): string {
+  return file.stdin === true ? ' of standard input' : '';
+}
+
 /**
  * A unit of reading work: a line-aligned byte range of one input. A plain file may be split into
  * several chunks; a gzip file is one chunk covering the whole file, or (planned so, for the count)

@@ -110,6 +110,17 @@ export const COUNTER_BATCH_POSITIONS = 1 << 14;
  *  rate; at 16 bits per n-gram counting was slower than at 4–8. */
 export const COUNTER_FILTER_BITS_PER_ENTRY = 4;
 
+/** Distinct n-grams per occurrence, as a count worker's last spill of an order found them, from
+ *  which that order's counter is append-only (counter.ts): every occurrence a row of the log, no
+ *  filter or table. In 32 MiB chunks of the benchmark corpus the share is 0.45 at order 2, 0.75 at
+ *  3, 0.89 at 4 and 0.95 at 5; appending orders 3 to 5 made the count stage ~0.9× as long at order 5
+ *  (DEVELOPERS.md, Benchmarks), appending order 2 as well gained nothing more. */
+export const COUNTER_APPEND_DISTINCT_MIN = 0.6;
+
+/** The order from which a count worker's counters start append-only, before any spill has shown
+ *  their share of distinct n-grams: in text most n-grams of order 3 and up are new within a chunk. */
+export const COUNTER_APPEND_ORDER_MIN = 3;
+
 /** A counter structure (table, log, filter) more than this many times larger than the next chunk
  *  is expected to need is shrunk before the chunk (CounterSet.presize): clearing a table or a
  *  filter and finding a table's entries at a spill cost time in proportion to its size, which

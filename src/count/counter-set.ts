@@ -12,7 +12,7 @@
  * charged in place of the scratch then (`chargedBytes`), since no spill runs meanwhile.
  */
 import { assert } from '../errors.ts';
-import { COUNTER_LOG_ROWS_MIN, COUNTER_PRESIZE_SHRINK_FACTOR, COUNTER_SLOTS_MIN } from '../limits.ts';
+import { COUNTER_APPEND_DISTINCT_MIN, COUNTER_LOG_ROWS_MIN, COUNTER_PRESIZE_SHRINK_FACTOR, COUNTER_SLOTS_MIN } from '../limits.ts';
 import { filterBitsFor, NgramCounter } from './counter.ts';
 import { combine32, HASH_SEED, ngramHash } from './hash.ts';
 
@@ -80,8 +80,17 @@ export interface CounterNeed {
   tableEntries: number;
 }
 
+/** How a CounterSet runs its counters. */
+export interface CounterSetOptions {
+  /** Counters of this order and up start append-only (counter.ts), and after each spill every
+   *  counter of order ≥ 2 is append-only when that spill found at least
+   *  COUNTER_APPEND_DISTINCT_MIN distinct n-grams per occurrence. Without it, none ever is. */
+  appendFrom?: number;
+}
+
 export class CounterSet {
   readonly counters: NgramCounter[];
+  private readonly adaptive: boolean;
   private scratch: Uint32Array | undefined;
   /** addSentences' running hash of each position, from one order to the next. */
   private hashes = new Int32Array(1 << 12);
@@ -93,10 +102,12 @@ export class CounterSet {
    *   by id (the count pass) if that takes at most a quarter of the budget; otherwise in a hash
    *   table like the other orders
    */
-  constructor(order: number, readonly bytesMax: number, idMax?: number) {
+  constructor(order: number, readonly bytesMax: number, idMax?: number, options: CounterSetOptions = {}) {
     const dense = idMax !== undefined && 4 * chargedBytes([{ order: 1, slots: 0, logRows: 0, filterBits: 0, denseIds: idMax }]) <= bytesMax;
     this.counters = [];
     for (let n = 1; n <= order; n++) this.counters.push(new NgramCounter(n, undefined, undefined, undefined, n === 1 && dense ? idMax : undefined));
+    this.adaptive = options.appendFrom !== undefined;
+    if (options.appendFrom !== undefined) for (const c of this.counters) if (c.logged && c.order >= options.appendFrom) c.setAppendOnly(true);
     assert(this.chargedTotal() <= bytesMax, `budget ${bytesMax} B below the counters' minimum ${this.chargedTotal()} B`);
   }
 
@@ -130,8 +141,8 @@ export class CounterSet {
         const shapes = counters.map(shapeOf);
         const shape = shapes[n];
         shape.logRows = Math.max(2 * shape.logRows, counter.size + needed);
-        // The filter keeps its bits per row as the log grows.
-        shape.filterBits = Math.max(shape.filterBits, filterBitsFor(shape.logRows));
+        // The filter keeps its bits per row as the log grows (an append-only counter reads none).
+        if (!counter.appendOnly) shape.filterBits = Math.max(shape.filterBits, filterBitsFor(shape.logRows));
         if (chargedBytes(shapes, counter.log.byteLength + shape.filterBits / 8) > this.bytesMax) return false;
         counter.resizeLog(shape.logRows);
         if (shape.filterBits !== counter.filterBits) counter.resizeFilter(shape.filterBits, ngramHash);
@@ -160,7 +171,7 @@ export class CounterSet {
         order: c.order,
         slots: resized(c.slots, slotsFor(Math.max(0, c.order === 1 ? need.entries : need.tableEntries))),
         logRows,
-        filterBits: c.order === 1 ? 0 : resized(c.filterBits, filterBitsFor(logRows)),
+        filterBits: c.order === 1 ? 0 : resized(c.filterBits, filterBitsFor(c.appendOnly ? 0 : logRows)),
       };
     });
     // Structures are replaced one at a time, those that shrink first: while one is replaced, the
@@ -278,9 +289,29 @@ export class CounterSet {
     return this.scratch;
   }
 
-  /** Empties every counter, keeping its memory; drops the spill scratch. */
+  /** Empties every counter, keeping its memory; drops the spill scratch. An adaptive set then
+   *  chooses each counter's mode from what its last spill found. */
   clear(): void {
     this.scratch = undefined;
-    for (const c of this.counters) c.clear();
+    for (const c of this.counters) {
+      c.clear();
+      if (this.adaptive && c.logged && !Number.isNaN(c.distinctShare)) this.setMode(c, c.distinctShare >= COUNTER_APPEND_DISTINCT_MIN);
+    }
+  }
+
+  /**
+   * Puts an empty counter in a mode, with a filter to match: an append-only counter's shrinks to
+   * the least (it reads none, and the memory goes to the log), a filtering one's grows to its bits
+   * per log row when the budget allows (else it grows with the log, as in `reserve`).
+   */
+  private setMode(counter: NgramCounter, append: boolean): void {
+    if (counter.appendOnly === append) return;
+    counter.setAppendOnly(append);
+    const bits = filterBitsFor(append ? 0 : counter.logCapacity);
+    if (bits === counter.filterBits) return;
+    const shapes = this.counters.map(shapeOf);
+    shapes[counter.order - 1].filterBits = bits;
+    if (!append && chargedBytes(shapes, counter.filterBits / 8) > this.bytesMax) return;
+    counter.resizeFilter(bits, ngramHash);
   }
 }

@@ -13,7 +13,9 @@
  *  4. the sorted rows are split into the ids and the counts the run-file writer takes; an n-gram
  *     with a row in both the log and the table becomes one record with the sum of the counts.
  * The gathering array and the scratch take turns as source and target. The counter's contents are
- * destroyed: the owner must `clear()` it afterwards (spillCounterSet does).
+ * destroyed: the owner must `clear()` it afterwards (spillCounterSet does). The counter keeps the
+ * share of distinct n-grams among the entries added (`distinctShare`), for its owner to choose its
+ * mode by (CounterSet.clear).
  */
 import { assert } from '../errors.ts';
 import { partitionOf } from './hash.ts';
@@ -109,6 +111,7 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
     records[p] = splitRows(source, target, begin, end, stride, order, counter.logged);
     outputs.push(target);
   }
+  noteDistinctShare(counter, records);
   return {
     recordsOf: (p) => records[p],
     keysOf: (p) => outputs[p].subarray(partitionStarts[p] * stride, partitionStarts[p] * stride + records[p] * order),
@@ -118,6 +121,13 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
     },
   };
 }
+/** Records on the counter the distinct n-grams per entry added since it was cleared. */
+function noteDistinctShare(counter: NgramCounter, records: Uint32Array): void {
+  let distinct = 0;
+  for (const r of records) distinct += r;
+  if (counter.added > 0) counter.distinctShare = distinct / counter.added;
+}
+
 /**
  * The spill order of a counter indexed by id: its ids are already in order, so one counting pass by
  * partition puts them, with their counts, straight into the layout the run-file writer takes.

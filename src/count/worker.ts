@@ -8,7 +8,7 @@
  */
 import { parentPort, threadId, workerData } from 'node:worker_threads';
 import { assert, QuernError } from '../errors.ts';
-import { COUNTER_BATCH_POSITIONS } from '../limits.ts';
+import { COUNTER_APPEND_ORDER_MIN, COUNTER_BATCH_POSITIONS } from '../limits.ts';
 import { RESERVED_WORDS, reserveWords, type TokenBlock } from '../corpus/byte-tokenizer.ts';
 import { TokenReader } from '../corpus/read-tokens.ts';
 import { BOS_ID } from '../corpus/vocabulary.ts';
@@ -163,7 +163,7 @@ let countState: CountState | undefined;
 let needsPerByte: CounterNeed[] | undefined;
 
 function countStateOf(): CountState {
-  countState ??= { text: undefined, counters: new CounterSet(init.order, init.counterBytesMax!, init.words!.length) };
+  countState ??= { text: undefined, counters: new CounterSet(init.order, init.counterBytesMax!, init.words!.length, { appendFrom: COUNTER_APPEND_ORDER_MIN }) };
   return countState;
 }
 

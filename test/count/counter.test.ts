@@ -103,6 +103,45 @@ describe('NgramCounter', () => {
   });
 });
 
+describe('NgramCounter, append-only', () => {
+  test('every occurrence is a row of the log, counted like a Map; the spill adds up equal rows and notes the distinct share', () => {
+    const random = seededRandom(31);
+    for (let order = 2; order <= 6; order++) {
+      const counter = new NgramCounter(order, 16, 8, 32);
+      counter.setAppendOnly(true);
+      const naive = new Map<string, number>();
+      const ids = new Uint32Array(order);
+      const occurrences = 3000;
+      for (let i = 0; i < occurrences; i++) {
+        for (let k = 0; k < order; k++) ids[k] = Math.floor(random() ** 3 * 30);
+        addGrowing(counter, ids, 0);
+        const key = Array.from(ids).join(',');
+        naive.set(key, (naive.get(key) ?? 0) + 1);
+      }
+      expect(counter.tableSize).toBe(0);
+      expect(counter.logCount).toBe(occurrences);
+      expect(counter.added).toBe(occurrences);
+      expect(naive.size).toBeLessThan(occurrences); // repeats, which the sort must add up
+      expect(entries(counter)).toEqual(naive);
+      const sorted = spillOrder(counter, 3, 30, new Uint32Array(counter.size * (order + 1)));
+      const seen = new Map<string, number>();
+      for (let p = 0; p < 3; p++) {
+        const keys = sorted.keysOf(p);
+        for (let j = 0; j < sorted.recordsOf(p); j++) seen.set(Array.from(keys.subarray(j * order, (j + 1) * order)).join(','), sorted.countsOf(p)[j]);
+      }
+      expect(seen).toEqual(naive);
+      expect(counter.distinctShare).toBe(naive.size / occurrences);
+    }
+  });
+
+  test('the mode is set on an empty counter of order ≥ 2 only', () => {
+    const counter = new NgramCounter(2);
+    counter.add(new Uint32Array([1, 2]), 0, 5);
+    expect(() => counter.setAppendOnly(true)).toThrow(/empty/);
+    expect(() => new NgramCounter(1).setAppendOnly(true)).toThrow(/order-1/);
+  });
+});
+
 describe('spillOrder', () => {
   test('orders entries by partition, then lexicographically by ids, with their counts', () => {
     const random = seededRandom(11);
@@ -276,6 +315,56 @@ describe('CounterSet', () => {
     set.clear();
     expect(entries(set.counters[0]).size).toBe(0);
     expect(new CounterSet(2, 4 << 20, 1_000_000).counters[0].dense).toBe(false);
+  });
+
+  test('an adaptive set starts orders ≥ appendFrom append-only, then sets each mode from its last spill, counting the same', () => {
+    const random = seededRandom(41);
+    /** `count` sentences of `length` words drawn by `word`, wrapped in <s> = 0 and </s> = 1. */
+    const batch = (count: number, length: number, word: () => number): { ids: Uint32Array; starts: Uint32Array } => {
+      const starts = new Uint32Array(count + 1);
+      for (let s = 0; s < count; s++) starts[s + 1] = starts[s] + length + 2;
+      const ids = new Uint32Array(starts[count]);
+      for (let s = 0; s < count; s++) {
+        ids[starts[s]] = 0;
+        for (let i = 1; i <= length; i++) ids[starts[s] + i] = word();
+        ids[starts[s + 1] - 1] = 1;
+      }
+      return { ids, starts };
+    };
+    const adaptive = new CounterSet(4, 1 << 24, undefined, { appendFrom: 3 });
+    const plain = new CounterSet(4, 1 << 24);
+    const modes = (): boolean[] => adaptive.counters.map((c) => c.appendOnly);
+    expect(modes()).toEqual([false, false, true, true]);
+    expect(plain.counters.map((c) => c.appendOnly)).toEqual([false, false, false, false]);
+    const countBoth = (ids: Uint32Array, starts: Uint32Array, sentences: number): void => {
+      for (const set of [adaptive, plain]) {
+        expect(set.reserve(ids.length)).toBe(true);
+        set.addSentences(ids, starts, 0, sentences);
+      }
+      expect(adaptive.counters.map(entries)).toEqual(plain.counters.map(entries));
+    };
+    const spill = (set: CounterSet): void => {
+      for (const c of set.counters) spillOrder(c, 5, 1 << 20, set.sortScratch());
+      set.clear();
+    };
+    // Three words over and over: at every order most n-grams repeat, so the spill turns the
+    // append-only orders into filtering ones, with a filter of their bits per log row.
+    const repetitive = batch(200, 12, () => 2 + Math.floor(random() * 3));
+    countBoth(repetitive.ids, repetitive.starts, 200);
+    spill(adaptive);
+    spill(plain);
+    expect(adaptive.counters[2].distinctShare).toBeLessThan(0.1);
+    expect(modes()).toEqual([false, false, false, false]);
+    for (const c of adaptive.counters.slice(1)) expect(c.filterBits).toBe(filterBitsFor(c.logCapacity));
+    // A million words: nearly every n-gram is new, so every order ≥ 2 turns append-only, its filter
+    // shrunk to the least.
+    const fresh = batch(200, 12, () => 2 + Math.floor(random() * 1_000_000));
+    countBoth(fresh.ids, fresh.starts, 200);
+    spill(adaptive);
+    expect(modes()).toEqual([false, true, true, true]);
+    for (const c of adaptive.counters.slice(1)) expect(c.filterBits).toBe(filterBitsFor(0));
+    spill(plain);
+    countBoth(repetitive.ids, repetitive.starts, 200);
   });
 
   test('sortScratch fits the largest counter\'s rows; clear drops it', () => {

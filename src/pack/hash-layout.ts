@@ -401,10 +401,10 @@ export class HashedOrder {
     const layout = this.layout;
     const key = readBits(this.words, slot * layout.recordBits, this.keyMask);
     const word = key & this.wordMask;
-    assert(word !== 0, `slot ${slot} holds a record`);
+    if (word === 0) assert(false, `slot ${slot} holds a record`);
     const home = (slot >>> this.bucketShift) - ((key >>> this.displacementShift) & this.displacementMask);
     const context = this.contextOf(home, word, (key >>> layout.wordBits) & this.remainderMask);
-    assert(context >= 0, `slot ${slot}: its remainder names a z of its home`);
+    if (context < 0) assert(false, `slot ${slot}: its remainder names a z of its home`);
     return context;
   }
 }

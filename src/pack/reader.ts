@@ -1792,7 +1792,7 @@ export class PackedModel {
         continue;
       }
       // A row of order n: row `emitted` of the order, since depth first visits them in row order.
-      assert(row === emitted, `order ${n}: rows are visited in order`);
+      if (row !== emitted) assert(false, `order ${n}: rows are visited in order`);
       ids.set(path, filled * n);
       const level = hot[n];
       log10Prob[filled] = valueOf(level.prob, level.probBook, row);

@@ -67,7 +67,7 @@ export function checkCountOfCounts(countOfCounts: CountOfCounts, what: string): 
 export function countOfCountsFromCounts(counts: Iterable<number>): CountOfCounts {
   const byR = new Map<number, number>();
   for (const count of counts) {
-    assert(Number.isSafeInteger(count) && count >= 1, `counts must be integers ≥ 1 (got ${count})`);
+    if (!(Number.isSafeInteger(count) && count >= 1)) assert(false, `counts must be integers ≥ 1 (got ${count})`);
     byR.set(count, (byR.get(count) ?? 0) + 1);
   }
   return [...byR.entries()].sort((a, b) => a[0] - b[0]);

@@ -40,6 +40,13 @@ export function putVarU32(buf: Uint8Array, p: number, value: number): number {
     buf[p + 1] = value >>> 7;
     return p + 2;
   }
+  if (value < 0x20_0000) {
+    // Three bytes: most ids of a vocabulary of thousands of words.
+    buf[p] = value | 0x80;
+    buf[p + 1] = (value >>> 7) | 0x80;
+    buf[p + 2] = value >>> 14;
+    return p + 3;
+  }
   let v = value;
   while (v > 0x7f) {
     buf[p++] = (v & 0x7f) | 0x80;

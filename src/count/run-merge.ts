@@ -129,16 +129,20 @@ class LoserTreeMerger {
    */
   fill(): number {
     const order = this.order;
+    const k = this.sourceCount;
     const heads = this.heads;
     const headCounts = this.headCounts;
+    const tree = this.tree;
+    const batches = this.batches;
+    const rowIndexes = this.rowIndexes;
     const outKeys = this.outKeys;
     const outCounts = this.outCounts;
     let outSize = this.outSize;
     for (;;) {
-      const w = this.tree[0];
-      if (this.sourceCount === 0 || this.exhausted[w] !== 0) {
+      const w = tree[0];
+      if (k === 0 || this.exhausted[w] !== 0) {
         // The winner sorts above every row only when every source is used up.
-        for (let s = 0; s < this.sourceCount; s++) if (this.exhausted[s] === 0) assert(false, `${this.sourceNames[s]} holds a row of ids ${EXHAUSTED_ID}, above every word id`);
+        for (let s = 0; s < k; s++) if (this.exhausted[s] === 0) assert(false, `${this.sourceNames[s]} holds a row of ids ${EXHAUSTED_ID}, above every word id`);
         this.outSize = outSize;
         return FILL_DONE;
       }
@@ -166,17 +170,33 @@ class LoserTreeMerger {
         outCounts[outSize] = headCounts[w];
         outSize += 1;
       }
-      const batch = this.batches[w] as RunBatch;
-      const row = this.rowIndexes[w] + 1;
+      const batch = batches[w] as RunBatch;
+      const row = rowIndexes[w] + 1;
       if (row === batch.recordCount) {
         this.outSize = outSize;
         return w;
       }
-      this.rowIndexes[w] = row;
+      rowIndexes[w] = row;
       const keys = batch.keys;
       for (let j = 0, r = row * order; j < order; j++, r++) heads[h + j] = keys[r];
       headCounts[w] = batch.counts[row];
-      this.replay(w);
+      // The replay (`replay`), with the comparison (`less`) written out.
+      let winner = w;
+      for (let p = (w + k) >> 1; p >= 1; p >>= 1) {
+        const contender = tree[p];
+        let i = contender * order;
+        let j = winner * order;
+        const end = i + order;
+        while (i < end && heads[i] === heads[j]) {
+          i++;
+          j++;
+        }
+        if (i === end ? contender < winner : heads[i] < heads[j]) {
+          tree[p] = winner;
+          winner = contender;
+        }
+      }
+      tree[0] = winner;
     }
   }
 

@@ -110,6 +110,11 @@ export const COUNTER_BATCH_POSITIONS = 1 << 14;
  *  rate; at 16 bits per n-gram counting was slower than at 4–8. */
 export const COUNTER_FILTER_BITS_PER_ENTRY = 4;
 
+/** Largest vocabulary (ids) for which a spill looks partitions up in a table of every id's
+ *  (spill-sort.ts): 2 bytes an id, 8 MiB at most per worker, within its fixed overhead; above it
+ *  each row's partition is hashed. */
+export const PARTITION_TABLE_IDS_MAX = 1 << 22;
+
 /** Distinct n-grams per occurrence, as a count worker's last spill of an order found them, from
  *  which that order's counter is append-only (counter.ts): every occurrence a row of the log, no
  *  filter or table. In 32 MiB chunks of the benchmark corpus the share is 0.45 at order 2, 0.75 at

@@ -18,6 +18,7 @@
  * mode by (CounterSet.clear).
  */
 import { assert } from '../errors.ts';
+import { PARTITION_TABLE_IDS_MAX } from '../limits.ts';
 import { partitionOf } from './hash.ts';
 import { scatterRows } from './radix.ts';
 import type { NgramCounter } from './counter.ts';
@@ -56,10 +57,14 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   const partitionStarts = new Uint32Array(partitions + 1);
   let rows = 0;
   let idBitsAll = 0;
+  // The partition depends on one id of the row (partitionOf): looked up in a table of every id's
+  // when the vocabulary is small enough for one.
+  const partitionOfId = partitionTable(idMax, partitions);
+  const keyWord = order === 1 ? 1 : order - 1;
   for (; rows < counter.logCount; rows++) {
     const base = rows * stride;
     for (let w = 1; w < stride; w++) idBitsAll |= front[base + w];
-    const partition = partitionOf(front, base + 1, order, partitions);
+    const partition = partitionOfId === undefined ? partitionOf(front, base + 1, order, partitions) : tablePartition(partitionOfId, front[base + keyWord]);
     partitionOfRow[rows] = partition;
     partitionStarts[partition + 1]++;
   }
@@ -69,7 +74,7 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
     const to = rows * stride;
     if (front !== table || from !== to) for (let w = 0; w < stride; w++) front[to + w] = table[from + w];
     for (let w = 1; w < stride; w++) idBitsAll |= front[to + w];
-    const partition = partitionOf(front, to + 1, order, partitions);
+    const partition = partitionOfId === undefined ? partitionOf(front, to + 1, order, partitions) : tablePartition(partitionOfId, front[to + keyWord]);
     partitionOfRow[rows++] = partition;
     partitionStarts[partition + 1]++;
   }
@@ -121,6 +126,36 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
     },
   };
 }
+/** The last table `partitionTable` made, kept while its bound and partitions stay the same (a
+ *  worker's spills all ask for one). */
+let partitionTableCache: { idMax: number; partitions: number; table: Uint16Array } | undefined;
+
+/**
+ * partitionOf of every word id below `idMax` (the key id of an n-gram: its context's last word,
+ * or a unigram's word), as a table: one load per row instead of a hash and a modulo. Undefined
+ * when idMax is above PARTITION_TABLE_IDS_MAX.
+ */
+export function partitionTable(idMax: number, partitions: number): Uint16Array | undefined {
+  if (idMax > PARTITION_TABLE_IDS_MAX) return undefined;
+  const cached = partitionTableCache;
+  if (cached !== undefined && cached.idMax === idMax && cached.partitions === partitions) return cached.table;
+  assert(Number.isInteger(idMax) && idMax >= 1, `a partition table for ids below ${idMax}`);
+  const table = new Uint16Array(idMax);
+  const key = new Uint32Array(1);
+  for (let id = 0; id < idMax; id++) {
+    key[0] = id;
+    table[id] = partitionOf(key, 0, 1, partitions);
+  }
+  partitionTableCache = { idMax, partitions, table };
+  return table;
+}
+
+/** The partition of key id `key` from a partition table, which must cover it. */
+function tablePartition(table: Uint16Array, key: number): number {
+  if (!(key < table.length)) assert(false, `id ${key} within the partition table's bound ${table.length}`);
+  return table[key];
+}
+
 /** Records on the counter the distinct n-grams per entry added since it was cleared. */
 function noteDistinctShare(counter: NgramCounter, records: Uint32Array): void {
   let distinct = 0;

@@ -2,8 +2,8 @@ import { describe, expect, test } from 'vitest';
 import { filterBitsFor, NgramCounter } from '../../src/count/counter.ts';
 import { chargedBytes, counterBytes, CounterSet, slotsFor, sortScratchBytes, type CounterShape } from '../../src/count/counter-set.ts';
 import { ngramHash, partitionOf } from '../../src/count/hash.ts';
-import { spillOrder } from '../../src/count/spill-sort.ts';
-import { COUNTER_FILTER_BITS_PER_ENTRY, COUNTER_LOG_ROWS_MIN, COUNTER_PRESIZE_SHRINK_FACTOR, COUNTER_SLOTS_MIN } from '../../src/limits.ts';
+import { partitionTable, spillOrder } from '../../src/count/spill-sort.ts';
+import { COUNTER_FILTER_BITS_PER_ENTRY, COUNTER_LOG_ROWS_MIN, COUNTER_PRESIZE_SHRINK_FACTOR, COUNTER_SLOTS_MIN, PARTITION_TABLE_IDS_MAX } from '../../src/limits.ts';
 import { seededRandom } from '../support/seeded.ts';
 
 /** Every n-gram of a counter with its count (log and table rows of one n-gram added up), keyed by the ids joined with ','. */
@@ -179,6 +179,15 @@ describe('spillOrder', () => {
       expect(total).toBe(naive.size);
       expect(seen).toEqual(naive);
     }
+  });
+
+  test('the partition table gives partitionOf of every id, and is not made for a vocabulary above its limit', () => {
+    for (const partitions of [1, 7, 16]) {
+      const table = partitionTable(5000, partitions)!;
+      expect(table.length).toBe(5000);
+      for (let id = 0; id < 5000; id++) expect(table[id]).toBe(partitionOf([id], 0, 1, partitions));
+    }
+    expect(partitionTable(PARTITION_TABLE_IDS_MAX + 1, 16)).toBeUndefined();
   });
 
   test('one partition, and a counter whose ids all share their high digits', () => {

@@ -20,6 +20,9 @@ export function scatterRows(
   const first = begin * stride;
   const last = end * stride;
   switch (stride) {
+    case 1:
+      for (let from = first; from < last; from++) target[offsets[(source[from + word] >>> shift) & mask]++] = source[from];
+      return;
     case 2:
       for (let from = first; from < last; from += 2) {
         const to = offsets[(source[from + word] >>> shift) & mask]++ * 2;

@@ -12,6 +12,8 @@
  *     of all the passes come from one read of the rows before the first pass;
  *  4. the sorted rows are split into the ids and the counts the run-file writer takes; an n-gram
  *     with a row in both the log and the table becomes one record with the sum of the counts.
+ * Rows all of count 1 with no table entry (an append-only counter's log) take steps 2–4 as packed
+ * keys, without their counts (`packedOrder`).
  * The gathering array and the scratch take turns as source and target. The counter's contents are
  * destroyed: the owner must `clear()` it afterwards (spillCounterSet does). The counter keeps the
  * share of distinct n-grams among the entries added (`distinctShare`), for its owner to choose its
@@ -57,6 +59,7 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   const partitionStarts = new Uint32Array(partitions + 1);
   let rows = 0;
   let idBitsAll = 0;
+  let countsAllOne = true;
   // The partition depends on one id of the row (partitionOf): looked up in a table of every id's
   // when the vocabulary is small enough for one.
   const partitionOfId = partitionTable(idMax, partitions);
@@ -64,6 +67,7 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   for (; rows < counter.logCount; rows++) {
     const base = rows * stride;
     for (let w = 1; w < stride; w++) idBitsAll |= front[base + w];
+    if (front[base] !== 1) countsAllOne = false;
     const partition = partitionOfId === undefined ? partitionOf(front, base + 1, order, partitions) : tablePartition(partitionOfId, front[base + keyWord]);
     partitionOfRow[rows] = partition;
     partitionStarts[partition + 1]++;
@@ -82,8 +86,23 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   const idBits = Math.max(1, 32 - Math.clz32(idBitsAll));
   assert(idMax > 0 && (idBitsAll >>> 0) < 2 ** Math.max(1, 32 - Math.clz32(idMax)), `ids within the bound idMax = ${idMax}`);
 
-  // 2. By partition, front → scratch.
   for (let p = 0; p < partitions; p++) partitionStarts[p + 1] += partitionStarts[p];
+  // Rows that are all of count 1 and hold no table entry (an append-only counter's log) are
+  // sorted as packed keys, without their counts (packedOrder).
+  if (counter.logged && counter.tableSize === 0 && countsAllOne && order >= 2) {
+    const records = packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts);
+    noteDistinctShare(counter, records);
+    return {
+      recordsOf: (p) => records[p],
+      keysOf: (p) => front.subarray(partitionStarts[p] * stride, partitionStarts[p] * stride + records[p] * order),
+      countsOf: (p) => {
+        const countsAt = partitionStarts[p] * stride + (partitionStarts[p + 1] - partitionStarts[p]) * order;
+        return front.subarray(countsAt, countsAt + records[p]);
+      },
+    };
+  }
+
+  // 2. By partition, front → scratch.
   const next = partitionStarts.slice(0, partitions);
   for (let j = 0; j < m; j++) {
     const from = j * stride;
@@ -126,6 +145,97 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
     },
   };
 }
+/**
+ * The sort of rows whose counts are all 1 (rows 0..m−1 of `front`, count then `order` ids of
+ * `idBits` bits), each row packed into K = ⌈order·idBits / 32⌉ words: its ids as one bit string,
+ * the first id most significant, right-aligned in the words (the last word holds the low 32 bits).
+ * The keys' numeric order is then the rows' order, and the LSD radix sort moves K words per row
+ * instead of order + 1, in one pass per digit of the bits in use (at order 5 with 18-bit ids, 3
+ * words and 9 passes against 6 words and 10). Partition p's keys and then its output lie from word
+ * partitionStarts[p]·(order + 1) of either array, as in spillOrder; the output (ids row-major, then
+ * the counts of the equal keys, added up) ends in `front`. Returns the records per partition.
+ */
+function packedOrder(
+  front: Uint32Array, scratch: Uint32Array, m: number, order: number, idBits: number, partitions: number,
+  partitionOfRow: Uint16Array, partitionStarts: Uint32Array,
+): Uint32Array {
+  const stride = order + 1;
+  const keyBits = order * idBits;
+  const K = Math.ceil(keyBits / 32);
+  // 2. Packed, by partition, front → scratch.
+  const placed = new Uint32Array(partitions);
+  for (let j = 0; j < m; j++) {
+    const from = j * stride + 1;
+    const p = partitionOfRow[j];
+    const to = partitionStarts[p] * stride + placed[p]++ * K;
+    for (let w = 0; w < K; w++) scratch[to + w] = 0;
+    for (let i = 0; i < order; i++) {
+      const id = front[from + i];
+      const low = (order - 1 - i) * idBits;
+      const word = to + K - 1 - (low >>> 5);
+      const shift = low & 31;
+      scratch[word] |= id << shift;
+      if (shift + idBits > 32) scratch[word - 1] |= id >>> (32 - shift);
+    }
+  }
+  // 3. The passes: each key word from the last, its bits in use in digits of at most RADIX_BITS_MAX.
+  const passes: Array<{ word: number; shift: number; bits: number }> = [];
+  for (let w = K - 1; w >= 0; w--) {
+    const bitsInUse = Math.min(32, keyBits - 32 * (K - 1 - w));
+    const count = Math.ceil(bitsInUse / RADIX_BITS_MAX);
+    const digitBits = Math.ceil(bitsInUse / count);
+    for (let q = 0, shift = 0; q < count; q++, shift += digitBits) passes.push({ word: w, shift, bits: Math.min(digitBits, bitsInUse - shift) });
+  }
+  const histogram = new Uint32Array(1 << RADIX_BITS_MAX);
+  const records = new Uint32Array(partitions);
+  const idMask = idBits === 32 ? 0xffff_ffff : 2 ** idBits - 1;
+  for (let p = 0; p < partitions; p++) {
+    const base = partitionStarts[p] * stride;
+    const n = partitionStarts[p + 1] - partitionStarts[p];
+    let source = scratch.subarray(base, base + n * K);
+    let target = front.subarray(base, base + n * K);
+    for (const pass of passes) {
+      const mask = (1 << pass.bits) - 1;
+      const digits = histogram.subarray(0, mask + 1);
+      digits.fill(0);
+      for (let at = pass.word; at < n * K; at += K) digits[(source[at] >>> pass.shift) & mask]++;
+      if (radixPass(source, target, 0, n, K, pass.word, pass.shift, mask, digits)) [source, target] = [target, source];
+    }
+    // 4. Into `front`: the ids of each distinct key row-major, then their counts.
+    if (source.buffer === front.buffer) {
+      scratch.set(source, base);
+      source = scratch.subarray(base, base + n * K);
+    }
+    const out = front;
+    const countsAt = base + n * order;
+    let distinct = 0;
+    for (let r = 0; r < n; r++) {
+      const at = r * K;
+      if (distinct > 0) {
+        let w = 0;
+        while (w < K && source[at + w] === source[at - K + w]) w++;
+        if (w === K) {
+          out[countsAt + distinct - 1]++;
+          continue;
+        }
+      }
+      const keyAt = base + distinct * order;
+      for (let i = 0; i < order; i++) {
+        const low = (order - 1 - i) * idBits;
+        const word = at + K - 1 - (low >>> 5);
+        const shift = low & 31;
+        let id = source[word] >>> shift;
+        if (shift + idBits > 32) id |= source[word - 1] << (32 - shift);
+        out[keyAt + i] = (id & idMask) >>> 0;
+      }
+      out[countsAt + distinct] = 1;
+      distinct++;
+    }
+    records[p] = distinct;
+  }
+  return records;
+}
+
 /** The last table `partitionTable` made, kept while its bound and partitions stay the same (a
  *  worker's spills all ask for one). */
 let partitionTableCache: { idMax: number; partitions: number; table: Uint16Array } | undefined;

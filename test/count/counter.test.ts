@@ -134,6 +134,32 @@ describe('NgramCounter, append-only', () => {
     }
   });
 
+  test('a spill sorts append-only rows as packed keys: the records of a filtering counter, for ids of 1 to 32 bits', () => {
+    const random = seededRandom(37);
+    for (const idMax of [2, 30, 70_000, 300_000, 2 ** 31, 2 ** 32 - 1]) {
+      for (let order = 2; order <= 7; order++) {
+        const appended = new NgramCounter(order, 16, 8, 32);
+        appended.setAppendOnly(true);
+        const filtered = new NgramCounter(order, 16, 8, 1 << 10);
+        const ids = new Uint32Array(order);
+        for (let i = 0; i < 1500; i++) {
+          // Half the ids small, so that rows repeat; the rest up to idMax − 1 (every bit in use).
+          for (let k = 0; k < order; k++) ids[k] = random() < 0.5 ? Math.floor(random() * Math.min(3, idMax)) : Math.min(idMax - 1, Math.floor(random() * idMax));
+          addGrowing(appended, ids, 0);
+          addGrowing(filtered, ids, 0);
+        }
+        const partitions = 5;
+        const a = spillOrder(appended, partitions, idMax, new Uint32Array(appended.size * (order + 1)));
+        const f = spillOrder(filtered, partitions, idMax, new Uint32Array(filtered.size * (order + 1)));
+        for (let p = 0; p < partitions; p++) {
+          expect(a.recordsOf(p)).toBe(f.recordsOf(p));
+          expect(Array.from(a.keysOf(p))).toEqual(Array.from(f.keysOf(p)));
+          expect(Array.from(a.countsOf(p))).toEqual(Array.from(f.countsOf(p)));
+        }
+      }
+    }
+  });
+
   test('the mode is set on an empty counter of order ≥ 2 only', () => {
     const counter = new NgramCounter(2);
     counter.add(new Uint32Array([1, 2]), 0, 5);

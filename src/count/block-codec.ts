@@ -196,28 +196,15 @@ export function decodeRecords(
     if (!(delta >= 1 && id <= U32_MAX)) throw new DecodeFailure(r, `id delta ${delta} at position ${shared} is not in 1..${U32_MAX - keys[prev + shared]}`);
     keys[base + shared] = id;
     for (let j = shared + 1; j < order; j++) {
-      // Ids after the first differing one are whole: of one to three bytes (below 2^21, two
-      // million words) inline, longer through readVarU32. (0.72x the time of decoding order-5
-      // blocks with only one-byte ids inline, in a microbenchmark.)
-      let b = src[p];
-      let v = b & 0x7f;
-      if (b >= 0x80) {
-        b = src[p + 1];
-        v |= (b & 0x7f) << 7;
-        if (b >= 0x80) {
-          b = src[p + 2];
-          v |= (b & 0x7f) << 14;
-          if (b >= 0x80) {
-            cursor.p = p;
-            v = readVarU32(src, cursor, r);
-            p = cursor.p - 3;
-          }
-          p++;
-        }
+      const b = src[p];
+      if (b < 0x80) {
+        keys[base + j] = b;
         p++;
+      } else {
+        cursor.p = p;
+        keys[base + j] = readVarU32(src, cursor, r);
+        p = cursor.p;
       }
-      p++;
-      keys[base + j] = v;
     }
     let count = src[p];
     if (count >= 1 && count < 0x80) p++;

@@ -1,0 +1,226 @@
+/**
+ * The count's inner loops, this checkout's beside a git revision's, alternately in one process, on
+ * seeded synthetic data (a Zipf-like vocabulary of 200,000 words): what a change to one of them
+ * gains, without the noise of a whole `quern count` (bench:count measures that, with its stages).
+ *
+ *   npm run bench:kernels -- --against REV [--rounds 8] [--only decode,encode,…]
+ *
+ * Kernels (each timed per record or row, its result checked equal between the two):
+ *   decode   decodeRecords of order-5 store/run blocks of 1,024 records (src/count/block-codec.ts)
+ *   encode   encodeBlock of the same blocks
+ *   tally    TallyBuilder.add of 3 M order-5 rows (src/merge/tally.ts)
+ *   merge    mergeRuns of 3 in-memory runs of 1 M order-5 rows, 30 % of them in every run
+ *   count3   a CounterSet of order 3 (as a count worker makes it) counting 2 M positions of
+ *   count5   sentences, then every counter's spillOrder; order 5 likewise
+ *
+ * --against  the revision whose src/ is the baseline
+ * --rounds   rounds; each runs both once, alternating which goes first (default 8)
+ *
+ * Prints each kernel's median and least time per item for both and their ratio; exits with status 1
+ * unless both give the same results.
+ */
+import { join, resolve } from 'node:path';
+import { fileURLToPath, pathToFileURL } from 'node:url';
+import { parseArgs } from 'node:util';
+import { Prng } from './lib/prng.ts';
+import { extractRevision } from './lib/revision-tree.ts';
+
+const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
+const KERNELS = ['decode', 'encode', 'tally', 'merge', 'count3', 'count5'] as const;
+type Kernel = (typeof KERNELS)[number];
+
+const { values } = parseArgs({ options: { against: { type: 'string' }, rounds: { type: 'string', default: '8' }, only: { type: 'string' } } });
+if (values.against === undefined) {
+  console.error('usage: npm run bench:kernels -- --against REV [--rounds 8] [--only decode,encode,tally,merge,count3,count5]');
+  process.exit(2);
+}
+const rounds = Number(values.rounds);
+const only = (values.only?.split(',') ?? [...KERNELS]) as Kernel[];
+for (const name of only) if (!KERNELS.includes(name)) throw new Error(`unknown kernel ${name}; one of ${KERNELS.join(', ')}`);
+
+/** The modules a kernel uses, from one source tree. */
+interface Modules {
+  codec: typeof import('../src/count/block-codec.ts');
+  tally: typeof import('../src/merge/tally.ts');
+  merge: typeof import('../src/count/run-merge.ts');
+  counters: typeof import('../src/count/counter-set.ts');
+  spill: typeof import('../src/count/spill-sort.ts');
+  limits: typeof import('../src/limits.ts');
+}
+
+async function modulesOf(root: string): Promise<Modules> {
+  const load = (file: string): Promise<never> => import(pathToFileURL(join(root, 'src', file)).href) as Promise<never>;
+  return {
+    codec: await load('count/block-codec.ts'), tally: await load('merge/tally.ts'), merge: await load('count/run-merge.ts'),
+    counters: await load('count/counter-set.ts'), spill: await load('count/spill-sort.ts'), limits: await load('limits.ts'),
+  };
+}
+
+const VOCAB = 200_000;
+const random = new Prng(2026);
+/** A word id, Zipf-like: small ids far more often. */
+const word = (): number => Math.floor(VOCAB * random.next() ** 4);
+
+/** Sorted distinct rows of `order` ids, `first` their first id when given. */
+function sortedRows(count: number, order: number, first?: number): Uint32Array {
+  const rows: number[][] = [];
+  for (let i = 0; i < count; i++) rows.push(Array.from({ length: order }, (_, j) => (j === 0 && first !== undefined ? first : word())));
+  rows.sort((a, b) => { for (let j = 0; j < order; j++) if (a[j] !== b[j]) return a[j] - b[j]; return 0; });
+  const out = new Uint32Array(rows.length * order);
+  let m = 0;
+  for (const row of rows) {
+    if (m > 0 && row.every((id, j) => id === out[(m - 1) * order + j])) continue;
+    out.set(row, m * order);
+    m++;
+  }
+  return out.slice(0, m * order);
+}
+
+// ---- data, made once ----
+const ORDER = 5;
+const blocks = Array.from({ length: 400 }, () => {
+  const keys = sortedRows(1024, ORDER, word()).subarray(0, 1000 * ORDER);
+  const records = keys.length / ORDER;
+  return { keys, counts: Float64Array.from({ length: records }, () => 1 + Math.floor(random.next() * random.next() * 5)), records };
+});
+const blockRecords = blocks.reduce((sum, b) => sum + b.records, 0);
+const tallyRows = sortedRows(3_000_000, ORDER);
+const tallyCounts = Float64Array.from({ length: tallyRows.length / ORDER }, () => 1 + random.int(3));
+const shared = sortedRows(300_000, ORDER);
+const runs = Array.from({ length: 3 }, () => {
+  const own = sortedRows(700_000, ORDER);
+  const all: number[][] = [];
+  for (const keys of [shared, own]) for (let r = 0; r < keys.length / ORDER; r++) all.push(Array.from(keys.subarray(r * ORDER, (r + 1) * ORDER)));
+  all.sort((a, b) => { for (let j = 0; j < ORDER; j++) if (a[j] !== b[j]) return a[j] - b[j]; return 0; });
+  const out: number[] = [];
+  let last: number[] | undefined;
+  for (const row of all) if (!last || row.some((id, j) => id !== last![j])) { out.push(...row); last = row; }
+  return Uint32Array.from(out);
+});
+const mergeRecords = runs.reduce((sum, r) => sum + r.length / ORDER, 0);
+/** Sentences of 5–30 words, wrapped in <s> = 0 and </s> = 1, for the counters. */
+const sentenceStarts: number[] = [0];
+const sentenceIds: number[] = [];
+while (sentenceIds.length < 2_000_000) {
+  const length = 5 + random.int(26);
+  sentenceIds.push(0);
+  for (let i = 0; i < length; i++) sentenceIds.push(2 + word());
+  sentenceIds.push(1);
+  sentenceStarts.push(sentenceIds.length);
+}
+const ids = Uint32Array.from(sentenceIds);
+const starts = Uint32Array.from(sentenceStarts);
+const sentences = starts.length - 1;
+
+/** Runs a kernel once: its time per item in ns and a check value. */
+type Run = (m: Modules) => Promise<{ ns: number; check: string }>;
+
+const kernels: Record<Kernel, Run> = {
+  async decode(m) {
+    const encoded = blocks.map((b) => {
+      const buf = Buffer.alloc(m.codec.blockBytesMax(ORDER, b.records));
+      return buf.subarray(0, m.codec.encodeBlock(buf, 0, b.keys, b.counts, 0, b.records, ORDER));
+    });
+    const keys = new Uint32Array(1024 * ORDER);
+    const counts = new Float64Array(1024);
+    const t0 = performance.now();
+    let sum = 0;
+    for (let rep = 0; rep < 5; rep++) {
+      for (const buf of encoded) {
+        for (let j = 0; j < ORDER; j++) keys[j] = buf.readUInt32LE(12 + 4 * j);
+        sum += m.codec.decodeRecords(buf, m.codec.blockHeaderBytes(ORDER), buf.length, ORDER, buf.readUInt32LE(4), keys, counts);
+      }
+    }
+    return { ns: ((performance.now() - t0) * 1e6) / (5 * blockRecords), check: String(sum) };
+  },
+  async encode(m) {
+    const buf = Buffer.alloc(m.codec.blockBytesMax(ORDER, 1024));
+    const t0 = performance.now();
+    let bytes = 0;
+    for (let rep = 0; rep < 5; rep++) for (const b of blocks) bytes += m.codec.encodeBlock(buf, 0, b.keys, b.counts, 0, b.records, ORDER);
+    return { ns: ((performance.now() - t0) * 1e6) / (5 * blockRecords), check: String(bytes) };
+  },
+  async tally(m) {
+    const tally = new m.tally.TallyBuilder(ORDER);
+    const rows = tallyCounts.length;
+    const t0 = performance.now();
+    for (let r = 0; r < rows; r++) tally.add(tallyRows, r * ORDER, tallyCounts[r]);
+    const ns = ((performance.now() - t0) * 1e6) / rows;
+    return { ns, check: JSON.stringify(tally.finish()) };
+  },
+  async merge(m) {
+    const sources = runs.map((keys, s) => {
+      let at = 0;
+      const rows = keys.length / ORDER;
+      return {
+        name: `run ${s}`, order: ORDER,
+        async nextBatch() {
+          if (at >= rows) return null;
+          const end = Math.min(rows, at + 8192);
+          const batch = { keys: keys.subarray(at * ORDER, end * ORDER), counts: new Float64Array(end - at).fill(1), recordCount: end - at };
+          at = end;
+          return batch;
+        },
+        async close() {},
+      };
+    });
+    const t0 = performance.now();
+    let out = 0;
+    let total = 0;
+    for await (const batch of m.merge.mergeRuns(sources, ORDER)) {
+      out += batch.recordCount;
+      for (let r = 0; r < batch.recordCount; r++) total += batch.counts[r];
+    }
+    return { ns: ((performance.now() - t0) * 1e6) / mergeRecords, check: `${out} ${total}` };
+  },
+  count3: (m) => countAndSpill(m, 3),
+  count5: (m) => countAndSpill(m, 5),
+};
+
+/** A count worker's loop without its I/O: a CounterSet counts the sentences in batches, then every
+ *  counter is sorted for a spill of 16 partitions (the set sized to hold it all: one spill). */
+async function countAndSpill(m: Modules, order: number): Promise<{ ns: number; check: string }> {
+  const options = m.limits.COUNTER_APPEND_ORDER_MIN === undefined ? undefined : { appendFrom: m.limits.COUNTER_APPEND_ORDER_MIN };
+  const set = new m.counters.CounterSet(order, 4 * 2 ** 30, VOCAB + 2, options);
+  const positions = ids.length - sentences;
+  const t0 = performance.now();
+  for (let s = 0; s < sentences;) {
+    let end = s;
+    let batch = 0;
+    while (end < sentences && batch + (starts[end + 1] - starts[end] - 1) <= m.limits.COUNTER_BATCH_POSITIONS) batch += starts[end + 1] - starts[end++] - 1;
+    if (!set.reserve(batch + 1)) throw new Error('the kernel set is sized to hold every n-gram');
+    set.addSentences(ids, starts, s, end);
+    s = end;
+  }
+  let records = 0;
+  for (const counter of set.counters) {
+    const sorted = m.spill.spillOrder(counter, 16, VOCAB + 2, set.sortScratch());
+    for (let p = 0; p < 16; p++) records += sorted.recordsOf(p);
+  }
+  set.clear();
+  return { ns: ((performance.now() - t0) * 1e6) / positions, check: String(records) };
+}
+
+const { hash, tree } = extractRevision(REPO, values.against, ['src'], (h) => join(REPO, 'bench-out', `kernels-baseline-${h}`));
+const builds: Array<[string, Modules]> = [['this checkout', await modulesOf(REPO)], [hash, await modulesOf(tree)]];
+const median = (xs: number[]): number => [...xs].sort((a, b) => a - b)[xs.length >> 1];
+let mismatch = false;
+console.log(`kernels, this checkout beside ${hash}, ${rounds} rounds alternating (ns per record, row or position)`);
+for (const name of only) {
+  const times: number[][] = [[], []];
+  const checks = new Set<string>();
+  for (let round = 0; round < rounds; round++) {
+    for (const k of round % 2 === 0 ? [0, 1] : [1, 0]) {
+      const result = await kernels[name](builds[k][1]);
+      times[k].push(result.ns);
+      checks.add(result.check);
+    }
+  }
+  if (checks.size !== 1) mismatch = true;
+  const [a, b] = times.map(median);
+  console.log(`  ${name.padEnd(7)} this ${a.toFixed(1).padStart(7)}  ${hash} ${b.toFixed(1).padStart(7)}  ratio ${(a / b).toFixed(2)}  (least ${Math.min(...times[0]).toFixed(1)} against ${Math.min(...times[1]).toFixed(1)})${checks.size === 1 ? '' : '  RESULTS DIFFER'}`);
+}
+if (mismatch) {
+  console.error('the two builds gave different results');
+  process.exit(1);
+}

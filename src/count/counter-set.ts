@@ -243,6 +243,12 @@ export class CounterSet {
     if (this.hashes.length < positions) this.hashes = new Int32Array(Math.max(positions, 2 * this.hashes.length));
     const hashes = this.hashes;
     for (let n = 1; n <= counters.length; n++) {
+      // An append-only counter reads no hash: the highest order's are then not computed (a lower
+      // order's are, for the next order's, which extend them).
+      if (n === counters.length && counters[n - 1].appendOnly) {
+        counters[n - 1].addBatch(ids, starts, first, last, hashes);
+        break;
+      }
       // The hashes of the whole batch first, then the counting: with the hashes at hand, the
       // processor can start the next n-gram's memory accesses while a mispredicted branch of the
       // previous one is being resolved (hashing as it went made counting about 3× slower).

@@ -31,7 +31,16 @@ export const HASH_SEED = 0x3c6ef372;
  * (`ids[start+order−2]`), or of the word itself for order 1, reduced to `0 .. partitions−1`.
  */
 export function partitionOf(ids: ArrayLike<number>, start: number, order: number, partitions: number): number {
-  const key = ids[order === 1 ? start : start + order - 2];
+  return partitionOfKey(ids[start + partitionKeyIndex(order)], partitions);
+}
+
+/** Where in an n-gram of `order` ids the id its partition depends on lies (partitionOf). */
+export function partitionKeyIndex(order: number): number {
+  return order === 1 ? 0 : order - 2;
+}
+
+/** The partition of an n-gram whose key id (partitionKeyIndex) is `key`. */
+export function partitionOfKey(key: number, partitions: number): number {
   return combine32(HASH_SEED ^ 0x5bd1e995, key) % partitions;
 }
 

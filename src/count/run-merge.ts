@@ -108,13 +108,23 @@ class LoserTreeMerger {
     this.tree[0] = k === 1 ? 0 : winners[1];
   }
 
-  /** Replays the path from source s's leaf to the root after its head changed. */
+  /** Replays the path from source s's leaf to the root after its head changed (once per merged
+   *  record: `less` written out). */
   replay(s: number): void {
     const tree = this.tree;
+    const heads = this.heads;
+    const order = this.order;
     let winner = s;
     for (let p = (s + this.sourceCount) >> 1; p >= 1; p >>= 1) {
       const contender = tree[p];
-      if (this.less(contender, winner)) {
+      let i = contender * order;
+      let j = winner * order;
+      const end = i + order;
+      while (i < end && heads[i] === heads[j]) {
+        i++;
+        j++;
+      }
+      if (i === end ? contender < winner : heads[i] < heads[j]) {
         tree[p] = winner;
         winner = contender;
       }
@@ -180,23 +190,7 @@ class LoserTreeMerger {
       const keys = batch.keys;
       for (let j = 0, r = row * order; j < order; j++, r++) heads[h + j] = keys[r];
       headCounts[w] = batch.counts[row];
-      // The replay (`replay`), with the comparison (`less`) written out.
-      let winner = w;
-      for (let p = (w + k) >> 1; p >= 1; p >>= 1) {
-        const contender = tree[p];
-        let i = contender * order;
-        let j = winner * order;
-        const end = i + order;
-        while (i < end && heads[i] === heads[j]) {
-          i++;
-          j++;
-        }
-        if (i === end ? contender < winner : heads[i] < heads[j]) {
-          tree[p] = winner;
-          winner = contender;
-        }
-      }
-      tree[0] = winner;
+      this.replay(w);
     }
   }
 

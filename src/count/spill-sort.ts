@@ -21,7 +21,7 @@
  */
 import { assert } from '../errors.ts';
 import { PARTITION_TABLE_IDS_MAX } from '../limits.ts';
-import { partitionOf } from './hash.ts';
+import { partitionKeyIndex, partitionOf, partitionOfKey } from './hash.ts';
 import { scatterRows } from './radix.ts';
 import type { NgramCounter } from './counter.ts';
 
@@ -63,7 +63,7 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   // The partition depends on one id of the row (partitionOf): looked up in a table of every id's
   // when the vocabulary is small enough for one.
   const partitionOfId = partitionTable(idMax, partitions);
-  const keyWord = order === 1 ? 1 : order - 1;
+  const keyWord = 1 + partitionKeyIndex(order);
   for (; rows < counter.logCount; rows++) {
     const base = rows * stride;
     for (let w = 1; w < stride; w++) idBitsAll |= front[base + w];
@@ -88,20 +88,35 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
 
   for (let p = 0; p < partitions; p++) partitionStarts[p + 1] += partitionStarts[p];
   // Rows that are all of count 1 and hold no table entry (an append-only counter's log) are
-  // sorted as packed keys, without their counts (packedOrder).
-  if (counter.logged && counter.tableSize === 0 && countsAllOne && order >= 2) {
-    const records = packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts);
-    noteDistinctShare(counter, records);
-    return {
-      recordsOf: (p) => records[p],
-      keysOf: (p) => front.subarray(partitionStarts[p] * stride, partitionStarts[p] * stride + records[p] * order),
-      countsOf: (p) => {
-        const countsAt = partitionStarts[p] * stride + (partitionStarts[p + 1] - partitionStarts[p]) * order;
-        return front.subarray(countsAt, countsAt + records[p]);
-      },
-    };
-  }
+  // sorted as packed keys, without their counts (packedOrder); the others as rows, below.
+  const packed = counter.logged && counter.tableSize === 0 && countsAllOne && order >= 2;
+  const { records, outputs } = packed
+    ? packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts)
+    : rowOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, counter.logged);
+  noteDistinctShare(counter, records);
+  return {
+    recordsOf: (p) => records[p],
+    keysOf: (p) => outputs[p].subarray(partitionStarts[p] * stride, partitionStarts[p] * stride + records[p] * order),
+    countsOf: (p) => {
+      const countsAt = partitionStarts[p] * stride + (partitionStarts[p + 1] - partitionStarts[p]) * order;
+      return outputs[p].subarray(countsAt, countsAt + records[p]);
+    },
+  };
+}
 
+/** Steps 2–4's result: the records per partition, and the array (front or scratch) each
+ *  partition's output is in, from word partitionStarts[p]·(order + 1). */
+interface RowOrder {
+  records: Uint32Array;
+  outputs: Uint32Array[];
+}
+
+/** Steps 2–4 of the file's comment for rows with their counts (rows 0..m−1 of `front`). */
+function rowOrder(
+  front: Uint32Array, scratch: Uint32Array, m: number, order: number, idBits: number, partitions: number,
+  partitionOfRow: Uint16Array, partitionStarts: Uint32Array, merge: boolean,
+): RowOrder {
+  const stride = order + 1;
   // 2. By partition, front → scratch.
   const next = partitionStarts.slice(0, partitions);
   for (let j = 0; j < m; j++) {
@@ -132,18 +147,10 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
         if (radixPass(source, target, begin, end, stride, k, pass * digitBits, buckets - 1, histogram)) [source, target] = [target, source];
       }
     }
-    records[p] = splitRows(source, target, begin, end, stride, order, counter.logged);
+    records[p] = splitRows(source, target, begin, end, stride, order, merge);
     outputs.push(target);
   }
-  noteDistinctShare(counter, records);
-  return {
-    recordsOf: (p) => records[p],
-    keysOf: (p) => outputs[p].subarray(partitionStarts[p] * stride, partitionStarts[p] * stride + records[p] * order),
-    countsOf: (p) => {
-      const countsAt = partitionStarts[p] * stride + (partitionStarts[p + 1] - partitionStarts[p]) * order;
-      return outputs[p].subarray(countsAt, countsAt + records[p]);
-    },
-  };
+  return { records, outputs };
 }
 /**
  * The sort of rows whose counts are all 1 (rows 0..m−1 of `front`, count then `order` ids of
@@ -158,10 +165,21 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
 function packedOrder(
   front: Uint32Array, scratch: Uint32Array, m: number, order: number, idBits: number, partitions: number,
   partitionOfRow: Uint16Array, partitionStarts: Uint32Array,
-): Uint32Array {
+): RowOrder {
   const stride = order + 1;
   const keyBits = order * idBits;
   const K = Math.ceil(keyBits / 32);
+  // Id i of a row: its low bit at bit (order − 1 − i)·idBits of the key, in key word idWord[i] at
+  // idShift[i], its high bits in the word before when they do not fit (idSplit[i]).
+  const idWord = new Int32Array(order);
+  const idShift = new Int32Array(order);
+  const idSplit = new Uint8Array(order);
+  for (let i = 0; i < order; i++) {
+    const low = (order - 1 - i) * idBits;
+    idWord[i] = K - 1 - (low >>> 5);
+    idShift[i] = low & 31;
+    idSplit[i] = (low & 31) + idBits > 32 ? 1 : 0;
+  }
   // 2. Packed, by partition, front → scratch.
   const placed = new Uint32Array(partitions);
   for (let j = 0; j < m; j++) {
@@ -171,11 +189,10 @@ function packedOrder(
     for (let w = 0; w < K; w++) scratch[to + w] = 0;
     for (let i = 0; i < order; i++) {
       const id = front[from + i];
-      const low = (order - 1 - i) * idBits;
-      const word = to + K - 1 - (low >>> 5);
-      const shift = low & 31;
+      const word = to + idWord[i];
+      const shift = idShift[i];
       scratch[word] |= id << shift;
-      if (shift + idBits > 32) scratch[word - 1] |= id >>> (32 - shift);
+      if (idSplit[i] !== 0) scratch[word - 1] |= id >>> (32 - shift);
     }
   }
   // 3. The passes: each key word from the last, its bits in use in digits of at most RADIX_BITS_MAX.
@@ -221,11 +238,10 @@ function packedOrder(
       }
       const keyAt = base + distinct * order;
       for (let i = 0; i < order; i++) {
-        const low = (order - 1 - i) * idBits;
-        const word = at + K - 1 - (low >>> 5);
-        const shift = low & 31;
+        const word = at + idWord[i];
+        const shift = idShift[i];
         let id = source[word] >>> shift;
-        if (shift + idBits > 32) id |= source[word - 1] << (32 - shift);
+        if (idSplit[i] !== 0) id |= source[word - 1] << (32 - shift);
         out[keyAt + i] = (id & idMask) >>> 0;
       }
       out[countsAt + distinct] = 1;
@@ -233,7 +249,7 @@ function packedOrder(
     }
     records[p] = distinct;
   }
-  return records;
+  return { records, outputs: Array.from({ length: partitions }, () => front) };
 }
 
 /** The last table `partitionTable` made, kept while its bound and partitions stay the same (a
@@ -251,11 +267,7 @@ export function partitionTable(idMax: number, partitions: number): Uint16Array |
   if (cached !== undefined && cached.idMax === idMax && cached.partitions === partitions) return cached.table;
   assert(Number.isInteger(idMax) && idMax >= 1, `a partition table for ids below ${idMax}`);
   const table = new Uint16Array(idMax);
-  const key = new Uint32Array(1);
-  for (let id = 0; id < idMax; id++) {
-    key[0] = id;
-    table[id] = partitionOf(key, 0, 1, partitions);
-  }
+  for (let id = 0; id < idMax; id++) table[id] = partitionOfKey(id, partitions);
   partitionTableCache = { idMax, partitions, table };
   return table;
 }
@@ -282,12 +294,10 @@ function denseOrder(counter: NgramCounter, partitions: number, scratch: Uint32Ar
   const m = counter.size;
   const partitionOfRow = new Uint16Array(m);
   const partitionStarts = new Uint32Array(partitions + 1);
-  const key = new Uint32Array(1);
   let rows = 0;
   for (let id = 0; id < counts.length; id++) {
     if (counts[id] === 0) continue;
-    key[0] = id;
-    const partition = partitionOf(key, 0, 1, partitions);
+    const partition = partitionOfKey(id, partitions);
     partitionOfRow[rows++] = partition;
     partitionStarts[partition + 1]++;
   }

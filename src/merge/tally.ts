@@ -86,7 +86,7 @@ export class TallyBuilder {
   /** Adds the row `keys[offset .. offset+order)` with `count`; rows come in increasing order. */
   add(keys: Uint32Array, offset: number, count: number): void {
     // Checked with `if`: an assert's message is built before the call, and this runs per record
-    // (0.8x the time of add in a microbenchmark).
+    // (`npm run bench:kernels -- --only tally`: 0.85× the time).
     if (!(count >= 1)) assert(false, `count ${count} of a stored n-gram is at least 1`);
     this.distinct++;
     this.total += count;

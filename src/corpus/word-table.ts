@@ -41,6 +41,8 @@ function fmix(h: number): number {
 export interface WordLookup {
   find(bytes: Uint8Array, start: number, end: number, hash: number): number;
   intern?(bytes: Uint8Array, start: number, end: number, hash: number): number;
+  /** Many tokens at once, as `WordTable.lookupBatch` (hashes[0 .. count) may be overwritten). */
+  lookupBatch?(bytes: Uint8Array, starts: Int32Array, ends: Int32Array, hashes: Int32Array, count: number, intern: boolean, entries: Int32Array, at: number): void;
 }
 
 export class WordTable implements WordLookup {
@@ -58,6 +60,8 @@ export class WordTable implements WordLookup {
   private records: Uint32Array;
   /** Words held. */
   size = 0;
+  /** Where lookupBatch's warming reads leave their result, so that they are not optimised away. */
+  warmSink = 0;
   /** A Buffer over the arena, for decoding words. */
   private arenaView: Buffer | undefined;
   /** Room to encode a word given as a string. */
@@ -90,7 +94,44 @@ export class WordTable implements WordLookup {
    * when the table does not hold it.
    */
   find(bytes: Uint8Array, start: number, end: number, hash: number): number {
-    const h = fmix(hash);
+    return this.findMixed(bytes, start, end, fmix(hash));
+  }
+
+  /** Like `find`, but adds the word when it is new; returns its entry either way. */
+  intern(bytes: Uint8Array, start: number, end: number, hash: number): number {
+    return this.internMixed(bytes, start, end, fmix(hash));
+  }
+
+  /**
+   * `find` (or with `intern`, `intern`) of `count` tokens at once: token i is bytes[starts[i],
+   * ends[i]) with FNV-1a hash hashes[i], and its entry goes to entries[at + i]. The same entries as
+   * one call per token, in the same order (so new words get the same entry numbers); but first a
+   * read of every token's home slot, then of the record it holds, each a loop of independent loads,
+   * so that the cache misses of a batch overlap instead of coming one after another.
+   */
+  lookupBatch(
+    bytes: Uint8Array, starts: Int32Array, ends: Int32Array, hashes: Int32Array, count: number, intern: boolean,
+    entries: Int32Array, at: number,
+  ): void {
+    const slots = this.slots;
+    const mask = this.mask;
+    const arena32 = this.arena32;
+    let warm = 0;
+    for (let i = 0; i < count; i++) {
+      const h = fmix(hashes[i]);
+      hashes[i] = h;
+      warm ^= slots[2 * (h & mask) + 1];
+    }
+    for (let i = 0; i < count; i++) {
+      const stored = slots[2 * (hashes[i] & mask) + 1];
+      if (stored !== 0) warm ^= arena32[stored];
+    }
+    this.warmSink = warm;
+    if (intern) for (let i = 0; i < count; i++) entries[at + i] = this.internMixed(bytes, starts[i], ends[i], hashes[i]);
+    else for (let i = 0; i < count; i++) entries[at + i] = this.findMixed(bytes, starts[i], ends[i], hashes[i]);
+  }
+
+  private findMixed(bytes: Uint8Array, start: number, end: number, h: number): number {
     const slots = this.slots;
     const mask = this.mask;
     for (let slot = h & mask; ; slot = (slot + 1) & mask) {
@@ -100,9 +141,7 @@ export class WordTable implements WordLookup {
     }
   }
 
-  /** Like `find`, but adds the word when it is new; returns its entry either way. */
-  intern(bytes: Uint8Array, start: number, end: number, hash: number): number {
-    const h = fmix(hash);
+  private internMixed(bytes: Uint8Array, start: number, end: number, h: number): number {
     const slots = this.slots;
     const mask = this.mask;
     let slot = h & mask;
@@ -113,7 +152,7 @@ export class WordTable implements WordLookup {
     }
     if (this.size >= this.sizeMax) {
       this.grow();
-      return this.intern(bytes, start, end, hash);
+      return this.internMixed(bytes, start, end, h);
     }
     const entry = this.size;
     const length = end - start;

@@ -126,6 +126,41 @@ describe('scanLines', () => {
     expect(table.size).toBe(4);
   });
 
+  test('looks tokens up in batches with the entries of one lookup per token, across table and array growth', () => {
+    // 150,000 tokens of 40,000 words: many batches, the table grown while they run, the entries
+    // array grown in the middle of a batch (the block holds a first line already, so the batches do
+    // not line up with the array's size). Expected: each token of the reference tokenizer interned
+    // (or found) by itself, in order, in a table of its own.
+    const random = seededRandom(5);
+    const lines: string[] = ['a first line'];
+    for (let t = 0; t < 150_000;) {
+      const length = 1 + Math.floor(random() * 40);
+      const words: string[] = [];
+      for (let i = 0; i < length; i++) words.push(`w${Math.floor(random() ** 3 * 40_000)}${random() < 0.01 ? '\u3000港' : ''}`);
+      lines.push(words.join(random() < 0.5 ? ' ' : '\t'));
+      t += length;
+    }
+    const expectedTable = freshTable();
+    const expected = Int32Array.from(reference(lines.join('\n') + '\n').sentences.flat().map((word) => expectedTable.internWord(word)));
+    const table = freshTable();
+    for (const intern of [true, false]) {
+      const block = newTokenBlock();
+      const first = Buffer.from(lines[0] + '\n', 'utf8');
+      scanLines(first, 0, first.length, table, intern, block);
+      const rest = Buffer.from(lines.slice(1).join('\n') + '\n', 'utf8');
+      scanLines(rest, 0, rest.length, table, intern, block);
+      expect(block.tokens).toBe(expected.length);
+      expect(block.tokens).toBeGreaterThan(newTokenBlock().entries.length);
+      expect(Buffer.compare(Buffer.from(block.entries.buffer, 0, 4 * block.tokens), Buffer.from(expected.buffer))).toBe(0);
+      expect(block.sentences).toBe(lines.length);
+    }
+    expect(table.size).toBe(expectedTable.size);
+    for (let e = 0; e < table.size; e += 997) expect(table.word(e)).toBe(expectedTable.word(e));
+    // Find mode on a table without the words: every entry −1, nothing added.
+    const { block } = scan(lines.join('\n'), freshTable(), false);
+    expect(block.entries.subarray(0, block.tokens).every((entry) => entry === -1)).toBe(true);
+  });
+
   test('grows its arrays for blocks of many tokens and sentences', () => {
     const text = 'w '.repeat(100_000) + '\n' + 'x\n'.repeat(10_000);
     const { block } = scan(text);

@@ -4,8 +4,21 @@ import { hideBin } from 'yargs/helpers';
 import { COMMAND_LOADERS } from './commands.ts';
 import { onStdoutError, reportError, EXIT_STATUS } from './exit.ts';
 
-export async function main(args: string[]): Promise<number> {
+/**
+ * The arguments with those after `--` made plain operands: by the usual convention `--` ends the
+ * options, so that a file may be named `-x.txt`; but yargs counts nothing after `--` towards a
+ * command's required positionals. So `--` is dropped and each argument after it passed on as a
+ * positional, one that starts with `-` (other than `-` alone: standard input) as `./` + it.
+ */
+export function operandsAfterDashes(args: readonly string[]): string[] {
+  const at = args.indexOf('--');
+  if (at < 0) return [...args];
+  return [...args.slice(0, at), ...args.slice(at + 1).map((arg) => (arg.startsWith('-') && arg !== '-' ? `./${arg}` : arg))];
+}
+
+export async function main(argv: string[]): Promise<number> {
   try {
+    const args = operandsAfterDashes(argv);
     const first = args[0];
     const loaders = first !== undefined && Object.hasOwn(COMMAND_LOADERS, first) ? [COMMAND_LOADERS[first]] : Object.values(COMMAND_LOADERS);
     const commands = await Promise.all(loaders.map((load) => load()));

@@ -12,6 +12,8 @@
  *   merge    mergeRuns of 3 in-memory runs of 1 M order-5 rows, 30 % of them in every run
  *   count3   a CounterSet of order 3 (as a count worker makes it) counting 2 M positions of
  *   count5   sentences, then every counter's spillOrder; order 5 likewise
+ *   scan     scanLines of 2 M tokens of text (Zipf-like words) into a fresh WordTable, as the
+ *            vocabulary pass tokenizes and interns (src/corpus/byte-tokenizer.ts)
  *
  * --against  the revision whose src/ is the baseline
  * --rounds   rounds; each runs both once, alternating which goes first (default 8)
@@ -26,12 +28,12 @@ import { Prng } from './lib/prng.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
-const KERNELS = ['decode', 'encode', 'tally', 'merge', 'count3', 'count5'] as const;
+const KERNELS = ['decode', 'encode', 'tally', 'merge', 'count3', 'count5', 'scan'] as const;
 type Kernel = (typeof KERNELS)[number];
 
 const { values } = parseArgs({ options: { against: { type: 'string' }, rounds: { type: 'string', default: '8' }, only: { type: 'string' } } });
 if (values.against === undefined) {
-  console.error('usage: npm run bench:kernels -- --against REV [--rounds 8] [--only decode,encode,tally,merge,count3,count5]');
+  console.error(`usage: npm run bench:kernels -- --against REV [--rounds 8] [--only ${KERNELS.join(',')}]`);
   process.exit(2);
 }
 const rounds = Number(values.rounds);
@@ -46,6 +48,8 @@ interface Modules {
   counters: typeof import('../src/count/counter-set.ts');
   spill: typeof import('../src/count/spill-sort.ts');
   limits: typeof import('../src/limits.ts');
+  tokenizer: typeof import('../src/corpus/byte-tokenizer.ts');
+  words: typeof import('../src/corpus/word-table.ts');
 }
 
 async function modulesOf(root: string): Promise<Modules> {
@@ -53,6 +57,7 @@ async function modulesOf(root: string): Promise<Modules> {
   return {
     codec: await load('count/block-codec.ts'), tally: await load('merge/tally.ts'), merge: await load('count/run-merge.ts'),
     counters: await load('count/counter-set.ts'), spill: await load('count/spill-sort.ts'), limits: await load('limits.ts'),
+    tokenizer: await load('corpus/byte-tokenizer.ts'), words: await load('corpus/word-table.ts'),
   };
 }
 
@@ -111,6 +116,13 @@ while (sentenceIds.length < 2_000_000) {
 const ids = Uint32Array.from(sentenceIds);
 const starts = Uint32Array.from(sentenceStarts);
 const sentences = starts.length - 1;
+/** The same sentences as text, one per line, each word id w written as `w<w>` (Zipf-like words of
+ *  2–7 bytes): what the vocabulary pass reads. */
+const text = Buffer.from(
+  Array.from({ length: starts.length - 1 }, (_, s) => Array.from(sentenceIds.slice(starts[s] + 1, starts[s + 1] - 1), (id) => `w${id}`).join(' ')).join('\n') + '\n',
+  'latin1',
+);
+const textTokens = sentenceIds.length - 2 * (starts.length - 1);
 
 /** Runs a kernel once: its time per item in ns and a check value. */
 type Run = (m: Modules) => Promise<{ ns: number; check: string }>;
@@ -175,6 +187,17 @@ const kernels: Record<Kernel, Run> = {
   },
   count3: (m) => countAndSpill(m, 3),
   count5: (m) => countAndSpill(m, 5),
+  async scan(m) {
+    const table = new m.words.WordTable();
+    m.tokenizer.reserveWords(table);
+    const block = m.tokenizer.newTokenBlock();
+    const t0 = performance.now();
+    m.tokenizer.scanLines(text, 0, text.length, table, true, block);
+    const ns = ((performance.now() - t0) * 1e6) / textTokens;
+    let check = 0;
+    for (let t = 0; t < block.tokens; t++) check = (Math.imul(check, 31) + block.entries[t]) | 0;
+    return { ns, check: `${block.tokens} ${table.size} ${check}` };
+  },
 };
 
 /** A count worker's loop without its I/O: a CounterSet counts the sentences in batches, then every

@@ -644,7 +644,8 @@ function scanOrder(scan: StoreScan, store: PartitionStore, partition: number, or
   const unigrams = order === 1 && space === 'raw' && vocab !== undefined;
   let first = true;
   try {
-    for (const block of store.blocks(order, undefined, space)) {
+    // Decoded into the same arrays block after block (the last row is copied into `last`).
+    for (const block of store.blocks(order, undefined, space, true)) {
       scan.blocks++;
       if (!first && compareRows(block.keys, 0, last, 0, order) <= 0) {
         return `block at [${Array.from(block.keys.subarray(0, order)).join(' ')}] does not follow the previous block's last n-gram`;

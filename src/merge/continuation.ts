@@ -59,7 +59,8 @@ export async function emitContinuations(request: EmitRequest): Promise<RunRecord
   try {
     for (let n = 2; n <= orderMax; n++) {
       if (request.localOrders.includes(n - 1)) continue;
-      for (const block of store.blocks(n)) {
+      // Decoded into the same arrays block after block: addNgram copies what it keeps.
+      for (const block of store.blocks(n, undefined, 'raw', true)) {
         for (let j = 0; j < block.recordCount; j++) {
           const start = j * n + 1;
           if (set.addNgram(block.keys, start, n - 1)) continue;

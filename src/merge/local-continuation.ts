@@ -35,7 +35,8 @@ export function localContinuationBytes(higherRows: number, order: number): numbe
  */
 export function localContinuationSource(store: PartitionStore, order: number, higherRows: number): BatchSource {
   assert(order >= 2, 'local continuation counts start at order 2');
-  const { keys, counts, size } = suffixCountsBySort(store.blocks(order + 1), higherRows, order);
+  // Each block is decoded into the same arrays: the suffixes are copied out of it before the next.
+  const { keys, counts, size } = suffixCountsBySort(store.blocks(order + 1, undefined, 'raw', true), higherRows, order);
   let next = 0;
   return {
     name: `${store.dir} (order ${order + 1} suffixes)`,

@@ -365,7 +365,11 @@ export class RunReader {
   private finished = false;
   private busy = false;
 
-  private constructor(handle: fsp.FileHandle, info: RunFileInfo) {
+  /** The arrays every batch is decoded into (`reuseBatches`), grown to the largest block. */
+  private batchKeys: Uint32Array | undefined;
+  private batchCounts: Float64Array | undefined;
+
+  private constructor(handle: fsp.FileHandle, info: RunFileInfo, private readonly reuseBatches: boolean) {
     this.handle = handle;
     this.info = info;
     this.payloadEnd = info.fileBytes - RUN_TRAILER_BYTES;
@@ -377,8 +381,14 @@ export class RunReader {
     return this.info.filePath;
   }
 
-  /** Opens `filePath` and validates its header and trailer. Errors: 'io' (cannot open or read), 'corrupt'. */
-  static async open(filePath: string): Promise<RunReader> {
+  /**
+   * Opens `filePath` and validates its header and trailer. Errors: 'io' (cannot open or read),
+   * 'corrupt'. With `reuseBatches`, every block is decoded into the same arrays (as long as the
+   * largest block): a batch is then valid only until the next `nextBatch`, and its arrays may be
+   * longer than its `recordCount` rows (for a reader that is done with a batch when it asks for the
+   * next, as the k-way merge is: no garbage of a fresh pair of arrays per block).
+   */
+  static async open(filePath: string, options: { reuseBatches?: boolean } = {}): Promise<RunReader> {
     const { handle, bytes: fileBytes } = await openForReading(filePath);
     try {
       if (fileBytes < RUN_HEADER_BYTES + RUN_TRAILER_BYTES) {
@@ -390,7 +400,7 @@ export class RunReader {
       const tail = Buffer.alloc(RUN_TRAILER_BYTES);
       await readFullyAt(handle, filePath, tail, fileBytes - RUN_TRAILER_BYTES, endsEarly(filePath));
       checkTrailer(filePath, tail, info, head.readUInt32LE(H_CRC));
-      return new RunReader(handle, info);
+      return new RunReader(handle, info, options.reuseBatches === true);
     } catch (error) {
       await handle.close().catch(() => {});
       throw error;
@@ -503,8 +513,19 @@ export class RunReader {
       throw corrupt(this.filePath, `${where}: checksum mismatch (stored ${storedCrc.toString(16)}, computed ${computedCrc.toString(16)})`);
     }
 
-    const keys = new Uint32Array(recordCount * order);
-    const counts = new Float64Array(recordCount);
+    let keys: Uint32Array;
+    let counts: Float64Array;
+    if (this.reuseBatches) {
+      if (this.batchKeys === undefined || this.batchCounts!.length < recordCount) {
+        this.batchKeys = new Uint32Array(recordCount * order);
+        this.batchCounts = new Float64Array(recordCount);
+      }
+      keys = this.batchKeys;
+      counts = this.batchCounts!;
+    } else {
+      keys = new Uint32Array(recordCount * order);
+      counts = new Float64Array(recordCount);
+    }
     for (let j = 0; j < order; j++) keys[j] = buffer.readUInt32LE(at + RUN_BLOCK_HEADER_FIXED_BYTES + 4 * j);
     if (this.blockIndex > 0 && compareRows(keys, 0, this.lastKey, 0, order) <= 0) {
       throw corrupt(this.filePath, `${where}: first n-gram is not above the last n-gram of block ${this.blockIndex - 1}`);
@@ -521,7 +542,7 @@ export class RunReader {
     if (this.countSumRead > this.info.countSum) {
       throw corrupt(this.filePath, `${where}: blocks sum to more counts than the header states (${this.info.countSum})`);
     }
-    this.lastKey.set(keys.subarray((recordCount - 1) * order));
+    this.lastKey.set(keys.subarray((recordCount - 1) * order, recordCount * order));
     this.bufferStart += blockBytes;
     this.blockIndex += 1;
     return { keys, counts, recordCount };

@@ -104,7 +104,8 @@ async function mergeOrder(
     if (pending.length === txnBlocks) commit({ ...progress, records, current: tally.checkpoint() });
   };
 
-  const readers: BatchSource[] = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file))));
+  // Each run's blocks decoded into one pair of arrays: the merge is done with a batch when it asks for the next.
+  const readers: BatchSource[] = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file), { reuseBatches: true })));
   if (task.localOrders?.includes(order)) {
     assert(space === 'continuation', 'local counts are continuation counts');
     const higherRows = store.readProgress<MergeProgress>('raw')?.tallies[order]?.distinct;

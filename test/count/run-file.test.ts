@@ -178,6 +178,32 @@ describe('run file round trip', () => {
     for (let batch = await reader.nextBatch(); batch !== null; batch = await reader.nextBatch()) records += batch.recordCount;
     expect(records).toBe(run.recordCount);
   });
+
+  it('with reuseBatches, decodes every block into the same arrays, with the records of a fresh read', async () => {
+    const random = prng(7);
+    const run = randomRun(4, 30_000, zipfIds(random, 50_000), () => 1 + Math.floor(random() * 9));
+    const filePath = path.join(dir, 'reused.run');
+    await writeRunFile(nodeFs, filePath, meta(4), run.keys, run.counts, run.recordCount);
+    const fresh = (await readAll(filePath)).run;
+    expect(fresh.recordCount % RUN_BLOCK_RECORDS_MAX).not.toBe(0);
+    const reader = await RunReader.open(filePath, { reuseBatches: true });
+    const keys: number[] = [];
+    const counts: number[] = [];
+    const arrays = new Set<Uint32Array>();
+    let batches = 0;
+    for (let batch = await reader.nextBatch(); batch !== null; batch = await reader.nextBatch()) {
+      batches++;
+      arrays.add(batch.keys);
+      // Only the batch's rows count: the last block's may be fewer than the arrays hold.
+      keys.push(...batch.keys.subarray(0, batch.recordCount * 4));
+      counts.push(...batch.counts.subarray(0, batch.recordCount));
+    }
+    expect(batches).toBe(Math.ceil(fresh.recordCount / RUN_BLOCK_RECORDS_MAX));
+    expect(batches).toBeGreaterThan(2);
+    expect(arrays.size).toBe(1);
+    expect(sameBytes(Uint32Array.from(keys), fresh.keys)).toBe(true);
+    expect(sameBytes(Float64Array.from(counts), fresh.counts)).toBe(true);
+  });
 });
 
 // ---- Writer checks and failures -----------------------------------------------------------------

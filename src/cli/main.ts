@@ -10,7 +10,7 @@ import { onStdoutError, reportError, EXIT_STATUS } from './exit.ts';
  * command's required positionals. So `--` is dropped and each argument after it passed on as a
  * positional, one that starts with `-` (other than `-` alone: standard input) as `./` + it.
  */
-export function operandsAfterDashes(args: readonly string[]): string[] {
+function operandsAfterDashes(args: readonly string[]): string[] {
   const at = args.indexOf('--');
   if (at < 0) return [...args];
   return [...args.slice(0, at), ...args.slice(at + 1).map((arg) => (arg.startsWith('-') && arg !== '-' ? `./${arg}` : arg))];

@@ -1,4 +1,5 @@
-/** The lazily loaded command table of src/cli/commands.ts: each name is its module's command. */
+/** The lazily loaded command table of src/cli/commands.ts (each name is its module's command), and
+ *  how `quern` (src/cli/main.ts) reads the arguments after `--`. */
 import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
 import * as os from 'node:os';
 import * as path from 'node:path';
@@ -23,7 +24,9 @@ describe('command table', () => {
     expect(typo.status).toBe(2);
     expect(typo.stderr).toMatch(/report/);
   });
+});
 
+describe('arguments', () => {
   it('after --, every argument is an operand: a file named -x.txt is counted; --job there is a file name too', async () => {
     // The usual convention of command-line tools (common practice): `--` ends the options.
     const dir = mkdtempSync(path.join(os.tmpdir(), 'quern-dashes-'));

@@ -46,7 +46,9 @@
  * distinct n-grams and the occurrences of every order — and stops with exit status 1 if not.
  *
  * Throughput is the corpus's tokens (words, as quern reports them) over the wall time measured by
- * GNU time, start-up included, for both tools. The pipeline's peak RSS is that of its largest
+ * GNU time, start-up included, for both tools. Beside it, each run's CPU time (user + system, all
+ * its processes and threads, GNU time), which moves less than wall time with a shared machine's
+ * load; with --against, the ratio of the CPU times too. The pipeline's peak RSS is that of its largest
  * process (sort), as GNU time reports for a command's descendants; quern's is the whole process,
  * worker threads included. Quern's peak RSS is compared with the bound DEVELOPERS.md states,
  * `rssBoundBytes(--memory, workers)`; a run above it ends the benchmark with exit status 1 after
@@ -136,6 +138,9 @@ interface Corpus {
 interface ToolResult {
   tool: 'quern' | 'pipeline';
   wallMs: number;
+  /** User + system CPU time of all its processes and threads (GNU time): moves less than wall time
+   *  with a shared machine's load. */
+  cpuMs: number;
   tokensPerSecond: number;
   rssBytesMax: number;
   distinct: number[];
@@ -417,6 +422,7 @@ async function runQuern(corpus: Corpus, order: number, options: Options, build: 
   return {
     tool: 'quern',
     wallMs: measured.elapsedMs,
+    cpuMs: measured.cpuMs,
     tokensPerSecond: perSecond(corpus.manifest.tokens, measured.elapsedMs),
     rssBytesMax: measured.rssBytesMax,
     distinct: summary.distinct,
@@ -478,6 +484,7 @@ async function runPipeline(corpus: Corpus, order: number, options: Options): Pro
   return {
     tool: 'pipeline',
     wallMs: measured.elapsedMs,
+    cpuMs: measured.cpuMs,
     tokensPerSecond: perSecond(corpus.manifest.tokens, measured.elapsedMs),
     rssBytesMax: measured.rssBytesMax,
     distinct: tally.distinct,
@@ -537,14 +544,14 @@ function renderTable(rows: string[][], rightAligned: ReadonlySet<number>): strin
 }
 
 function printResults(results: readonly PairResult[], options: Options): void {
-  const rows: string[][] = [['shape', 'order', 'tool', 'wall s', 'tokens/s', 'peak RSS', 'quern/pipeline', 'target', 'met', 'load']];
+  const rows: string[][] = [['shape', 'order', 'tool', 'wall s', 'CPU s', 'tokens/s', 'peak RSS', 'quern/pipeline', 'target', 'met', 'load']];
   for (const r of results) {
     const target = r.targetRatio === null ? '—' : `≥ ${r.targetRatio}×`;
     const met = r.targetMet === null ? '—' : r.targetMet ? 'yes' : 'NO';
-    rows.push([r.shape, String(r.order), 'quern', (r.quern.wallMs / 1000).toFixed(2), formatRate(r.quern.tokensPerSecond), formatSize(r.quern.rssBytesMax), r.ratio === null ? '—' : `${r.ratio.toFixed(2)}×`, target, met, r.quern.loadAverage1m.toFixed(1)]);
-    if (r.pipeline) rows.push([r.shape, String(r.order), 'pipeline', (r.pipeline.wallMs / 1000).toFixed(2), formatRate(r.pipeline.tokensPerSecond), formatSize(r.pipeline.rssBytesMax), '', '', '', r.pipeline.loadAverage1m.toFixed(1)]);
+    rows.push([r.shape, String(r.order), 'quern', (r.quern.wallMs / 1000).toFixed(2), (r.quern.cpuMs / 1000).toFixed(2), formatRate(r.quern.tokensPerSecond), formatSize(r.quern.rssBytesMax), r.ratio === null ? '—' : `${r.ratio.toFixed(2)}×`, target, met, r.quern.loadAverage1m.toFixed(1)]);
+    if (r.pipeline) rows.push([r.shape, String(r.order), 'pipeline', (r.pipeline.wallMs / 1000).toFixed(2), (r.pipeline.cpuMs / 1000).toFixed(2), formatRate(r.pipeline.tokensPerSecond), formatSize(r.pipeline.rssBytesMax), '', '', '', r.pipeline.loadAverage1m.toFixed(1)]);
   }
-  process.stdout.write(`\n${renderTable(rows, new Set([1, 3, 4, 5, 6, 9]))}\n`);
+  process.stdout.write(`\n${renderTable(rows, new Set([1, 3, 4, 5, 6, 7, 10]))}\n`);
   process.stdout.write(`(load: the machine's 1-minute load average as the run started; above ${os.availableParallelism()} other work shared the CPUs)\n\n`);
 
   const workers = results[0]?.quern.workers ?? options.workers;
@@ -606,22 +613,23 @@ function median(values: readonly number[]): number {
 /** --against: this checkout's times over REV's, whole command and per stage (medians), and each pair. */
 function printAgainst(results: readonly PairResult[], name: string): void {
   const stages = ['vocabulary', 'count', 'merge', 'continuation'];
-  const rows: string[][] = [['shape', 'order', 'build', 'wall s (each run)', 'median', ...stages.map((s) => `${s} s`), 'peak RSS', 'load']];
+  const rows: string[][] = [['shape', 'order', 'build', 'wall s (each run)', 'median', 'CPU s', ...stages.map((s) => `${s} s`), 'peak RSS', 'load']];
   const ratios: string[] = [];
   for (const r of results) {
     if (!r.runs) continue;
     for (const [build, runs] of [['this', r.runs.this], [name, r.runs.against]] as const) {
       rows.push([
         r.shape, String(r.order), build, runs.map((q) => (q.wallMs / 1000).toFixed(2)).join(' '), (median(runs.map((q) => q.wallMs)) / 1000).toFixed(2),
+        (median(runs.map((q) => q.cpuMs)) / 1000).toFixed(2),
         ...stages.map((stage) => (median(runs.map((q) => q.stageMs?.[stage] ?? 0)) / 1000).toFixed(2)),
         formatSize(Math.max(...runs.map((q) => q.rssBytesMax))), runs.map((q) => q.loadAverage1m.toFixed(1)).join(' '),
       ]);
     }
     const ratio = (f: (q: QuernResult) => number): string => (median(r.runs!.this.map(f)) / median(r.runs!.against.map(f))).toFixed(2);
-    ratios.push(`${r.shape}, order ${r.order}: this checkout ${ratio((q) => q.wallMs)}× ${name}'s wall time; by stage ` +
+    ratios.push(`${r.shape}, order ${r.order}: this checkout ${ratio((q) => q.wallMs)}× ${name}'s wall time, ${ratio((q) => q.cpuMs)}× its CPU time; by stage ` +
       stages.map((stage) => `${stage} ${ratio((q) => q.stageMs?.[stage] ?? 0)}×`).join(', ') + ` (medians of ${r.runs.this.length} runs each, alternating)`);
   }
-  process.stdout.write(`\nquern count of this checkout beside ${name}'s, same corpus and options, alternately:\n${renderTable(rows, new Set([1, 4, 5, 6, 7, 8, 9]))}\n`);
+  process.stdout.write(`\nquern count of this checkout beside ${name}'s, same corpus and options, alternately:\n${renderTable(rows, new Set([1, 4, 5, 6, 7, 8, 9, 10]))}\n`);
   for (const line of ratios) process.stdout.write(`${line}\n`);
 }
 

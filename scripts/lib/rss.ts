@@ -1,12 +1,14 @@
 /**
- * Runs a command under GNU time (`/usr/bin/time -f '%e %M'`) and returns its wall time and peak
- * resident set size, for benchmarks. GNU time writes its report to a temporary file (`-o`), so
+ * Runs a command under GNU time (`/usr/bin/time -f '%e %M %U %S'`) and returns its wall time, peak
+ * resident set size and CPU time, for benchmarks. GNU time writes its report to a temporary file (`-o`), so
  * whatever the command itself prints on stderr is kept apart from the measurement.
  *
  * `%e` is the elapsed wall time in seconds (two decimals) and `%M` the maximum resident set size
  * of the process in KiB, as reported by the kernel (getrusage ru_maxrss) for the command and the
  * descendants it waited for: for a command that forks workers, the figure is the largest single
- * process, not the sum.
+ * process, not the sum. `%U` and `%S` are the user and system CPU seconds of the command and those
+ * descendants (all threads): on a shared machine whose speed moves, CPU time moves less than wall
+ * time with the neighbours' load, and shows work a change added or removed.
  */
 import { spawn } from 'node:child_process';
 import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
@@ -38,6 +40,8 @@ export interface Measurement {
   elapsedMs: number;
   /** Peak resident set size in bytes (GNU time reports KiB). */
   rssBytesMax: number;
+  /** User plus system CPU time of the command and its waited-for descendants (10 ms resolution). */
+  cpuMs: number;
   /** Exit status of the command, or null when it was ended by a signal. */
   exitCode: number | null;
   /** Signal number that ended the command, or null. */
@@ -66,7 +70,7 @@ export function measureCommand(command: string, args: readonly string[], options
 
   return new Promise<Measurement>((resolvePromise, rejectPromise) => {
     // detached: the command gets its own process group, so a timeout can end it and its children.
-    const child = spawn(GNU_TIME_PATH, ['-f', '%e %M', '-o', reportPath, command, ...args], {
+    const child = spawn(GNU_TIME_PATH, ['-f', '%e %M %U %S', '-o', reportPath, command, ...args], {
       cwd: options.cwd,
       env: options.env ?? process.env,
       stdio: ['ignore', stdoutMode, stderrMode],
@@ -129,6 +133,7 @@ export function measureCommand(command: string, args: readonly string[], options
       resolvePromise({
         elapsedMs: parsed.elapsedMs,
         rssBytesMax: parsed.rssBytesMax,
+        cpuMs: parsed.cpuMs,
         exitCode: parsed.signal !== null ? null : (parsed.exitCode ?? timeExitCode),
         signal: parsed.signal,
         timedOut,
@@ -140,17 +145,17 @@ export function measureCommand(command: string, args: readonly string[], options
 }
 
 /**
- * Parses a GNU time report written with `-f '%e %M'`. GNU time puts "Command exited with non-zero
+ * Parses a GNU time report written with `-f '%e %M %U %S'`. GNU time puts "Command exited with non-zero
  * status N" or "Command terminated by signal N" on a line before the format line when that applies.
  * Returns null when there is no format line.
  */
 export function parseTimeReport(
   report: string,
-): { elapsedMs: number; rssBytesMax: number; exitCode: number | null; signal: number | null } | null {
+): { elapsedMs: number; rssBytesMax: number; cpuMs: number; exitCode: number | null; signal: number | null } | null {
   const lines = report.split('\n').map((line) => line.trim()).filter((line) => line.length > 0);
   const last = lines.at(-1);
   if (last === undefined) return null;
-  const match = /^(\d+(?:\.\d+)?) (\d+)$/.exec(last);
+  const match = /^(\d+(?:\.\d+)?) (\d+) (\d+(?:\.\d+)?) (\d+(?:\.\d+)?)$/.exec(last);
   if (match === null) return null;
   let exitCode: number | null = null;
   let signal: number | null = null;
@@ -163,6 +168,7 @@ export function parseTimeReport(
   return {
     elapsedMs: Math.round(Number(match[1]) * 1000),
     rssBytesMax: Number(match[2]) * 1024,
+    cpuMs: Math.round((Number(match[3]) + Number(match[4])) * 1000),
     exitCode: signal === null && exitCode === null ? 0 : exitCode,
     signal,
   };

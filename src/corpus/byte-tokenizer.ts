@@ -4,10 +4,10 @@
  * space, where white space is exactly the tokenizer's set (JS `\s`, `isSpaceCode` in tokenize.ts):
  * the ASCII ones and U+00A0, U+1680, U+2000–U+200A, U+2028, U+2029, U+202F, U+205F, U+3000,
  * U+FEFF, recognised by their byte sequences. No string is made per token: each token is hashed
- * while its end is sought and looked up in the word table by its bytes, 256 tokens at a time, so
- * that the table's cache misses overlap (`WordTable.lookupBatch`: the vocabulary pass's tokenizing
- * and interning in 0.68–0.80× the time of one lookup per token, on a 33 MB chunk of the benchmark
- * corpus, alternating in one process).
+ * while its end is sought and looked up in the word table by its bytes; a `WordTable` takes them
+ * 256 at a time, so that its cache misses overlap (`WordTable.lookupBatch`: tokenizing and
+ * interning in 0.54–0.77× the time of one lookup per token in two runs of `npm run bench:kernels
+ * -- --against 878c82d --only scan`).
  *
  * The result of a block of lines is a `TokenBlock`: the tokens' entries in order and where each
  * sentence (non-blank line) ends. Lines that need what only strings offer (Unicode normalisation,
@@ -124,8 +124,11 @@ export function scanLines(bytes: Uint8Array, start: number, end: number, table: 
   let entries = out.entries;
   let tokens = out.tokens;
   let lineStart = tokens;
-  // Tokens are looked up a batch at a time (`lookupBatch`): their entries are filled in when the
-  // batch is full, before the entries array grows, and at the end.
+  // A table with `lookupBatch` gets the tokens a batch at a time: their entries are filled in when
+  // the batch is full, before the entries array grows, and at the end. Any other lookup (a model
+  // file's vocabulary, small enough to stay in the caches) answers each token as it is found, with
+  // nothing held back for a batch.
+  const batched = table.lookupBatch !== undefined;
   const batch = scanBatch;
   let pending = 0;
   let p = start;
@@ -165,6 +168,10 @@ export function scanLines(bytes: Uint8Array, start: number, end: number, table: 
       out.tokens = tokens;
       entries = growEntries(out);
     }
+    if (!batched) {
+      entries[tokens++] = intern ? table.intern!(bytes, tokenStart, p, h) : table.find(bytes, tokenStart, p, h);
+      continue;
+    }
     batch.starts[pending] = tokenStart;
     batch.ends[pending] = p;
     batch.hashes[pending] = h;
@@ -186,16 +193,9 @@ const SCAN_BATCH_TOKENS = 256;
 /** The token batch of `scanLines` (one per thread: scanLines does not nest). */
 const scanBatch = { starts: new Int32Array(SCAN_BATCH_TOKENS), ends: new Int32Array(SCAN_BATCH_TOKENS), hashes: new Int32Array(SCAN_BATCH_TOKENS) };
 
-/** The entries of the batch's first `count` tokens into entries[at ..]. */
+/** The entries of the batch's first `count` tokens into entries[at ..] (a table with lookupBatch). */
 function lookUp(bytes: Uint8Array, table: WordLookup, intern: boolean, batch: typeof scanBatch, count: number, entries: Int32Array, at: number): void {
-  if (count === 0) return;
-  if (table.lookupBatch !== undefined) {
-    table.lookupBatch(bytes, batch.starts, batch.ends, batch.hashes, count, intern, entries, at);
-    return;
-  }
-  for (let i = 0; i < count; i++) {
-    entries[at + i] = intern ? table.intern!(bytes, batch.starts[i], batch.ends[i], batch.hashes[i]) : table.find(bytes, batch.starts[i], batch.ends[i], batch.hashes[i]);
-  }
+  if (count > 0) table.lookupBatch!(bytes, batch.starts, batch.ends, batch.hashes, count, intern, entries, at);
 }
 
 /**

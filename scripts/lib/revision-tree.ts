@@ -2,6 +2,8 @@
  * A git revision's files extracted into a scratch folder, for benchmarks that run another revision's
  * code beside this checkout's (--against): `git archive` of the given paths, untarred, with this
  * checkout's node_modules linked in so that the revision's code runs with the same dependencies.
+ * When the paths include `bin` (the launcher) and the revision has scripts/build.mjs, its sources
+ * are compiled there too, as `npm ci` compiles this checkout's: both then start the same way.
  */
 import { execFileSync, spawnSync } from 'node:child_process';
 import { mkdirSync, rmSync, symlinkSync } from 'node:fs';
@@ -27,5 +29,13 @@ export function extractRevision(repo: string, revision: string, paths: readonly 
   const untar = spawnSync('tar', ['-x', '-C', tree], { input: archive.stdout });
   if (untar.status !== 0) throw new Error(`tar failed: ${untar.stderr.toString()}`);
   symlinkSync(join(repo, 'node_modules'), join(tree, 'node_modules'));
+  if (paths.includes('bin') && spawnSync('git', ['cat-file', '-e', `${hash}:scripts/build.mjs`], { cwd: repo }).status === 0) {
+    const extra = spawnSync('git', ['archive', '--format=tar', hash, 'scripts/build.mjs', 'tsconfig.build.json'], { cwd: repo, maxBuffer: 1 << 30 });
+    if (extra.status !== 0) throw new Error(`git archive ${hash} failed: ${extra.stderr.toString()}`);
+    const untarExtra = spawnSync('tar', ['-x', '-C', tree], { input: extra.stdout });
+    if (untarExtra.status !== 0) throw new Error(`tar failed: ${untarExtra.stderr.toString()}`);
+    const built = spawnSync(process.execPath, [join(tree, 'scripts/build.mjs')], { cwd: tree, encoding: 'utf8' });
+    if (built.status !== 0) throw new Error(`building ${hash}'s sources failed: ${built.stderr}${built.stdout}`);
+  }
   return { hash, tree };
 }

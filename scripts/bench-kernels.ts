@@ -10,6 +10,8 @@
  *   encode   encodeBlock of the same blocks
  *   tally    TallyBuilder.add of 3 M order-5 rows (src/merge/tally.ts)
  *   merge    mergeRuns of 3 in-memory runs of 1 M order-5 rows, 30 % of them in every run
+ *   merge3   mergeRuns of 6 in-memory runs of 400,000 order-3 rows, 30 % of them in every run (the
+ *            count's 6 chunk groups at order 3)
  *   count3   a CounterSet of order 3 (as a count worker makes it) counting 2 M positions of
  *   count5   sentences, then every counter's spillOrder; order 5 likewise
  *   scan     scanLines of 2 M tokens of text (Zipf-like words) into a fresh WordTable, as the
@@ -28,7 +30,7 @@ import { Prng } from './lib/prng.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
-const KERNELS = ['decode', 'encode', 'tally', 'merge', 'count3', 'count5', 'scan'] as const;
+const KERNELS = ['decode', 'encode', 'tally', 'merge', 'merge3', 'count3', 'count5', 'scan'] as const;
 type Kernel = (typeof KERNELS)[number];
 
 const { values } = parseArgs({ options: { against: { type: 'string' }, rounds: { type: 'string', default: '8' }, only: { type: 'string' } } });
@@ -91,18 +93,21 @@ const blocks = Array.from({ length: 400 }, () => {
 const blockRecords = blocks.reduce((sum, b) => sum + b.records, 0);
 const tallyRows = sortedRows(3_000_000, ORDER);
 const tallyCounts = Float64Array.from({ length: tallyRows.length / ORDER }, () => 1 + random.int(3));
-const shared = sortedRows(300_000, ORDER);
-const runs = Array.from({ length: 3 }, () => {
-  const own = sortedRows(700_000, ORDER);
-  const all: number[][] = [];
-  for (const keys of [shared, own]) for (let r = 0; r < keys.length / ORDER; r++) all.push(Array.from(keys.subarray(r * ORDER, (r + 1) * ORDER)));
-  all.sort((a, b) => { for (let j = 0; j < ORDER; j++) if (a[j] !== b[j]) return a[j] - b[j]; return 0; });
-  const out: number[] = [];
-  let last: number[] | undefined;
-  for (const row of all) if (!last || row.some((id, j) => id !== last![j])) { out.push(...row); last = row; }
-  return Uint32Array.from(out);
-});
-const mergeRecords = runs.reduce((sum, r) => sum + r.length / ORDER, 0);
+/** `count` sorted distinct runs of `own + shared` rows of `order` ids, the `shared` rows in every run. */
+function mergeInputs(count: number, order: number, own: number, shared: number): Uint32Array[] {
+  const common = sortedRows(shared, order);
+  return Array.from({ length: count }, () => {
+    const all: number[][] = [];
+    for (const keys of [common, sortedRows(own, order)]) for (let r = 0; r < keys.length / order; r++) all.push(Array.from(keys.subarray(r * order, (r + 1) * order)));
+    all.sort((a, b) => { for (let j = 0; j < order; j++) if (a[j] !== b[j]) return a[j] - b[j]; return 0; });
+    const out: number[] = [];
+    let last: number[] | undefined;
+    for (const row of all) if (!last || row.some((id, j) => id !== last![j])) { out.push(...row); last = row; }
+    return Uint32Array.from(out);
+  });
+}
+const runs = mergeInputs(3, ORDER, 700_000, 300_000);
+const runs3 = mergeInputs(6, 3, 280_000, 120_000);
 /** Sentences of 5–30 words, wrapped in <s> = 0 and </s> = 1, for the counters. */
 const sentenceStarts: number[] = [0];
 const sentenceIds: number[] = [];
@@ -123,6 +128,40 @@ const text = Buffer.from(
   'latin1',
 );
 const textTokens = sentenceIds.length - 2 * (starts.length - 1);
+
+/** mergeRuns over in-memory runs of `order` rows, in batches of 8,192 as a run reader gives them. */
+async function mergeKernel(m: Modules, inputs: Uint32Array[], order: number): Promise<{ ns: number; check: string }> {
+  const sources = inputs.map((keys, s) => {
+    let at = 0;
+    const rows = keys.length / order;
+    return {
+      name: `run ${s}`, order,
+      async nextBatch() {
+        if (at >= rows) return null;
+        const end = Math.min(rows, at + 8192);
+        const batch = { keys: keys.subarray(at * order, end * order), counts: new Float64Array(end - at).fill(1), recordCount: end - at };
+        at = end;
+        return batch;
+      },
+      async close() {},
+    };
+  });
+  const records = inputs.reduce((sum, r) => sum + r.length / order, 0);
+  const t0 = performance.now();
+  const batches = [];
+  for await (const batch of m.merge.mergeRuns(sources, order)) batches.push(batch);
+  const ns = ((performance.now() - t0) * 1e6) / records;
+  // Checked after the clock stops: the output batches are fresh arrays (takeOutput), kept until here.
+  let out = 0;
+  let total = 0;
+  let digest = 0;
+  for (const batch of batches) {
+    out += batch.recordCount;
+    for (let r = 0; r < batch.recordCount; r++) total += batch.counts[r];
+    for (let i = 0; i < batch.recordCount * order; i++) digest = (Math.imul(digest, 31) + batch.keys[i]) | 0;
+  }
+  return { ns, check: `${out} ${total} ${digest}` };
+}
 
 /** Runs a kernel once: its time per item in ns and a check value. */
 type Run = (m: Modules) => Promise<{ ns: number; check: string }>;
@@ -160,31 +199,8 @@ const kernels: Record<Kernel, Run> = {
     const ns = ((performance.now() - t0) * 1e6) / rows;
     return { ns, check: JSON.stringify(tally.finish()) };
   },
-  async merge(m) {
-    const sources = runs.map((keys, s) => {
-      let at = 0;
-      const rows = keys.length / ORDER;
-      return {
-        name: `run ${s}`, order: ORDER,
-        async nextBatch() {
-          if (at >= rows) return null;
-          const end = Math.min(rows, at + 8192);
-          const batch = { keys: keys.subarray(at * ORDER, end * ORDER), counts: new Float64Array(end - at).fill(1), recordCount: end - at };
-          at = end;
-          return batch;
-        },
-        async close() {},
-      };
-    });
-    const t0 = performance.now();
-    let out = 0;
-    let total = 0;
-    for await (const batch of m.merge.mergeRuns(sources, ORDER)) {
-      out += batch.recordCount;
-      for (let r = 0; r < batch.recordCount; r++) total += batch.counts[r];
-    }
-    return { ns: ((performance.now() - t0) * 1e6) / mergeRecords, check: `${out} ${total}` };
-  },
+  merge: (m) => mergeKernel(m, runs, ORDER),
+  merge3: (m) => mergeKernel(m, runs3, 3),
   count3: (m) => countAndSpill(m, 3),
   count5: (m) => countAndSpill(m, 5),
   async scan(m) {

@@ -4,13 +4,16 @@
  * the same commands, alternately in one run (which goes first changes each round), so that the
  * ratio holds on a machine whose speed moves.
  *
- *   npm run bench:startup [-- --rounds 9 --workers 2]
+ *   npm run bench:startup [-- --rounds 9 --workers 2] [--corpus DIR --order 5]
  *
  * Commands (the bundled sample data; a model of it built once, before the rounds):
  *   help    quern --help                                   the CLI and yargs, no work
  *   info    quern info MODEL                               opening a small model file
  *   count   quern count SHARD --order 3 --workers K        a tiny job: K worker threads start
  *   score   quern score MODEL HELDOUT --workers K          score workers start and open the model
+ *   build   quern build DIR --order N --workers K          with --corpus DIR only: the whole job on a
+ *                                                          corpus (e.g. bench:count's 20 MB one), where
+ *                                                          each stage's workers load their modules
  *
  * Prints the median and least wall time (GNU time, 10 ms resolution) and the median CPU time (user +
  * system, every thread) of each, and the ratios of the medians (compiled / sources). Exits with
@@ -30,7 +33,9 @@ const BIN = join(REPO, 'bin/quern.js');
 const MODES = ['compiled', 'sources'] as const;
 type Mode = (typeof MODES)[number];
 
-const { values } = parseArgs({ options: { rounds: { type: 'string', default: '9' }, workers: { type: 'string', default: '2' } } });
+const { values } = parseArgs({
+  options: { rounds: { type: 'string', default: '9' }, workers: { type: 'string', default: '2' }, corpus: { type: 'string' }, order: { type: 'string', default: '5' } },
+});
 const rounds = Number(values.rounds);
 const workers = Number(values.workers);
 if (!Number.isInteger(rounds) || rounds < 1) throw new Error(`--rounds must be a positive integer, got ${values.rounds}`);
@@ -65,6 +70,14 @@ const COMMANDS: Command[] = [
   { name: 'count', args: (job) => ['count', shard, '--job', job, '--order', '3', '--workers', String(workers), '--quiet'], output: withoutTimes },
   { name: 'score', args: () => ['score', model, heldout, '--workers', String(workers), '--quiet'], output: (s) => s },
 ];
+if (values.corpus !== undefined) {
+  const corpus = resolve(values.corpus);
+  COMMANDS.push({
+    name: 'build',
+    args: (job) => ['build', corpus, '--order', values.order!, '--workers', String(workers), '--job', job, '--out', join(job, 'model.qm'), '--quiet'],
+    output: (s) => s.replace(/^.*job.*$/gm, 'J').replace(/[0-9.]+ ?(ms|s)\b/g, 'T'),
+  });
+}
 
 const times = new Map<string, Measurement[]>();
 const outputs = new Map<string, string>();

@@ -23,13 +23,12 @@ export function sourceStamp(root) {
   return createHash('sha256').update(lines.join('\n')).digest('hex');
 }
 
-/** True when `built` holds a stamp equal to `sources`' current one (false when it has none). */
+/** True when `built` holds a stamp equal to `sources`' current one (false when it has none, or
+ *  when either cannot be read: the sources then run, and say what is wrong if they cannot). */
 export function builtFrom(built, sources) {
-  let recorded;
   try {
-    recorded = readFileSync(join(built, STAMP_FILE), 'utf8').trim();
+    return readFileSync(join(built, STAMP_FILE), 'utf8').trim() === sourceStamp(sources);
   } catch {
     return false;
   }
-  return recorded === sourceStamp(sources);
 }

@@ -65,17 +65,22 @@ describe('bin/quern.js and scripts/build.mjs', () => {
     expect(launch({ QUERN_FROM_SOURCE: '1' })).toBe('source harbour');
   });
 
-  it('never runs a stale build: an edited, touched, added or removed source sends it to the sources', { timeout: 60_000 }, () => {
+  it('never runs a stale build: an edited, added or removed source sends it to the sources, a touched one does not', { timeout: 60_000 }, () => {
     write('src/cli/word.ts', "export const word: string = 'lighthouse';\n");
     expect(launch()).toBe('source lighthouse');
     expect(build('--check').status).toBe(1);
 
     expect(build().status).toBe(0);
     expect(launch()).toBe('compiled lighthouse');
-    // Same size, later time (an editor's save of identical length).
+    // The same length, other bytes.
+    write('src/cli/word.ts', "export const word: string = 'LIGHTHOUSE';\n");
+    expect(launch()).toBe('source LIGHTHOUSE');
+    write('src/cli/word.ts', "export const word: string = 'lighthouse';\n");
+    expect(launch()).toBe('compiled lighthouse');
+    // Touched, not changed (a checkout or an unpacked package with the same sources): still current.
     const later = new Date(Date.now() + 5_000);
     utimesSync(path.join(project, 'src/cli/word.ts'), later, later);
-    expect(launch()).toBe('source lighthouse');
+    expect(launch()).toBe('compiled lighthouse');
 
     expect(build().status).toBe(0);
     write('src/cli/extra.ts', 'export {};\n');

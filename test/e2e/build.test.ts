@@ -1,6 +1,6 @@
 /** The whole job in one command, and scoring with the packed model, against the in-memory estimator. */
 import { spawnSync } from 'node:child_process';
-import { existsSync, readFileSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readFileSync, symlinkSync, writeFileSync } from 'node:fs';
 import * as path from 'node:path';
 import { describe, expect, test } from 'vitest';
 import { loadCountTables } from '../../src/estimate/from-store.ts';
@@ -40,7 +40,7 @@ describe('quern build and quern score', () => {
 
     // The README's library example runs as written on this model (imports pointed at the source).
     const readme = readFileSync(path.join(REPO, 'README.md'), 'utf8');
-    const example = /## Library[\s\S]*?```ts\n([\s\S]*?)```/.exec(readme)?.[1];
+    const example = /## Library[\s\S]*?```js\n([\s\S]*?)```/.exec(readme)?.[1];
     expect(example).toBeDefined();
     const script = path.join(dir, 'readme-example.mts');
     writeFileSync(script, example!.replace("from 'quern'", `from ${JSON.stringify(path.join(REPO, 'src/index.ts'))}`).replace("'model.qm'", JSON.stringify(out)));
@@ -51,6 +51,22 @@ describe('quern build and quern score', () => {
     expect(printed).toHaveLength(8); // 5 words and </s>, the next words, the three sums
     expect(printed[5]).toMatch(/^<\/s> -\d+\.\d{3} [1-3]$/);
     expect(JSON.parse(printed[6].replaceAll("'", '"'))).toHaveLength(3);
+
+    // And as a plain JavaScript program of a package that depends on quern: `import … from 'quern'`
+    // through package.json's exports, the compiled dist/ (current in CI: npm ci built it; on a
+    // checkout whose sources changed since the last build, `npm run build` first).
+    if (spawnSync(process.execPath, [path.join(REPO, 'scripts/build.mjs'), '--check']).status === 0) {
+      const consumer = path.join(dir, 'consumer');
+      mkdirSync(path.join(consumer, 'node_modules'), { recursive: true });
+      symlinkSync(REPO, path.join(consumer, 'node_modules', 'quern'));
+      writeFileSync(path.join(consumer, 'package.json'), '{ "type": "module" }\n');
+      writeFileSync(path.join(consumer, 'example.js'), example!.replace("'model.qm'", JSON.stringify(out)));
+      const plain = spawnSync(process.execPath, ['example.js'], { cwd: consumer, encoding: 'utf8' });
+      expect(plain.stderr).toBe('');
+      expect(plain.stdout).toBe(ran.stdout);
+    } else {
+      process.stderr.write('build.test.ts: dist/ is not current (npm run build): the README example was not run as plain JavaScript\n');
+    }
 
     // quern pack JOB: the job's estimate packed again: the same bytes as build wrote, or 8-bit codes.
     const again = path.join(dir, 'again.qm');

@@ -68,7 +68,7 @@ import { rssBoundBytes } from '../src/count/stage.ts';
 import { PROCESS_OVERHEAD_BYTES, WORKER_OVERHEAD_BYTES, ORDER_MAX } from '../src/limits.ts';
 import { AWK_PROGRAM } from '../test/support/reference-count.ts';
 import { tallyUniqCounts, type OrderTally } from './lib/bench-uniq-tally.ts';
-import { quernProgramEnv } from './lib/quern-env.ts';
+import { ensureCompiled, quernProgramEnv } from './lib/quern-env.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 import { measureCommand, type Measurement } from './lib/rss.ts';
 import { SHAPE_SHARDS, shardName, type CorpusShape } from './lib/synthetic.ts';
@@ -76,6 +76,9 @@ import { storeDigest } from '../src/merge/digest.ts';
 import { PartitionStore, partitionStoreDir, StoreSource } from '../src/merge/store.ts';
 import { mergeRuns } from '../src/count/run-merge.ts';
 import { createHash } from 'node:crypto';
+
+// quern runs compiled, as after npm ci (a stale dist/ is rebuilt first).
+ensureCompiled();
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
 const BENCH_OUT = join(REPO, 'bench-out');

@@ -56,9 +56,12 @@ import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
 import { countTablesBytes } from '../src/estimate/from-store.ts';
 import type { JobManifest } from '../src/job/manifest.ts';
-import { hugePagesEnv } from './lib/quern-env.ts';
+import { ensureCompiled, hugePagesEnv } from './lib/quern-env.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 import { GNU_TIME_PATH, measureCommand, type Measurement } from './lib/rss.ts';
+
+// quern runs compiled, as after npm ci (a stale dist/ is rebuilt first).
+ensureCompiled();
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
 const BENCH_OUT = join(REPO, 'bench-out');

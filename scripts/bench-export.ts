@@ -15,9 +15,12 @@ import { join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
 import { fileDigest } from './lib/file-digest.ts';
-import { hugePagesEnv } from './lib/quern-env.ts';
+import { ensureCompiled, hugePagesEnv } from './lib/quern-env.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 import { GNU_TIME_PATH, measureCommand } from './lib/rss.ts';
+
+// quern runs compiled, as after npm ci (a stale dist/ is rebuilt first).
+ensureCompiled();
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
 const BENCH_OUT = join(REPO, 'bench-out');

@@ -24,6 +24,10 @@ import bytes from 'bytes-iec';
 import { rssBoundBytes } from '../src/count/stage.ts';
 import { PROCESS_OVERHEAD_BYTES, WORKER_OVERHEAD_BYTES } from '../src/limits.ts';
 import { measureCommand } from './lib/rss.ts';
+import { ensureCompiled } from './lib/quern-env.ts';
+
+// quern runs compiled, as after npm ci (a stale dist/ is rebuilt first).
+ensureCompiled();
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
 const QUERN_BIN = join(REPO, 'bin/quern.js');

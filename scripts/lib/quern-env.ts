@@ -5,12 +5,13 @@
  * already. Benchmarks that start Node themselves (`node --import tsx script.ts`) take the same
  * environment from here, computed by running that very shell line, so the rule is written once.
  */
-import { execFileSync } from 'node:child_process';
+import { execFileSync, spawnSync } from 'node:child_process';
 import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 
-const BIN = join(fileURLToPath(new URL('../..', import.meta.url)), 'bin/quern.js');
+const REPO_ROOT = fileURLToPath(new URL('../..', import.meta.url));
+const BIN = join(REPO_ROOT, 'bin/quern.js');
 const PREFIX = "':' //;";
 const SUFFIX = 'exec node "$0" "$@"';
 
@@ -41,4 +42,19 @@ export function hugePagesEnv(mode: 'on' | 'off', base: NodeJS.ProcessEnv = proce
   if (tunables.length === 0) delete env.GLIBC_TUNABLES;
   else env.GLIBC_TUNABLES = tunables.join(':');
   return env;
+}
+
+/**
+ * Makes sure `bin/quern.js` of this checkout runs the compiled `dist/` (scripts/build.mjs), as it
+ * does after `npm ci`: a benchmark that starts the CLI after the sources changed would otherwise
+ * measure them through tsx, which starts every process and worker thread more slowly (DEVELOPERS.md,
+ * "Start-up"), beside a revision (`--against`) that extractRevision compiled. Builds when needed
+ * and says so on stderr; throws when the build fails.
+ */
+export function ensureCompiled(): void {
+  const script = join(REPO_ROOT, 'scripts/build.mjs');
+  if (spawnSync(process.execPath, [script, '--check'], { stdio: 'ignore' }).status === 0) return;
+  process.stderr.write('dist/ is not current for src/: building it (npm run build), so that quern runs compiled as after npm ci\n');
+  const built = spawnSync(process.execPath, [script], { stdio: ['ignore', 'ignore', 'inherit'] });
+  if (built.status !== 0) throw new Error(`npm run build failed (status ${built.status})`);
 }

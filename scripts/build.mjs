@@ -29,7 +29,7 @@ try {
   tsc = createRequire(import.meta.url).resolve('typescript/bin/tsc');
 } catch {
   // An install without the dev dependencies: quern runs from the sources, as it always can.
-  process.stdout.write('quern build: typescript is not installed; quern will run its sources through tsx\n');
+  process.stdout.write('quern build: typescript is not installed, so no dist/: the quern command runs its sources through tsx, and a program that imports quern needs dist/ (npm run build with the dev dependencies)\n');
   process.exit(0);
 }
 

@@ -631,6 +631,13 @@ function printAgainst(results: readonly PairResult[], name: string): void {
     const ratio = (f: (q: QuernResult) => number): string => (median(r.runs!.this.map(f)) / median(r.runs!.against.map(f))).toFixed(2);
     ratios.push(`${r.shape}, order ${r.order}: this checkout ${ratio((q) => q.wallMs)}× ${name}'s wall time, ${ratio((q) => q.cpuMs)}× its CPU time; by stage ` +
       stages.map((stage) => `${stage} ${ratio((q) => q.stageMs?.[stage] ?? 0)}×`).join(', ') + ` (medians of ${r.runs.this.length} runs each, alternating)`);
+    // Each run over the other build's run of the same round: when these disagree, the machine's
+    // speed moved during the benchmark more than the builds differ (seen: 0.85× from two rounds,
+    // 0.97× from four on an idle machine, for the same pair of builds).
+    const pairs = r.runs.this.map((q, i) => q.cpuMs / r.runs!.against[i].cpuMs);
+    const spread = Math.max(...pairs) - Math.min(...pairs);
+    ratios.push(`  CPU time round by round: ${pairs.map((x) => `${x.toFixed(2)}×`).join(' ')}` +
+      (pairs.length < 2 || spread > 0.1 ? ` — ${pairs.length < 2 ? 'one round' : `spread ${spread.toFixed(2)}`}: too few or too scattered to tell a change of a few per cent from the machine's drift; more --repeat` : ''));
   }
   process.stdout.write(`\nquern count of this checkout beside ${name}'s, same corpus and options, alternately:\n${renderTable(rows, new Set([1, 4, 5, 6, 7, 8, 9, 10]))}\n`);
   for (const line of ratios) process.stdout.write(`${line}\n`);

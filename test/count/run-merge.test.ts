@@ -129,6 +129,26 @@ describe('mergeRuns', () => {
     expect(batchSizes.slice(0, -1).every((size) => size === MERGE_BATCH_RECORDS)).toBe(true);
   });
 
+  it('two sources: equal rows across block and batch boundaries, one used up first, empty, disjoint', async () => {
+    const random = prng(11);
+    const base = randomRun(random, 3, 40_000, 60);
+    expect(base.recordCount).toBeGreaterThan(Math.max(RUN_BLOCK_RECORDS_MAX, MERGE_BATCH_RECORDS) + 100);
+    const shifted = runFromMap(new Map([...base.map].filter((_, j) => j % 4 !== 1)), 3);
+    await expectMergeMatchesNaive([base, shifted], 3);
+    await expectMergeMatchesNaive([shifted, base], 3);
+    await expectMergeMatchesNaive([base, base], 3);
+    const short = runFromMap(new Map([...base.map].slice(0, 50)), 3);
+    await expectMergeMatchesNaive([short, base], 3);
+    await expectMergeMatchesNaive([base, short], 3);
+    const empty = runFromMap(new Map(), 3);
+    await expectMergeMatchesNaive([empty, base], 3);
+    await expectMergeMatchesNaive([base, empty], 3);
+    const low = randomRun(random, 3, 500, 10);
+    const high = randomRun(random, 3, 500, 10, 0xffff_fff0);
+    await expectMergeMatchesNaive([high, low], 3);
+    await expectMergeMatchesNaive([low, high], 3);
+  });
+
   it('handles no runs, empty runs and disjoint runs', async () => {
     expect((await collect(mergeRuns([], 3), 3)).counts).toEqual([]);
     const random = prng(8);
@@ -162,6 +182,9 @@ describe('mergeRuns', () => {
     };
     const call = collect(mergeRuns([fake([[1, 1], [3, 0], [2, 5]]), fake([[1, 2]])], 2), 2);
     await expect(call).rejects.toThrow(/merge input out of order: a row of fake.run/);
+    // In the second of two sources, and among three (the loser tree).
+    await expect(collect(mergeRuns([fake([[1, 2]]), fake([[1, 1], [3, 0], [2, 5]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of fake.run/);
+    await expect(collect(mergeRuns([fake([[1, 2]]), fake([[0, 9]]), fake([[1, 1], [3, 0], [2, 5]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of fake.run/);
   });
 
   it('passes a single source through, larger than a batch, and asserts when its rows do not strictly increase', async () => {

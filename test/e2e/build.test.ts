@@ -64,6 +64,21 @@ describe('quern build and quern score', () => {
       const plain = spawnSync(process.execPath, ['example.js'], { cwd: consumer, encoding: 'utf8' });
       expect(plain.stderr).toBe('');
       expect(plain.stdout).toBe(ran.stdout);
+      // A TypeScript program of that package type-checks against the declarations the build wrote
+      // (strict, NodeNext, no skipLibCheck), and a wrong use of a typed export is an error there.
+      symlinkSync(path.join(REPO, 'node_modules', '@types'), path.join(consumer, 'node_modules', '@types'));
+      const tsconfig = { compilerOptions: { module: 'NodeNext', moduleResolution: 'NodeNext', target: 'ES2022', strict: true, noEmit: true, types: ['node'] }, files: ['check.ts'] };
+      writeFileSync(path.join(consumer, 'tsconfig.json'), JSON.stringify(tsconfig));
+      const tsc = (body: string): { status: number | null; stdout: string } => {
+        writeFileSync(path.join(consumer, 'check.ts'), `import { openModel, type PackedModel } from 'quern';\nconst model: PackedModel = await openModel('model.qm');\n${body}\n`);
+        return spawnSync(process.execPath, [path.join(REPO, 'node_modules/typescript/bin/tsc'), '-p', consumer], { encoding: 'utf8' });
+      };
+      const typed = tsc('const order: number = model.order;\nconsole.log(order, model.scoreSentence([]).tokens.length);');
+      expect(typed.stdout).toBe('');
+      expect(typed.status).toBe(0);
+      const wrong = tsc('const order: string = model.order;\nconsole.log(order);');
+      expect(wrong.stdout).toMatch(/check\.ts\(3,7\): error TS2322/);
+      expect(wrong.stdout.trim().split('\n')).toHaveLength(1);
     } else {
       process.stderr.write('build.test.ts: dist/ is not current (npm run build): the README example was not run as plain JavaScript\n');
     }

@@ -12,13 +12,12 @@
  *   count   quern count SHARD --order 3 --workers K        a tiny job: K worker threads start
  *   score   quern score MODEL HELDOUT --workers K          score workers start and open the model
  *   build   quern build DIR --order N --workers K          with --corpus DIR only: the whole job on a
- *                                                          corpus (e.g. bench:count's 20 MB one), where
- *                                                          each stage's workers load their modules
+ *                                                          corpus (e.g. bench:count's 20 MB one), whose
+ *                                                          estimate and pack start threads of their own
  *
  * Prints the median and least wall time (GNU time, 10 ms resolution) and the median CPU time (user +
  * system, every thread) of each, and the ratios of the medians (compiled / sources). Exits with
- * status 1 when dist/ is not current for src/ (run `npm run build` first), or when the two give
- * different output for a command.
+ * status 1 when the two give different output for a command. A stale dist/ is rebuilt first.
  */
 import { spawnSync } from 'node:child_process';
 import { mkdtempSync, rmSync } from 'node:fs';
@@ -26,6 +25,7 @@ import { tmpdir } from 'node:os';
 import { join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
+import { ensureCompiled } from './lib/quern-env.ts';
 import { measureCommand, type Measurement } from './lib/rss.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
@@ -41,11 +41,7 @@ const workers = Number(values.workers);
 if (!Number.isInteger(rounds) || rounds < 1) throw new Error(`--rounds must be a positive integer, got ${values.rounds}`);
 if (!Number.isInteger(workers) || workers < 1) throw new Error(`--workers must be a positive integer, got ${values.workers}`);
 
-const check = spawnSync(process.execPath, [join(REPO, 'scripts/build.mjs'), '--check'], { encoding: 'utf8' });
-if (check.status !== 0) {
-  process.stderr.write(`bench:startup: ${check.stdout.trim()}\n`);
-  process.exit(1);
-}
+ensureCompiled();
 
 const work = mkdtempSync(join(tmpdir(), 'quern-bench-startup-'));
 const model = join(work, 'model.qm');

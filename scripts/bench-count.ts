@@ -71,6 +71,7 @@ import { tallyUniqCounts, type OrderTally } from './lib/bench-uniq-tally.ts';
 import { ensureCompiled, quernProgramEnv } from './lib/quern-env.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 import { measureCommand, type Measurement } from './lib/rss.ts';
+import { median, renderTable } from './lib/table.ts';
 import { SHAPE_SHARDS, shardName, type CorpusShape } from './lib/synthetic.ts';
 import { storeDigest } from '../src/merge/digest.ts';
 import { PartitionStore, partitionStoreDir, StoreSource } from '../src/merge/store.ts';
@@ -539,13 +540,6 @@ function formatStages(stageMs: Record<string, number> | null): string {
   return Object.entries(stageMs).map(([stage, ms]) => `${stage} ${(ms / 1000).toFixed(1)}`).join(' + ');
 }
 
-function renderTable(rows: string[][], rightAligned: ReadonlySet<number>): string {
-  const widths = rows[0].map((_, column) => Math.max(...rows.map((row) => row[column].length)));
-  return rows
-    .map((row) => row.map((cell, column) => (rightAligned.has(column) ? cell.padStart(widths[column]) : cell.padEnd(widths[column]))).join('  ').trimEnd())
-    .join('\n');
-}
-
 function printResults(results: readonly PairResult[], options: Options): void {
   const rows: string[][] = [['shape', 'order', 'tool', 'wall s', 'CPU s', 'tokens/s', 'peak RSS', 'quern/pipeline', 'target', 'met', 'load']];
   for (const r of results) {
@@ -605,12 +599,6 @@ function writeJson(path: string, value: unknown): void {
 function medianRun(runs: readonly QuernResult[]): QuernResult {
   const sorted = [...runs].sort((a, b) => a.wallMs - b.wallMs);
   return sorted[Math.floor((sorted.length - 1) / 2)];
-}
-
-function median(values: readonly number[]): number {
-  const sorted = [...values].sort((a, b) => a - b);
-  const middle = sorted.length >> 1;
-  return sorted.length % 2 === 1 ? sorted[middle] : (sorted[middle - 1] + sorted[middle]) / 2;
 }
 
 /** --against: this checkout's times over REV's, whole command and per stage (medians), and each pair. */

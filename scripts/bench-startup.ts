@@ -16,17 +16,19 @@
  *                                                          estimate and pack start threads of their own
  *
  * Prints the median and least wall time (GNU time, 10 ms resolution) and the median CPU time (user +
- * system, every thread) of each, and the ratios of the medians (compiled / sources). Exits with
+ * system, every thread) of each, and the ratios of the medians (compiled / sources); then what the
+ * launcher's stamp of src/ (bin/source-stamp.mjs) takes, the first time in a process and after. Exits with
  * status 1 when the two give different output for a command. A stale dist/ is rebuilt first.
  */
 import { spawnSync } from 'node:child_process';
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join, resolve } from 'node:path';
-import { fileURLToPath } from 'node:url';
+import { fileURLToPath, pathToFileURL } from 'node:url';
 import { parseArgs } from 'node:util';
 import { ensureCompiled } from './lib/quern-env.ts';
 import { measureCommand, type Measurement } from './lib/rss.ts';
+import { median, renderTable } from './lib/table.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
 const BIN = join(REPO, 'bin/quern.js');
@@ -99,11 +101,6 @@ for (let round = 0; round < rounds; round++) {
 }
 rmSync(work, { recursive: true, force: true });
 
-const median = (xs: number[]): number => {
-  const sorted = [...xs].sort((a, b) => a - b);
-  const mid = sorted.length >> 1;
-  return sorted.length % 2 === 1 ? sorted[mid] : (sorted[mid - 1] + sorted[mid]) / 2;
-};
 const seconds = (ms: number): string => (ms / 1000).toFixed(2);
 const rows: string[][] = [['command', 'compiled wall s (median, least)', 'sources wall s (median, least)', 'wall ratio', 'CPU s compiled / sources', 'CPU ratio']];
 for (const command of COMMANDS) {
@@ -122,6 +119,20 @@ for (const command of COMMANDS) {
     `${(cpuA / cpuB).toFixed(2)}×`,
   ]);
 }
-const widths = rows[0].map((_, i) => Math.max(...rows.map((row) => row[i].length)));
 process.stdout.write(`bench:startup, ${rounds} rounds, --workers ${workers}; compiled = dist/, sources = QUERN_FROM_SOURCE=1 (tsx)\n`);
-for (const row of rows) process.stdout.write(`${row.map((cell, i) => cell.padEnd(widths[i])).join('  ')}\n`);
+process.stdout.write(`${renderTable(rows)}\n`);
+
+// What the launcher's check of dist/ costs at each start: the stamp of src/ (bin/source-stamp.mjs),
+// timed in a fresh process, first call (as at a start) and the median of 20 more.
+const stampTiming = spawnSync(process.execPath, ['--input-type=module', '-e', `
+  const { sourceStamp } = await import(${JSON.stringify(pathToFileURL(join(REPO, 'bin/source-stamp.mjs')).href)});
+  const src = ${JSON.stringify(join(REPO, 'src'))};
+  let t = performance.now(); sourceStamp(src); const first = performance.now() - t;
+  const more = [];
+  for (let i = 0; i < 20; i++) { t = performance.now(); sourceStamp(src); more.push(performance.now() - t); }
+  more.sort((a, b) => a - b);
+  console.log(first.toFixed(1), more[10].toFixed(1));
+`], { encoding: 'utf8' });
+if (stampTiming.status !== 0) throw new Error(`timing the source stamp failed: ${stampTiming.stderr}`);
+const [stampFirst, stampMedian] = stampTiming.stdout.trim().split(' ');
+process.stdout.write(`the launcher's source stamp of src/: ${stampFirst} ms the first time in a process (as at a start), ${stampMedian} ms the median of 20 more\n`);

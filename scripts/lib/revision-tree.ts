@@ -24,16 +24,16 @@ export function extractRevision(repo: string, revision: string, paths: readonly 
   const tree = dirFor(hash);
   rmSync(tree, { recursive: true, force: true });
   mkdirSync(tree, { recursive: true });
-  const archive = spawnSync('git', ['archive', '--format=tar', hash, ...paths], { cwd: repo, maxBuffer: 1 << 30 });
-  if (archive.status !== 0) throw new Error(`git archive ${hash} failed: ${archive.stderr.toString()}`);
-  const untar = spawnSync('tar', ['-x', '-C', tree], { input: archive.stdout });
-  if (untar.status !== 0) throw new Error(`tar failed: ${untar.stderr.toString()}`);
+  const extract = (files: readonly string[]): void => {
+    const archive = spawnSync('git', ['archive', '--format=tar', hash, ...files], { cwd: repo, maxBuffer: 1 << 30 });
+    if (archive.status !== 0) throw new Error(`git archive ${hash} failed: ${archive.stderr.toString()}`);
+    const untar = spawnSync('tar', ['-x', '-C', tree], { input: archive.stdout });
+    if (untar.status !== 0) throw new Error(`tar failed: ${untar.stderr.toString()}`);
+  };
+  extract(paths);
   symlinkSync(join(repo, 'node_modules'), join(tree, 'node_modules'));
   if (paths.includes('bin') && spawnSync('git', ['cat-file', '-e', `${hash}:scripts/build.mjs`], { cwd: repo }).status === 0) {
-    const extra = spawnSync('git', ['archive', '--format=tar', hash, 'scripts/build.mjs', 'tsconfig.build.json'], { cwd: repo, maxBuffer: 1 << 30 });
-    if (extra.status !== 0) throw new Error(`git archive ${hash} failed: ${extra.stderr.toString()}`);
-    const untarExtra = spawnSync('tar', ['-x', '-C', tree], { input: extra.stdout });
-    if (untarExtra.status !== 0) throw new Error(`tar failed: ${untarExtra.stderr.toString()}`);
+    extract(['scripts/build.mjs', 'tsconfig.build.json']);
     const built = spawnSync(process.execPath, [join(tree, 'scripts/build.mjs')], { cwd: tree, encoding: 'utf8' });
     if (built.status !== 0) throw new Error(`building ${hash}'s sources failed: ${built.stderr}${built.stdout}`);
   }

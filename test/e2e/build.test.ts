@@ -109,6 +109,44 @@ describe('quern build and quern score', () => {
     expect(bad.stderr).toMatch(/--text-field expects a dotted path/);
   });
 
+  test('the package as npm packs it: its command and its library run from the tarball, compiled', async (context) => {
+    // What `files` in package.json ships, checked by installing the tarball by hand (its
+    // dependencies from this checkout, so no registry is needed): a missing entry in `files` fails here.
+    if (spawnSync(process.execPath, [path.join(REPO, 'scripts/build.mjs'), '--check']).status !== 0) {
+      process.stderr.write('build.test.ts: dist/ is not current (npm run build): the tarball was not checked\n');
+      context.skip();
+    }
+    const dir = tempDir();
+    const npm = process.platform === 'win32' ? 'npm.cmd' : 'npm';
+    const packed = spawnSync(npm, ['pack', '--ignore-scripts', '--json', '--pack-destination', dir], { cwd: REPO, encoding: 'utf8' });
+    expect(packed.status).toBe(0);
+    const [{ filename, files }] = JSON.parse(packed.stdout) as Array<{ filename: string; files: Array<{ path: string }> }>;
+    const shipped = new Set(files.map((f) => f.path));
+    for (const needed of ['bin/quern.js', 'bin/source-stamp.mjs', 'dist/index.js', 'dist/index.d.ts', 'dist/.source-stamp', 'dist/count/worker-boot.mjs', 'docs/model-file.md', 'README.md']) {
+      expect(shipped.has(needed), needed).toBe(true);
+    }
+    expect([...shipped].filter((f) => /^(test|bench-out|sample-data|node_modules)\//.test(f))).toEqual([]);
+    const installed = path.join(dir, 'consumer', 'node_modules', 'quern');
+    mkdirSync(installed, { recursive: true });
+    expect(spawnSync('tar', ['-xzf', path.join(dir, filename), '-C', installed, '--strip-components', '1']).status).toBe(0);
+    symlinkSync(path.join(REPO, 'node_modules'), path.join(installed, 'node_modules'));
+    // The launcher runs dist/ only while the shipped sources carry its stamp.
+    const check = spawnSync(process.execPath, [path.join(installed, 'scripts/build.mjs'), '--check'], { cwd: installed, encoding: 'utf8' });
+    expect(check.stdout).toMatch(/dist\/ is current/);
+    const out = path.join(dir, 'model.qm');
+    const cli = path.join(installed, 'bin/quern.js');
+    const built = spawnSync(process.execPath, [cli, 'build', path.join(REPO, 'sample-data/logbook'), '--order', '2', '--fallback', '--out', out, '--quiet'], { encoding: 'utf8' });
+    expect(built.status).toBe(0);
+    const info = spawnSync(process.execPath, [cli, 'info', out, '--json'], { encoding: 'utf8' });
+    expect(JSON.parse(info.stdout).order).toBe(2);
+    const consumer = path.dirname(path.dirname(installed));
+    writeFileSync(path.join(consumer, 'package.json'), '{ "type": "module" }\n');
+    writeFileSync(path.join(consumer, 'use.js'), `import { openModel } from 'quern';\nconst model = await openModel(${JSON.stringify(out)});\nconsole.log(model.order, model.scoreSentence(['the']).tokens.length);\n`);
+    const used = spawnSync(process.execPath, ['use.js'], { cwd: consumer, encoding: 'utf8' });
+    expect(used.stderr).toBe('');
+    expect(used.stdout).toBe('2 2\n'); // 'the' and </s>
+  });
+
   test('quern pack of a directory that is not a job, or of a job without an estimate: refused, no file', async () => {
     const dir = tempDir();
     const notJob = await runQuern(['pack', path.join(REPO, 'sample-data'), '--out', path.join(dir, 'x.qm')]);

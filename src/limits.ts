@@ -119,7 +119,7 @@ export const PARTITION_TABLE_IDS_MAX = 1 << 22;
  *  which that order's counter is append-only (counter.ts): every occurrence a row of the log, no
  *  filter or table. In 32 MiB chunks of the benchmark corpus the share is 0.45 at order 2, 0.75 at
  *  3, 0.89 at 4 and 0.95 at 5; appending orders 3 to 5 made the count stage ~0.9× as long at order 5
- *  (DEVELOPERS.md, Benchmarks), appending order 2 as well gained nothing more. */
+ *  (BENCHMARKS.md), appending order 2 as well gained nothing more. */
 export const COUNTER_APPEND_DISTINCT_MIN = 0.6;
 
 /** The order from which a count worker's counters start append-only, before any spill has shown

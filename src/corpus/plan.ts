@@ -29,7 +29,7 @@ const GZIP_TEXT_RATIO = 3;
  *  text: beside many files of its size, the workers are kept busy without it, and splitting costs a
  *  decompression at planning and the main thread's cutting in the vocabulary pass (bench:count
  *  --gzip-shards 8, the 200 MB corpus in 8 files: 1.3 s of planning with 8 workers; the wall-time
- *  ratios at 2 workers, 0.93–1.08×, were within the runs' spread: DEVELOPERS.md, Benchmarks). */
+ *  ratios at 2 workers, 0.93–1.08×, were within the runs' spread: BENCHMARKS.md). */
 const GZIP_SPLIT_SHARE = 2;
 
 /**

@@ -5,7 +5,7 @@
  * Rows are copied word by word; for the usual strides the copy is written out, since V8 does not
  * unroll a loop over a stride known only at run time. The result is the same either way; what it
  * gains is measured only together with the other count-speed changes (bench:count --against, see
- * DEVELOPERS.md, Benchmarks).
+ * BENCHMARKS.md).
  */
 
 /**

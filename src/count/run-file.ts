@@ -258,6 +258,87 @@ export async function writeRunFile(
   };
 }
 
+/**
+ * Writes a run file from sorted batches as they come — the merge of several runs, for a partition
+ * with more runs than one merge opens at once (merge/merge-partition.ts) — holding one block, not
+ * the records: the same bytes as `writeRunFile` of all the records at once. The header, whose
+ * counts are known only at the end, is written last, over the placeholder at the start of the file.
+ * Records must increase strictly across batches and have counts in 1..RUN_COUNT_MAX (assertions,
+ * as in writeRunFile); atomic as writeRunFile. When iterating `batches` throws, so does this, and
+ * no file is left.
+ */
+export async function writeRunFileFrom(fs: StageFs, filePath: string, meta: RunMeta, batches: AsyncIterable<RunBatch>): Promise<RunFileInfo> {
+  checkMeta(meta);
+  const order = meta.order;
+  const blockKeys = new Uint32Array(RUN_BLOCK_RECORDS_MAX * order);
+  const blockCounts = new Float64Array(RUN_BLOCK_RECORDS_MAX);
+  const lastKey = new Uint32Array(order);
+  const buf = Buffer.alloc(RUN_WRITE_BUFFER_BYTES);
+  let inBlock = 0;
+  let recordCount = 0;
+  let countSum = 0;
+  let blockCount = 0;
+  let fileBytes = 0;
+  await writeFileThrough(fs, filePath, async (file) => {
+    await file.write(Buffer.alloc(RUN_HEADER_BYTES));
+    fileBytes = RUN_HEADER_BYTES;
+    let used = 0;
+    const closeBlock = async (): Promise<void> => {
+      if (recordCount > 0 && compareRows(lastKey, 0, blockKeys, 0, order) >= 0) {
+        assert(false, `run keys must strictly increase: record ${recordCount} is not above record ${recordCount - 1}`);
+      }
+      countSum += checkRecords(blockKeys, blockCounts, inBlock, order);
+      assert(countSum <= RUN_COUNT_MAX, `sum of counts ${countSum} exceeds ${RUN_COUNT_MAX}`);
+      if (buf.length - used < blockBytesMax(order, inBlock)) {
+        await file.write(buf.subarray(0, used));
+        fileBytes += used;
+        used = 0;
+      }
+      used = encodeBlock(buf, used, blockKeys, blockCounts, 0, inBlock, order);
+      lastKey.set(blockKeys.subarray((inBlock - 1) * order, inBlock * order));
+      recordCount += inBlock;
+      blockCount++;
+      inBlock = 0;
+    };
+    for await (const batch of batches) {
+      for (let j = 0; j < batch.recordCount;) {
+        const take = Math.min(RUN_BLOCK_RECORDS_MAX - inBlock, batch.recordCount - j);
+        blockKeys.set(batch.keys.subarray(j * order, (j + take) * order), inBlock * order);
+        blockCounts.set(batch.counts.subarray(j, j + take), inBlock);
+        inBlock += take;
+        j += take;
+        if (inBlock === RUN_BLOCK_RECORDS_MAX) await closeBlock();
+      }
+    }
+    if (inBlock > 0) await closeBlock();
+    assert(blockCount <= U32_MAX, `${recordCount} records need more than ${U32_MAX} blocks`);
+    if (buf.length - used < RUN_TRAILER_BYTES) {
+      await file.write(buf.subarray(0, used));
+      fileBytes += used;
+      used = 0;
+    }
+    const header = Buffer.alloc(RUN_HEADER_BYTES);
+    const headerCrc = encodeHeader(header, meta, recordCount, countSum, blockCount);
+    fileBytes += used + RUN_TRAILER_BYTES;
+    encodeTrailer(buf, used, fileBytes, blockCount, headerCrc);
+    await file.write(buf.subarray(0, used + RUN_TRAILER_BYTES));
+    await file.writeAt(header, 0);
+  });
+  return {
+    filePath,
+    formatVersion: RUN_FORMAT_VERSION,
+    order,
+    partition: meta.partition,
+    chunk: meta.chunk,
+    spill: meta.spill,
+    recordCount,
+    countSum,
+    blockCount,
+    recordsPerBlock: RUN_BLOCK_RECORDS_MAX,
+    fileBytes,
+  };
+}
+
 // ---- Reader -----------------------------------------------------------------------------------
 
 function corrupt(filePath: string, what: string): QuernError {

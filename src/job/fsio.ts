@@ -8,7 +8,10 @@ import { ioError } from '../errors.ts';
 
 /** A file opened for writing, appended to in order. */
 export interface WritableFile {
+  /** Appends `data`. */
   write(data: Uint8Array): Promise<void>;
+  /** Writes `data` at byte `position`, over what is there (a header known only at the end). */
+  writeAt(data: Uint8Array, position: number): Promise<void>;
   /** Flushes to stable storage. */
   sync(): Promise<void>;
   close(): Promise<void>;
@@ -31,6 +34,17 @@ class NodeWritableFile implements WritableFile {
       let offset = 0;
       while (offset < data.byteLength) {
         const { bytesWritten } = await this.handle.write(data, offset, data.byteLength - offset);
+        offset += bytesWritten;
+      }
+    } catch (cause) {
+      throw ioError('write', this.filePath, cause);
+    }
+  }
+  async writeAt(data: Uint8Array, position: number): Promise<void> {
+    try {
+      let offset = 0;
+      while (offset < data.byteLength) {
+        const { bytesWritten } = await this.handle.write(data, offset, data.byteLength - offset, position + offset);
         offset += bytesWritten;
       }
     } catch (cause) {
@@ -140,6 +154,7 @@ export function faultyFs(base: StageFs, plan: FaultPlan): StageFs & { operations
       const file = await base.create(filePath);
       return {
         write: async (data) => { check('write', filePath); await file.write(data); },
+        writeAt: async (data, position) => { check('write', filePath); await file.writeAt(data, position); },
         sync: async () => { check('sync', filePath); await file.sync(); },
         close: () => file.close(),
       };

@@ -14,6 +14,7 @@ import { RUNS_DIR } from '../count/run-layout.ts';
 import { mergeStage, STATS_FILE } from '../merge/stage.ts';
 import { continuationStage } from '../merge/continuation-stage.ts';
 import { STORE_DIR } from '../merge/store.ts';
+import { MERGE_SCRATCH_DIR } from '../merge/merge-partition.ts';
 import { makeStageContext, silentProgress, type ProgressSink } from './context.ts';
 import { stageFs, type StageFs } from './fsio.ts';
 import { stopCleanlyOnSignals } from './interrupt.ts';
@@ -83,7 +84,7 @@ export interface CountSummary {
 }
 
 async function removeJobData(jobDir: string): Promise<void> {
-  for (const name of [RUNS_DIR, STORE_DIR, VOCAB_FILE, STATS_FILE]) {
+  for (const name of [RUNS_DIR, STORE_DIR, MERGE_SCRATCH_DIR, VOCAB_FILE, STATS_FILE]) {
     await fsp.rm(path.join(jobDir, name), { recursive: true, force: true });
   }
 }

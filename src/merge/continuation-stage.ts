@@ -13,7 +13,7 @@ import type { EmitDone, MergeDone } from '../count/protocol.ts';
 import { baseInit, counterBudgetPerWorker } from '../count/stage.ts';
 import { CONTINUATION_RUNS_DIR } from './continuation.ts';
 import { localContinuationBytes } from './local-continuation.ts';
-import type { PartitionMergeTask } from './merge-partition.ts';
+import { removeMergeScratch, type PartitionMergeTask } from './merge-partition.ts';
 import { finishedTallies, readStatsFile, STATS_FILE } from './stage.ts';
 import { sumTallies, type OrderTally } from './tally.ts';
 
@@ -100,6 +100,7 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
   }
   await writeFileAtomic(ctx.fs, path.join(jobDir, STATS_FILE), JSON.stringify(stats) + '\n');
   stage.partitionsDone.sort((a, b) => a - b);
+  await removeMergeScratch(jobDir);
   stage.status = 'done';
   stage.elapsedMs = (stage.elapsedMs ?? 0) + Date.now() - started;
   await ctx.saveManifest();

@@ -3,11 +3,13 @@
  * writes blocks also writes the progress record (order, records done, tally state), so after a
  * crash counts and progress agree, and a re-run skips exactly what was committed.
  */
+import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
-import { assert } from '../errors.ts';
-import { STORE_BLOCK_RECORDS, STORE_TXN_BLOCKS } from '../limits.ts';
+import { assert, ioError } from '../errors.ts';
+import { MERGE_FAN_IN_MAX, STORE_BLOCK_RECORDS, STORE_TXN_BLOCKS } from '../limits.ts';
 import { encodeBlockValue } from '../count/block-codec.ts';
-import { RunReader } from '../count/run-file.ts';
+import { RunReader, writeRunFileFrom } from '../count/run-file.ts';
+import { nodeFs, type StageFs } from '../job/fsio.ts';
 import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
 import { localContinuationSource } from './local-continuation.ts';
 import { ngramKey, PartitionStore, type KeySpace } from './store.ts';
@@ -42,10 +44,66 @@ export interface PartitionMergeTask {
  * Merges (or finishes merging) one partition's runs into a key space of its store; returns the
  * tallies per order. An empty partition still gets its progress record, so 'done' is recorded.
  */
-/** Test hooks: smaller transactions, and a callback after each commit (which may throw to stop). */
+/** Test hooks: smaller transactions, a callback after each commit (which may throw to stop), a
+ *  smaller fan-in, and the file system the intermediate runs are written through. */
 export interface MergeTuning {
   txnBlocks?: number;
   afterCommit?: () => void;
+  fanIn?: number;
+  fs?: StageFs;
+}
+
+/** Where a partition's intermediate runs live while one of its orders is merged (relative to the
+ *  job directory): removed before the order's merge starts (they are made again, the same, when a
+ *  merge resumes) and once it is committed. */
+export const MERGE_SCRATCH_DIR = 'merge-scratch';
+
+function scratchDirOf(jobDir: string, space: KeySpace, partition: number, order: number): string {
+  return path.join(jobDir, MERGE_SCRATCH_DIR, space, `p${String(partition).padStart(4, '0')}`, `o${order}`);
+}
+
+/** Removes every partition's intermediate runs (a stage's end: its merges are all committed). */
+export async function removeMergeScratch(jobDir: string): Promise<void> {
+  await removeDir(path.join(jobDir, MERGE_SCRATCH_DIR));
+}
+
+async function removeDir(dir: string): Promise<void> {
+  try {
+    await fsp.rm(dir, { recursive: true, force: true });
+  } catch (cause) {
+    throw ioError('remove', dir, cause);
+  }
+}
+
+/**
+ * The run files of one order, at most `slots` of them: while there are more, the first `fanIn`
+ * (or as few as bring the count down to `slots`) are merged into an intermediate run in the
+ * partition's scratch folder, which joins the end of the list. Equal n-grams are added up there as
+ * in the final merge, so the store gets the same records whatever the grouping. Paths are relative
+ * to the job directory, as the task's are.
+ */
+async function fewerRuns(
+  jobDir: string, partition: number, order: number, space: KeySpace, files: readonly string[], slots: number, fanIn: number, fs: StageFs,
+): Promise<string[]> {
+  assert(fanIn >= 2 && slots >= 1 && slots <= fanIn, `fan-in ${fanIn} and slots ${slots}`);
+  const queue = [...files];
+  if (queue.length <= slots) return queue;
+  const scratch = scratchDirOf(jobDir, space, partition, order);
+  await fs.mkdir(scratch);
+  for (let made = 0; queue.length > slots; made++) {
+    const group = queue.splice(0, Math.min(fanIn, queue.length - slots + 1));
+    const target = path.relative(jobDir, path.join(scratch, `m${String(made).padStart(6, '0')}.run`));
+    const readers: BatchSource[] = [];
+    try {
+      for (const file of group) readers.push(await RunReader.open(path.join(jobDir, file), { reuseBatches: true }));
+    } catch (error) {
+      await Promise.all(readers.map((reader) => reader.close().catch(() => {})));
+      throw error;
+    }
+    await writeRunFileFrom(fs, path.join(jobDir, target), { order, partition, chunk: made, spill: 0 }, mergeRuns(readers, order));
+    queue.push(target);
+  }
+  return queue;
 }
 
 export async function mergePartition(
@@ -65,6 +123,8 @@ export async function mergePartition(
     while (!progress.done) {
       progress = await mergeOrder(jobDir, store, task, progress, orderMax, space, tuning);
     }
+    // Each order removes its intermediates once committed; this catches a stop between the two.
+    await removeDir(path.dirname(scratchDirOf(jobDir, space, task.partition, 1)));
     return progress.tallies;
   } finally {
     await store.close();
@@ -104,9 +164,15 @@ async function mergeOrder(
     if (pending.length === txnBlocks) commit({ ...progress, records, current: tally.checkpoint() });
   };
 
+  // At most MERGE_FAN_IN_MAX sources at once (the local continuation counts take one slot).
+  const local = task.localOrders?.includes(order) ?? false;
+  const fanIn = tuning.fanIn ?? MERGE_FAN_IN_MAX;
+  const scratch = scratchDirOf(jobDir, space, task.partition, order);
+  await removeDir(scratch);
+  const files = await fewerRuns(jobDir, task.partition, order, space, task.files[order - 1], local ? fanIn - 1 : fanIn, fanIn, tuning.fs ?? nodeFs);
   // Each run's blocks decoded into one pair of arrays: the merge is done with a batch when it asks for the next.
-  const readers: BatchSource[] = await Promise.all(task.files[order - 1].map((file) => RunReader.open(path.join(jobDir, file), { reuseBatches: true })));
-  if (task.localOrders?.includes(order)) {
+  const readers: BatchSource[] = await Promise.all(files.map((file) => RunReader.open(path.join(jobDir, file), { reuseBatches: true })));
+  if (local) {
     assert(space === 'continuation', 'local counts are continuation counts');
     const higherRows = store.readProgress<MergeProgress>('raw')?.tallies[order]?.distinct;
     assert(higherRows !== undefined, `partition ${task.partition}: the raw merge of order ${order + 1} is recorded`);
@@ -155,5 +221,6 @@ async function mergeOrder(
     done: order === orderMax,
   };
   commit(next);
+  await removeDir(scratch);
   return next;
 }

@@ -10,7 +10,7 @@ import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
 import type { MergeDone } from '../count/protocol.ts';
 import { baseInit, sumOccurrences } from '../count/stage.ts';
-import type { PartitionMergeTask } from './merge-partition.ts';
+import { removeMergeScratch, type PartitionMergeTask } from './merge-partition.ts';
 import { PartitionStore, partitionStoreDir, STORE_DIR, type KeySpace } from './store.ts';
 import { sumTallies, type OrderTally } from './tally.ts';
 import type { MergeProgress } from './merge-partition.ts';
@@ -131,6 +131,7 @@ export async function mergeStage(ctx: StageContext): Promise<void> {
   await writeFileAtomic(ctx.fs, path.join(jobDir, STATS_FILE), JSON.stringify(stats) + '\n');
   merge.distinct = tallies.map((t) => t.distinct);
   merge.storeBytes = await directoryBytes(path.join(jobDir, STORE_DIR));
+  await removeMergeScratch(jobDir);
   merge.status = 'done';
   merge.elapsedMs = (merge.elapsedMs ?? 0) + Date.now() - started;
   await ctx.saveManifest();

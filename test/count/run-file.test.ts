@@ -12,6 +12,8 @@ import {
   RUN_TRAILER_BYTES,
   RunReader,
   writeRunFile,
+  writeRunFileFrom,
+  type RunBatch,
   type RunMeta,
 } from '../../src/count/run-file.ts';
 import { seededRandom } from '../support/seeded.ts';
@@ -267,6 +269,69 @@ describe('writeRunFile', () => {
         }
         if (mode === 'once') expect(await temporaryFiles(filePath), `once after ${failAfter}: tmp`).toEqual([]);
       }
+    }
+  });
+});
+
+/** `run` cut into batches of the given sizes in turn (the last takes the rest), as a merge yields. */
+async function* batchesOf(run: Run, order: number, sizes: number[]): AsyncGenerator<RunBatch> {
+  for (let at = 0, i = 0; at < run.recordCount; i++) {
+    const n = Math.min(sizes[i % sizes.length], run.recordCount - at);
+    yield { keys: run.keys.slice(at * order, (at + n) * order), counts: run.counts.slice(at, at + n), recordCount: n };
+    at += n;
+  }
+}
+
+describe('writeRunFileFrom (batches as they come)', () => {
+  it('writes the bytes writeRunFile writes for the same records, whatever the batches', async () => {
+    const random = prng(23);
+    for (const [order, draws] of [[1, 0], [2, 5], [3, 3 * RUN_BLOCK_RECORDS_MAX + 17], [5, RUN_BLOCK_RECORDS_MAX]] as const) {
+      const run = randomRun(order, draws, zipfIds(random, 200_000), () => 1 + Math.floor(random() * 9));
+      const whole = path.join(dir, `whole-${order}.run`);
+      const info = await writeRunFile(nodeFs, whole, meta(order), run.keys, run.counts, run.recordCount);
+      for (const sizes of [[RUN_BLOCK_RECORDS_MAX], [1, 8191, 3000], [7]]) {
+        const streamed = path.join(dir, `streamed-${order}-${sizes.join('-')}.run`);
+        const streamedInfo = await writeRunFileFrom(nodeFs, streamed, meta(order), batchesOf(run, order, sizes));
+        expect(await fsp.readFile(streamed), `order ${order}, batches ${sizes}`).toEqual(await fsp.readFile(whole));
+        expect({ ...streamedInfo, filePath: whole }).toEqual(info);
+      }
+    }
+  });
+
+  it('refuses records out of order across batches, and leaves no file', async () => {
+    const run = randomRun(2, 2 * RUN_BLOCK_RECORDS_MAX, zipfIds(prng(3), 50_000), () => 1);
+    const swapped = { keys: Uint32Array.from(run.keys), counts: run.counts, recordCount: run.recordCount };
+    // The first row of the second block swapped with the last of the first: each block is in order
+    // within itself only if the swap crosses their boundary, which the writer must catch.
+    const last = RUN_BLOCK_RECORDS_MAX - 1;
+    for (let k = 0; k < 2; k++) [swapped.keys[last * 2 + k], swapped.keys[(last + 1) * 2 + k]] = [swapped.keys[(last + 1) * 2 + k], swapped.keys[last * 2 + k]];
+    const filePath = path.join(dir, 'unordered.run');
+    await expect(writeRunFileFrom(nodeFs, filePath, meta(2), batchesOf(swapped, 2, [5000]))).rejects.toThrow(/strictly increase/);
+    expect(await fsp.access(filePath).then(() => true, () => false)).toBe(false);
+    expect(await temporaryFiles(filePath)).toEqual([]);
+  });
+
+  it('leaves no file when its batches fail or a file-system operation fails', async () => {
+    const run = randomRun(3, 20_000, zipfIds(prng(8), 100_000), () => 1);
+    async function* failing(): AsyncGenerator<RunBatch> {
+      yield* batchesOf({ keys: run.keys.slice(0, 3 * 9000), counts: run.counts.slice(0, 9000), recordCount: 9000 }, 3, [4000]);
+      throw new QuernError('corrupt', 'a source went bad');
+    }
+    const filePath = path.join(dir, 'failing.run');
+    await expect(writeRunFileFrom(nodeFs, filePath, meta(3), failing())).rejects.toThrow(/a source went bad/);
+    expect(await fsp.access(filePath).then(() => true, () => false)).toBe(false);
+    expect(await temporaryFiles(filePath)).toEqual([]);
+    const probe = faultyFs(nodeFs, { failAfterOperations: Number.MAX_SAFE_INTEGER, mode: 'once', errno: 'EIO' });
+    await writeRunFileFrom(probe, path.join(dir, 'probe-from.run'), meta(3), batchesOf(run, 3, [8192]));
+    const operations = probe.operations();
+    for (let failAfter = 0; failAfter < operations - 1; failAfter++) {
+      const target = path.join(dir, `fault-from-${failAfter}.run`);
+      const fs = faultyFs(nodeFs, { failAfterOperations: failAfter, mode: 'once', errno: 'ENOSPC' });
+      const error = await writeRunFileFrom(fs, target, meta(3), batchesOf(run, 3, [8192])).then(() => undefined, (e: unknown) => e);
+      expect(error, `after ${failAfter}`).toBeInstanceOf(QuernError);
+      expect((error as QuernError).code).toBe('io');
+      expect(await fsp.access(target).then(() => true, () => false), `after ${failAfter}`).toBe(false);
+      expect(await temporaryFiles(target), `after ${failAfter}`).toEqual([]);
     }
   });
 });

@@ -2,14 +2,16 @@
  * The count store after `quern count`: continuation counts against an independent computation
  * from the coreutils reference counts, prefix listing, and `quern report` on the same job.
  */
-import { execFileSync } from 'node:child_process';
+import { execFileSync, spawnSync } from 'node:child_process';
 import * as path from 'node:path';
 import { beforeAll, describe, expect, test } from 'vitest';
 import { SyntheticModel, writeShardFile } from '../../scripts/lib/synthetic.ts';
 import { referenceCountsByOrder } from '../support/reference-count.ts';
-import { parseListing, runQuern, tempDir } from '../support/cli.ts';
-import { readFileSync } from 'node:fs';
+import { parseListing, REPO, runQuern, tempDir } from '../support/cli.ts';
+import { existsSync, readFileSync } from 'node:fs';
 import { NO_LOCAL_CONTINUATION_ENV } from '../../src/merge/continuation-stage.ts';
+import { MERGE_SCRATCH_DIR } from '../../src/merge/merge-partition.ts';
+import { MERGE_FAN_IN_MAX } from '../../src/limits.ts';
 import { jobDigest } from '../support/crash.ts';
 
 describe('count store', () => {
@@ -56,6 +58,21 @@ describe('count store', () => {
     expect(manifest(viaRuns).stages.continuation.emitted.flatMap((e: { runs: Array<{ order: number }> }) => e.runs.map((r) => r.order))).toContain(3);
     expect(await jobDigest(viaRuns)).toEqual(await jobDigest(job));
     expect(readFileSync(path.join(viaRuns, 'stats.json'), 'utf8')).toBe(readFileSync(path.join(job, 'stats.json'), 'utf8'));
+  });
+
+  test('more runs per partition than a merge opens at once: merged in groups, within a limit of 240 open files, the same store', async () => {
+    // ~170 chunks of 4 KiB give each partition and order ~170 runs: opened all at once by two
+    // merging workers, 340 files and more (EMFILE under this limit, as before MERGE_FAN_IN_MAX).
+    const many = path.join(tempDir(), 'job');
+    const args = ['count', corpus, '--job', many, '--order', '4', '--quiet', '--partitions', '5', '--workers', '2', '--chunk-size', '4KiB'];
+    const result = spawnSync('bash', ['-c', 'ulimit -n 240 && exec "$0" "$@"', process.execPath, path.join(REPO, 'bin/quern.js'), ...args], { encoding: 'utf8' });
+    expect(result.stderr).toBe('');
+    expect(result.status).toBe(0);
+    const manifest = JSON.parse(readFileSync(path.join(many, 'job.json'), 'utf8'));
+    expect(manifest.chunks.length).toBeGreaterThan(2 * MERGE_FAN_IN_MAX);
+    expect(await jobDigest(many)).toEqual(await jobDigest(job));
+    expect(readFileSync(path.join(many, 'stats.json'), 'utf8')).toBe(readFileSync(path.join(job, 'stats.json'), 'utf8'));
+    expect(existsSync(path.join(many, MERGE_SCRATCH_DIR))).toBe(false);
   });
 
   test('--prefix lists exactly the n-grams that start with the given words', async () => {

@@ -3,13 +3,13 @@
  * small transactions in turn, resumed, and must end with the same store and tallies as one
  * uninterrupted merge.
  */
-import { mkdtempSync } from 'node:fs';
+import { existsSync, mkdtempSync, readdirSync } from 'node:fs';
 import * as os from 'node:os';
 import * as path from 'node:path';
 import { describe, expect, test } from 'vitest';
 import { writeRunFile } from '../../src/count/run-file.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
-import { mergePartition, type PartitionMergeTask } from '../../src/merge/merge-partition.ts';
+import { MERGE_SCRATCH_DIR, mergePartition, type PartitionMergeTask } from '../../src/merge/merge-partition.ts';
 import { PartitionStore, StoreSource } from '../../src/merge/store.ts';
 import { mergeRuns } from '../../src/count/run-merge.ts';
 import { STORE_BLOCK_RECORDS } from '../../src/limits.ts';
@@ -74,6 +74,48 @@ describe('mergePartition', () => {
     }
     expect(stops).toBeGreaterThan(4);
     expect(await contents(reference, 'resumed')).toBe(expected);
+  });
+});
+
+describe('mergePartition with more runs than it opens at once', () => {
+  test('merges them in groups through intermediate runs: the same store, the scratch removed, and resumable', async () => {
+    const dir = mkdtempSync(path.join(os.tmpdir(), 'quern-fan-in-'));
+    const task = await writeRuns(dir, 11, 3000);
+    const expectedTallies = await mergePartition(dir, 'all-at-once', task, 'raw', { txnBlocks: 2 });
+    const expected = await contents(dir, 'all-at-once');
+    // A fan-in of 3 for 11 runs: groups of 3 merged into intermediates until 3 remain (one
+    // intermediate merged again), each n-gram's counts added wherever its copies meet.
+    const made: string[] = [];
+    const watching = {
+      ...nodeFs,
+      async rename(from: string, to: string) {
+        made.push(path.relative(dir, to));
+        await nodeFs.rename(from, to);
+      },
+    };
+    const tallies = await mergePartition(dir, 'grouped', task, 'raw', { txnBlocks: 2, fanIn: 3, fs: watching });
+    expect(tallies).toEqual(expectedTallies);
+    expect(await contents(dir, 'grouped')).toBe(expected);
+    expect(made.length).toBe(4); // 11 → 9 → 7 → 5 → 3 runs; the fourth merge takes the first intermediate
+    expect(made.every((file) => file.startsWith(path.join(MERGE_SCRATCH_DIR, 'raw', 'p0000', 'o2')))).toBe(true);
+    expect(readdirSync(path.join(dir, MERGE_SCRATCH_DIR, 'raw'))).toEqual([]);
+
+    // Stopped after each commit in turn and resumed (the intermediates made again), then the same.
+    for (let k = 1; ; k++) {
+      let commits = 0;
+      try {
+        const resumed = await mergePartition(dir, 'grouped-resumed', task, 'raw', {
+          txnBlocks: 2, fanIn: 3, afterCommit: () => { if (++commits === k) throw new Error('stop'); },
+        });
+        expect(resumed).toEqual(expectedTallies);
+        break;
+      } catch (error) {
+        expect((error as Error).message).toBe('stop');
+        expect(k).toBeLessThan(100);
+      }
+    }
+    expect(await contents(dir, 'grouped-resumed')).toBe(expected);
+    expect(existsSync(path.join(dir, MERGE_SCRATCH_DIR, 'raw', 'p0000'))).toBe(false);
   });
 });
 

@@ -243,19 +243,7 @@ export async function writeRunFile(
     encodeTrailer(buf, used, fileBytes, blockCount, headerCrc);
     await file.write(buf.subarray(0, used + RUN_TRAILER_BYTES));
   });
-  return {
-    filePath,
-    formatVersion: RUN_FORMAT_VERSION,
-    order,
-    partition: meta.partition,
-    chunk: meta.chunk,
-    spill: meta.spill,
-    recordCount,
-    countSum,
-    blockCount,
-    recordsPerBlock: RUN_BLOCK_RECORDS_MAX,
-    fileBytes,
-  };
+  return writtenInfo(filePath, meta, recordCount, countSum, blockCount, fileBytes);
 }
 
 /**
@@ -324,10 +312,15 @@ export async function writeRunFileFrom(fs: StageFs, filePath: string, meta: RunM
     await file.write(buf.subarray(0, used + RUN_TRAILER_BYTES));
     await file.writeAt(header, 0);
   });
+  return writtenInfo(filePath, meta, recordCount, countSum, blockCount, fileBytes);
+}
+
+/** What a writer returns about the run file it wrote. */
+function writtenInfo(filePath: string, meta: RunMeta, recordCount: number, countSum: number, blockCount: number, fileBytes: number): RunFileInfo {
   return {
     filePath,
     formatVersion: RUN_FORMAT_VERSION,
-    order,
+    order: meta.order,
     partition: meta.partition,
     chunk: meta.chunk,
     spill: meta.spill,

@@ -40,10 +40,6 @@ export interface PartitionMergeTask {
   localOrders?: number[];
 }
 
-/**
- * Merges (or finishes merging) one partition's runs into a key space of its store; returns the
- * tallies per order. An empty partition still gets its progress record, so 'done' is recorded.
- */
 /** Test hooks: smaller transactions, a callback after each commit (which may throw to stop), a
  *  smaller fan-in, and the file system the intermediate runs are written through. */
 export interface MergeTuning {
@@ -106,6 +102,10 @@ async function fewerRuns(
   return queue;
 }
 
+/**
+ * Merges (or finishes merging) one partition's runs into a key space of its store; returns the
+ * tallies per order. An empty partition still gets its progress record, so 'done' is recorded.
+ */
 export async function mergePartition(
   jobDir: string,
   storeDir: string,

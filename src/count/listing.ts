@@ -4,13 +4,17 @@
  * Order: lexicographic by word ids — ids rank words by count (most frequent first, ties by
  * bytes) — or, with `byCount`, by count descending (ties in id order).
  */
+import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
 import { QuernError } from '../errors.ts';
-import { LISTING_SORT_ENTRIES_MAX } from '../limits.ts';
+import { LISTING_SORT_ENTRIES_MAX, MERGE_FAN_IN_MAX } from '../limits.ts';
+import { nodeFs } from '../job/fsio.ts';
+import { fewerRuns } from './fan-in.ts';
 import { readManifest } from '../job/manifest.ts';
 import { RunReader } from './run-file.ts';
 import { mergeRuns, type BatchSource } from './run-merge.ts';
 import { PartitionStore, partitionStoreDir, StoreSource } from '../merge/store.ts';
+import { MERGE_SCRATCH_DIR } from '../merge/merge-partition.ts';
 import { readJobVocabulary } from './stage.ts';
 
 export interface ListedNgram {
@@ -84,6 +88,7 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
   const words = vocab.words;
   let readers: BatchSource[];
   let stores: PartitionStore[] = [];
+  let scratch: string | undefined;
   if (manifest.stages.merge.status === 'done') {
     let prefix: Uint32Array | undefined;
     if (options.prefix && options.prefix.length > 0) {
@@ -96,12 +101,24 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
     stores = Array.from({ length: manifest.config.partitions }, (_, p) => PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read'));
     readers = stores.map((store) => new StoreSource(store, order, prefix, options.continuation ? 'continuation' : 'raw'));
   } else {
-    const files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => r.file);
+    let files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => path.join(jobDir, r.file));
+    if (files.length > MERGE_FAN_IN_MAX) {
+      // Every partition's runs at once (the merge takes one partition at a time): grouped first,
+      // beside the merge's own intermediates (removed below, or by the merge stage's end).
+      scratch = path.join(jobDir, MERGE_SCRATCH_DIR, `listing-${process.pid}-${Date.now()}`);
+      try {
+        files = await fewerRuns({ files, order, slots: MERGE_FAN_IN_MAX, fanIn: MERGE_FAN_IN_MAX, scratchDir: scratch, partition: 0, fs: nodeFs });
+      } catch (error) {
+        await fsp.rm(scratch, { recursive: true, force: true });
+        throw error;
+      }
+    }
     readers = [];
     try {
-      for (const file of files) readers.push(await RunReader.open(path.join(jobDir, file)));
+      for (const file of files) readers.push(await RunReader.open(file));
     } catch (error) {
       await Promise.all(readers.map((r) => r.close()));
+      if (scratch !== undefined) await fsp.rm(scratch, { recursive: true, force: true });
       throw error;
     }
   }
@@ -109,6 +126,7 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
     yield* listMerged(readers, order, words, options);
   } finally {
     await Promise.all(stores.map((s) => s.close()));
+    if (scratch !== undefined) await fsp.rm(scratch, { recursive: true, force: true });
   }
 }
 

@@ -8,7 +8,8 @@ import * as path from 'node:path';
 import { assert, ioError } from '../errors.ts';
 import { MERGE_FAN_IN_MAX, STORE_BLOCK_RECORDS, STORE_TXN_BLOCKS } from '../limits.ts';
 import { encodeBlockValue } from '../count/block-codec.ts';
-import { RunReader, writeRunFileFrom } from '../count/run-file.ts';
+import { fewerRuns } from '../count/fan-in.ts';
+import { RunReader } from '../count/run-file.ts';
 import { nodeFs, type StageFs } from '../job/fsio.ts';
 import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
 import { localContinuationSource } from './local-continuation.ts';
@@ -69,37 +70,6 @@ async function removeDir(dir: string): Promise<void> {
   } catch (cause) {
     throw ioError('remove', dir, cause);
   }
-}
-
-/**
- * The run files of one order, at most `slots` of them: while there are more, the first `fanIn`
- * (or as few as bring the count down to `slots`) are merged into an intermediate run in the
- * partition's scratch folder, which joins the end of the list. Equal n-grams are added up there as
- * in the final merge, so the store gets the same records whatever the grouping. Paths are relative
- * to the job directory, as the task's are.
- */
-async function fewerRuns(
-  jobDir: string, partition: number, order: number, space: KeySpace, files: readonly string[], slots: number, fanIn: number, fs: StageFs,
-): Promise<string[]> {
-  assert(fanIn >= 2 && slots >= 1 && slots <= fanIn, `fan-in ${fanIn} and slots ${slots}`);
-  const queue = [...files];
-  if (queue.length <= slots) return queue;
-  const scratch = scratchDirOf(jobDir, space, partition, order);
-  await fs.mkdir(scratch);
-  for (let made = 0; queue.length > slots; made++) {
-    const group = queue.splice(0, Math.min(fanIn, queue.length - slots + 1));
-    const target = path.relative(jobDir, path.join(scratch, `m${String(made).padStart(6, '0')}.run`));
-    const readers: BatchSource[] = [];
-    try {
-      for (const file of group) readers.push(await RunReader.open(path.join(jobDir, file), { reuseBatches: true }));
-    } catch (error) {
-      await Promise.all(readers.map((reader) => reader.close().catch(() => {})));
-      throw error;
-    }
-    await writeRunFileFrom(fs, path.join(jobDir, target), { order, partition, chunk: made, spill: 0 }, mergeRuns(readers, order));
-    queue.push(target);
-  }
-  return queue;
 }
 
 /**
@@ -169,9 +139,12 @@ async function mergeOrder(
   const fanIn = tuning.fanIn ?? MERGE_FAN_IN_MAX;
   const scratch = scratchDirOf(jobDir, space, task.partition, order);
   await removeDir(scratch);
-  const files = await fewerRuns(jobDir, task.partition, order, space, task.files[order - 1], local ? fanIn - 1 : fanIn, fanIn, tuning.fs ?? nodeFs);
+  const files = await fewerRuns({
+    files: task.files[order - 1].map((file) => path.join(jobDir, file)), order, slots: local ? fanIn - 1 : fanIn, fanIn,
+    scratchDir: scratch, partition: task.partition, fs: tuning.fs ?? nodeFs,
+  });
   // Each run's blocks decoded into one pair of arrays: the merge is done with a batch when it asks for the next.
-  const readers: BatchSource[] = await Promise.all(files.map((file) => RunReader.open(path.join(jobDir, file), { reuseBatches: true })));
+  const readers: BatchSource[] = await Promise.all(files.map((file) => RunReader.open(file, { reuseBatches: true })));
   if (local) {
     assert(space === 'continuation', 'local counts are continuation counts');
     const higherRows = store.readProgress<MergeProgress>('raw')?.tallies[order]?.distinct;

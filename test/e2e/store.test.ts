@@ -8,7 +8,7 @@ import { beforeAll, describe, expect, test } from 'vitest';
 import { SyntheticModel, writeShardFile } from '../../scripts/lib/synthetic.ts';
 import { referenceCountsByOrder } from '../support/reference-count.ts';
 import { parseListing, REPO, runQuern, tempDir } from '../support/cli.ts';
-import { existsSync, readFileSync } from 'node:fs';
+import { existsSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { NO_LOCAL_CONTINUATION_ENV } from '../../src/merge/continuation-stage.ts';
 import { MERGE_SCRATCH_DIR } from '../../src/merge/merge-partition.ts';
 import { MERGE_FAN_IN_MAX } from '../../src/limits.ts';
@@ -60,7 +60,7 @@ describe('count store', () => {
     expect(readFileSync(path.join(viaRuns, 'stats.json'), 'utf8')).toBe(readFileSync(path.join(job, 'stats.json'), 'utf8'));
   });
 
-  test('more runs per partition than a merge opens at once: merged in groups, within a limit of 240 open files, the same store', async () => {
+  test('more runs per partition than a merge opens at once: merged in groups, within a limit of 240 open files, the same store and listing', async () => {
     // ~170 chunks of 4 KiB give each partition and order ~170 runs: opened all at once by two
     // merging workers, 340 files and more (EMFILE under this limit, as before MERGE_FAN_IN_MAX).
     const many = path.join(tempDir(), 'job');
@@ -73,6 +73,17 @@ describe('count store', () => {
     expect(await jobDigest(many)).toEqual(await jobDigest(job));
     expect(readFileSync(path.join(many, 'stats.json'), 'utf8')).toBe(readFileSync(path.join(job, 'stats.json'), 'utf8'));
     expect(existsSync(path.join(many, MERGE_SCRATCH_DIR))).toBe(false);
+
+    // quern ngrams of that job as if its merge had not finished reads the runs of all partitions
+    // (~850 of order 4): grouped too, the same listing as from the store.
+    const manifestPath = path.join(many, 'job.json');
+    const unmerged = JSON.parse(readFileSync(manifestPath, 'utf8'));
+    unmerged.stages.merge.status = 'running';
+    writeFileSync(manifestPath, JSON.stringify(unmerged));
+    const listed = spawnSync('bash', ['-c', 'ulimit -n 240 && exec "$0" "$@"', process.execPath, path.join(REPO, 'bin/quern.js'), 'ngrams', many, '--order', '4'], { encoding: 'utf8', maxBuffer: 1 << 28 });
+    expect(listed.stderr).toBe('');
+    expect(listed.stdout).toBe((await runQuern(['ngrams', job, '--order', '4'])).stdout);
+    expect(readdirSync(path.join(many, MERGE_SCRATCH_DIR))).toEqual([]);
   });
 
   test('--prefix lists exactly the n-grams that start with the given words', async () => {

@@ -83,13 +83,14 @@ export const MERGE_BATCH_RECORDS = 8192;
 
 /** Runs one merge reads at once (sources: files, and a partition's local continuation counts).
  *  A partition with more runs of an order — a corpus of more than this many chunks, or budget
- *  spills — first merges them, this many at a time, into intermediate runs (merge-partition.ts).
+ *  spills — first merges them, this many at a time, into intermediate runs (count/fan-in.ts).
  *  Each open run holds a file descriptor, its read buffer (RUN_READ_BUFFER_BYTES) and a decoded
- *  batch (MERGE_BATCH_RECORDS rows, ~0.2 MiB at order 5): 64 keep a merging worker within ~50 MiB of
- *  buffers, inside its fixed overhead (WORKER_OVERHEAD_BYTES), and two workers far below the usual
- *  limit of 1,024 open files. Without the bound, 306 runs per partition (20 MB in 64 KiB chunks)
- *  stopped the merge with EMFILE under a limit of 256 open files; at 1,024 and two workers that is
- *  a corpus of ~16 GB in 32 MiB chunks, and the buffers grew with the runs past any budget. */
+ *  batch (MERGE_BATCH_RECORDS rows, 0.22 MiB at order 5): ~0.75 MiB a run, so 64 come to ~48 MiB
+ *  (computed from these sizes, not measured), inside a worker's fixed overhead
+ *  (WORKER_OVERHEAD_BYTES), and two workers stay far below the usual limit of 1,024 open files.
+ *  Without the bound, 306 runs per partition (20 MB in 64 KiB chunks) stopped the merge with EMFILE
+ *  under a limit of 256 open files (at 1,024 and two workers, ~500 runs each: a corpus of ~16 GB in
+ *  32 MiB chunks), and those buffers grew with the number of runs, outside the budget. */
 export const MERGE_FAN_IN_MAX = 64;
 
 assert(RUN_READ_BUFFER_BYTES >= RUN_BLOCK_BYTES_MAX, 'a run reader buffer holds the largest block');

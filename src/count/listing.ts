@@ -89,40 +89,34 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
   let readers: BatchSource[];
   let stores: PartitionStore[] = [];
   let scratch: string | undefined;
-  if (manifest.stages.merge.status === 'done') {
-    let prefix: Uint32Array | undefined;
-    if (options.prefix && options.prefix.length > 0) {
-      if (options.prefix.length > order) throw new QuernError('config', `--prefix has ${options.prefix.length} words, more than the order ${order}`);
-      const ids = new Map(words.map((w, id) => [w, id]));
-      const missing = options.prefix.filter((w) => !ids.has(w));
-      if (missing.length > 0) return; // a word outside the vocabulary: no n-gram starts with it
-      prefix = Uint32Array.from(options.prefix, (w) => ids.get(w)!);
-    }
-    stores = Array.from({ length: manifest.config.partitions }, (_, p) => PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read'));
-    readers = stores.map((store) => new StoreSource(store, order, prefix, options.continuation ? 'continuation' : 'raw'));
-  } else {
-    let files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => path.join(jobDir, r.file));
-    if (files.length > MERGE_FAN_IN_MAX) {
-      // Every partition's runs at once (the merge takes one partition at a time): grouped first,
-      // beside the merge's own intermediates (removed below, or by the merge stage's end).
-      scratch = path.join(jobDir, MERGE_SCRATCH_DIR, `listing-${process.pid}-${Date.now()}`);
-      try {
+  try {
+    if (manifest.stages.merge.status === 'done') {
+      let prefix: Uint32Array | undefined;
+      if (options.prefix && options.prefix.length > 0) {
+        if (options.prefix.length > order) throw new QuernError('config', `--prefix has ${options.prefix.length} words, more than the order ${order}`);
+        const ids = new Map(words.map((w, id) => [w, id]));
+        const missing = options.prefix.filter((w) => !ids.has(w));
+        if (missing.length > 0) return; // a word outside the vocabulary: no n-gram starts with it
+        prefix = Uint32Array.from(options.prefix, (w) => ids.get(w)!);
+      }
+      stores = Array.from({ length: manifest.config.partitions }, (_, p) => PartitionStore.open(path.join(jobDir, partitionStoreDir(p)), 'read'));
+      readers = stores.map((store) => new StoreSource(store, order, prefix, options.continuation ? 'continuation' : 'raw'));
+    } else {
+      let files = manifest.stages.count.chunks.flatMap((c) => c.runs).filter((r) => r.order === order).map((r) => path.join(jobDir, r.file));
+      if (files.length > MERGE_FAN_IN_MAX) {
+        // Every partition's runs at once (the merge takes one partition at a time): grouped first,
+        // beside the merge's own intermediates (removed below, or by the merge stage's end).
+        scratch = path.join(jobDir, MERGE_SCRATCH_DIR, `listing-${process.pid}-${Date.now()}`);
         files = await fewerRuns({ files, order, slots: MERGE_FAN_IN_MAX, fanIn: MERGE_FAN_IN_MAX, scratchDir: scratch, partition: 0, fs: nodeFs });
+      }
+      readers = [];
+      try {
+        for (const file of files) readers.push(await RunReader.open(file));
       } catch (error) {
-        await fsp.rm(scratch, { recursive: true, force: true });
+        await Promise.all(readers.map((r) => r.close()));
         throw error;
       }
     }
-    readers = [];
-    try {
-      for (const file of files) readers.push(await RunReader.open(file));
-    } catch (error) {
-      await Promise.all(readers.map((r) => r.close()));
-      if (scratch !== undefined) await fsp.rm(scratch, { recursive: true, force: true });
-      throw error;
-    }
-  }
-  try {
     yield* listMerged(readers, order, words, options);
   } finally {
     await Promise.all(stores.map((s) => s.close()));

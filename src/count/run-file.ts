@@ -248,7 +248,7 @@ export async function writeRunFile(
 
 /**
  * Writes a run file from sorted batches as they come — the merge of several runs, for a partition
- * with more runs than one merge opens at once (merge/merge-partition.ts) — holding one block, not
+ * with more runs than one merge opens at once (count/fan-in.ts) — holding one block, not
  * the records: the same bytes as `writeRunFile` of all the records at once. The header, whose
  * counts are known only at the end, is written last, over the placeholder at the start of the file.
  * Records must increase strictly across batches and have counts in 1..RUN_COUNT_MAX (assertions,

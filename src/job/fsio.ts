@@ -6,7 +6,7 @@ import { promises as fsp } from 'node:fs';
 import * as path from 'node:path';
 import { ioError } from '../errors.ts';
 
-/** A file opened for writing, appended to in order. */
+/** A file opened for writing, appended to in order (`writeAt` for what is known only at the end). */
 export interface WritableFile {
   /** Appends `data`. */
   write(data: Uint8Array): Promise<void>;

@@ -55,8 +55,8 @@ export interface MergeTuning {
  *  merge resumes) and once it is committed. */
 export const MERGE_SCRATCH_DIR = 'merge-scratch';
 
-function scratchDirOf(jobDir: string, space: KeySpace, partition: number, order: number): string {
-  return path.join(jobDir, MERGE_SCRATCH_DIR, space, `p${String(partition).padStart(4, '0')}`, `o${order}`);
+function partitionScratchOf(jobDir: string, space: KeySpace, partition: number): string {
+  return path.join(jobDir, MERGE_SCRATCH_DIR, space, `p${String(partition).padStart(4, '0')}`);
 }
 
 /** Removes every partition's intermediate runs (a stage's end: its merges are all committed). */
@@ -94,7 +94,7 @@ export async function mergePartition(
       progress = await mergeOrder(jobDir, store, task, progress, orderMax, space, tuning);
     }
     // Each order removes its intermediates once committed; this catches a stop between the two.
-    await removeDir(path.dirname(scratchDirOf(jobDir, space, task.partition, 1)));
+    await removeDir(partitionScratchOf(jobDir, space, task.partition));
     return progress.tallies;
   } finally {
     await store.close();
@@ -137,7 +137,7 @@ async function mergeOrder(
   // At most MERGE_FAN_IN_MAX sources at once (the local continuation counts take one slot).
   const local = task.localOrders?.includes(order) ?? false;
   const fanIn = tuning.fanIn ?? MERGE_FAN_IN_MAX;
-  const scratch = scratchDirOf(jobDir, space, task.partition, order);
+  const scratch = path.join(partitionScratchOf(jobDir, space, task.partition), `o${order}`);
   await removeDir(scratch);
   const files = await fewerRuns({
     files: task.files[order - 1].map((file) => path.join(jobDir, file)), order, slots: local ? fanIn - 1 : fanIn, fanIn,

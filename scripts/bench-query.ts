@@ -15,7 +15,9 @@
  *   - packed, stateless       `logProb(history, id)` with the history as a sliding array;
  *   - in memory (baseline)    `logProb(model, history, id)` of src/estimate/model.ts, same history.
  * Each runs for at least --seconds (and 5 passes); the figure is the median pass. The sums of log10 p
- * are compared (float64 file: equal to 1e-6 relative).
+ * are compared (float64 file: equal to 1e-6 relative). `step` runs as a model opens by default, in
+ * WebAssembly (src/pack/lookup-wasm.ts); the JavaScript lookups (`engine: 'js'`) run in turn with it
+ * on the same file, as the baseline of that choice, and must give the same sum bit for bit.
  * Load: `openModel` of the float32 file, median of 15, as it opens by default (checksums, header,
  * table, vocabulary, the lookups' bounds) and with the structure check (`checkStructure: true`);
  * beside it the cost of allocating and filling as much fresh memory, the floor of any load that
@@ -253,6 +255,9 @@ interface Measured {
   stateSum: Record<string, number>;
   advance: number;
   stateless: number;
+  /** `step` of the JavaScript lookups (`engine: 'js'`) on the same file, in turn with the default
+   *  ones (WebAssembly), per file; their Σ log10 p must be the same bit for bit. */
+  stateJs: Record<string, number>;
   /** float32: [lanes, lookups/s] of the batched lookups at each --lanes. */
   batch?: Array<[number, number]>;
   /** --against: the float32 file of that revision (lookups with its state API, loads), measured in
@@ -336,22 +341,26 @@ async function measurePart(from: string, part: Part): Promise<Partial<Measured>>
     if (against !== null) Object.assign(result, { againstLoadMs: median(againstLoads), againstLoadUncheckedMs: median(againstLoadsUnchecked) });
   }
   const packed = await openModel(filePath);
-  // step, the batched lookups (float32: at each --lanes) and the --against revision's step, in turn.
+  const packedJs = await openModel(filePath, { engine: 'js' });
+  // step, the JavaScript lookups' step, the batched lookups (float32: at each --lanes) and the
+  // --against revision's step, in turn.
   const lanes = part === 'float32' ? laneCounts : [];
-  const passes: Array<() => number> = [() => stepPass(packed, stream), ...lanes.map((count) => () => batchPass(packed, stream, count))];
+  const passes: Array<() => number> = [() => stepPass(packed, stream), () => stepPass(packedJs, stream), ...lanes.map((count) => () => batchPass(packed, stream, count))];
   if (against !== null) {
     const old = await against.openModel(againstPath);
     passes.push(() => againstPass(old, stream));
   }
   const measured = measureTogether(tokens, passes);
-  const [state] = measured;
+  const [state, stateJs] = measured;
+  if (stateJs.sum !== state.sum) throw new Error(`${part}: the JavaScript lookups' Σ log10 p ${stateJs.sum} differs from the WebAssembly ones' ${state.sum}`);
   result.state = { [part]: state.perSecond };
+  result.stateJs = { [part]: stateJs.perSecond };
   result.stateSum = { [part]: state.sum };
   for (const [index, count] of lanes.entries()) {
-    const batch = measured[1 + index];
+    const batch = measured[2 + index];
     if (Math.abs(batch.sum - state.sum) > 1e-9 * Math.abs(state.sum)) throw new Error(`stepBatch (${count} lanes): Σ log10 p ${batch.sum} differs from step's ${state.sum}`);
   }
-  if (lanes.length > 0) result.batch = lanes.map((count, index) => [count, measured[1 + index].perSecond]);
+  if (lanes.length > 0) result.batch = lanes.map((count, index) => [count, measured[2 + index].perSecond]);
   if (against !== null) {
     const previous = measured[measured.length - 1];
     Object.assign(result, { againstState: previous.perSecond, againstSum: previous.sum });
@@ -380,12 +389,14 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
     sizes.against = statSync(file).size;
   }
   writeFileSync(path.join(dir, 'stream.json'), JSON.stringify(stream));
-  const result = { state: {}, stateSum: {} } as Measured;
+  const result = { state: {}, stateJs: {}, stateSum: {} } as Measured;
   for (const part of PARTS) {
     const output = execFileSync(process.execPath, [...process.execArgv, process.argv[1], '--measure', dir, '--part', part, '--seconds', String(seconds), '--lanes', args.lanes], { encoding: 'utf8', maxBuffer: 1 << 20 });
     const measured = JSON.parse(output) as Partial<Measured>;
     Object.assign(result.state, measured.state ?? {});
     Object.assign(result.stateSum, measured.stateSum ?? {});
+    Object.assign(result.stateJs, measured.stateJs ?? {});
+    delete measured.stateJs;
     delete measured.state;
     delete measured.stateSum;
     Object.assign(result, measured);
@@ -404,7 +415,8 @@ async function benchModel(corpus: Corpus, model: LanguageModel, stream: number[]
     `${corpus.name}, order ${model.order}: ${ngrams.toLocaleString('en-US')} n-grams (${model.orders.map((t) => t.log10Prob.length.toLocaleString('en-US')).join(' + ')}), ` +
       `${tokens.toLocaleString('en-US')} held-out tokens per pass; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
       `  lookups   in memory logProb ${million(result.baseline)} (baseline) | packed, state carried (step): float64 ${million(result.state.float64)} (${ratio(result.state.float64)}), ` +
-      `float32 ${million(result.state.float32)} (${ratio(result.state.float32)}), 8-bit ${million(result.state['8-bit'])} (${ratio(result.state['8-bit'])}) | ` +
+      `float32 ${million(result.state.float32)} (${ratio(result.state.float32)}), 8-bit ${million(result.state['8-bit'])} (${ratio(result.state['8-bit'])}) ` +
+      `[WebAssembly; the JavaScript lookups in turn: ${PARTS.filter((part) => part !== 'baseline').map((part) => `${part} ${million(result.stateJs[part])}, WebAssembly ×${(result.state[part] / result.stateJs[part]).toFixed(2)}`).join('; ')}] | ` +
       `packed float32 advance (a new state per word) ${million(result.advance)} (${ratio(result.advance)}), stateless ${million(result.stateless)} (${ratio(result.stateless)}) | ` +
       `float32 stepBatch, sentences in lanes: ${(result.batch ?? []).map(([count, perSecond]) => `${count} lanes ${million(perSecond)} (×${(perSecond / result.state.float32).toFixed(2)} step)`).join(', ')}\n` +
       `  size      B/n-gram: float64 ${perNgram('float64')}, float32 ${perNgram('float32')}, 16-bit ${perNgram('16-bit')}, 8-bit ${perNgram('8-bit')} ` +
@@ -473,12 +485,15 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
       orders[state.order]++;
     }
   }
-  // Lookups: step, the batched lookups at each --lanes, and the --against revision's, in turn.
-  const passes: Array<() => number> = [() => stepPass(model, stream), ...laneCounts.map((lanes) => () => batchPass(model, stream, lanes))];
+  // Lookups: step, the JavaScript lookups' step, the batched lookups at each --lanes, and the
+  // --against revision's, in turn.
+  const modelJs = await openModel(file, { engine: 'js' });
+  const passes: Array<() => number> = [() => stepPass(model, stream), () => stepPass(modelJs, stream), ...laneCounts.map((lanes) => () => batchPass(model, stream, lanes))];
   if (old !== null) passes.push(() => againstPass(old, stream));
   const measured = measureTogether(tokens, passes);
-  const lookups = measured[0];
-  const batched = measured.slice(1, 1 + laneCounts.length);
+  const [lookups, lookupsJs] = measured;
+  if (lookupsJs.sum !== lookups.sum) throw new Error(`the JavaScript lookups' Σ log10 p ${lookupsJs.sum} differs from the ${model.engine} ones' ${lookups.sum}`);
+  const batched = measured.slice(2, 2 + laneCounts.length);
   for (const [index, result] of batched.entries()) {
     if (Math.abs(result.sum - lookups.sum) > 1e-9 * Math.abs(lookups.sum)) throw new Error(`stepBatch (${laneCounts[index]} lanes): Σ log10 p ${result.sum} differs from step's ${lookups.sum}`);
   }
@@ -501,7 +516,8 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
       `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
       `  load      in a fresh process each, as opened by default (checksums, bounds): ${loads.map(perGigabyte).join(', ')} (median ${perGigabyte(median(loads))}); with the structure check ${perGigabyte(structureLoads[0])}\n` +
-      `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
+      `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s (${model.engine === 'wasm' ? 'WebAssembly' : 'JavaScript: the model is too large for a WebAssembly memory'}; ` +
+      `the JavaScript lookups in turn: ${(lookupsJs.perSecond / 1e6).toFixed(2)} M/s, ×${(lookups.perSecond / lookupsJs.perSecond).toFixed(2)}) over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
       orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
       batchLine + againstLine,
   );

@@ -1,6 +1,7 @@
 // `npm run build` (also run by `npm ci` / `npm install` as the `prepare` script): compiles src/ to
 // JavaScript in dist/ (tsconfig.build.json: emit only, the type check is `npm run typecheck`),
-// copies the sources that are JavaScript already (worker-boot.mjs), and writes the stamp of the
+// copies the sources that are JavaScript or WebAssembly already (worker-boot.mjs, lookup-step.wasm:
+// `npm run build:wasm` makes that one), and writes the stamp of the
 // sources it compiled (bin/source-stamp.mjs). bin/quern.js runs dist/ while src/ keeps that stamp
 // and the sources through tsx otherwise, so a stale dist/ is never run; what the build saves is
 // tsx's loading at every start (DEVELOPERS.md, "Start-up").
@@ -42,7 +43,7 @@ try {
   const result = spawnSync(process.execPath, [tsc, '-p', join(REPO, 'tsconfig.build.json'), '--outDir', scratch], { cwd: REPO, stdio: 'inherit' });
   if (result.status !== 0) throw new Error(`tsc exited with status ${result.status ?? result.signal}`);
   for (const entry of readdirSync(SOURCES, { recursive: true, withFileTypes: true })) {
-    if (!entry.isFile() || !entry.name.endsWith('.mjs')) continue;
+    if (!entry.isFile() || !(entry.name.endsWith('.mjs') || entry.name.endsWith('.wasm'))) continue;
     const from = join(entry.parentPath ?? entry.path, entry.name);
     const to = join(scratch, from.slice(SOURCES.length));
     cpSync(from, to);

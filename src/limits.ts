@@ -362,6 +362,17 @@ export const ARPA_GZIP_LEVEL = 1;
 /** Bytes of ARPA text gathered before one write (`quern export`, arpa-text.ts): 1 MiB, few calls. */
 export const ARPA_WRITE_BYTES = 1 << 20;
 
+/** The WebAssembly lookups (src/pack/lookup-wasm.ts) hold the model file's sections in one
+ *  WebAssembly memory, whose 32-bit addresses reach 4 GiB (2^16 pages of 64 KiB; Node 20's engine
+ *  allows that much): a larger model is read into buffers and answered by the JavaScript lookups. */
+export const LOOKUP_WASM_MEMORY_BYTES_MAX = 2 ** 32;
+
+/** Decoder states (`newState`) whose rows live in a model's WebAssembly memory at once, 256 bytes
+ *  each (1 MiB for all): `step` then works on them where they are. States beyond these (a decoder
+ *  keeping thousands alive) are copied in and out of a scratch block per `step`, ~15 % slower (24 MB
+ *  benchmark model, 2026-12-05). A state's block is freed when the state is garbage-collected. */
+export const LOOKUP_WASM_STATES_MAX = 4096;
+
 /** Lines of an ARPA file at most: the sort keeps each n-gram's line (for messages) in a u32. */
 export const ARPA_LINES_MAX = 0xffff_ffff;
 

@@ -65,6 +65,11 @@ function scores(model: PackedModel): number[] {
 }
 
 /** Every lookup of the probe text answers a finite number (or −∞, a stored probability 0): bounded. */
+/** Every token's log10 p and answering order over the probe text. */
+function allScores(model: PackedModel): Array<[number, number]> {
+  return probe.flatMap((words) => model.scoreSentence(words).tokens.map((token): [number, number] => [token.log10Prob, token.order]));
+}
+
 function expectBoundedLookups(model: PackedModel): void {
   for (const words of probe) {
     for (const token of model.scoreSentence(words).tokens) {
@@ -364,7 +369,13 @@ describe('fuzz of the bit-packed structure and the values, behind fresh checksum
       const started = performance.now();
       const { path, model, error } = await tryOpen(buildFile(file), checkStructure);
       if (model !== undefined) {
+        expect(model.engine).toBe('wasm');
         expectBoundedLookups(model);
+        // The JavaScript lookups read the same arrays within the same bounds: the same numbers, also
+        // where a crafted file makes them wrong.
+        const js = await openModel(path, { checkStructure, engine: 'js' });
+        expectBoundedLookups(js);
+        expect(allScores(js)).toEqual(allScores(model));
         opened++;
       } else {
         if (!(error instanceof QuernError && error.code === 'corrupt' && error.message.startsWith(`${path}: `))) throw error;

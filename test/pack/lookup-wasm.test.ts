@@ -1,0 +1,172 @@
+/**
+ * The WebAssembly lookups (src/pack/lookup-wasm.ts, lookup-step.as.ts): the committed module is what
+ * its source compiles to, and `step` gives the JavaScript lookups' numbers bit for bit — every
+ * encoding, orders 1 to 7, packed ids of 16 bits and of other widths, a model that is not normalised
+ * — whether a state's block is in the WebAssembly memory or copied in. (The fuzz of
+ * corrupt.test.ts compares both on damaged files too.)
+ */
+import { spawnSync } from 'node:child_process';
+import { readFileSync } from 'node:fs';
+import { createRequire } from 'node:module';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { afterAll, beforeAll, describe, expect, test } from 'vitest';
+import { BOS_ID } from '../../src/corpus/vocabulary.ts';
+import { countCorpus, sentenceIds, wordIdMap } from '../../src/estimate/counts.ts';
+import { nodeFs } from '../../src/job/fsio.ts';
+import { LOOKUP_WASM_MEMORY_BYTES_MAX, LOOKUP_WASM_STATES_MAX } from '../../src/limits.ts';
+import { wasmLayout, wasmMemory } from '../../src/pack/lookup-wasm.ts';
+import { DecoderState, openModel, type PackedModel } from '../../src/pack/reader.ts';
+import { packModel, type PackOptions } from '../../src/pack/writer.ts';
+import { estimateWith, markovCorpus, type NormalisedMethod } from '../estimate/support.ts';
+import { temporaryDirectory } from './support.ts';
+
+const REPO = fileURLToPath(new URL('../..', import.meta.url));
+const { dir, remove } = temporaryDirectory('wasm');
+afterAll(remove);
+
+test('the committed lookup-step.wasm is what asc (the pinned AssemblyScript) compiles from lookup-step.as.ts', () => {
+  const asc = createRequire(import.meta.url).resolve('assemblyscript/bin/asc.js');
+  const out = join(dir, 'step.wasm');
+  const result = spawnSync(process.execPath, [asc, 'src/pack/lookup-step.as.ts', '--config', 'src/pack/asconfig.json', '-o', out], { cwd: REPO, encoding: 'utf8' });
+  expect(result.stderr + result.stdout).toBe('');
+  expect(result.status).toBe(0);
+  expect(readFileSync(out).equals(readFileSync(join(REPO, 'src/pack/lookup-step.wasm'))), 'npm run build:wasm, and commit src/pack/lookup-step.wasm').toBe(true);
+});
+
+/** Steps `sentences` (ids, `</s>` appended) through `model` with each of `states`, one after another,
+ *  and returns every (log10 p, order, length, history) seen. */
+function walk(model: PackedModel, states: DecoderState[], sentences: number[][]): string[] {
+  const seen: string[] = [];
+  for (const state of states) {
+    for (const sentence of sentences) {
+      model.resetState(state);
+      for (const id of [...sentence, model.eosId]) {
+        const log10Prob = model.step(state, id);
+        // Object.is through the string: −0 and 0, NaN, −∞ all stay distinct.
+        seen.push(`${Object.is(log10Prob, -0) ? '-0' : String(log10Prob)} ${state.order} ${state.length} ${state.history.join(',')}`);
+      }
+    }
+  }
+  return seen;
+}
+
+const train = markovCorpus(31, 400, 60, 14);
+const test_ = markovCorpus(32, 80, 70, 16); // 10 types never seen in training: OOVs
+let fileIndex = 0;
+
+async function packed(order: number, method: NormalisedMethod | 'stupid-backoff', options: Partial<PackOptions>, sentences = train): Promise<{ file: string; ids: number[][] }> {
+  const counts = countCorpus(sentences, order);
+  const file = join(dir, `m${fileIndex++}.qm`);
+  await packModel(estimateWith(method, counts, markovCorpus(33, 40, 60, 14)), { fingerprint: 'wasm', ...options }, nodeFs, file);
+  const idOf = wordIdMap(counts.vocabulary);
+  const ids = [...sentences.slice(0, 40), ...test_].map((words) => sentenceIds(idOf, counts.vocabulary, words).ids);
+  return { file, ids };
+}
+
+/** The WebAssembly and JavaScript lookups of `file` along `ids`: the same, with a state of the
+ *  memory, a state of its own (copied in) and a state made by another opening of the file. */
+async function expectSameLookups(file: string, ids: number[][]): Promise<number> {
+  const wasm = await openModel(file);
+  const js = await openModel(file, { engine: 'js' });
+  const other = await openModel(file);
+  expect(wasm.engine).toBe('wasm');
+  expect(js.engine).toBe('js');
+  const inMemory = wasm.newState();
+  expect(inMemory.owner).not.toBeNull();
+  const expected = walk(js, [js.newState()], ids);
+  expect(walk(wasm, [inMemory], ids)).toEqual(expected);
+  expect(walk(wasm, [new DecoderState()], ids)).toEqual(expected);
+  expect(walk(wasm, [other.newState()], ids)).toEqual(expected);
+  // Scoring (step underneath) and the stateless lookup agree too.
+  const sentence = ids[ids.length - 1];
+  expect(wasm.logProb([BOS_ID, ...sentence], wasm.eosId)).toEqual(js.logProb([BOS_ID, ...sentence], js.eosId));
+  return expected.length;
+}
+
+describe('step in WebAssembly gives the JavaScript numbers bit for bit', () => {
+  const cases: Array<[string, number, NormalisedMethod | 'stupid-backoff', Partial<PackOptions>]> = [
+    ['float32, order 3', 3, 'modified-kneser-ney', {}],
+    ['float64, order 4', 4, 'katz', { floatBits: 64 }],
+    ['8-bit codes, order 5', 5, 'witten-bell', { quantBits: 8 }],
+    ['16-bit codes, order 3', 3, 'kneser-ney', { quantBits: 16 }],
+    ['order 1', 1, 'absolute-discounting', {}],
+    ['order 2', 2, 'jelinek-mercer', {}],
+    ['order 7', 7, 'modified-kneser-ney', {}],
+    ['stupid backoff (not normalised: an unseen context has a weight)', 4, 'stupid-backoff', {}],
+  ];
+  for (const [name, order, method, options] of cases) {
+    test(name, async () => {
+      const { file, ids } = await packed(order, method, options);
+      expect(await expectSameLookups(file, ids)).toBeGreaterThan(1000);
+    });
+  }
+
+  test('word ids of exactly 16 bits (the JavaScript lookups read them as a Uint16Array; the WebAssembly ones as any width)', async () => {
+    // 33,000 types: ids of bitsFor(33,000) = 16 bits.
+    const many: string[][] = [];
+    for (let i = 0; i < 33_000; i += 11) many.push(Array.from({ length: 11 }, (_, j) => `w${i + j}`));
+    const { file, ids } = await packed(3, 'modified-kneser-ney', {}, [...train, ...many]);
+    const model = await openModel(file);
+    expect(model.vocabularySize).toBeGreaterThanOrEqual(2 ** 15);
+    expect(model.vocabularySize).toBeLessThan(2 ** 16);
+    const sentences = [...ids, ...many.slice(0, 200).map((words) => words.map((word) => model.wordId(word)))];
+    await expectSameLookups(file, sentences);
+  });
+});
+
+describe('state blocks', () => {
+  let file: string;
+  let ids: number[][];
+  beforeAll(async () => {
+    ({ file, ids } = await packed(4, 'modified-kneser-ney', {}));
+  });
+
+  test(`past ${LOOKUP_WASM_STATES_MAX} states alive, the next ones have blocks of their own, and answer the same`, async () => {
+    const model = await openModel(file);
+    const js = await openModel(file, { engine: 'js' });
+    const states = Array.from({ length: LOOKUP_WASM_STATES_MAX + 2 }, () => model.newState());
+    const inMemory = states.filter((state) => state.owner !== null).length;
+    // One block is the scratch block, one `advance`'s state.
+    expect(inMemory).toBe(LOOKUP_WASM_STATES_MAX - 2);
+    const some = ids.slice(0, 5);
+    const expected = walk(js, [js.newState()], some);
+    for (const state of [states[0], states[states.length - 1]]) expect(walk(model, [state], some)).toEqual(expected);
+  });
+
+  test('a collected state gives its block back (node --expose-gc)', () => {
+    const script = `
+      import { openModel } from './src/pack/reader.ts';
+      const model = await openModel(${JSON.stringify(file)});
+      let kept = 0;
+      for (let round = 0; round < 4; round++) {
+        for (let i = 0; i < ${LOOKUP_WASM_STATES_MAX}; i++) model.newState();
+        globalThis.gc();
+        await new Promise((resolve) => setTimeout(resolve, 20));
+        if (model.newState().owner !== null) kept++;
+      }
+      process.stdout.write(String(kept));
+    `;
+    const result = spawnSync(process.execPath, ['--expose-gc', '--import', 'tsx', '--input-type=module', '-e', script], { cwd: REPO, encoding: 'utf8' });
+    expect(result.stderr).toBe('');
+    expect(result.stdout).toBe('4');
+  });
+});
+
+describe('choosing the lookups', () => {
+  test("'auto' is WebAssembly; a model opened to be shared with worker threads uses the JavaScript lookups; wrong choices are refused", async () => {
+    const { file } = await packed(3, 'modified-kneser-ney', {});
+    expect((await openModel(file)).engine).toBe('wasm');
+    expect((await openModel(file, { engine: 'auto', shared: true })).engine).toBe('js');
+    await expect(openModel(file, { engine: 'wasm', shared: true })).rejects.toMatchObject({ code: 'config', message: expect.stringMatching(/cannot answer from shared memory/) });
+    await expect(openModel(file, { engine: 'fast' as never })).rejects.toMatchObject({ code: 'config', message: expect.stringMatching(/engine must be 'auto', 'wasm' or 'js' \(got fast\)/) });
+  });
+
+  test('a model needing more than 4 GiB of WebAssembly memory gets none (openModel then reads buffers)', () => {
+    const layout = wasmLayout(LOOKUP_WASM_MEMORY_BYTES_MAX - 1024, 5, 1);
+    expect(layout.bytes).toBeGreaterThan(LOOKUP_WASM_MEMORY_BYTES_MAX);
+    const memory = wasmMemory(layout);
+    expect(memory).toBeInstanceOf(Error);
+    expect((memory as Error).message).toMatch(/needs \d+ bytes of WebAssembly memory, over its 4294967296/);
+  });
+});

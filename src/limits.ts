@@ -274,9 +274,11 @@ export const SCORE_LANES = 64;
 export const SCORE_LANES_MAX = 1 << 16;
 
 /** Bytes of a model file from which `quern score` scores sentences together (`stepBatch`) rather
- *  than one at a time (`step`): `npm run bench:query -- --against fa2a9de` (load average 4-6) found
- *  64 lanes at ×0.71-0.72 `step`'s lookups/s on the Brown models (11 and 31 MB files, mostly in the
- *  32 MB L3 cache), ×0.92 on a 35 MB one, ×1.09 on a 95 MB one and ×1.48 on the 3.26 GB one. */
+ *  than one at a time (`step`) when the model's lookups are the JavaScript ones (`scoresInBatches`:
+ *  the WebAssembly `step` beats `stepBatch` at every size): `npm run bench:query -- --against
+ *  fa2a9de` (load average 4-6) found 64 lanes at ×0.71-0.72 the JavaScript `step`'s lookups/s on the
+ *  Brown models (11 and 31 MB files, mostly in the 32 MB L3 cache), ×0.92 on a 35 MB one, ×1.09 on a
+ *  95 MB one and ×1.48 on the 3.26 GB one. */
 export const SCORE_BATCH_MODEL_BYTES_MIN = 64 << 20;
 
 /** Bytes of the line-aligned chunks `quern score` splits plain inputs into (its default

@@ -10,9 +10,12 @@
  *   then                    8 bytes of slack (a packed id is read with one 8-byte load), the
  *                           parameter block (PARAM_BYTES), the codebooks extended to every code
  *                           (quantised files), and LOOKUP_WASM_STATES_MAX state blocks of
- *                           STATE_BLOCK_BYTES for `newState`.
+ *                           STATE_BLOCK_BYTES for `newState`, handed out in chunks of
+ *                           STATE_CHUNK_BLOCKS to the instances (one per thread) as they need them.
  *
- * The memory never grows (a grown memory would detach every view of it).
+ * The memory is shared (its buffer a SharedArrayBuffer), so that worker threads given the model
+ * (`shareable`, `modelFromShared`) run the same lookups on it, each thread with an instance of its
+ * own; and it never grows (a grown memory would detach every view of it).
  */
 import { readFileSync } from 'node:fs';
 import { assert } from '../errors.ts';
@@ -32,6 +35,11 @@ export const STATE_STARTS_AT = 32;
 export const STATE_ENDS_AT = 48;
 /** Where the block's answering order is (in i32s). */
 export const STATE_ORDER_AT = 0;
+/** State blocks an instance takes at a time (the first instance's first one is its scratch block). */
+const STATE_CHUNK_BLOCKS = 64;
+/** The parameter block's counter of chunks taken (bytes from its start; lookup-step.as.ts leaves
+ *  bytes 32..63 alone). */
+const CHUNKS_TAKEN_AT = 56;
 
 /** What the lookups read of one order (reader.ts, HotLevel). */
 export interface WasmLevel {
@@ -93,7 +101,7 @@ export function wasmMemory(layout: WasmLayout): WebAssembly.Memory | Error {
   if (module instanceof Error) return new Error(`the WebAssembly lookups cannot be loaded: ${module.message}`);
   const pages = layout.bytes / PAGE_BYTES;
   try {
-    return new WebAssembly.Memory({ initial: pages, maximum: pages });
+    return new WebAssembly.Memory({ initial: pages, maximum: pages, shared: true });
   } catch (error) {
     return new Error(`no WebAssembly memory of ${layout.bytes} bytes: ${(error as Error).message}`);
   }
@@ -108,25 +116,59 @@ export interface WasmModelParameters {
 }
 
 /**
- * `step` over one model's memory, and the state blocks there. `hot[n]` (n = 1..order; 0 unused)
- * are the arrays the JavaScript lookups read, all views of `memory` (or empty).
+ * `step` over one model's memory, and the state blocks there, for one thread. `hot[n]` (n =
+ * 1..order; 0 unused) are the arrays the JavaScript lookups read, all views of `memory` (or
+ * empty). The first instance writes the parameter block and the codebooks; an `attached` one (a
+ * worker thread's, `modelFromShared`) finds them written.
  */
 export class LookupWasm {
   /** log10 p of `word` after the history of `length` ids whose rows are in the block at `state`
    *  (lookup-step.as.ts, `step`). */
   readonly step: (state: number, length: number, word: number) => number;
-  readonly buffer: ArrayBuffer;
-  /** A block for states that have none of their own (copied in and out per step). */
+  readonly buffer: ArrayBufferLike;
+  /** A block for states that have none of their own (copied in and out per step); −1 when every
+   *  chunk was taken by other threads (`step` then stays with the JavaScript lookups). */
   readonly scratch: number;
   readonly scratchBlock: Int32Array;
   private readonly free: number[] = [];
   private readonly registry = new FinalizationRegistry<number>((at) => this.free.push(at));
+  private readonly chunksTaken: Int32Array;
+  private readonly states: number;
 
-  constructor(memory: WebAssembly.Memory, layout: WasmLayout, model: WasmModelParameters, hot: readonly WasmLevel[]) {
+  constructor(memory: WebAssembly.Memory, layout: WasmLayout, model: WasmModelParameters, hot: readonly WasmLevel[], attached: boolean) {
     const module = stepModule();
     assert(!(module instanceof Error), 'the module was compiled when the memory was made');
     const buffer = memory.buffer;
     this.buffer = buffer;
+    this.states = layout.states;
+    this.chunksTaken = new Int32Array(buffer, layout.params + CHUNKS_TAKEN_AT, 1);
+    const instance = new WebAssembly.Instance(module as WebAssembly.Module, { env: { memory } });
+    const exports = instance.exports as { init: (at: number) => void; step: (state: number, length: number, word: number) => number };
+    if (!attached) LookupWasm.writeParameters(buffer, layout, model, hot);
+    exports.init(layout.params);
+    this.step = exports.step;
+    this.scratch = this.takeChunk() ? (this.free.pop() as number) : -1;
+    this.scratchBlock = new Int32Array(buffer, Math.max(0, this.scratch), STATE_BLOCK_INTS);
+  }
+
+  /** True when this instance can run `step` (it has a scratch block). */
+  get usable(): boolean {
+    return this.scratch >= 0;
+  }
+
+  /** Moves the next chunk of state blocks, if any is left, to this instance's free blocks. */
+  private takeChunk(): boolean {
+    const chunks = LOOKUP_WASM_STATES_MAX / STATE_CHUNK_BLOCKS;
+    if (Atomics.load(this.chunksTaken, 0) >= chunks) return false; // (so the counter stays small)
+    const chunk = Atomics.add(this.chunksTaken, 0, 1);
+    if (chunk >= chunks) return false;
+    const first = this.states + chunk * STATE_CHUNK_BLOCKS * STATE_BLOCK_BYTES;
+    for (let block = STATE_CHUNK_BLOCKS - 1; block >= 0; block--) this.free.push(first + block * STATE_BLOCK_BYTES);
+    return true;
+  }
+
+  /** The parameter block and the codebooks (lookup-step.as.ts). */
+  private static writeParameters(buffer: ArrayBufferLike, layout: WasmLayout, model: WasmModelParameters, hot: readonly WasmLevel[]): void {
     const view = new DataView(buffer, layout.params, PARAM_BYTES);
     view.setInt32(0, model.order, true);
     view.setInt32(4, model.wordBits, true);
@@ -157,18 +199,12 @@ export class LookupWasm {
       view.setBigUint64(at + 40, (1n << BigInt(level.childBits)) - 1n, true);
     }
     assert(codebooks <= layout.states, 'the codebooks fit their part of the memory');
-    const instance = new WebAssembly.Instance(module as WebAssembly.Module, { env: { memory } });
-    const exports = instance.exports as { init: (at: number) => void; step: (state: number, length: number, word: number) => number };
-    exports.init(layout.params);
-    this.step = exports.step;
-    this.scratch = layout.states;
-    this.scratchBlock = new Int32Array(buffer, this.scratch, STATE_BLOCK_INTS);
-    for (let slot = LOOKUP_WASM_STATES_MAX - 1; slot >= 1; slot--) this.free.push(layout.states + slot * STATE_BLOCK_BYTES);
   }
 
   /** A free state block's address, or −1 when all are taken. */
   take(): number {
-    return this.free.pop() ?? -1;
+    if (this.free.length === 0 && !this.takeChunk()) return -1;
+    return this.free.pop() as number;
   }
 
   /** Frees the block at `at` once `owner` (its state) is garbage-collected. */

@@ -215,13 +215,12 @@ export interface OpenOptions {
   /** Read the sections into SharedArrayBuffers (default false), so that `shareable()` can hand the
    *  model to worker threads (`modelFromShared`), which then answer from the same memory. */
   shared?: boolean;
-  /** Which lookups `step` runs (default 'auto'): 'wasm', WebAssembly over one memory that holds
-   *  the file's sections (the same numbers, ~1.4× the lookups per second on the 24 MB benchmark
-   *  model); 'js', JavaScript over a buffer per section; 'auto', 'wasm' unless the model is opened
-   *  `shared`, needs more than LOOKUP_WASM_MEMORY_BYTES_MAX (4 GiB), or no such memory can be had.
-   *  'wasm' with `shared` is a QuernError 'config', 'wasm' where no such memory can be had one of
-   *  'limit', saying why. `PackedModel.engine` tells which
-   *  runs. */
+  /** Which lookups `step` runs (default 'auto'): 'wasm', WebAssembly over one (shared) memory
+   *  that holds the file's sections (the same numbers, ~1.4× the lookups per second on the 24 MB
+   *  benchmark model; worker threads given the model by `shareable` run it too); 'js', JavaScript
+   *  over a buffer per section; 'auto', 'wasm' unless the model needs more than
+   *  LOOKUP_WASM_MEMORY_BYTES_MAX (4 GiB) or no such memory can be had. 'wasm' where it cannot be
+   *  is a QuernError 'limit' saying why. `PackedModel.engine` tells which runs. */
   engine?: LookupEngine;
 }
 
@@ -241,13 +240,23 @@ export interface SharedModel {
   /** Each known section: its key (`kind:order`) and its bytes. */
   data: Array<{ key: string; buffer: SharedArrayBuffer; byteOffset: number; byteLength: number }>;
   structureChecked: boolean;
+  /** The WebAssembly memory the sections lie in (a shared one), when the WebAssembly lookups answer. */
+  wasm?: SharedWasm;
 }
 
-/** The model `shared` describes, over the same memory (SharedModel). */
+/** A model's WebAssembly memory and its layout (lookup-wasm.ts). */
+interface SharedWasm {
+  memory: WebAssembly.Memory;
+  layout: WasmLayout;
+}
+
+/** The model `shared` describes, over the same memory (SharedModel); with the WebAssembly lookups
+ *  when the opener had them, each thread with its own instance and state blocks. */
 export function modelFromShared(shared: SharedModel): PackedModel {
   const data = new Map<string, Buffer>();
-  for (const { key, buffer, byteOffset, byteLength } of shared.data) data.set(key, Buffer.from(buffer, byteOffset, byteLength));
-  return new PackedModel(shared.file, shared.fileBytes, shared.header, shared.sections, data, shared.structureChecked);
+  const wasm = shared.wasm;
+  for (const { key, buffer, byteOffset, byteLength } of shared.data) data.set(key, Buffer.from(wasm === undefined ? buffer : wasm.memory.buffer, byteOffset, byteLength));
+  return new PackedModel(shared.file, shared.fileBytes, shared.header, shared.sections, data, shared.structureChecked, wasm ?? null, true);
 }
 
 /**
@@ -426,7 +435,6 @@ function requiredSections(header: Header): Array<[number, number]> {
 
 async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number, checkStructure: boolean, shared: boolean, engine: LookupEngine): Promise<PackedModel> {
   if (!(engine === 'auto' || engine === 'wasm' || engine === 'js')) throw new QuernError('config', `engine must be 'auto', 'wasm' or 'js' (got ${String(engine)})`);
-  if (engine === 'wasm' && shared) throw new QuernError('config', `${file}: the WebAssembly lookups cannot answer from shared memory; open the model with engine 'auto' or 'js' to share it`);
   const headerBytes = Buffer.alloc(HEADER_BYTES);
   await readAt(handle, file, 'header', headerBytes.subarray(0, Math.min(HEADER_BYTES, fileBytes)), 0);
   const header = parseHeader(file, headerBytes, fileBytes);
@@ -482,8 +490,8 @@ async function readModel(handle: fsp.FileHandle, file: string, fileBytes: number
   }
 
   // The WebAssembly lookups' memory, which the sections are read into (lookup-wasm.ts).
-  let wasm: { memory: WebAssembly.Memory; layout: WasmLayout } | null = null;
-  if (engine !== 'js' && !shared) {
+  let wasm: SharedWasm | null = null;
+  if (engine !== 'js') {
     const layout = wasmLayout(footer.tableOffset, header.order, header.encoding);
     const memory = wasmMemory(layout);
     if (memory instanceof Error) {
@@ -979,6 +987,7 @@ export class PackedModel {
   private readonly scratchState: DecoderState;
   /** The WebAssembly lookups (null: the JavaScript ones answer). */
   private readonly wasm: LookupWasm | null;
+  private readonly wasmMemory: SharedWasm | null;
   private readonly sectionWhere: (kind: number, order?: number) => string;
   private checked = false;
   /** `stepBatch` calls so far (each state records the last that took it). */
@@ -1015,8 +1024,9 @@ export class PackedModel {
     return this.checked;
   }
 
-  /** @internal Use `openModel`. `wasm`: the memory that `data` lies in, for the WebAssembly lookups. */
-  constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, structureChecked: boolean, wasm: { memory: WebAssembly.Memory; layout: WasmLayout } | null = null) {
+  /** @internal Use `openModel`. `wasm`: the memory that `data` lies in, for the WebAssembly lookups;
+   *  `attached`: another thread set that memory up (`modelFromShared`). */
+  constructor(file: string, fileBytes: number, header: Header, sections: SectionInfo[], data: Map<string, Buffer>, structureChecked: boolean, wasm: SharedWasm | null = null, attached = false) {
     const get = (kind: number, order = 0): Buffer => data.get(`${kind}:${order}`) as Buffer;
     this.header = header;
     this.data = data;
@@ -1076,7 +1086,10 @@ export class PackedModel {
     // openModel checked the structure while reading (StructureCheck) when asked to.
     this.checked = structureChecked;
     [this.sampleAt, this.samples] = this.order > 1 ? sampleLongChildren(this.hot[1], this.hot[2], this.vocabularySize + 1, this.wordBits, this.wordMask) : [new Int32Array(0), new Int32Array(0)];
-    this.wasm = wasm === null ? null : new LookupWasm(wasm.memory, wasm.layout, { order: this.order, wordBits: this.wordBits, encoding: this.encoding, log10UnseenContextWeight: this.log10UnseenContextWeight }, this.hot);
+    this.wasmMemory = wasm;
+    const lookups = wasm === null ? null : new LookupWasm(wasm.memory, wasm.layout, { order: this.order, wordBits: this.wordBits, encoding: this.encoding, log10UnseenContextWeight: this.log10UnseenContextWeight }, this.hot, attached);
+    // (Not usable: more threads than chunks of state blocks took one; this one runs JavaScript.)
+    this.wasm = lookups !== null && lookups.usable ? lookups : null;
     this.scratchState = this.newState();
   }
 
@@ -1092,7 +1105,9 @@ export class PackedModel {
       if (!(buffer.buffer instanceof SharedArrayBuffer)) throw new Error(`${this.filePath}: opened without { shared: true }, so it cannot be shared with worker threads`);
       data.push({ key, buffer: buffer.buffer, byteOffset: buffer.byteOffset, byteLength: buffer.byteLength });
     }
-    return { file: this.filePath, fileBytes: this.fileBytes, header: this.header, sections: this.sections, data, structureChecked: this.checked };
+    const shared: SharedModel = { file: this.filePath, fileBytes: this.fileBytes, header: this.header, sections: this.sections, data, structureChecked: this.checked };
+    if (this.wasmMemory !== null) shared.wasm = this.wasmMemory;
+    return shared;
   }
 
   /** Vocabulary checks that every lookup relies on (cheap: one pass over V + 1 words). */

@@ -120,11 +120,23 @@ export function scoreSentences(model: PackedModel, sentences: readonly (readonly
 }
 
 /**
+ * Whether `model`'s sentences are best scored together (`stepBatch`) rather than one at a time
+ * (`step`): when its `step` is the JavaScript one and its file is SCORE_BATCH_MODEL_BYTES_MIN or
+ * more. The WebAssembly `step` is faster than `stepBatch` (JavaScript) at every size measured:
+ * 3.48 against 2.00 M lookups/s on the 24 MB order-5 benchmark model (95 MB file), 0.89 against
+ * 0.68 on the 1 GB one (3.26 GB; `stepBatch` there reads the WebAssembly memory, which has no huge
+ * pages), `npm run bench:query`, 2026-12-05.
+ */
+export function scoresInBatches(model: PackedModel): boolean {
+  return model.engine === 'js' && model.fileBytes >= SCORE_BATCH_MODEL_BYTES_MIN;
+}
+
+/**
  * Sentences given one at a time, scored in groups of up to SCORE_BATCH_TOKENS tokens with
  * `scoreSentences`: `onScore` receives each sentence's score in the order the sentences came.
- * `flush` scores what is gathered (call it at the end). A model file smaller than
- * SCORE_BATCH_MODEL_BYTES_MIN is scored one sentence at a time (`scoreSentence`, the same numbers):
- * its lookups mostly hit the CPU's caches, and the batch's phases would only add work.
+ * `flush` scores what is gathered (call it at the end). Unless `scoresInBatches(model)`, it scores
+ * one sentence at a time (`scoreSentence`, the same numbers): a small model's lookups mostly hit
+ * the CPU's caches, and the batch's phases would only add work.
  */
 export class BatchScorer {
   private group: Array<readonly string[]> = [];
@@ -132,7 +144,7 @@ export class BatchScorer {
   /** Whether sentences are scored together (`scoreSentences`) or one at a time. */
   readonly batched: boolean;
 
-  constructor(private readonly model: PackedModel, private readonly onScore: (score: SentenceScore) => void, batched = model.fileBytes >= SCORE_BATCH_MODEL_BYTES_MIN) {
+  constructor(private readonly model: PackedModel, private readonly onScore: (score: SentenceScore) => void, batched = scoresInBatches(model)) {
     this.batched = batched;
   }
 

@@ -6,9 +6,10 @@
  * tokens before it; a token outside the vocabulary (and a literal `<s>`, `</s>` or `<unk>`) is an OOV,
  * scored as `<unk>` and kept in the history as `<unk>`.
  *
- * The sentences of a model file of SCORE_BATCH_MODEL_BYTES_MIN or more are scored together, many at
- * once (`BatchScorer`, src/score/batch.ts: the same numbers as `scoreSentence`, token for token), so
- * that their lookups' memory accesses overlap; those of a smaller one, one at a time.
+ * The sentences of a model whose JavaScript lookups answer, from a file of
+ * SCORE_BATCH_MODEL_BYTES_MIN, are scored together, many at once (`BatchScorer`, src/score/batch.ts:
+ * the same numbers as `scoreSentence`, token for token), so that their lookups' memory accesses
+ * overlap; others one at a time (`scoresInBatches`).
  */
 import { QuernError } from '../errors.ts';
 import type { PackedModel } from '../pack/reader.ts';

@@ -6,9 +6,9 @@
  * written in the text read as OOVs, like every word outside the vocabulary.
  */
 import type { TokenBlock } from '../corpus/byte-tokenizer.ts';
-import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS } from '../limits.ts';
+import { SCORE_BATCH_TOKENS } from '../limits.ts';
 import type { DecoderState, PackedModel } from '../pack/reader.ts';
-import { scoreIdSentences } from './batch.ts';
+import { scoreIdSentences, scoresInBatches } from './batch.ts';
 
 /** What a scored sentence reports (`SentenceScore` without the tokens). */
 export type SentenceSums = (tokens: number, oov: number, log10Prob: number, log10ProbWithUnk: number) => void;
@@ -16,7 +16,7 @@ export type SentenceSums = (tokens: number, oov: number, log10Prob: number, log1
 /**
  * Sentences of token blocks scored as `BatchScorer` scores sentences of words: each is its tokens'
  * ids (an OOV as `<unk>`) and `</s>`; groups of up to SCORE_BATCH_TOKENS tokens scored together
- * (`scoreIdSentences`) for a model file of SCORE_BATCH_MODEL_BYTES_MIN or more, else one at a time
+ * (`scoreIdSentences`) when `scoresInBatches(model)`, else one at a time
  * with `step`. `onSentence` receives each sentence's figures, in order, its sums added in token
  * order as `scoreSentence` adds them.
  */
@@ -32,7 +32,7 @@ export class BlockScorer {
 
   constructor(
     private readonly model: PackedModel, private readonly onSentence: SentenceSums,
-    batched = model.fileBytes >= SCORE_BATCH_MODEL_BYTES_MIN,
+    batched = scoresInBatches(model),
   ) {
     this.batched = batched;
     this.state = model.newState();

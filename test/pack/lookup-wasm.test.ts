@@ -10,18 +10,22 @@ import { readFileSync } from 'node:fs';
 import { createRequire } from 'node:module';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
+import { Worker } from 'node:worker_threads';
 import { afterAll, beforeAll, describe, expect, test } from 'vitest';
 import { BOS_ID } from '../../src/corpus/vocabulary.ts';
 import { countCorpus, sentenceIds, wordIdMap } from '../../src/estimate/counts.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
+import { StopGate } from '../../src/job/stop-gate.ts';
 import { LOOKUP_WASM_MEMORY_BYTES_MAX, LOOKUP_WASM_STATES_MAX } from '../../src/limits.ts';
 import { wasmLayout, wasmMemory } from '../../src/pack/lookup-wasm.ts';
-import { DecoderState, openModel, type PackedModel } from '../../src/pack/reader.ts';
+import { DecoderState, modelFromShared, openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus, type NormalisedMethod } from '../estimate/support.ts';
 import { temporaryDirectory } from './support.ts';
 
 const REPO = fileURLToPath(new URL('../..', import.meta.url));
+const BOOT = new URL('../../src/count/worker-boot.mjs', import.meta.url);
+const WALK_WORKER = new URL('../support/wasm-walk-worker.ts', import.meta.url).href;
 const { dir, remove } = temporaryDirectory('wasm');
 afterAll(remove);
 
@@ -153,12 +157,46 @@ describe('state blocks', () => {
   });
 });
 
+describe('worker threads', () => {
+  test('a model shared with worker threads answers there in WebAssembly too, each thread on state blocks of its own, at the same time: the same numbers', async () => {
+    const { file, ids } = await packed(4, 'modified-kneser-ney', { quantBits: 8 });
+    const model = await openModel(file, { shared: true });
+    const expected = walk(await openModel(file, { engine: 'js' }), [new DecoderState()], ids);
+    const workers = [0, 1].map(() => new Worker(BOOT, { workerData: { module: WALK_WORKER, stopGate: new StopGate().buffer, model: model.shareable(), ids, rounds: 300 } }));
+    const answers = workers.map((worker) => new Promise<{ engine: string; owned: boolean; seen: string[]; differing: number }>((resolve, reject) => {
+      worker.once('message', resolve);
+      worker.once('error', reject);
+      worker.once('exit', (code) => reject(new Error(`the worker exited (${code}) without an answer`)));
+    }));
+    // The main thread steps meanwhile, on its own blocks of the same memory, until both answered.
+    let answered = 0;
+    for (const answer of answers) void answer.then(() => answered++, () => answered++);
+    const inMain = model.newState();
+    let rounds = 0;
+    while (answered < answers.length) {
+      const seen = walk(model, [inMain], ids);
+      if (seen.some((line, i) => line !== expected[i])) expect(seen).toEqual(expected);
+      rounds++;
+      await new Promise((resolve) => setImmediate(resolve));
+    }
+    expect(rounds).toBeGreaterThan(3);
+    for (const answer of await Promise.all(answers)) {
+      expect(answer.differing).toBe(0);
+      expect(answer.engine).toBe('wasm');
+      expect(answer.owned).toBe(true);
+      expect(answer.seen).toEqual(expected);
+    }
+    await Promise.all(workers.map((worker) => worker.terminate()));
+  });
+});
+
 describe('choosing the lookups', () => {
-  test("'auto' is WebAssembly; a model opened to be shared with worker threads uses the JavaScript lookups; wrong choices are refused", async () => {
+  test("'auto' is WebAssembly, shared or not; 'js' is JavaScript, shared or not; a wrong choice is refused", async () => {
     const { file } = await packed(3, 'modified-kneser-ney', {});
     expect((await openModel(file)).engine).toBe('wasm');
-    expect((await openModel(file, { engine: 'auto', shared: true })).engine).toBe('js');
-    await expect(openModel(file, { engine: 'wasm', shared: true })).rejects.toMatchObject({ code: 'config', message: expect.stringMatching(/cannot answer from shared memory/) });
+    expect((await openModel(file, { engine: 'auto', shared: true })).engine).toBe('wasm');
+    expect((await openModel(file, { engine: 'js', shared: true })).engine).toBe('js');
+    expect(modelFromShared((await openModel(file, { engine: 'js', shared: true })).shareable()).engine).toBe('js');
     await expect(openModel(file, { engine: 'fast' as never })).rejects.toMatchObject({ code: 'config', message: expect.stringMatching(/engine must be 'auto', 'wasm' or 'js' \(got fast\)/) });
   });
 

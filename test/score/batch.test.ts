@@ -11,7 +11,7 @@ import { logProb } from '../../src/estimate/model.ts';
 import { nodeFs } from '../../src/job/fsio.ts';
 import { openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../../src/pack/writer.ts';
-import { BatchScorer, scoreIdSentences, scoreSentences } from '../../src/score/batch.ts';
+import { BatchScorer, scoreIdSentences, scoresInBatches, scoreSentences } from '../../src/score/batch.ts';
 import { SCORE_BATCH_MODEL_BYTES_MIN, SCORE_BATCH_TOKENS } from '../../src/limits.ts';
 import { estimateWith, markovCorpus } from '../estimate/support.ts';
 import { temporaryDirectory } from '../pack/support.ts';
@@ -177,4 +177,12 @@ test('BatchScorer scores a model file under SCORE_BATCH_MODEL_BYTES_MIN one sent
   expect(scores.length, 'scored as they come').toBe(text.length);
   scorer.flush();
   expect(scores).toEqual(text.map((words) => model.scoreSentence(words)));
+});
+
+test('scoresInBatches: batches only for the JavaScript step, from SCORE_BATCH_MODEL_BYTES_MIN (the WebAssembly step beats stepBatch at every size measured)', () => {
+  const model = (engine: 'js' | 'wasm', fileBytes: number): PackedModel => ({ engine, fileBytes }) as unknown as PackedModel;
+  expect(scoresInBatches(model('js', SCORE_BATCH_MODEL_BYTES_MIN))).toBe(true);
+  expect(scoresInBatches(model('js', SCORE_BATCH_MODEL_BYTES_MIN - 1))).toBe(false);
+  expect(scoresInBatches(model('wasm', SCORE_BATCH_MODEL_BYTES_MIN))).toBe(false);
+  expect(scoresInBatches(model('wasm', 2 ** 32))).toBe(false);
 });

@@ -7,8 +7,8 @@
  *   a parameter block at `params`: the order, the word id width, the value encoding, the unseen-
  *     context weight, and per order the addresses of its arrays (reader.ts, HotLevel);
  *   the codebooks extended to every code (quantised files);
- *   the decoder states' blocks (DecoderState): i32 order at 0, rows[k] at 64 + 4k, starts[k] at
- *     128 + 4k, ends[k] at 192 + 4k.
+ *   the decoder states' blocks (DecoderState): i32 order at 0, the history ids (oldest first) at
+ *     32, rows[k] at 64 + 4k, starts[k] at 128 + 4k, ends[k] at 192 + 4k.
  *
  * The arithmetic is reader.ts's, in the same order, so the numbers are the same bit for bit; every
  * read stays inside its section for the same reasons (children ranges clamped to the next order's
@@ -38,6 +38,7 @@ const L_CHILD_MASK = 40; // u64
 
 // A state block.
 const S_ORDER = 0;
+const S_IDS = 32;
 const S_ROWS = 64;
 const S_STARTS = 128;
 const S_ENDS = 192;
@@ -133,8 +134,8 @@ function search(words: usize, low: i32, high: i32, word: i32): i32 {
 
 /**
  * reader.ts, `step`, for the state block at `state` whose history holds `length` ids: returns
- * log10 p(word | history) and leaves the rows of the new history in the block and the order that
- * answered at S_ORDER. (The ids themselves, and the new length, stay on the JavaScript side.)
+ * log10 p(word | history) and leaves the ids and rows of the new history in the block and the order
+ * that answered at S_ORDER. (The new length, min(length + 1, order − 1), is the caller's to keep.)
  */
 export function step(state: usize, length: i32, word: i32): f64 {
   const keep = length < order - 1 ? length + 1 : length;
@@ -193,6 +194,9 @@ export function step(state: usize, length: i32, word: i32): f64 {
     store<i32>(rows + (<usize>(j + 1) << 2), found);
   }
   if (keep > 0) {
+    const ids = state + S_IDS;
+    if (keep == length) for (let i = 1; i < length; i++) store<i32>(ids + (<usize>(i - 1) << 2), load<i32>(ids + (<usize>i << 2)));
+    store<i32>(ids + (<usize>(keep - 1) << 2), word);
     const first = level(1);
     store<i32>(rows + 4, word);
     store<i32>(starts + 4, childrenStart(first, word));

@@ -27,9 +27,11 @@ const PAGE_BYTES = 65_536;
 const LEVELS_AT = 64;
 const LEVEL_BYTES = 48;
 const PARAM_BYTES = LEVELS_AT + LEVEL_BYTES * (ORDER_MAX + 1);
-/** A decoder state's block: the order that answered at 0, rows at 64, starts at 128, ends at 192 (bytes). */
+/** A decoder state's block: the order that answered at 0, the history ids at 32, rows at 64, starts
+ *  at 128, ends at 192 (bytes). */
 export const STATE_BLOCK_BYTES = 256;
 export const STATE_BLOCK_INTS = STATE_BLOCK_BYTES / 4;
+export const STATE_IDS_AT = 8;
 export const STATE_ROWS_AT = 16;
 export const STATE_STARTS_AT = 32;
 export const STATE_ENDS_AT = 48;

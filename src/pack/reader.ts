@@ -44,7 +44,7 @@ import {
 } from '../limits.ts';
 import { maskFor, unpack } from './bits.ts';
 import {
-  LookupWasm, STATE_BLOCK_INTS, STATE_ENDS_AT, STATE_ORDER_AT, STATE_ROWS_AT, STATE_STARTS_AT, wasmLayout, wasmMemory, type WasmLayout,
+  LookupWasm, STATE_BLOCK_INTS, STATE_ENDS_AT, STATE_IDS_AT, STATE_ORDER_AT, STATE_ROWS_AT, STATE_STARTS_AT, wasmLayout, wasmMemory, type WasmLayout,
 } from './lookup-wasm.ts';
 import {
   alignUp, bitsFor, CHILD_BLOCK_ROWS, CHILD_BLOCK_SHIFT, childBlocks, childOffsetsStart, codeBits, ENCODING_NAMES, F, FLAG_NORMALISED, FLAGS_KNOWN, fnv1a32, FOOTER_BYTES, H, hashSlotsFor,
@@ -103,7 +103,7 @@ export class DecoderState {
   /** @internal The number of history ids, min(N − 1, i). */
   length = 0;
   /** @internal History ids, oldest first. */
-  readonly ids = new Int32Array(ORDER_MAX);
+  readonly ids: Int32Array;
   /** @internal rows[k] (k = 1..length): the row at order k of the last k history ids, −1 when there
    *  is none (rows of an order are below 2^31: every order's values fit a 2 GiB section). */
   readonly rows: Int32Array;
@@ -111,8 +111,8 @@ export class DecoderState {
    *  order k + 1, decoded when the row was found (the next word's search needs them first). */
   readonly starts: Int32Array;
   readonly ends: Int32Array;
-  /** @internal rows, starts and ends, and the answering order of the WebAssembly lookups, in one
-   *  block (lookup-wasm.ts): in the WebAssembly memory of `owner` at byte `at`, or of its own. */
+  /** @internal ids, rows, starts and ends, and the answering order of the WebAssembly lookups, in
+   *  one block (lookup-wasm.ts): in the WebAssembly memory of `owner` at byte `at`, or of its own. */
   readonly block: Int32Array;
   /** @internal The WebAssembly lookups whose memory holds the block (null: none). */
   readonly owner: LookupWasm | null;
@@ -132,6 +132,7 @@ export class DecoderState {
     this.owner = owner;
     this.at = at;
     this.block = owner === null ? new Int32Array(STATE_BLOCK_INTS) : owner.block(at);
+    this.ids = this.block.subarray(STATE_IDS_AT, STATE_IDS_AT + ORDER_MAX);
     this.rows = this.block.subarray(STATE_ROWS_AT, STATE_ROWS_AT + ORDER_MAX + 1);
     this.starts = this.block.subarray(STATE_STARTS_AT, STATE_STARTS_AT + ORDER_MAX + 1);
     this.ends = this.block.subarray(STATE_ENDS_AT, STATE_ENDS_AT + ORDER_MAX + 1);
@@ -1337,23 +1338,28 @@ export class PackedModel {
    * one per shorter order to find the new state's rows.
    */
   step(state: DecoderState, word: number): number {
+    // The WebAssembly lookups on a state whose block is in their memory (lookup-wasm.ts); kept this
+    // short so that the engine inlines it into the caller's loop. Everything else: `stepOther`.
+    const wasm = this.wasm;
+    if (wasm !== null && state.owner === wasm && word >= 1 && word <= this.vocabularySize && Math.floor(word) === word) {
+      const length = state.length;
+      const log10Prob = wasm.step(state.at, length, word);
+      state.order = state.block[STATE_ORDER_AT];
+      state.length = length < this.order - 1 ? length + 1 : length;
+      return log10Prob;
+    }
+    return this.stepOther(state, word);
+  }
+
+  /** `step` in JavaScript, or in WebAssembly on a state whose block is not in the memory (copied in
+   *  and out), or a word out of range (refused). */
+  private stepOther(state: DecoderState, word: number): number {
     if (!(word >= 1 && word <= this.vocabularySize && Math.floor(word) === word)) this.checkWord(word);
     const length = state.length;
     const keep = length < this.order - 1 ? length + 1 : length;
     const wasm = this.wasm;
     if (wasm !== null) {
-      // WebAssembly (lookup-wasm.ts): on the state's block where it is, or copied into the scratch
-      // block and back for a state without one here.
-      let log10Prob: number;
-      if (state.owner === wasm) {
-        log10Prob = wasm.step(state.at, length, word);
-        state.order = state.block[STATE_ORDER_AT];
-      } else log10Prob = this.stepCopied(wasm, state, length, keep, word);
-      if (keep > 0) {
-        const ids = state.ids;
-        if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
-        ids[keep - 1] = word;
-      }
+      const log10Prob = this.stepCopied(wasm, state, length, keep, word);
       state.length = keep;
       return log10Prob;
     }
@@ -1431,7 +1437,8 @@ export class PackedModel {
   }
 
   /** `step` in WebAssembly for a state whose block is not in its memory: its rows, starts and ends
-   *  copied into the scratch block and back. Sets the order; the ids are the caller's. */
+   *  copied into the scratch block and back, its ids moved here. Sets the order and the ids, not
+   *  the length. */
   private stepCopied(wasm: LookupWasm, state: DecoderState, length: number, keep: number, word: number): number {
     const scratch = wasm.scratchBlock;
     const rows = state.rows;
@@ -1449,6 +1456,11 @@ export class PackedModel {
       ends[k] = scratch[STATE_ENDS_AT + k];
     }
     state.order = scratch[STATE_ORDER_AT];
+    if (keep > 0) {
+      const ids = state.ids;
+      if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
+      ids[keep - 1] = word;
+    }
     return log10Prob;
   }
 

@@ -190,6 +190,22 @@ describe('worker threads', () => {
   });
 });
 
+test('both steps refuse a word outside [1, V] (and <s>, id 0) and leave the state as it was', async () => {
+  const { file, ids } = await packed(3, 'modified-kneser-ney', {});
+  for (const engine of ['wasm', 'js'] as const) {
+    const model = await openModel(file, { engine });
+    for (const state of [model.newState(), new DecoderState()]) {
+      model.resetState(state);
+      model.step(state, ids[0][0]);
+      const before = [state.length, state.order, state.history.join(',')];
+      for (const word of [0, -1, model.vocabularySize + 1, 1.5, Number.NaN]) {
+        expect(() => model.step(state, word), `${engine} ${word}`).toThrow(/word must be a vocabulary id in \[1, \d+\]/);
+        expect([state.length, state.order, state.history.join(',')]).toEqual(before);
+      }
+    }
+  }
+});
+
 describe('choosing the lookups', () => {
   test("'auto' is WebAssembly, shared or not; 'js' is JavaScript, shared or not; a wrong choice is refused", async () => {
     const { file } = await packed(3, 'modified-kneser-ney', {});

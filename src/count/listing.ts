@@ -120,7 +120,11 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
     yield* listMerged(readers, order, words, options);
   } finally {
     await Promise.all(stores.map((s) => s.close()));
-    if (scratch !== undefined) await fsp.rm(scratch, { recursive: true, force: true });
+    if (scratch !== undefined) {
+      await fsp.rm(scratch, { recursive: true, force: true });
+      // And merge-scratch/ itself when nothing else is in it (a merge's own folders stay).
+      await fsp.rmdir(path.dirname(scratch)).catch(() => undefined);
+    }
   }
 }
 

@@ -2,7 +2,9 @@
  * The model-file reader and query library (docs/model-file.md).
  *
  * `openModel` reads the file section by section, each into a buffer of its own (DESIGN.md: a
- * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB) in pieces that
+ * buffer holds at most 4 GiB here; no section exceeds PACK_SECTION_BYTES_MAX = 2 GiB) — or, for the
+ * WebAssembly lookups (lookup-wasm.ts), into its place in one WebAssembly memory when the whole file
+ * fits the 4 GiB such a memory addresses, each section a Buffer view of it — in pieces that
  * the thread pool reads ahead while this thread checksums those that arrived, and checks before it
  * uses a byte: the header (magic, version, CRC, fields in range), the section table (CRC, every
  * offset and length inside the file, sections contiguous and aligned, lengths as the header's counts

@@ -216,6 +216,35 @@ describe('choosing the lookups', () => {
     await expect(openModel(file, { engine: 'fast' as never })).rejects.toMatchObject({ code: 'config', message: expect.stringMatching(/engine must be 'auto', 'wasm' or 'js' \(got fast\)/) });
   });
 
+  test('where no WebAssembly memory can be had (a process limited to 8 GB of address space), the JavaScript lookups answer, the same numbers; engine "wasm" is refused there', async () => {
+    // The compiled reader: tsx, which runs the sources, itself fails without WebAssembly memory.
+    if (spawnSync(process.execPath, [join(REPO, 'scripts/build.mjs'), '--check']).status !== 0) {
+      process.stderr.write('lookup-wasm.test.ts: dist/ is not current (npm run build): the fallback without WebAssembly memory was not checked\n');
+      return;
+    }
+    const { file, ids } = await packed(3, 'modified-kneser-ney', {});
+    const script = `
+      import { openModel } from './dist/pack/reader.js';
+      const model = await openModel(${JSON.stringify(file)});
+      const state = model.newState();
+      const seen = [];
+      for (const id of ${JSON.stringify(ids[0])}) seen.push(model.step(state, id));
+      let refused = '';
+      await openModel(${JSON.stringify(file)}, { engine: 'wasm' }).catch((error) => { refused = error.code + ': ' + error.message; });
+      process.stdout.write(JSON.stringify({ engine: model.engine, seen, refused }));
+    `;
+    const result = spawnSync('bash', ['-c', 'ulimit -v 8000000 && exec "$0" "$@"', process.execPath, '--input-type=module', '-e', script], { cwd: REPO, encoding: 'utf8' });
+    expect(result.stderr).toBe('');
+    expect(result.status).toBe(0);
+    const limited = JSON.parse(result.stdout) as { engine: string; seen: number[]; refused: string };
+    expect(limited.engine).toBe('js');
+    expect(limited.refused).toMatch(/^limit: .*m\d+\.qm: no WebAssembly memory of \d+ bytes: .*; open it with engine 'auto' or 'js'$/);
+    const model = await openModel(file);
+    expect(model.engine).toBe('wasm');
+    const state = model.newState();
+    expect(limited.seen).toEqual(ids[0].map((id) => model.step(state, id)));
+  });
+
   test('a model needing more than 4 GiB of WebAssembly memory gets none (openModel then reads buffers)', () => {
     const layout = wasmLayout(LOOKUP_WASM_MEMORY_BYTES_MAX - 1024, 5, 1);
     expect(layout.bytes).toBeGreaterThan(LOOKUP_WASM_MEMORY_BYTES_MAX);

@@ -37,6 +37,7 @@ export function formatModelInfo(model: PackedModel): string {
     `vocabulary   ${model.vocabularySize.toLocaleString('en-US')} words (</s> and <unk> included, <s> not)`,
     `n-grams      ${model.ngrams.map((rows, i) => `order ${i + 1}: ${rows.toLocaleString('en-US')}`).join(', ')}; ${total.toLocaleString('en-US')} in all, ${(model.fileBytes / total).toFixed(2)} bytes each`,
     `values       ${model.encodingName}`,
+    `lookups      ${model.engine === 'wasm' ? 'WebAssembly (step), the file in one WebAssembly memory' : 'JavaScript (the file needs more than one WebAssembly memory holds, or none could be had)'}`,
     `method       ${model.parameters.method}${model.normalised ? '' : ' (scores, not probabilities)'}`,
     ...describeParameters(model.parameters).map((line) => `             ${line}`),
     `cutoffs      ${model.cutoffs.join(' ')}`,
@@ -69,6 +70,6 @@ export const infoCommand: CommandModule = {
       return;
     }
     const { filePath, version, fileBytes, order, vocabularySize, ngrams, encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked } = model;
-    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked, ...(quantisation === undefined ? {} : { heldout: quantisation }) }, null, 2) + '\n');
+    process.stdout.write(JSON.stringify({ filePath, version, fileBytes, order, vocabularySize, ngrams, values: encodingName, lookups: model.engine, normalised, parameters, cutoffs, vocabularyCap, normalize, fingerprint, log10UnseenContextWeight, sections, structureChecked, ...(quantisation === undefined ? {} : { heldout: quantisation }) }, null, 2) + '\n');
   },
 };

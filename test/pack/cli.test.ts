@@ -47,10 +47,12 @@ test('export a model file to ARPA, pack it back with 8-bit values, describe both
   const info = await run(['info', packed]);
   expect(info).toContain('Quern model file, format 2.0');
   expect(info).toMatch(/values +8-bit quantised/);
+  expect(info).toMatch(/lookups +WebAssembly \(step\), the file in one WebAssembly memory/);
   expect(info).toMatch(/method +modified-kneser-ney\n +order 1: D1 = [\d.]+, D2 = [\d.]+, D3\+ = [\d.]+ \((counts|fallback)\)/);
   expect(info).toMatch(/fingerprint +corpus-1/);
   expect(info).toMatch(/probability codebook of order 3 +\d+ +[\d,]+ bytes +crc32 [0-9a-f]{8}/);
   const json = JSON.parse(await run(['info', original, '--json']));
+  expect(json.lookups).toBe('wasm');
   expect(json).toMatchObject({ order: 3, values: 'float64', normalised: true, fingerprint: 'corpus-1', cutoffs: [1, 1, 1] });
 
   const damaged = join(dir, 'damaged.qm');

@@ -216,7 +216,8 @@ export interface OpenOptions {
    *  (export) runs the check first when it has not run. `quern info MODEL --check` runs it. */
   checkStructure?: boolean;
   /** Read the sections into SharedArrayBuffers (default false), so that `shareable()` can hand the
-   *  model to worker threads (`modelFromShared`), which then answer from the same memory. */
+   *  model to worker threads (`modelFromShared`), which then answer from the same memory. (The
+   *  WebAssembly lookups' memory is a shared one in any case.) */
   shared?: boolean;
   /** Which lookups `step` runs (default 'auto'): 'wasm', WebAssembly over one (shared) memory
    *  that holds the file's sections (the same numbers, ~1.4× the lookups per second on the 24 MB
@@ -1101,7 +1102,8 @@ export class PackedModel {
     return this.wasm === null ? 'js' : 'wasm';
   }
 
-  /** The model for worker threads (`modelFromShared`); it must have been opened with `{ shared: true }`. */
+  /** The model for worker threads (`modelFromShared`); it must have been opened with `{ shared: true }`
+   *  or have the WebAssembly lookups (whose memory is shared). */
   shareable(): SharedModel {
     const data: SharedModel['data'] = [];
     for (const [key, buffer] of this.data) {

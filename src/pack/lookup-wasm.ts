@@ -1,7 +1,7 @@
 /**
  * The WebAssembly lookups of a model (`openModel`'s `engine`): `PackedModel.step` compiled from
  * lookup-step.as.ts, the same arithmetic as reader.ts's in the same order, so the same numbers bit
- * for bit, in about 0.7 of the time on the 24 MB benchmark model (`npm run bench:query`).
+ * for bit, in 0.64–0.75 of the time on the 24 MB benchmark model (`npm run bench:query`, 2026-12-05).
  *
  * One WebAssembly memory holds everything it reads, laid out here:
  *
@@ -27,8 +27,8 @@ const PAGE_BYTES = 65_536;
 const LEVELS_AT = 64;
 const LEVEL_BYTES = 48;
 const PARAM_BYTES = LEVELS_AT + LEVEL_BYTES * (ORDER_MAX + 1);
-/** A decoder state's block: the order that answered at 0, the history ids at 32, rows at 64, starts
- *  at 128, ends at 192 (bytes). */
+/** A decoder state's block: the order that answered at byte 0, the history ids at 32, rows at 64,
+ *  starts at 128, ends at 192; the *_AT below are the same places in 32-bit words. */
 export const STATE_BLOCK_BYTES = 256;
 export const STATE_BLOCK_INTS = STATE_BLOCK_BYTES / 4;
 export const STATE_IDS_AT = 8;
@@ -37,7 +37,7 @@ export const STATE_STARTS_AT = 32;
 export const STATE_ENDS_AT = 48;
 /** Where the block's answering order is (in i32s). */
 export const STATE_ORDER_AT = 0;
-/** State blocks an instance takes at a time (the first instance's first one is its scratch block). */
+/** State blocks an instance takes at a time (its first is its scratch block). */
 const STATE_CHUNK_BLOCKS = 64;
 /** The parameter block's counter of chunks taken (bytes from its start; lookup-step.as.ts leaves
  *  bytes 32..63 alone). */

@@ -516,7 +516,7 @@ async function measureModelFile(file: string, heldOut: string, lines: number): P
     `${file}: order ${model.order}, ${model.encodingName}, ${ngrams.toLocaleString('en-US')} n-grams (${model.ngrams.map((rows) => rows.toLocaleString('en-US')).join(' + ')}), ` +
       `${bytes.format(fileBytes, { decimalPlaces: 1 })} = ${(fileBytes / ngrams).toFixed(2)} B/n-gram; load average ${os.loadavg().map((value) => value.toFixed(1)).join(' ')}\n` +
       `  load      in a fresh process each, as opened by default (checksums, bounds): ${loads.map(perGigabyte).join(', ')} (median ${perGigabyte(median(loads))}); with the structure check ${perGigabyte(structureLoads[0])}\n` +
-      `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s (${model.engine === 'wasm' ? 'WebAssembly' : 'JavaScript: the model is too large for a WebAssembly memory'}; ` +
+      `  lookups   state carried (step) ${(lookups.perSecond / 1e6).toFixed(2)} M/s (${model.engine === 'wasm' ? 'WebAssembly' : 'JavaScript: no WebAssembly memory for this model'}; ` +
       `the JavaScript lookups in turn: ${(lookupsJs.perSecond / 1e6).toFixed(2)} M/s, ×${(lookups.perSecond / lookupsJs.perSecond).toFixed(2)}) over ${tokens.toLocaleString('en-US')} held-out tokens; answered at order 1..${model.order}: ` +
       orders.slice(1).map((count) => `${((100 * count) / tokens).toFixed(1)} %`).join(', ') +
       batchLine + againstLine,

@@ -123,9 +123,9 @@ export function scoreSentences(model: PackedModel, sentences: readonly (readonly
  * Whether `model`'s sentences are best scored together (`stepBatch`) rather than one at a time
  * (`step`): when its `step` is the JavaScript one and its file is SCORE_BATCH_MODEL_BYTES_MIN or
  * more. The WebAssembly `step` is faster than `stepBatch` (JavaScript) at every size measured:
- * 3.48 against 2.00 M lookups/s on the 24 MB order-5 benchmark model (95 MB file), 0.89 against
- * 0.68 on the 1 GB one (3.26 GB; `stepBatch` there reads the WebAssembly memory, which has no huge
- * pages), `npm run bench:query`, 2026-12-05.
+ * 3.48 against 2.00 M lookups/s on the 24 MB order-5 benchmark model (95 MB file), 0.89–0.95
+ * against 0.68–0.88 on the 1 GB one (3.26 GB, two runs; `stepBatch` there reads the WebAssembly
+ * memory, which has no huge pages), `npm run bench:query`, 2026-12-05.
  */
 export function scoresInBatches(model: PackedModel): boolean {
   return model.engine === 'js' && model.fileBytes >= SCORE_BATCH_MODEL_BYTES_MIN;

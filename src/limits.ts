@@ -372,8 +372,9 @@ export const LOOKUP_WASM_MEMORY_BYTES_MAX = 2 ** 32;
 /** Decoder states (`newState`) whose rows live in a model's WebAssembly memory at once, 256 bytes
  *  each (1 MiB for all), for all threads together (each takes 64 at a time): `step` then works on
  *  them where they are. States beyond these (a decoder keeping thousands alive) are copied in and
- *  out of a scratch block per `step`, ~15 % slower (a scratch loop on the 24 MB benchmark model,
- *  2026-12-05: 2.44 against 2.85 M/s). A state's block is freed when the state is garbage-collected. */
+ *  out of a scratch block per `step`, ~15 % slower (a scratch script on the 24 MB benchmark model,
+ *  2026-12-05, in turn in one process: 0.85–0.89× the lookups/s). A state's block is freed when the
+ *  state is garbage-collected. */
 export const LOOKUP_WASM_STATES_MAX = 4096;
 
 /** Lines of an ARPA file at most: the sort keeps each n-gram's line (for messages) in a u32. */

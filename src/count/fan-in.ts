@@ -39,13 +39,7 @@ export async function fewerRuns(request: FewerRunsRequest): Promise<string[]> {
   for (let made = 0; queue.length > slots; made++) {
     const group = queue.splice(0, Math.min(fanIn, queue.length - slots + 1));
     const target = path.join(scratchDir, `m${String(made).padStart(6, '0')}.run`);
-    const readers: BatchSource[] = [];
-    try {
-      for (const file of group) readers.push(await RunReader.open(file, { reuseBatches: true }));
-    } catch (error) {
-      await Promise.all(readers.map((reader) => reader.close().catch(() => {})));
-      throw error;
-    }
+    const readers: BatchSource[] = await RunReader.openAll(group, { reuseBatches: true });
     await writeRunFileFrom(fs, target, { order, partition, chunk: made, spill: 0 }, mergeRuns(readers, order));
     queue.push(target);
   }

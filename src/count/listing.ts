@@ -109,13 +109,7 @@ export async function* listNgrams(jobDir: string, options: ListOptions): AsyncGe
         scratch = path.join(jobDir, MERGE_SCRATCH_DIR, `listing-${process.pid}-${Date.now()}`);
         files = await fewerRuns({ files, order, slots: MERGE_FAN_IN_MAX, fanIn: MERGE_FAN_IN_MAX, scratchDir: scratch, partition: 0, fs: nodeFs });
       }
-      readers = [];
-      try {
-        for (const file of files) readers.push(await RunReader.open(file));
-      } catch (error) {
-        await Promise.all(readers.map((r) => r.close()));
-        throw error;
-      }
+      readers = await RunReader.openAll(files);
     }
     yield* listMerged(readers, order, words, options);
   } finally {

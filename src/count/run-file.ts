@@ -481,6 +481,19 @@ export class RunReader {
     }
   }
 
+  /** `open` of each of `filePaths` in turn; when one fails, those already open are closed and the
+   *  error passed on (a merge's sources: fan-in.ts, listing.ts, merge-partition.ts). */
+  static async openAll(filePaths: readonly string[], options: { reuseBatches?: boolean } = {}): Promise<RunReader[]> {
+    const readers: RunReader[] = [];
+    try {
+      for (const filePath of filePaths) readers.push(await RunReader.open(filePath, options));
+    } catch (error) {
+      await Promise.all(readers.map((reader) => reader.close().catch(() => {})));
+      throw error;
+    }
+    return readers;
+  }
+
   /** The file path, as a BatchSource name. */
   get name(): string {
     return this.info.filePath;

@@ -29,22 +29,18 @@ export interface StageFs {
 
 class NodeWritableFile implements WritableFile {
   constructor(private readonly handle: fsp.FileHandle, private readonly filePath: string) {}
-  async write(data: Uint8Array): Promise<void> {
-    try {
-      let offset = 0;
-      while (offset < data.byteLength) {
-        const { bytesWritten } = await this.handle.write(data, offset, data.byteLength - offset);
-        offset += bytesWritten;
-      }
-    } catch (cause) {
-      throw ioError('write', this.filePath, cause);
-    }
+  write(data: Uint8Array): Promise<void> {
+    return this.writeFully(data, null);
   }
-  async writeAt(data: Uint8Array, position: number): Promise<void> {
+  writeAt(data: Uint8Array, position: number): Promise<void> {
+    return this.writeFully(data, position);
+  }
+  /** All of `data`, at `position` (null: where the last write ended), in as many calls as it takes. */
+  private async writeFully(data: Uint8Array, position: number | null): Promise<void> {
     try {
       let offset = 0;
       while (offset < data.byteLength) {
-        const { bytesWritten } = await this.handle.write(data, offset, data.byteLength - offset, position + offset);
+        const { bytesWritten } = await this.handle.write(data, offset, data.byteLength - offset, position === null ? null : position + offset);
         offset += bytesWritten;
       }
     } catch (cause) {

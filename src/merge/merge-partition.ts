@@ -144,7 +144,7 @@ async function mergeOrder(
     scratchDir: scratch, partition: task.partition, fs: tuning.fs ?? nodeFs,
   });
   // Each run's blocks decoded into one pair of arrays: the merge is done with a batch when it asks for the next.
-  const readers: BatchSource[] = await Promise.all(files.map((file) => RunReader.open(file, { reuseBatches: true })));
+  const readers: BatchSource[] = await RunReader.openAll(files, { reuseBatches: true });
   if (local) {
     assert(space === 'continuation', 'local counts are continuation counts');
     const higherRows = store.readProgress<MergeProgress>('raw')?.tallies[order]?.distinct;

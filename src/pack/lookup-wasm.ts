@@ -209,18 +209,10 @@ export class LookupWasm {
     return this.free.pop() as number;
   }
 
-  /** Frees the block at `at` once `owner` (its state) is garbage-collected. */
-  freeWith(owner: object, at: number): void {
+  /** The block at `at` (from `take`) for `owner`, its state, as 32-bit integers: the block is
+   *  freed once `owner` is garbage-collected. */
+  block(at: number, owner: object): Int32Array {
     this.registry.register(owner, at);
-  }
-
-  /** State blocks free now. */
-  get freeBlocks(): number {
-    return this.free.length;
-  }
-
-  /** The block at `at`, as 32-bit integers. */
-  block(at: number): Int32Array {
     return new Int32Array(this.buffer, at, STATE_BLOCK_INTS);
   }
 }

@@ -133,7 +133,7 @@ export class DecoderState {
   constructor(owner: LookupWasm | null = null, at = -1) {
     this.owner = owner;
     this.at = at;
-    this.block = owner === null ? new Int32Array(STATE_BLOCK_INTS) : owner.block(at);
+    this.block = owner === null ? new Int32Array(STATE_BLOCK_INTS) : owner.block(at, this);
     this.ids = this.block.subarray(STATE_IDS_AT, STATE_IDS_AT + ORDER_MAX);
     this.rows = this.block.subarray(STATE_ROWS_AT, STATE_ROWS_AT + ORDER_MAX + 1);
     this.starts = this.block.subarray(STATE_STARTS_AT, STATE_STARTS_AT + ORDER_MAX + 1);
@@ -1306,16 +1306,11 @@ export class PackedModel {
 
   /** A state at the start of a sentence, for `step`. */
   newState(): DecoderState {
+    // A block in the WebAssembly memory, where `step` works on it; a block of its own without the
+    // WebAssembly lookups or when all LOOKUP_WASM_STATES_MAX are in use (copied in and out per step).
     const wasm = this.wasm;
-    let state: DecoderState;
-    if (wasm === null) state = new DecoderState();
-    else {
-      // A block in the WebAssembly memory, where `step` works on it; a state of its own when all
-      // LOOKUP_WASM_STATES_MAX are in use (copied in and out per step).
-      const at = wasm.take();
-      state = at < 0 ? new DecoderState() : new DecoderState(wasm, at);
-      if (at >= 0) wasm.freeWith(state, at);
-    }
+    const at = wasm === null ? -1 : wasm.take();
+    const state = at < 0 ? new DecoderState() : new DecoderState(wasm, at);
     this.resetState(state);
     return state;
   }
@@ -1363,7 +1358,7 @@ export class PackedModel {
     const keep = length < this.order - 1 ? length + 1 : length;
     const wasm = this.wasm;
     if (wasm !== null) {
-      const log10Prob = this.stepCopied(wasm, state, length, keep, word);
+      const log10Prob = this.stepCopied(wasm, state, length, word);
       state.length = keep;
       return log10Prob;
     }
@@ -1440,31 +1435,13 @@ export class PackedModel {
     return log10Prob;
   }
 
-  /** `step` in WebAssembly for a state whose block is not in its memory: its rows, starts and ends
-   *  copied into the scratch block and back, its ids moved here. Sets the order and the ids, not
-   *  the length. */
-  private stepCopied(wasm: LookupWasm, state: DecoderState, length: number, keep: number, word: number): number {
-    const scratch = wasm.scratchBlock;
-    const rows = state.rows;
-    const starts = state.starts;
-    const ends = state.ends;
-    for (let k = 1; k <= length; k++) {
-      scratch[STATE_ROWS_AT + k] = rows[k];
-      scratch[STATE_STARTS_AT + k] = starts[k];
-      scratch[STATE_ENDS_AT + k] = ends[k];
-    }
+  /** `step` in WebAssembly for a state whose block is not in its memory: the block copied into the
+   *  scratch block and back. Sets the ids, rows and order, not the length. */
+  private stepCopied(wasm: LookupWasm, state: DecoderState, length: number, word: number): number {
+    wasm.scratchBlock.set(state.block);
     const log10Prob = wasm.step(wasm.scratch, length, word);
-    for (let k = 1; k <= keep; k++) {
-      rows[k] = scratch[STATE_ROWS_AT + k];
-      starts[k] = scratch[STATE_STARTS_AT + k];
-      ends[k] = scratch[STATE_ENDS_AT + k];
-    }
-    state.order = scratch[STATE_ORDER_AT];
-    if (keep > 0) {
-      const ids = state.ids;
-      if (keep === length) for (let i = 1; i < length; i++) ids[i - 1] = ids[i];
-      ids[keep - 1] = word;
-    }
+    state.block.set(wasm.scratchBlock);
+    state.order = state.block[STATE_ORDER_AT];
     return log10Prob;
   }
 

@@ -21,6 +21,7 @@ import { wasmLayout, wasmMemory } from '../../src/pack/lookup-wasm.ts';
 import { DecoderState, modelFromShared, openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus, type NormalisedMethod } from '../estimate/support.ts';
+import { walk } from '../support/walk-states.ts';
 import { temporaryDirectory } from './support.ts';
 
 const REPO = fileURLToPath(new URL('../..', import.meta.url));
@@ -37,23 +38,6 @@ test('the committed lookup-step.wasm is what asc (the pinned AssemblyScript) com
   expect(result.status).toBe(0);
   expect(readFileSync(out).equals(readFileSync(join(REPO, 'src/pack/lookup-step.wasm'))), 'npm run build:wasm, and commit src/pack/lookup-step.wasm').toBe(true);
 });
-
-/** Steps `sentences` (ids, `</s>` appended) through `model` with each of `states`, one after another,
- *  and returns every (log10 p, order, length, history) seen. */
-function walk(model: PackedModel, states: DecoderState[], sentences: number[][]): string[] {
-  const seen: string[] = [];
-  for (const state of states) {
-    for (const sentence of sentences) {
-      model.resetState(state);
-      for (const id of [...sentence, model.eosId]) {
-        const log10Prob = model.step(state, id);
-        // Object.is through the string: −0 and 0, NaN, −∞ all stay distinct.
-        seen.push(`${Object.is(log10Prob, -0) ? '-0' : String(log10Prob)} ${state.order} ${state.length} ${state.history.join(',')}`);
-      }
-    }
-  }
-  return seen;
-}
 
 const train = markovCorpus(31, 400, 60, 14);
 const test_ = markovCorpus(32, 80, 70, 16); // 10 types never seen in training: OOVs

@@ -233,7 +233,10 @@ async function countAndSpill(m: Modules, order: number): Promise<{ ns: number; c
   }
   let records = 0;
   for (const counter of set.counters) {
-    const sorted = m.spill.spillOrder(counter, 16, VOCAB + 2, set.sortScratch());
+    // As spill.ts calls it: with the WebAssembly memory the scratch is in, where the set has one.
+    const scratch = set.sortScratch();
+    const sorter = (set as { scratchSorter?: unknown }).scratchSorter;
+    const sorted = (m.spill.spillOrder as (...args: unknown[]) => ReturnType<typeof m.spill.spillOrder>)(counter, 16, VOCAB + 2, scratch, sorter);
     for (let p = 0; p < 16; p++) records += sorted.recordsOf(p);
   }
   set.clear();

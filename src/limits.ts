@@ -369,6 +369,11 @@ export const ARPA_WRITE_BYTES = 1 << 20;
  *  allows that much): a larger model is read into buffers and answered by the JavaScript lookups. */
 export const LOOKUP_WASM_MEMORY_BYTES_MAX = 2 ** 32;
 
+/** The spill sort's scratch in a WebAssembly memory (src/count/sort-wasm.ts) is addressed with
+ *  32 bits: 4 GiB at most (2^16 pages of 64 KiB), its parameter page included. A larger scratch (a
+ *  worker's budget of many GiB) is an ordinary array, sorted by the JavaScript passes. */
+export const SORT_WASM_MEMORY_BYTES_MAX = 2 ** 32;
+
 /** Decoder states (`newState`) whose rows live in a model's WebAssembly memory at once, 256 bytes
  *  each (1 MiB for all), for all threads together (each takes 64 at a time): `step` then works on
  *  them where they are. States beyond these (a decoder keeping thousands alive) are copied in and

@@ -14,6 +14,7 @@
 import { assert } from '../errors.ts';
 import { COUNTER_APPEND_DISTINCT_MIN, COUNTER_LOG_ROWS_MIN, COUNTER_PRESIZE_SHRINK_FACTOR, COUNTER_SLOTS_MIN } from '../limits.ts';
 import { filterBitsFor, NgramCounter } from './counter.ts';
+import { WasmSorter, type SortEngine } from './sort-wasm.ts';
 import { combine32, HASH_SEED, ngramHash } from './hash.ts';
 
 /** The sizes of one counter's structures. */
@@ -86,12 +87,17 @@ export interface CounterSetOptions {
    *  counter of order ≥ 2 is append-only when that spill found at least
    *  COUNTER_APPEND_DISTINCT_MIN distinct n-grams per occurrence. Without it, none ever is. */
   appendFrom?: number;
+  /** Which code sorts the spills' packed keys (sort-wasm.ts); default 'auto'. */
+  sortEngine?: SortEngine;
 }
 
 export class CounterSet {
   readonly counters: NgramCounter[];
   private readonly adaptive: boolean;
   private scratch: Uint32Array | undefined;
+  /** The WebAssembly sort whose memory holds `scratch`, when it does. */
+  private sorter: WasmSorter | undefined;
+  private readonly sortEngine: SortEngine;
   /** addSentences' running hash of each position, from one order to the next. */
   private hashes = new Int32Array(1 << 12);
 
@@ -107,6 +113,7 @@ export class CounterSet {
     this.counters = [];
     for (let n = 1; n <= order; n++) this.counters.push(new NgramCounter(n, undefined, undefined, undefined, n === 1 && dense ? idMax : undefined));
     this.adaptive = options.appendFrom !== undefined;
+    this.sortEngine = options.sortEngine ?? 'auto';
     if (options.appendFrom !== undefined) for (const c of this.counters) if (c.logged && c.order >= options.appendFrom) c.setAppendOnly(true);
     assert(this.chargedTotal() <= bytesMax, `budget ${bytesMax} B below the counters' minimum ${this.chargedTotal()} B`);
   }
@@ -197,7 +204,7 @@ export class CounterSet {
       best.shape[best.key] = Math.max(best.key === 'slots' ? COUNTER_SLOTS_MIN : COUNTER_LOG_ROWS_MIN, Math.floor(best.shape[best.key] / 2));
       if (best.key === 'logRows') best.shape.filterBits = Math.min(best.shape.filterBits, filterBitsFor(best.shape.logRows));
     }
-    this.scratch = undefined;
+    this.dropScratch();
     for (const shrinking of [true, false]) {
       for (let n = 0; n < counters.length; n++) {
         const counter = counters[n];
@@ -283,22 +290,35 @@ export class CounterSet {
 
   /**
    * Scratch for sorting any one counter's entries at a spill (`spillOrder`): one row per entry.
-   * Allocated on first use after a `clear`, within the charge for it.
+   * Allocated on first use after a `clear`, within the charge for it: in a WebAssembly memory
+   * (`scratchSorter`) unless the engine is 'js' or no such memory can be had.
    */
   sortScratch(): Uint32Array {
     let words = 0;
     for (const c of this.counters) words = Math.max(words, c.size * c.stride);
     if (this.scratch === undefined || this.scratch.length < words) {
-      this.scratch = undefined;
-      this.scratch = new Uint32Array(words);
+      this.dropScratch();
+      const sorter = this.sortEngine === 'js' ? undefined : WasmSorter.create(words);
+      if (sorter instanceof WasmSorter) this.sorter = sorter;
+      this.scratch = this.sorter?.words ?? new Uint32Array(words);
     }
     return this.scratch;
+  }
+
+  /** The WebAssembly sort whose memory holds the scratch `sortScratch` returned, if it does. */
+  get scratchSorter(): WasmSorter | undefined {
+    return this.sorter;
+  }
+
+  private dropScratch(): void {
+    this.scratch = undefined;
+    this.sorter = undefined;
   }
 
   /** Empties every counter, keeping its memory; drops the spill scratch. An adaptive set then
    *  chooses each counter's mode from what its last spill found. */
   clear(): void {
-    this.scratch = undefined;
+    this.dropScratch();
     for (const c of this.counters) {
       c.clear();
       if (this.adaptive && c.logged && !Number.isNaN(c.distinctShare)) this.setMode(c, c.distinctShare >= COUNTER_APPEND_DISTINCT_MIN);

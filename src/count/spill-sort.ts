@@ -24,6 +24,7 @@ import { PARTITION_TABLE_IDS_MAX } from '../limits.ts';
 import { partitionKeyIndex, partitionOf, partitionOfKey } from './hash.ts';
 import { scatterRows } from './radix.ts';
 import type { NgramCounter } from './counter.ts';
+import type { RadixPass, WasmSorter } from './sort-wasm.ts';
 
 /** Widest radix digit: 2^11 histogram buckets stay in the first-level cache. */
 const RADIX_BITS_MAX = 11;
@@ -39,9 +40,10 @@ export interface SpillOrder {
 
 /**
  * Sorts the entries of `counter` for `partitions` partitions. `idMax` bounds every id (exclusive);
- * `scratch` holds at least size × (order + 1) words (CounterSet.sortScratch).
+ * `scratch` holds at least size × (order + 1) words (CounterSet.sortScratch); when it is `sorter`'s
+ * memory, packed keys are sorted there by the WebAssembly passes (sort-wasm.ts).
  */
-export function spillOrder(counter: NgramCounter, partitions: number, idMax: number, scratch: Uint32Array): SpillOrder {
+export function spillOrder(counter: NgramCounter, partitions: number, idMax: number, scratch: Uint32Array, sorter?: WasmSorter): SpillOrder {
   const order = counter.order;
   const stride = counter.stride;
   const m = counter.size;
@@ -91,7 +93,7 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   // sorted as packed keys, without their counts (packedOrder); the others as rows, below.
   const packed = counter.logged && counter.tableSize === 0 && countsAllOne && order >= 2;
   const { records, outputs } = packed
-    ? packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts)
+    ? packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, sorter?.words === scratch ? sorter : undefined)
     : rowOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, counter.logged);
   noteDistinctShare(counter, records);
   return {
@@ -161,10 +163,14 @@ function rowOrder(
  * words and 9 passes against 6 words and 10). Partition p's keys and then its output lie from word
  * partitionStarts[p]·(order + 1) of either array, as in spillOrder; the output (ids row-major, then
  * the counts of the equal keys, added up) ends in `front`. Returns the records per partition.
+ * With `sorter` (whose memory `scratch` is), the keys lie packed from word 0 of the scratch instead,
+ * partition after partition, and the WebAssembly passes sort each partition's keys between there
+ * and the scratch's words after all the keys, when the largest partition's fit there (else the
+ * JavaScript passes sort them as without `sorter`).
  */
 function packedOrder(
   front: Uint32Array, scratch: Uint32Array, m: number, order: number, idBits: number, partitions: number,
-  partitionOfRow: Uint16Array, partitionStarts: Uint32Array,
+  partitionOfRow: Uint16Array, partitionStarts: Uint32Array, sorter?: WasmSorter,
 ): RowOrder {
   const stride = order + 1;
   const keyBits = order * idBits;
@@ -180,12 +186,19 @@ function packedOrder(
     idShift[i] = low & 31;
     idSplit[i] = (low & 31) + idBits > 32 ? 1 : 0;
   }
+  let largest = 0;
+  for (let p = 0; p < partitions; p++) largest = Math.max(largest, partitionStarts[p + 1] - partitionStarts[p]);
+  const wasm = sorter !== undefined && K * (m + largest) <= scratch.length ? sorter : undefined;
+  // Where partition p's keys lie in the scratch: packed one after the other for the WebAssembly
+  // passes, else at partition p's rows.
+  const keysAt = new Float64Array(partitions);
+  for (let p = 0; p < partitions; p++) keysAt[p] = partitionStarts[p] * (wasm !== undefined ? K : stride);
   // 2. Packed, by partition, front → scratch.
   const placed = new Uint32Array(partitions);
   for (let j = 0; j < m; j++) {
     const from = j * stride + 1;
     const p = partitionOfRow[j];
-    const to = partitionStarts[p] * stride + placed[p]++ * K;
+    const to = keysAt[p] + placed[p]++ * K;
     for (let w = 0; w < K; w++) scratch[to + w] = 0;
     for (let i = 0; i < order; i++) {
       const id = front[from + i];
@@ -196,7 +209,7 @@ function packedOrder(
     }
   }
   // 3. The passes: each key word from the last, its bits in use in digits of at most RADIX_BITS_MAX.
-  const passes: Array<{ word: number; shift: number; bits: number }> = [];
+  const passes: RadixPass[] = [];
   for (let w = K - 1; w >= 0; w--) {
     const bitsInUse = Math.min(32, keyBits - 32 * (K - 1 - w));
     const count = Math.ceil(bitsInUse / RADIX_BITS_MAX);
@@ -209,14 +222,19 @@ function packedOrder(
   for (let p = 0; p < partitions; p++) {
     const base = partitionStarts[p] * stride;
     const n = partitionStarts[p + 1] - partitionStarts[p];
-    let source = scratch.subarray(base, base + n * K);
-    let target = front.subarray(base, base + n * K);
-    for (const pass of passes) {
-      const mask = (1 << pass.bits) - 1;
-      const digits = histogram.subarray(0, mask + 1);
-      digits.fill(0);
-      for (let at = pass.word; at < n * K; at += K) digits[(source[at] >>> pass.shift) & mask]++;
-      if (radixPass(source, target, 0, n, K, pass.word, pass.shift, mask, digits)) [source, target] = [target, source];
+    let source = scratch.subarray(keysAt[p], keysAt[p] + n * K);
+    if (wasm !== undefined) {
+      const at = wasm.sortKeys(keysAt[p], K * m, n, K, passes) ? K * m : keysAt[p];
+      source = scratch.subarray(at, at + n * K);
+    } else {
+      let target = front.subarray(base, base + n * K);
+      for (const pass of passes) {
+        const mask = (1 << pass.bits) - 1;
+        const digits = histogram.subarray(0, mask + 1);
+        digits.fill(0);
+        for (let at = pass.word; at < n * K; at += K) digits[(source[at] >>> pass.shift) & mask]++;
+        if (radixPass(source, target, 0, n, K, pass.word, pass.shift, mask, digits)) [source, target] = [target, source];
+      }
     }
     // 4. Into `front`: the ids of each distinct key row-major, then their counts.
     if (source.buffer === front.buffer) {

@@ -35,7 +35,7 @@ export async function spillCounterSet(set: CounterSet, target: SpillTarget): Pro
     for (const counter of set.counters) {
       if (counter.size === 0) continue;
       const order = counter.order;
-      const sorted = spillOrder(counter, target.partitions, target.idMax, set.sortScratch());
+      const sorted = spillOrder(counter, target.partitions, target.idMax, set.sortScratch(), set.scratchSorter);
       // Each run file is synced on its own; several in flight let the syncs overlap (with many small
       // chunks, waiting for them one by one was most of the count stage).
       const written: Array<RunRecord | undefined> = new Array(target.partitions);

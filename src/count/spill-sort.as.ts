@@ -1,0 +1,92 @@
+/**
+ * The radix passes of the spill sort's packed keys (spill-sort.ts, `packedOrder`) in WebAssembly:
+ * AssemblyScript, compiled by `npm run build:wasm` into spill-sort.wasm beside it (committed;
+ * test/count/sort-wasm.test.ts checks that it is what this source compiles to). The JavaScript side
+ * is src/count/sort-wasm.ts, which owns the memory: a parameter block (the passes, a histogram),
+ * then the sort scratch the spill packs its keys into.
+ *
+ * The passes are packedOrder's, in the same order, each a stable counting pass, so the result is the
+ * same permutation bit for bit; a pass whose digit is the same for every key moves nothing. What the
+ * module gains over the JavaScript loop is moving a key in one or two wide loads and stores, with
+ * no bounds checks (2.5–2.7× on the benchmark corpus's partitions; BENCHMARKS.md).
+ */
+
+/** Bytes of one pass's description at `passes`: key word, shift, digit bits (u32 each). */
+const PASS_BYTES: usize = 12;
+
+/**
+ * Sorts the `n` keys of `keyWords` 32-bit words at `source` (the most significant word first) by
+ * the `passCount` passes described at `passes`, moving them between `source` and `target`; `histogram`
+ * has room for 2^bits u32 of the widest pass. Returns 1 when the sorted keys end in `target`, 0 when
+ * in `source`.
+ */
+export function sortKeys(source: usize, target: usize, n: u32, keyWords: u32, passes: usize, passCount: u32, histogram: usize): u32 {
+  let from = source;
+  let to = target;
+  let flipped: u32 = 0;
+  const stride = <usize>keyWords << 2;
+  const end = <usize>n * stride;
+  for (let q: u32 = 0; q < passCount; q++) {
+    const pass = passes + <usize>q * PASS_BYTES;
+    const keyAt = <usize>load<u32>(pass) << 2;
+    const shift = load<u32>(pass, 4);
+    const mask: u32 = (<u32>1 << load<u32>(pass, 8)) - 1;
+    memory.fill(histogram, 0, (<usize>mask + 1) << 2);
+    for (let at = from + keyAt, last = from + end; at < last; at += stride) {
+      const slot = histogram + (<usize>((load<u32>(at) >>> shift) & mask) << 2);
+      store<u32>(slot, load<u32>(slot) + 1);
+    }
+    // The histogram into each digit's first target key; nothing to move when one digit has them all.
+    let offset: u32 = 0;
+    let moves = true;
+    for (let d: u32 = 0; d <= mask; d++) {
+      const slot = histogram + (<usize>d << 2);
+      const count = load<u32>(slot);
+      if (count == n) {
+        moves = false;
+        break;
+      }
+      store<u32>(slot, offset);
+      offset += count;
+    }
+    if (!moves) continue;
+    if (keyWords == 2) {
+      for (let at = from, last = from + end; at < last; at += 8) {
+        const slot = histogram + (<usize>((load<u32>(at + keyAt) >>> shift) & mask) << 2);
+        const row = load<u32>(slot);
+        store<u32>(slot, row + 1);
+        store<u64>(to + (<usize>row << 3), load<u64>(at));
+      }
+    } else if (keyWords == 3) {
+      for (let at = from, last = from + end; at < last; at += 12) {
+        const slot = histogram + (<usize>((load<u32>(at + keyAt) >>> shift) & mask) << 2);
+        const row = load<u32>(slot);
+        store<u32>(slot, row + 1);
+        const into = to + <usize>row * 12;
+        store<u64>(into, load<u64>(at));
+        store<u32>(into, load<u32>(at, 8), 8);
+      }
+    } else if (keyWords == 4) {
+      for (let at = from, last = from + end; at < last; at += 16) {
+        const slot = histogram + (<usize>((load<u32>(at + keyAt) >>> shift) & mask) << 2);
+        const row = load<u32>(slot);
+        store<u32>(slot, row + 1);
+        const into = to + (<usize>row << 4);
+        store<u64>(into, load<u64>(at));
+        store<u64>(into, load<u64>(at, 8), 8);
+      }
+    } else {
+      for (let at = from, last = from + end; at < last; at += stride) {
+        const slot = histogram + (<usize>((load<u32>(at + keyAt) >>> shift) & mask) << 2);
+        const row = load<u32>(slot);
+        store<u32>(slot, row + 1);
+        memory.copy(to + <usize>row * stride, at, stride);
+      }
+    }
+    const swap = from;
+    from = to;
+    to = swap;
+    flipped ^= 1;
+  }
+  return flipped;
+}

@@ -93,7 +93,7 @@ export class WasmSorter {
       `keys at words ${source} and ${target} (${span} words each) within a scratch of ${this.words.length}, apart`);
     const params = this.params;
     passes.forEach((pass, q) => {
-      assert(pass.word < keyWords && pass.bits >= 1 && pass.bits <= DIGIT_BITS_MAX && pass.shift + pass.bits <= 32, `radix pass ${JSON.stringify(pass)} of a ${keyWords}-word key`);
+      assert(pass.word < keyWords && pass.bits >= 1 && pass.bits <= DIGIT_BITS_MAX && pass.shift < 32, `radix pass ${JSON.stringify(pass)} of a ${keyWords}-word key`);
       params[PASS_WORDS * q] = pass.word;
       params[PASS_WORDS * q + 1] = pass.shift;
       params[PASS_WORDS * q + 2] = pass.bits;

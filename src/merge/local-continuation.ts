@@ -18,6 +18,7 @@ import type { BatchSource } from '../count/run-merge.ts';
 import { scatterRows } from '../count/radix.ts';
 import type { RunBatch } from '../count/run-file.ts';
 import type { PartitionStore } from './store.ts';
+import { WasmSorter, type RadixPass, type SortEngine } from '../count/sort-wasm.ts';
 
 /** Records per batch handed to the merge. */
 const LOCAL_BATCH_RECORDS = 8192;
@@ -71,9 +72,7 @@ export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, wid
     idBitsAll = 0;
     for (let j = 0; j < n * width; j++) idBitsAll |= rows[j];
   }
-  const idBits = Math.max(1, 32 - Math.clz32(idBitsAll));
-  const passesPerId = Math.ceil(idBits / SORT_DIGIT_BITS);
-  const digitBits = Math.ceil(idBits / passesPerId);
+  const { passesPerId, digitBits } = rowDigits(idBitsAll);
   const buckets = 1 << digitBits;
   const mask = buckets - 1;
   // histograms[((k · passesPerId) + q) · buckets + d]: rows whose id k has digit d in pass q.
@@ -113,12 +112,34 @@ export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, wid
   return src;
 }
 
+/** The digits `sortRows` sorts ids whose bits, ORed, are `idBitsAll` by: as few passes per id as
+ *  ids of that many bits need, digits of at most SORT_DIGIT_BITS bits, balanced. */
+function rowDigits(idBitsAll: number): { passesPerId: number; digitBits: number } {
+  const idBits = Math.max(1, 32 - Math.clz32(idBitsAll));
+  const passesPerId = Math.ceil(idBits / SORT_DIGIT_BITS);
+  return { passesPerId, digitBits: Math.ceil(idBits / passesPerId) };
+}
+
+/** `sortRows`' passes, in the order it makes them, for the WebAssembly sort. */
+function rowPasses(width: number, idBitsAll: number): RadixPass[] {
+  const { passesPerId, digitBits } = rowDigits(idBitsAll);
+  const passes: RadixPass[] = [];
+  for (let k = width - 1; k >= 0; k--) for (let q = 0; q < passesPerId; q++) passes.push({ word: k, shift: q * digitBits, bits: digitBits });
+  return passes;
+}
+
 /**
  * The suffixes (last `order` ids) of `n` rows of order+1 ids, sorted, with how often each occurs:
- * N1+(• x) for every x, since the rows are distinct. Holds 2 × n × order ids.
+ * N1+(• x) for every x, since the rows are distinct. Holds 2 × n × order ids: in a WebAssembly
+ * memory, where its passes sort them (sort-wasm.ts: the same passes as `sortRows`), unless `engine`
+ * is 'js' or no such memory can be had.
  */
-export function suffixCountsBySort(higher: Iterable<{ keys: Uint32Array; recordCount: number }>, n: number, order: number): { keys: Uint32Array; counts: Uint32Array; size: number } {
-  const suffixes = new Uint32Array(n * order);
+export function suffixCountsBySort(
+  higher: Iterable<{ keys: Uint32Array; recordCount: number }>, n: number, order: number, engine: SortEngine = 'auto',
+): { keys: Uint32Array; counts: Uint32Array; size: number } {
+  const sorter = engine === 'js' ? undefined : WasmSorter.create(2 * n * order);
+  const wasm = sorter instanceof WasmSorter ? sorter : undefined;
+  const suffixes = wasm?.words.subarray(0, n * order) ?? new Uint32Array(n * order);
   const stride = order + 1;
   let filled = 0;
   let idBitsAll = 0;
@@ -137,7 +158,13 @@ export function suffixCountsBySort(higher: Iterable<{ keys: Uint32Array; recordC
     filled += block.recordCount;
   }
   assert(filled === n, `${n} rows of order ${stride} expected, ${filled} read`);
-  const sorted = sortRows(suffixes, new Uint32Array(n * order), n, order, idBitsAll);
+  let sorted: Uint32Array;
+  if (wasm !== undefined) {
+    const at = wasm.sortKeys(0, n * order, n, order, rowPasses(order, idBitsAll)) ? n * order : 0;
+    sorted = wasm.words.subarray(at, at + n * order);
+  } else {
+    sorted = sortRows(suffixes, new Uint32Array(n * order), n, order, idBitsAll);
+  }
   // Equal suffixes are adjacent: compact them in place, with their multiplicity.
   const counts = new Uint32Array(n);
   let size = 0;

@@ -56,10 +56,28 @@ describe('suffixCountsBySort', () => {
       expected.set(suffix, (expected.get(suffix) ?? 0) + 1);
     }
     const blocks = [{ keys: Uint32Array.from(flat.slice(0, 4 * 7000)), recordCount: 7000 }, { keys: Uint32Array.from(flat.slice(4 * 7000)), recordCount: n - 7000 }];
-    const { keys, counts, size } = suffixCountsBySort(blocks, n, order);
-    const got = rowsOf(keys, size, order);
-    expect(got).toEqual([...got].sort(lexicographic));
-    expect(new Map(got.map((row, i) => [row.join(' '), counts[i]]))).toEqual(expected);
-    expect(size).toBe(expected.size);
+    for (const engine of ['auto', 'js'] as const) {
+      const { keys, counts, size } = suffixCountsBySort(blocks, n, order, engine);
+      const got = rowsOf(keys, size, order);
+      expect(got).toEqual([...got].sort(lexicographic));
+      expect(new Map(got.map((row, i) => [row.join(' '), counts[i]]))).toEqual(expected);
+      expect(size).toBe(expected.size);
+    }
+  });
+
+  it('sorts in WebAssembly (sort-wasm.ts) what the JavaScript passes sort, for suffixes of 1 to 7 ids of 1 to 32 bits', () => {
+    for (const [order, idBits] of [[1, 32], [2, 5], [3, 18], [4, 12], [5, 32], [6, 20], [7, 1]] as const) {
+      const n = 3000;
+      const flat = randomRows(order * 31 + idBits, n, order + 1, idBits);
+      // A few rows share their suffix with the row before (counts above 1).
+      for (let r = 1; r < n; r += 7) flat.copyWithin(r * (order + 1) + 1, (r - 1) * (order + 1) + 1, r * (order + 1));
+      const blocks = [{ keys: flat, recordCount: n }];
+      const js = suffixCountsBySort(blocks, n, order, 'js');
+      const wasm = suffixCountsBySort(blocks, n, order, 'auto');
+      expect(wasm.size).toBe(js.size);
+      expect(js.size).toBeLessThan(n);
+      expect(Array.from(wasm.keys.subarray(0, wasm.size * order))).toEqual(Array.from(js.keys.subarray(0, js.size * order)));
+      expect(Array.from(wasm.counts.subarray(0, wasm.size))).toEqual(Array.from(js.counts.subarray(0, js.size)));
+    }
   });
 });

@@ -94,7 +94,7 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   const packed = counter.logged && counter.tableSize === 0 && countsAllOne && order >= 2;
   const { records, outputs } = packed
     ? packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, sorter?.words === scratch ? sorter : undefined)
-    : rowOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, counter.logged);
+    : rowOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, counter.logged, sorter?.words === scratch ? sorter : undefined);
   noteDistinctShare(counter, records);
   return {
     recordsOf: (p) => records[p],
@@ -113,12 +113,21 @@ interface RowOrder {
   outputs: Uint32Array[];
 }
 
-/** Steps 2–4 of the file's comment for rows with their counts (rows 0..m−1 of `front`). */
+/**
+ * Steps 2–4 of the file's comment for rows with their counts (rows 0..m−1 of `front`). With
+ * `sorter` (whose memory `scratch` is), each partition's rows are sorted by the WebAssembly passes,
+ * between their place in the scratch and the scratch's words after all the rows, when the largest
+ * partition's fit there (else by the JavaScript passes, as without `sorter`); the output goes to
+ * `front` then.
+ */
 function rowOrder(
   front: Uint32Array, scratch: Uint32Array, m: number, order: number, idBits: number, partitions: number,
-  partitionOfRow: Uint16Array, partitionStarts: Uint32Array, merge: boolean,
+  partitionOfRow: Uint16Array, partitionStarts: Uint32Array, merge: boolean, sorter?: WasmSorter,
 ): RowOrder {
   const stride = order + 1;
+  let largest = 0;
+  for (let p = 0; p < partitions; p++) largest = Math.max(largest, partitionStarts[p + 1] - partitionStarts[p]);
+  const wasm = sorter !== undefined && stride * (m + largest) <= scratch.length ? sorter : undefined;
   // 2. By partition, front → scratch.
   const next = partitionStarts.slice(0, partitions);
   for (let j = 0; j < m; j++) {
@@ -137,9 +146,18 @@ function rowOrder(
   const histograms = new Uint32Array(order * passesPerId * buckets);
   const outputs: Uint32Array[] = [];
   const records = new Uint32Array(partitions);
+  const wasmPasses: RadixPass[] = [];
+  for (let k = order; k >= 1; k--) for (let pass = 0; pass < passesPerId; pass++) wasmPasses.push({ word: k, shift: pass * digitBits, bits: digitBits });
   for (let p = 0; p < partitions; p++) {
     const begin = partitionStarts[p];
     const end = partitionStarts[p + 1];
+    if (wasm !== undefined) {
+      // The sorted rows, wherever they end, seen as an array in which row `begin` is at begin·stride.
+      const at = wasm.sortKeys(begin * stride, m * stride, end - begin, stride, wasmPasses) ? m * stride : begin * stride;
+      records[p] = splitRows(scratch.subarray(at - begin * stride), front, begin, end, stride, order, merge);
+      outputs.push(front);
+      continue;
+    }
     let source = scratch;
     let target = front;
     digitHistograms(source, begin, end, stride, order, passesPerId, digitBits, histograms);

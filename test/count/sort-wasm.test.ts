@@ -32,17 +32,21 @@ test('the committed spill-sort.wasm is what asc (the pinned AssemblyScript) comp
   expect(readFileSync(out).equals(readFileSync(join(REPO, 'src/count/spill-sort.wasm'))), 'npm run build:wasm, and commit src/count/spill-sort.wasm').toBe(true);
 });
 
-/** An append-only counter of `order` with `rows` n-grams, half their ids below 3 (so rows repeat),
- *  the rest anywhere below idMax (every bit in use). */
-function appendOnlyCounter(order: number, idMax: number, rows: number, seed: number): NgramCounter {
+/** A counter of `order` with `rows` n-grams, half their ids below 3 (so rows repeat), the rest
+ *  anywhere below idMax (every bit in use): append-only (its spill sorts packed keys), or filtering
+ *  (rows with counts, some n-grams both in the log and in the table). */
+function filledCounter(order: number, idMax: number, rows: number, seed: number, appendOnly = true): NgramCounter {
   const random = seededRandom(seed);
-  const counter = new NgramCounter(order, 16, 8, 32);
-  counter.setAppendOnly(true);
+  const counter = new NgramCounter(order, 16, 8, appendOnly ? 32 : 1 << 10);
+  if (appendOnly) counter.setAppendOnly(true);
   const ids = new Uint32Array(order);
   for (let i = 0; i < rows; i++) {
     for (let k = 0; k < order; k++) ids[k] = random() < 0.5 ? Math.floor(random() * Math.min(3, idMax)) : Math.min(idMax - 1, Math.floor(random() * idMax));
     const hash = ngramHash(ids, 0, order);
-    while (!counter.add(ids, 0, hash)) counter.resizeLog(2 * counter.logCapacity);
+    while (!counter.add(ids, 0, hash)) {
+      if (counter.tableFree === 0) counter.grow(ngramHash);
+      if (counter.logFree === 0) counter.resizeLog(2 * counter.logCapacity);
+    }
   }
   return counter;
 }
@@ -62,8 +66,8 @@ describe('a spill sorted in WebAssembly', () => {
       for (let order = 2; order <= 7; order++) {
         for (const partitions of [1, 5, 16]) {
           const seed = idMax % 1000 + 10 * order + partitions;
-          const expected = spilled(appendOnlyCounter(order, idMax, 1500, seed), partitions, idMax);
-          const counter = appendOnlyCounter(order, idMax, 1500, seed);
+          const expected = spilled(filledCounter(order, idMax, 1500, seed), partitions, idMax);
+          const counter = filledCounter(order, idMax, 1500, seed);
           const sorter = WasmSorter.create(counter.size * (order + 1));
           if (!(sorter instanceof WasmSorter)) throw sorter;
           let calls = 0;
@@ -80,6 +84,29 @@ describe('a spill sorted in WebAssembly', () => {
     }
     expect(sortedInWasm).toBeGreaterThan(50);
     expect(sortedInJs).toBeGreaterThan(5);
+  });
+
+  test('rows with counts (a filtering counter, orders 1 to 7) give the records of the JavaScript passes', () => {
+    let sortedInWasm = 0;
+    for (const idMax of [2, 30, 300_000, 2 ** 32 - 1]) {
+      for (let order = 1; order <= 7; order++) {
+        for (const partitions of [1, 5, 16]) {
+          const seed = idMax % 1000 + 10 * order + partitions;
+          const expected = spilled(filledCounter(order, idMax, 1500, seed, false), partitions, idMax);
+          const counter = filledCounter(order, idMax, 1500, seed, false);
+          // Room for the rows and the largest partition's again.
+          const sorter = WasmSorter.create(2 * counter.size * (order + 1));
+          if (!(sorter instanceof WasmSorter)) throw sorter;
+          let calls = 0;
+          const sortKeys = sorter.sortKeys.bind(sorter);
+          sorter.sortKeys = (...args) => (calls++, sortKeys(...args));
+          expect(spilled(counter, partitions, idMax, sorter)).toEqual(expected);
+          expect(calls, `order ${order}, ids below ${idMax}, ${partitions} partitions`).toBeGreaterThan(0);
+          sortedInWasm++;
+        }
+      }
+    }
+    expect(sortedInWasm).toBe(4 * 7 * 3);
   });
 
   test('a CounterSet keeps its spill scratch in a WebAssembly memory unless told not to, and drops it when cleared', () => {

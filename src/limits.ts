@@ -93,6 +93,12 @@ export const MERGE_BATCH_RECORDS = 8192;
  *  32 MiB chunks), and those buffers grew with the number of runs, outside the budget. */
 export const MERGE_FAN_IN_MAX = 64;
 
+/** Rows of a source the WebAssembly merge (src/count/merge-tree-wasm.ts) holds at once: its copy of
+ *  a block is made this many rows at a time, so a merge of k sources of order n holds
+ *  k × 1,024 × (4n + 8) bytes of them (144 KiB per source at order 5) besides its output batch. */
+export const MERGE_WINDOW_RECORDS = 1024;
+
+
 assert(RUN_READ_BUFFER_BYTES >= RUN_BLOCK_BYTES_MAX, 'a run reader buffer holds the largest block');
 assert(RUN_WRITE_BUFFER_BYTES >= 64 + RUN_BLOCK_BYTES_MAX + 32, 'a run writer buffer holds header, one block and trailer');
 

@@ -8,8 +8,9 @@
  * generator only when the output batch is full or a run needs its next block.
  */
 import { assert } from '../errors.ts';
-import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX, VOCAB_TYPES_MAX } from '../limits.ts';
+import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX } from '../limits.ts';
 import type { RunBatch } from './run-file.ts';
+import { EXHAUSTED_ID, FILL_DONE, FILL_OUTPUT_FULL, WasmLoserTree, type MergeEngine, type Merger } from './merge-tree-wasm.ts';
 
 /** Anything that yields sorted batches of one order: a run file, or a partition of the store. */
 export interface BatchSource {
@@ -21,17 +22,8 @@ export interface BatchSource {
   close(): Promise<void>;
 }
 
-/** The head of a used-up source in every word: above every word id (VOCAB_TYPES_MAX). */
-const EXHAUSTED_ID = 0xffff_ffff;
-assert(VOCAB_TYPES_MAX < EXHAUSTED_ID, 'a used-up source sorts above every row');
-
-/** `fill` stopped because every run is used up. */
-const FILL_DONE = -1;
-/** `fill` stopped because the output batch is full and the next row is a new n-gram. */
-const FILL_OUTPUT_FULL = -2;
-
 /** Merge state over k sources; knows nothing of files, only of their current blocks. */
-class LoserTreeMerger {
+class LoserTreeMerger implements Merger {
   readonly order: number;
   readonly sourceCount: number;
   /** Current row of each source, row-major: source s at heads[s*order ..]. */
@@ -77,6 +69,10 @@ class LoserTreeMerger {
     }
     this.heads.set(batch.keys.subarray(0, this.order), s * this.order);
     this.headCounts[s] = batch.counts[0];
+  }
+
+  nextWindow(): boolean {
+    return false;
   }
 
   /** True when source a's head sorts before source b's (ties by source index, for determinism). */
@@ -214,9 +210,11 @@ class LoserTreeMerger {
  * runs (`keys.length === recordCount * order`). The merge owns the readers: it reads each to its
  * end (which closes it) and closes all of them if the consumer stops early or a reader fails
  * ('corrupt' or 'io' QuernError, passed on). Rows out of order across the inputs, or a merged
- * count above RUN_COUNT_MAX, are assertion failures.
+ * count above RUN_COUNT_MAX, are assertion failures. Two sources or more are merged by the
+ * WebAssembly loser tree (`WasmLoserTree`) unless `engine` is 'js' or no WebAssembly memory can be
+ * had: the same output, record for record.
  */
-export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGenerator<RunBatch> {
+export async function* mergeRuns(readers: BatchSource[], order: number, engine: MergeEngine = 'auto'): AsyncGenerator<RunBatch> {
   try {
     for (const reader of readers) {
       assert(reader.order === order, `source ${reader.name} has order ${reader.order}, merge expects ${order}`);
@@ -225,7 +223,8 @@ export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGe
       yield* passThrough(readers[0], order);
       return;
     }
-    const merger = new LoserTreeMerger(readers.map((reader) => reader.name), order);
+    const names = readers.map((reader) => reader.name);
+    const merger: Merger = (engine === 'auto' ? WasmLoserTree.create(names, order) : undefined) ?? new LoserTreeMerger(names, order);
     const nextBatch = async (s: number): Promise<RunBatch | null> => {
       let batch: RunBatch | null;
       do batch = await readers[s].nextBatch();
@@ -240,7 +239,7 @@ export async function* mergeRuns(readers: BatchSource[], order: number): AsyncGe
       if (stop === FILL_OUTPUT_FULL) {
         yield merger.takeOutput();
       } else {
-        merger.setBatch(stop, await nextBatch(stop));
+        if (!merger.nextWindow(stop)) merger.setBatch(stop, await nextBatch(stop));
         merger.replay(stop);
       }
     }

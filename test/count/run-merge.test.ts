@@ -1,4 +1,6 @@
-import { promises as fsp } from 'node:fs';
+import { spawnSync } from 'node:child_process';
+import { promises as fsp, readFileSync } from 'node:fs';
+import { createRequire } from 'node:module';
 import * as os from 'node:os';
 import * as path from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -7,6 +9,7 @@ import { nodeFs } from '../../src/job/fsio.ts';
 import { MERGE_BATCH_RECORDS, RUN_BLOCK_RECORDS_MAX } from '../../src/limits.ts';
 import { RunReader, writeRunFile, type RunBatch } from '../../src/count/run-file.ts';
 import { mergeRuns, type BatchSource } from '../../src/count/run-merge.ts';
+import { WasmLoserTree, type MergeEngine } from '../../src/count/merge-tree-wasm.ts';
 import { seededRandom } from '../support/seeded.ts';
 
 const prng = seededRandom;
@@ -90,10 +93,10 @@ async function collect(batches: AsyncIterable<RunBatch>, order: number): Promise
   return { keys, counts, batchSizes };
 }
 
-async function expectMergeMatchesNaive(runs: Run[], order: number): Promise<number[]> {
+async function expectMergeMatchesNaive(runs: Run[], order: number, engine: MergeEngine): Promise<number[]> {
   const expected = naiveMerge(runs, order);
   const readers = await openRuns(runs, order);
-  const out = await collect(mergeRuns(readers, order), order);
+  const out = await collect(mergeRuns(readers, order, engine), order);
   expect(out.counts.length).toBe(expected.recordCount);
   // Compare as whole arrays once (element-wise expect calls would be slow).
   expect(Buffer.from(Uint32Array.from(out.keys).buffer).equals(Buffer.from(expected.keys.buffer))).toBe(true);
@@ -101,7 +104,22 @@ async function expectMergeMatchesNaive(runs: Run[], order: number): Promise<numb
   return out.batchSizes;
 }
 
-describe('mergeRuns', () => {
+describe('the WebAssembly loser tree', () => {
+  it('is what asc (the pinned AssemblyScript) compiles from run-merge.as.ts, and merges two sources or more', () => {
+    const repo = path.join(import.meta.dirname, '..', '..');
+    const asc = createRequire(import.meta.url).resolve('assemblyscript/bin/asc.js');
+    const out = path.join(dir, 'run-merge.wasm');
+    const result = spawnSync(process.execPath, [asc, 'src/count/run-merge.as.ts', '--config', 'src/count/asconfig.json', '-o', out], { cwd: repo, encoding: 'utf8' });
+    expect(result.stderr + result.stdout).toBe('');
+    expect(readFileSync(out).equals(readFileSync(path.join(repo, 'src/count/run-merge.wasm'))), 'npm run build:wasm, and commit src/count/run-merge.wasm').toBe(true);
+    expect(WasmLoserTree.create(['a.run', 'b.run'], 3)).toBeInstanceOf(WasmLoserTree);
+    expect(WasmLoserTree.create(['a.run'], 3)).toBeUndefined();
+  });
+});
+
+// Every test for both merges of two sources or more: the WebAssembly loser tree and the JavaScript one.
+for (const engine of ['auto', 'js'] as const) describe(`mergeRuns (engine ${engine})`, () => {
+  const merge = (readers: BatchSource[], order: number): AsyncGenerator<RunBatch> => mergeRuns(readers, order, engine);
   const shapes: { runCount: number; order: number; draws: number; vocab: number }[] = [
     { runCount: 1, order: 1, draws: 300, vocab: 500 },
     { runCount: 2, order: 2, draws: 2000, vocab: 60 },
@@ -115,7 +133,7 @@ describe('mergeRuns', () => {
     it(`matches a naive merge: ${shape.runCount} runs of order ${shape.order}`, async () => {
       const random = prng(100 + i);
       const runs = Array.from({ length: shape.runCount }, () => randomRun(random, shape.order, shape.draws, shape.vocab));
-      await expectMergeMatchesNaive(runs, shape.order);
+      await expectMergeMatchesNaive(runs, shape.order, engine);
     });
   }
 
@@ -125,7 +143,7 @@ describe('mergeRuns', () => {
     const base = randomRun(random, 2, 40_000, 400);
     expect(base.recordCount).toBeGreaterThan(Math.max(RUN_BLOCK_RECORDS_MAX, MERGE_BATCH_RECORDS) + 100);
     const shifted = runFromMap(new Map([...base.map].filter((_, j) => j % 3 !== 0)), 2);
-    const batchSizes = await expectMergeMatchesNaive([base, shifted, base], 2);
+    const batchSizes = await expectMergeMatchesNaive([base, shifted, base], 2, engine);
     expect(batchSizes.slice(0, -1).every((size) => size === MERGE_BATCH_RECORDS)).toBe(true);
   });
 
@@ -134,35 +152,35 @@ describe('mergeRuns', () => {
     const base = randomRun(random, 3, 40_000, 60);
     expect(base.recordCount).toBeGreaterThan(Math.max(RUN_BLOCK_RECORDS_MAX, MERGE_BATCH_RECORDS) + 100);
     const shifted = runFromMap(new Map([...base.map].filter((_, j) => j % 4 !== 1)), 3);
-    await expectMergeMatchesNaive([base, shifted], 3);
-    await expectMergeMatchesNaive([shifted, base], 3);
-    await expectMergeMatchesNaive([base, base], 3);
+    await expectMergeMatchesNaive([base, shifted], 3, engine);
+    await expectMergeMatchesNaive([shifted, base], 3, engine);
+    await expectMergeMatchesNaive([base, base], 3, engine);
     const short = runFromMap(new Map([...base.map].slice(0, 50)), 3);
-    await expectMergeMatchesNaive([short, base], 3);
-    await expectMergeMatchesNaive([base, short], 3);
+    await expectMergeMatchesNaive([short, base], 3, engine);
+    await expectMergeMatchesNaive([base, short], 3, engine);
     const empty = runFromMap(new Map(), 3);
-    await expectMergeMatchesNaive([empty, base], 3);
-    await expectMergeMatchesNaive([base, empty], 3);
+    await expectMergeMatchesNaive([empty, base], 3, engine);
+    await expectMergeMatchesNaive([base, empty], 3, engine);
     const low = randomRun(random, 3, 500, 10);
     const high = randomRun(random, 3, 500, 10, 0xffff_fff0);
-    await expectMergeMatchesNaive([high, low], 3);
-    await expectMergeMatchesNaive([low, high], 3);
+    await expectMergeMatchesNaive([high, low], 3, engine);
+    await expectMergeMatchesNaive([low, high], 3, engine);
   });
 
   it('handles no runs, empty runs and disjoint runs', async () => {
-    expect((await collect(mergeRuns([], 3), 3)).counts).toEqual([]);
+    expect((await collect(merge([], 3), 3)).counts).toEqual([]);
     const random = prng(8);
     const empty = runFromMap(new Map(), 3);
-    await expectMergeMatchesNaive([empty, empty], 3);
+    await expectMergeMatchesNaive([empty, empty], 3, engine);
     const low = randomRun(random, 3, 500, 10);
     const high = randomRun(random, 3, 500, 10, 0xffff_fff0);
-    await expectMergeMatchesNaive([high, empty, low], 3);
+    await expectMergeMatchesNaive([high, empty, low], 3, engine);
   });
 
   it('asserts on runs of another order', async () => {
     const random = prng(9);
     const readers = await openRuns([randomRun(random, 2, 10, 5)], 2);
-    await expect(collect(mergeRuns(readers, 3), 3)).rejects.toThrow(/has order 2, merge expects 3/);
+    await expect(collect(merge(readers, 3), 3)).rejects.toThrow(/has order 2, merge expects 3/);
   });
 
   it('asserts when an input is out of order', async () => {
@@ -180,18 +198,18 @@ describe('mergeRuns', () => {
         close: async () => {},
       };
     };
-    const call = collect(mergeRuns([fake([[1, 1], [3, 0], [2, 5]]), fake([[1, 2]])], 2), 2);
+    const call = collect(merge([fake([[1, 1], [3, 0], [2, 5]]), fake([[1, 2]])], 2), 2);
     await expect(call).rejects.toThrow(/merge input out of order: a row of fake.run/);
     // In the second of two sources, and among three (the loser tree).
-    await expect(collect(mergeRuns([fake([[1, 2]]), fake([[1, 1], [3, 0], [2, 5]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of fake.run/);
-    await expect(collect(mergeRuns([fake([[1, 2]]), fake([[0, 9]]), fake([[1, 1], [3, 0], [2, 5]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of fake.run/);
+    await expect(collect(merge([fake([[1, 2]]), fake([[1, 1], [3, 0], [2, 5]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of fake.run/);
+    await expect(collect(merge([fake([[1, 2]]), fake([[0, 9]]), fake([[1, 1], [3, 0], [2, 5]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of fake.run/);
   });
 
   it('passes a single source through, larger than a batch, and asserts when its rows do not strictly increase', async () => {
     const random = prng(10);
     const big = randomRun(random, 2, 40_000, 400);
     expect(big.recordCount).toBeGreaterThan(MERGE_BATCH_RECORDS + 100);
-    await expectMergeMatchesNaive([big], 2);
+    await expectMergeMatchesNaive([big], 2, engine);
     // Equal rows within one source are out of order (a run's rows strictly increase), within a batch
     // and across two.
     const batches = (list: number[][][]): BatchSource => {
@@ -206,16 +224,16 @@ describe('mergeRuns', () => {
         close: async () => {},
       };
     };
-    await expect(collect(mergeRuns([batches([[[1, 1], [1, 1]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
-    await expect(collect(mergeRuns([batches([[[1, 1], [2, 0]], [[2, 0]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
-    await expect(collect(mergeRuns([batches([[[1, 1], [2, 0]], [[1, 5]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
-    expect((await collect(mergeRuns([batches([[[1, 1], [2, 0]], [], [[2, 1]]])], 2), 2)).counts).toEqual([1, 1, 1]);
+    await expect(collect(merge([batches([[[1, 1], [1, 1]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
+    await expect(collect(merge([batches([[[1, 1], [2, 0]], [[2, 0]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
+    await expect(collect(merge([batches([[[1, 1], [2, 0]], [[1, 5]]])], 2), 2)).rejects.toThrow(/merge input out of order: a row of single.run/);
+    expect((await collect(merge([batches([[[1, 1], [2, 0]], [], [[2, 1]]])], 2), 2)).counts).toEqual([1, 1, 1]);
   });
 
   it('asserts when a merged count exceeds 2^53 − 1', async () => {
     const run: Run = { map: new Map(), keys: Uint32Array.from([4]), counts: Float64Array.from([2 ** 52]), recordCount: 1 };
     const readers = await openRuns([run, run], 1);
-    await expect(collect(mergeRuns(readers, 1), 1)).rejects.toThrow(/merged count 9007199254740992 exceeds/);
+    await expect(collect(merge(readers, 1), 1)).rejects.toThrow(/merged count 9007199254740992 exceeds/);
   });
 
   it('passes on a corrupt run and closes every reader', async () => {
@@ -226,7 +244,7 @@ describe('mergeRuns', () => {
     const bytes = await fsp.readFile(damagedPath);
     bytes[bytes.length - 200] ^= 0x20; // inside the last block
     await fsp.writeFile(damagedPath, bytes);
-    const error = await collect(mergeRuns(readers, 3), 3).then(() => undefined, (e: unknown) => e);
+    const error = await collect(merge(readers, 3), 3).then(() => undefined, (e: unknown) => e);
     expect(error).toBeInstanceOf(QuernError);
     expect((error as QuernError).code).toBe('corrupt');
     expect((error as Error).message).toContain(damagedPath);
@@ -236,7 +254,7 @@ describe('mergeRuns', () => {
   it('closes the readers when the consumer stops early', async () => {
     const random = prng(11);
     const readers = await openRuns([randomRun(random, 2, 30_000, 300), randomRun(random, 2, 30_000, 300)], 2);
-    for await (const batch of mergeRuns(readers, 2)) {
+    for await (const batch of merge(readers, 2)) {
       expect(batch.recordCount).toBe(MERGE_BATCH_RECORDS);
       break;
     }

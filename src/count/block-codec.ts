@@ -6,6 +6,7 @@
  */
 import { crc32 } from 'node:zlib';
 import { RUN_COUNT_MAX } from '../limits.ts';
+import { encodeRecordsWasm } from './codec-wasm.ts';
 
 /** Fixed bytes of a block header before its first n-gram: crc32, record count, record bytes. */
 export const BLOCK_HEADER_FIXED_BYTES = 12;
@@ -81,7 +82,17 @@ export function encodeBlock(
   buf.writeUInt32LE(recordCount, p0 + 4);
   for (let j = 0; j < order; j++) buf.writeUInt32LE(keys[first * order + j], p0 + BLOCK_HEADER_FIXED_BYTES + 4 * j);
   const recordsStart = p0 + blockHeaderBytes(order);
-  let p = putVarCount(buf, recordsStart, counts[first]);
+  let p = encodeRecordsWasm(buf, recordsStart, keys, counts, first, recordCount, order);
+  if (p < 0) p = encodeRecordsJs(buf, recordsStart, keys, counts, first, recordCount, order);
+  buf.writeUInt32LE(p - recordsStart, p0 + 8);
+  buf.writeUInt32LE(crc32(buf.subarray(p0 + 4, p)), p0);
+  return p;
+}
+
+/** encodeBlock's records (from the first record's count on) at `start`, in JavaScript; returns the
+ *  offset after them. */
+function encodeRecordsJs(buf: Buffer, start: number, keys: Uint32Array, counts: ArrayLike<number>, first: number, recordCount: number, order: number): number {
+  let p = putVarCount(buf, start, counts[first]);
   const end = first + recordCount;
   for (let r = first + 1; r < end; r++) {
     const base = r * order;
@@ -93,8 +104,6 @@ export function encodeBlock(
     for (let j = shared + 1; j < order; j++) p = putVarU32(buf, p, keys[base + j]);
     p = putVarCount(buf, p, counts[r]);
   }
-  buf.writeUInt32LE(p - recordsStart, p0 + 8);
-  buf.writeUInt32LE(crc32(buf.subarray(p0 + 4, p)), p0);
   return p;
 }
 

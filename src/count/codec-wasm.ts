@@ -1,0 +1,82 @@
+/**
+ * `encodeBlock`'s record loop in WebAssembly (block-codec.wasm, compiled from block-codec.as.ts by
+ * `npm run build:wasm`): a block's ids and counts are copied into a memory of this thread's, coded
+ * there, and the bytes copied out — the same bytes (test/count/run-file.test.ts). One memory per
+ * thread, made at the first block and kept: room for the largest block (RUN_BLOCK_RECORDS_MAX
+ * records of ORDER_MAX ids, ~0.6 MiB). Where it cannot be had, block-codec.ts codes in JavaScript.
+ */
+import { readFileSync } from 'node:fs';
+import { ORDER_MAX, RUN_BLOCK_RECORDS_MAX } from '../limits.ts';
+
+/** Which code codes a block's records: 'auto' = WebAssembly when it can be had. */
+export type CodecEngine = 'auto' | 'js';
+
+type EncodeRecords = (keys: number, counts: number, n: number, order: number, out: number) => number;
+
+const PAGE_BYTES = 65536;
+const KEYS_AT = 0;
+const COUNTS_AT = KEYS_AT + 4 * ORDER_MAX * RUN_BLOCK_RECORDS_MAX;
+const OUT_AT = COUNTS_AT + 8 * RUN_BLOCK_RECORDS_MAX;
+/** Coded bytes of a record at most (block-codec.ts, recordBytesMax(ORDER_MAX)): a shared-prefix
+ *  byte, ORDER_MAX ids of up to 5 bytes, a count of up to 8. */
+const RECORD_BYTES_MAX = 1 + 5 * ORDER_MAX + 8;
+const MEMORY_BYTES = OUT_AT + RECORD_BYTES_MAX * RUN_BLOCK_RECORDS_MAX;
+
+class WasmEncoder {
+  private readonly u32: Uint32Array;
+  private readonly f64: Float64Array;
+  private readonly u8: Uint8Array;
+
+  constructor(memory: WebAssembly.Memory, private readonly run: EncodeRecords) {
+    this.u32 = new Uint32Array(memory.buffer);
+    this.f64 = new Float64Array(memory.buffer);
+    this.u8 = new Uint8Array(memory.buffer);
+  }
+
+  /** Codes rows first..first+n−1 (n ≥ 1) into `buf` at `p`; returns the offset after them. */
+  encode(buf: Uint8Array, p: number, keys: Uint32Array, counts: Float64Array | Uint32Array, first: number, n: number, order: number): number {
+    this.u32.set(keys.subarray(first * order, (first + n) * order), KEYS_AT / 4);
+    this.f64.set(counts.subarray(first, first + n), COUNTS_AT / 8);
+    const bytes = this.run(KEYS_AT, COUNTS_AT, n, order, OUT_AT);
+    buf.set(this.u8.subarray(OUT_AT, OUT_AT + bytes), p);
+    return p + bytes;
+  }
+}
+
+let encoder: WasmEncoder | null | undefined;
+
+/** This thread's WebAssembly coder, or null when it cannot be had. */
+function wasmEncoder(): WasmEncoder | null {
+  if (encoder === undefined) {
+    try {
+      const module = new WebAssembly.Module(readFileSync(new URL('./block-codec.wasm', import.meta.url)));
+      const pages = Math.ceil(MEMORY_BYTES / PAGE_BYTES);
+      const memory = new WebAssembly.Memory({ initial: pages, maximum: pages });
+      const instance = new WebAssembly.Instance(module, { env: { memory } });
+      encoder = new WasmEncoder(memory, instance.exports.encodeRecords as EncodeRecords);
+    } catch {
+      encoder = null;
+    }
+  }
+  return encoder;
+}
+
+let engineChosen: CodecEngine = 'auto';
+
+/** Chooses the code for the blocks coded from now on in this thread (tests compare the two). */
+export function setCodecEngine(engine: CodecEngine): void {
+  engineChosen = engine;
+}
+
+/**
+ * Codes rows first..first+n−1 of `keys`/`counts` (n ≥ 1, strictly increasing rows, integer counts)
+ * into `buf` at `p` in WebAssembly and returns the offset after them, or returns −1 when that is
+ * not possible here (the engine is 'js', no memory, a block larger than RUN_BLOCK_RECORDS_MAX, or
+ * counts that are not a typed array): the caller codes them itself.
+ */
+export function encodeRecordsWasm(buf: Uint8Array, p: number, keys: Uint32Array, counts: ArrayLike<number>, first: number, n: number, order: number): number {
+  if (engineChosen === 'js' || n < 1 || n > RUN_BLOCK_RECORDS_MAX || order > ORDER_MAX) return -1;
+  if (!(counts instanceof Float64Array || counts instanceof Uint32Array)) return -1;
+  const coder = wasmEncoder();
+  return coder === null ? -1 : coder.encode(buf, p, keys, counts, first, n, order);
+}

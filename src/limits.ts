@@ -201,6 +201,12 @@ export const STORE_TXN_BLOCKS = 1024;
  *  needed). 1 TiB per partition leaves room for any corpus this machine can count. */
 export const STORE_MAP_BYTES = 2 ** 40;
 
+/** Address space a process needs for the count store: the environments it may have open at once
+ *  (a worker's, the main thread's, a reader's), each mapping STORE_MAP_BYTES, with room for V8's
+ *  own reservations. Under a lower `ulimit -v` LMDB's map fails inside lmdb-js, which then crashes
+ *  the process (a segmentation fault, measured at 8, 16, 32 and 64 GB); quern refuses first. */
+export const STORE_ADDRESS_SPACE_MIN = 16 * STORE_MAP_BYTES;
+
 // ---- Estimate (streaming, partition by partition) ---------------------------------------------
 
 /** Rows per block of an estimate result file (docs/estimate-files.md): like a run-file block, a

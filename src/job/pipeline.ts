@@ -13,7 +13,7 @@ import { countStage, readJobVocabulary, sumOccurrences, vocabStage, VOCAB_FILE }
 import { RUNS_DIR } from '../count/run-layout.ts';
 import { mergeStage, STATS_FILE } from '../merge/stage.ts';
 import { continuationStage } from '../merge/continuation-stage.ts';
-import { STORE_DIR } from '../merge/store.ts';
+import { checkStoreAddressSpace, STORE_DIR } from '../merge/store.ts';
 import { MERGE_SCRATCH_DIR } from '../merge/merge-partition.ts';
 import { makeStageContext, silentProgress, type ProgressSink } from './context.ts';
 import { stageFs, type StageFs } from './fsio.ts';
@@ -139,6 +139,8 @@ async function openJob(request: CountRequest, fs: StageFs): Promise<{ job: JobMa
 /** Runs (or continues) counting and merging a job; returns its summary. */
 export async function runCount(request: CountRequest): Promise<CountSummary> {
   const started = Date.now();
+  // Before hours of counting, not at the merge: the store cannot be opened under such a limit.
+  checkStoreAddressSpace();
   const fs = request.fs ?? stageFs();
   const jobDir = path.resolve(request.jobDir);
   await fs.mkdir(jobDir);

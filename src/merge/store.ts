@@ -8,10 +8,11 @@
  * block (block-codec.ts). Keys starting with 0x00 hold metadata: the merge progress, written in the
  * same transaction as the counts it describes.
  */
+import { readFileSync } from 'node:fs';
 import * as path from 'node:path';
 import { open, type RootDatabase } from 'lmdb';
 import { assert, QuernError } from '../errors.ts';
-import { STORE_BLOCK_RECORDS, STORE_MAP_BYTES } from '../limits.ts';
+import { STORE_ADDRESS_SPACE_MIN, STORE_BLOCK_RECORDS, STORE_MAP_BYTES } from '../limits.ts';
 import { runUnstoppable } from '../job/stop-gate.ts';
 import { compareRows, DecodeFailure, decodeBlockValue, type BlockBuffers, type DecodedBlock } from '../count/block-codec.ts';
 
@@ -53,6 +54,30 @@ export function parseNgramKey(key: Uint8Array): { order: number; ids: Uint32Arra
   return { order, ids };
 }
 
+/** The soft limit on this process's address space (`ulimit -v`) in bytes, from /proc/self/limits;
+ *  undefined when there is none, or none can be read (not Linux). */
+export function addressSpaceLimit(limits = readProcLimits()): number | undefined {
+  const line = limits?.split('\n').find((l) => l.startsWith('Max address space'));
+  const soft = line?.slice('Max address space'.length).trim().split(/\s+/)[0];
+  return soft === undefined || soft === 'unlimited' || !/^\d+$/.test(soft) ? undefined : Number(soft);
+}
+
+function readProcLimits(): string | undefined {
+  try {
+    return readFileSync('/proc/self/limits', 'utf8');
+  } catch {
+    return undefined;
+  }
+}
+
+/** Throws a 'limit' QuernError when this process's address space is too small for the count store
+ *  (STORE_ADDRESS_SPACE_MIN): LMDB would crash it instead of failing. */
+export function checkStoreAddressSpace(limit = addressSpaceLimit()): void {
+  if (limit !== undefined && limit < STORE_ADDRESS_SPACE_MIN) {
+    throw new QuernError('limit', `the count store maps ${STORE_MAP_BYTES / 2 ** 40} TiB of address space per partition (LMDB, pages read as needed), and this process may use ${(limit / 2 ** 30).toFixed(1)} GiB of address space in all (ulimit -v): raise the limit, e.g. ulimit -v unlimited`);
+  }
+}
+
 /**
  * Opens a partition's environment with every storage option stated. Through the thread's stop gate
  * (stop-gate.ts), like a commit: a worker ended by process.exit inside lmdb's native open aborted the
@@ -60,6 +85,7 @@ export function parseNgramKey(key: Uint8Array): { order: number; ids: Uint32Arra
  * test/e2e/crash.test.ts in a CI run), instead of exiting with the signal's status.
  */
 function openEnvironment(dir: string, readOnly: boolean): RootDatabase<Buffer, Buffer> {
+  checkStoreAddressSpace();
   try {
     return runUnstoppable(() => open<Buffer, Buffer>({
       path: dir,

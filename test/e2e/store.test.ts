@@ -11,7 +11,8 @@ import { parseListing, REPO, runQuern, tempDir } from '../support/cli.ts';
 import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import { NO_LOCAL_CONTINUATION_ENV } from '../../src/merge/continuation-stage.ts';
 import { MERGE_SCRATCH_DIR } from '../../src/merge/merge-partition.ts';
-import { MERGE_FAN_IN_MAX } from '../../src/limits.ts';
+import { MERGE_FAN_IN_MAX, STORE_ADDRESS_SPACE_MIN } from '../../src/limits.ts';
+import { addressSpaceLimit, checkStoreAddressSpace } from '../../src/merge/store.ts';
 import { jobDigest } from '../support/crash.ts';
 
 describe('count store', () => {
@@ -84,6 +85,41 @@ describe('count store', () => {
     expect(listed.stderr).toBe('');
     expect(listed.stdout).toBe((await runQuern(['ngrams', job, '--order', '4'])).stdout);
     expect(existsSync(path.join(many, MERGE_SCRATCH_DIR)), 'the listing removes its intermediate runs and their folder').toBe(false);
+  });
+
+  test('under an address-space limit too small for the store (ulimit -v 8 GB), quern count and quern ngrams refuse at once with the reason, instead of crashing inside LMDB', () => {
+    // The compiled CLI: tsx, which runs the sources, itself fails under such a limit.
+    if (spawnSync(process.execPath, [path.join(REPO, 'scripts/build.mjs'), '--check']).status !== 0) {
+      process.stderr.write('store.test.ts: dist/ is not current (npm run build): quern under ulimit -v was not checked\n');
+      return;
+    }
+    const limited = (args: string[]) => spawnSync('bash', ['-c', 'ulimit -v 8000000 && exec "$0" "$@"', process.execPath, path.join(REPO, 'bin/quern.js'), ...args], { encoding: 'utf8' });
+    const fresh = path.join(tempDir(), 'job');
+    const count = limited(['count', corpus, '--job', fresh, '--order', '2', '--quiet']);
+    expect(count.signal).toBeNull();
+    expect(count.status).toBe(6);
+    expect(count.stderr).toMatch(/^quern: the count store maps 1 TiB of address space per partition .* may use 7\.6 GiB .* \(ulimit -v\): raise the limit/);
+    expect(existsSync(fresh), 'refused before the job was begun').toBe(false);
+    const listed = limited(['ngrams', job, '--order', '2', '--limit', '3']);
+    expect(listed.signal).toBeNull();
+    expect(listed.status).toBe(6);
+    expect(listed.stderr).toMatch(/ulimit -v/);
+  });
+
+  test('the address-space limit is read from /proc/self/limits (Linux); none, unlimited or unreadable is no limit', () => {
+    const limits = (soft: string): string => [
+      'Limit                     Soft Limit           Hard Limit           Units     ',
+      'Max stack size            8388608              unlimited            bytes     ',
+      `Max address space         ${soft.padEnd(20)} unlimited            bytes     `,
+      'Max file locks            unlimited            unlimited            locks     ',
+    ].join('\n');
+    expect(addressSpaceLimit(limits('8192000000'))).toBe(8_192_000_000);
+    expect(addressSpaceLimit(limits('unlimited'))).toBeUndefined();
+    expect(addressSpaceLimit('Max stack size 8388608 unlimited bytes')).toBeUndefined();
+    expect(addressSpaceLimit(undefined)).toBeUndefined();
+    expect(() => checkStoreAddressSpace(8_192_000_000)).toThrow(/ulimit -v unlimited/);
+    expect(() => checkStoreAddressSpace(STORE_ADDRESS_SPACE_MIN)).not.toThrow();
+    expect(() => checkStoreAddressSpace(undefined)).not.toThrow();
   });
 
   test('--prefix lists exactly the n-grams that start with the given words', async () => {

@@ -213,17 +213,39 @@ function packedOrder(
   for (let p = 0; p < partitions; p++) keysAt[p] = partitionStarts[p] * (wasm !== undefined ? K : stride);
   // 2. Packed, by partition, front → scratch.
   const placed = new Uint32Array(partitions);
-  for (let j = 0; j < m; j++) {
-    const from = j * stride + 1;
-    const p = partitionOfRow[j];
-    const to = keysAt[p] + placed[p]++ * K;
-    for (let w = 0; w < K; w++) scratch[to + w] = 0;
-    for (let i = 0; i < order; i++) {
-      const id = front[from + i];
-      const word = to + idWord[i];
-      const shift = idShift[i];
-      scratch[word] |= id << shift;
-      if (idSplit[i] !== 0) scratch[word - 1] |= id >>> (32 - shift);
+  if (K <= 3 && idBits < 32) {
+    // The key built in three registers, id by id: (hi, mid, lo) ← (hi, mid, lo) · 2^idBits + id,
+    // then its K low words written once.
+    const up = 32 - idBits;
+    for (let j = 0; j < m; j++) {
+      const from = j * stride + 1;
+      let hi = 0;
+      let mid = 0;
+      let lo = 0;
+      for (let i = 0; i < order; i++) {
+        hi = (hi << idBits) | (mid >>> up);
+        mid = (mid << idBits) | (lo >>> up);
+        lo = (lo << idBits) | front[from + i];
+      }
+      const p = partitionOfRow[j];
+      const to = keysAt[p] + placed[p]++ * K;
+      scratch[to + K - 1] = lo;
+      if (K >= 2) scratch[to + K - 2] = mid;
+      if (K === 3) scratch[to] = hi;
+    }
+  } else {
+    for (let j = 0; j < m; j++) {
+      const from = j * stride + 1;
+      const p = partitionOfRow[j];
+      const to = keysAt[p] + placed[p]++ * K;
+      for (let w = 0; w < K; w++) scratch[to + w] = 0;
+      for (let i = 0; i < order; i++) {
+        const id = front[from + i];
+        const word = to + idWord[i];
+        const shift = idShift[i];
+        scratch[word] |= id << shift;
+        if (idSplit[i] !== 0) scratch[word - 1] |= id >>> (32 - shift);
+      }
     }
   }
   // 3. The passes: each key word from the last, its bits in use in digits of at most RADIX_BITS_MAX.
@@ -261,6 +283,10 @@ function packedOrder(
     }
     const out = front;
     const countsAt = base + n * order;
+    if (K <= 3 && idBits < 32) {
+      records[p] = unpackKeys3(source, n, K, order, idBits, out, base, countsAt);
+      continue;
+    }
     let distinct = 0;
     for (let r = 0; r < n; r++) {
       const at = r * K;
@@ -286,6 +312,45 @@ function packedOrder(
     records[p] = distinct;
   }
   return { records, outputs: Array.from({ length: partitions }, () => front) };
+}
+
+/**
+ * Step 4 of packedOrder for keys of at most 3 words and ids below 32 bits: the `n` sorted keys of
+ * `source` → the ids of each distinct key row-major into `out` from `keysAt`, and how often it
+ * occurs from `countsAt`; returns the distinct keys. A key is read into three registers and its ids
+ * taken from the low end, idBits at a time.
+ */
+function unpackKeys3(source: Uint32Array, n: number, K: number, order: number, idBits: number, out: Uint32Array, keysAt: number, countsAt: number): number {
+  const mask = 2 ** idBits - 1;
+  const down = 32 - idBits;
+  let distinct = 0;
+  let lastHi = -1;
+  let lastMid = -1;
+  let lastLo = -1;
+  for (let r = 0, at = 0; r < n; r++, at += K) {
+    const lo = source[at + K - 1];
+    const mid = K >= 2 ? source[at + K - 2] : 0;
+    const hi = K === 3 ? source[at] : 0;
+    if (distinct > 0 && lo === lastLo && mid === lastMid && hi === lastHi) {
+      out[countsAt + distinct - 1]++;
+      continue;
+    }
+    lastHi = hi;
+    lastMid = mid;
+    lastLo = lo;
+    let h = hi;
+    let m = mid;
+    let l = lo;
+    for (let i = keysAt + (distinct + 1) * order - 1, first = keysAt + distinct * order; i >= first; i--) {
+      out[i] = (l & mask) >>> 0;
+      l = (l >>> idBits) | (m << down);
+      m = (m >>> idBits) | (h << down);
+      h >>>= idBits;
+    }
+    out[countsAt + distinct] = 1;
+    distinct++;
+  }
+  return distinct;
 }
 
 /** The last table `partitionTable` made, kept while its bound and partitions stay the same (a

@@ -137,12 +137,15 @@ export const PARTITION_TABLE_IDS_MAX = 1 << 22;
  *  which that order's counter is append-only (counter.ts): every occurrence a row of the log, no
  *  filter or table. In 32 MiB chunks of the benchmark corpus the share is 0.45 at order 2, 0.75 at
  *  3, 0.89 at 4 and 0.95 at 5; appending orders 3 to 5 made the count stage ~0.9× as long at order 5
- *  (BENCHMARKS.md), appending order 2 as well gained nothing more. */
-export const COUNTER_APPEND_DISTINCT_MIN = 0.6;
+ *  (BENCHMARKS.md). Order 2 as well gained nothing while the spill sort ran in JavaScript (0.6 and
+ *  order 3 then); with the sort in WebAssembly it made the count stage 0.86–0.88× as long
+ *  (2026-12-05), so 0.4 takes it in. */
+export const COUNTER_APPEND_DISTINCT_MIN = 0.4;
 
 /** The order from which a count worker's counters start append-only, before any spill has shown
- *  their share of distinct n-grams: in text most n-grams of order 3 and up are new within a chunk. */
-export const COUNTER_APPEND_ORDER_MIN = 3;
+ *  their share of distinct n-grams: in text most bigrams of a chunk are seen once or twice, and the
+ *  sort adds them up faster than a table does (COUNTER_APPEND_DISTINCT_MIN). */
+export const COUNTER_APPEND_ORDER_MIN = 2;
 
 /** A counter structure (table, log, filter) more than this many times larger than the next chunk
  *  is expected to need is shrunk before the chunk (CounterSet.presize): clearing a table or a

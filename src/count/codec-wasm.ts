@@ -5,8 +5,8 @@
  * thread, made at the first block and kept: room for the largest block (RUN_BLOCK_RECORDS_MAX
  * records of ORDER_MAX ids, ~0.6 MiB). Where it cannot be had, block-codec.ts codes in JavaScript.
  */
-import { readFileSync } from 'node:fs';
 import { ORDER_MAX, RUN_BLOCK_RECORDS_MAX } from '../limits.ts';
+import { wasmModuleAt } from '../wasm-module.ts';
 
 /** Which code codes a block's records: 'auto' = WebAssembly when it can be had. */
 export type CodecEngine = 'auto' | 'js';
@@ -43,13 +43,15 @@ class WasmEncoder {
   }
 }
 
+const codecModule = wasmModuleAt(new URL('./block-codec.wasm', import.meta.url));
 let encoder: WasmEncoder | null | undefined;
 
 /** This thread's WebAssembly coder, or null when it cannot be had. */
 function wasmEncoder(): WasmEncoder | null {
   if (encoder === undefined) {
     try {
-      const module = new WebAssembly.Module(readFileSync(new URL('./block-codec.wasm', import.meta.url)));
+      const module = codecModule();
+      if (module instanceof Error) throw module;
       const pages = Math.ceil(MEMORY_BYTES / PAGE_BYTES);
       const memory = new WebAssembly.Memory({ initial: pages, maximum: pages });
       const instance = new WebAssembly.Instance(module, { env: { memory } });

@@ -6,8 +6,8 @@
  * moves are the rest). Where no memory can be had, or the module not loaded, mergeRuns uses
  * `LoserTreeMerger`.
  */
-import { readFileSync } from 'node:fs';
 import { assert } from '../errors.ts';
+import { wasmModuleAt } from '../wasm-module.ts';
 import { MERGE_BATCH_RECORDS, MERGE_WINDOW_RECORDS, RUN_COUNT_MAX, VOCAB_TYPES_MAX } from '../limits.ts';
 import type { RunBatch } from './run-file.ts';
 
@@ -28,6 +28,37 @@ const FILL_ROW_ABOVE_IDS = -3;
 const FILL_COUNT_ABOVE_MAX = -4;
 const FILL_OUT_OF_ORDER = -5;
 assert(RUN_COUNT_MAX === 2 ** 53 - 1, 'run-merge.as.ts checks sums against 2^53 − 1');
+
+/** True when source a's head sorts before source b's, the heads being rows of `order` ids from
+ *  word `at` of `heads` (ties by source index, for determinism). */
+export function headBefore(heads: Uint32Array, at: number, order: number, a: number, b: number): boolean {
+  let i = at + a * order;
+  let j = at + b * order;
+  const end = i + order;
+  while (i < end && heads[i] === heads[j]) {
+    i++;
+    j++;
+  }
+  return i === end ? a < b : heads[i] < heads[j];
+}
+
+/**
+ * The loser tree over k ≥ 1 sources whose heads `less` orders (ties by source index): leaves
+ * k..2k−1, the children of node p are 2p and 2p+1; `setLoser(p, s)` keeps the loser at node p
+ * (1..k−1). Returns the winner, for node 0.
+ */
+export function buildLoserTree(k: number, less: (a: number, b: number) => boolean, setLoser: (node: number, source: number) => void): number {
+  const winners = new Int32Array(2 * k);
+  for (let s = 0; s < k; s++) winners[k + s] = s;
+  for (let p = k - 1; p >= 1; p--) {
+    const a = winners[2 * p];
+    const b = winners[2 * p + 1];
+    const aWins = less(a, b);
+    winners[p] = aWins ? a : b;
+    setLoser(p, aWins ? b : a);
+  }
+  return k === 1 ? 0 : winners[1];
+}
 
 /** What mergeRuns asks of a merge state over k sources (LoserTreeMerger, WasmLoserTree). */
 export interface Merger {
@@ -61,18 +92,7 @@ const PAGE_BYTES = 65536;
 /** The memory's largest size: what 32-bit addresses reach. */
 const MEMORY_BYTES_MAX = 2 ** 32;
 
-let compiled: WebAssembly.Module | Error | undefined;
-
-function mergeModule(): WebAssembly.Module | Error {
-  if (compiled === undefined) {
-    try {
-      compiled = new WebAssembly.Module(readFileSync(new URL('./run-merge.wasm', import.meta.url)));
-    } catch (error) {
-      compiled = error instanceof Error ? error : new Error(String(error));
-    }
-  }
-  return compiled;
-}
+const mergeModule = wasmModuleAt(new URL('./run-merge.wasm', import.meta.url));
 
 export class WasmLoserTree implements Merger {
   private readonly exports: MergeExports;
@@ -198,33 +218,9 @@ export class WasmLoserTree implements Merger {
     this.f64[this.headCounts / 8 + s] = this.f64[this.windowCounts[s]];
   }
 
-  /** True when source a's head sorts before source b's (ties by source index, for determinism). */
-  private less(a: number, b: number): boolean {
-    const u32 = this.u32;
-    let i = this.heads / 4 + a * this.order;
-    let j = this.heads / 4 + b * this.order;
-    const end = i + this.order;
-    while (i < end && u32[i] === u32[j]) {
-      i++;
-      j++;
-    }
-    return i === end ? a < b : u32[i] < u32[j];
-  }
-
-  /** The tree once every source has its first block: leaves k..2k−1, children of p are 2p, 2p+1. */
   build(): void {
-    const k = this.sourceNames.length;
     const tree = this.tree / 4;
-    const winners = new Int32Array(2 * k);
-    for (let s = 0; s < k; s++) winners[k + s] = s;
-    for (let p = k - 1; p >= 1; p--) {
-      const a = winners[2 * p];
-      const b = winners[2 * p + 1];
-      const aWins = this.less(a, b);
-      winners[p] = aWins ? a : b;
-      this.u32[tree + p] = aWins ? b : a;
-    }
-    this.u32[tree] = winners[1];
+    this.u32[tree] = buildLoserTree(this.sourceNames.length, (a, b) => headBefore(this.u32, this.heads / 4, this.order, a, b), (p, loser) => { this.u32[tree + p] = loser; });
   }
 
   replay(s: number): void {

@@ -10,7 +10,7 @@
 import { assert } from '../errors.ts';
 import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX } from '../limits.ts';
 import type { RunBatch } from './run-file.ts';
-import { EXHAUSTED_ID, FILL_DONE, FILL_OUTPUT_FULL, WasmLoserTree, type MergeEngine, type Merger } from './merge-tree-wasm.ts';
+import { buildLoserTree, EXHAUSTED_ID, headBefore, FILL_DONE, FILL_OUTPUT_FULL, WasmLoserTree, type MergeEngine, type Merger } from './merge-tree-wasm.ts';
 
 /** Anything that yields sorted batches of one order: a run file, or a partition of the store. */
 export interface BatchSource {
@@ -75,33 +75,11 @@ class LoserTreeMerger implements Merger {
     return false;
   }
 
-  /** True when source a's head sorts before source b's (ties by source index, for determinism). */
-  less(a: number, b: number): boolean {
-    const heads = this.heads;
-    let i = a * this.order;
-    let j = b * this.order;
-    const end = i + this.order;
-    while (i < end && heads[i] === heads[j]) {
-      i++;
-      j++;
-    }
-    return i === end ? a < b : heads[i] < heads[j];
-  }
-
-  /** Builds the tree once every source has its first block: leaves k..2k−1, children of p are 2p, 2p+1. */
+  /** Builds the tree once every source has its first block (buildLoserTree). */
   build(): void {
     const k = this.sourceCount;
     if (k === 0) return;
-    const winners = new Int32Array(2 * k);
-    for (let s = 0; s < k; s++) winners[k + s] = s;
-    for (let p = k - 1; p >= 1; p--) {
-      const a = winners[2 * p];
-      const b = winners[2 * p + 1];
-      const aWins = this.less(a, b);
-      winners[p] = aWins ? a : b;
-      this.tree[p] = aWins ? b : a;
-    }
-    this.tree[0] = k === 1 ? 0 : winners[1];
+    this.tree[0] = buildLoserTree(k, (a, b) => headBefore(this.heads, 0, this.order, a, b), (p, loser) => { this.tree[p] = loser; });
   }
 
   /** Replays the path from source s's leaf to the root after its head changed (once per merged

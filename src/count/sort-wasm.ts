@@ -10,8 +10,8 @@
  * out of address space), the scratch is an ordinary array and the passes run in JavaScript: the
  * same sort, the same result.
  */
-import { readFileSync } from 'node:fs';
 import { assert } from '../errors.ts';
+import { wasmModuleAt } from '../wasm-module.ts';
 import { SORT_WASM_MEMORY_BYTES_MAX } from '../limits.ts';
 
 /** Which code sorts a spill's packed keys: 'auto' = WebAssembly when it can be had. */
@@ -37,19 +37,7 @@ assert(HISTOGRAM_AT + 4 * 2 ** DIGIT_BITS_MAX <= PARAMS_BYTES, 'the histogram fi
 
 type SortKeys = (source: number, target: number, n: number, keyWords: number, passes: number, passCount: number, histogram: number) => number;
 
-let compiled: WebAssembly.Module | Error | undefined;
-
-/** The compiled module (spill-sort.wasm beside this file), or why it cannot be had. */
-function sortModule(): WebAssembly.Module | Error {
-  if (compiled === undefined) {
-    try {
-      compiled = new WebAssembly.Module(readFileSync(new URL('./spill-sort.wasm', import.meta.url)));
-    } catch (error) {
-      compiled = error instanceof Error ? error : new Error(String(error));
-    }
-  }
-  return compiled;
-}
+const sortModule = wasmModuleAt(new URL('./spill-sort.wasm', import.meta.url));
 
 export class WasmSorter {
   /** The scratch: `words` 32-bit words after the parameter page. */

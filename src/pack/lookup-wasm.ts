@@ -17,8 +17,8 @@
  * (`shareable`, `modelFromShared`) run the same lookups on it, each thread with an instance of its
  * own; and it never grows (a grown memory would detach every view of it).
  */
-import { readFileSync } from 'node:fs';
 import { assert } from '../errors.ts';
+import { wasmModuleAt } from '../wasm-module.ts';
 import { LOOKUP_WASM_MEMORY_BYTES_MAX, LOOKUP_WASM_STATES_MAX, ORDER_MAX } from '../limits.ts';
 import { codeBits, type ValueEncoding } from './format.ts';
 
@@ -78,19 +78,8 @@ function align(value: number, to: number): number {
   return Math.ceil(value / to) * to;
 }
 
-let compiled: WebAssembly.Module | Error | undefined;
-
 /** The compiled module (lookup-step.wasm beside this file), or why it cannot be had. */
-function stepModule(): WebAssembly.Module | Error {
-  if (compiled === undefined) {
-    try {
-      compiled = new WebAssembly.Module(readFileSync(new URL('./lookup-step.wasm', import.meta.url)));
-    } catch (error) {
-      compiled = error instanceof Error ? error : new Error(String(error));
-    }
-  }
-  return compiled;
-}
+const stepModule = wasmModuleAt(new URL('./lookup-step.wasm', import.meta.url));
 
 /**
  * A memory for a model laid out as `layout`, or why there is none: the model is too large for 32-bit

@@ -4,28 +4,17 @@
  * block the JavaScript loop codes, for orders 1 to 7, ids of every width, counts from 1 to 2^53 − 1
  * held as float64 or uint32, blocks of one record to the largest; and it decodes to its rows.
  */
-import { spawnSync } from 'node:child_process';
-import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
-import { createRequire } from 'node:module';
-import { tmpdir } from 'node:os';
-import { join } from 'node:path';
-import { afterAll, afterEach, describe, expect, test } from 'vitest';
+import { afterEach, describe, expect, test } from 'vitest';
 import { blockBytesMax, decodeBlockValue, encodeBlock } from '../../src/count/block-codec.ts';
 import { setCodecEngine } from '../../src/count/codec-wasm.ts';
 import { RUN_BLOCK_RECORDS_MAX, RUN_COUNT_MAX } from '../../src/limits.ts';
+import { expectCommittedWasm } from '../support/committed-wasm.ts';
 import { seededRandom } from '../support/seeded.ts';
 
-const REPO = join(import.meta.dirname, '..', '..');
-const dir = mkdtempSync(join(tmpdir(), 'quern-block-codec-'));
-afterAll(() => rmSync(dir, { recursive: true, force: true }));
 afterEach(() => setCodecEngine('auto'));
 
 test('the committed block-codec.wasm is what asc (the pinned AssemblyScript) compiles from block-codec.as.ts', () => {
-  const asc = createRequire(import.meta.url).resolve('assemblyscript/bin/asc.js');
-  const out = join(dir, 'block-codec.wasm');
-  const result = spawnSync(process.execPath, [asc, 'src/count/block-codec.as.ts', '--config', 'src/count/asconfig.json', '-o', out], { cwd: REPO, encoding: 'utf8' });
-  expect(result.stderr + result.stdout).toBe('');
-  expect(readFileSync(out).equals(readFileSync(join(REPO, 'src/count/block-codec.wasm'))), 'npm run build:wasm, and commit src/count/block-codec.wasm').toBe(true);
+  expectCommittedWasm('src/count/block-codec.as.ts', 'src/count/asconfig.json', 'src/count/block-codec.wasm');
 });
 
 /** `n` strictly increasing rows of `order` ids below idMax (most sharing a prefix with the row

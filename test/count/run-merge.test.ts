@@ -1,6 +1,4 @@
-import { spawnSync } from 'node:child_process';
-import { promises as fsp, readFileSync } from 'node:fs';
-import { createRequire } from 'node:module';
+import { promises as fsp } from 'node:fs';
 import * as os from 'node:os';
 import * as path from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -10,6 +8,7 @@ import { MERGE_BATCH_RECORDS, RUN_BLOCK_RECORDS_MAX } from '../../src/limits.ts'
 import { RunReader, writeRunFile, type RunBatch } from '../../src/count/run-file.ts';
 import { mergeRuns, type BatchSource } from '../../src/count/run-merge.ts';
 import { WasmLoserTree, type MergeEngine } from '../../src/count/merge-tree-wasm.ts';
+import { expectCommittedWasm } from '../support/committed-wasm.ts';
 import { seededRandom } from '../support/seeded.ts';
 
 const prng = seededRandom;
@@ -106,12 +105,7 @@ async function expectMergeMatchesNaive(runs: Run[], order: number, engine: Merge
 
 describe('the WebAssembly loser tree', () => {
   it('is what asc (the pinned AssemblyScript) compiles from run-merge.as.ts, and merges two sources or more', () => {
-    const repo = path.join(import.meta.dirname, '..', '..');
-    const asc = createRequire(import.meta.url).resolve('assemblyscript/bin/asc.js');
-    const out = path.join(dir, 'run-merge.wasm');
-    const result = spawnSync(process.execPath, [asc, 'src/count/run-merge.as.ts', '--config', 'src/count/asconfig.json', '-o', out], { cwd: repo, encoding: 'utf8' });
-    expect(result.stderr + result.stdout).toBe('');
-    expect(readFileSync(out).equals(readFileSync(path.join(repo, 'src/count/run-merge.wasm'))), 'npm run build:wasm, and commit src/count/run-merge.wasm').toBe(true);
+    expectCommittedWasm('src/count/run-merge.as.ts', 'src/count/asconfig.json', 'src/count/run-merge.wasm');
     expect(WasmLoserTree.create(['a.run', 'b.run'], 3)).toBeInstanceOf(WasmLoserTree);
     expect(WasmLoserTree.create(['a.run'], 3)).toBeUndefined();
   });

@@ -5,31 +5,18 @@
  * including where the keys do not leave room for the WebAssembly passes (then the JavaScript ones
  * sort them).
  */
-import { spawnSync } from 'node:child_process';
-import { readFileSync } from 'node:fs';
-import { createRequire } from 'node:module';
-import { join } from 'node:path';
-import { afterAll, describe, expect, test } from 'vitest';
+import { describe, expect, test } from 'vitest';
 import { NgramCounter } from '../../src/count/counter.ts';
 import { CounterSet } from '../../src/count/counter-set.ts';
 import { ngramHash } from '../../src/count/hash.ts';
 import { spillOrder } from '../../src/count/spill-sort.ts';
 import { WasmSorter, type RadixPass } from '../../src/count/sort-wasm.ts';
 import { SORT_WASM_MEMORY_BYTES_MAX } from '../../src/limits.ts';
+import { expectCommittedWasm } from '../support/committed-wasm.ts';
 import { seededRandom } from '../support/seeded.ts';
-import { temporaryDirectory } from '../pack/support.ts';
-
-const REPO = join(import.meta.dirname, '..', '..');
-const { dir, remove } = temporaryDirectory('sort-wasm');
-afterAll(remove);
 
 test('the committed spill-sort.wasm is what asc (the pinned AssemblyScript) compiles from spill-sort.as.ts', () => {
-  const asc = createRequire(import.meta.url).resolve('assemblyscript/bin/asc.js');
-  const out = join(dir, 'spill-sort.wasm');
-  const result = spawnSync(process.execPath, [asc, 'src/count/spill-sort.as.ts', '--config', 'src/count/asconfig.json', '-o', out], { cwd: REPO, encoding: 'utf8' });
-  expect(result.stderr + result.stdout).toBe('');
-  expect(result.status).toBe(0);
-  expect(readFileSync(out).equals(readFileSync(join(REPO, 'src/count/spill-sort.wasm'))), 'npm run build:wasm, and commit src/count/spill-sort.wasm').toBe(true);
+  expectCommittedWasm('src/count/spill-sort.as.ts', 'src/count/asconfig.json', 'src/count/spill-sort.wasm');
 });
 
 /** A counter of `order` with `rows` n-grams, half their ids below 3 (so rows repeat), the rest

@@ -6,8 +6,6 @@
  * corrupt.test.ts compares both on damaged files too.)
  */
 import { spawnSync } from 'node:child_process';
-import { readFileSync } from 'node:fs';
-import { createRequire } from 'node:module';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { Worker } from 'node:worker_threads';
@@ -21,6 +19,7 @@ import { wasmLayout, wasmMemory } from '../../src/pack/lookup-wasm.ts';
 import { DecoderState, modelFromShared, openModel, type PackedModel } from '../../src/pack/reader.ts';
 import { packModel, type PackOptions } from '../../src/pack/writer.ts';
 import { estimateWith, markovCorpus, type NormalisedMethod } from '../estimate/support.ts';
+import { expectCommittedWasm } from '../support/committed-wasm.ts';
 import { walk } from '../support/walk-states.ts';
 import { temporaryDirectory } from './support.ts';
 
@@ -31,12 +30,7 @@ const { dir, remove } = temporaryDirectory('wasm');
 afterAll(remove);
 
 test('the committed lookup-step.wasm is what asc (the pinned AssemblyScript) compiles from lookup-step.as.ts', () => {
-  const asc = createRequire(import.meta.url).resolve('assemblyscript/bin/asc.js');
-  const out = join(dir, 'step.wasm');
-  const result = spawnSync(process.execPath, [asc, 'src/pack/lookup-step.as.ts', '--config', 'src/pack/asconfig.json', '-o', out], { cwd: REPO, encoding: 'utf8' });
-  expect(result.stderr + result.stdout).toBe('');
-  expect(result.status).toBe(0);
-  expect(readFileSync(out).equals(readFileSync(join(REPO, 'src/pack/lookup-step.wasm'))), 'npm run build:wasm, and commit src/pack/lookup-step.wasm').toBe(true);
+  expectCommittedWasm('src/pack/lookup-step.as.ts', 'src/pack/asconfig.json', 'src/pack/lookup-step.wasm');
 });
 
 const train = markovCorpus(31, 400, 60, 14);

@@ -95,7 +95,8 @@ export const MERGE_FAN_IN_MAX = 64;
 
 /** Rows of a source the WebAssembly merge (src/count/merge-tree-wasm.ts) holds at once: its copy of
  *  a block is made this many rows at a time, so a merge of k sources of order n holds
- *  k × 1,024 × (4n + 8) bytes of them (144 KiB per source at order 5) besides its output batch. */
+ *  k × 1,024 × (4n + 8) bytes of them (28 KiB per source at order 5) besides its output batch of
+ *  MERGE_BATCH_RECORDS rows (224 KiB at order 5). */
 export const MERGE_WINDOW_RECORDS = 1024;
 
 
@@ -384,10 +385,10 @@ export const ARPA_WRITE_BYTES = 1 << 20;
  *  allows that much): a larger model is read into buffers and answered by the JavaScript lookups. */
 export const LOOKUP_WASM_MEMORY_BYTES_MAX = 2 ** 32;
 
-/** The spill sort's scratch in a WebAssembly memory (src/count/sort-wasm.ts) is addressed with
- *  32 bits: 4 GiB at most (2^16 pages of 64 KiB), its parameter page included. A larger scratch (a
- *  worker's budget of many GiB) is an ordinary array, sorted by the JavaScript passes. */
-export const SORT_WASM_MEMORY_BYTES_MAX = 2 ** 32;
+/** The count's WebAssembly memories (src/wasm-module.ts: the spill sort's scratch, a merge's, the
+ *  block coder's) are addressed with 32 bits: 4 GiB at most (2^16 pages of 64 KiB). A larger spill
+ *  scratch (a worker's budget of many GiB) is an ordinary array, sorted by the JavaScript passes. */
+export const WASM_MEMORY_BYTES_MAX = 2 ** 32;
 
 /** Decoder states (`newState`) whose rows live in a model's WebAssembly memory at once, 256 bytes
  *  each (1 MiB for all), for all threads together (each takes 64 at a time): `step` then works on

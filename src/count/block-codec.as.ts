@@ -1,7 +1,7 @@
 /**
  * The records of a block (block-codec.ts, `encodeBlock`) coded in WebAssembly: AssemblyScript,
  * compiled by `npm run build:wasm` into block-codec.wasm beside it (committed;
- * test/count/run-file.test.ts checks that it is what this source compiles to). The JavaScript side
+ * test/count/block-codec.test.ts checks that it is what this source compiles to). The JavaScript side
  * (codec-wasm.ts) copies a block's ids and counts in and the coded bytes out; the header and the
  * checksum stay in block-codec.ts. The bytes are encodeBlock's: the first record's count, then per
  * record the shared prefix length, the delta of the first differing id, the other ids and the

@@ -1,26 +1,19 @@
 /**
  * `encodeBlock`'s record loop in WebAssembly (block-codec.wasm, compiled from block-codec.as.ts by
  * `npm run build:wasm`): a block's ids and counts are copied into a memory of this thread's, coded
- * there, and the bytes copied out — the same bytes (test/count/run-file.test.ts). One memory per
+ * there, and the bytes copied out — the same bytes (test/count/block-codec.test.ts). One memory per
  * thread, made at the first block and kept: room for the largest block (RUN_BLOCK_RECORDS_MAX
  * records of ORDER_MAX ids, ~0.6 MiB). Where it cannot be had, block-codec.ts codes in JavaScript.
  */
-import { ORDER_MAX, RUN_BLOCK_RECORDS_MAX } from '../limits.ts';
-import { wasmModuleAt } from '../wasm-module.ts';
-
-/** Which code codes a block's records: 'auto' = WebAssembly when it can be had. */
-export type CodecEngine = 'auto' | 'js';
+import { ORDER_MAX, RUN_BLOCK_RECORDS_MAX, RUN_RECORD_BYTES_MAX } from '../limits.ts';
+import { instanceWithMemory, wasmModuleAt, type WasmEngine } from '../wasm-module.ts';
 
 type EncodeRecords = (keys: number, counts: number, n: number, order: number, out: number) => number;
 
-const PAGE_BYTES = 65536;
 const KEYS_AT = 0;
 const COUNTS_AT = KEYS_AT + 4 * ORDER_MAX * RUN_BLOCK_RECORDS_MAX;
 const OUT_AT = COUNTS_AT + 8 * RUN_BLOCK_RECORDS_MAX;
-/** Coded bytes of a record at most (block-codec.ts, recordBytesMax(ORDER_MAX)): a shared-prefix
- *  byte, ORDER_MAX ids of up to 5 bytes, a count of up to 8. */
-const RECORD_BYTES_MAX = 1 + 5 * ORDER_MAX + 8;
-const MEMORY_BYTES = OUT_AT + RECORD_BYTES_MAX * RUN_BLOCK_RECORDS_MAX;
+const MEMORY_BYTES = OUT_AT + RUN_RECORD_BYTES_MAX * RUN_BLOCK_RECORDS_MAX;
 
 class WasmEncoder {
   private readonly u32: Uint32Array;
@@ -49,24 +42,16 @@ let encoder: WasmEncoder | null | undefined;
 /** This thread's WebAssembly coder, or null when it cannot be had. */
 function wasmEncoder(): WasmEncoder | null {
   if (encoder === undefined) {
-    try {
-      const module = codecModule();
-      if (module instanceof Error) throw module;
-      const pages = Math.ceil(MEMORY_BYTES / PAGE_BYTES);
-      const memory = new WebAssembly.Memory({ initial: pages, maximum: pages });
-      const instance = new WebAssembly.Instance(module, { env: { memory } });
-      encoder = new WasmEncoder(memory, instance.exports.encodeRecords as EncodeRecords);
-    } catch {
-      encoder = null;
-    }
+    const made = instanceWithMemory(codecModule(), MEMORY_BYTES);
+    encoder = made instanceof Error ? null : new WasmEncoder(made.memory, made.instance.exports.encodeRecords as EncodeRecords);
   }
   return encoder;
 }
 
-let engineChosen: CodecEngine = 'auto';
+let engineChosen: WasmEngine = 'auto';
 
 /** Chooses the code for the blocks coded from now on in this thread (tests compare the two). */
-export function setCodecEngine(engine: CodecEngine): void {
+export function setCodecEngine(engine: WasmEngine): void {
   engineChosen = engine;
 }
 

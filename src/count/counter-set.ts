@@ -14,7 +14,8 @@
 import { assert } from '../errors.ts';
 import { COUNTER_APPEND_DISTINCT_MIN, COUNTER_LOG_ROWS_MIN, COUNTER_PRESIZE_SHRINK_FACTOR, COUNTER_SLOTS_MIN } from '../limits.ts';
 import { filterBitsFor, NgramCounter } from './counter.ts';
-import { WasmSorter, type SortEngine } from './sort-wasm.ts';
+import { WasmSorter } from './sort-wasm.ts';
+import type { WasmEngine } from '../wasm-module.ts';
 import { combine32, HASH_SEED, ngramHash } from './hash.ts';
 
 /** The sizes of one counter's structures. */
@@ -88,7 +89,7 @@ export interface CounterSetOptions {
    *  COUNTER_APPEND_DISTINCT_MIN distinct n-grams per occurrence. Without it, none ever is. */
   appendFrom?: number;
   /** Which code sorts the spills' packed keys (sort-wasm.ts); default 'auto'. */
-  sortEngine?: SortEngine;
+  sortEngine?: WasmEngine;
 }
 
 export class CounterSet {
@@ -97,7 +98,7 @@ export class CounterSet {
   private scratch: Uint32Array | undefined;
   /** The WebAssembly sort whose memory holds `scratch`, when it does. */
   private sorter: WasmSorter | undefined;
-  private readonly sortEngine: SortEngine;
+  private readonly sortEngine: WasmEngine;
   /** addSentences' running hash of each position, from one order to the next. */
   private hashes = new Int32Array(1 << 12);
 

@@ -8,6 +8,27 @@
  * BENCHMARKS.md).
  */
 
+/** One radix pass over rows or keys: the digit is (row[word] >>> shift) & (2^bits − 1). */
+export interface RadixPass {
+  word: number;
+  shift: number;
+  bits: number;
+}
+
+/**
+ * The LSD passes that sort rows by `idCount` ids from word `firstWord` on, each below 2^idBits: the
+ * last id first, as few passes per id as idBits needs, digits of at most `digitBitsMax` bits,
+ * balanced (the spill sort's rows with counts, spill-sort.ts; the suffixes of the local continuation
+ * counts, local-continuation.ts).
+ */
+export function idRadixPasses(idBits: number, firstWord: number, idCount: number, digitBitsMax: number): { passes: RadixPass[]; passesPerId: number; digitBits: number } {
+  const passesPerId = Math.ceil(idBits / digitBitsMax);
+  const digitBits = Math.ceil(idBits / passesPerId);
+  const passes: RadixPass[] = [];
+  for (let k = firstWord + idCount - 1; k >= firstWord; k--) for (let q = 0; q < passesPerId; q++) passes.push({ word: k, shift: q * digitBits, bits: digitBits });
+  return { passes, passesPerId, digitBits };
+}
+
 /**
  * Moves rows begin..end of `source` into `target`, row r to row `offsets[digit(r)]++`, where
  * digit(r) = (source[r·stride + word] >>> shift) & mask: one stable counting pass. `offsets` holds

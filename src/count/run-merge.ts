@@ -10,7 +10,9 @@
 import { assert } from '../errors.ts';
 import { MERGE_BATCH_RECORDS, RUN_COUNT_MAX } from '../limits.ts';
 import type { RunBatch } from './run-file.ts';
-import { buildLoserTree, EXHAUSTED_ID, headBefore, FILL_DONE, FILL_OUTPUT_FULL, WasmLoserTree, type MergeEngine, type Merger } from './merge-tree-wasm.ts';
+import { buildLoserTree, EXHAUSTED_ID, FILL_DONE, FILL_OUTPUT_FULL, headBefore, type Merger } from './loser-tree.ts';
+import { WasmLoserTree } from './merge-tree-wasm.ts';
+import type { WasmEngine } from '../wasm-module.ts';
 
 /** Anything that yields sorted batches of one order: a run file, or a partition of the store. */
 export interface BatchSource {
@@ -192,7 +194,7 @@ class LoserTreeMerger implements Merger {
  * WebAssembly loser tree (`WasmLoserTree`) unless `engine` is 'js' or no WebAssembly memory can be
  * had: the same output, record for record.
  */
-export async function* mergeRuns(readers: BatchSource[], order: number, engine: MergeEngine = 'auto'): AsyncGenerator<RunBatch> {
+export async function* mergeRuns(readers: BatchSource[], order: number, engine: WasmEngine = 'auto'): AsyncGenerator<RunBatch> {
   try {
     for (const reader of readers) {
       assert(reader.order === order, `source ${reader.name} has order ${reader.order}, merge expects ${order}`);

@@ -1,6 +1,6 @@
 /**
  * The spill sort's scratch in a WebAssembly memory, and the radix passes of its packed keys run
- * there by spill-sort.wasm (compiled from spill-sort.as.ts by `npm run build:wasm`): 2.5–2.7× the
+ * there by spill-sort.wasm (compiled from spill-sort.as.ts by `npm run build:wasm`): 2.6–2.9× the
  * speed of the same passes in JavaScript on the benchmark corpus's partitions (BENCHMARKS.md).
  *
  * The memory: one 64 KiB page of parameters (the passes at 0, a histogram at 4 KiB), then the
@@ -11,22 +11,11 @@
  * same sort, the same result.
  */
 import { assert } from '../errors.ts';
-import { wasmModuleAt } from '../wasm-module.ts';
-import { SORT_WASM_MEMORY_BYTES_MAX } from '../limits.ts';
+import { instanceWithMemory, wasmModuleAt } from '../wasm-module.ts';
+import type { RadixPass } from './radix.ts';
 
-/** Which code sorts a spill's packed keys: 'auto' = WebAssembly when it can be had. */
-export type SortEngine = 'auto' | 'js';
-
-/** One radix pass: the digit is (key[word] >>> shift) & (2^bits − 1). */
-export interface RadixPass {
-  word: number;
-  shift: number;
-  bits: number;
-}
-
-const PAGE_BYTES = 65536;
 /** The parameter page: the passes from byte 0 (12 bytes each), the histogram from HISTOGRAM_AT. */
-const PARAMS_BYTES = PAGE_BYTES;
+const PARAMS_BYTES = 65536;
 const HISTOGRAM_AT = 4096;
 const PASS_WORDS = 3;
 /** Passes the parameter page holds: (HISTOGRAM_AT / 12); a key of 8 words has at most 24. */
@@ -54,18 +43,9 @@ export class WasmSorter {
   /** A scratch of `words` words in a WebAssembly memory, or why there is none. */
   static create(words: number): WasmSorter | Error {
     assert(Number.isInteger(words) && words >= 0, `a scratch of ${words} words`);
-    const bytes = PARAMS_BYTES + 4 * words;
-    if (bytes > SORT_WASM_MEMORY_BYTES_MAX) return new Error(`a sort scratch of ${bytes} bytes is over the WebAssembly memory's ${SORT_WASM_MEMORY_BYTES_MAX}`);
-    const module = sortModule();
-    if (module instanceof Error) return new Error(`the WebAssembly sort cannot be loaded: ${module.message}`);
-    const pages = Math.ceil(bytes / PAGE_BYTES);
-    try {
-      const memory = new WebAssembly.Memory({ initial: pages, maximum: pages });
-      const instance = new WebAssembly.Instance(module, { env: { memory } });
-      return new WasmSorter(memory, words, instance.exports.sortKeys as SortKeys);
-    } catch (error) {
-      return new Error(`no WebAssembly memory of ${bytes} bytes: ${(error as Error).message}`);
-    }
+    const made = instanceWithMemory(sortModule(), PARAMS_BYTES + 4 * words);
+    if (made instanceof Error) return new Error(`no WebAssembly sort scratch: ${made.message}`);
+    return new WasmSorter(made.memory, words, made.instance.exports.sortKeys as SortKeys);
   }
 
   /**

@@ -8,7 +8,7 @@
  * The passes are packedOrder's, in the same order, each a stable counting pass, so the result is the
  * same permutation bit for bit; a pass whose digit is the same for every key moves nothing. What the
  * module gains over the JavaScript loop is moving a key in one or two wide loads and stores, with
- * no bounds checks (2.5–2.7× on the benchmark corpus's partitions; BENCHMARKS.md).
+ * no bounds checks (2.6–2.9× on the benchmark corpus's partitions; BENCHMARKS.md).
  */
 
 /** Bytes of one pass's description at `passes`: key word, shift, digit bits (u32 each). */

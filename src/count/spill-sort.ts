@@ -22,9 +22,9 @@
 import { assert } from '../errors.ts';
 import { PARTITION_TABLE_IDS_MAX } from '../limits.ts';
 import { partitionKeyIndex, partitionOf, partitionOfKey } from './hash.ts';
-import { scatterRows } from './radix.ts';
+import { idRadixPasses, scatterRows, type RadixPass } from './radix.ts';
 import type { NgramCounter } from './counter.ts';
-import type { RadixPass, WasmSorter } from './sort-wasm.ts';
+import type { WasmSorter } from './sort-wasm.ts';
 
 /** Widest radix digit: 2^11 histogram buckets stay in the first-level cache. */
 const RADIX_BITS_MAX = 11;
@@ -92,9 +92,10 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
   // Rows that are all of count 1 and hold no table entry (an append-only counter's log) are
   // sorted as packed keys, without their counts (packedOrder); the others as rows, below.
   const packed = counter.logged && counter.tableSize === 0 && countsAllOne && order >= 2;
+  const inScratch = sorter?.words === scratch ? sorter : undefined;
   const { records, outputs } = packed
-    ? packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, sorter?.words === scratch ? sorter : undefined)
-    : rowOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, counter.logged, sorter?.words === scratch ? sorter : undefined);
+    ? packedOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, inScratch)
+    : rowOrder(front, scratch, m, order, idBits, partitions, partitionOfRow, partitionStarts, counter.logged, inScratch);
   noteDistinctShare(counter, records);
   return {
     recordsOf: (p) => records[p],
@@ -104,6 +105,13 @@ export function spillOrder(counter: NgramCounter, partitions: number, idMax: num
       return outputs[p].subarray(countsAt, countsAt + records[p]);
     },
   };
+}
+
+/** The rows of the largest partition. */
+function largestPartition(partitionStarts: Uint32Array, partitions: number): number {
+  let largest = 0;
+  for (let p = 0; p < partitions; p++) largest = Math.max(largest, partitionStarts[p + 1] - partitionStarts[p]);
+  return largest;
 }
 
 /** Steps 2–4's result: the records per partition, and the array (front or scratch) each
@@ -125,9 +133,7 @@ function rowOrder(
   partitionOfRow: Uint16Array, partitionStarts: Uint32Array, merge: boolean, sorter?: WasmSorter,
 ): RowOrder {
   const stride = order + 1;
-  let largest = 0;
-  for (let p = 0; p < partitions; p++) largest = Math.max(largest, partitionStarts[p + 1] - partitionStarts[p]);
-  const wasm = sorter !== undefined && stride * (m + largest) <= scratch.length ? sorter : undefined;
+  const wasm = sorter !== undefined && stride * (m + largestPartition(partitionStarts, partitions)) <= scratch.length ? sorter : undefined;
   // 2. By partition, front → scratch.
   const next = partitionStarts.slice(0, partitions);
   for (let j = 0; j < m; j++) {
@@ -138,16 +144,14 @@ function rowOrder(
 
   // 3. Radix passes per partition; 4. rows into ids and counts (into the other buffer), equal
   // n-grams (a log row and a table row) added up.
-  const passesPerId = Math.ceil(idBits / RADIX_BITS_MAX);
-  const digitBits = Math.ceil(idBits / passesPerId);
+  // The ids are words 1..order of a row (word 0 is its count).
+  const { passes: wasmPasses, passesPerId, digitBits } = idRadixPasses(idBits, 1, order, RADIX_BITS_MAX);
   const buckets = 1 << digitBits;
   // One histogram per pass, all filled by one read of the partition's rows (digitHistograms): a
   // pass then reads its rows once, to move them, instead of twice.
   const histograms = new Uint32Array(order * passesPerId * buckets);
   const outputs: Uint32Array[] = [];
   const records = new Uint32Array(partitions);
-  const wasmPasses: RadixPass[] = [];
-  for (let k = order; k >= 1; k--) for (let pass = 0; pass < passesPerId; pass++) wasmPasses.push({ word: k, shift: pass * digitBits, bits: digitBits });
   for (let p = 0; p < partitions; p++) {
     const begin = partitionStarts[p];
     const end = partitionStarts[p + 1];
@@ -204,9 +208,7 @@ function packedOrder(
     idShift[i] = low & 31;
     idSplit[i] = (low & 31) + idBits > 32 ? 1 : 0;
   }
-  let largest = 0;
-  for (let p = 0; p < partitions; p++) largest = Math.max(largest, partitionStarts[p + 1] - partitionStarts[p]);
-  const wasm = sorter !== undefined && K * (m + largest) <= scratch.length ? sorter : undefined;
+  const wasm = sorter !== undefined && K * (m + largestPartition(partitionStarts, partitions)) <= scratch.length ? sorter : undefined;
   // Where partition p's keys lie in the scratch: packed one after the other for the WebAssembly
   // passes, else at partition p's rows.
   const keysAt = new Float64Array(partitions);

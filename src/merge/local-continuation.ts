@@ -15,10 +15,11 @@
  */
 import { assert } from '../errors.ts';
 import type { BatchSource } from '../count/run-merge.ts';
-import { scatterRows } from '../count/radix.ts';
+import { idRadixPasses, scatterRows } from '../count/radix.ts';
 import type { RunBatch } from '../count/run-file.ts';
 import type { PartitionStore } from './store.ts';
-import { WasmSorter, type RadixPass, type SortEngine } from '../count/sort-wasm.ts';
+import { WasmSorter } from '../count/sort-wasm.ts';
+import type { WasmEngine } from '../wasm-module.ts';
 
 /** Records per batch handed to the merge. */
 const LOCAL_BATCH_RECORDS = 8192;
@@ -72,7 +73,7 @@ export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, wid
     idBitsAll = 0;
     for (let j = 0; j < n * width; j++) idBitsAll |= rows[j];
   }
-  const { passesPerId, digitBits } = rowDigits(idBitsAll);
+  const { passesPerId, digitBits } = rowPasses(width, idBitsAll);
   const buckets = 1 << digitBits;
   const mask = buckets - 1;
   // histograms[((k · passesPerId) + q) · buckets + d]: rows whose id k has digit d in pass q.
@@ -112,20 +113,9 @@ export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, wid
   return src;
 }
 
-/** The digits `sortRows` sorts ids whose bits, ORed, are `idBitsAll` by: as few passes per id as
- *  ids of that many bits need, digits of at most SORT_DIGIT_BITS bits, balanced. */
-function rowDigits(idBitsAll: number): { passesPerId: number; digitBits: number } {
-  const idBits = Math.max(1, 32 - Math.clz32(idBitsAll));
-  const passesPerId = Math.ceil(idBits / SORT_DIGIT_BITS);
-  return { passesPerId, digitBits: Math.ceil(idBits / passesPerId) };
-}
-
-/** `sortRows`' passes, in the order it makes them, for the WebAssembly sort. */
-function rowPasses(width: number, idBitsAll: number): RadixPass[] {
-  const { passesPerId, digitBits } = rowDigits(idBitsAll);
-  const passes: RadixPass[] = [];
-  for (let k = width - 1; k >= 0; k--) for (let q = 0; q < passesPerId; q++) passes.push({ word: k, shift: q * digitBits, bits: digitBits });
-  return passes;
+/** The passes `sortRows` makes for rows of `width` ids whose bits, ORed, are `idBitsAll`. */
+function rowPasses(width: number, idBitsAll: number): ReturnType<typeof idRadixPasses> {
+  return idRadixPasses(Math.max(1, 32 - Math.clz32(idBitsAll)), 0, width, SORT_DIGIT_BITS);
 }
 
 /**
@@ -135,7 +125,7 @@ function rowPasses(width: number, idBitsAll: number): RadixPass[] {
  * is 'js' or no such memory can be had.
  */
 export function suffixCountsBySort(
-  higher: Iterable<{ keys: Uint32Array; recordCount: number }>, n: number, order: number, engine: SortEngine = 'auto',
+  higher: Iterable<{ keys: Uint32Array; recordCount: number }>, n: number, order: number, engine: WasmEngine = 'auto',
 ): { keys: Uint32Array; counts: Uint32Array; size: number } {
   const sorter = engine === 'js' ? undefined : WasmSorter.create(2 * n * order);
   const wasm = sorter instanceof WasmSorter ? sorter : undefined;
@@ -160,7 +150,7 @@ export function suffixCountsBySort(
   assert(filled === n, `${n} rows of order ${stride} expected, ${filled} read`);
   let sorted: Uint32Array;
   if (wasm !== undefined) {
-    const at = wasm.sortKeys(0, n * order, n, order, rowPasses(order, idBitsAll)) ? n * order : 0;
+    const at = wasm.sortKeys(0, n * order, n, order, rowPasses(order, idBitsAll).passes) ? n * order : 0;
     sorted = wasm.words.subarray(at, at + n * order);
   } else {
     sorted = sortRows(suffixes, new Uint32Array(n * order), n, order, idBitsAll);

@@ -70,9 +70,12 @@ function readProcLimits(): string | undefined {
   }
 }
 
+/** This process's limit, read once (every store open checks it). */
+let processLimit: { bytes: number | undefined } | undefined;
+
 /** Throws a 'limit' QuernError when this process's address space is too small for the count store
  *  (STORE_ADDRESS_SPACE_MIN): LMDB would crash it instead of failing. */
-export function checkStoreAddressSpace(limit = addressSpaceLimit()): void {
+export function checkStoreAddressSpace(limit = (processLimit ??= { bytes: addressSpaceLimit() }).bytes): void {
   if (limit !== undefined && limit < STORE_ADDRESS_SPACE_MIN) {
     throw new QuernError('limit', `the count store maps ${STORE_MAP_BYTES / 2 ** 40} TiB of address space per partition (LMDB, pages read as needed), and this process may use ${(limit / 2 ** 30).toFixed(1)} GiB of address space in all (ulimit -v): raise the limit, e.g. ulimit -v unlimited`);
   }

@@ -7,7 +7,8 @@ import { nodeFs } from '../../src/job/fsio.ts';
 import { MERGE_BATCH_RECORDS, RUN_BLOCK_RECORDS_MAX } from '../../src/limits.ts';
 import { RunReader, writeRunFile, type RunBatch } from '../../src/count/run-file.ts';
 import { mergeRuns, type BatchSource } from '../../src/count/run-merge.ts';
-import { WasmLoserTree, type MergeEngine } from '../../src/count/merge-tree-wasm.ts';
+import { WasmLoserTree } from '../../src/count/merge-tree-wasm.ts';
+import type { WasmEngine } from '../../src/wasm-module.ts';
 import { expectCommittedWasm } from '../support/committed-wasm.ts';
 import { seededRandom } from '../support/seeded.ts';
 
@@ -92,7 +93,7 @@ async function collect(batches: AsyncIterable<RunBatch>, order: number): Promise
   return { keys, counts, batchSizes };
 }
 
-async function expectMergeMatchesNaive(runs: Run[], order: number, engine: MergeEngine): Promise<number[]> {
+async function expectMergeMatchesNaive(runs: Run[], order: number, engine: WasmEngine): Promise<number[]> {
   const expected = naiveMerge(runs, order);
   const readers = await openRuns(runs, order);
   const out = await collect(mergeRuns(readers, order, engine), order);

@@ -10,8 +10,9 @@ import { NgramCounter } from '../../src/count/counter.ts';
 import { CounterSet } from '../../src/count/counter-set.ts';
 import { ngramHash } from '../../src/count/hash.ts';
 import { spillOrder } from '../../src/count/spill-sort.ts';
-import { WasmSorter, type RadixPass } from '../../src/count/sort-wasm.ts';
-import { SORT_WASM_MEMORY_BYTES_MAX } from '../../src/limits.ts';
+import { WasmSorter } from '../../src/count/sort-wasm.ts';
+import type { RadixPass } from '../../src/count/radix.ts';
+import { WASM_MEMORY_BYTES_MAX } from '../../src/limits.ts';
 import { expectCommittedWasm } from '../support/committed-wasm.ts';
 import { seededRandom } from '../support/seeded.ts';
 
@@ -140,7 +141,7 @@ describe('WasmSorter', () => {
     expect(() => sorter.sortKeys(0, 50, 10, 2, [{ word: 2, shift: 0, bits: 8 }])).toThrow(/radix pass/);
     expect(() => sorter.sortKeys(0, 50, 10, 2, [{ word: 0, shift: 32, bits: 8 }])).toThrow(/radix pass/);
     expect(() => sorter.sortKeys(0, 95, 10, 2, [{ word: 0, shift: 0, bits: 8 }])).toThrow(/within a scratch/);
-    const tooLarge = WasmSorter.create(SORT_WASM_MEMORY_BYTES_MAX / 4);
+    const tooLarge = WasmSorter.create(WASM_MEMORY_BYTES_MAX / 4);
     expect(tooLarge).toBeInstanceOf(Error);
     expect((tooLarge as Error).message).toMatch(/over the WebAssembly memory/);
   });

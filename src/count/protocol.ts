@@ -26,13 +26,14 @@ export interface WorkerInit {
    *  entry → id map of each word table they use; a chunk without both is read from its text. */
   tokenFiles?: Array<TokenFileRecord | null>;
   tokenMaps?: Record<number, Uint32Array>;
-  /** count phase: words by id (index 0 = `<s>`). */
-  words?: string[];
+  /** count phase: the sha256 of the job's vocab.tsv, which a worker reads (and checks) only when
+   *  it reads a chunk from its text rather than its token file. */
+  vocabSha256?: string;
   eosId?: number;
   unkId?: number;
   /** count and continuation-emit phases: the budget of this worker's counters. */
   counterBytesMax?: number;
-  /** continuation-emit and remap phases: vocabulary size + 1 (bounds word ids). */
+  /** count, continuation-emit and remap phases: vocabulary size + 1 (bounds word ids). */
   idMax?: number;
   /** remap phase: idMap[oldId] = newId, and the first spill number of the new runs. */
   idMap?: Uint32Array;
@@ -97,10 +98,14 @@ export interface CountGroupDone {
 /** Sent once at 'finish' by a vocabulary worker: its word counts over all its chunks. */
 export interface VocabFinished {
   type: 'finished';
-  /** This worker's word table, as token files name it; `words` are its entries from 3 on. */
+  /** This worker's word table, as token files name it; its words are its entries from 3 on. */
   table: number;
-  words: string[];
-  counts: number[];
+  /** The words' UTF-8 bytes end to end: word i is wordBytes[wordEnds[i − 1] (0 for i = 0) ..
+   *  wordEnds[i]). */
+  wordBytes: Uint8Array;
+  wordEnds: Uint32Array;
+  /** counts[i]: the occurrences of word i in this worker's chunks. */
+  counts: Float64Array;
   unkSeen: number;
 }
 

@@ -9,7 +9,9 @@ import { QuernError } from '../errors.ts';
 import { PROCESS_OVERHEAD_BYTES, VOCAB_BYTES_PER_TYPE, WORKER_COUNTER_BYTES_MIN, WORKER_OVERHEAD_BYTES } from '../limits.ts';
 import { TextPieces } from '../corpus/text-pieces.ts';
 import { isChunkPiece, isTextRange, type Chunk, type InputFile, type ReadStats } from '../corpus/types.ts';
-import { buildVocabulary, formatVocabulary, parseVocabulary, type Vocabulary } from '../corpus/vocabulary.ts';
+import { buildRankedVocabulary, formatVocabularyBytes, parseVocabulary, type Vocabulary } from '../corpus/vocabulary.ts';
+import { WordListMerger } from '../corpus/word-merge.ts';
+import { PREVIOUS_VOCAB_FILE, readVocabularyFile, VOCAB_FILE } from './vocab-file.ts';
 import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
 import type { JobManifest } from '../job/manifest.ts';
@@ -20,7 +22,7 @@ import { RUNS_DIR } from './run-layout.ts';
 import { tokenMapPath, TOKENS_DIR, type TokenFileRecord } from './token-file.ts';
 import { RESERVED_WORDS } from '../corpus/byte-tokenizer.ts';
 
-export const VOCAB_FILE = 'vocab.tsv';
+export { PREVIOUS_VOCAB_FILE, VOCAB_FILE } from './vocab-file.ts';
 
 /** Splits the memory budget: what each worker's counters may use, after its vocabulary copy. */
 export function counterBudgetPerWorker(memoryBytes: number, workers: number, vocabTypes: number): number {
@@ -59,34 +61,17 @@ async function listRunFiles(jobDir: string): Promise<string[]> {
 }
 
 /** Reads the job's vocabulary, checking it against the checksum in job.json. */
-export async function readJobVocabulary(jobDir: string, job: JobManifest): Promise<Vocabulary> {
-  const file = path.join(jobDir, VOCAB_FILE);
-  const bytes = await fsp.readFile(file).catch((cause) => {
-    throw new QuernError('io', `cannot read ${file}: ${(cause as Error).message}`, { cause });
-  });
-  const sha256 = createHash('sha256').update(bytes).digest('hex');
-  if (sha256 !== job.stages.vocab.sha256) {
-    throw new QuernError('corrupt', `${file} does not match the checksum recorded in job.json; re-run the count with --restart`);
-  }
-  return parseVocabulary(bytes.toString('utf8'), file);
+export function readJobVocabulary(jobDir: string, job: JobManifest): Promise<Vocabulary> {
+  return readVocabularyFile(path.join(jobDir, VOCAB_FILE), job.stages.vocab.sha256);
 }
 
 function chunkBytes(chunks: Chunk[]): number {
   return chunks.reduce((sum, c) => sum + c.byteEnd - c.byteStart, 0);
 }
 
-export const PREVIOUS_VOCAB_FILE = 'vocab.previous.tsv';
-
 /** Reads the vocabulary as it was before inputs were added (kept until the runs are re-keyed). */
-export async function readPreviousVocabulary(jobDir: string, job: JobManifest): Promise<Vocabulary> {
-  const file = path.join(jobDir, PREVIOUS_VOCAB_FILE);
-  const bytes = await fsp.readFile(file).catch((cause) => {
-    throw new QuernError('io', `cannot read ${file}: ${(cause as Error).message}`, { cause });
-  });
-  if (createHash('sha256').update(bytes).digest('hex') !== job.stages.vocab.previousSha) {
-    throw new QuernError('corrupt', `${file} does not match the checksum recorded in job.json; re-run the count with --restart`);
-  }
-  return parseVocabulary(bytes.toString('utf8'), file);
+export function readPreviousVocabulary(jobDir: string, job: JobManifest): Promise<Vocabulary> {
+  return readVocabularyFile(path.join(jobDir, PREVIOUS_VOCAB_FILE), job.stages.vocab.previousSha);
 }
 
 /**
@@ -100,14 +85,14 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
   if (job.stages.vocab.status === 'done') return undefined;
   const started = Date.now();
   const reads: Array<ReadStats | null> = Array.from({ length: job.chunks.length }, (_, i) => job.stages.vocab.reads?.[i] ?? null);
-  const wordCounts = new Map<string, number>();
+  const merger = new WordListMerger();
   let unkSeen = 0;
   if (job.stages.vocab.previousSha !== undefined) {
     const previous = await readPreviousVocabulary(jobDir, job);
     for (let id = 1; id < previous.words.length; id++) {
       if (id === previous.eosId) continue;
       if (id === previous.unkId) unkSeen += previous.counts[id];
-      else wordCounts.set(previous.words[id], previous.counts[id]);
+      else merger.addWord(previous.words[id], previous.counts[id]);
     }
   }
   const todo = job.chunks.filter((c) => reads[c.index] === null);
@@ -118,7 +103,7 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
   const writeTokenFiles = ctx.tokenFiles || job.chunks.some(isTextRange);
   if (writeTokenFiles) await ctx.fs.mkdir(path.join(jobDir, TOKENS_DIR));
   const tokenFiles: Array<TokenFileRecord | null> = job.chunks.map(() => null);
-  const tables: Array<{ table: number; words: string[] }> = [];
+  const tables: WorkerWords[] = [];
   ctx.progress.start('vocabulary', chunkBytes(todo));
   // Ranges of a gzip input's text go to the workers with their bytes, cut again here.
   const tasks = todo.some(isTextRange) ? new TextRangeTasks(job.inputs, todo, job.config.chunkBytes) : todo;
@@ -131,26 +116,22 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
       if (done.tokenFile) tokenFiles[done.chunk] = done.tokenFile;
     },
     onFinished: (finished) => {
-      for (let i = 0; i < finished.words.length; i++) {
-        const word = finished.words[i];
-        wordCounts.set(word, (wordCounts.get(word) ?? 0) + finished.counts[i]);
-      }
+      tables.push({ table: finished.table, into: merger.addList(finished.wordBytes, finished.wordEnds, finished.counts) });
       unkSeen += finished.unkSeen;
-      tables.push({ table: finished.table, words: finished.words });
     },
   }).finally(async () => {
     ctx.progress.stop();
     if (tasks instanceof TextRangeTasks) await tasks.close();
   });
   const sentences = reads.reduce((sum, r) => sum + r!.sentences, 0);
-  const vocab = buildVocabulary(wordCounts, sentences, unkSeen, job.config.vocabCap);
-  const text = formatVocabulary(vocab);
+  const { vocab, idOf } = buildRankedVocabulary(merger.wordCounts(), sentences, unkSeen, job.config.vocabCap);
+  const text = formatVocabularyBytes(vocab);
   await writeFileAtomic(ctx.fs, path.join(jobDir, VOCAB_FILE), text);
-  const tokens = writeTokenFiles ? { files: tokenFiles, maps: await writeTokenMaps(ctx, vocab, tables) } : undefined;
+  const tokens = writeTokenFiles ? { files: tokenFiles, maps: await writeTokenMaps(ctx, vocab, idOf, tables) } : undefined;
   job.stages.vocab = {
     ...(job.stages.vocab.previousSha !== undefined ? { previousSha: job.stages.vocab.previousSha } : {}),
     status: 'done',
-    sha256: createHash('sha256').update(text, 'utf8').digest('hex'),
+    sha256: createHash('sha256').update(text).digest('hex'),
     types: vocab.words.length - 1,
     reads,
     ...(tokens ? { tokens } : {}),
@@ -160,18 +141,25 @@ export async function vocabStage(ctx: StageContext): Promise<Vocabulary | undefi
   return vocab;
 }
 
+/** A vocabulary worker's word table (as token files name it) and where its words went in the
+ *  merged list (`WordListMerger.addList`): into[i] for its entry 3 + i. */
+interface WorkerWords {
+  table: number;
+  into: Uint32Array;
+}
+
 /**
  * Writes each vocabulary worker's entry → id map (token-file.ts): entries 0..2 are the reserved
- * words, read as `<unk>` like any word the vocabulary cap left out. Returns the maps' sha256 by table.
+ * words, read as `<unk>` like any word the vocabulary cap left out; `idOf` gives each merged word's
+ * id. Returns the maps' sha256 by table.
  */
-async function writeTokenMaps(ctx: StageContext, vocab: Vocabulary, tables: Array<{ table: number; words: string[] }>): Promise<Record<string, string>> {
-  const idOf = new Map<string, number>();
-  for (let id = 1; id < vocab.words.length; id++) if (id !== vocab.eosId && id !== vocab.unkId) idOf.set(vocab.words[id], id);
+async function writeTokenMaps(ctx: StageContext, vocab: Vocabulary, idOf: Uint32Array, tables: WorkerWords[]): Promise<Record<string, string>> {
   const maps: Record<string, string> = {};
-  for (const { table, words } of tables) {
-    const map = new Uint32Array(RESERVED_WORDS.length + words.length);
+  // One at a time, in the order the workers finished (the fault tests number these writes).
+  for (const { table, into } of tables) {
+    const map = new Uint32Array(RESERVED_WORDS.length + into.length);
     map.fill(vocab.unkId, 0, RESERVED_WORDS.length);
-    for (let i = 0; i < words.length; i++) map[RESERVED_WORDS.length + i] = idOf.get(words[i]) ?? vocab.unkId;
+    for (let i = 0; i < into.length; i++) map[RESERVED_WORDS.length + i] = idOf[into[i]];
     const bytes = new Uint8Array(map.buffer);
     await writeFileAtomic(ctx.fs, path.join(ctx.jobDir, tokenMapPath(table)), bytes);
     maps[String(table)] = createHash('sha256').update(bytes).digest('hex');
@@ -211,7 +199,8 @@ export async function countStage(ctx: StageContext, vocab: Vocabulary): Promise<
   const workers = Math.min(ctx.workers, Math.max(1, todo.length));
   const init: WorkerInit = {
     ...baseInit(job, jobDir, 'count'),
-    words: vocab.words,
+    idMax: vocab.words.length,
+    vocabSha256: job.stages.vocab.sha256,
     eosId: vocab.eosId,
     unkId: vocab.unkId,
     counterBytesMax: counterBudgetPerWorker(ctx.memoryBytes, workers, vocab.words.length),

@@ -6,6 +6,7 @@
  * files when its budget is reached and at the end of every chunk (so a finished chunk is a durable
  * unit of work). Tokens come from corpus/read-tokens.ts, a read block at a time.
  */
+import * as path from 'node:path';
 import { parentPort, threadId, workerData } from 'node:worker_threads';
 import { assert, QuernError } from '../errors.ts';
 import { COUNTER_APPEND_ORDER_MIN, COUNTER_BATCH_POSITIONS } from '../limits.ts';
@@ -27,8 +28,9 @@ import { estimatePartition } from '../estimate/partition-estimate.ts';
 import { modelFromShared, type PackedModel } from '../pack/reader.ts';
 import { scoreChunk } from '../score/score-chunk.ts';
 import { runFilePath } from './run-layout.ts';
+import { readVocabularyFile, VOCAB_FILE } from './vocab-file.ts';
 import { readTokenFile, tokenFileIntact, TokenFileWriter, type TokenFileBlock } from './token-file.ts';
-import type { FromWorker, ToWorker, WorkerInit } from './protocol.ts';
+import type { FromWorker, ToWorker, VocabFinished, WorkerInit } from './protocol.ts';
 
 const PROGRESS_INTERVAL_MS = 200;
 
@@ -126,19 +128,21 @@ async function vocabChunk(chunk: Chunk): Promise<void> {
   post({ type: 'done', chunk: chunk.index, reads, tokens: chunkTokens, ...(tokenFile ? { tokenFile } : {}) });
 }
 
-function vocabFinished(): FromWorker {
-  const words: string[] = [];
-  const counts: number[] = [];
-  let unkSeen = 0;
+/** This worker's words (entries from 3 on) as one block of UTF-8 bytes, and their counts: typed
+ *  arrays, moved to the main thread rather than copied, and no string made per word. */
+function vocabFinished(): VocabFinished {
   const table = vocabTable;
-  if (table) {
-    for (let entry = 0; entry < RESERVED_WORDS.length; entry++) unkSeen += entryCounts[entry] ?? 0;
-    for (let entry = RESERVED_WORDS.length; entry < table.size; entry++) {
-      words.push(table.word(entry));
-      counts.push(entryCounts[entry]);
-    }
-  }
-  return { type: 'finished', table: threadId, words, counts, unkSeen };
+  let unkSeen = 0;
+  if (!table) return { type: 'finished', table: threadId, wordBytes: new Uint8Array(0), wordEnds: new Uint32Array(0), counts: new Float64Array(0), unkSeen };
+  for (let entry = 0; entry < RESERVED_WORDS.length; entry++) unkSeen += entryCounts[entry] ?? 0;
+  const words = table.size - RESERVED_WORDS.length;
+  const wordEnds = new Uint32Array(words);
+  let bytes = 0;
+  for (let i = 0; i < words; i++) wordEnds[i] = bytes += table.wordBytes(RESERVED_WORDS.length + i).length;
+  const wordBytes = new Uint8Array(bytes);
+  for (let i = 0; i < words; i++) wordBytes.set(table.wordBytes(RESERVED_WORDS.length + i), i === 0 ? 0 : wordEnds[i - 1]);
+  const counts = entryCounts.slice(RESERVED_WORDS.length, table.size);
+  return { type: 'finished', table: threadId, wordBytes, wordEnds, counts, unkSeen };
 }
 
 // ---- count phase ---------------------------------------------------------------------------
@@ -163,15 +167,16 @@ let countState: CountState | undefined;
 let needsPerByte: CounterNeed[] | undefined;
 
 function countStateOf(): CountState {
-  countState ??= { text: undefined, counters: new CounterSet(init.order, init.counterBytesMax!, init.words!.length, { appendFrom: COUNTER_APPEND_ORDER_MIN }) };
+  countState ??= { text: undefined, counters: new CounterSet(init.order, init.counterBytesMax!, init.idMax!, { appendFrom: COUNTER_APPEND_ORDER_MIN }) };
   return countState;
 }
 
-/** The count phase's word table of the whole vocabulary (~0.3 s for 200,000 words), built the first
- *  time a chunk is read from its text. */
-function textIdsOf(state: CountState): TextIds {
+/** The count phase's word table of the whole vocabulary (~0.3 s for 200,000 words), built from the
+ *  job's vocab.tsv the first time a chunk is read from its text. */
+async function textIdsOf(state: CountState): Promise<TextIds> {
   if (!state.text) {
-    const words = init.words!;
+    const { words } = await readVocabularyFile(path.join(init.jobDir, VOCAB_FILE), init.vocabSha256!);
+    assert(words.length === init.idMax, `vocab.tsv holds ${words.length} ids, the count expects ${init.idMax}`);
     const table = WordTable.sizedFor(RESERVED_WORDS.length + words.length);
     reserveWords(table);
     // Entries from 3 on are the vocabulary's words; `</s>` and `<unk>` are in the vocabulary too,
@@ -190,7 +195,7 @@ function textIdsOf(state: CountState): TextIds {
 /** Writes every non-empty counter as sorted run files, one per partition, and clears it. */
 async function spillAll(chunk: number, spill: number, runs: RunRecord[]): Promise<void> {
   runs.push(...await spillCounterSet(countState!.counters, {
-    fs, jobDir: init.jobDir, partitions: init.partitions, idMax: init.words!.length, chunk, spill,
+    fs, jobDir: init.jobDir, partitions: init.partitions, idMax: init.idMax!, chunk, spill,
     fileFor: (order, partition) => runFilePath(order, partition, chunk, spill),
   }));
 }
@@ -210,7 +215,7 @@ function presizeFor(group: readonly Chunk[], counters: CounterSet): void {
     // vocabulary; a guess of an eighth of them repeated (the table grows if that is short).
     const ngrams = Math.ceil(1.1 * rate * bytes);
     needs = Array.from({ length: init.order }, (_, n) => {
-      const entries = n === 0 ? Math.min(ngrams, init.words!.length) : ngrams;
+      const entries = n === 0 ? Math.min(ngrams, init.idMax!) : ngrams;
       return { entries, tableEntries: n === 0 ? entries : Math.ceil(entries / 8) };
     });
   }
@@ -316,7 +321,7 @@ async function countGroup(group: readonly Chunk[]): Promise<void> {
     const tokenFile = init.tokenFiles?.[chunk.index] ?? null;
     const tokenMap = tokenFile !== null ? init.tokenMaps?.[tokenFile.table] : undefined;
     const fromTokenFile = tokenMap !== undefined && await tokenFileIntact(init.jobDir, chunk.index, tokenFile!);
-    const idOfEntry = fromTokenFile ? tokenMap : textIdsOf(state).idOfEntry;
+    const idOfEntry = fromTokenFile ? tokenMap : (await textIdsOf(state)).idOfEntry;
     // Tokens arrive a read block at a time; when the budget runs out in a block, the counters are
     // spilled (async: it writes files) and counting goes on from the sentence that did not fit.
     const onTokens = async (block: TokenBlock | TokenFileBlock): Promise<void> => {
@@ -342,7 +347,7 @@ async function countGroup(group: readonly Chunk[]): Promise<void> {
       const bytes = chunk.byteEnd - chunk.byteStart;
       await readTokenFile(init.jobDir, chunk.index, onTokens, (read, total) => report(Math.round(bytes * read / total)));
     } else {
-      await textIdsOf(state).reader.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), onTokens, progressReporter());
+      await (await textIdsOf(state)).reader.read(init.inputs[chunk.fileIndex], chunk, readOptionsOf(chunk), onTokens, progressReporter());
     }
     learnNgramsPerByte(chunk, chunkTokens + chunkSentences);
     results.push({ chunk: chunk.index, runs: [], spills: 0, tokens: chunkTokens, occurrences, ...(fromTokenFile ? { fromTokenFile } : {}) });
@@ -432,7 +437,12 @@ async function handle(message: ToWorker): Promise<void> {
     return;
   }
   if (message.type === 'finish') {
-    post(init.phase === 'vocab' ? vocabFinished() : { type: 'finished' });
+    if (init.phase === 'vocab') {
+      const finished = vocabFinished();
+      port.postMessage(finished, [finished.wordBytes.buffer, finished.wordEnds.buffer, finished.counts.buffer] as ArrayBuffer[]);
+    } else {
+      post({ type: 'finished' });
+    }
     releasePhaseState();
     return;
   }

@@ -1,5 +1,5 @@
 import { describe, expect, test } from 'vitest';
-import { buildVocabulary, compareCodePoints, formatVocabulary, parseVocabulary } from '../../src/corpus/vocabulary.ts';
+import { buildRankedVocabulary, buildVocabulary, compareCodePoints, formatVocabulary, formatVocabularyBytes, parseVocabulary } from '../../src/corpus/vocabulary.ts';
 import { QuernError } from '../../src/errors.ts';
 import { seededRandom } from '../support/seeded.ts';
 
@@ -50,6 +50,28 @@ describe('vocabulary', () => {
     }
   });
 
+  test('words sharing long prefixes, NUL bytes and every UTF-8 length rank by their bytes; idOf gives each word its id', () => {
+    // Large count groups are sorted by numeric keys of 4–6 bytes at a time (sortByBytes), their
+    // ties again by the bytes after: these words tie for 20+ bytes, and 'x' and 'x\0' at every depth.
+    const random = seededRandom(12);
+    const stems = ['', 'harbourmaster-ledger-', 'harbourmaster-ledger-\u00e9', 'quay\u0000', '\u{1F600}\u{1F600}\u{1F600}', '\u0800\u07FF\u0080'];
+    const tails = ['', 'a', '\u0000', '\u0000\u0000', 'z', '\u00ff', '\uFFFD', '\u{10FFFF}', 'ab', 'b'];
+    const counts = new Map<string, number>();
+    while (counts.size < 4000) {
+      const word = stems[Math.floor(random() * stems.length)] + Array.from({ length: Math.floor(random() * 4) }, () => tails[Math.floor(random() * tails.length)]).join('');
+      if (word !== '' && word !== '<s>' && word !== '</s>' && word !== '<unk>') counts.set(word, random() < 0.95 ? 1 : 2);
+    }
+    const words = [...counts.keys()];
+    const byBytes = (x: string, y: string): number => counts.get(y)! - counts.get(x)! || Buffer.compare(Buffer.from(x), Buffer.from(y));
+    for (const cap of [{}, { top: 1500 }]) {
+      const { vocab, idOf } = buildRankedVocabulary({ words, counts: words.map((w) => counts.get(w)!) }, 3, 0, cap);
+      const kept = [...words].sort(byBytes).slice(0, 'top' in cap ? cap.top : words.length);
+      expect(vocab.words.filter((w) => w !== '<s>' && w !== '</s>' && w !== '<unk>')).toEqual(kept);
+      const keptSet = new Set(kept);
+      words.forEach((word, i) => expect(idOf[i]).toBe(keptSet.has(word) ? vocab.words.indexOf(word) : vocab.unkId));
+    }
+  });
+
   test('code-point order equals UTF-8 byte order, including astral characters', () => {
     const words = ['z', '\u{1F600}', '\uFFFD', 'é', 'a', '\uE000', '𝔸'];
     const byBytes = [...words].sort((x, y) => Buffer.compare(Buffer.from(x), Buffer.from(y)));
@@ -62,5 +84,12 @@ describe('vocabulary', () => {
     expect(parseVocabulary(text, 'v')).toEqual(vocab);
     expect(() => parseVocabulary(text.replace('kestrel\t2', 'kestrel\tx'), 'v')).toThrow(QuernError);
     expect(() => parseVocabulary(text.slice(0, -10), 'v')).toThrow(/expected/);
+  });
+
+  test('the bytes written are the lines id, word, count joined by tabs, as UTF-8', () => {
+    const vocab = buildVocabulary(new Map([['kestrel', 2 ** 53 - 1], ['qu\u00e4y', 10], ['\u{1F600}', 9], ['tide', 1], ['x'.repeat(5000), 1]]), 1234567, 0, {});
+    const lines = [`# quern vocabulary v1 types=${vocab.words.length} seen=5 capped=0`, ...vocab.words.map((w, id) => `${id}\t${w}\t${vocab.counts[id]}`)];
+    expect(formatVocabularyBytes(vocab).equals(Buffer.from(lines.join('\n') + '\n'))).toBe(true);
+    expect(parseVocabulary(formatVocabulary(vocab), 'v')).toEqual(vocab);
   });
 });

@@ -201,6 +201,12 @@ export const STORE_BLOCK_RECORDS = 1024;
  *  loses at most a few seconds of merging. */
 export const STORE_TXN_BLOCKS = 1024;
 
+/** Word ids up to which a partition's raw merge keeps N1+(• x) of every unigram x as it merges the
+ *  partition's bigrams, one u32 per id (suffix-vector.ts): 2^24 ids, 64 MiB at most per merging
+ *  worker. A vocabulary larger than this takes the continuation stage's emit-and-merge path for
+ *  order 1 instead. */
+export const SUFFIX_VECTOR_IDS_MAX = 2 ** 24;
+
 /** LMDB map size of one partition's environment (address space, not disk: the file grows as
  *  needed). 1 TiB per partition leaves room for any corpus this machine can count. */
 export const STORE_MAP_BYTES = 2 ** 40;

@@ -13,6 +13,7 @@ import type { EmitDone, MergeDone } from '../count/protocol.ts';
 import { baseInit, counterBudgetPerWorker } from '../count/stage.ts';
 import { CONTINUATION_RUNS_DIR } from './continuation.ts';
 import { localContinuationBytes } from './local-continuation.ts';
+import { hasSuffixVector, unigramContinuations } from './suffix-vector.ts';
 import { removeMergeScratch, type PartitionMergeTask } from './merge-partition.ts';
 import { finishedTallies, readStatsFile, STATS_FILE } from './stage.ts';
 import { sumTallies, type OrderTally } from './tally.ts';
@@ -33,10 +34,13 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
   if (stage.local === undefined) {
     // Tests set NO_LOCAL_CONTINUATION_ENV to take the run path whatever the budget.
     const budget = process.env[NO_LOCAL_CONTINUATION_ENV] === '1' ? -1 : counterBudgetPerWorker(ctx.memoryBytes, ctx.workers, 0);
+    // Order 1 from the vectors the raw merge kept (suffix-vector.ts), when every partition has one.
+    let vectors = budget >= 0 && orderMax >= 2;
+    for (let p = 0; p < partitions && vectors; p++) vectors = await hasSuffixVector(jobDir, p);
     const local: number[][] = [];
     for (let p = 0; p < partitions; p++) {
       const tallies = await finishedTallies(jobDir, p, 'raw');
-      const orders: number[] = [];
+      const orders: number[] = vectors ? [1] : [];
       for (let m = 2; m < orderMax; m++) if (localContinuationBytes(tallies[m].distinct, m) <= budget) orders.push(m);
       local.push(orders);
     }
@@ -55,11 +59,17 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
       const file = path.relative(jobDir, path.join(entry.parentPath, entry.name));
       if (entry.isFile() && !kept.has(file)) await ctx.fs.unlink(path.join(jobDir, file));
     }
-    const todo = Array.from({ length: partitions }, (_, p) => p).filter((p) => !emitted.has(p));
+    // A partition that computes every order itself emits nothing: recorded so without a task.
+    const emitsNothing = Array.from({ length: partitions }, (_, p) => p).filter((p) => !emitted.has(p) && local[p].length === orderMax - 1);
+    if (emitsNothing.length > 0) {
+      for (const p of emitsNothing) stage.emitted.push({ partition: p, runs: [] });
+      await ctx.saveManifest();
+    }
+    const todo = Array.from({ length: partitions }, (_, p) => p).filter((p) => !emitted.has(p) && !emitsNothing.includes(p));
     const workers = Math.min(ctx.workers, Math.max(1, todo.length));
     const init = { ...baseInit(job, jobDir, 'continuation-emit'), idMax, counterBytesMax: counterBudgetPerWorker(ctx.memoryBytes, workers, 0) };
-    ctx.progress.start('continuation counts', todo.length, 'tasks');
-    await ctx.pool.run<number, EmitDone, unknown>(init, todo, {
+    if (todo.length > 0) ctx.progress.start('continuation suffixes', todo.length, 'tasks');
+    if (todo.length > 0) await ctx.pool.run<number, EmitDone, unknown>(init, todo, {
       message: (partition) => ({ type: 'emit', partition, localOrders: local[partition] }),
       onDone: (done) => {
         ctx.progress.update(1, 0);
@@ -70,25 +80,29 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
   }
 
   // ---- pass 2: merge them into each partition's store ----
+  const done = new Set(stage.partitionsDone);
+  const unigrams = local.some((orders) => orders.includes(1)) && done.size < partitions ? await unigramContinuations(jobDir, partitions, idMax) : undefined;
   const tasks: PartitionMergeTask[] = Array.from({ length: partitions }, (_, p) => ({
     partition: p,
     files: Array.from({ length: Math.max(0, orderMax - 1) }, () => [] as string[]),
     localOrders: local[p],
+    ...(unigrams !== undefined && local[p].includes(1) ? { unigrams: unigrams[p] } : {}),
   }));
   for (const e of stage.emitted) for (const run of e.runs) tasks[run.partition].files[run.order - 1].push(run.file);
   const byPartition = new Map<number, OrderTally[]>();
-  const done = new Set(stage.partitionsDone);
   if (orderMax >= 2) {
     for (const partition of done) byPartition.set(partition, await finishedTallies(jobDir, partition, 'continuation'));
     const todo = tasks.filter((t) => !done.has(t.partition));
+    ctx.progress.start('continuation counts', todo.length, 'tasks');
     await ctx.pool.run<PartitionMergeTask, MergeDone, unknown>(baseInit(job, jobDir, 'continuation-merge'), todo, {
       message: (task) => ({ type: 'partition', task }),
       onDone: (result) => {
+        ctx.progress.update(1, 0);
         byPartition.set(result.partition, result.tallies);
         stage.partitionsDone.push(result.partition);
         return ctx.saveManifest();
       },
-    });
+    }).finally(() => ctx.progress.stop());
   }
   const stats = await readStatsFile(jobDir);
   stats.continuation = [];

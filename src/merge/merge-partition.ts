@@ -14,6 +14,7 @@ import { nodeFs, type StageFs } from '../job/fsio.ts';
 import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
 import { localContinuationSource } from './local-continuation.ts';
 import { ngramKey, PartitionStore, type KeySpace } from './store.ts';
+import { SUFFIX_VECTOR_KEY, SuffixVector, unigramContinuationSource, type UnigramContinuation } from './suffix-vector.ts';
 import { TallyBuilder, type OrderTally } from './tally.ts';
 
 export const MERGE_PROGRESS_VERSION = 1;
@@ -37,8 +38,11 @@ export interface PartitionMergeTask {
   /** Run files per order (index 0 = order 1), relative to the job directory. */
   files: string[][];
   /** Continuation space only: orders whose counts come from the partition's own raw n-grams of
-   *  the next order (local-continuation.ts) besides any runs. */
+   *  the next order (local-continuation.ts) besides any runs; order 1 from every partition's
+   *  unigram continuation vector (suffix-vector.ts), kept by the raw merge. */
   localOrders?: number[];
+  /** Continuation space with order 1 local: the partition's words' counts from the vectors. */
+  unigrams?: UnigramContinuation;
 }
 
 /** Test hooks: smaller transactions, a callback after each commit (which may throw to stop), a
@@ -149,10 +153,19 @@ async function mergeOrder(
     assert(space === 'continuation', 'local counts are continuation counts');
     const higherRows = store.readProgress<MergeProgress>('raw')?.tallies[order]?.distinct;
     assert(higherRows !== undefined, `partition ${task.partition}: the raw merge of order ${order + 1} is recorded`);
-    readers.push(localContinuationSource(store, order, higherRows));
+    if (order === 1) {
+      assert(task.unigrams !== undefined, 'the unigram continuation counts of the partition');
+      readers.push(unigramContinuationSource(store.dir, task.unigrams));
+    } else {
+      readers.push(localContinuationSource(store, order, higherRows));
+    }
   }
+  // The raw merge of bigrams keeps the unigram continuation counts of its stream (including the
+  // records a resumed merge skips: they are merged again, only not stored again).
+  const suffixes = space === 'raw' && order === 2 ? new SuffixVector() : undefined;
   for await (const batch of mergeRuns(readers, order)) {
     const { keys, counts, recordCount } = batch;
+    suffixes?.addBigrams(keys, recordCount);
     let j = 0;
     if (skip > 0) {
       j = Math.min(skip, recordCount);
@@ -193,7 +206,9 @@ async function mergeOrder(
     current: null,
     done: order === orderMax,
   };
-  commit(next);
+  store.commit(pending, next, space, suffixes !== undefined && !suffixes.overflow ? [[SUFFIX_VECTOR_KEY, suffixes.encode()]] : []);
+  pending = [];
+  tuning.afterCommit?.();
   await removeDir(scratch);
   return next;
 }

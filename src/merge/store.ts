@@ -29,7 +29,12 @@ export const KEY_SPACE = {
 export type KeySpace = keyof typeof KEY_SPACE;
 
 function progressKey(space: KeySpace): Buffer {
-  return Buffer.from([META, ...Buffer.from(`progress:${space}`, 'latin1')]);
+  return metaKey(`progress:${space}`);
+}
+
+/** The key of the metadata value `name` (below every n-gram key). */
+export function metaKey(name: string): Buffer {
+  return Buffer.from([META, ...Buffer.from(name, 'latin1')]);
 }
 
 /** Path of partition `p`'s environment, relative to the job directory. */
@@ -123,8 +128,15 @@ export class PartitionStore {
     }
   }
 
-  /** Writes blocks (key, value) and the progress record in one synchronous, durable transaction. */
-  commit(blocks: Array<[Buffer, Buffer]>, progress: unknown, space: KeySpace = 'raw'): void {
+  /** A metadata value (its key starts with 0x00, `metaKey`), or undefined. */
+  readMeta(key: Buffer): Uint8Array | undefined {
+    assert(key[0] === META, 'a metadata key');
+    return this.db.getBinary(key) ?? undefined;
+  }
+
+  /** Writes blocks (key, value), the progress record and any metadata values (keys from
+   *  `metaKey`) in one synchronous, durable transaction. */
+  commit(blocks: Array<[Buffer, Buffer]>, progress: unknown, space: KeySpace = 'raw', meta: Array<[Buffer, Uint8Array]> = []): void {
     const progressValue = Buffer.from(JSON.stringify(progress), 'utf8');
     // Blocks come in key order, and the continuation space (first byte 0x41..) is written after
     // the raw space (0x01..0x07) is complete, so every block key is above all stored n-gram keys:
@@ -133,6 +145,7 @@ export class PartitionStore {
     runUnstoppable(() => this.db.transactionSync(() => {
       for (const [key, value] of blocks) this.db.putSync(key, value, { append: true });
       this.db.putSync(progressKey(space), progressValue);
+      for (const [key, value] of meta) this.db.putSync(key, Buffer.from(value.buffer, value.byteOffset, value.byteLength));
     }));
   }
 

@@ -13,6 +13,7 @@ import { MERGE_SCRATCH_DIR, mergePartition, type PartitionMergeTask } from '../.
 import { PartitionStore, StoreSource } from '../../src/merge/store.ts';
 import { mergeRuns } from '../../src/count/run-merge.ts';
 import { STORE_BLOCK_RECORDS } from '../../src/limits.ts';
+import { decodeSuffixVector, SUFFIX_VECTOR_KEY } from '../../src/merge/suffix-vector.ts';
 import { seededRandom } from '../support/seeded.ts';
 
 /** Writes `runs` sorted runs of order 2 with overlapping random n-grams; returns the task. */
@@ -74,6 +75,19 @@ describe('mergePartition', () => {
     }
     expect(stops).toBeGreaterThan(4);
     expect(await contents(reference, 'resumed')).toBe(expected);
+
+    // The unigram continuation vector (suffix-vector.ts) of the merge that finished after being
+    // resumed mid-order is whole: N1+(• x) = distinct bigrams ending with x, from the rows stored.
+    const distinctBefore = new Uint32Array(400);
+    for (const row of expected.split('\n')) distinctBefore[Number(row.split(' ')[1])]++;
+    for (const name of ['store', 'resumed']) {
+      const store = PartitionStore.open(path.join(reference, name), 'read');
+      const value = store.readMeta(SUFFIX_VECTOR_KEY);
+      await store.close();
+      const vector = decodeSuffixVector(value!, name);
+      expect(Array.from(vector)).toEqual(Array.from(distinctBefore.subarray(0, vector.length)));
+      expect(distinctBefore.subarray(vector.length).every((c) => c === 0)).toBe(true);
+    }
   });
 });
 

@@ -25,6 +25,8 @@ const DIGIT_BITS_MAX = 13;
 assert(HISTOGRAM_AT + 4 * 2 ** DIGIT_BITS_MAX <= PARAMS_BYTES, 'the histogram fits the parameter page');
 
 type SortKeys = (source: number, target: number, n: number, keyWords: number, passes: number, passCount: number, histogram: number) => number;
+type TakeSuffixes = (at: number, rows: number, order: number) => number;
+type CountEqual = (keys: number, n: number, keyWords: number, counts: number) => number;
 
 const sortModule = wasmModuleAt(new URL('./spill-sort.wasm', import.meta.url));
 
@@ -33,11 +35,15 @@ export class WasmSorter {
   readonly words: Uint32Array;
   private readonly params: Uint32Array;
   private readonly run: SortKeys;
+  private readonly take: TakeSuffixes;
+  private readonly countRows: CountEqual;
 
-  private constructor(memory: WebAssembly.Memory, words: number, run: SortKeys) {
+  private constructor(memory: WebAssembly.Memory, words: number, exports: WebAssembly.Exports) {
     this.params = new Uint32Array(memory.buffer, 0, PARAMS_BYTES / 4);
     this.words = new Uint32Array(memory.buffer, PARAMS_BYTES, words);
-    this.run = run;
+    this.run = exports.sortKeys as SortKeys;
+    this.take = exports.takeSuffixes as TakeSuffixes;
+    this.countRows = exports.countEqual as CountEqual;
   }
 
   /** A scratch of `words` words in a WebAssembly memory, or why there is none. */
@@ -45,7 +51,7 @@ export class WasmSorter {
     assert(Number.isInteger(words) && words >= 0, `a scratch of ${words} words`);
     const made = instanceWithMemory(sortModule(), PARAMS_BYTES + 4 * words);
     if (made instanceof Error) return new Error(`no WebAssembly sort scratch: ${made.message}`);
-    return new WasmSorter(made.memory, words, made.instance.exports.sortKeys as SortKeys);
+    return new WasmSorter(made.memory, words, made.instance.exports);
   }
 
   /**
@@ -67,5 +73,28 @@ export class WasmSorter {
       params[PASS_WORDS * q + 2] = pass.bits;
     });
     return this.run(PARAMS_BYTES + 4 * source, PARAMS_BYTES + 4 * target, n, keyWords, 0, passes.length, HISTOGRAM_AT) === 1;
+  }
+
+  /**
+   * Copies `rows` rows of order+1 ids (`keys`, row-major) to word `at` and keeps the last `order`
+   * ids of each there, rows end to end (the local continuation counts' suffixes). The rows are
+   * copied in whole first, so `rows` words past the suffixes' end must be free as well. Returns
+   * the OR of the ids kept.
+   */
+  takeSuffixes(keys: Uint32Array, rows: number, order: number, at: number): number {
+    const span = rows * (order + 1);
+    assert(order >= 1 && at + span <= this.words.length && span <= keys.length, `${rows} rows of ${order + 1} ids at word ${at} within a scratch of ${this.words.length}`);
+    this.words.set(keys.subarray(0, span), at);
+    return this.take(PARAMS_BYTES + 4 * at, rows, order) >>> 0;
+  }
+
+  /**
+   * Keeps each distinct row of the `n` sorted rows of `keyWords` words at word `at` once, in place,
+   * and writes how often it occurred (u32) from word `countsAt`. Returns the rows kept.
+   */
+  countEqual(at: number, n: number, keyWords: number, countsAt: number): number {
+    assert(at + n * keyWords <= this.words.length && countsAt + n <= this.words.length && (countsAt >= at + n * keyWords || countsAt + n <= at),
+      `${n} rows of ${keyWords} words at ${at} and their counts at ${countsAt} within a scratch of ${this.words.length}, apart`);
+    return this.countRows(PARAMS_BYTES + 4 * at, n, keyWords, PARAMS_BYTES + 4 * countsAt);
   }
 }

@@ -96,3 +96,55 @@ export function sortKeys(source: usize, target: usize, n: u32, keyWords: u32, pa
   }
   return flipped;
 }
+
+/**
+ * The local continuation counts' suffixes (src/merge/local-continuation.ts): `rows` rows of
+ * order+1 ids at `at`, each replaced, in place and in order, by its last `order` ids (row j moves to
+ * at + j·order words, never past where it was read). Returns the OR of the ids kept, which sets the
+ * radix passes.
+ */
+export function takeSuffixes(at: usize, rows: u32, order: u32): u32 {
+  let bits: u32 = 0;
+  const width = <usize>order << 2;
+  let from = at + 4;
+  let to = at;
+  for (let r: u32 = 0; r < rows; r++) {
+    for (let b: usize = 0; b < width; b += 4) {
+      const id = load<u32>(from + b);
+      bits |= id;
+      store<u32>(to + b, id);
+    }
+    from += width + 4;
+    to += width;
+  }
+  return bits;
+}
+
+/**
+ * Counts equal neighbours among `n` sorted rows of `keyWords` words at `keys`: compacts them in
+ * place, each distinct row once, and writes its multiplicity (u32) to `counts`. Returns the rows
+ * kept.
+ */
+export function countEqual(keys: usize, n: u32, keyWords: u32, counts: usize): u32 {
+  if (n == 0) return 0;
+  const stride = <usize>keyWords << 2;
+  let last = keys;
+  let size: u32 = 1;
+  let count: u32 = 1;
+  for (let r: u32 = 1; r < n; r++) {
+    const from = keys + <usize>r * stride;
+    let b: usize = 0;
+    while (b < stride && load<u32>(from + b) == load<u32>(last + b)) b += 4;
+    if (b == stride) {
+      count++;
+      continue;
+    }
+    store<u32>(counts + (<usize>(size - 1) << 2), count);
+    last += stride;
+    if (last != from) memory.copy(last, from, stride);
+    size++;
+    count = 1;
+  }
+  store<u32>(counts + (<usize>(size - 1) << 2), count);
+  return size;
+}

@@ -127,9 +127,9 @@ function rowPasses(width: number, idBitsAll: number): ReturnType<typeof idRadixP
 export function suffixCountsBySort(
   higher: Iterable<{ keys: Uint32Array; recordCount: number }>, n: number, order: number, engine: WasmEngine = 'auto',
 ): { keys: Uint32Array; counts: Uint32Array; size: number } {
-  const sorter = engine === 'js' ? undefined : WasmSorter.create(2 * n * order);
-  const wasm = sorter instanceof WasmSorter ? sorter : undefined;
-  const suffixes = wasm?.words.subarray(0, n * order) ?? new Uint32Array(n * order);
+  const sorter = engine === 'js' ? undefined : WasmSorter.create(2 * n * order + n);
+  if (sorter instanceof WasmSorter) return suffixCountsInWasm(sorter, higher, n, order);
+  const suffixes = new Uint32Array(n * order);
   const stride = order + 1;
   let filled = 0;
   let idBitsAll = 0;
@@ -148,13 +148,7 @@ export function suffixCountsBySort(
     filled += block.recordCount;
   }
   assert(filled === n, `${n} rows of order ${stride} expected, ${filled} read`);
-  let sorted: Uint32Array;
-  if (wasm !== undefined) {
-    const at = wasm.sortKeys(0, n * order, n, order, rowPasses(order, idBitsAll).passes) ? n * order : 0;
-    sorted = wasm.words.subarray(at, at + n * order);
-  } else {
-    sorted = sortRows(suffixes, new Uint32Array(n * order), n, order, idBitsAll);
-  }
+  const sorted = sortRows(suffixes, new Uint32Array(n * order), n, order, idBitsAll);
   // Equal suffixes are adjacent: compact them in place, with their multiplicity.
   const counts = new Uint32Array(n);
   let size = 0;
@@ -174,4 +168,28 @@ export function suffixCountsBySort(
     counts[size++] = 1;
   }
   return { keys: sorted, counts, size };
+}
+
+/**
+ * `suffixCountsBySort` in one WebAssembly memory of 2 × n × order + n words: the blocks' rows
+ * copied in and cut to their suffixes there (`takeSuffixes`), sorted by the same passes as
+ * `sortRows`, and counted where equal (`countEqual`), the counts after both halves.
+ */
+function suffixCountsInWasm(
+  sorter: WasmSorter, higher: Iterable<{ keys: Uint32Array; recordCount: number }>, n: number, order: number,
+): { keys: Uint32Array; counts: Uint32Array; size: number } {
+  let filled = 0;
+  let idBitsAll = 0;
+  for (const block of higher) {
+    assert(filled + block.recordCount <= n, `at most ${n} rows of order ${order + 1}`);
+    // A block's rows are order+1 ids wide: copied in at the next suffix's place, they reach at most
+    // n words into the sort's other half, which is free until the sort.
+    idBitsAll |= sorter.takeSuffixes(block.keys, block.recordCount, order, filled * order);
+    filled += block.recordCount;
+  }
+  assert(filled === n, `${n} rows of order ${order + 1} expected, ${filled} read`);
+  const at = sorter.sortKeys(0, n * order, n, order, rowPasses(order, idBitsAll >>> 0).passes) ? n * order : 0;
+  const countsAt = 2 * n * order;
+  const size = sorter.countEqual(at, n, order, countsAt);
+  return { keys: sorter.words.subarray(at, at + size * order), counts: sorter.words.subarray(countsAt, countsAt + size), size };
 }

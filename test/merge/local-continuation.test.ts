@@ -80,4 +80,20 @@ describe('suffixCountsBySort', () => {
       expect(Array.from(wasm.counts.subarray(0, wasm.size))).toEqual(Array.from(js.counts.subarray(0, js.size)));
     }
   });
+
+  it('in store blocks of 1,024 rows and in empty ones, and with no rows at all, both engines agree', () => {
+    const order = 4;
+    const n = 5000;
+    const flat = randomRows(91, n, order + 1, 6);
+    for (let r = 1; r < n; r += 3) flat.copyWithin(r * (order + 1) + 1, (r - 1) * (order + 1) + 1, r * (order + 1));
+    const blocks = [{ keys: new Uint32Array(0), recordCount: 0 }];
+    for (let r = 0; r < n; r += 1024) blocks.push({ keys: flat.slice(r * (order + 1), Math.min(n, r + 1024) * (order + 1)), recordCount: Math.min(1024, n - r) });
+    const js = suffixCountsBySort(blocks, n, order, 'js');
+    const wasm = suffixCountsBySort(blocks, n, order, 'auto');
+    expect(wasm.size).toBe(js.size);
+    expect(Array.from(wasm.keys.subarray(0, wasm.size * order))).toEqual(Array.from(js.keys.subarray(0, js.size * order)));
+    expect(Array.from(wasm.counts.subarray(0, wasm.size))).toEqual(Array.from(js.counts.subarray(0, js.size)));
+    expect(Array.from(js.counts.subarray(0, js.size)).reduce((a, b) => a + b, 0)).toBe(n);
+    for (const engine of ['auto', 'js'] as const) expect(suffixCountsBySort([], 0, order, engine).size).toBe(0);
+  });
 });

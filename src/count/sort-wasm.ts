@@ -11,6 +11,7 @@
  * same sort, the same result.
  */
 import { assert } from '../errors.ts';
+import { PARTITIONS_MAX } from '../limits.ts';
 import { instanceWithMemory, wasmModuleAt } from '../wasm-module.ts';
 import type { RadixPass } from './radix.ts';
 
@@ -23,9 +24,14 @@ const PASSES_MAX = Math.floor(HISTOGRAM_AT / (4 * PASS_WORDS));
 /** Widest digit the histogram holds: 2^13 counters after HISTOGRAM_AT. */
 const DIGIT_BITS_MAX = 13;
 assert(HISTOGRAM_AT + 4 * 2 ** DIGIT_BITS_MAX <= PARAMS_BYTES, 'the histogram fits the parameter page');
+/** Where `packKeys3` keeps each partition's next key (u32 a partition), after the histogram. */
+const NEXT_KEY_AT = HISTOGRAM_AT + 4 * 2 ** DIGIT_BITS_MAX;
+assert(NEXT_KEY_AT + 4 * PARTITIONS_MAX <= PARAMS_BYTES, 'a next key per partition fits the parameter page');
 
 type SortKeys = (source: number, target: number, n: number, keyWords: number, passes: number, passCount: number, histogram: number) => number;
 type TakeSuffixes = (at: number, rows: number, order: number) => number;
+type UnpackKeys3 = (keys: number, n: number, keyWords: number, order: number, idBits: number, ids: number, counts: number) => number;
+type PackKeys3 = (rowsAt: number, rows: number, order: number, idBits: number, keyWords: number, parts: number, next: number, base: number) => void;
 type CountEqual = (keys: number, n: number, keyWords: number, counts: number) => number;
 
 const sortModule = wasmModuleAt(new URL('./spill-sort.wasm', import.meta.url));
@@ -37,6 +43,8 @@ export class WasmSorter {
   private readonly run: SortKeys;
   private readonly take: TakeSuffixes;
   private readonly countRows: CountEqual;
+  private readonly pack3: PackKeys3;
+  private readonly unpack3: UnpackKeys3;
 
   private constructor(memory: WebAssembly.Memory, words: number, exports: WebAssembly.Exports) {
     this.params = new Uint32Array(memory.buffer, 0, PARAMS_BYTES / 4);
@@ -44,6 +52,8 @@ export class WasmSorter {
     this.run = exports.sortKeys as SortKeys;
     this.take = exports.takeSuffixes as TakeSuffixes;
     this.countRows = exports.countEqual as CountEqual;
+    this.pack3 = exports.packKeys3 as PackKeys3;
+    this.unpack3 = exports.unpackKeys3 as UnpackKeys3;
   }
 
   /** A scratch of `words` words in a WebAssembly memory, or why there is none. */
@@ -96,5 +106,46 @@ export class WasmSorter {
     assert(at + n * keyWords <= this.words.length && countsAt + n <= this.words.length && (countsAt >= at + n * keyWords || countsAt + n <= at),
       `${n} rows of ${keyWords} words at ${at} and their counts at ${countsAt} within a scratch of ${this.words.length}, apart`);
     return this.countRows(PARAMS_BYTES + 4 * at, n, keyWords, PARAMS_BYTES + 4 * countsAt);
+  }
+
+  /**
+   * packedOrder's step 2 (spill-sort.ts) for keys of at most 3 words and ids below 32 bits: rows
+   * 0..m−1 of `front` (a count, then `order` ids) packed into keys of `keyWords` words, each written
+   * at its partition's next key (`next[p]`, a word of this scratch; moved on as keys are written),
+   * in the same order as the JavaScript loop. The rows and their partitions (`partitionOfRow`) are
+   * copied in `stageRows` at a time to word `stageAt`, which needs stageRows · (order + 1.5) free
+   * words there.
+   */
+  packKeys3(front: Uint32Array, m: number, order: number, idBits: number, keyWords: number, partitionOfRow: Uint16Array, next: Uint32Array, stageAt: number, stageRows: number): void {
+    const stride = order + 1;
+    const partsAt = stageAt + stageRows * stride;
+    assert(keyWords >= 1 && keyWords <= 3 && idBits >= 1 && idBits < 32 && order * idBits <= 32 * keyWords, `keys of ${keyWords} words for ${order} ids of ${idBits} bits`);
+    assert(stageRows >= 1 && partsAt + Math.ceil(stageRows / 2) <= this.words.length && next.length <= PARTITIONS_MAX, `a stage of ${stageRows} rows at word ${stageAt} within a scratch of ${this.words.length}`);
+    this.params.set(next, NEXT_KEY_AT / 4);
+    const parts = new Uint16Array(this.words.buffer, this.words.byteOffset + 4 * partsAt, stageRows);
+    for (let first = 0; first < m; first += stageRows) {
+      const end = Math.min(m, first + stageRows);
+      this.words.set(front.subarray(first * stride, end * stride), stageAt);
+      parts.set(partitionOfRow.subarray(first, end));
+      this.pack3(PARAMS_BYTES + 4 * stageAt, end - first, order, idBits, keyWords, PARAMS_BYTES + 4 * partsAt, NEXT_KEY_AT, PARAMS_BYTES);
+    }
+    next.set(this.params.subarray(NEXT_KEY_AT / 4, NEXT_KEY_AT / 4 + next.length));
+  }
+
+  /**
+   * packedOrder's step 4 (spill-sort.ts) for keys of at most 3 words and ids below 32 bits: the `n`
+   * sorted keys at word `at` → the ids of each distinct key row-major into `out` from `keysAt`, and
+   * how often it occurs from `countsAt`, as spill-sort.ts's `unpackKeys3` gives them; made at word
+   * `stageAt` (n · (order + 1) free words) and copied out. Returns the distinct keys.
+   */
+  unpackKeys3(at: number, n: number, keyWords: number, order: number, idBits: number, stageAt: number, out: Uint32Array, keysAt: number, countsAt: number): number {
+    const stageCounts = stageAt + n * order;
+    assert(keyWords >= 1 && keyWords <= 3 && idBits >= 1 && idBits < 32, `keys of ${keyWords} words, ids of ${idBits} bits`);
+    assert(at + n * keyWords <= this.words.length && stageCounts + n <= this.words.length && (stageAt >= at + n * keyWords || stageCounts + n <= at),
+      `${n} keys at word ${at} and their rows at ${stageAt} within a scratch of ${this.words.length}, apart`);
+    const distinct = this.unpack3(PARAMS_BYTES + 4 * at, n, keyWords, order, idBits, PARAMS_BYTES + 4 * stageAt, PARAMS_BYTES + 4 * stageCounts);
+    out.set(this.words.subarray(stageAt, stageAt + distinct * order), keysAt);
+    out.set(this.words.subarray(stageCounts, stageCounts + distinct), countsAt);
+    return distinct;
   }
 }

@@ -148,3 +148,83 @@ export function countEqual(keys: usize, n: u32, keyWords: u32, counts: usize): u
   store<u32>(counts + (<usize>(size - 1) << 2), count);
   return size;
 }
+
+/**
+ * Step 2 of packedOrder (spill-sort.ts) for keys of at most 3 words and ids below 32 bits: `rows`
+ * rows of a count and `order` ids at `rowsAt` (u32 each), each packed into a key of `keyWords`
+ * words — its ids one bit string, `idBits` each, the first most significant, right-aligned — and
+ * written at its partition's next key: the partition of row j is the u16 at parts + 2j, and the
+ * next key's word offset from `base` of partition p the u32 at next + 4p, which moves on.
+ */
+export function packKeys3(rowsAt: usize, rows: u32, order: u32, idBits: u32, keyWords: u32, parts: usize, next: usize, base: usize): void {
+  const up: u32 = 32 - idBits;
+  const stride = (<usize>order + 1) << 2;
+  let row = rowsAt + 4;
+  for (let j: u32 = 0; j < rows; j++, row += stride) {
+    let hi: u32 = 0;
+    let mid: u32 = 0;
+    let lo: u32 = 0;
+    for (let i: u32 = 0; i < order; i++) {
+      hi = (hi << idBits) | (mid >>> up);
+      mid = (mid << idBits) | (lo >>> up);
+      lo = (lo << idBits) | load<u32>(row + (<usize>i << 2));
+    }
+    const slot = next + (<usize>load<u16>(parts + (<usize>j << 1)) << 2);
+    const to = load<u32>(slot);
+    store<u32>(slot, to + keyWords);
+    const at = base + (<usize>to << 2);
+    if (keyWords == 3) {
+      store<u32>(at, hi);
+      store<u32>(at, mid, 4);
+      store<u32>(at, lo, 8);
+    } else if (keyWords == 2) {
+      store<u32>(at, mid);
+      store<u32>(at, lo, 4);
+    } else {
+      store<u32>(at, lo);
+    }
+  }
+}
+
+/**
+ * Step 4 of packedOrder for keys of at most 3 words and ids below 32 bits: the `n` sorted keys of
+ * `keyWords` words at `keys` → the ids of each distinct key row-major from `ids` (`order` u32 each)
+ * and how often it occurs from `counts` (u32). Returns the distinct keys.
+ */
+export function unpackKeys3(keys: usize, n: u32, keyWords: u32, order: u32, idBits: u32, ids: usize, counts: usize): u32 {
+  const mask: u32 = idBits == 32 ? 0xffff_ffff : (<u32>1 << idBits) - 1;
+  const down: u32 = 32 - idBits;
+  const stride = <usize>keyWords << 2;
+  const width = <usize>order << 2;
+  let distinct: u32 = 0;
+  let lastHi: u32 = 0;
+  let lastMid: u32 = 0;
+  let lastLo: u32 = 0;
+  let at = keys;
+  for (let r: u32 = 0; r < n; r++, at += stride) {
+    const lo = load<u32>(at + stride - 4);
+    const mid = keyWords >= 2 ? load<u32>(at + stride - 8) : 0;
+    const hi = keyWords == 3 ? load<u32>(at) : 0;
+    if (distinct > 0 && lo == lastLo && mid == lastMid && hi == lastHi) {
+      const slot = counts + (<usize>(distinct - 1) << 2);
+      store<u32>(slot, load<u32>(slot) + 1);
+      continue;
+    }
+    lastHi = hi;
+    lastMid = mid;
+    lastLo = lo;
+    let h = hi;
+    let m = mid;
+    let l = lo;
+    const first = ids + <usize>distinct * width;
+    for (let i = first + width - 4; i >= first; i -= 4) {
+      store<u32>(i, l & mask);
+      l = (l >>> idBits) | (m << down);
+      m = (m >>> idBits) | (h << down);
+      h >>>= idBits;
+    }
+    store<u32>(counts + (<usize>distinct << 2), 1);
+    distinct++;
+  }
+  return distinct;
+}

@@ -190,6 +190,10 @@ function rowOrder(
  * and the scratch's words after all the keys, when the largest partition's fit there (else the
  * JavaScript passes sort them as without `sorter`).
  */
+/** Rows packedOrder copies into the WebAssembly memory at a time to pack them there: 1.5 MiB at
+ *  order 5, within the second-level cache. */
+const PACK_STAGE_ROWS = 1 << 16;
+
 function packedOrder(
   front: Uint32Array, scratch: Uint32Array, m: number, order: number, idBits: number, partitions: number,
   partitionOfRow: Uint16Array, partitionStarts: Uint32Array, sorter?: WasmSorter,
@@ -208,14 +212,22 @@ function packedOrder(
     idShift[i] = low & 31;
     idSplit[i] = (low & 31) + idBits > 32 ? 1 : 0;
   }
-  const wasm = sorter !== undefined && K * (m + largestPartition(partitionStarts, partitions)) <= scratch.length ? sorter : undefined;
+  const largest = largestPartition(partitionStarts, partitions);
+  const wasm = sorter !== undefined && K * (m + largest) <= scratch.length ? sorter : undefined;
+  assert(wasm === undefined || scratch.buffer === wasm.words.buffer, 'the scratch is the sorter\'s memory');
   // Where partition p's keys lie in the scratch: packed one after the other for the WebAssembly
   // passes, else at partition p's rows.
   const keysAt = new Float64Array(partitions);
   for (let p = 0; p < partitions; p++) keysAt[p] = partitionStarts[p] * (wasm !== undefined ? K : stride);
   // 2. Packed, by partition, front → scratch.
   const placed = new Uint32Array(partitions);
-  if (K <= 3 && idBits < 32) {
+  // In the module, through a stage in the sort's other half (free until the passes).
+  const stageRows = wasm !== undefined && K <= 3 && idBits < 32 ? Math.min(m, PACK_STAGE_ROWS, Math.floor((scratch.length - K * m) / (stride + 1.5))) : 0;
+  if (stageRows > 0) {
+    const next = Uint32Array.from(keysAt);
+    wasm!.packKeys3(front, m, order, idBits, K, partitionOfRow, next, K * m, stageRows);
+    for (let p = 0; p < partitions; p++) assert(next[p] === keysAt[p] + K * (partitionStarts[p + 1] - partitionStarts[p]), `partition ${p}: every key packed`);
+  } else if (K <= 3 && idBits < 32) {
     // The key built in three registers, id by id: (hi, mid, lo) ← (hi, mid, lo) · 2^idBits + id,
     // then its K low words written once.
     const up = 32 - idBits;
@@ -265,9 +277,11 @@ function packedOrder(
     const base = partitionStarts[p] * stride;
     const n = partitionStarts[p + 1] - partitionStarts[p];
     let source = scratch.subarray(keysAt[p], keysAt[p] + n * K);
+    // Where the sorted keys are in the scratch (the module's passes).
+    let sortedAt = -1;
     if (wasm !== undefined) {
-      const at = wasm.sortKeys(keysAt[p], K * m, n, K, passes) ? K * m : keysAt[p];
-      source = scratch.subarray(at, at + n * K);
+      sortedAt = wasm.sortKeys(keysAt[p], K * m, n, K, passes) ? K * m : keysAt[p];
+      source = scratch.subarray(sortedAt, sortedAt + n * K);
     } else {
       let target = front.subarray(base, base + n * K);
       for (const pass of passes) {
@@ -278,7 +292,14 @@ function packedOrder(
         if (radixPass(source, target, 0, n, K, pass.word, pass.shift, mask, digits)) [source, target] = [target, source];
       }
     }
-    // 4. Into `front`: the ids of each distinct key row-major, then their counts.
+    // 4. Into `front`: the ids of each distinct key row-major, then their counts; in the module
+    // when the keys are there and the words after all keys and the largest partition's hold the
+    // partition's rows.
+    const unpackAt = K * (m + largest);
+    if (wasm !== undefined && K <= 3 && idBits < 32 && unpackAt + n * stride <= scratch.length) {
+      records[p] = wasm.unpackKeys3(sortedAt, n, K, order, idBits, unpackAt, front, base, base + n * order);
+      continue;
+    }
     if (source.buffer === front.buffer) {
       scratch.set(source, base);
       source = scratch.subarray(base, base + n * K);

@@ -50,6 +50,8 @@ describe('a spill sorted in WebAssembly', () => {
   test('gives the records of the JavaScript passes, for orders 2 to 7, ids of 1 to 32 bits, 1 to 16 partitions', () => {
     let sortedInWasm = 0;
     let sortedInJs = 0;
+    let packedInWasm = 0;
+    let unpackedInWasm = 0;
     for (const idMax of [2, 30, 70_000, 300_000, 2 ** 31, 2 ** 32 - 1]) {
       for (let order = 2; order <= 7; order++) {
         for (const partitions of [1, 5, 16]) {
@@ -61,6 +63,12 @@ describe('a spill sorted in WebAssembly', () => {
           let calls = 0;
           const sortKeys = sorter.sortKeys.bind(sorter);
           sorter.sortKeys = (...args) => (calls++, sortKeys(...args));
+          // Keys of up to 3 words are packed in the module too, through a stage of the rows in the
+          // free half (smaller than the spill in most of these: several rounds).
+          const packKeys3 = sorter.packKeys3.bind(sorter);
+          sorter.packKeys3 = (...args) => (packedInWasm++, packKeys3(...args));
+          const unpackKeys3 = sorter.unpackKeys3.bind(sorter);
+          sorter.unpackKeys3 = (...args) => (unpackedInWasm++, unpackKeys3(...args));
           expect(spilled(counter, partitions, idMax, sorter)).toEqual(expected);
           // Keys of K words have room for the passes when K · (rows + the largest partition's) ≤ rows · (order + 1).
           const K = Math.ceil((order * Math.max(1, 32 - Math.clz32(idMax - 1))) / 32);
@@ -72,6 +80,8 @@ describe('a spill sorted in WebAssembly', () => {
     }
     expect(sortedInWasm).toBeGreaterThan(50);
     expect(sortedInJs).toBeGreaterThan(5);
+    expect(packedInWasm).toBeGreaterThan(30);
+    expect(unpackedInWasm).toBeGreaterThan(100);
   });
 
   test('rows with counts (a filtering counter, orders 1 to 7) give the records of the JavaScript passes', () => {

@@ -19,6 +19,11 @@ export interface BatchSource {
   /** For messages: a file or store path. */
   readonly name: string;
   readonly order: number;
+  /** Set by a source made in memory whose rows strictly increase by construction (sorted and
+   *  made distinct there: the local continuation counts, the unigram vectors) and whose batches are
+   *  its own fresh arrays of at most MERGE_BATCH_RECORDS rows: the merge of it alone hands its
+   *  batches on as they are, checking only where one batch meets the next. */
+  readonly madeInOrder?: boolean;
   /** The next batch in increasing order, or null at the end. */
   nextBatch(): Promise<RunBatch | null>;
   close(): Promise<void>;
@@ -249,6 +254,13 @@ async function* passThrough(source: BatchSource, order: number): AsyncGenerator<
     if (rows > 0) {
       while (j < order && keys[j] === last[j]) j++;
       if (j === order || keys[j] < last[j]) assert(false, `merge input out of order: a row of ${source.name} is not above the row before it`);
+    }
+    if (source.madeInOrder === true) {
+      assert(recordCount <= MERGE_BATCH_RECORDS && keys.length === recordCount * order, `a batch of ${recordCount} rows from ${source.name}`);
+      last.set(keys.subarray((recordCount - 1) * order, recordCount * order));
+      rows += recordCount;
+      yield batch;
+      continue;
     }
     for (let at = order, end = recordCount * order; at < end; at += order) {
       j = 0;

@@ -14,6 +14,7 @@
  * (continuation-stage.ts), and emits runs otherwise (continuation.ts).
  */
 import { assert } from '../errors.ts';
+import { MERGE_BATCH_RECORDS } from '../limits.ts';
 import type { BatchSource } from '../count/run-merge.ts';
 import { idRadixPasses, scatterRows } from '../count/radix.ts';
 import type { RunBatch } from '../count/run-file.ts';
@@ -22,7 +23,7 @@ import { WasmSorter } from '../count/sort-wasm.ts';
 import type { WasmEngine } from '../wasm-module.ts';
 
 /** Records per batch handed to the merge. */
-const LOCAL_BATCH_RECORDS = 8192;
+const LOCAL_BATCH_RECORDS = MERGE_BATCH_RECORDS;
 
 /** Bytes the local computation of order `order` holds for `higherRows` n-grams of order+1: their
  *  suffixes twice (the radix sort's source and target) and a count per suffix. */
@@ -43,6 +44,7 @@ export function localContinuationSource(store: PartitionStore, order: number, hi
   return {
     name: `${store.dir} (order ${order + 1} suffixes)`,
     order,
+    madeInOrder: true,
     async nextBatch(): Promise<RunBatch | null> {
       if (next === size) return null;
       const end = Math.min(size, next + LOCAL_BATCH_RECORDS);

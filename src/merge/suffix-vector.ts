@@ -15,7 +15,7 @@
 import * as path from 'node:path';
 import { crc32 } from 'node:zlib';
 import { assert, QuernError } from '../errors.ts';
-import { SUFFIX_VECTOR_IDS_MAX } from '../limits.ts';
+import { MERGE_BATCH_RECORDS, SUFFIX_VECTOR_IDS_MAX } from '../limits.ts';
 import { partitionOfKey } from '../count/hash.ts';
 import type { BatchSource } from '../count/run-merge.ts';
 import type { RunBatch } from '../count/run-file.ts';
@@ -26,7 +26,7 @@ const SUFFIX_VECTOR_VERSION = 1;
 const HEADER_WORDS = 3;
 
 /** Records per batch handed to the merge. */
-const VECTOR_BATCH_RECORDS = 8192;
+const VECTOR_BATCH_RECORDS = MERGE_BATCH_RECORDS;
 
 /** Counts N1+(• x) of the last words of a stream of distinct bigrams. */
 export class SuffixVector {
@@ -141,6 +141,7 @@ export function unigramContinuationSource(name: string, words: UnigramContinuati
   return {
     name: `${name} (unigram continuation vectors)`,
     order: 1,
+    madeInOrder: true,
     async nextBatch(): Promise<RunBatch | null> {
       if (next === size) return null;
       const end = Math.min(size, next + VECTOR_BATCH_RECORDS);

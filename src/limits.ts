@@ -43,6 +43,12 @@ export const WORD_TABLE_LOAD_MAX = 0.5;
 /** Initial slots of a word table (power of two); it doubles as words arrive. */
 export const WORD_TABLE_SLOTS_MIN = 1 << 12;
 
+/** Bytes of text the WebAssembly word scan (corpus/word-memory.ts) takes at once: a read block's
+ *  lines are copied into its memory this many bytes of whole lines at a time (a longer line whole),
+ *  small enough to be still in the second-level cache when scanned. Its output arrays hold the most
+ *  tokens and sentences so many bytes can hold (one per 2 bytes): 1.75 MiB for all of them. */
+export const WORD_SCAN_PIECE_BYTES = 256 << 10;
+
 /** Bytes read per step when the planner scans forward from a target offset to the next '\n'.
  *  Lines are short, so one small read almost always finds it; no need to read a whole block. */
 export const PLAN_SCAN_BLOCK_BYTES = 64 << 10;

@@ -16,7 +16,11 @@
  */
 import { assert } from '../errors.ts';
 import { UNKNOWN_TOKEN, type Tokenizer } from './tokenize.ts';
-import { FNV_OFFSET, FNV_PRIME, hashBytes, type WordLookup, type WordTable } from './word-table.ts';
+import { BYTE_CLASS, MAYBE_SPACE, multiByteSpaceWidth, NEWLINE, SPACE, WORD } from './byte-class.ts';
+import { WORD_SCAN_PIECE_BYTES } from '../limits.ts';
+import { FNV_OFFSET, FNV_PRIME, hashBytes, type WordLookup, WordTable } from './word-table.ts';
+
+export { multiByteSpaceWidth };
 
 /** Tokens of a run of lines, as word-table entries. */
 export interface TokenBlock {
@@ -49,11 +53,25 @@ export function clearTokenBlock(block: TokenBlock): void {
   block.blankLines = 0;
 }
 
-function growEntries(block: TokenBlock): Int32Array {
-  const entries = new Int32Array(2 * block.entries.length);
+function growEntries(block: TokenBlock, room = 1): Int32Array {
+  let length = 2 * block.entries.length;
+  while (length < block.tokens + room) length *= 2;
+  const entries = new Int32Array(length);
   entries.set(block.entries.subarray(0, block.tokens));
   block.entries = entries;
   return entries;
+}
+
+/** Room in the sentence arrays for `room` sentences more. */
+function growSentences(block: TokenBlock, room: number): void {
+  let length = 2 * block.sentenceEnds.length;
+  while (length < block.sentences + room) length *= 2;
+  const ends = new Uint32Array(length);
+  ends.set(block.sentenceEnds.subarray(0, block.sentences));
+  block.sentenceEnds = ends;
+  const lines = new Uint32Array(length);
+  lines.set(block.sentenceLines.subarray(0, block.sentences));
+  block.sentenceLines = lines;
 }
 
 /** Counts one line (not with `sameLine`: another sentence of the line before, as the lines of a
@@ -64,53 +82,9 @@ function endLine(block: TokenBlock, blank: boolean, sameLine = false): void {
     block.blankLines++;
     return;
   }
-  if (block.sentences === block.sentenceEnds.length) {
-    const ends = new Uint32Array(2 * block.sentenceEnds.length);
-    ends.set(block.sentenceEnds);
-    block.sentenceEnds = ends;
-    const lines = new Uint32Array(ends.length);
-    lines.set(block.sentenceLines);
-    block.sentenceLines = lines;
-  }
+  if (block.sentences === block.sentenceEnds.length) growSentences(block, 1);
   block.sentenceLines[block.sentences] = block.lines;
   block.sentenceEnds[block.sentences++] = block.tokens;
-}
-
-// Byte classes for the scanner.
-const WORD = 0;
-const SPACE = 1;
-const NEWLINE = 2;
-/** Lead byte of a multi-byte white-space character (C2, E1, E2, E3, EF), or of another character. */
-const MAYBE_SPACE = 3;
-
-const BYTE_CLASS = new Uint8Array(256);
-for (const b of [0x09, 0x0b, 0x0c, 0x0d, 0x20]) BYTE_CLASS[b] = SPACE;
-BYTE_CLASS[0x0a] = NEWLINE;
-for (const b of [0xc2, 0xe1, 0xe2, 0xe3, 0xef]) BYTE_CLASS[b] = MAYBE_SPACE;
-
-/**
- * Width in bytes of the multi-byte white-space character starting at bytes[p], or 0 when the
- * character there is not white space. bytes[p .. end) must be valid UTF-8.
- */
-export function multiByteSpaceWidth(bytes: Uint8Array, p: number, end: number): number {
-  const b0 = bytes[p];
-  if (b0 === 0xc2) return p + 1 < end && bytes[p + 1] === 0xa0 ? 2 : 0; // U+00A0
-  if (p + 2 >= end) return 0;
-  const b1 = bytes[p + 1];
-  const b2 = bytes[p + 2];
-  switch (b0) {
-    case 0xe1: // U+1680
-      return b1 === 0x9a && b2 === 0x80 ? 3 : 0;
-    case 0xe2: // U+2000–U+200A, U+2028, U+2029, U+202F (E2 80 xx); U+205F (E2 81 9F)
-      if (b1 === 0x80) return b2 <= 0x8a || b2 === 0xa8 || b2 === 0xa9 || b2 === 0xaf ? 3 : 0;
-      return b1 === 0x81 && b2 === 0x9f ? 3 : 0;
-    case 0xe3: // U+3000
-      return b1 === 0x80 && b2 === 0x80 ? 3 : 0;
-    case 0xef: // U+FEFF
-      return b1 === 0xbb && b2 === 0xbf ? 3 : 0;
-    default:
-      return 0;
-  }
 }
 
 /**
@@ -121,6 +95,51 @@ export function multiByteSpaceWidth(bytes: Uint8Array, p: number, end: number): 
  * sentence markers are left to the table (the passes keep entries for `<s>`, `</s>`, `<unk>`).
  */
 export function scanLines(bytes: Uint8Array, start: number, end: number, table: WordLookup, intern: boolean, out: TokenBlock): void {
+  if (table instanceof WordTable && table.inWasm) scanInWasm(bytes, start, end, table, intern, out);
+  else scanInJs(bytes, start, end, table, intern, out);
+}
+
+/**
+ * scanLines in WebAssembly (WordTable.scanPiece): the range goes into the table's memory in pieces
+ * of whole lines, WORD_SCAN_PIECE_BYTES at most (or one longer line), so a piece scans as the whole
+ * range would (no token or multi-byte character spans a '\n'); each piece's outputs are appended to
+ * `out`. When the table leaves its memory (one it outgrew could not be replaced), the rest of the
+ * range, from the piece it happened in, is scanned in JavaScript.
+ */
+function scanInWasm(bytes: Uint8Array, start: number, end: number, table: WordTable, intern: boolean, out: TokenBlock): void {
+  for (let p = start; p < end;) {
+    let pieceEnd = end;
+    if (end - p > WORD_SCAN_PIECE_BYTES) {
+      const cut = bytes.lastIndexOf(0x0a, p + WORD_SCAN_PIECE_BYTES - 1);
+      if (cut >= p) {
+        pieceEnd = cut + 1;
+      } else {
+        const next = bytes.indexOf(0x0a, p + WORD_SCAN_PIECE_BYTES);
+        if (next >= 0 && next < end) pieceEnd = next + 1;
+      }
+    }
+    const memory = table.scanPiece(bytes, p, pieceEnd, intern, out.tokens, out.lines);
+    if (memory === null) {
+      scanInJs(bytes, p, end, table, intern, out);
+      return;
+    }
+    const tokens = memory.tokens;
+    if (out.tokens + tokens > out.entries.length) growEntries(out, tokens);
+    out.entries.set(memory.entries.subarray(0, tokens), out.tokens);
+    out.tokens += tokens;
+    const sentences = memory.sentences;
+    if (out.sentences + sentences > out.sentenceEnds.length) growSentences(out, sentences);
+    out.sentenceEnds.set(memory.sentenceEnds.subarray(0, sentences), out.sentences);
+    out.sentenceLines.set(memory.sentenceLines.subarray(0, sentences), out.sentences);
+    out.sentences += sentences;
+    out.lines += memory.lines;
+    out.blankLines += memory.blankLines;
+    p = pieceEnd;
+  }
+}
+
+/** scanLines in JavaScript: any WordLookup. */
+function scanInJs(bytes: Uint8Array, start: number, end: number, table: WordLookup, intern: boolean, out: TokenBlock): void {
   let entries = out.entries;
   let tokens = out.tokens;
   let lineStart = tokens;

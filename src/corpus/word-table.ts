@@ -7,9 +7,17 @@
  * per probe); each word's record — its entry, its length and its bytes — lies in one arena, so a
  * lookup touches a slot and a record. Hashes are FNV-1a over the bytes, which a scanner can compute
  * while it looks for the token's end, then mixed (fmix32) before use.
+ *
+ * Where a WebAssembly memory can be had (engine 'auto'), the arrays are views of one (word-memory.ts)
+ * and scanLines tokenizes into the table there (`scanPiece`, word-scan.as.ts); the methods below work
+ * on the views as on ordinary arrays, so either side may add words, in the same order with the same
+ * entries. Otherwise (engine 'js', or no memory) they are ordinary arrays and scanLines runs in
+ * JavaScript.
  */
 import { assert } from '../errors.ts';
-import { WORD_TABLE_LOAD_MAX, WORD_TABLE_SLOTS_MIN } from '../limits.ts';
+import { WORD_SCAN_PIECE_BYTES, WORD_TABLE_LOAD_MAX, WORD_TABLE_SLOTS_MIN } from '../limits.ts';
+import type { WasmEngine } from '../wasm-module.ts';
+import { SCAN_DONE, SCAN_TABLE_FULL, WordMemory } from './word-memory.ts';
 
 /** FNV-1a (32-bit) offset basis and prime: start a token's hash at the basis, then per byte
  *  `h = Math.imul(h ^ byte, FNV_PRIME)`. */
@@ -66,22 +74,43 @@ export class WordTable implements WordLookup {
   private arenaView: Buffer | undefined;
   /** Room to encode a word given as a string. */
   private scratch: Buffer = Buffer.allocUnsafe(256);
+  /** The WebAssembly memory the arrays above are views of, or null: they are ordinary arrays. */
+  private memory: WordMemory | null = null;
 
-  constructor(slots: number = WORD_TABLE_SLOTS_MIN) {
+  /**
+   * @param slots initial slots, a power of two (the table holds half as many words before it grows)
+   * @param engine 'auto': the arrays in a WebAssembly memory, where scanLines tokenizes in
+   *   WebAssembly, when one can be had; 'js': ordinary arrays (tests compare the two)
+   */
+  constructor(slots: number = WORD_TABLE_SLOTS_MIN, engine: WasmEngine = WORD_TABLE_ENGINE) {
     assert(slots >= 2 && (slots & (slots - 1)) === 0, `slots ${slots} must be a power of two`);
-    this.slots = new Int32Array(2 * slots);
     this.mask = slots - 1;
     this.sizeMax = Math.floor(slots * WORD_TABLE_LOAD_MAX);
-    this.arena32 = new Uint32Array(slots * 4);
-    this.arena8 = new Uint8Array(this.arena32.buffer);
-    this.records = new Uint32Array(this.sizeMax);
+    const made = engine === 'js' ? null : WordMemory.create({ inputBytes: WORD_SCAN_PIECE_BYTES, slotCount: slots, sizeMax: this.sizeMax, arenaWordsMax: slots * 4 });
+    if (made instanceof WordMemory) {
+      this.memory = made;
+      this.slots = made.slots;
+      this.arena32 = made.arena32;
+      this.arena8 = made.arena8;
+      this.records = made.records;
+    } else {
+      this.slots = new Int32Array(2 * slots);
+      this.arena32 = new Uint32Array(slots * 4);
+      this.arena8 = new Uint8Array(this.arena32.buffer);
+      this.records = new Uint32Array(this.sizeMax);
+    }
   }
 
   /** A table with room for `words` words before it grows. */
-  static sizedFor(words: number): WordTable {
+  static sizedFor(words: number, engine: WasmEngine = WORD_TABLE_ENGINE): WordTable {
     let slots = WORD_TABLE_SLOTS_MIN;
     while (Math.floor(slots * WORD_TABLE_LOAD_MAX) < words) slots *= 2;
-    return new WordTable(slots);
+    return new WordTable(slots, engine);
+  }
+
+  /** True when the table lives in a WebAssembly memory (scanLines then scans in WebAssembly). */
+  get inWasm(): boolean {
+    return this.memory !== null;
   }
 
   /** Bytes held by the table's arrays. */
@@ -158,12 +187,7 @@ export class WordTable implements WordLookup {
     const length = end - start;
     const record = this.arenaWords;
     const recordWords = 2 + ((length + 3) >>> 2);
-    if (record + recordWords > this.arena32.length) {
-      const arena32 = new Uint32Array(Math.max(2 * this.arena32.length, record + recordWords));
-      arena32.set(this.arena32.subarray(0, record));
-      this.arena32 = arena32;
-      this.arena8 = new Uint8Array(arena32.buffer);
-    }
+    if (record + recordWords > this.arena32.length) this.growArena(recordWords);
     this.arena32[record] = entry;
     this.arena32[record + 1] = length;
     const arena8 = this.arena8;
@@ -171,8 +195,9 @@ export class WordTable implements WordLookup {
     for (let i = 0; i < length; i++) arena8[from + i] = bytes[start + i];
     this.arenaWords = record + recordWords;
     this.records[entry] = record;
-    slots[2 * slot] = h;
-    slots[2 * slot + 1] = record + 1;
+    // this.slots, not `slots`: a table in a memory moved to a new one if its arena grew above.
+    this.slots[2 * slot] = h;
+    this.slots[2 * slot + 1] = record + 1;
     this.size = entry + 1;
     return entry;
   }
@@ -223,24 +248,95 @@ export class WordTable implements WordLookup {
     return true;
   }
 
+  /**
+   * scanLines' work on bytes[start, end) — whole lines, the last perhaps without its '\n' — in
+   * WebAssembly: the text copied into the table's memory and scanned there, the table grown as it
+   * fills. Returns the memory, whose `entries`, `sentenceEnds` and `sentenceLines` hold the piece's
+   * tokens and sentences (the ends counted from token `tokenBase`, the lines from line `lineBase`),
+   * or null when the table has no memory (any more: one it outgrew could not be replaced, and the
+   * table moved to ordinary arrays, holding the words the piece added so far): scan the piece in
+   * JavaScript then, which finds those words with the same entries.
+   */
+  scanPiece(bytes: Uint8Array, start: number, end: number, intern: boolean, tokenBase: number, lineBase: number): WordMemory | null {
+    if (this.memory === null) return null;
+    if (end - start > this.memory.layout.inputBytes) {
+      this.reallocate(this.mask + 1, this.arena32.length, Math.max(end - start, 2 * this.memory.layout.inputBytes));
+      if (this.memory === null) return null;
+    }
+    let memory = this.memory;
+    memory.input.set(bytes.subarray(start, end));
+    memory.beginPiece(end - start, tokenBase, lineBase);
+    for (;;) {
+      const status = memory.scan(intern, this.size, this.arenaWords);
+      this.size = memory.size;
+      this.arenaWords = memory.arenaWords;
+      if (status === SCAN_DONE) return memory;
+      if (status === SCAN_TABLE_FULL) this.grow();
+      else this.growArena(memory.needWords);
+      if (this.memory === null) return null;
+      memory = this.memory;
+    }
+  }
+
+  /** Room in the arena for a record of `recordWords` words more. */
+  private growArena(recordWords: number): void {
+    this.reallocate(this.mask + 1, Math.max(2 * this.arena32.length, this.arenaWords + recordWords));
+  }
+
   /** Doubles the slots, re-placing every word by its stored hash (the words are not read). */
   private grow(): void {
-    const old = this.slots;
-    const slotCount = old.length; // 2 × old slots = the new slot count
-    this.slots = new Int32Array(2 * slotCount);
+    this.reallocate(2 * (this.mask + 1), this.arena32.length);
+  }
+
+  /**
+   * Moves the table to arrays of `slotCount` slots and `arenaWordsMax` arena words (and, in a
+   * memory, a piece region of `inputBytes`): a new memory when it has one — or, when none can be
+   * had, ordinary arrays from then on — else new arrays where the size changed. Words keep their
+   * records and entries; slots are re-placed by their stored hashes when their count changed.
+   */
+  private reallocate(slotCount: number, arenaWordsMax: number, inputBytes?: number): void {
+    const old = { slots: this.slots, records: this.records, arena32: this.arena32, inMemory: this.memory !== null };
+    const sizeMax = Math.floor(slotCount * WORD_TABLE_LOAD_MAX);
+    let memory: WordMemory | null = null;
+    if (this.memory !== null) {
+      const next = this.memory.resized({ inputBytes: inputBytes ?? this.memory.layout.inputBytes, slotCount, sizeMax, arenaWordsMax });
+      if (next instanceof WordMemory) memory = next;
+    }
+    this.memory = memory;
+    if (memory !== null) {
+      this.slots = memory.slots;
+      this.records = memory.records;
+      this.arena32 = memory.arena32;
+      this.arena8 = memory.arena8;
+    } else {
+      // Arrays of a size that did not change are kept, unless they were views of the memory left.
+      if (old.inMemory || old.slots.length !== 2 * slotCount) this.slots = new Int32Array(2 * slotCount);
+      if (old.inMemory || old.records.length !== sizeMax) this.records = new Uint32Array(sizeMax);
+      if (old.inMemory || old.arena32.length !== arenaWordsMax) {
+        this.arena32 = new Uint32Array(arenaWordsMax);
+        this.arena8 = new Uint8Array(this.arena32.buffer);
+      }
+    }
+    if (this.records !== old.records) this.records.set(old.records.subarray(0, this.size));
+    if (this.arena32 !== old.arena32) this.arena32.set(old.arena32.subarray(0, this.arenaWords));
     this.mask = slotCount - 1;
-    this.sizeMax = Math.floor(slotCount * WORD_TABLE_LOAD_MAX);
-    const records = new Uint32Array(this.sizeMax);
-    records.set(this.records.subarray(0, this.size));
-    this.records = records;
+    this.sizeMax = sizeMax;
+    if (this.slots === old.slots) return;
+    if (old.slots.length === 2 * slotCount) {
+      this.slots.set(old.slots);
+      return;
+    }
     const slots = this.slots;
     const mask = this.mask;
-    for (let i = 0; i < old.length; i += 2) {
-      if (old[i + 1] === 0) continue;
-      let slot = old[i] & mask;
+    for (let i = 0; i < old.slots.length; i += 2) {
+      if (old.slots[i + 1] === 0) continue;
+      let slot = old.slots[i] & mask;
       while (slots[2 * slot + 1] !== 0) slot = (slot + 1) & mask;
-      slots[2 * slot] = old[i];
-      slots[2 * slot + 1] = old[i + 1];
+      slots[2 * slot] = old.slots[i];
+      slots[2 * slot + 1] = old.slots[i + 1];
     }
   }
 }
+
+/** The engine of the tables made without one. */
+const WORD_TABLE_ENGINE: WasmEngine = 'auto';

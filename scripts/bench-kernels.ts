@@ -15,7 +15,12 @@
  *   count3   a CounterSet of order 3 (as a count worker makes it) counting 2 M positions of
  *   count5   sentences, then every counter's spillOrder; order 5 likewise
  *   scan     scanLines of 2 M tokens of text (Zipf-like words) into a fresh WordTable, as the
- *            vocabulary pass tokenizes and interns (src/corpus/byte-tokenizer.ts)
+ *            vocabulary pass tokenizes and interns (src/corpus/byte-tokenizer.ts; in WebAssembly
+ *            where the table is, word-scan.as.ts)
+ *   lookup   the same text scanned in lookup mode in a table of every word, as the count pass
+ *            reads text
+ *   scanjs   scan with the table's engine 'js' (a revision without engines ignores it): the
+ *            JavaScript twin beside the revision's
  *
  * --against  the revision whose src/ is the baseline
  * --rounds   rounds; each runs both once, alternating which goes first (default 8)
@@ -30,7 +35,7 @@ import { Prng } from './lib/prng.ts';
 import { extractRevision } from './lib/revision-tree.ts';
 
 const REPO = resolve(fileURLToPath(new URL('..', import.meta.url)));
-const KERNELS = ['decode', 'encode', 'tally', 'merge', 'merge3', 'count3', 'count5', 'scan'] as const;
+const KERNELS = ['decode', 'encode', 'tally', 'merge', 'merge3', 'count3', 'count5', 'scan', 'lookup', 'scanjs'] as const;
 type Kernel = (typeof KERNELS)[number];
 
 const { values } = parseArgs({ options: { against: { type: 'string' }, rounds: { type: 'string', default: '8' }, only: { type: 'string' } } });
@@ -203,18 +208,26 @@ const kernels: Record<Kernel, Run> = {
   merge3: (m) => mergeKernel(m, runs3, 3),
   count3: (m) => countAndSpill(m, 3),
   count5: (m) => countAndSpill(m, 5),
-  async scan(m) {
-    const table = new m.words.WordTable();
-    m.tokenizer.reserveWords(table);
-    const block = m.tokenizer.newTokenBlock();
-    const t0 = performance.now();
-    m.tokenizer.scanLines(text, 0, text.length, table, true, block);
-    const ns = ((performance.now() - t0) * 1e6) / textTokens;
-    let check = 0;
-    for (let t = 0; t < block.tokens; t++) check = (Math.imul(check, 31) + block.entries[t]) | 0;
-    return { ns, check: `${block.tokens} ${table.size} ${check}` };
-  },
+  scan: (m) => scanKernel(m, 'fresh', 'auto'),
+  lookup: (m) => scanKernel(m, 'lookup', 'auto'),
+  scanjs: (m) => scanKernel(m, 'fresh', 'js'),
 };
+
+/** scanLines of the text: into a fresh table, interning; or in lookup mode, in a table that has
+ *  every word already (interned by a scan before the clock starts). `engine` is passed to a WordTable
+ *  that takes one. */
+async function scanKernel(m: Modules, mode: 'fresh' | 'lookup', engine: 'auto' | 'js'): Promise<{ ns: number; check: string }> {
+  const table = new (m.words.WordTable as new (slots?: number, engine?: string) => InstanceType<typeof m.words.WordTable>)(undefined, engine);
+  m.tokenizer.reserveWords(table);
+  if (mode === 'lookup') m.tokenizer.scanLines(text, 0, text.length, table, true, m.tokenizer.newTokenBlock());
+  const block = m.tokenizer.newTokenBlock();
+  const t0 = performance.now();
+  m.tokenizer.scanLines(text, 0, text.length, table, mode === 'fresh', block);
+  const ns = ((performance.now() - t0) * 1e6) / textTokens;
+  let check = 0;
+  for (let t = 0; t < block.tokens; t++) check = (Math.imul(check, 31) + block.entries[t]) | 0;
+  return { ns, check: `${block.tokens} ${table.size} ${check}` };
+}
 
 /** A count worker's loop without its I/O: a CounterSet counts the sentences in batches, then every
  *  counter is sorted for a spill of 16 partitions (the set sized to hold it all: one spill). */

@@ -16,11 +16,10 @@
  */
 import { assert } from '../errors.ts';
 import { UNKNOWN_TOKEN, type Tokenizer } from './tokenize.ts';
-import { BYTE_CLASS, MAYBE_SPACE, multiByteSpaceWidth, NEWLINE, SPACE, WORD } from './byte-class.ts';
+import { byteClasses } from './byte-class.ts';
 import { WORD_SCAN_PIECE_BYTES } from '../limits.ts';
 import { FNV_OFFSET, FNV_PRIME, hashBytes, type WordLookup, WordTable } from './word-table.ts';
 
-export { multiByteSpaceWidth };
 
 /** Tokens of a run of lines, as word-table entries. */
 export interface TokenBlock {
@@ -85,6 +84,41 @@ function endLine(block: TokenBlock, blank: boolean, sameLine = false): void {
   if (block.sentences === block.sentenceEnds.length) growSentences(block, 1);
   block.sentenceLines[block.sentences] = block.lines;
   block.sentenceEnds[block.sentences++] = block.tokens;
+}
+
+// Byte classes for the scanner, as byteClasses() numbers them. Constants and table of this module,
+// not imports: V8 does not fold imported ones into the loop (with them the scan took 2.3× as long).
+const WORD = 0;
+const SPACE = 1;
+const NEWLINE = 2;
+/** Lead byte of a multi-byte white-space character (C2, E1, E2, E3, EF), or of another character. */
+const MAYBE_SPACE = 3;
+const BYTE_CLASS = byteClasses();
+assert(BYTE_CLASS[0x61] === WORD && BYTE_CLASS[0x20] === SPACE && BYTE_CLASS[0x0a] === NEWLINE && BYTE_CLASS[0xe2] === MAYBE_SPACE, 'the byte classes are numbered as byteClasses() numbers them');
+
+/**
+ * Width in bytes of the multi-byte white-space character starting at bytes[p], or 0 when the
+ * character there is not white space. bytes[p .. end) must be valid UTF-8.
+ */
+export function multiByteSpaceWidth(bytes: Uint8Array, p: number, end: number): number {
+  const b0 = bytes[p];
+  if (b0 === 0xc2) return p + 1 < end && bytes[p + 1] === 0xa0 ? 2 : 0; // U+00A0
+  if (p + 2 >= end) return 0;
+  const b1 = bytes[p + 1];
+  const b2 = bytes[p + 2];
+  switch (b0) {
+    case 0xe1: // U+1680
+      return b1 === 0x9a && b2 === 0x80 ? 3 : 0;
+    case 0xe2: // U+2000–U+200A, U+2028, U+2029, U+202F (E2 80 xx); U+205F (E2 81 9F)
+      if (b1 === 0x80) return b2 <= 0x8a || b2 === 0xa8 || b2 === 0xa9 || b2 === 0xaf ? 3 : 0;
+      return b1 === 0x81 && b2 === 0x9f ? 3 : 0;
+    case 0xe3: // U+3000
+      return b1 === 0x80 && b2 === 0x80 ? 3 : 0;
+    case 0xef: // U+FEFF
+      return b1 === 0xbb && b2 === 0xbf ? 3 : 0;
+    default:
+      return 0;
+  }
 }
 
 /**

@@ -12,7 +12,7 @@
 import { assert } from '../errors.ts';
 import { WASM_MEMORY_BYTES_MAX } from '../limits.ts';
 import { instanceWithMemory, wasmModuleAt } from '../wasm-module.ts';
-import { BYTE_CLASS } from './byte-class.ts';
+import { byteClasses } from './byte-class.ts';
 
 // State words (u32 index; word-scan.as.ts has them as byte offsets, S_* = 4 × these).
 const S_POS = 0;
@@ -68,6 +68,8 @@ const outputsFor = (bytes: number): number => Math.floor((bytes + 1) / 2);
 
 type Scan = (intern: number) => number;
 
+const BYTE_CLASSES = byteClasses();
+
 const scanModule = wasmModuleAt(new URL('./word-scan.wasm', import.meta.url));
 
 export class WordMemory {
@@ -109,7 +111,7 @@ export class WordMemory {
     this.records = new Uint32Array(buffer, recordsAt, layout.sizeMax);
     this.arena32 = new Uint32Array(buffer, arenaAt, layout.arenaWordsMax);
     this.arena8 = new Uint8Array(buffer, arenaAt, 4 * layout.arenaWordsMax);
-    this.bytes.set(BYTE_CLASS, CLASS_AT);
+    this.bytes.set(BYTE_CLASSES, CLASS_AT);
     const state = this.state;
     state[S_SLOTS_AT] = slotsAt;
     state[S_RECORDS_AT] = recordsAt;

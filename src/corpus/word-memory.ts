@@ -5,9 +5,10 @@
  * writes. word-table.ts keeps its slots, records and arena here as views (its JavaScript methods
  * work on them unchanged) and, in `scanPiece`, runs the scan.
  *
- * The layout is fixed for a memory's life (the memory never grows, so no view is ever detached):
- * a table that grows, or a piece larger than the piece region, moves to a new memory (`resized`),
- * as an ordinary table moves to new arrays.
+ * The table's regions come last, the arena at the end: a table grows with its memory, in place
+ * (`growArena`, `growTable`: the views are made again; a new memory would cost a fresh reservation,
+ * the pages of everything copied, and garbage collections). A piece larger than the piece region
+ * moves the table to a new memory (`resized`), as an ordinary table moves to new arrays.
  */
 import { assert } from '../errors.ts';
 import { WASM_MEMORY_BYTES_MAX } from '../limits.ts';
@@ -61,6 +62,8 @@ export interface WordMemoryLayout {
   arenaWordsMax: number;
 }
 
+const PAGE_BYTES = 65536;
+
 const align8 = (bytes: number): number => Math.ceil(bytes / 8) * 8;
 
 /** Tokens (and sentences) a piece of `bytes` can hold at most: each needs a byte and a separator. */
@@ -73,23 +76,35 @@ const BYTE_CLASSES = byteClasses();
 const scanModule = wasmModuleAt(new URL('./word-scan.wasm', import.meta.url));
 
 export class WordMemory {
-  readonly layout: WordMemoryLayout;
-  readonly slots: Int32Array;
-  readonly records: Uint32Array;
-  readonly arena32: Uint32Array;
-  readonly arena8: Uint8Array;
+  layout: WordMemoryLayout;
+  // Views, made again when the arena grows (growing the memory detaches the old ones).
+  slots!: Int32Array;
+  records!: Uint32Array;
+  arena32!: Uint32Array;
+  arena8!: Uint8Array;
   /** The piece of text being scanned. */
-  readonly input: Uint8Array;
+  input!: Uint8Array;
   /** A scan's outputs: entries, and sentence ends and lines (as a TokenBlock's). */
-  readonly entries: Int32Array;
-  readonly sentenceEnds: Uint32Array;
-  readonly sentenceLines: Uint32Array;
-  private readonly state: Uint32Array;
-  private readonly bytes: Uint8Array;
+  entries!: Int32Array;
+  sentenceEnds!: Uint32Array;
+  sentenceLines!: Uint32Array;
+  private state!: Uint32Array;
+  private bytes!: Uint8Array;
+  private readonly memory: WebAssembly.Memory;
   private readonly run: Scan;
 
   private constructor(memory: WebAssembly.Memory, run: Scan, layout: WordMemoryLayout) {
-    const buffer = memory.buffer;
+    this.memory = memory;
+    this.run = run;
+    this.layout = layout;
+    this.makeViews();
+    this.bytes.set(BYTE_CLASSES, CLASS_AT);
+  }
+
+  /** The views of the layout's regions, and their offsets and bounds in the state. */
+  private makeViews(): void {
+    const layout = this.layout;
+    const buffer = this.memory.buffer;
     const outputs = outputsFor(layout.inputBytes);
     const inputAt = FIXED_BYTES;
     const entriesAt = align8(inputAt + layout.inputBytes);
@@ -99,8 +114,6 @@ export class WordMemory {
     const recordsAt = slotsAt + 8 * layout.slotCount;
     const arenaAt = align8(recordsAt + 4 * layout.sizeMax);
     assert(arenaAt + 4 * layout.arenaWordsMax <= buffer.byteLength, 'the layout fits the memory');
-    this.layout = layout;
-    this.run = run;
     this.bytes = new Uint8Array(buffer);
     this.state = new Uint32Array(buffer, 0, STATE_WORDS);
     this.input = new Uint8Array(buffer, inputAt, layout.inputBytes);
@@ -111,7 +124,6 @@ export class WordMemory {
     this.records = new Uint32Array(buffer, recordsAt, layout.sizeMax);
     this.arena32 = new Uint32Array(buffer, arenaAt, layout.arenaWordsMax);
     this.arena8 = new Uint8Array(buffer, arenaAt, 4 * layout.arenaWordsMax);
-    this.bytes.set(BYTE_CLASSES, CLASS_AT);
     const state = this.state;
     state[S_SLOTS_AT] = slotsAt;
     state[S_RECORDS_AT] = recordsAt;
@@ -123,6 +135,57 @@ export class WordMemory {
     state[S_SIZE_MAX] = layout.sizeMax;
     state[S_MASK] = layout.slotCount - 1;
     state[S_ARENA_WORDS_MAX] = layout.arenaWordsMax;
+  }
+
+  /**
+   * Room for `arenaWordsMax` words in the arena, the last region: the memory grows in place (nothing
+   * moves, nothing is copied, a scan in progress carries on) and every view is made again; false when
+   * it cannot (over WASM_MEMORY_BYTES_MAX, or no more address space).
+   */
+  growArena(arenaWordsMax: number): boolean {
+    assert(arenaWordsMax >= this.layout.arenaWordsMax, 'an arena never shrinks');
+    const layout = { ...this.layout, arenaWordsMax };
+    const bytes = WordMemory.bytesFor(layout);
+    if (bytes > WASM_MEMORY_BYTES_MAX) return false;
+    const pages = Math.ceil((bytes - this.memory.buffer.byteLength) / PAGE_BYTES);
+    try {
+      if (pages > 0) this.memory.grow(pages);
+    } catch {
+      return false;
+    }
+    this.layout = layout;
+    this.makeViews();
+    return true;
+  }
+
+  /**
+   * Room for a table of `slotCount` slots and `sizeMax` words, its `size` words and `arenaWords` arena
+   * words kept: the memory grows in place, the arena and the records move up (nothing before them
+   * moves, so a scan in progress carries on), the slots are emptied and every view is made again.
+   * Returns the old slots, for the caller to place again by their hashes; null when the memory
+   * cannot grow (over WASM_MEMORY_BYTES_MAX, or no more address space).
+   */
+  growTable(slotCount: number, sizeMax: number, size: number, arenaWords: number): Int32Array | null {
+    assert(slotCount > this.layout.slotCount && sizeMax >= this.layout.sizeMax && size <= sizeMax && arenaWords <= this.layout.arenaWordsMax, 'a table grows');
+    const layout = { ...this.layout, slotCount, sizeMax };
+    const bytes = WordMemory.bytesFor(layout);
+    if (bytes > WASM_MEMORY_BYTES_MAX) return null;
+    const oldSlots = this.slots.slice();
+    const oldRecordsAt = this.records.byteOffset;
+    const oldArenaAt = this.arena32.byteOffset;
+    const pages = Math.ceil((bytes - this.memory.buffer.byteLength) / PAGE_BYTES);
+    try {
+      if (pages > 0) this.memory.grow(pages);
+    } catch {
+      return null;
+    }
+    this.layout = layout;
+    this.makeViews();
+    // Last region first, each to a higher address: nothing is overwritten before it is moved.
+    this.bytes.copyWithin(this.arena32.byteOffset, oldArenaAt, oldArenaAt + 4 * arenaWords);
+    this.bytes.copyWithin(this.records.byteOffset, oldRecordsAt, oldRecordsAt + 4 * size);
+    this.slots.fill(0);
+    return oldSlots;
   }
 
   /** Bytes of memory a layout takes. */
@@ -137,7 +200,7 @@ export class WordMemory {
       `a word memory of ${layout.slotCount} slots (a power of two) for at most ${layout.sizeMax} words`);
     const bytes = WordMemory.bytesFor(layout);
     if (bytes > WASM_MEMORY_BYTES_MAX) return new Error(`a word table of ${bytes} bytes is over the WebAssembly memory's ${WASM_MEMORY_BYTES_MAX}`);
-    const made = instanceWithMemory(scanModule(), bytes);
+    const made = instanceWithMemory(scanModule(), bytes, true);
     if (made instanceof Error) return made;
     return new WordMemory(made.memory, made.instance.exports.scan as Scan, layout);
   }

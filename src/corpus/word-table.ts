@@ -290,13 +290,15 @@ export class WordTable implements WordLookup {
 
   /**
    * Moves the table to arrays of `slotCount` slots and `arenaWordsMax` arena words (and, in a
-   * memory, a piece region of `inputBytes`): a new memory when it has one — or, when none can be
-   * had, ordinary arrays from then on — else new arrays where the size changed. Words keep their
+   * memory, a piece region of `inputBytes`): when it has a memory, that memory grown (the arena
+   * alone) or a new one — or, when neither can be had, ordinary arrays from then on — else new
+   * arrays where the size changed. Words keep their
    * records and entries; slots are re-placed by their stored hashes when their count changed.
    */
   private reallocate(slotCount: number, arenaWordsMax: number, inputBytes?: number): void {
-    const old = { slots: this.slots, records: this.records, arena32: this.arena32, inMemory: this.memory !== null };
     const sizeMax = Math.floor(slotCount * WORD_TABLE_LOAD_MAX);
+    if (this.memory !== null && inputBytes === undefined && this.growInPlace(this.memory, slotCount, sizeMax, arenaWordsMax)) return;
+    const old = { slots: this.slots, records: this.records, arena32: this.arena32, inMemory: this.memory !== null };
     let memory: WordMemory | null = null;
     if (this.memory !== null) {
       const next = this.memory.resized({ inputBytes: inputBytes ?? this.memory.layout.inputBytes, slotCount, sizeMax, arenaWordsMax });
@@ -304,10 +306,7 @@ export class WordTable implements WordLookup {
     }
     this.memory = memory;
     if (memory !== null) {
-      this.slots = memory.slots;
-      this.records = memory.records;
-      this.arena32 = memory.arena32;
-      this.arena8 = memory.arena8;
+      this.viewsOf(memory);
     } else {
       // Arrays of a size that did not change are kept, unless they were views of the memory left.
       if (old.inMemory || old.slots.length !== 2 * slotCount) this.slots = new Int32Array(2 * slotCount);
@@ -322,18 +321,45 @@ export class WordTable implements WordLookup {
     this.mask = slotCount - 1;
     this.sizeMax = sizeMax;
     if (this.slots === old.slots) return;
-    if (old.slots.length === 2 * slotCount) {
-      this.slots.set(old.slots);
-      return;
+    if (old.slots.length === 2 * slotCount) this.slots.set(old.slots);
+    else this.place(old.slots);
+  }
+
+  /** `reallocate` in the table's memory, grown where it is; false when it cannot grow. */
+  private growInPlace(memory: WordMemory, slotCount: number, sizeMax: number, arenaWordsMax: number): boolean {
+    if (arenaWordsMax !== this.arena32.length) {
+      if (!memory.growArena(arenaWordsMax)) return false;
+      this.viewsOf(memory);
     }
+    if (slotCount !== this.mask + 1) {
+      const oldSlots = memory.growTable(slotCount, sizeMax, this.size, this.arenaWords);
+      if (oldSlots === null) return false;
+      this.viewsOf(memory);
+      this.mask = slotCount - 1;
+      this.sizeMax = sizeMax;
+      this.place(oldSlots);
+    }
+    return true;
+  }
+
+  /** The arrays as the memory's views (made again whenever it grows). */
+  private viewsOf(memory: WordMemory): void {
+    this.slots = memory.slots;
+    this.records = memory.records;
+    this.arena32 = memory.arena32;
+    this.arena8 = memory.arena8;
+  }
+
+  /** Places every word of `oldSlots` in the (empty) slots by its stored hash. */
+  private place(oldSlots: Int32Array): void {
     const slots = this.slots;
     const mask = this.mask;
-    for (let i = 0; i < old.slots.length; i += 2) {
-      if (old.slots[i + 1] === 0) continue;
-      let slot = old.slots[i] & mask;
+    for (let i = 0; i < oldSlots.length; i += 2) {
+      if (oldSlots[i + 1] === 0) continue;
+      let slot = oldSlots[i] & mask;
       while (slots[2 * slot + 1] !== 0) slot = (slot + 1) & mask;
-      slots[2 * slot] = old.slots[i];
-      slots[2 * slot + 1] = old.slots[i + 1];
+      slots[2 * slot] = oldSlots[i];
+      slots[2 * slot + 1] = oldSlots[i + 1];
     }
   }
 }

@@ -221,29 +221,61 @@ describe('scanLines in WebAssembly and in JavaScript', () => {
   });
 });
 
-describe('a table that outgrows its memory where no new one can be had', () => {
-  const resized = WordMemory.prototype.resized;
+describe('a table that outgrows its memory where it cannot grow and no new one can be had', () => {
+  const { growArena, growTable, resized } = WordMemory.prototype;
   afterEach(() => {
-    WordMemory.prototype.resized = resized;
+    Object.assign(WordMemory.prototype, { growArena, growTable, resized });
   });
+
+  /** Every growth of a table's memory from the `failFrom`-th on fails (as when the process's address
+   *  space is used up); returns the growths tried. */
+  function failGrowthFrom(failFrom: number): () => number {
+    let growths = 0;
+    const fails = (): boolean => ++growths >= failFrom;
+    WordMemory.prototype.growArena = function (this: WordMemory, words) {
+      return fails() ? false : growArena.call(this, words);
+    };
+    WordMemory.prototype.growTable = function (this: WordMemory, ...args) {
+      return fails() ? null : growTable.apply(this, args);
+    };
+    WordMemory.prototype.resized = function (this: WordMemory, layout) {
+      return fails() ? new Error('no WebAssembly memory here') : resized.call(this, layout);
+    };
+    return () => growths;
+  }
 
   test('moves to ordinary arrays and scans the rest of the range in JavaScript, with the same results', () => {
     const random = seededRandom(23);
-    const text = zipfText(random, 200_000, 50_000);
+    const text = Buffer.from(zipfText(random, 200_000, 50_000) + 'x'.repeat(WORD_SCAN_PIECE_BYTES + 1));
+    for (const failFrom of [1, 3, 5]) {
+      const js = freshTable('js');
+      const jsBlock = newTokenBlock();
+      scanLines(text, 0, text.length, js, true, jsBlock);
+      const table = freshTable('auto');
+      const block = newTokenBlock();
+      const growths = failGrowthFrom(failFrom);
+      scanLines(text, 0, text.length, table, true, block);
+      Object.assign(WordMemory.prototype, { growArena, growTable, resized });
+      // The growth that failed, then the new memory that could not be had either.
+      expect(growths()).toBe(failFrom + 1);
+      expect(table.inWasm).toBe(false);
+      expectSameBlocks(block, jsBlock);
+      expectSameTables(table, js);
+    }
+  });
+
+  test('grows in place, and into a new memory for a longer piece, while it can', () => {
+    const random = seededRandom(29);
+    const text = Buffer.from(zipfText(random, 200_000, 50_000) + 'y'.repeat(WORD_SCAN_PIECE_BYTES + 1) + '\n' + zipfText(random, 50_000, 80_000));
     const js = freshTable('js');
     const jsBlock = newTokenBlock();
-    scanLines(Buffer.from(text), 0, Buffer.byteLength(text), js, true, jsBlock);
+    scanLines(text, 0, text.length, js, true, jsBlock);
     const table = freshTable('auto');
     const block = newTokenBlock();
-    // The first growth in WebAssembly goes through; from the third on, no memory can be had (as
-    // when the process's address space is used up), in the middle of a piece.
-    let growths = 0;
-    WordMemory.prototype.resized = function (this: WordMemory, layout) {
-      return ++growths >= 3 ? new Error('no WebAssembly memory here') : resized.call(this, layout);
-    };
-    scanLines(Buffer.from(text), 0, Buffer.byteLength(text), table, true, block);
-    expect(growths).toBe(3);
-    expect(table.inWasm).toBe(false);
+    const growths = failGrowthFrom(Infinity);
+    scanLines(text, 0, text.length, table, true, block);
+    expect(growths()).toBeGreaterThan(5);
+    expect(table.inWasm).toBe(true);
     expectSameBlocks(block, jsBlock);
     expectSameTables(table, js);
   });

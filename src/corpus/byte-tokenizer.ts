@@ -7,7 +7,9 @@
  * while its end is sought and looked up in the word table by its bytes; a `WordTable` takes them
  * 256 at a time, so that its cache misses overlap (`WordTable.lookupBatch`: tokenizing and
  * interning in 0.54–0.77× the time of one lookup per token in two runs of `npm run bench:kernels
- * -- --against 878c82d --only scan`).
+ * -- --against 878c82d --only scan`). A `WordTable` in a WebAssembly memory (the default where one
+ * can be had) is scanned into there instead, the same loop in word-scan.as.ts (`scanInWasm`); the
+ * loop below is its JavaScript twin, and the one for any other `WordLookup`.
  *
  * The result of a block of lines is a `TokenBlock`: the tokens' entries in order and where each
  * sentence (non-blank line) ends. Lines that need what only strings offer (Unicode normalisation,

@@ -17,6 +17,7 @@ import type { RadixPass } from './radix.ts';
 
 /** The parameter page: the passes from byte 0 (12 bytes each), the histogram from HISTOGRAM_AT. */
 const PARAMS_BYTES = 65536;
+const PAGE_BYTES = 65536;
 const HISTOGRAM_AT = 4096;
 const PASS_WORDS = 3;
 /** Passes the parameter page holds: (HISTOGRAM_AT / 12); a key of 8 words has at most 24. */
@@ -37,9 +38,10 @@ type CountEqual = (keys: number, n: number, keyWords: number, counts: number) =>
 const sortModule = wasmModuleAt(new URL('./spill-sort.wasm', import.meta.url));
 
 export class WasmSorter {
-  /** The scratch: `words` 32-bit words after the parameter page. */
-  readonly words: Uint32Array;
-  private readonly params: Uint32Array;
+  /** The scratch: `words` 32-bit words after the parameter page (a new view after `reserve`). */
+  words: Uint32Array;
+  private params: Uint32Array;
+  private readonly memory: WebAssembly.Memory;
   private readonly run: SortKeys;
   private readonly take: TakeSuffixes;
   private readonly countRows: CountEqual;
@@ -47,6 +49,7 @@ export class WasmSorter {
   private readonly unpack3: UnpackKeys3;
 
   private constructor(memory: WebAssembly.Memory, words: number, exports: WebAssembly.Exports) {
+    this.memory = memory;
     this.params = new Uint32Array(memory.buffer, 0, PARAMS_BYTES / 4);
     this.words = new Uint32Array(memory.buffer, PARAMS_BYTES, words);
     this.run = exports.sortKeys as SortKeys;
@@ -56,12 +59,36 @@ export class WasmSorter {
     this.unpack3 = exports.unpackKeys3 as UnpackKeys3;
   }
 
-  /** A scratch of `words` words in a WebAssembly memory, or why there is none. */
-  static create(words: number): WasmSorter | Error {
+  /** A scratch of `words` words in a WebAssembly memory, or why there is none. A `growable` one
+   *  may be given more words later (`reserve`). */
+  static create(words: number, growable = false): WasmSorter | Error {
     assert(Number.isInteger(words) && words >= 0, `a scratch of ${words} words`);
-    const made = instanceWithMemory(sortModule(), PARAMS_BYTES + 4 * words);
+    const made = instanceWithMemory(sortModule(), PARAMS_BYTES + 4 * words, growable);
     if (made instanceof Error) return new Error(`no WebAssembly sort scratch: ${made.message}`);
     return new WasmSorter(made.memory, words, made.instance.exports);
+  }
+
+  /** Bytes of the memory (the parameter page and the scratch). */
+  get bytes(): number {
+    return this.memory.buffer.byteLength;
+  }
+
+  /**
+   * At least `words` words of scratch, the ones there kept: a growable sorter's memory grows in
+   * place and `words` (and every other view of it) is made again. False when it cannot grow (made
+   * without `growable`, over WASM_MEMORY_BYTES_MAX, or no more address space).
+   */
+  reserve(words: number): boolean {
+    if (words <= this.words.length) return true;
+    const pages = Math.ceil((PARAMS_BYTES + 4 * words - this.memory.buffer.byteLength) / PAGE_BYTES);
+    try {
+      if (pages > 0) this.memory.grow(pages);
+    } catch {
+      return false;
+    }
+    this.params = new Uint32Array(this.memory.buffer, 0, PARAMS_BYTES / 4);
+    this.words = new Uint32Array(this.memory.buffer, PARAMS_BYTES, words);
+    return true;
   }
 
   /**

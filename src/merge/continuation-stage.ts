@@ -13,6 +13,7 @@ import type { EmitDone, MergeDone } from '../count/protocol.ts';
 import { baseInit, counterBudgetPerWorker } from '../count/stage.ts';
 import { CONTINUATION_RUNS_DIR } from './continuation.ts';
 import { localContinuationBytes } from './local-continuation.ts';
+import { fusedOrders } from './fused-continuation.ts';
 import { hasSuffixVector, unigramContinuations } from './suffix-vector.ts';
 import { removeMergeScratch, type PartitionMergeTask } from './merge-partition.ts';
 import { finishedTallies, readStatsFile, STATS_FILE } from './stage.ts';
@@ -37,11 +38,13 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
     // Order 1 from the vectors the raw merge kept (suffix-vector.ts), when every partition has one.
     let vectors = budget >= 0 && orderMax >= 2;
     for (let p = 0; p < partitions && vectors; p++) vectors = await hasSuffixVector(jobDir, p);
+    // Orders ≥ 2 the raw merge made (fused-continuation.ts), or whose rows fit the budget.
     const local: number[][] = [];
     for (let p = 0; p < partitions; p++) {
       const tallies = await finishedTallies(jobDir, p, 'raw');
+      const fused = await fusedOrders(jobDir, p);
       const orders: number[] = vectors ? [1] : [];
-      for (let m = 2; m < orderMax; m++) if (localContinuationBytes(tallies[m].distinct, m) <= budget) orders.push(m);
+      for (let m = 2; m < orderMax; m++) if (fused.has(m) || localContinuationBytes(tallies[m].distinct, m) <= budget) orders.push(m);
       local.push(orders);
     }
     stage.local = local;

@@ -116,7 +116,7 @@ export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, wid
 }
 
 /** The passes `sortRows` makes for rows of `width` ids whose bits, ORed, are `idBitsAll`. */
-function rowPasses(width: number, idBitsAll: number): ReturnType<typeof idRadixPasses> {
+export function rowPasses(width: number, idBitsAll: number): ReturnType<typeof idRadixPasses> {
   return idRadixPasses(Math.max(1, 32 - Math.clz32(idBitsAll)), 0, width, SORT_DIGIT_BITS);
 }
 

@@ -12,6 +12,7 @@ import { fewerRuns } from '../count/fan-in.ts';
 import { RunReader } from '../count/run-file.ts';
 import { nodeFs, type StageFs } from '../job/fsio.ts';
 import { mergeRuns, type BatchSource } from '../count/run-merge.ts';
+import { FusedContinuation, readFusedContinuation } from './fused-continuation.ts';
 import { localContinuationSource } from './local-continuation.ts';
 import { ngramKey, PartitionStore, type KeySpace } from './store.ts';
 import { SUFFIX_VECTOR_KEY, SuffixVector, unigramContinuationSource, type UnigramContinuation } from './suffix-vector.ts';
@@ -43,6 +44,9 @@ export interface PartitionMergeTask {
   localOrders?: number[];
   /** Continuation space with order 1 local: the partition's words' counts from the vectors. */
   unigrams?: UnigramContinuation;
+  /** Raw space: bytes the merge may hold to make the continuation counts of orders 2 … N−1 from
+   *  the rows it merges (fused-continuation.ts); absent: it makes none. */
+  fuseBytesMax?: number;
 }
 
 /** Test hooks: smaller transactions, a callback after each commit (which may throw to stop), a
@@ -94,8 +98,20 @@ export async function mergePartition(
       version: MERGE_PROGRESS_VERSION, order: 1, records: 0, tallies: [], current: null, done: false,
     };
     assert(progress.version === MERGE_PROGRESS_VERSION, `merge progress version ${progress.version}`);
+    // The raw merge makes the continuation counts it can from the rows it merges; the
+    // continuation merge takes those orders' tallies as they are, and writes the other orders'
+    // blocks below theirs, so not in append mode.
+    const fused = space === 'raw' && task.fuseBytesMax !== undefined ? new FusedContinuation(task.fuseBytesMax, orderMax) : undefined;
+    const made = space === 'continuation' ? readFusedContinuation(store) : new Map<number, OrderTally>();
     while (!progress.done) {
-      progress = await mergeOrder(jobDir, store, task, progress, orderMax, space, tuning);
+      const tally = made.get(progress.order);
+      if (tally !== undefined) {
+        assert(task.files[progress.order - 1].length === 0, `partition ${task.partition}: no runs for order ${progress.order}, whose continuation counts its raw merge made`);
+        progress = { ...progress, order: progress.order + 1, records: 0, tallies: [...progress.tallies, tally], current: null, done: progress.order === orderMax };
+        if (progress.done) store.commit([], progress, space, [], false);
+        continue;
+      }
+      progress = await mergeOrder(jobDir, store, task, progress, orderMax, space, tuning, fused, made.size === 0);
     }
     // Each order removes its intermediates once committed; this catches a stop between the two.
     await removeDir(partitionScratchOf(jobDir, space, task.partition));
@@ -113,6 +129,8 @@ async function mergeOrder(
   orderMax: number,
   space: KeySpace,
   tuning: MergeTuning,
+  fused: FusedContinuation | undefined,
+  append: boolean,
 ): Promise<MergeProgress> {
   const txnBlocks = tuning.txnBlocks ?? STORE_TXN_BLOCKS;
   const order = progress.order;
@@ -130,7 +148,7 @@ async function mergeOrder(
     blockSize = 0;
   };
   const commit = (next: MergeProgress): void => {
-    store.commit(pending, next, space);
+    store.commit(pending, next, space, [], append);
     pending = [];
     tuning.afterCommit?.();
   };
@@ -163,9 +181,13 @@ async function mergeOrder(
   // The raw merge of bigrams keeps the unigram continuation counts of its stream (including the
   // records a resumed merge skips: they are merged again, only not stored again).
   const suffixes = space === 'raw' && order === 2 ? new SuffixVector() : undefined;
+  // The suffixes of every row (again, the records a resumed merge skips included) for the
+  // continuation counts of order − 1.
+  const gather = fused?.gatherFor(order);
   for await (const batch of mergeRuns(readers, order)) {
     const { keys, counts, recordCount } = batch;
     suffixes?.addBigrams(keys, recordCount);
+    gather?.add(keys, recordCount);
     let j = 0;
     if (skip > 0) {
       j = Math.min(skip, recordCount);
@@ -206,7 +228,11 @@ async function mergeOrder(
     current: null,
     done: order === orderMax,
   };
-  store.commit(pending, next, space, suffixes !== undefined && !suffixes.overflow ? [[SUFFIX_VECTOR_KEY, suffixes.encode()]] : []);
+  if (gather !== undefined) fused!.keep(gather, finished.distinct);
+  const meta: Array<[Buffer, Uint8Array]> = suffixes !== undefined && !suffixes.overflow ? [[SUFFIX_VECTOR_KEY, suffixes.encode()]] : [];
+  // The continuation blocks made along the way go with the last order's commit: above every raw key.
+  if (next.done && fused !== undefined) pending.push(...fused.blocks()), meta.push(...fused.meta());
+  store.commit(pending, next, space, meta, append);
   pending = [];
   tuning.afterCommit?.();
   await removeDir(scratch);

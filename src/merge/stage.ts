@@ -9,7 +9,8 @@ import { assert, QuernError } from '../errors.ts';
 import { writeFileAtomic } from '../job/fsio.ts';
 import type { StageContext } from '../job/context.ts';
 import type { MergeDone } from '../count/protocol.ts';
-import { baseInit, sumOccurrences } from '../count/stage.ts';
+import { baseInit, counterBudgetPerWorker, sumOccurrences } from '../count/stage.ts';
+import { NO_LOCAL_CONTINUATION_ENV } from './continuation-stage.ts';
 import { removeMergeScratch, type PartitionMergeTask } from './merge-partition.ts';
 import { PartitionStore, partitionStoreDir, STORE_DIR, type KeySpace } from './store.ts';
 import { sumTallies, type OrderTally } from './tally.ts';
@@ -48,12 +49,15 @@ export async function readStatsFile(jobDir: string): Promise<StatsFile> {
   }
 }
 
-/** Groups the recorded run files by partition and order into merge tasks. */
+/** Groups the recorded run files by partition and order into merge tasks, each allowed a worker's
+ *  share of the budget for the continuation counts it makes (fused-continuation.ts). */
 function mergeTasks(ctx: StageContext): PartitionMergeTask[] {
   const { job } = ctx;
   const tasks: PartitionMergeTask[] = [];
+  // Tests set NO_LOCAL_CONTINUATION_ENV to take the continuation stage's run path for every order.
+  const fuseBytesMax = process.env[NO_LOCAL_CONTINUATION_ENV] === '1' || job.config.order < 3 ? undefined : counterBudgetPerWorker(ctx.memoryBytes, ctx.workers, 0);
   for (let p = 0; p < job.config.partitions; p++) {
-    tasks.push({ partition: p, files: Array.from({ length: job.config.order }, () => []) });
+    tasks.push({ partition: p, files: Array.from({ length: job.config.order }, () => []), ...(fuseBytesMax !== undefined ? { fuseBytesMax } : {}) });
   }
   for (const chunk of job.stages.count.chunks) {
     for (const run of chunk.runs) tasks[run.partition].files[run.order - 1].push(run.file);

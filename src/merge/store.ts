@@ -135,15 +135,17 @@ export class PartitionStore {
   }
 
   /** Writes blocks (key, value), the progress record and any metadata values (keys from
-   *  `metaKey`) in one synchronous, durable transaction. */
-  commit(blocks: Array<[Buffer, Buffer]>, progress: unknown, space: KeySpace = 'raw', meta: Array<[Buffer, Uint8Array]> = []): void {
+   *  `metaKey`) in one synchronous, durable transaction; the blocks in LMDB's append mode unless
+   *  `append` is false (their keys then need not be above every stored key). */
+  commit(blocks: Array<[Buffer, Buffer]>, progress: unknown, space: KeySpace = 'raw', meta: Array<[Buffer, Uint8Array]> = [], append = true): void {
     const progressValue = Buffer.from(JSON.stringify(progress), 'utf8');
     // Blocks come in key order, and the continuation space (first byte 0x41..) is written after
     // the raw space (0x01..0x07) is complete, so every block key is above all stored n-gram keys:
-    // LMDB's append mode applies (metadata keys start with 0x00, below every n-gram key).
+    // LMDB's append mode applies (metadata keys start with 0x00, below every n-gram key) — except
+    // for the continuation orders written below those the raw merge made (fused-continuation.ts).
     // A worker must not be terminated inside the transaction (stop-gate.ts): it would never end.
     runUnstoppable(() => this.db.transactionSync(() => {
-      for (const [key, value] of blocks) this.db.putSync(key, value, { append: true });
+      for (const [key, value] of blocks) this.db.putSync(key, value, { append });
       this.db.putSync(progressKey(space), progressValue);
       for (const [key, value] of meta) this.db.putSync(key, Buffer.from(value.buffer, value.byteOffset, value.byteLength));
     }));

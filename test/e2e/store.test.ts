@@ -10,6 +10,7 @@ import { referenceCountsByOrder } from '../support/reference-count.ts';
 import { parseListing, REPO, runQuern, tempDir } from '../support/cli.ts';
 import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import { NO_LOCAL_CONTINUATION_ENV } from '../../src/merge/continuation-stage.ts';
+import { fusedOrders } from '../../src/merge/fused-continuation.ts';
 import { MERGE_SCRATCH_DIR } from '../../src/merge/merge-partition.ts';
 import { MERGE_FAN_IN_MAX, STORE_ADDRESS_SPACE_MIN } from '../../src/limits.ts';
 import { addressSpaceLimit, checkStoreAddressSpace } from '../../src/merge/store.ts';
@@ -48,15 +49,17 @@ describe('count store', () => {
   });
 
   test('continuation counts computed inside each partition equal those merged from emitted runs', async () => {
-    // The job above computes orders 2 and 3 inside their partitions (local-continuation.ts) and
-    // order 1 from the vectors its raw merge kept (suffix-vector.ts); this one is forced through
-    // the emit-and-merge path for every order.
+    // The job above has orders 2 and 3 made by its raw merge from the rows it merged
+    // (fused-continuation.ts) and order 1 from the vectors that merge kept (suffix-vector.ts);
+    // this one is forced through the emit-and-merge path for every order.
     const viaRuns = path.join(tempDir(), 'job');
     const result = await runQuern(['count', corpus, '--job', viaRuns, '--order', '4', '--quiet', '--partitions', '5'], { env: { [NO_LOCAL_CONTINUATION_ENV]: '1' } });
     expect(result.status).toBe(0);
     const manifest = (dir: string) => JSON.parse(readFileSync(path.join(dir, 'job.json'), 'utf8'));
     expect(manifest(job).stages.continuation.local).toEqual([[1, 2, 3], [1, 2, 3], [1, 2, 3], [1, 2, 3], [1, 2, 3]]);
     expect(manifest(job).stages.continuation.emitted.flatMap((e: { runs: unknown[] }) => e.runs)).toEqual([]);
+    for (let p = 0; p < 5; p++) expect([...await fusedOrders(job, p)]).toEqual([2, 3]);
+    for (let p = 0; p < 5; p++) expect([...await fusedOrders(viaRuns, p)]).toEqual([]);
     expect(manifest(viaRuns).stages.continuation.local).toEqual([[], [], [], [], []]);
     expect(manifest(viaRuns).stages.continuation.emitted.flatMap((e: { runs: Array<{ order: number }> }) => e.runs.map((r) => r.order))).toContain(3);
     expect(await jobDigest(viaRuns)).toEqual(await jobDigest(job));

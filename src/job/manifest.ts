@@ -91,7 +91,7 @@ export interface MergeStage {
   partitionsDone: number[];
   /** Distinct n-grams per order (index 0 = order 1), once done; the full tallies are in stats.json. */
   distinct?: number[];
-  /** Bytes of the store on disk once done. */
+  /** Bytes of the store on disk once done (with the continuation counts its merge made). */
   storeBytes?: number;
   elapsedMs?: number;
 }
@@ -106,6 +106,8 @@ export interface ContinuationStage {
    *  (merge/local-continuation.ts) rather than from emitted runs; fixed when the stage starts,
    *  so a resumed stage (even with another --memory) splits the work the same way. */
   local?: number[][];
+  /** Bytes of the store on disk once done (raw and continuation counts). */
+  storeBytes?: number;
   elapsedMs?: number;
 }
 

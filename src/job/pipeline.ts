@@ -223,7 +223,8 @@ function summarize(
     spills: count.chunks.reduce((s, c) => s + c.spills, 0),
     runFiles: runs.length,
     runBytes: runs.reduce((s, r) => s + r.bytes, 0),
-    storeBytes: job.stages.merge.storeBytes ?? 0,
+    // The whole store once the continuation counts are in (a job stopped before: as the merge left it).
+    storeBytes: job.stages.continuation.storeBytes ?? job.stages.merge.storeBytes ?? 0,
     skipped: [...skippedByFile.values()],
     workers: request.workers,
     memoryBytes: request.memoryBytes,

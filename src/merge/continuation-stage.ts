@@ -16,7 +16,8 @@ import { localContinuationBytes } from './local-continuation.ts';
 import { fusedOrders } from './fused-continuation.ts';
 import { hasSuffixVector, unigramContinuations } from './suffix-vector.ts';
 import { removeMergeScratch, type PartitionMergeTask } from './merge-partition.ts';
-import { finishedTallies, readStatsFile, STATS_FILE } from './stage.ts';
+import { directoryBytes, finishedTallies, readStatsFile, STATS_FILE } from './stage.ts';
+import { STORE_DIR } from './store.ts';
 import { sumTallies, type OrderTally } from './tally.ts';
 
 /** Environment variable: '1' makes every partition emit runs for every order (a test hook). */
@@ -118,6 +119,7 @@ export async function continuationStage(ctx: StageContext, idMax: number): Promi
   await writeFileAtomic(ctx.fs, path.join(jobDir, STATS_FILE), JSON.stringify(stats) + '\n');
   stage.partitionsDone.sort((a, b) => a - b);
   await removeMergeScratch(jobDir);
+  stage.storeBytes = await directoryBytes(path.join(jobDir, STORE_DIR));
   stage.status = 'done';
   stage.elapsedMs = (stage.elapsedMs ?? 0) + Date.now() - started;
   await ctx.saveManifest();

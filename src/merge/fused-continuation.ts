@@ -104,7 +104,7 @@ export class SuffixGather {
     let bytes = 0;
     for (let j = 0; j < size; j += STORE_BLOCK_RECORDS) {
       const take = Math.min(STORE_BLOCK_RECORDS, size - j);
-      for (let r = j; r < j + take; r++) tally.add(keys, r * m, counts[r]);
+      tally.addRows(keys, counts, j, j + take);
       const block: [Buffer, Buffer] = [ngramKey(m, keys, j * m, 'continuation'), encodeBlockValue(keys, counts, j, take, m)];
       bytes += block[0].length + block[1].length;
       blocks.push(block);

@@ -198,7 +198,7 @@ async function mergeOrder(
     while (j < recordCount) {
       if (blockSize === 0 && recordCount - j >= STORE_BLOCK_RECORDS) {
         // A whole block inside the batch: encode it from the batch's arrays, without a copy.
-        for (let r = j; r < j + STORE_BLOCK_RECORDS; r++) tally.add(keys, r * order, counts[r]);
+        tally.addRows(keys, counts, j, j + STORE_BLOCK_RECORDS);
         pending.push([ngramKey(order, keys, j * order, space), encodeBlockValue(keys, counts, j, STORE_BLOCK_RECORDS, order)]);
         records += STORE_BLOCK_RECORDS;
         j += STORE_BLOCK_RECORDS;
@@ -206,7 +206,7 @@ async function mergeOrder(
         continue;
       }
       const take = Math.min(STORE_BLOCK_RECORDS - blockSize, recordCount - j);
-      for (let r = j; r < j + take; r++) tally.add(keys, r * order, counts[r]);
+      tally.addRows(keys, counts, j, j + take);
       blockKeys.set(keys.subarray(j * order, (j + take) * order), blockSize * order);
       blockCounts.set(counts.subarray(j, j + take), blockSize);
       blockSize += take;

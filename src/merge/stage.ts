@@ -65,7 +65,8 @@ function mergeTasks(ctx: StageContext): PartitionMergeTask[] {
   return tasks;
 }
 
-async function directoryBytes(dir: string): Promise<number> {
+/** Bytes of the files under `dir`. */
+export async function directoryBytes(dir: string): Promise<number> {
   const entries = await fsp.readdir(dir, { recursive: true, withFileTypes: true }).catch(() => []);
   let bytes = 0;
   for (const e of entries) if (e.isFile()) bytes += (await fsp.stat(path.join(e.parentPath, e.name))).size;

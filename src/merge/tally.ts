@@ -31,7 +31,8 @@ const DENSE_COUNTS = 4096;
 
 /** A count-of-counts being built: an array for small counts, a map beyond. */
 class CountHistogram {
-  private readonly dense = new Float64Array(DENSE_COUNTS);
+  /** n_r for r < DENSE_COUNTS (TallyBuilder.addRows updates it in place). */
+  readonly dense = new Float64Array(DENSE_COUNTS);
   private readonly sparse = new Map<number, number>();
 
   add(count: number): void {
@@ -101,6 +102,57 @@ export class TallyBuilder {
       for (let k = 0; k < contextLength; k++) this.context[k] = keys[offset + k];
     }
     this.contextSum += count;
+  }
+
+  /**
+   * `add` for rows first … end − 1 of `keys` (row r at r · order) with `counts[r]`: the same tally,
+   * the state in locals over the loop, and each row's context compared with the row before it
+   * (every id, without stopping at the first difference, so the loop does not branch on the data)
+   * instead of with a copy: `npm run bench:kernels -- --only tally` (3 M order-5 rows), 14.4 ns a
+   * row against `add`'s 27.4 (0.53×, 5 rounds, 2026-12-05).
+   */
+  addRows(keys: Uint32Array, counts: ArrayLike<number>, first: number, end: number): void {
+    if (end <= first) return;
+    const order = this.order;
+    const contextLength = order - 1;
+    const raw = this.raw.dense;
+    const contexts = this.contexts.dense;
+    const context = this.context;
+    let total = this.total;
+    let contextSum = this.contextSum;
+    let contextCount = this.contextCount;
+    for (let r = first; r < end; r++) {
+      const count = counts[r];
+      if (!(count >= 1)) assert(false, `count ${count} of a stored n-gram is at least 1`);
+      total += count;
+      if (count < DENSE_COUNTS) raw[count]++;
+      else this.raw.add(count);
+      const at = r * order;
+      if (keys[at] === BOS_ID) this.bosRaw.add(count);
+      if (contextLength === 0) continue;
+      let differ = 0;
+      if (r === first) {
+        for (let k = 0; k < contextLength; k++) differ |= context[k] ^ keys[at + k];
+      } else {
+        const before = at - order;
+        for (let k = 0; k < contextLength; k++) differ |= keys[before + k] ^ keys[at + k];
+      }
+      if (differ !== 0 || contextSum === 0) {
+        if (contextSum > 0) {
+          if (contextSum < DENSE_COUNTS) contexts[contextSum]++;
+          else this.contexts.add(contextSum);
+          contextCount++;
+        }
+        contextSum = 0;
+      }
+      contextSum += count;
+    }
+    const last = (end - 1) * order;
+    for (let k = 0; k < contextLength; k++) context[k] = keys[last + k];
+    this.distinct += end - first;
+    this.total = total;
+    this.contextSum = contextSum;
+    this.contextCount = contextCount;
   }
 
   private closeContext(): void {

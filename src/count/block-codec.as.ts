@@ -19,8 +19,12 @@
   return p;
 }
 
+/** What `encodeRecords` returns, ORed with the record's index, for a row not above the one before. */
+const NOT_ABOVE: usize = 0x80000000;
+
 /**
- * Codes the `n` rows of `order` u32 ids at `keys` (strictly increasing) and their f64 counts at
+ * Codes the `n` rows of `order` u32 ids at `keys` (strictly increasing: a row that is not above the
+ * one before stops it, and it returns NOT_ABOVE | that row's index) and their f64 counts at
  * `counts` (integers, 1 to 2^53 − 1) from the first row's count on, at `out`; returns the bytes
  * written.
  */
@@ -32,8 +36,11 @@ export function encodeRecords(keys: usize, counts: usize, n: u32, order: u32, ou
     const prev = base - rowBytes;
     let shared: usize = 0;
     while (shared < rowBytes - 4 && load<u32>(base + shared) == load<u32>(prev + shared)) shared += 4;
+    const id = load<u32>(base + shared);
+    const before = load<u32>(prev + shared);
+    if (id <= before) return NOT_ABOVE | <usize>r;
     store<u8>(p++, <u8>(shared >> 2));
-    p = putVar(p, <u64>(load<u32>(base + shared) - load<u32>(prev + shared)));
+    p = putVar(p, <u64>(id - before));
     for (let j = shared + 4; j < rowBytes; j += 4) p = putVar(p, <u64>load<u32>(base + j));
     p = putVar(p, <u64>load<f64>(counts + (<usize>r << 3)));
   }

@@ -6,7 +6,7 @@
  */
 import { crc32 } from 'node:zlib';
 import { RUN_COUNT_MAX } from '../limits.ts';
-import { encodeRecordsWasm } from './codec-wasm.ts';
+import { encodeRecordsWasm, rowsNotIncreasing } from './codec-wasm.ts';
 
 /** Fixed bytes of a block header before its first n-gram: crc32, record count, record bytes. */
 export const BLOCK_HEADER_FIXED_BYTES = 12;
@@ -69,7 +69,9 @@ export function putVarCount(buf: Uint8Array, p: number, value: number): number {
   return p;
 }
 
-/** Encodes one block of records [first, first+recordCount) at `p0`; returns the offset after it. */
+/** Encodes one block of records [first, first+recordCount) at `p0`; returns the offset after it.
+ *  Rows that do not strictly increase within the block are an assertion (naming the record's index
+ *  in `keys`), checked by the coders as they code. */
 export function encodeBlock(
   buf: Buffer,
   p0: number,
@@ -98,9 +100,12 @@ function encodeRecordsJs(buf: Buffer, start: number, keys: Uint32Array, counts: 
     const base = r * order;
     const prev = base - order;
     let shared = 0;
-    while (keys[base + shared] === keys[prev + shared]) shared++; // < order: checkRecords
+    while (shared < order - 1 && keys[base + shared] === keys[prev + shared]) shared++;
+    const id = keys[base + shared];
+    const before = keys[prev + shared];
+    if (id <= before) rowsNotIncreasing(r);
     buf[p++] = shared;
-    p = putVarU32(buf, p, keys[base + shared] - keys[prev + shared]);
+    p = putVarU32(buf, p, id - before);
     for (let j = shared + 1; j < order; j++) p = putVarU32(buf, p, keys[base + j]);
     p = putVarCount(buf, p, counts[r]);
   }

@@ -7,6 +7,13 @@
  */
 import { ORDER_MAX, RUN_BLOCK_RECORDS_MAX, RUN_RECORD_BYTES_MAX } from '../limits.ts';
 import { instanceWithMemory, wasmModuleAt, type WasmEngine } from '../wasm-module.ts';
+import { assert } from '../errors.ts';
+
+/** Row `r` of the keys is not above row r − 1 (an assertion: the coders check it as they code). */
+export function rowsNotIncreasing(r: number): never {
+  assert(false, `rows must strictly increase: record ${r} is not above record ${r - 1}`);
+  throw new Error('unreachable');
+}
 
 type EncodeRecords = (keys: number, counts: number, n: number, order: number, out: number) => number;
 
@@ -31,6 +38,8 @@ class WasmEncoder {
     this.u32.set(keys.subarray(first * order, (first + n) * order), KEYS_AT / 4);
     this.f64.set(counts.subarray(first, first + n), COUNTS_AT / 8);
     const bytes = this.run(KEYS_AT, COUNTS_AT, n, order, OUT_AT);
+    // NOT_ABOVE | r (block-codec.as.ts), an i32 here: row r of the block is not above the one before.
+    if (bytes < 0) rowsNotIncreasing(first + (bytes & 0x7fffffff));
     buf.set(this.u8.subarray(OUT_AT, OUT_AT + bytes), p);
     return p + bytes;
   }

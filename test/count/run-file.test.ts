@@ -17,6 +17,7 @@ import {
   type RunMeta,
 } from '../../src/count/run-file.ts';
 import { seededRandom } from '../support/seeded.ts';
+import { setCodecEngine } from '../../src/count/codec-wasm.ts';
 
 // ---- Helpers -----------------------------------------------------------------------------------
 
@@ -223,7 +224,7 @@ describe('writeRunFile', () => {
     { name: 'a partition out of range', keys, counts: [1, 1, 1], partition: 4096, pattern: /partition 4096 must be/ },
   ];
   for (const b of bad) {
-    it(`asserts on ${b.name} before creating any file`, async () => {
+    it(`asserts on ${b.name}, and leaves no file`, async () => {
       const filePath = path.join(dir, `bad-${b.name.replace(/\W+/g, '-')}.run`);
       const order = b.order ?? 2;
       const call = writeRunFile(nodeFs, filePath, meta(order, { partition: b.partition ?? 0 }), b.keys, b.counts, 3);
@@ -233,6 +234,29 @@ describe('writeRunFile', () => {
       expect(await temporaryFiles(filePath)).toEqual([]);
     });
   }
+
+  it('asserts on rows out of order anywhere in a long run — inside a later block (by either coder), where two blocks meet — and leaves no file', async () => {
+    const run = randomRun(3, 3 * RUN_BLOCK_RECORDS_MAX, zipfIds(prng(9), 5000), () => 1);
+    expect(run.recordCount).toBeGreaterThan(2 * RUN_BLOCK_RECORDS_MAX + 600);
+    const swapped = (r: number): Uint32Array => {
+      const keys = run.keys.slice();
+      keys.copyWithin(r * 3, (r - 1) * 3, r * 3);
+      keys.set(run.keys.subarray(r * 3, r * 3 + 3), (r - 1) * 3);
+      return keys;
+    };
+    const inside = RUN_BLOCK_RECORDS_MAX + 517;
+    for (const [engine, r] of [['auto', inside], ['js', inside], ['auto', 2 * RUN_BLOCK_RECORDS_MAX]] as const) {
+      setCodecEngine(engine);
+      try {
+        const filePath = path.join(dir, `swapped-${engine}-${r}.run`);
+        await expect(writeRunFile(nodeFs, filePath, meta(3), swapped(r), run.counts, run.recordCount)).rejects.toThrow(new RegExp(`strictly increase: record ${r} is not above record ${r - 1}`));
+        await expect(fsp.access(filePath)).rejects.toThrow();
+        expect(await temporaryFiles(filePath)).toEqual([]);
+      } finally {
+        setCodecEngine('auto');
+      }
+    }
+  });
 
   it('asserts when keys or counts are shorter than recordCount', async () => {
     await expect(writeRunFile(nodeFs, path.join(dir, 'short.run'), meta(2), keys, [1, 1, 1], 4)).rejects.toThrow(/keys holds 6 ids/);

@@ -261,7 +261,7 @@ export function formatVocabularyBytes(vocab: Vocabulary): Buffer {
   for (let id = 0; id < vocab.words.length; id++) {
     const word = vocab.words[id];
     const count = vocab.counts[id];
-    assert(Number.isSafeInteger(count) && count >= 0, `count ${count} of id ${id} is a whole number`);
+    if (!(Number.isSafeInteger(count) && count >= 0)) assert(false, `count ${count} of id ${id} is a whole number`);
     // Two numbers of at most 16 digits, two tabs, a newline and the word's bytes (≤ 3 per unit).
     if (at + 3 * word.length + 40 > buffer.length) {
       const larger = Buffer.allocUnsafe(2 * buffer.length + 3 * word.length);

@@ -12,7 +12,6 @@ import { assert } from '../errors.ts';
 /** Row `r` of the keys is not above row r − 1 (an assertion: the coders check it as they code). */
 export function rowsNotIncreasing(r: number): never {
   assert(false, `rows must strictly increase: record ${r} is not above record ${r - 1}`);
-  throw new Error('unreachable');
 }
 
 type EncodeRecords = (keys: number, counts: number, n: number, order: number, out: number) => number;

@@ -127,13 +127,13 @@ function checkMeta(meta: RunMeta): void {
 }
 
 /**
- * Checks the records before anything is written: counts are integers in 1..RUN_COUNT_MAX, the sum
- * of counts stays ≤ RUN_COUNT_MAX, and, with `rows`, rows strictly increase. Without `rows` the
- * caller leaves that to the coder (encodeBlock asserts it as it codes each block, before the file
- * is renamed into place) and checks where blocks meet: the comparison here was ~5 % of the count
- * stage in a CPU profile at order 5 (its early exit branches on the data).
+ * Checks the counts before anything is written: integers in 1..RUN_COUNT_MAX, their sum ≤
+ * RUN_COUNT_MAX; returns the sum. That the rows strictly increase is left to the block coders
+ * (encodeBlock asserts it as it codes each block, before the file is renamed into place), and the
+ * callers check where blocks meet: a comparison pass here was ~5 % of the count stage in a CPU
+ * profile at order 5 (its early exit branches on the data).
  */
-function checkRecords(keys: Uint32Array, counts: ArrayLike<number>, recordCount: number, order: number, rows = true): number {
+function checkCounts(counts: ArrayLike<number>, recordCount: number): number {
   let countSum = 0;
   for (let r = 0; r < recordCount; r++) {
     const count = counts[r];
@@ -144,14 +144,6 @@ function checkRecords(keys: Uint32Array, counts: ArrayLike<number>, recordCount:
       }
     }
     countSum += count;
-    if (r === 0 || !rows) continue;
-    const base = r * order;
-    const prev = base - order;
-    let j = 0;
-    while (j < order && keys[base + j] === keys[prev + j]) j++;
-    if (j === order || keys[base + j] < keys[prev + j]) {
-      assert(false, `run keys must strictly increase: record ${r} is not above record ${r - 1}`);
-    }
   }
   assert(countSum <= RUN_COUNT_MAX, `sum of counts ${countSum} exceeds ${RUN_COUNT_MAX}`);
   return countSum;
@@ -219,7 +211,7 @@ export async function writeRunFile(
   );
   assert(keys.length >= recordCount * order, `keys holds ${keys.length} ids, fewer than recordCount × order = ${recordCount * order}`);
   assert(counts.length >= recordCount, `counts holds ${counts.length} counts, fewer than recordCount ${recordCount}`);
-  const countSum = checkRecords(keys, counts, recordCount, order, false);
+  const countSum = checkCounts(counts, recordCount);
   for (let first = RUN_BLOCK_RECORDS_MAX; first < recordCount; first += RUN_BLOCK_RECORDS_MAX) {
     if (compareRows(keys, (first - 1) * order, keys, first * order, order) >= 0) rowsNotIncreasing(first);
   }
@@ -282,7 +274,7 @@ export async function writeRunFileFrom(fs: StageFs, filePath: string, meta: RunM
       if (recordCount > 0 && compareRows(lastKey, 0, blockKeys, 0, order) >= 0) {
         assert(false, `run keys must strictly increase: record ${recordCount} is not above record ${recordCount - 1}`);
       }
-      countSum += checkRecords(blockKeys, blockCounts, inBlock, order);
+      countSum += checkCounts(blockCounts, inBlock);
       assert(countSum <= RUN_COUNT_MAX, `sum of counts ${countSum} exceeds ${RUN_COUNT_MAX}`);
       if (buf.length - used < blockBytesMax(order, inBlock)) {
         await file.write(buf.subarray(0, used));

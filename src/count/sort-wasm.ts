@@ -68,11 +68,6 @@ export class WasmSorter {
     return new WasmSorter(made.memory, words, made.instance.exports);
   }
 
-  /** Bytes of the memory (the parameter page and the scratch). */
-  get bytes(): number {
-    return this.memory.buffer.byteLength;
-  }
-
   /**
    * At least `words` words of scratch, the ones there kept: a growable sorter's memory grows in
    * place and `words` (and every other view of it) is made again. False when it cannot grow (made

@@ -654,7 +654,7 @@ function scanOrder(scan: StoreScan, store: PartitionStore, partition: number, or
       for (let j = 0; j < block.recordCount; j++) {
         const problem = rowProblem(block.keys, j * order, order, space, partition, scan.partitions, vocabSize);
         if (problem !== undefined) return problem;
-        tally.add(block.keys, j * order, block.counts[j]);
+        tally.addRows(block.keys, block.counts, j, j + 1);
         if (!unigrams) continue;
         scan.unigrams++;
         const id = block.keys[j];

@@ -22,7 +22,7 @@ import { encodeBlockValue } from '../count/block-codec.ts';
 import { WasmSorter } from '../count/sort-wasm.ts';
 import { STORE_BLOCK_RECORDS } from '../limits.ts';
 import { metaKey, ngramKey, PartitionStore, partitionStoreDir } from './store.ts';
-import { rowPasses } from './local-continuation.ts';
+import { countSortedSuffixes } from './local-continuation.ts';
 import { TallyBuilder, type OrderTally } from './tally.ts';
 
 /** The metadata value: JSON { version, orders, tallies } (tallies[i] is orders[i]'s). */
@@ -53,11 +53,6 @@ export class SuffixGather {
 
   get alive(): boolean {
     return this.sorter !== null;
-  }
-
-  /** Bytes the gather holds now. */
-  get bytes(): number {
-    return this.sorter?.bytes ?? 0;
   }
 
   /** Takes the suffixes of `rows` rows of order+1 ids (row-major in `keys`). */
@@ -94,11 +89,7 @@ export class SuffixGather {
     assert(n === distinct, `the gather of order ${m + 1} took ${n} rows, the merge counted ${distinct}`);
     const words = 2 * n * m + n;
     if (4 * words > this.bytesMax || !sorter.reserve(words)) return null;
-    const at = sorter.sortKeys(0, n * m, n, m, rowPasses(m, this.idBitsAll >>> 0).passes) ? n * m : 0;
-    const countsAt = 2 * n * m;
-    const size = sorter.countEqual(at, n, m, countsAt);
-    const keys = sorter.words.subarray(at, at + size * m);
-    const counts = sorter.words.subarray(countsAt, countsAt + size);
+    const { keys, counts, size } = countSortedSuffixes(sorter, n, m, this.idBitsAll);
     const tally = new TallyBuilder(m);
     const blocks: Array<[Buffer, Buffer]> = [];
     let bytes = 0;

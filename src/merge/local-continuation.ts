@@ -116,7 +116,7 @@ export function sortRows(rows: Uint32Array, scratch: Uint32Array, n: number, wid
 }
 
 /** The passes `sortRows` makes for rows of `width` ids whose bits, ORed, are `idBitsAll`. */
-export function rowPasses(width: number, idBitsAll: number): ReturnType<typeof idRadixPasses> {
+function rowPasses(width: number, idBitsAll: number): ReturnType<typeof idRadixPasses> {
   return idRadixPasses(Math.max(1, 32 - Math.clz32(idBitsAll)), 0, width, SORT_DIGIT_BITS);
 }
 
@@ -190,6 +190,15 @@ function suffixCountsInWasm(
     filled += block.recordCount;
   }
   assert(filled === n, `${n} rows of order ${order + 1} expected, ${filled} read`);
+  return countSortedSuffixes(sorter, n, order, idBitsAll);
+}
+
+/**
+ * The `n` suffixes of `order` ids at word 0 of `sorter` (whose ids, ORed, are `idBitsAll`; at least
+ * 2 × n × order + n words) sorted by `sortRows`' passes and counted where equal, the counts after
+ * both halves: each distinct suffix once, in order, with how often it occurs.
+ */
+export function countSortedSuffixes(sorter: WasmSorter, n: number, order: number, idBitsAll: number): { keys: Uint32Array; counts: Uint32Array; size: number } {
   const at = sorter.sortKeys(0, n * order, n, order, rowPasses(order, idBitsAll >>> 0).passes) ? n * order : 0;
   const countsAt = 2 * n * order;
   const size = sorter.countEqual(at, n, order, countsAt);

@@ -231,7 +231,10 @@ async function mergeOrder(
   if (gather !== undefined) fused!.keep(gather, finished.distinct);
   const meta: Array<[Buffer, Uint8Array]> = suffixes !== undefined && !suffixes.overflow ? [[SUFFIX_VECTOR_KEY, suffixes.encode()]] : [];
   // The continuation blocks made along the way go with the last order's commit: above every raw key.
-  if (next.done && fused !== undefined) pending.push(...fused.blocks()), meta.push(...fused.meta());
+  if (next.done && fused !== undefined) {
+    pending.push(...fused.blocks());
+    meta.push(...fused.meta());
+  }
   store.commit(pending, next, space, meta, append);
   pending = [];
   tuning.afterCommit?.();

@@ -67,7 +67,7 @@ function storedRows(store: PartitionStore, order: number): Rows {
 
 function tallyOf(rows: Rows, order: number) {
   const tally = new TallyBuilder(order);
-  for (const ids of sortedKeys(rows)) tally.add(Uint32Array.from(ids), 0, rows.get(ids.join(' '))!);
+  for (const ids of sortedKeys(rows)) tally.addRows(Uint32Array.from(ids), [rows.get(ids.join(' '))!], 0, 1);
   return tally.finish();
 }
 

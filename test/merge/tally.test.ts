@@ -1,6 +1,6 @@
 /**
- * TallyBuilder against count-of-counts made here with Maps from the same sorted rows: per row
- * (`add`) and in batches cut anywhere (`addRows`), with a checkpoint taken and resumed between
+ * TallyBuilder against count-of-counts made here with Maps from the same sorted rows: a row at a
+ * time and in batches cut anywhere, with a checkpoint taken and resumed between
  * batches as a resumed merge does; counts and context sums past the dense range included.
  */
 import { describe, expect, test } from 'vitest';
@@ -49,7 +49,7 @@ function expectedTally(rows: Rows, order: number): OrderTally {
 
 describe('TallyBuilder', () => {
   for (const order of [1, 2, 3, 5]) {
-    test(`order ${order}: add per row and addRows in batches cut anywhere, resumed from checkpoints, give the tally by definition`, () => {
+    test(`order ${order}: a row at a time and in batches cut anywhere, resumed from checkpoints, give the tally by definition`, () => {
       const rows = sortedRows(order, order, order === 1 ? 3000 : 20_000); // order 1: at most 5,000 ids
       const expected = expectedTally(rows, order);
       expect(expected.raw.some(([r]) => r >= 4096)).toBe(true);
@@ -57,7 +57,7 @@ describe('TallyBuilder', () => {
       expect(expected.bosRaw.length).toBeGreaterThan(0);
 
       const perRow = new TallyBuilder(order);
-      for (let r = 0; r < rows.n; r++) perRow.add(rows.keys, r * order, rows.counts[r]);
+      for (let r = 0; r < rows.n; r++) perRow.addRows(rows.keys, rows.counts, r, r + 1);
       expect(perRow.finish()).toEqual(expected);
 
       const random = seededRandom(100 + order);
@@ -81,7 +81,7 @@ describe('TallyBuilder', () => {
     });
   }
 
-  test('addRows refuses a count below 1, as add does', () => {
+  test('addRows refuses a count below 1', () => {
     expect(() => new TallyBuilder(2).addRows(Uint32Array.from([1, 2, 1, 3]), Float64Array.from([1, 0]), 0, 2)).toThrow(/count 0 of a stored n-gram/);
   });
 });
